@@ -1,0 +1,83 @@
+// Thin LAPACK/BLAS wrappers: eigenvalues, singular values, QR, polar factor, products.
+//
+// Matrices are Eigen column-major objects; every routine hands their storage straight to
+// LAPACKE/CBLAS (OpenBLAS). No dense linear algebra here is written as loops of our own.
+// Routines that take a non-const reference overwrite it (LAPACK works in place; this saves a
+// full N×N copy, which matters at N = 4000+: shared/reference/perf-anchors.md §6).
+#pragma once
+
+#include <Eigen/Core>
+#include <complex>
+#include <string>
+
+namespace freegap::linalg {
+
+using Index = Eigen::Index;
+using CMatrix = Eigen::MatrixXcd;
+using RMatrix = Eigen::MatrixXd;
+using Vector = Eigen::VectorXd;
+
+/// Which LAPACK driver computes eigenvalues of a Hermitian / real-symmetric matrix.
+enum class EigenDriver {
+  automatic,  ///< chosen by size through choose_eigen_driver (the one place the choice lives)
+  classic,    ///< zheevd / dsyevd (tridiagonal reduction + dsterf when only eigenvalues are asked)
+  two_stage,  ///< zheevd_2stage / dsyevd_2stage (band reduction first; eigenvalues only)
+};
+
+/// The driver used for `automatic`. Measured with OpenBLAS 0.3.21, one thread
+/// (shared/reference/perf-anchors.md §2): complex Hermitian two-stage/classic time ratio is
+/// 0.91 at N = 500, 0.76 at 1000, 0.62 at 2000, 0.51 at 4000, so two-stage from N ≥ 400;
+/// real symmetric two-stage is no faster (1.03 at N = 2000), so the classic driver throughout.
+EigenDriver choose_eigen_driver(Index n, bool is_complex);
+const char* driver_name(EigenDriver driver, bool is_complex);
+
+/// Eigenvalues of a Hermitian matrix, ascending. Only the lower triangle is read; `a` is destroyed.
+Vector eigenvalues(CMatrix& a, EigenDriver driver = EigenDriver::automatic);
+/// Eigenvalues of a real symmetric matrix, ascending. Only the lower triangle is read; `a` is destroyed.
+Vector eigenvalues(RMatrix& a, EigenDriver driver = EigenDriver::automatic);
+
+/// Eigenvalues of a general square complex matrix (zgeev, no vectors), in LAPACK's order.
+/// `a` is destroyed. For non-normal models (circular law) and eigenangles of unitaries.
+Eigen::VectorXcd eigenvalues_general(CMatrix& a);
+
+/// Singular values, descending (zgesdd / dgesdd, no vectors). `a` is destroyed.
+Vector singular_values(CMatrix& a);
+Vector singular_values(RMatrix& a);
+
+/// Haar unitary from a square complex Ginibre matrix Z, in place: Z = QR (zgeqrf + zungqr),
+/// then Z ← Q·diag(r_ii/|r_ii|). Without the phase fix Q is not Haar distributed
+/// (Mezzadri 2007, "How to generate random matrices from the classical compact groups").
+void haar_from_qr(CMatrix& z);
+/// Haar orthogonal from a square real Ginibre matrix, in place (dgeqrf + dorgqr, sign fix).
+void haar_from_qr(RMatrix& z);
+
+/// Polar factor U = Z (Z^*Z)^(-1/2) = W V^* of a square matrix Z = W Σ V^* (zgesdd + zgemm).
+/// For a Ginibre Z it is exactly Haar distributed (Z ↦ VZ invariance).
+CMatrix polar_factor(CMatrix z);
+RMatrix polar_factor(RMatrix z);
+
+/// How a factor enters a product (BLAS's op argument).
+enum class Op { none, transpose, adjoint };
+
+/// c ← alpha·op(a)·op(b) + beta·c through zgemm / dgemm. `c` must be sized already when beta ≠ 0;
+/// otherwise it is resized.
+void gemm(const CMatrix& a, Op op_a, const CMatrix& b, Op op_b, CMatrix& c,
+          std::complex<double> alpha = 1.0, std::complex<double> beta = 0.0);
+void gemm(const RMatrix& a, Op op_a, const RMatrix& b, Op op_b, RMatrix& c, double alpha = 1.0,
+          double beta = 0.0);
+
+/// Hermitian rank-k update of the lower triangle: c ← alpha·a·a^* + beta·c (zherk), or with
+/// `op = adjoint`, c ← alpha·a^*·a + beta·c. The strict upper triangle of c is left untouched;
+/// call mirror_lower when a full matrix is needed.
+void herk(const CMatrix& a, Op op, CMatrix& c, double alpha = 1.0, double beta = 0.0);
+/// Real symmetric rank-k update of the lower triangle (dsyrk); `op = transpose` for aᵀ·a.
+void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha = 1.0, double beta = 0.0);
+
+/// Copy the lower triangle onto the upper one (conjugated for complex matrices).
+void mirror_lower(CMatrix& c);
+void mirror_lower(RMatrix& c);
+
+/// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
+std::string blas_description();
+
+}  // namespace freegap::linalg

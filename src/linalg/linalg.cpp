@@ -1,0 +1,291 @@
+// LAPACKE / CBLAS wrappers (OpenBLAS). Column-major throughout, as Eigen stores matrices.
+#include "freegap/linalg.hpp"
+
+#include <cblas.h>
+#include <lapacke.h>
+
+#include <algorithm>
+#include <string>
+
+#include "freegap/errors.hpp"
+
+extern "C" char* openblas_get_config(void);
+
+namespace freegap::linalg {
+
+namespace {
+
+void check_info(lapack_int info, const char* routine) {
+  if (info != 0) {
+    throw NumericalError(std::string("LAPACK ") + routine + " failed (info = " +
+                         std::to_string(info) + ")");
+  }
+}
+
+void require_square(Index rows, Index cols, const char* what) {
+  if (rows != cols) {
+    throw InputError(std::string(what) + ": matrix is " + std::to_string(rows) + "x" +
+                     std::to_string(cols) + ", expected a square matrix");
+  }
+}
+
+lapack_complex_double* lp(std::complex<double>* p) {
+  return reinterpret_cast<lapack_complex_double*>(p);
+}
+
+CBLAS_TRANSPOSE to_cblas(Op op) {
+  switch (op) {
+    case Op::none:
+      return CblasNoTrans;
+    case Op::transpose:
+      return CblasTrans;
+    case Op::adjoint:
+      return CblasConjTrans;
+  }
+  return CblasNoTrans;
+}
+
+template <class M>
+Index op_rows(const M& a, Op op) {
+  return op == Op::none ? a.rows() : a.cols();
+}
+template <class M>
+Index op_cols(const M& a, Op op) {
+  return op == Op::none ? a.cols() : a.rows();
+}
+
+}  // namespace
+
+EigenDriver choose_eigen_driver(Index n, bool is_complex) {
+  if (is_complex && n >= 400) return EigenDriver::two_stage;
+  return EigenDriver::classic;
+}
+
+const char* driver_name(EigenDriver driver, bool is_complex) {
+  if (driver == EigenDriver::two_stage) return is_complex ? "zheevd_2stage" : "dsyevd_2stage";
+  return is_complex ? "zheevd" : "dsyevd";
+}
+
+Vector eigenvalues(CMatrix& a, EigenDriver driver) {
+  require_square(a.rows(), a.cols(), "eigenvalues");
+  const Index n = a.rows();
+  Vector w(n);
+  if (n == 0) return w;
+  if (driver == EigenDriver::automatic) driver = choose_eigen_driver(n, true);
+  const lapack_int ln = static_cast<lapack_int>(n);
+  if (driver == EigenDriver::two_stage) {
+    check_info(LAPACKE_zheevd_2stage(LAPACK_COL_MAJOR, 'N', 'L', ln, lp(a.data()), ln, w.data()),
+               "zheevd_2stage");
+  } else {
+    check_info(LAPACKE_zheevd(LAPACK_COL_MAJOR, 'N', 'L', ln, lp(a.data()), ln, w.data()),
+               "zheevd");
+  }
+  return w;
+}
+
+Vector eigenvalues(RMatrix& a, EigenDriver driver) {
+  require_square(a.rows(), a.cols(), "eigenvalues");
+  const Index n = a.rows();
+  Vector w(n);
+  if (n == 0) return w;
+  if (driver == EigenDriver::automatic) driver = choose_eigen_driver(n, false);
+  const lapack_int ln = static_cast<lapack_int>(n);
+  if (driver == EigenDriver::two_stage) {
+    check_info(LAPACKE_dsyevd_2stage(LAPACK_COL_MAJOR, 'N', 'L', ln, a.data(), ln, w.data()),
+               "dsyevd_2stage");
+  } else {
+    check_info(LAPACKE_dsyevd(LAPACK_COL_MAJOR, 'N', 'L', ln, a.data(), ln, w.data()), "dsyevd");
+  }
+  return w;
+}
+
+Eigen::VectorXcd eigenvalues_general(CMatrix& a) {
+  require_square(a.rows(), a.cols(), "eigenvalues_general");
+  const Index n = a.rows();
+  Eigen::VectorXcd w(n);
+  if (n == 0) return w;
+  const lapack_int ln = static_cast<lapack_int>(n);
+  check_info(LAPACKE_zgeev(LAPACK_COL_MAJOR, 'N', 'N', ln, lp(a.data()), ln, lp(w.data()), nullptr,
+                           1, nullptr, 1),
+             "zgeev");
+  return w;
+}
+
+Vector singular_values(CMatrix& a) {
+  const Index k = std::min(a.rows(), a.cols());
+  Vector s(k);
+  if (k == 0) return s;
+  const lapack_int m = static_cast<lapack_int>(a.rows()), n = static_cast<lapack_int>(a.cols());
+  check_info(LAPACKE_zgesdd(LAPACK_COL_MAJOR, 'N', m, n, lp(a.data()), m, s.data(), nullptr, 1,
+                            nullptr, 1),
+             "zgesdd");
+  return s;
+}
+
+Vector singular_values(RMatrix& a) {
+  const Index k = std::min(a.rows(), a.cols());
+  Vector s(k);
+  if (k == 0) return s;
+  const lapack_int m = static_cast<lapack_int>(a.rows()), n = static_cast<lapack_int>(a.cols());
+  check_info(
+      LAPACKE_dgesdd(LAPACK_COL_MAJOR, 'N', m, n, a.data(), m, s.data(), nullptr, 1, nullptr, 1),
+      "dgesdd");
+  return s;
+}
+
+void haar_from_qr(CMatrix& z) {
+  require_square(z.rows(), z.cols(), "haar_from_qr");
+  const Index n = z.rows();
+  if (n == 0) return;
+  const lapack_int ln = static_cast<lapack_int>(n);
+  Eigen::VectorXcd tau(n);
+  check_info(LAPACKE_zgeqrf(LAPACK_COL_MAJOR, ln, ln, lp(z.data()), ln, lp(tau.data())), "zgeqrf");
+  // Phases r_jj/|r_jj| of R's diagonal, read before zungqr overwrites it (Mezzadri 2007).
+  Eigen::VectorXcd phase(n);
+  for (Index j = 0; j < n; ++j) {
+    const std::complex<double> r = z(j, j);
+    const double mod = std::abs(r);
+    phase(j) = mod > 0.0 ? r / mod : std::complex<double>(1.0, 0.0);
+  }
+  check_info(LAPACKE_zungqr(LAPACK_COL_MAJOR, ln, ln, ln, lp(z.data()), ln, lp(tau.data())),
+             "zungqr");
+  z = z * phase.asDiagonal();  // column scaling, O(N^2)
+}
+
+void haar_from_qr(RMatrix& z) {
+  require_square(z.rows(), z.cols(), "haar_from_qr");
+  const Index n = z.rows();
+  if (n == 0) return;
+  const lapack_int ln = static_cast<lapack_int>(n);
+  Vector tau(n);
+  check_info(LAPACKE_dgeqrf(LAPACK_COL_MAJOR, ln, ln, z.data(), ln, tau.data()), "dgeqrf");
+  Vector sign(n);
+  for (Index j = 0; j < n; ++j) sign(j) = z(j, j) < 0.0 ? -1.0 : 1.0;
+  check_info(LAPACKE_dorgqr(LAPACK_COL_MAJOR, ln, ln, ln, z.data(), ln, tau.data()), "dorgqr");
+  z = z * sign.asDiagonal();
+}
+
+CMatrix polar_factor(CMatrix z) {
+  require_square(z.rows(), z.cols(), "polar_factor");
+  const Index n = z.rows();
+  CMatrix w(n, n), vt(n, n);
+  Vector s(n);
+  if (n == 0) return w;
+  const lapack_int ln = static_cast<lapack_int>(n);
+  check_info(LAPACKE_zgesdd(LAPACK_COL_MAJOR, 'A', ln, ln, lp(z.data()), ln, s.data(),
+                            lp(w.data()), ln, lp(vt.data()), ln),
+             "zgesdd");
+  CMatrix u;
+  gemm(w, Op::none, vt, Op::none, u);  // U = W V^* (vt already holds V^*)
+  return u;
+}
+
+RMatrix polar_factor(RMatrix z) {
+  require_square(z.rows(), z.cols(), "polar_factor");
+  const Index n = z.rows();
+  RMatrix w(n, n), vt(n, n);
+  Vector s(n);
+  if (n == 0) return w;
+  const lapack_int ln = static_cast<lapack_int>(n);
+  check_info(LAPACKE_dgesdd(LAPACK_COL_MAJOR, 'A', ln, ln, z.data(), ln, s.data(), w.data(), ln,
+                            vt.data(), ln),
+             "dgesdd");
+  RMatrix u;
+  gemm(w, Op::none, vt, Op::none, u);
+  return u;
+}
+
+void gemm(const CMatrix& a, Op op_a, const CMatrix& b, Op op_b, CMatrix& c,
+          std::complex<double> alpha, std::complex<double> beta) {
+  const Index m = op_rows(a, op_a), k = op_cols(a, op_a), n = op_cols(b, op_b);
+  if (op_rows(b, op_b) != k) throw InputError("gemm: inner dimensions differ");
+  if (beta == std::complex<double>(0.0)) {
+    c.resize(m, n);
+  } else if (c.rows() != m || c.cols() != n) {
+    throw InputError("gemm: output has the wrong shape");
+  }
+  if (m == 0 || n == 0) return;
+  if (k == 0) {
+    c *= beta;
+    return;
+  }
+  cblas_zgemm(CblasColMajor, to_cblas(op_a), to_cblas(op_b), static_cast<blasint>(m),
+              static_cast<blasint>(n), static_cast<blasint>(k), &alpha, a.data(),
+              static_cast<blasint>(a.rows()), b.data(), static_cast<blasint>(b.rows()), &beta,
+              c.data(), static_cast<blasint>(m));
+}
+
+void gemm(const RMatrix& a, Op op_a, const RMatrix& b, Op op_b, RMatrix& c, double alpha,
+          double beta) {
+  if (op_a == Op::adjoint) op_a = Op::transpose;
+  if (op_b == Op::adjoint) op_b = Op::transpose;
+  const Index m = op_rows(a, op_a), k = op_cols(a, op_a), n = op_cols(b, op_b);
+  if (op_rows(b, op_b) != k) throw InputError("gemm: inner dimensions differ");
+  if (beta == 0.0) {
+    c.resize(m, n);
+  } else if (c.rows() != m || c.cols() != n) {
+    throw InputError("gemm: output has the wrong shape");
+  }
+  if (m == 0 || n == 0) return;
+  if (k == 0) {
+    c *= beta;
+    return;
+  }
+  cblas_dgemm(CblasColMajor, to_cblas(op_a), to_cblas(op_b), static_cast<blasint>(m),
+              static_cast<blasint>(n), static_cast<blasint>(k), alpha, a.data(),
+              static_cast<blasint>(a.rows()), b.data(), static_cast<blasint>(b.rows()), beta,
+              c.data(), static_cast<blasint>(m));
+}
+
+void herk(const CMatrix& a, Op op, CMatrix& c, double alpha, double beta) {
+  if (op == Op::transpose) throw InputError("herk: use Op::none or Op::adjoint");
+  const Index n = op == Op::none ? a.rows() : a.cols();
+  const Index k = op == Op::none ? a.cols() : a.rows();
+  if (beta == 0.0) {
+    c.resize(n, n);
+    // zherk with beta = 0 does not read c, but the strict upper triangle would stay
+    // uninitialised; zero it so the matrix is always fully defined.
+    c.setZero();
+  } else if (c.rows() != n || c.cols() != n) {
+    throw InputError("herk: output has the wrong shape");
+  }
+  if (n == 0) return;
+  cblas_zherk(CblasColMajor, CblasLower, op == Op::none ? CblasNoTrans : CblasConjTrans,
+              static_cast<blasint>(n), static_cast<blasint>(k), alpha, a.data(),
+              static_cast<blasint>(a.rows()), beta, c.data(), static_cast<blasint>(n));
+}
+
+void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha, double beta) {
+  const bool trans = op != Op::none;
+  const Index n = trans ? a.cols() : a.rows();
+  const Index k = trans ? a.rows() : a.cols();
+  if (beta == 0.0) {
+    c.resize(n, n);
+    c.setZero();
+  } else if (c.rows() != n || c.cols() != n) {
+    throw InputError("syrk: output has the wrong shape");
+  }
+  if (n == 0) return;
+  cblas_dsyrk(CblasColMajor, CblasLower, trans ? CblasTrans : CblasNoTrans,
+              static_cast<blasint>(n), static_cast<blasint>(k), alpha, a.data(),
+              static_cast<blasint>(a.rows()), beta, c.data(), static_cast<blasint>(n));
+}
+
+void mirror_lower(CMatrix& c) {
+  const Index n = c.rows();
+  for (Index j = 0; j + 1 < n; ++j) c.row(j).tail(n - j - 1) = c.col(j).tail(n - j - 1).adjoint();
+}
+
+void mirror_lower(RMatrix& c) {
+  const Index n = c.rows();
+  for (Index j = 0; j + 1 < n; ++j) {
+    c.row(j).tail(n - j - 1) = c.col(j).tail(n - j - 1).transpose();
+  }
+}
+
+std::string blas_description() {
+  const char* config = openblas_get_config();
+  return config ? std::string(config) : std::string("unknown BLAS");
+}
+
+}  // namespace freegap::linalg
