@@ -42,7 +42,8 @@ class Stream {
 
   /// Next 32 random bits.
   std::uint32_t next_u32();
-  /// Uniform on the open interval (0, 1) with 53 random bits: ((x1>>5)·2^26 + (x2>>6) + 0.5)·2^-53.
+  /// Uniform on the open interval (0, 1) with 52 random bits: ((x1>>6)·2^26 + (x2>>6) + 0.5)·2^-52,
+  /// exact in double and never 0 or 1.
   double uniform();
   /// Standard normal N(0,1) by the Marsaglia polar method (pairs; deterministic given the stream).
   double normal();

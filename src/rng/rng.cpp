@@ -73,10 +73,11 @@ std::uint32_t Stream::next_u32() {
 }
 
 double Stream::uniform() {
-  // 53-bit uniform on (0,1): the +0.5 keeps it away from 0 and 1 (reference §4g, common practice).
-  const std::uint64_t hi = next_u32() >> 5;  // 27 bits
+  // 52 random bits k from two words, then (k + 1/2)·2^-52: every value is exact and strictly
+  // inside (0, 1). (With 53 bits, (2^53 − 1 + 1/2)·2^-53 rounds to exactly 1.)
+  const std::uint64_t hi = next_u32() >> 6;  // 26 bits
   const std::uint64_t lo = next_u32() >> 6;  // 26 bits
-  return (static_cast<double>((hi << 26) | lo) + 0.5) * 0x1.0p-53;
+  return (static_cast<double>((hi << 26) | lo) + 0.5) * 0x1.0p-52;
 }
 
 double Stream::normal() {
