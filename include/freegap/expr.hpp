@@ -1,0 +1,195 @@
+// Polynomial expressions in declared matrices: parse, check (shapes, self-adjointness), plan,
+// evaluate.
+//
+// Syntax (our own, as written on paper), by example:
+//
+//   B + U B U^*          X1 X2 + X2 X1         1/2 (X1 X2 + X2 X1)       X1 - 0.25 X2^3
+//   G G^*                (A B)^* (A B)         U1 + U1^* + U2 + U2^*      X1/2 + 3*X2 - 1
+//
+//  - names: a letter, then letters, digits or '_' (X1, B, U_2); every name must be declared;
+//  - sums and differences with '+' and '-'; a leading '-' (or '+') is allowed at the start of the
+//    expression and right after '('; "A + -B" is refused (write "A - B" or "A + (-B)");
+//  - products by juxtaposition or '*';
+//  - real numbers: 2, 0.5, 1e-3; a fraction is a product with a division, so "1/2 (A B)" is
+//    (1/2)·(A B). Division is by numbers only ("X1/2" is X1·½; "A/B" is refused). A number may
+//    start a product but not follow a factor without '*' ("2 A" and "A*2" are fine, "A 2" is not);
+//  - a number on its own in a sum is that multiple of the identity: "A^2 - 1" is A² − I;
+//  - postfix '^k' (k a non-negative integer, at most 1000) and '^*' (adjoint) apply to the name,
+//    number or parenthesised group just before them and chain left to right: "U^2^*" is (U²)^*,
+//    "U^*^2" is (U^*)²; '^' binds tighter than products and unary minus ("-X^2" is −(X²)).
+//
+// Checks: every name is declared; shapes agree symbolically (N for square matrices, one symbol M,
+// M2, ... per distinct ratio c of rectangular Ginibre matrices, so "G G" with G N×M is refused even
+// when M happens to equal N); the whole expression is square. Self-adjointness is decided
+// symbolically: the expression is expanded into a sum of words in the letters and their adjoints
+// (self-adjoint letters are their own adjoints, adjacent U U^* of a Haar unitary cancel, adjacent
+// diagonal letters commute), and compared with its formal adjoint. The expansion stops at a cap
+// (100 000 monomials by default); the expression is then "not proven self-adjoint" and gets
+// singular values, with a note saying so.
+//
+// Evaluation: the expression becomes a graph in which identical subexpressions — including one
+// and its adjoint, e.g. X1 X2 and X2 X1 = (X1 X2)^* for self-adjoint X1, X2 — are one node, so
+// each is computed once. Products go to zgemm/dgemm; Y Y^* and Y^* Y go to zherk/dsyrk; diagonal
+// factors scale rows or columns in O(N²); Y D Y^* with D real diagonal is formed by rank-k updates
+// (below); powers use repeated squaring, a self-adjoint X² being X X^* (herk). Scalars fold into
+// BLAS alpha where the product is used once. Arithmetic is real when every factor is real.
+//
+// Y D Y^* with D diagonal: write D − d_r I = D₊ − D₋ (positive and negative parts), where d_r is
+// the most frequent value of D when Y is unitary (then Y d_r I Y^* = d_r I) and 0 otherwise. Then
+// Y D Y^* = d_r I + W₊W₊^* − W₋W₋^*, W± = Y restricted to the columns where D ≠ d_r, scaled by
+// √|d − d_r|: at most two herks over the columns where D ≠ d_r. For B = ±1 and Haar U this is one
+// herk on N/2 columns, 4 times cheaper than a general product
+// (shared/reference/perf-anchors.md §4: 0.33 s against 1.57 s at N = 2000).
+//
+// Flop conventions (Plan::flops, explain): complex gemm 8mnk, real 2mnk; zherk 4n²k, dsyrk n²k;
+// scaling a complex entry by a real number 2, a real entry 1; adding a scaled term to a complex
+// matrix 4 per entry, to a real one 2; operations on diagonals N per operation; copies, mirroring
+// a triangle, transposing and promoting real to complex 0.
+//
+// Memory: a plan holds its inputs (the caller's samples, not copied) plus temporaries. For
+// B + U B U^* it holds the result (one N×N) and, during the herk, the N×N/2 scaled columns of U,
+// so the peak is 1.5 N×N complex temporaries (16 N² bytes each). Plan::peak_temporary_bytes gives
+// the exact peak of any plan; temporaries are freed after their last use and sums accumulate in
+// place into a temporary that is not needed afterwards.
+#pragma once
+
+#include <Eigen/Core>
+#include <cstddef>
+#include <memory>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "freegap/ensembles.hpp"
+#include "freegap/errors.hpp"
+
+namespace freegap::expr {
+
+using Index = Eigen::Index;
+
+/// A malformed or ill-shaped expression. The message ends with "at column k" (1-based) where a
+/// place can be named.
+class ExprError : public InputError {
+ public:
+  ExprError(const std::string& message, int column);
+  /// 1-based column of the offending token, or 0 when the error concerns the whole expression.
+  int column() const { return column_; }
+
+ private:
+  int column_;
+};
+
+/// Which spectrum the expression gets.
+enum class Spectrum {
+  eigenvalues,      ///< real eigenvalues of a self-adjoint result (lower triangle read)
+  singular_values,  ///< singular values (operator norm = the largest)
+};
+
+struct CheckOptions {
+  /// Singular values even when the expression is self-adjoint.
+  bool force_singular_values = false;
+  /// Cap on the monomials of the symbolic expansion used to decide self-adjointness.
+  std::size_t max_monomials = 100000;
+};
+
+namespace detail {
+struct ExpressionData;
+struct PlanData;
+}  // namespace detail
+
+/// A parsed and checked expression over declared matrices.
+class Expression {
+ public:
+  /// Parses `text` over the matrices `declared` and checks it. Throws ExprError.
+  Expression(std::string_view text, std::vector<ensembles::MatrixSpec> declared,
+             const CheckOptions& options = {});
+
+  const std::string& text() const;
+  const std::vector<ensembles::MatrixSpec>& declared() const;
+  /// Self-adjoint, proven symbolically.
+  bool self_adjoint() const;
+  /// The spectrum that will be computed.
+  Spectrum spectrum() const;
+  /// Every factor is real (real arithmetic throughout).
+  bool is_real() const;
+  /// Why self-adjointness could not be decided (expansion cap), or empty.
+  const std::string& note() const;
+  /// The symbolic shape, e.g. "N×N".
+  std::string shape() const;
+
+ private:
+  friend class Plan;
+  std::shared_ptr<const detail::ExpressionData> data_;
+};
+
+struct PlanOptions {
+  /// Form the full matrix even when the lower triangle would do (eigenvalues of a self-adjoint
+  /// result read only the lower triangle).
+  bool full_result = false;
+};
+
+/// The evaluated expression: real or complex dense, square.
+struct Evaluated {
+  bool is_complex = false;
+  Eigen::MatrixXd real;
+  Eigen::MatrixXcd complex;
+  /// Only the lower triangle (with the diagonal) is valid; the upper one is unspecified.
+  bool lower_only = false;
+};
+
+/// What one step of a plan does.
+enum class StepKind {
+  gemm,           ///< general product (zgemm / dgemm)
+  herk,           ///< Y Y^* or Y^* Y (zherk / dsyrk)
+  conjugate,      ///< Y D Y^* with D diagonal, by rank-k updates (zherk / dsyrk)
+  scale_rows,     ///< diag(d)·A
+  scale_columns,  ///< A·diag(d)
+  sum,            ///< linear combination, with multiples of the identity and diagonals
+  diagonal,       ///< arithmetic on diagonals (vectors)
+  to_dense,       ///< a diagonal result written as a dense matrix
+  copy,           ///< the result is an input matrix, copied (the spectrum routine overwrites it)
+  adjoint,        ///< the result is the adjoint of a computed matrix
+};
+
+struct StepInfo {
+  StepKind kind;
+  std::string output;       ///< "t3"
+  std::string description;  ///< "X1·X2", "herk(t1)", ...
+  std::string routine;      ///< "zgemm", "zherk", "column scaling", ...
+  double flops = 0.0;
+};
+
+/// An evaluation plan for one size N.
+class Plan {
+ public:
+  Plan(const Expression& expression, Index n, const PlanOptions& options = {});
+
+  Index size() const;
+  Spectrum spectrum() const;
+  const std::vector<StepInfo>& steps() const;
+  /// Total floating-point operations (conventions above).
+  double flops() const;
+  /// Peak bytes of temporaries held at once (inputs not counted, the result counted).
+  std::size_t peak_temporary_bytes() const;
+  /// Bytes of the inputs (dense N×N complex 16 N², real 8 N², diagonal 8 N).
+  std::size_t input_bytes() const;
+  /// Text for --explain: each step with its routine and flops, the arithmetic, self-adjointness,
+  /// the spectrum, total flops and peak memory.
+  std::string explain() const;
+
+  /// Evaluates on samples given in declaration order (one per declared matrix; unused ones may be
+  /// empty). Throws InputError when a used sample has the wrong storage or shape.
+  Evaluated evaluate(const std::vector<ensembles::Sample>& samples) const;
+
+ private:
+  std::shared_ptr<const detail::PlanData> data_;
+};
+
+/// Peak working memory of evaluating `expression` at size n: inputs plus peak temporaries.
+std::size_t peak_working_bytes(const Expression& expression, Index n);
+
+/// The spectrum the plan asks for, computed in place (the matrix is destroyed): eigenvalues
+/// ascending, or singular values descending.
+Eigen::VectorXd compute_spectrum(Spectrum spectrum, Evaluated& result);
+
+}  // namespace freegap::expr

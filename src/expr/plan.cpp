@@ -1,0 +1,1160 @@
+// Evaluation plans: the expression as a hash-consed graph (one node per distinct subexpression up
+// to adjoints), lowered to BLAS steps with flop counts and a memory simulation, then evaluated.
+#include <algorithm>
+#include <bit>
+#include <cmath>
+#include <complex>
+#include <cstdio>
+#include <functional>
+#include <map>
+#include <set>
+#include <sstream>
+#include <unordered_map>
+
+#include "freegap/linalg.hpp"
+#include "internal.hpp"
+
+namespace freegap::expr {
+namespace detail {
+namespace {
+
+using Complex = std::complex<double>;
+
+/// A use of a graph node, possibly adjointed.
+struct Ref {
+  int node = -1;
+  bool adj = false;
+  int key() const { return 2 * node + (adj ? 1 : 0); }
+  bool operator==(const Ref&) const = default;
+};
+
+enum class NodeKind { leaf, product, gram, conjugate, sum };
+
+struct Node {
+  NodeKind kind = NodeKind::leaf;
+  int leaf = -1;
+  std::vector<Ref> args;      // product: a, b; gram: Y; conjugate: Y, D; sum: terms
+  std::vector<double> coefs;  // sum: one per term
+  double identity = 0.0;      // sum: coefficient of I
+  int rows = 0, cols = 0;     // symbolic dimensions
+  bool real = false, diag = false, self_adjoint = false, unitary = false;
+};
+
+/// Linear combination c₀·I + Σ c_i·ref_i: the value of a syntax-tree node during lowering.
+struct Lin {
+  double identity = 0.0;
+  std::vector<std::pair<double, Ref>> terms;
+};
+
+std::string bits(double x) { return std::to_string(std::bit_cast<std::uint64_t>(x)); }
+
+class Graph {
+ public:
+  explicit Graph(const ExpressionData& data) : data_(data) {}
+
+  std::vector<Node> nodes;
+
+  int rows(Ref r) const { return r.adj ? nodes[r.node].cols : nodes[r.node].rows; }
+  int cols(Ref r) const { return r.adj ? nodes[r.node].rows : nodes[r.node].cols; }
+
+  Ref adjoint(Ref r) const {
+    if (nodes[r.node].self_adjoint) return r;
+    return {r.node, !r.adj};
+  }
+
+  Ref leaf(int operand) {
+    const Operand& o = data_.operands[operand];
+    Node n;
+    n.leaf = operand;
+    n.rows = o.rows;
+    n.cols = o.cols;
+    n.real = o.real;
+    n.diag = o.diagonal;
+    n.self_adjoint = o.self_adjoint || o.diagonal;
+    n.unitary = o.unitary;
+    return {intern(std::move(n)), false};
+  }
+
+  // a·b, canonically oriented: of a·b and its adjoint b^*·a^*, the one with the smaller key list is
+  // stored, so X1 X2 and X2 X1 = (X1 X2)^* (self-adjoint X1, X2) are one node.
+  Ref mul(Ref a, Ref b) {
+    const Node& na = nodes[a.node];
+    const Node& nb = nodes[b.node];
+    if (na.diag && nb.diag) {
+      // Real diagonal matrices commute and are self-adjoint.
+      if (b.key() < a.key()) std::swap(a, b);
+      Node n;
+      n.kind = NodeKind::product;
+      n.args = {a, b};
+      n.rows = n.cols = na.rows;
+      n.real = n.diag = n.self_adjoint = true;
+      return {intern(std::move(n)), false};
+    }
+    if (b == adjoint(a)) return gram(a);
+    const Ref a2 = adjoint(b), b2 = adjoint(a);
+    bool flip = std::pair(a2.key(), b2.key()) < std::pair(a.key(), b.key());
+    if (na.diag != nb.diag) {
+      // A diagonal factor scales its partner; keep the partner unadjointed so the scaling can
+      // work in place (a canonical rule all the same: it depends only on the pair).
+      const Ref dense = na.diag ? b : a;
+      if (dense.adj != (na.diag ? a2 : b2).adj) flip = dense.adj;
+    }
+    if (flip) {
+      a = a2;
+      b = b2;
+    }
+    Node n;
+    n.kind = NodeKind::product;
+    n.args = {a, b};
+    n.rows = rows(a);
+    n.cols = cols(b);
+    n.real = nodes[a.node].real && nodes[b.node].real;
+    n.unitary = nodes[a.node].unitary && nodes[b.node].unitary;
+    return {intern(std::move(n)), flip};
+  }
+
+  // Y·Y^*.
+  Ref gram(Ref y) {
+    Node n;
+    n.kind = NodeKind::gram;
+    n.args = {y};
+    n.rows = n.cols = rows(y);
+    n.real = nodes[y.node].real;
+    n.self_adjoint = true;
+    return {intern(std::move(n)), false};
+  }
+
+  // Y·D·Y^* with D diagonal.
+  Ref conjugate(Ref y, Ref d) {
+    Node n;
+    n.kind = NodeKind::conjugate;
+    n.args = {y, d};
+    n.rows = n.cols = rows(y);
+    n.real = nodes[y.node].real;
+    n.self_adjoint = true;
+    return {intern(std::move(n)), false};
+  }
+
+  Ref sum(const std::vector<std::pair<double, Ref>>& terms, double identity, int rows_dim,
+          int cols_dim) {
+    std::map<int, double> merged;  // by key
+    for (const auto& [c, r] : terms) merged[r.key()] += c;
+    std::vector<std::pair<double, Ref>> list;
+    for (const auto& [key, c] : merged) {
+      if (c != 0.0) list.push_back({c, Ref{key / 2, (key & 1) != 0}});
+    }
+    if (list.size() == 1 && list[0].first == 1.0 && identity == 0.0) return list[0].second;
+    auto keys = [](const std::vector<std::pair<double, Ref>>& l) {
+      std::vector<std::pair<int, std::uint64_t>> k;
+      for (const auto& [c, r] : l) k.push_back({r.key(), std::bit_cast<std::uint64_t>(c)});
+      std::sort(k.begin(), k.end());
+      return k;
+    };
+    std::vector<std::pair<double, Ref>> adjointed;
+    for (const auto& [c, r] : list) adjointed.push_back({c, adjoint(r)});
+    const auto k1 = keys(list), k2 = keys(adjointed);
+    const bool flip = k2 < k1;
+    Node n;
+    n.kind = NodeKind::sum;
+    n.identity = identity;
+    n.rows = flip ? cols_dim : rows_dim;
+    n.cols = flip ? rows_dim : cols_dim;
+    n.self_adjoint = k1 == k2;
+    n.real = n.diag = true;
+    for (const auto& [key, c] : flip ? k2 : k1) {
+      const Ref r{key / 2, (key & 1) != 0};
+      n.args.push_back(r);
+      n.coefs.push_back(std::bit_cast<double>(c));
+      n.real = n.real && nodes[r.node].real;
+      n.diag = n.diag && nodes[r.node].diag;
+    }
+    if (list.empty() && rows_dim != cols_dim) n.diag = false;  // a rectangular zero
+    if (n.diag) n.self_adjoint = true;
+    return {intern(std::move(n)), flip && !n.self_adjoint};
+  }
+
+  // The product of factors given left to right (no scalars).
+  Ref product(std::vector<Ref> refs) {
+    std::vector<Ref> merged;  // adjacent diagonal factors multiplied as vectors
+    for (const Ref r : refs) {
+      if (!merged.empty() && nodes[merged.back().node].diag && nodes[r.node].diag) {
+        merged.back() = mul(merged.back(), r);
+      } else {
+        merged.push_back(r);
+      }
+    }
+    const std::size_t k = merged.size();
+    if (k == 1) return merged[0];
+    // Palindromes Y Y^* and Y D Y^*: rank-k updates instead of general products.
+    bool palindrome = k % 2 == 0 || nodes[merged[k / 2].node].diag;
+    for (std::size_t i = 0; palindrome && i < k / 2; ++i) {
+      palindrome = merged[k - 1 - i] == adjoint(merged[i]);
+    }
+    if (palindrome) {
+      const Ref y = product(std::vector<Ref>(merged.begin(), merged.begin() + k / 2));
+      return k % 2 == 0 ? gram(y) : conjugate(y, merged[k / 2]);
+    }
+    const Ref head = product(std::vector<Ref>(merged.begin(), merged.end() - 1));
+    return mul(head, merged.back());
+  }
+
+  // X^k, k ≥ 1, by repeated squaring; a self-adjoint X has X^(2m) = (X^m)(X^m)^*, a herk.
+  Ref power(Ref x, int k) {
+    if (k == 1) return x;
+    if (k % 2 == 1) return mul(power(x, k - 1), x);
+    const Ref h = power(x, k / 2);
+    if (nodes[x.node].self_adjoint && !nodes[x.node].diag) return gram(h);
+    return mul(h, h);
+  }
+
+ private:
+  int intern(Node n) {
+    std::ostringstream key;
+    key << static_cast<int>(n.kind) << ':' << n.leaf << ':' << n.rows << 'x' << n.cols << ':'
+        << bits(n.identity);
+    for (std::size_t i = 0; i < n.args.size(); ++i) {
+      key << ';' << n.args[i].key();
+      if (i < n.coefs.size()) key << '*' << bits(n.coefs[i]);
+    }
+    const auto [it, inserted] = index_.try_emplace(key.str(), static_cast<int>(nodes.size()));
+    if (inserted) nodes.push_back(std::move(n));
+    return it->second;
+  }
+
+  const ExpressionData& data_;
+  std::unordered_map<std::string, int> index_;
+};
+
+class Lowering {
+ public:
+  Lowering(const ExpressionData& data, Graph& graph) : data_(data), graph_(graph) {}
+
+  Ref root() { return materialize(lower(data_.root), data_.shapes[data_.root]); }
+
+ private:
+  Ref materialize(const Lin& lin, const SymShape& shape) {
+    if (lin.terms.size() == 1 && lin.terms[0].first == 1.0 && lin.identity == 0.0) {
+      return lin.terms[0].second;
+    }
+    return graph_.sum(lin.terms, lin.identity, shape.rows, shape.cols);
+  }
+
+  Lin lower(int index) {
+    const AstNode& node = data_.nodes[index];
+    Lin out;
+    switch (node.kind) {
+      case AstNode::Kind::name:
+        out.terms.push_back({1.0, graph_.leaf(node.matrix)});
+        break;
+      case AstNode::Kind::number:
+        out.identity = node.value;
+        break;
+      case AstNode::Kind::sum:
+        for (std::size_t i = 0; i < node.children.size(); ++i) {
+          const Lin child = lower(node.children[i]);
+          out.identity += node.signs[i] * child.identity;
+          for (const auto& [c, r] : child.terms) out.terms.push_back({node.signs[i] * c, r});
+        }
+        break;
+      case AstNode::Kind::product: {
+        double coef = 1.0;
+        std::vector<Ref> factors;
+        for (const int child_index : node.children) {
+          const Lin child = lower(child_index);
+          const SymShape& shape = data_.shapes[child_index];
+          if (shape.scalar) {
+            coef *= child.identity;
+          } else if (child.terms.size() == 1 && child.identity == 0.0) {
+            coef *= child.terms[0].first;
+            factors.push_back(child.terms[0].second);
+          } else {
+            factors.push_back(graph_.sum(child.terms, child.identity, shape.rows, shape.cols));
+          }
+        }
+        if (factors.empty()) {
+          out.identity = coef;
+        } else {
+          out.terms.push_back({coef, graph_.product(factors)});
+        }
+        break;
+      }
+      case AstNode::Kind::power: {
+        const int child_index = node.children[0];
+        const Lin child = lower(child_index);
+        const SymShape& shape = data_.shapes[child_index];
+        if (node.exponent == 0) {
+          out.identity = 1.0;
+        } else if (shape.scalar) {
+          out.identity = std::pow(child.identity, node.exponent);
+        } else if (child.terms.size() == 1 && child.identity == 0.0) {
+          out.terms.push_back({std::pow(child.terms[0].first, node.exponent),
+                               graph_.power(child.terms[0].second, node.exponent)});
+        } else {
+          out.terms.push_back(
+              {1.0, graph_.power(graph_.sum(child.terms, child.identity, shape.rows, shape.cols),
+                                 node.exponent)});
+        }
+        break;
+      }
+      case AstNode::Kind::adjoint: {
+        out = lower(node.children[0]);
+        for (auto& term : out.terms) term.second = graph_.adjoint(term.second);
+        break;
+      }
+    }
+    return out;
+  }
+
+  const ExpressionData& data_;
+  Graph& graph_;
+};
+
+struct Step {
+  StepKind kind = StepKind::sum;
+  int node = -1;
+  int out = -1;  // buffer
+  bool complex = false;
+  bool in_place = false;  // `out` already holds the accumulator / the matrix to scale
+  bool mirror = false;    // copy the lower triangle to the upper one afterwards
+  bool unitary = false;   // conjugate: Y unitary, shift by the most frequent value of D
+  int acc_step = -1;      // sum in place: the step that produced the accumulator
+  std::vector<Ref> in;
+  std::vector<double> coefs;
+  double identity = 0.0;
+  double alpha = 1.0;
+  std::size_t scratch = 0;  // transient bytes inside the step
+  std::vector<int> reads;   // buffers read
+  StepInfo info;
+};
+
+std::string format_number(double x) {
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%g", x);
+  return buffer;
+}
+
+std::string format_flops(double x) {
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%.2e", x);
+  return buffer;
+}
+
+std::string format_bytes(double bytes) {
+  char buffer[48];
+  std::snprintf(buffer, sizeof buffer, "%.1f MiB", bytes / (1024.0 * 1024.0));
+  return buffer;
+}
+
+}  // namespace
+
+struct PlanData {
+  std::shared_ptr<const ExpressionData> expression;
+  Index n = 0;
+  std::vector<Index> dims;  // concrete size of each dimension symbol
+  std::vector<Node> nodes;
+  Ref root;
+  std::vector<int> buffer;  // per node, −1 for inputs
+  std::vector<bool> buffer_is_vector;
+  std::vector<Step> steps;
+  std::vector<StepInfo> infos;
+  std::vector<int> last_use;  // per buffer: last step that touches it
+  int result_buffer = -1;
+  bool result_complex = false;
+  bool result_lower = false;
+  double flops = 0.0;
+  std::size_t peak = 0;
+  std::size_t inputs = 0;
+  std::size_t result_bytes = 0;
+};
+
+}  // namespace detail
+
+using detail::Complex;
+using detail::format_bytes;
+using detail::format_flops;
+using detail::format_number;
+using detail::Node;
+using detail::NodeKind;
+using detail::PlanData;
+using detail::Ref;
+using detail::Step;
+
+namespace {
+
+/// Column counts (k₊, k₋) of the two rank-k updates for Y D Y^*, estimated at plan time from the
+/// declared law of D (exact for atom laws; otherwise all N columns, one fewer for a unitary Y).
+std::pair<Index, Index> conjugate_columns(const PlanData& p, const Node& d, bool unitary) {
+  const Index n = p.dims[d.rows];
+  if (d.kind == NodeKind::leaf) {
+    const auto& spec = p.expression->declared[d.leaf];
+    if (spec.diagonal.kind == ensembles::DiagonalLawKind::atoms && !spec.diagonal.atoms.empty()) {
+      const auto counts = ensembles::atom_counts(spec.diagonal.atoms, n);
+      std::map<double, Index> by_value;
+      for (std::size_t i = 0; i < counts.size(); ++i)
+        by_value[spec.diagonal.atoms[i].value] += counts[i];
+      double shift = 0.0;
+      if (unitary) {
+        Index best = -1;
+        for (const auto& [v, c] : by_value) {
+          if (c > best) best = c, shift = v;  // ties: the smallest value, as at run time
+        }
+      }
+      Index plus = 0, minus = 0;
+      for (const auto& [v, c] : by_value) {
+        if (v > shift) plus += c;
+        if (v < shift) minus += c;
+      }
+      return {plus, minus};
+    }
+  }
+  return {unitary ? n - 1 : n, 0};
+}
+
+class Planner {
+ public:
+  Planner(PlanData& p, const PlanOptions& options) : p_(p), options_(options) {}
+
+  void run() {
+    const auto& nodes = p_.nodes;
+    const std::size_t count = nodes.size();
+    // Reachable nodes and their number of uses.
+    uses_.assign(count, 0);
+    reachable_.assign(count, false);
+    std::function<void(int)> visit = [&](int v) {
+      if (reachable_[v]) return;
+      reachable_[v] = true;
+      for (const Ref r : nodes[v].args) {
+        ++uses_[r.node];
+        visit(r.node);
+      }
+    };
+    visit(p_.root.node);
+    ++uses_[p_.root.node];
+
+    // Which results must be full matrices, and which may hold only the lower triangle.
+    need_full_.assign(count, false);
+    lower_.assign(count, false);
+    need_full_[p_.root.node] =
+        options_.full_result || p_.expression->spectrum == Spectrum::singular_values || p_.root.adj;
+    for (int v = static_cast<int>(count) - 1; v >= 0; --v) {
+      if (!reachable_[v]) continue;
+      const Node& node = nodes[v];
+      if (node.diag) continue;
+      switch (node.kind) {
+        case NodeKind::leaf:
+          break;
+        case NodeKind::gram:
+        case NodeKind::conjugate:
+          lower_[v] = !need_full_[v];
+          need_full_[node.args[0].node] = true;
+          break;
+        case NodeKind::product:
+          for (const Ref r : node.args) need_full_[r.node] = true;
+          break;
+        case NodeKind::sum:
+          lower_[v] = node.self_adjoint && !need_full_[v];
+          if (!lower_[v]) {
+            for (const Ref r : node.args) need_full_[r.node] = true;
+          }
+          break;
+      }
+    }
+
+    p_.buffer.assign(count, -1);
+    step_of_.assign(count, -1);
+    for (int v = 0; v < static_cast<int>(count); ++v) {
+      if (reachable_[v]) emit(v);
+    }
+    finish();
+    simulate_memory();
+  }
+
+ private:
+  Index rows(Ref r) const { return p_.dims[r.adj ? p_.nodes[r.node].cols : p_.nodes[r.node].rows]; }
+  Index cols(Ref r) const { return p_.dims[r.adj ? p_.nodes[r.node].rows : p_.nodes[r.node].cols]; }
+  bool is_leaf(int v) const { return p_.nodes[v].kind == NodeKind::leaf; }
+
+  std::string name(Ref r) const {
+    const Node& node = p_.nodes[r.node];
+    std::string s = is_leaf(r.node) ? p_.expression->operands[node.leaf].name
+                                    : "t" + std::to_string(p_.buffer[r.node] + 1);
+    return r.adj ? s + "^*" : s;
+  }
+
+  int new_buffer(bool vector) {
+    p_.buffer_is_vector.push_back(vector);
+    return static_cast<int>(p_.buffer_is_vector.size()) - 1;
+  }
+
+  // Whether the result of node v can be overwritten by its single consumer.
+  bool owned_once(Ref r) const { return !is_leaf(r.node) && uses_[r.node] == 1 && !r.adj; }
+
+  std::size_t entry_bytes(bool complex) const { return complex ? 16 : 8; }
+
+  int add_step(Step step) {
+    for (const Ref r : step.in) {
+      if (p_.buffer[r.node] >= 0) step.reads.push_back(p_.buffer[r.node]);
+    }
+    step.info.output = "t" + std::to_string(step.out + 1);
+    p_.steps.push_back(std::move(step));
+    return static_cast<int>(p_.steps.size()) - 1;
+  }
+
+  // Multiplies the result of step s by alpha (a scalar folded into BLAS alpha).
+  void fold(int s, double alpha) {
+    Step& step = p_.steps[s];
+    if (step.kind != StepKind::sum) {
+      step.alpha *= alpha;
+      return;
+    }
+    // A sum scales its terms; in place, the accumulator's producer scales too.
+    for (double& c : step.coefs) c *= alpha;
+    step.identity *= alpha;
+    if (step.in_place) fold(step.acc_step, alpha);
+  }
+
+  void emit(int v) {
+    const Node& node = p_.nodes[v];
+    const bool complex = !node.real;
+    const double entry_flops = complex ? 4.0 : 2.0;  // add a scaled term
+    Step step;
+    step.node = v;
+    step.complex = complex;
+    switch (node.kind) {
+      case NodeKind::leaf:
+        return;
+      case NodeKind::product: {
+        const Ref a = node.args[0], b = node.args[1];
+        const bool da = p_.nodes[a.node].diag, db = p_.nodes[b.node].diag;
+        if (da && db) {
+          step.kind = StepKind::diagonal;
+          step.in = {a, b};
+          step.out = new_buffer(true);
+          step.info = {StepKind::diagonal, "", name(a) + "·" + name(b), "diagonal product",
+                       static_cast<double>(rows(a))};
+        } else if (da || db) {
+          const Ref x = da ? b : a, d = da ? a : b;
+          step.kind = da ? StepKind::scale_rows : StepKind::scale_columns;
+          step.in = {x, d};
+          step.in_place = owned_once(x);
+          step.out = step.in_place ? p_.buffer[x.node] : new_buffer(false);
+          step.info = {step.kind, "", name(a) + "·" + name(b),
+                       da ? "row scaling" : "column scaling",
+                       (complex ? 2.0 : 1.0) * rows(x) * cols(x)};
+        } else {
+          step.kind = StepKind::gemm;
+          step.in = {a, b};
+          step.out = new_buffer(false);
+          const double m = rows(a), k = cols(a), nn = cols(b);
+          step.info = {StepKind::gemm, "", name(a) + "·" + name(b), complex ? "zgemm" : "dgemm",
+                       (complex ? 8.0 : 2.0) * m * nn * k};
+          for (const Ref r : {a, b}) {
+            if (complex && p_.nodes[r.node].real) step.scratch += 16 * rows(r) * cols(r);
+          }
+        }
+        break;
+      }
+      case NodeKind::gram: {
+        const Ref y = node.args[0];
+        step.kind = StepKind::herk;
+        step.in = {y};
+        step.out = new_buffer(false);
+        step.mirror = !lower_[v];
+        const double n = rows(y), k = cols(y);
+        step.info = {StepKind::herk, "", name(y) + "·" + name(p_nodes_adjoint(y)),
+                     complex ? "zherk" : "dsyrk", (complex ? 4.0 : 1.0) * n * n * k};
+        break;
+      }
+      case NodeKind::conjugate: {
+        const Ref y = node.args[0], d = node.args[1];
+        step.kind = StepKind::conjugate;
+        step.in = {y, d};
+        step.out = new_buffer(false);
+        step.mirror = !lower_[v];
+        step.unitary = p_.nodes[y.node].unitary;
+        const auto [plus, minus] = conjugate_columns(p_, p_.nodes[d.node], step.unitary);
+        const double n = rows(y);
+        const double k = static_cast<double>(plus + minus);
+        step.scratch = entry_bytes(complex) * rows(y) * std::max(plus, minus);
+        std::string routine = std::string(complex ? "zherk" : "dsyrk") + " on " +
+                              std::to_string(plus + minus) + " scaled columns";
+        if (plus > 0 && minus > 0) routine += " (two updates)";
+        if (step.unitary) routine += ", shift by the most frequent value of " + name(d);
+        step.info = {StepKind::conjugate, "",
+                     name(y) + "·" + name(d) + "·" + name(p_nodes_adjoint(y)), routine,
+                     (complex ? 4.0 : 1.0) * n * n * k + (complex ? 2.0 : 1.0) * n * k};
+        break;
+      }
+      case NodeKind::sum: {
+        step.kind = node.diag ? StepKind::diagonal : StepKind::sum;
+        step.identity = node.identity;
+        const Index n = p_.dims[node.rows];
+        int acc = -1;
+        if (!node.diag) {
+          for (std::size_t i = 0; i < node.args.size(); ++i) {
+            const Ref r = node.args[i];
+            const Node& t = p_.nodes[r.node];
+            if (owned_once(r) && !t.diag && t.real == node.real && step_of_[r.node] >= 0) {
+              acc = static_cast<int>(i);
+              break;
+            }
+          }
+        }
+        std::string text;
+        double flops = 0.0;
+        std::vector<std::size_t> order;  // the accumulator first, as it reads in explain()
+        if (acc >= 0) order.push_back(static_cast<std::size_t>(acc));
+        for (std::size_t i = 0; i < node.args.size(); ++i) {
+          if (static_cast<int>(i) != acc) order.push_back(i);
+        }
+        for (const std::size_t i : order) {
+          const Ref r = node.args[i];
+          const double c = node.coefs[i];
+          if (static_cast<int>(i) != acc) {
+            step.in.push_back(r);
+            step.coefs.push_back(c);
+            flops +=
+                p_.nodes[r.node].diag ? static_cast<double>(n) : entry_flops * rows(r) * cols(r);
+          }
+          std::string term =
+              (c == 1.0    ? ""
+               : c == -1.0 ? "-"
+                           : format_number(c) + "·") +
+              (p_.nodes[r.node].diag && !node.diag && is_leaf(r.node) ? "diag(" + name(r) + ")"
+                                                                      : name(r));
+          text += text.empty() ? term : (term[0] == '-' ? " - " + term.substr(1) : " + " + term);
+        }
+        if (node.identity != 0.0) {
+          text += (text.empty() ? "" : " + ") + format_number(node.identity) + "·I";
+          flops += static_cast<double>(n);
+        }
+        if (text.empty()) text = "0";
+        if (acc >= 0) {
+          const Ref a = node.args[acc];
+          step.in_place = true;
+          step.out = p_.buffer[a.node];
+          step.acc_step = step_of_[a.node];
+          fold(step.acc_step, node.coefs[acc]);
+          if (step.in.empty() && node.identity == 0.0) {
+            // Only a scalar multiple, folded into the producer: no step.
+            p_.buffer[v] = step.out;
+            step_of_[v] = step.acc_step;
+            return;
+          }
+        } else {
+          step.out = new_buffer(node.diag);
+        }
+        step.info = {step.kind, "", text, node.diag ? "diagonal arithmetic" : "sum", flops};
+        break;
+      }
+    }
+    p_.buffer[v] = step.out;
+    step_of_[v] = add_step(std::move(step));
+  }
+
+  Ref p_nodes_adjoint(Ref r) const {
+    if (p_.nodes[r.node].self_adjoint) return r;
+    return {r.node, !r.adj};
+  }
+
+  void finish() {
+    const Ref root = p_.root;
+    const Node& node = p_.nodes[root.node];
+    p_.result_complex = !node.real;
+    const Index n = p_.n;
+    if (is_leaf(root.node) || node.diag) {
+      Step step;
+      step.kind = node.diag ? StepKind::to_dense : StepKind::copy;
+      step.node = root.node;
+      step.complex = !node.real;
+      step.in = {root};
+      step.out = new_buffer(false);
+      step.info = {step.kind, "", name(root), node.diag ? "diagonal written densely" : "copy", 0.0};
+      p_.result_buffer = step.out;
+      add_step(std::move(step));
+      p_.result_lower = false;
+    } else if (root.adj) {
+      Step step;
+      step.kind = StepKind::adjoint;
+      step.node = root.node;
+      step.complex = !node.real;
+      step.in = {root};
+      step.in_place = uses_[root.node] == 1;
+      step.out = step.in_place ? p_.buffer[root.node] : new_buffer(false);
+      step.info = {StepKind::adjoint, "", name(root), step.in_place ? "in-place transpose" : "copy",
+                   0.0};
+      p_.result_buffer = step.out;
+      add_step(std::move(step));
+      p_.result_lower = false;
+    } else {
+      p_.result_buffer = p_.buffer[root.node];
+      p_.result_lower = lower_[root.node];
+    }
+    p_.result_bytes = entry_bytes(p_.result_complex) * n * n;
+    for (auto& step : p_.steps) {
+      p_.flops += step.info.flops;
+      p_.infos.push_back(step.info);
+    }
+  }
+
+  void simulate_memory() {
+    const std::size_t buffers = p_.buffer_is_vector.size();
+    p_.last_use.assign(buffers, -1);
+    std::vector<std::size_t> bytes(buffers, 0);
+    for (int s = 0; s < static_cast<int>(p_.steps.size()); ++s) {
+      const Step& step = p_.steps[s];
+      for (const int b : step.reads) p_.last_use[b] = s;
+      p_.last_use[step.out] = s;
+      const Node& node = p_.nodes[step.node];
+      const Index r = p_.dims[node.rows], c = p_.dims[node.cols];
+      if (!step.in_place) {
+        bytes[step.out] = p_.buffer_is_vector[step.out] ? 8 * r : entry_bytes(step.complex) * r * c;
+      }
+    }
+    p_.last_use[p_.result_buffer] = static_cast<int>(p_.steps.size());
+    std::size_t live = 0, peak = 0;
+    std::vector<bool> allocated(buffers, false);
+    for (int s = 0; s < static_cast<int>(p_.steps.size()); ++s) {
+      const Step& step = p_.steps[s];
+      if (!allocated[step.out]) {
+        allocated[step.out] = true;
+        live += bytes[step.out];
+      }
+      peak = std::max(peak, live + step.scratch);
+      for (std::size_t b = 0; b < buffers; ++b) {
+        if (allocated[b] && p_.last_use[b] == s) {
+          live -= bytes[b];
+          bytes[b] = 0;
+        }
+      }
+    }
+    p_.peak = peak;
+    std::set<int> used;
+    for (const Node& node : p_.nodes) {
+      if (node.kind == NodeKind::leaf) used.insert(node.leaf);
+    }
+    for (const int i : used) {
+      const auto& o = p_.expression->operands[i];
+      const Index r = p_.dims[o.rows], c = p_.dims[o.cols];
+      p_.inputs += o.diagonal ? 8 * r : entry_bytes(!o.real) * r * c;
+    }
+  }
+
+  PlanData& p_;
+  const PlanOptions& options_;
+  std::vector<int> uses_;
+  std::vector<bool> reachable_;
+  std::vector<bool> need_full_;
+  std::vector<bool> lower_;
+  std::vector<int> step_of_;
+};
+
+}  // namespace
+
+Plan::Plan(const Expression& expression, Index n, const PlanOptions& options) {
+  if (n < 1) throw InputError("matrix size must be at least 1 (got " + std::to_string(n) + ")");
+  auto p = std::make_shared<PlanData>();
+  p->expression = expression.data_;
+  p->n = n;
+  p->dims.push_back(n);
+  for (const double c : p->expression->dim_ratios) {
+    p->dims.push_back(ensembles::companion_size(n, c));
+  }
+  detail::Graph graph(*p->expression);
+  p->root = detail::Lowering(*p->expression, graph).root();
+  p->nodes = std::move(graph.nodes);
+  Planner(*p, options).run();
+  data_ = std::move(p);
+}
+
+Index Plan::size() const { return data_->n; }
+Spectrum Plan::spectrum() const { return data_->expression->spectrum; }
+const std::vector<StepInfo>& Plan::steps() const { return data_->infos; }
+double Plan::flops() const { return data_->flops; }
+std::size_t Plan::peak_temporary_bytes() const { return data_->peak; }
+std::size_t Plan::input_bytes() const { return data_->inputs; }
+
+std::string Plan::explain() const {
+  const PlanData& p = *data_;
+  const auto& e = *p.expression;
+  std::ostringstream out;
+  out << "expression: " << e.text << "\n";
+  out << "size: N = " << p.n;
+  for (std::size_t k = 1; k < p.dims.size(); ++k) {
+    out << ", " << e.dim_names[k] << " = " << p.dims[k]
+        << " (c = " << format_number(e.dim_ratios[k - 1]) << ")";
+  }
+  out << "\n";
+  out << "arithmetic: " << (p.result_complex ? "complex" : "real") << "\n";
+  if (e.self_adjoint) {
+    out << "self-adjoint: yes (proven symbolically)\n";
+  } else {
+    out << "self-adjoint: " << (e.note.empty() ? "no" : "not decided") << "\n";
+    if (!e.note.empty()) out << "note: " << e.note << "\n";
+  }
+  out << "spectrum: "
+      << (e.spectrum == Spectrum::eigenvalues ? "eigenvalues"
+                                              : "singular values (operator norm = largest)");
+  if (p.result_lower) out << "; only the lower triangle is formed";
+  out << "\nsteps:\n";
+  for (const auto& s : p.infos) {
+    out << "  " << s.output << " = " << s.description << "   [" << s.routine << ", "
+        << format_flops(s.flops) << " flops]\n";
+  }
+  const double nn = static_cast<double>(p.n) * static_cast<double>(p.n);
+  out << "total: " << format_flops(p.flops) << " flops\n";
+  out << "memory: inputs " << format_bytes(static_cast<double>(p.inputs)) << ", peak temporaries "
+      << format_bytes(static_cast<double>(p.peak)) << " (" << format_number(p.peak / (16.0 * nn))
+      << " N×N complex matrices)\n";
+  return out.str();
+}
+
+std::size_t peak_working_bytes(const Expression& expression, Index n) {
+  const Plan plan(expression, n);
+  return plan.input_bytes() + plan.peak_temporary_bytes();
+}
+
+// ---- evaluation ---------------------------------------------------------------------------------
+
+namespace {
+
+using CMatrix = Eigen::MatrixXcd;
+using RMatrix = Eigen::MatrixXd;
+using Vector = Eigen::VectorXd;
+
+struct Buffer {
+  RMatrix real;
+  CMatrix complex;
+  Vector diagonal;
+};
+
+class Evaluator {
+ public:
+  Evaluator(const PlanData& p, const std::vector<ensembles::Sample>& samples)
+      : p_(p), samples_(samples), buffers_(p.buffer_is_vector.size()) {}
+
+  Evaluated run() {
+    validate();
+    for (int s = 0; s < static_cast<int>(p_.steps.size()); ++s) {
+      execute(p_.steps[s]);
+      for (std::size_t b = 0; b < buffers_.size(); ++b) {
+        if (p_.last_use[b] == s) buffers_[b] = Buffer{};
+      }
+    }
+    Evaluated result;
+    result.is_complex = p_.result_complex;
+    result.lower_only = p_.result_lower;
+    Buffer& out = buffers_[p_.result_buffer];
+    if (result.is_complex) {
+      result.complex = std::move(out.complex);
+    } else {
+      result.real = std::move(out.real);
+    }
+    return result;
+  }
+
+ private:
+  void validate() const {
+    const auto& e = *p_.expression;
+    if (samples_.size() != e.operands.size()) {
+      throw InputError("expression evaluation needs " + std::to_string(e.operands.size()) +
+                       " samples (one per declared matrix), got " +
+                       std::to_string(samples_.size()));
+    }
+    for (const Node& node : p_.nodes) {
+      if (node.kind != NodeKind::leaf) continue;
+      const auto& o = e.operands[node.leaf];
+      const auto& s = samples_[node.leaf];
+      using Storage = ensembles::Sample::Storage;
+      const Storage want = o.diagonal ? Storage::real_diagonal
+                           : o.real   ? Storage::real_dense
+                                      : Storage::complex_dense;
+      if (s.storage != want) {
+        throw InputError("sample of '" + o.name + "' has the wrong storage for the plan");
+      }
+      const Index r = p_.dims[o.rows], c = p_.dims[o.cols];
+      const Index sr = o.diagonal ? s.diagonal.size() : o.real ? s.real.rows() : s.complex.rows();
+      const Index sc = o.diagonal ? s.diagonal.size() : o.real ? s.real.cols() : s.complex.cols();
+      if (sr != r || sc != c) {
+        throw InputError("sample of '" + o.name + "' is " + std::to_string(sr) + "×" +
+                         std::to_string(sc) + ", the plan expects " + std::to_string(r) + "×" +
+                         std::to_string(c));
+      }
+    }
+  }
+
+  const Node& node(Ref r) const { return p_.nodes[r.node]; }
+
+  const RMatrix& real(Ref r) const {
+    const Node& n = node(r);
+    return n.kind == NodeKind::leaf ? samples_[n.leaf].real : buffers_[p_.buffer[r.node]].real;
+  }
+  const CMatrix& complex(Ref r) const {
+    const Node& n = node(r);
+    return n.kind == NodeKind::leaf ? samples_[n.leaf].complex
+                                    : buffers_[p_.buffer[r.node]].complex;
+  }
+  const Vector& diagonal(Ref r) const {
+    const Node& n = node(r);
+    return n.kind == NodeKind::leaf ? samples_[n.leaf].diagonal
+                                    : buffers_[p_.buffer[r.node]].diagonal;
+  }
+
+  // A complex view of a dense operand; a real one is promoted into `scratch`.
+  const CMatrix& as_complex(Ref r, CMatrix& scratch) const {
+    if (!node(r).real) return complex(r);
+    scratch = real(r).cast<Complex>();
+    return scratch;
+  }
+
+  static linalg::Op op(Ref r, bool complex) {
+    if (!r.adj) return linalg::Op::none;
+    return complex ? linalg::Op::adjoint : linalg::Op::transpose;
+  }
+
+  void execute(const Step& step) {
+    Buffer& out = buffers_[step.out];
+    switch (step.kind) {
+      case StepKind::gemm: {
+        const Ref a = step.in[0], b = step.in[1];
+        if (step.complex) {
+          CMatrix sa, sb;
+          linalg::gemm(as_complex(a, sa), op(a, true), as_complex(b, sb), op(b, true), out.complex,
+                       step.alpha);
+        } else {
+          linalg::gemm(real(a), op(a, false), real(b), op(b, false), out.real, step.alpha);
+        }
+        break;
+      }
+      case StepKind::herk: {
+        const Ref y = step.in[0];
+        if (step.complex) {
+          linalg::herk(complex(y), op(y, true), out.complex, step.alpha);
+        } else {
+          linalg::syrk(real(y), op(y, false), out.real, step.alpha);
+        }
+        break;
+      }
+      case StepKind::conjugate:
+        conjugate(step, out);
+        break;
+      case StepKind::scale_rows:
+      case StepKind::scale_columns:
+        scale(step, out);
+        break;
+      case StepKind::sum:
+        sum(step, out);
+        break;
+      case StepKind::diagonal: {
+        const Node& n = p_.nodes[step.node];
+        if (n.kind == NodeKind::product) {
+          out.diagonal = step.alpha * diagonal(step.in[0]).cwiseProduct(diagonal(step.in[1]));
+        } else {
+          out.diagonal = Vector::Constant(p_.dims[n.rows], step.identity);
+          for (std::size_t i = 0; i < step.in.size(); ++i) {
+            out.diagonal += step.coefs[i] * diagonal(step.in[i]);
+          }
+          out.diagonal *= step.alpha;
+        }
+        break;
+      }
+      case StepKind::to_dense: {
+        const Vector& d = diagonal(step.in[0]);
+        out.real = d.asDiagonal();
+        break;
+      }
+      case StepKind::copy: {
+        const Ref r = step.in[0];
+        if (step.complex) {
+          out.complex = r.adj ? CMatrix(complex(r).adjoint()) : complex(r);
+        } else {
+          out.real = r.adj ? RMatrix(real(r).transpose()) : real(r);
+        }
+        break;
+      }
+      case StepKind::adjoint: {
+        const Ref r = step.in[0];
+        if (step.in_place) {
+          if (step.complex) {
+            out.complex.adjointInPlace();
+          } else {
+            out.real.transposeInPlace();
+          }
+        } else if (step.complex) {
+          out.complex = complex({r.node, false}).adjoint();
+        } else {
+          out.real = real({r.node, false}).transpose();
+        }
+        break;
+      }
+    }
+    if (step.mirror) {
+      if (step.complex) {
+        linalg::mirror_lower(out.complex);
+      } else {
+        linalg::mirror_lower(out.real);
+      }
+    }
+  }
+
+  // Y D Y^* = d_r I + W₊W₊^* − W₋W₋^*, W± = √|d − d_r| times the columns of Y where d ≷ d_r
+  // (rows of Y^*, when Y enters adjointed). d_r is the most frequent value of D for unitary Y
+  // (Y Y^* = I), otherwise 0.
+  void conjugate(const Step& step, Buffer& out) {
+    const Ref y = step.in[0];
+    const Vector& d = diagonal(step.in[1]);
+    double shift = 0.0;
+    if (step.unitary) {
+      std::vector<double> sorted(d.data(), d.data() + d.size());
+      std::sort(sorted.begin(), sorted.end());
+      Index best = 0;
+      for (std::size_t i = 0; i < sorted.size();) {
+        std::size_t j = i;
+        while (j < sorted.size() && sorted[j] == sorted[i]) ++j;
+        if (static_cast<Index>(j - i) > best) best = static_cast<Index>(j - i), shift = sorted[i];
+        i = j;
+      }
+    }
+    std::vector<Index> plus, minus;
+    for (Index i = 0; i < d.size(); ++i) {
+      if (d[i] > shift) plus.push_back(i);
+      if (d[i] < shift) minus.push_back(i);
+    }
+    const Index n = y.adj ? (node(y).real ? real(y).cols() : complex(y).cols())
+                          : (node(y).real ? real(y).rows() : complex(y).rows());
+    bool written = false;
+    auto update = [&](const std::vector<Index>& idx, double sign) {
+      if (idx.empty()) return;
+      Vector s(static_cast<Index>(idx.size()));
+      for (std::size_t k = 0; k < idx.size(); ++k) s[k] = std::sqrt(std::abs(d[idx[k]] - shift));
+      const double beta = written ? 1.0 : 0.0;
+      if (step.complex) {
+        const CMatrix& m = complex(y);
+        CMatrix w;
+        if (y.adj) {
+          w = m(idx, Eigen::all);
+          w.array().colwise() *= s.cast<Complex>().array();
+        } else {
+          w = m(Eigen::all, idx);
+          w.array().rowwise() *= s.cast<Complex>().transpose().array();
+        }
+        linalg::herk(w, y.adj ? linalg::Op::adjoint : linalg::Op::none, out.complex,
+                     sign * step.alpha, beta);
+      } else {
+        const RMatrix& m = real(y);
+        RMatrix w;
+        if (y.adj) {
+          w = m(idx, Eigen::all);
+          w.array().colwise() *= s.array();
+        } else {
+          w = m(Eigen::all, idx);
+          w.array().rowwise() *= s.transpose().array();
+        }
+        linalg::syrk(w, y.adj ? linalg::Op::transpose : linalg::Op::none, out.real,
+                     sign * step.alpha, beta);
+      }
+      written = true;
+    };
+    update(plus, 1.0);
+    update(minus, -1.0);
+    if (step.complex) {
+      if (!written) out.complex = CMatrix::Zero(n, n);
+      out.complex.diagonal().array() += step.alpha * shift;
+    } else {
+      if (!written) out.real = RMatrix::Zero(n, n);
+      out.real.diagonal().array() += step.alpha * shift;
+    }
+  }
+
+  void scale(const Step& step, Buffer& out) {
+    const Ref x = step.in[0];
+    const Vector d = step.alpha * diagonal(step.in[1]);
+    const bool rows = step.kind == StepKind::scale_rows;
+    if (step.complex) {
+      if (!step.in_place) out.complex = x.adj ? CMatrix(complex(x).adjoint()) : complex(x);
+      const Eigen::VectorXcd dc = d.cast<Complex>();
+      if (rows) {
+        out.complex.array().colwise() *= dc.array();
+      } else {
+        out.complex.array().rowwise() *= dc.transpose().array();
+      }
+    } else {
+      if (!step.in_place) out.real = x.adj ? RMatrix(real(x).transpose()) : real(x);
+      if (rows) {
+        out.real.array().colwise() *= d.array();
+      } else {
+        out.real.array().rowwise() *= d.transpose().array();
+      }
+    }
+  }
+
+  void sum(const Step& step, Buffer& out) {
+    const Node& n = p_.nodes[step.node];
+    const Index r = p_.dims[n.rows], c = p_.dims[n.cols];
+    if (step.complex) {
+      if (!step.in_place) out.complex = CMatrix::Zero(r, c);
+      CMatrix& m = out.complex;
+      for (std::size_t i = 0; i < step.in.size(); ++i) {
+        const Ref t = step.in[i];
+        const double a = step.alpha * step.coefs[i];
+        if (node(t).diag) {
+          m.diagonal() += (a * diagonal(t)).cast<Complex>();
+        } else if (node(t).real) {
+          if (t.adj) {
+            m += (a * real(t).transpose()).cast<Complex>();
+          } else {
+            m += (a * real(t)).cast<Complex>();
+          }
+        } else if (t.adj) {
+          m += a * complex(t).adjoint();
+        } else {
+          m += a * complex(t);
+        }
+      }
+      m.diagonal().array() += step.alpha * step.identity;
+    } else {
+      if (!step.in_place) out.real = RMatrix::Zero(r, c);
+      RMatrix& m = out.real;
+      for (std::size_t i = 0; i < step.in.size(); ++i) {
+        const Ref t = step.in[i];
+        const double a = step.alpha * step.coefs[i];
+        if (node(t).diag) {
+          m.diagonal() += a * diagonal(t);
+        } else if (t.adj) {
+          m += a * real(t).transpose();
+        } else {
+          m += a * real(t);
+        }
+      }
+      m.diagonal().array() += step.alpha * step.identity;
+    }
+  }
+
+  const PlanData& p_;
+  const std::vector<ensembles::Sample>& samples_;
+  std::vector<Buffer> buffers_;
+};
+
+}  // namespace
+
+Evaluated Plan::evaluate(const std::vector<ensembles::Sample>& samples) const {
+  return Evaluator(*data_, samples).run();
+}
+
+Eigen::VectorXd compute_spectrum(Spectrum spectrum, Evaluated& result) {
+  if (spectrum == Spectrum::eigenvalues) {
+    return result.is_complex ? linalg::eigenvalues(result.complex)
+                             : linalg::eigenvalues(result.real);
+  }
+  if (result.lower_only) {
+    if (result.is_complex) {
+      linalg::mirror_lower(result.complex);
+    } else {
+      linalg::mirror_lower(result.real);
+    }
+  }
+  return result.is_complex ? linalg::singular_values(result.complex)
+                           : linalg::singular_values(result.real);
+}
+
+}  // namespace freegap::expr
