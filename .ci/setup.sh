@@ -11,7 +11,7 @@ export FREEGAP_ROOT FREEGAP_BUILD_DIR
 # The stack as Debian 12 ships it (shared build notes); python3-* are Debian's, for plots and
 # cross-checks, and are used through /usr/bin/python3.
 FREEGAP_PACKAGES=(
-  build-essential cmake pkg-config git
+  build-essential cmake pkg-config git openssh-client
   libopenmpi-dev openmpi-bin libeigen3-dev libhdf5-dev hdf5-tools libcli11-dev
   libgtest-dev libbenchmark-dev libopenblas-dev liblapacke-dev librandom123-dev
   libtomlplusplus-dev python3 python3-numpy python3-scipy python3-h5py python3-matplotlib

@@ -1,0 +1,135 @@
+// The job file: a TOML declaration of a study, parsed and validated with line-precise messages,
+// and the canonical text and SHA-256 hash of everything that defines its numbers.
+//
+// The file, by example (every key is explained in jobs/*.toml):
+//
+//   name = "free sum of two ±1 spectra"     # optional; default: the job file's stem
+//   seed = 2026                             # required, integer ≥ 0
+//   sizes = [100, 200, 400, 800]            # required, strictly increasing, 1 ≤ N < 2^31
+//   trials = 40                             # required; one number for every size, or a list
+//   expression = "B + U B U^*"              # required; checked by the runner, not here
+//
+//   [matrices.B]                            # at least one; a name is a letter, then letters,
+//   ensemble = "diagonal"                   # digits or '_'
+//   atoms = [[1.0, 0.5], [-1.0, 0.5]]       # [value, weight] pairs, weights sum to 1
+//   [matrices.U]
+//   ensemble = "haar_unitary"
+//   method = "qr"                           # or "polar"; default "qr"
+//
+//   [observe]                               # optional, every key has a default
+//   bins = 200                              # 1 ≤ bins ≤ observe::kMaxBins
+//   range = "auto"                          # or [low, high] with low < high
+//   margin = 0.1                            # only with range = "auto"; ≥ 0
+//   max_moment = 8                          # 0..64
+//   keep_spectra = 0                        # ≥ 0
+//   spectrum = "auto"                       # or "singular_values"
+//
+//   [run]                                   # optional
+//   trials_per_unit = 8                     # ≥ 1; default kDefaultTrialsPerUnit
+//   memory_per_rank = "8 GiB"               # B, kB, MB, GB, TB, KiB, MiB, GiB, TiB, or integer
+//   bytes output = "free-sum.h5"                  # relative to the job file's directory
+//   force_dense = false
+//
+// Matrix keys by ensemble (a key that does not apply is an error):
+//   gue, goe, wigner_rademacher            ensemble
+//   wishart_*, ginibre_*                   ensemble, ratio (c = N/M > 0, default 1)
+//   haar_unitary, haar_orthogonal          ensemble, method ("qr" | "polar", default "qr")
+//   diagonal                               ensemble, law ("atoms" default | "uniform" |
+//   "semicircle"
+//                                          | "marchenko_pastur" | "file") and by law:
+//                                            atoms: atoms (required)
+//                                            uniform: low, high (both required)
+//                                            semicircle: variance (> 0, default 1)
+//                                            marchenko_pastur: ratio (> 0, default 1)
+//                                            file: path (required; relative to the job file)
+//
+// Every message is "file:line: key: rule broken and how to fix it" (line omitted when the key is
+// missing from the file altogether); a TOML syntax error is "file:line:column: TOML syntax: ...".
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <map>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "freegap/ensembles.hpp"
+
+namespace freegap::job {
+
+/// Trials per work unit when [run] does not say: large enough that a unit's result (a few KB to
+/// MB) and its commit are cheap next to its O(N^3) work, small enough that a killed run loses
+/// little and ranks stay balanced on short ladders.
+inline constexpr std::int64_t kDefaultTrialsPerUnit = 8;
+/// Sizes must be below 2^31: LAPACK's default integer interface is 32-bit.
+inline constexpr std::int64_t kSizeLimit = std::int64_t{1} << 31;
+
+struct ObserveSettings {
+  std::int64_t bins = 200;
+  bool auto_range = true;    ///< range from a deterministic pilot trial (the runner does it)
+  double low = 0, high = 0;  ///< when auto_range is false
+  /// Auto range: widen the pilot's [min, max] by margin × width on each side.
+  double margin = 0.1;
+  int max_moment = 8;             ///< 0..64
+  std::int64_t keep_spectra = 0;  ///< the first k trials of each size keep their full spectrum
+  bool singular_values = false;   ///< force singular values of a self-adjoint expression
+};
+
+struct Job {
+  std::string path;  ///< where it was read from ("<text>" when parsed from a string)
+  std::string text;  ///< the file's text, verbatim (stored in the run file)
+  std::string name;  ///< default: the stem of path
+  std::uint64_t seed = 0;
+  std::vector<std::int64_t> sizes;   ///< strictly increasing, 1 ≤ N < kSizeLimit
+  std::vector<std::int64_t> trials;  ///< one per size (a single number in the file is expanded)
+  std::int64_t trials_per_unit = kDefaultTrialsPerUnit;  ///< work-unit block size
+  /// Sorted by name (canonical order). A law = "file" path is resolved against the job file's
+  /// directory.
+  std::vector<ensembles::MatrixSpec> matrices;
+  std::string expression;  ///< verbatim; not parsed here
+  ObserveSettings observe;
+  /// Run file path; default: the job file's stem + ".h5" next to the job file. A relative path
+  /// in the file is resolved against the job file's directory.
+  std::string output;
+  std::int64_t memory_per_rank_bytes = 0;  ///< 0 = not given
+  bool force_dense = false;                ///< force the dense path
+
+  /// One entry per matrix, parallel to `matrices`: for a law = "file" diagonal, the count and
+  /// SHA-256 of the sorted numbers read from its file when the job was loaded ("<K> <hex>"), so
+  /// that editing the file changes the hash; empty for every other matrix.
+  std::vector<std::string> file_digests;
+  /// 1-based line of every key in the file, by dotted name ("seed", "matrices.B",
+  /// "matrices.B.ratio", "observe.bins"). Filled by parse_job.
+  std::map<std::string, int, std::less<>> key_lines;
+
+  /// Canonical text of everything that defines the numbers: seed, sizes, trials,
+  /// trials_per_unit, matrices (sorted, numbers as %.17g, file digests), the expression
+  /// verbatim, the observe settings and force_dense. Not the name, output, memory limit, path,
+  /// comments or formatting.
+  std::string canonical() const;
+  /// SHA-256 of canonical(), 64 lowercase hex digits.
+  std::string hash() const;
+  /// 1-based line of a key ("expression", "matrices.B.ratio"), 0 if the file does not have it.
+  int line_of(std::string_view key) const;
+  /// "file:line: key: " (or "file: key: " when the line is unknown), to prefix a message about
+  /// a key that the runner checks (e.g. the expression).
+  std::string where(std::string_view key) const;
+};
+
+/// Reads and parses a job file. Throws InputError ("cannot read job file 'x.toml': <reason>" or a
+/// validation message).
+Job load_job(const std::string& path);
+/// Parses job text; `path` names it in messages and anchors relative paths. Throws InputError.
+Job parse_job(std::string_view text, const std::string& path);
+
+/// Parses an amount of memory: "<number> <unit>" with unit B, kB, MB, GB, TB (powers of 1000)
+/// or KiB, MiB, GiB, TiB (powers of 1024), case-insensitive, space optional ("4GiB", "1.5 GB").
+/// Returns bytes (rounded down); throws InputError with a short reason if it cannot, if the
+/// amount is below one byte or does not fit in int64.
+std::int64_t parse_memory(std::string_view text);
+
+/// SHA-256 (FIPS 180-4) of `data`, as 64 lowercase hex digits.
+std::string sha256_hex(std::string_view data);
+
+}  // namespace freegap::job

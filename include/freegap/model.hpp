@@ -1,0 +1,80 @@
+// A model — declared matrices and an expression in them — and its trials: sample, evaluate,
+// compute the spectrum, observe. The runner and the tests drive trials through this one path.
+#pragma once
+
+#include <Eigen/Core>
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "freegap/ensembles.hpp"
+#include "freegap/expr.hpp"
+#include "freegap/observe.hpp"
+
+namespace freegap::model {
+
+using Index = Eigen::Index;
+
+/// What a job declares about its matrices and expression.
+struct Model {
+  std::vector<ensembles::MatrixSpec> matrices;
+  std::string expression;
+  expr::CheckOptions check;
+};
+
+/// Parses a matrix declaration as written on the command line:
+///   NAME=ENSEMBLE[:key=value]...
+/// e.g. "X1=gue", "W=wishart_complex:ratio=0.5", "U=haar_unitary:method=polar",
+/// "B=diagonal:atoms=1@0.5,-1@0.5" (value@weight pairs), "D=diagonal:law=uniform:low=0:high=2",
+/// "S=diagonal:law=semicircle:variance=2", "P=diagonal:law=marchenko_pastur:ratio=0.25",
+/// "E=diagonal:law=file:path=eigs.txt". Throws InputError naming the declaration and the fix.
+ensembles::MatrixSpec parse_declaration(const std::string& text);
+
+/// Seconds spent in each stage of one trial (for benchmarks and progress; never in results).
+struct StageSeconds {
+  double sample = 0.0;
+  double evaluate = 0.0;
+  double spectrum = 0.0;
+};
+
+/// One trial's spectrum, or the reason it has none.
+struct TrialOutcome {
+  std::uint64_t trial = 0;
+  bool failed = false;
+  std::string reason;
+  Eigen::VectorXd spectrum;  ///< eigenvalues ascending or singular values descending
+  StageSeconds seconds;
+};
+
+/// Everything needed to run trials of a model at one size N: samplers, the checked expression
+/// and its evaluation plan. Construction validates everything (throws InputError).
+class SizeRunner {
+ public:
+  SizeRunner(const Model& model, Index n);
+
+  Index size() const { return n_; }
+  const expr::Expression& expression() const { return expression_; }
+  const expr::Plan& plan() const { return plan_; }
+  observe::SpectrumKind spectrum_kind() const;
+
+  /// Draws the samples of trial `trial` (only the matrices the expression uses).
+  std::vector<ensembles::Sample> draw(std::uint64_t seed, std::uint64_t trial) const;
+  /// Evaluates and diagonalises given samples. A non-finite entry in the evaluated matrix or a
+  /// LAPACK failure gives a failed outcome with its reason; nothing is thrown for those.
+  TrialOutcome spectrum_of(std::uint64_t trial, const std::vector<ensembles::Sample>& samples) const;
+  /// draw + spectrum_of.
+  TrialOutcome run(std::uint64_t seed, std::uint64_t trial) const;
+
+ private:
+  Index n_;
+  std::vector<ensembles::Sampler> samplers_;
+  std::vector<bool> used_;
+  expr::Expression expression_;
+  expr::Plan plan_;
+};
+
+/// Records an outcome into observations (a failed one as a failure row).
+void record(observe::Observations& obs, const TrialOutcome& outcome);
+
+}  // namespace freegap::model

@@ -1,0 +1,116 @@
+// The canonical text of a job and its hash. A run file is tied to the job that made it by this hash
+// (DESIGN.md rule 3), so it must change exactly when the numbers could: every field that enters a
+// trial or an observation is in it, printed in one fixed order and format; the name, the output
+// path, the memory limit, the file's comments, key order and layout are not.
+#include <charconv>
+#include <string>
+
+#include "freegap/job.hpp"
+
+namespace freegap::job {
+
+namespace {
+
+using ensembles::DiagonalLawKind;
+using ensembles::Kind;
+
+// %.17g round-trips every double, so two different parameters never print alike. to_chars gives
+// exactly printf's %.17g in the C locale, whatever locale the process runs in.
+std::string exact(double x) {
+  char buf[40];
+  const auto result = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
+  return std::string(buf, result.ptr);
+}
+
+// Free text carries its length so that no content (newlines, '=' signs) can imitate a field.
+std::string with_length(const std::string& text) {
+  return std::to_string(text.size()) + ":" + text;
+}
+
+std::string law_words(const ensembles::DiagonalLaw& law) {
+  switch (law.kind) {
+    case DiagonalLawKind::atoms: {
+      std::string out = "law = atoms; atoms =";
+      for (const auto& atom : law.atoms) {
+        out += ' ';
+        out += exact(atom.value);
+        out += '@';
+        out += exact(atom.weight);
+      }
+      return out;
+    }
+    case DiagonalLawKind::uniform:
+      return "law = uniform; low = " + exact(law.low) + "; high = " + exact(law.high);
+    case DiagonalLawKind::semicircle_quantiles:
+      return "law = semicircle; variance = " + exact(law.variance);
+    case DiagonalLawKind::marchenko_pastur_quantiles:
+      return "law = marchenko_pastur; ratio = " + exact(law.ratio);
+    case DiagonalLawKind::file:
+      return "law = file";  // the numbers' digest follows; the path is where, not what
+  }
+  return "law = ?";
+}
+
+}  // namespace
+
+std::string Job::canonical() const {
+  std::string out = "freegap job canonical 1\n";
+  out += "seed = " + std::to_string(seed) + "\n";
+  out += "sizes =";
+  // Appended piece by piece: GCC 12 warns falsely (-Wrestrict) on " " + std::to_string(n).
+  for (const auto n : sizes) {
+    out += ' ';
+    out += std::to_string(n);
+  }
+  out += "\ntrials =";
+  for (const auto t : trials) {
+    out += ' ';
+    out += std::to_string(t);
+  }
+  out += "\ntrials_per_unit = " + std::to_string(trials_per_unit) + "\n";
+  for (std::size_t i = 0; i < matrices.size(); ++i) {
+    const auto& m = matrices[i];
+    // Parameters that apply to the ensemble only: the others are unused defaults, and printing
+    // them would tie the hash to defaults that do not affect the numbers.
+    out += "matrix " + m.name + ": ensemble = " + std::string(ensembles::kind_name(m.kind));
+    switch (m.kind) {
+      case Kind::wishart_complex:
+      case Kind::wishart_real:
+      case Kind::ginibre_complex:
+      case Kind::ginibre_real:
+        out += "; ratio = " + exact(m.ratio);
+        break;
+      case Kind::haar_unitary:
+      case Kind::haar_orthogonal:
+        out += m.haar == ensembles::HaarMethod::qr ? "; method = qr" : "; method = polar";
+        break;
+      case Kind::diagonal:
+        out += "; " + law_words(m.diagonal);
+        if (m.diagonal.kind == DiagonalLawKind::file) {
+          out += "; values = " + (i < file_digests.size() ? file_digests[i] : std::string("?"));
+        }
+        break;
+      case Kind::gue:
+      case Kind::goe:
+      case Kind::wigner_rademacher:
+        break;
+    }
+    out += "\n";
+  }
+  out += "expression = " + with_length(expression) + "\n";
+  out += "observe: bins = " + std::to_string(observe.bins);
+  if (observe.auto_range) {
+    out += "; range = auto; margin = " + exact(observe.margin);
+  } else {
+    out += "; range = " + exact(observe.low) + " " + exact(observe.high);
+  }
+  out += "; max_moment = " + std::to_string(observe.max_moment);
+  out += "; keep_spectra = " + std::to_string(observe.keep_spectra);
+  out += observe.singular_values ? "; spectrum = singular_values\n" : "; spectrum = auto\n";
+  out += force_dense ? "force_dense = true\n" : "force_dense = false\n";
+  return out;
+}
+
+std::string Job::hash() const { return sha256_hex(canonical()); }
+
+}  // namespace freegap::job

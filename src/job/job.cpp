@@ -1,0 +1,849 @@
+// Parsing and validating the TOML job file (include/freegap/job.hpp). Every message names the
+// file, the line and the dotted key, the rule broken and the fix (STYLE.md §10–11), so a user with
+// a typo on line 40 of a long study does not have to guess.
+#include "freegap/job.hpp"
+
+#include <toml++/toml.h>
+
+#include <algorithm>
+#include <cctype>
+#include <cerrno>
+#include <charconv>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <initializer_list>
+#include <limits>
+#include <memory>
+#include <sstream>
+#include <utility>
+
+#include "freegap/errors.hpp"
+#include "freegap/observe.hpp"
+
+namespace freegap::job {
+
+namespace {
+
+using ensembles::DiagonalLawKind;
+using ensembles::Kind;
+
+// Shortest text that reads back as the same double ("0.9", not "0.90000000000000002").
+std::string short_number(double x) {
+  char buf[64];
+  const auto result = std::to_chars(buf, buf + sizeof buf, x);
+  return std::string(buf, result.ptr);
+}
+
+// What a node holds, for "(got ...)": the type and, for scalars, the value.
+std::string describe(const toml::node& node) {
+  switch (node.type()) {
+    case toml::node_type::string:
+      return "string \"" + std::string(node.as_string()->get()) + "\"";
+    case toml::node_type::integer:
+      return "integer " + std::to_string(node.as_integer()->get());
+    case toml::node_type::floating_point:
+      return "float " + short_number(node.as_floating_point()->get());
+    case toml::node_type::boolean:
+      return node.as_boolean()->get() ? "boolean true" : "boolean false";
+    case toml::node_type::array:
+      return "a list";
+    case toml::node_type::table:
+      return "a table";
+    case toml::node_type::date:
+    case toml::node_type::time:
+    case toml::node_type::date_time:
+      return "a date or time";
+    case toml::node_type::none:
+      break;
+  }
+  return "nothing";
+}
+
+std::string join(const std::vector<std::string_view>& words) {
+  std::string out;
+  for (const auto word : words) {
+    if (!out.empty()) out += ", ";
+    out += word;
+  }
+  return out;
+}
+
+// Levenshtein distance, to suggest the key a typo meant.
+std::size_t edit_distance(std::string_view a, std::string_view b) {
+  std::vector<std::size_t> row(b.size() + 1);
+  for (std::size_t j = 0; j <= b.size(); ++j) row[j] = j;
+  for (std::size_t i = 1; i <= a.size(); ++i) {
+    std::size_t diagonal = row[0];
+    row[0] = i;
+    for (std::size_t j = 1; j <= b.size(); ++j) {
+      const std::size_t up = row[j];
+      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diagonal + (a[i - 1] == b[j - 1] ? 0 : 1)});
+      diagonal = up;
+    }
+  }
+  return row[b.size()];
+}
+
+bool is_identifier(std::string_view name) {
+  if (name.empty() || !std::isalpha(static_cast<unsigned char>(name[0]))) return false;
+  return std::all_of(name.begin(), name.end(), [](char c) {
+    return std::isalnum(static_cast<unsigned char>(c)) || c == '_';
+  });
+}
+
+std::string join_path(std::string_view prefix, std::string_view key) {
+  return prefix.empty() ? std::string(key) : std::string(prefix) + "." + std::string(key);
+}
+
+// Walks a parsed document, validating one table at a time. Holds the file name and the key lines
+// so every check can say where it failed.
+class Reader {
+ public:
+  Reader(std::string path, std::map<std::string, int, std::less<>>& lines)
+      : path_(std::move(path)), lines_(lines) {}
+
+  void record_lines(const toml::table& table, std::string_view prefix) {
+    for (auto&& [key, node] : table) {
+      const std::string dotted = join_path(prefix, key.str());
+      lines_.emplace(dotted, static_cast<int>(key.source().begin.line));
+      if (const auto* sub = node.as_table()) record_lines(*sub, dotted);
+    }
+  }
+
+  int line(std::string_view key) const {
+    const auto it = lines_.find(key);
+    return it == lines_.end() ? 0 : it->second;
+  }
+
+  [[noreturn]] void fail_at(int line, std::string_view key, const std::string& what) const {
+    std::string out = path_;
+    if (line > 0) out += ":" + std::to_string(line);
+    out += ": ";
+    out += key;
+    out += ": ";
+    out += what;
+    throw InputError(out);
+  }
+  [[noreturn]] void fail(std::string_view key, const std::string& what) const {
+    fail_at(line(key), key, what);
+  }
+  // A message about one element of a list, at the element's own line.
+  [[noreturn]] void fail_node(const toml::node& node, std::string_view key,
+                              const std::string& what) const {
+    const int at = static_cast<int>(node.source().begin.line);
+    fail_at(at > 0 ? at : line(key), key, what);
+  }
+
+  // Unknown keys are errors: a misspelt key silently ignored would run a different study than the
+  // one written. The earliest offending key in the file is reported.
+  void check_keys(const toml::table& table, std::string_view prefix,
+                  const std::vector<std::string_view>& known, std::string_view label) const {
+    const toml::key* first = nullptr;
+    for (auto&& [key, node] : table) {
+      if (std::find(known.begin(), known.end(), key.str()) != known.end()) continue;
+      if (first == nullptr || key.source().begin.line < first->source().begin.line) first = &key;
+    }
+    if (first != nullptr) fail_unknown(prefix, first->str(), known, label);
+  }
+
+  [[noreturn]] void fail_unknown(std::string_view prefix, std::string_view name,
+                                 const std::vector<std::string_view>& known,
+                                 std::string_view label) const {
+    std::string what = "unknown key '" + std::string(name) + "'";
+    std::string_view closest;
+    std::size_t best = 3;  // suggest only close misspellings (at most two edits)
+    for (const auto candidate : known) {
+      const std::size_t d = edit_distance(name, candidate);
+      if (d < best) {
+        best = d;
+        closest = candidate;
+      }
+    }
+    if (!closest.empty()) what += " (did you mean '" + std::string(closest) + "'?)";
+    what += "; known keys";
+    what += label;
+    what += ": " + join(known);
+    fail(join_path(prefix, name), what);
+  }
+
+  std::int64_t integer(const toml::node& node, std::string_view key,
+                       const std::string& rule) const {
+    if (const auto* v = node.as_integer()) return v->get();
+    std::string what = "must be " + rule + " (got " + describe(node) + ")";
+    if (node.is_string()) what += "; write the number without quotes";
+    fail_node(node, key, what);
+  }
+
+  double number(const toml::node& node, std::string_view key, const std::string& rule) const {
+    if (const auto* v = node.as_integer()) return static_cast<double>(v->get());
+    if (const auto* v = node.as_floating_point()) return v->get();
+    std::string what = "must be " + rule + " (got " + describe(node) + ")";
+    if (node.is_string()) what += "; write the number without quotes";
+    fail_node(node, key, what);
+  }
+
+  double finite_number(const toml::node& node, std::string_view key) const {
+    const double v = number(node, key, "a finite number");
+    if (!std::isfinite(v))
+      fail_node(node, key, "must be a finite number (got " + short_number(v) + ")");
+    return v;
+  }
+
+  double positive_number(const toml::node& node, std::string_view key) const {
+    const double v = number(node, key, "a positive number");
+    if (!(std::isfinite(v) && v > 0)) {
+      fail_node(node, key, "must be a positive number (got " + short_number(v) + ")");
+    }
+    return v;
+  }
+
+  std::string string(const toml::node& node, std::string_view key, const std::string& rule) const {
+    if (const auto* v = node.as_string()) return v->get();
+    fail_node(node, key, "must be " + rule + " (got " + describe(node) + ")");
+  }
+
+  bool boolean(const toml::node& node, std::string_view key) const {
+    if (const auto* v = node.as_boolean()) return v->get();
+    fail_node(node, key, "must be true or false (got " + describe(node) + ")");
+  }
+
+  const toml::table& table(const toml::node& node, std::string_view key,
+                           const std::string& example) const {
+    if (const auto* t = node.as_table()) return *t;
+    fail_node(node, key, "must be a table (got " + describe(node) + "); " + example);
+  }
+
+  const std::string& path() const { return path_; }
+
+ private:
+  std::string path_;
+  std::map<std::string, int, std::less<>>& lines_;
+};
+
+// ---- top level ---------------------------------------------------------------------------------
+
+std::vector<std::int64_t> read_sizes(const Reader& r, const toml::node& node) {
+  std::vector<std::int64_t> sizes;
+  std::vector<const toml::node*> items;
+  if (const auto* list = node.as_array()) {
+    for (const auto& item : *list) items.push_back(&item);
+    if (items.empty())
+      r.fail("sizes", "is empty; give at least one size, e.g. sizes = [100, 200, 400]");
+  } else if (node.is_integer()) {
+    items.push_back(&node);
+  } else {
+    r.fail("sizes",
+           "must be a list of integers, e.g. sizes = [100, 200, 400] (got " + describe(node) + ")");
+  }
+  for (const auto* item : items) {
+    const std::int64_t n = r.integer(*item, "sizes", "a list of integers, e.g. [100, 200, 400]");
+    if (n < 1)
+      r.fail_node(*item, "sizes", "every size must be at least 1 (got " + std::to_string(n) + ")");
+    if (n >= kSizeLimit) {
+      r.fail_node(*item, "sizes",
+                  "every size must be below 2^31 = 2147483648 (got " + std::to_string(n) + ")");
+    }
+    if (!sizes.empty() && n == sizes.back()) {
+      r.fail_node(*item, "sizes",
+                  "must be strictly increasing (got " + std::to_string(n) +
+                      " twice); remove the repeated size");
+    }
+    if (!sizes.empty() && n < sizes.back()) {
+      r.fail_node(*item, "sizes",
+                  "must be strictly increasing (got " + std::to_string(n) + " after " +
+                      std::to_string(sizes.back()) + "); sort the ladder");
+    }
+    sizes.push_back(n);
+  }
+  return sizes;
+}
+
+std::vector<std::int64_t> read_trials(const Reader& r, const toml::node& node,
+                                      const std::vector<std::int64_t>& sizes) {
+  if (node.is_integer()) {
+    const std::int64_t t = node.as_integer()->get();
+    if (t < 1) r.fail("trials", "must be at least 1 (got " + std::to_string(t) + ")");
+    return std::vector<std::int64_t>(sizes.size(), t);
+  }
+  const auto* list = node.as_array();
+  if (list == nullptr) {
+    r.fail("trials",
+           "must be an integer or a list with one integer per size (got " + describe(node) + ")");
+  }
+  if (list->size() != sizes.size()) {
+    r.fail("trials", "has " + std::to_string(list->size()) + " entries but sizes has " +
+                         std::to_string(sizes.size()) + "; give one per size or a single number");
+  }
+  std::vector<std::int64_t> trials;
+  for (std::size_t i = 0; i < list->size(); ++i) {
+    const auto& item = (*list)[i];
+    const std::int64_t t = r.integer(item, "trials", "a list of integers, one per size");
+    if (t < 1) {
+      r.fail_node(item, "trials",
+                  "every entry must be at least 1 (got " + std::to_string(t) +
+                      " for N = " + std::to_string(sizes[i]) + ")");
+    }
+    trials.push_back(t);
+  }
+  return trials;
+}
+
+// ---- matrices ----------------------------------------------------------------------------------
+
+struct LawName {
+  DiagonalLawKind kind;
+  std::string_view name;
+};
+constexpr LawName kLaws[] = {
+    {DiagonalLawKind::atoms, "atoms"},
+    {DiagonalLawKind::uniform, "uniform"},
+    {DiagonalLawKind::semicircle_quantiles, "semicircle"},
+    {DiagonalLawKind::marchenko_pastur_quantiles, "marchenko_pastur"},
+    {DiagonalLawKind::file, "file"},
+};
+
+const std::vector<std::string_view> kAllMatrixKeys = {
+    "ensemble", "ratio", "method", "law", "atoms", "low", "high", "variance", "path"};
+
+bool has_ratio(Kind k) {
+  return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
+         k == Kind::ginibre_real;
+}
+
+std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
+  if (has_ratio(kind)) return {"ensemble", "ratio"};
+  if (ensembles::is_unitary(kind)) return {"ensemble", "method"};
+  if (kind != Kind::diagonal) return {"ensemble"};
+  switch (law) {
+    case DiagonalLawKind::atoms:
+      return {"ensemble", "law", "atoms"};
+    case DiagonalLawKind::uniform:
+      return {"ensemble", "law", "low", "high"};
+    case DiagonalLawKind::semicircle_quantiles:
+      return {"ensemble", "law", "variance"};
+    case DiagonalLawKind::marchenko_pastur_quantiles:
+      return {"ensemble", "law", "ratio"};
+    case DiagonalLawKind::file:
+      return {"ensemble", "law", "path"};
+  }
+  return {"ensemble"};
+}
+
+std::string_view law_name(DiagonalLawKind kind) {
+  for (const auto& law : kLaws) {
+    if (law.kind == kind) return law.name;
+  }
+  return "?";
+}
+
+std::vector<ensembles::Atom> read_atoms(const Reader& r, const toml::node& node,
+                                        const std::string& key) {
+  const std::string example = "e.g. atoms = [[1.0, 0.5], [-1.0, 0.5]]";
+  const auto* list = node.as_array();
+  if (list == nullptr) {
+    r.fail(key,
+           "must be a list of [value, weight] pairs, " + example + " (got " + describe(node) + ")");
+  }
+  if (list->empty()) r.fail(key, "is empty; give at least one [value, weight] pair, " + example);
+  std::vector<ensembles::Atom> atoms;
+  double total = 0.0;
+  for (const auto& item : *list) {
+    const auto* pair = item.as_array();
+    if (pair == nullptr || pair->size() != 2) {
+      r.fail_node(item, key,
+                  "every atom must be a [value, weight] pair, " + example + " (got " +
+                      (pair ? "a list of " + std::to_string(pair->size()) : describe(item)) + ")");
+    }
+    const double value = r.finite_number((*pair)[0], key);
+    const double weight = r.number((*pair)[1], key, "a number");
+    if (!(std::isfinite(weight) && weight >= 0)) {
+      r.fail_node(item, key,
+                  "every weight must be a finite number ≥ 0 (got " + short_number(weight) +
+                      " for value " + short_number(value) + ")");
+    }
+    total += weight;
+    atoms.push_back({value, weight});
+  }
+  // The sampler's tolerance (ensembles.cpp): a sum that is 1 up to rounding of the decimals.
+  if (std::abs(total - 1.0) > 1e-12) {
+    r.fail(key, "weights must sum to 1 (got " + short_number(total) + "); rescale them");
+  }
+  return atoms;
+}
+
+// Count of numbers in an eigenvalue file, by the sampler's rules (whitespace-separated, '#' starts
+// a comment). Called after the sampler has read and checked the file.
+std::size_t count_numbers(const std::string& path) {
+  std::ifstream in(path);
+  std::size_t count = 0;
+  std::string line;
+  while (std::getline(in, line)) {
+    if (const auto hash = line.find('#'); hash != std::string::npos) line.erase(hash);
+    std::istringstream words(line);
+    std::string word;
+    while (words >> word) ++count;
+  }
+  return count;
+}
+
+// "<K> <sha256 of the sorted values as %.17g lines>": the numbers the sampler will use, so that
+// editing the file changes the job hash while moving it does not.
+std::string file_digest(const ensembles::Sampler& sampler) {
+  const std::size_t count = count_numbers(sampler.spec().diagonal.path);
+  if (count == 0) return "0";
+  // A file of K numbers at size K gives exactly its sorted numbers (ensembles.hpp, DiagonalLaw).
+  const Eigen::VectorXd values = sampler.diagonal_values(static_cast<Eigen::Index>(count));
+  std::string text;
+  char buf[40];
+  for (Eigen::Index i = 0; i < values.size(); ++i) {
+    // %.17g, independent of the locale (as in canonical.cpp).
+    const auto result =
+        std::to_chars(buf, buf + sizeof buf, values(i), std::chars_format::general, 17);
+    text.append(buf, result.ptr);
+    text += '\n';
+  }
+  return std::to_string(count) + " " + sha256_hex(text);
+}
+
+ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
+                                  const std::filesystem::path& base) {
+  const std::string prefix = "matrices." + std::string(name);
+  if (!is_identifier(name)) {
+    r.fail(prefix, "matrix name '" + std::string(name) +
+                       "' must be a letter followed by letters, digits or '_'; rename the table");
+  }
+  const toml::table& t = r.table(
+      node, prefix,
+      "declare it as [matrices." + std::string(name) + "] with ensemble = \"...\" under it");
+  ensembles::MatrixSpec spec;
+  spec.name = std::string(name);
+
+  const std::string ensemble_key = prefix + ".ensemble";
+  const toml::node* ensemble = t.get("ensemble");
+  if (ensemble == nullptr) {
+    r.fail_at(r.line(prefix), ensemble_key,
+              "missing; add ensemble = \"...\" (known: " + ensembles::known_kinds() + ")");
+  }
+  const std::string kind_text =
+      r.string(*ensemble, ensemble_key, "the name of an ensemble in quotes");
+  try {
+    spec.kind = ensembles::parse_kind(kind_text);
+  } catch (const InputError& e) {
+    r.fail(ensemble_key, e.what());
+  }
+
+  const std::string law_key = prefix + ".law";
+  bool law_given = false;
+  if (spec.kind == Kind::diagonal) {
+    if (const toml::node* law = t.get("law")) {
+      law_given = true;
+      const std::string text = r.string(*law, law_key, "a law name in quotes");
+      const auto it = std::find_if(std::begin(kLaws), std::end(kLaws),
+                                   [&](const LawName& l) { return l.name == text; });
+      if (it == std::end(kLaws)) {
+        r.fail(law_key,
+               "must be one of \"atoms\", \"uniform\", \"semicircle\", "
+               "\"marchenko_pastur\", \"file\" (got \"" +
+                   text + "\")");
+      }
+      spec.diagonal.kind = it->kind;
+    }
+  }
+
+  // A key that does not apply here: a word of the matrix vocabulary gets its own message (the
+  // user wrote a meaningful key in the wrong place), anything else is unknown. The earliest such
+  // key in the file is reported.
+  const auto keys = matrix_keys(spec.kind, spec.diagonal.kind);
+  const std::string owner = spec.kind == Kind::diagonal
+                                ? "law \"" + std::string(law_name(spec.diagonal.kind)) + "\""
+                                : "ensemble " + kind_text;
+  const toml::key* first = nullptr;
+  for (auto&& [key, value] : t) {
+    if (std::find(keys.begin(), keys.end(), key.str()) != keys.end()) continue;
+    if (first == nullptr || key.source().begin.line < first->source().begin.line) first = &key;
+  }
+  if (first != nullptr) {
+    const std::string_view offending = first->str();
+    if (std::find(kAllMatrixKeys.begin(), kAllMatrixKeys.end(), offending) ==
+        kAllMatrixKeys.end()) {
+      r.fail_unknown(prefix, offending, keys, " for " + owner);
+    }
+    r.fail(prefix + "." + std::string(offending),
+           "does not apply to " + owner + " (its keys: " + join(keys) + "); remove it");
+  }
+
+  if (has_ratio(spec.kind)) {
+    if (const toml::node* v = t.get("ratio")) spec.ratio = r.positive_number(*v, prefix + ".ratio");
+  } else if (ensembles::is_unitary(spec.kind)) {
+    if (const toml::node* v = t.get("method")) {
+      const std::string key = prefix + ".method";
+      const std::string text = r.string(*v, key, "\"qr\" or \"polar\"");
+      if (text == "qr") {
+        spec.haar = ensembles::HaarMethod::qr;
+      } else if (text == "polar") {
+        spec.haar = ensembles::HaarMethod::polar;
+      } else {
+        r.fail(key, "must be \"qr\" or \"polar\" (got \"" + text + "\")");
+      }
+    }
+  } else if (spec.kind == Kind::diagonal) {
+    auto& law = spec.diagonal;
+    switch (law.kind) {
+      case DiagonalLawKind::atoms: {
+        const toml::node* v = t.get("atoms");
+        if (v == nullptr) {
+          if (law_given) {
+            r.fail_at(r.line(prefix), prefix + ".atoms",
+                      "missing; add atoms = [[value, weight], ...] with weights summing to 1");
+          }
+          r.fail(prefix,
+                 "a diagonal needs atoms = [[value, weight], ...] or a law = \"...\" "
+                 "(uniform, semicircle, marchenko_pastur, file); add one");
+        }
+        law.atoms = read_atoms(r, *v, prefix + ".atoms");
+        break;
+      }
+      case DiagonalLawKind::uniform: {
+        const toml::node* low = t.get("low");
+        const toml::node* high = t.get("high");
+        if (low == nullptr || high == nullptr) {
+          r.fail_at(r.line(prefix), prefix + (low == nullptr ? ".low" : ".high"),
+                    "missing; law \"uniform\" needs both low and high, e.g. low = 0 and high = 1");
+        }
+        law.low = r.finite_number(*low, prefix + ".low");
+        law.high = r.finite_number(*high, prefix + ".high");
+        if (!(law.low < law.high)) {
+          r.fail(prefix + ".high", "must be greater than low (got low = " + short_number(law.low) +
+                                       ", high = " + short_number(law.high) + ")");
+        }
+        break;
+      }
+      case DiagonalLawKind::semicircle_quantiles:
+        if (const toml::node* v = t.get("variance")) {
+          law.variance = r.positive_number(*v, prefix + ".variance");
+        }
+        break;
+      case DiagonalLawKind::marchenko_pastur_quantiles:
+        if (const toml::node* v = t.get("ratio"))
+          law.ratio = r.positive_number(*v, prefix + ".ratio");
+        break;
+      case DiagonalLawKind::file: {
+        const std::string key = prefix + ".path";
+        const toml::node* v = t.get("path");
+        if (v == nullptr) {
+          r.fail_at(r.line(prefix), key,
+                    "missing; law \"file\" needs path = \"...\" (a text file of numbers, relative "
+                    "to the job file's directory)");
+        }
+        const std::string given = r.string(*v, key, "a file path in quotes");
+        if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
+        const std::filesystem::path resolved = base / std::filesystem::path(given);
+        law.path = resolved.string();
+        // Checked here, with the system's reason, before the sampler's more general message.
+        std::FILE* f = std::fopen(law.path.c_str(), "r");
+        if (f == nullptr) {
+          r.fail(key, "cannot read eigenvalue file '" + law.path + "': " + std::strerror(errno) +
+                          "; a relative path is relative to the job file's directory");
+        }
+        std::fclose(f);
+        std::error_code ignored;
+        if (std::filesystem::is_directory(resolved, ignored)) {
+          r.fail(key, "'" + law.path + "' is a directory; give the eigenvalue file's path");
+        }
+        break;
+      }
+    }
+  }
+  return spec;
+}
+
+// ---- observe and run ---------------------------------------------------------------------------
+
+ObserveSettings read_observe(const Reader& r, const toml::table& t) {
+  r.check_keys(t, "observe", {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum"},
+               "");
+  ObserveSettings s;
+  if (const toml::node* v = t.get("bins")) {
+    s.bins = r.integer(*v, "observe.bins", "an integer");
+    if (s.bins < 1)
+      r.fail("observe.bins", "must be at least 1 (got " + std::to_string(s.bins) + ")");
+    if (s.bins > observe::kMaxBins) {
+      r.fail("observe.bins", "must be at most " + std::to_string(observe::kMaxBins) + " (got " +
+                                 std::to_string(s.bins) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("range")) {
+    const std::string rule = "\"auto\" or a list [low, high]";
+    if (const auto* text = v->as_string()) {
+      if (text->get() != "auto") {
+        r.fail("observe.range", "must be " + rule + " (got \"" + text->get() + "\")");
+      }
+    } else if (const auto* list = v->as_array()) {
+      if (list->size() != 2) {
+        r.fail("observe.range",
+               "must be " + rule + " (got a list of " + std::to_string(list->size()) + ")");
+      }
+      s.auto_range = false;
+      s.low = r.finite_number((*list)[0], "observe.range");
+      s.high = r.finite_number((*list)[1], "observe.range");
+      if (!(s.low < s.high)) {
+        r.fail("observe.range", "low must be less than high (got [" + short_number(s.low) + ", " +
+                                    short_number(s.high) + "]); write [low, high] with low < high");
+      }
+      // The histogram's own rule (edges finite and strictly increasing after rounding).
+      try {
+        (void)observe::uniform_edges(s.low, s.high, s.bins);
+      } catch (const InputError& e) {
+        std::string what = e.what();
+        if (what.rfind("observe: ", 0) == 0) what.erase(0, 9);  // the key names the place already
+        r.fail("observe.range", what);
+      }
+    } else {
+      r.fail("observe.range", "must be " + rule + " (got " + describe(*v) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("margin")) {
+    if (!s.auto_range) {
+      r.fail("observe.margin",
+             "applies only to range = \"auto\"; remove it or set range = \"auto\"");
+    }
+    s.margin = r.number(*v, "observe.margin", "a number ≥ 0");
+    if (!(std::isfinite(s.margin) && s.margin >= 0)) {
+      r.fail("observe.margin", "must be a finite number ≥ 0 (got " + short_number(s.margin) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("max_moment")) {
+    const std::int64_t k = r.integer(*v, "observe.max_moment", "an integer from 0 to 64");
+    if (k < 0 || k > observe::kMaxMomentLimit) {
+      r.fail("observe.max_moment", "must be between 0 and " +
+                                       std::to_string(observe::kMaxMomentLimit) + " (got " +
+                                       std::to_string(k) + ")");
+    }
+    s.max_moment = static_cast<int>(k);
+  }
+  if (const toml::node* v = t.get("keep_spectra")) {
+    s.keep_spectra = r.integer(*v, "observe.keep_spectra", "an integer ≥ 0");
+    if (s.keep_spectra < 0) {
+      r.fail("observe.keep_spectra",
+             "must be at least 0 (got " + std::to_string(s.keep_spectra) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("spectrum")) {
+    const std::string text = r.string(*v, "observe.spectrum", "\"auto\" or \"singular_values\"");
+    if (text == "singular_values") {
+      s.singular_values = true;
+    } else if (text != "auto") {
+      r.fail("observe.spectrum", "must be \"auto\" or \"singular_values\" (got \"" + text + "\")");
+    }
+  }
+  return s;
+}
+
+void read_run(const Reader& r, const toml::table& t, const std::filesystem::path& base, Job& job) {
+  r.check_keys(t, "run", {"trials_per_unit", "memory_per_rank", "output", "force_dense"}, "");
+  if (const toml::node* v = t.get("trials_per_unit")) {
+    job.trials_per_unit = r.integer(*v, "run.trials_per_unit", "an integer ≥ 1");
+    if (job.trials_per_unit < 1) {
+      r.fail("run.trials_per_unit",
+             "must be at least 1 (got " + std::to_string(job.trials_per_unit) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("memory_per_rank")) {
+    if (const auto* bytes = v->as_integer()) {
+      job.memory_per_rank_bytes = bytes->get();
+      if (job.memory_per_rank_bytes < 1) {
+        r.fail("run.memory_per_rank",
+               "must be at least 1 byte (got " + std::to_string(job.memory_per_rank_bytes) + ")");
+      }
+    } else if (const auto* text = v->as_string()) {
+      try {
+        job.memory_per_rank_bytes = parse_memory(text->get());
+      } catch (const InputError& e) {
+        r.fail("run.memory_per_rank", e.what());
+      }
+    } else {
+      r.fail("run.memory_per_rank",
+             "must be an amount such as \"8 GiB\" (got " + describe(*v) + ")");
+    }
+  }
+  if (const toml::node* v = t.get("output")) {
+    const std::string given = r.string(*v, "run.output", "a file path in quotes");
+    if (given.empty()) r.fail("run.output", "is empty; give the run file's path or remove the key");
+    job.output = (base / std::filesystem::path(given)).string();
+  }
+  if (const toml::node* v = t.get("force_dense"))
+    job.force_dense = r.boolean(*v, "run.force_dense");
+}
+
+}  // namespace
+
+// ---- public ------------------------------------------------------------------------------------
+
+std::int64_t parse_memory(std::string_view text) {
+  const std::string quoted = "'" + std::string(text) + "'";
+  const std::string how =
+      "; write a number and a unit, e.g. \"4 GiB\" (units: B, kB, MB, GB, TB, KiB, MiB, GiB, TiB)";
+  std::size_t i = 0;
+  while (i < text.size() && text[i] == ' ') ++i;
+  double amount = 0.0;
+  const auto parsed = std::from_chars(text.data() + i, text.data() + text.size(), amount);
+  if (parsed.ec != std::errc() || parsed.ptr == text.data() + i) {
+    throw InputError("cannot read " + quoted + " as an amount of memory" + how);
+  }
+  std::string unit(parsed.ptr, text.data() + text.size());
+  unit.erase(0, unit.find_first_not_of(' '));
+  unit.erase(unit.find_last_not_of(' ') + 1);
+  std::transform(unit.begin(), unit.end(), unit.begin(),
+                 [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  static const std::pair<std::string_view, double> kUnits[] = {
+      {"b", 1.0},         {"kb", 1e3},           {"mb", 1e6},
+      {"gb", 1e9},        {"tb", 1e12},          {"kib", 1024.0},
+      {"mib", 1048576.0}, {"gib", 1073741824.0}, {"tib", 1099511627776.0},
+  };
+  const auto* it = std::find_if(std::begin(kUnits), std::end(kUnits),
+                                [&](const auto& u) { return u.first == unit; });
+  if (it == std::end(kUnits)) {
+    throw InputError("cannot read " + quoted + " as an amount of memory" + how);
+  }
+  const double bytes = std::floor(amount * it->second);
+  if (!(bytes >= 1)) throw InputError("must be at least 1 byte (got " + quoted + ")");
+  // 2^63 is exactly representable; anything at or above it does not fit.
+  if (!(bytes < 9223372036854775808.0)) {
+    throw InputError("is too large (got " + quoted + "); at most 8 EiB fits");
+  }
+  return static_cast<std::int64_t>(bytes);
+}
+
+int Job::line_of(std::string_view key) const {
+  const auto it = key_lines.find(key);
+  return it == key_lines.end() ? 0 : it->second;
+}
+
+std::string Job::where(std::string_view key) const {
+  const int line = line_of(key);
+  return path + (line > 0 ? ":" + std::to_string(line) : std::string()) + ": " + std::string(key) +
+         ": ";
+}
+
+Job parse_job(std::string_view text, const std::string& path) {
+  Job job;
+  job.path = path;
+  job.text = std::string(text);
+  Reader r(path, job.key_lines);
+
+  toml::table doc;
+  try {
+    doc = toml::parse(text, std::string_view(path));
+  } catch (const toml::parse_error& e) {
+    throw InputError(path + ":" + std::to_string(e.source().begin.line) + ":" +
+                     std::to_string(e.source().begin.column) +
+                     ": TOML syntax: " + std::string(e.description()));
+  }
+  r.record_lines(doc, "");
+
+  r.check_keys(doc, "",
+               {"name", "seed", "sizes", "trials", "expression", "matrices", "observe", "run"},
+               " at the top level");
+
+  const std::filesystem::path file(path);
+  const std::filesystem::path base = file.parent_path();
+  job.name = file.stem().string();
+  job.output = (base / (file.stem().string() + ".h5")).string();
+
+  if (const toml::node* v = doc.get("name")) {
+    job.name = r.string(*v, "name", "a string in quotes");
+    if (job.name.empty()) r.fail("name", "is empty; name the study or remove the key");
+  }
+
+  const toml::node* seed = doc.get("seed");
+  if (seed == nullptr) r.fail_at(0, "seed", "missing; add seed = <integer ≥ 0>, e.g. seed = 1");
+  const std::int64_t seed_value = r.integer(*seed, "seed", "an integer ≥ 0");
+  if (seed_value < 0) {
+    r.fail("seed", "must be an integer ≥ 0 (got " + std::to_string(seed_value) + ")");
+  }
+  job.seed = static_cast<std::uint64_t>(seed_value);
+
+  const toml::node* sizes = doc.get("sizes");
+  if (sizes == nullptr) {
+    r.fail_at(0, "sizes", "missing; add the ladder of sizes, e.g. sizes = [100, 200, 400]");
+  }
+  job.sizes = read_sizes(r, *sizes);
+
+  const toml::node* trials = doc.get("trials");
+  if (trials == nullptr) {
+    r.fail_at(0, "trials", "missing; add the number of trials per size, e.g. trials = 40");
+  }
+  job.trials = read_trials(r, *trials, job.sizes);
+
+  const toml::node* expression = doc.get("expression");
+  if (expression == nullptr) {
+    r.fail_at(0, "expression", "missing; add the expression to study, e.g. expression = \"X + Y\"");
+  }
+  job.expression = r.string(*expression, "expression", "a string in quotes, e.g. \"X + Y\"");
+  if (job.expression.find_first_not_of(" \t\r\n") == std::string::npos) {
+    r.fail("expression", "is empty; write the expression to study, e.g. expression = \"X + Y\"");
+  }
+
+  const std::string matrices_example =
+      "declare each matrix as [matrices.NAME] with ensemble = \"...\"";
+  const toml::node* matrices = doc.get("matrices");
+  if (matrices == nullptr) r.fail_at(0, "matrices", "missing; " + matrices_example);
+  const toml::table& matrix_table = r.table(*matrices, "matrices", matrices_example);
+  if (matrix_table.empty()) r.fail("matrices", "declares no matrix; " + matrices_example);
+  // toml::table keeps its keys sorted, so this is already the canonical (sorted by name) order.
+  for (auto&& [key, node] : matrix_table) {
+    job.matrices.push_back(read_matrix(r, key.str(), node, base));
+  }
+  std::sort(job.matrices.begin(), job.matrices.end(),
+            [](const auto& a, const auto& b) { return a.name < b.name; });
+
+  // The sampler is the authority on a spec: constructing it validates everything (and reads an
+  // eigenvalue file); its message gets the place in the job file.
+  for (const auto& spec : job.matrices) {
+    const std::string key = "matrices." + spec.name;
+    std::string digest;
+    try {
+      const ensembles::Sampler sampler(spec);
+      if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
+        digest = file_digest(sampler);
+      }
+    } catch (const InputError& e) {
+      std::string what = e.what();
+      const std::string redundant = "matrix '" + spec.name + "': ";
+      if (what.rfind(redundant, 0) == 0) what.erase(0, redundant.size());
+      const bool about_file =
+          spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file;
+      r.fail(about_file ? key + ".path" : key, what);
+    }
+    job.file_digests.push_back(std::move(digest));
+  }
+
+  if (const toml::node* v = doc.get("observe")) {
+    job.observe = read_observe(r, r.table(*v, "observe", "write [observe] and its keys under it"));
+  }
+  if (const toml::node* v = doc.get("run")) {
+    read_run(r, r.table(*v, "run", "write [run] and its keys under it"), base, job);
+  }
+  return job;
+}
+
+Job load_job(const std::string& path) {
+  std::FILE* f = std::fopen(path.c_str(), "rb");
+  if (f == nullptr) {
+    throw InputError("cannot read job file '" + path + "': " + std::strerror(errno));
+  }
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> owner(f, &std::fclose);
+  std::string text;
+  char buf[65536];
+  std::size_t got = 0;
+  while ((got = std::fread(buf, 1, sizeof buf, f)) > 0) text.append(buf, got);
+  if (std::ferror(f)) {
+    throw InputError("cannot read job file '" + path + "': " + std::strerror(errno));
+  }
+  return parse_job(text, path);
+}
+
+}  // namespace freegap::job

@@ -1,0 +1,233 @@
+// One trial of a model: sample → evaluate → spectrum (DESIGN.md data flow).
+#include "freegap/model.hpp"
+
+#include <chrono>
+#include <algorithm>
+#include <cctype>
+
+#include "freegap/errors.hpp"
+
+namespace freegap::model {
+
+namespace {
+
+double seconds_since(std::chrono::steady_clock::time_point start) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+}
+
+std::vector<ensembles::Sampler> make_samplers(const Model& model) {
+  std::vector<ensembles::Sampler> out;
+  out.reserve(model.matrices.size());
+  for (const auto& spec : model.matrices) out.emplace_back(spec);
+  return out;
+}
+
+// Which declared matrices the expression names: the identifiers of its text (a letter, then
+// letters, digits or '_'), compared with the declared names.
+std::vector<bool> used_matrices(const Model& model) {
+  std::vector<std::string> words;
+  const std::string& text = model.expression;
+  for (std::size_t i = 0; i < text.size();) {
+    if (std::isalpha(static_cast<unsigned char>(text[i]))) {
+      std::size_t j = i;
+      while (j < text.size() && (std::isalnum(static_cast<unsigned char>(text[j])) || text[j] == '_')) ++j;
+      words.push_back(text.substr(i, j - i));
+      i = j;
+    } else if (std::isdigit(static_cast<unsigned char>(text[i]))) {
+      // skip a number, including an exponent such as 1e-3 (but not the name in "2A")
+      auto digit = [&](std::size_t k) {
+        return k < text.size() && std::isdigit(static_cast<unsigned char>(text[k]));
+      };
+      while (digit(i) || (i < text.size() && text[i] == '.')) ++i;
+      if (i < text.size() && (text[i] == 'e' || text[i] == 'E')) {
+        const std::size_t k = (i + 1 < text.size() && (text[i + 1] == '+' || text[i + 1] == '-')) ? i + 2 : i + 1;
+        if (digit(k)) {
+          i = k;
+          while (digit(i)) ++i;
+        }
+      }
+    } else {
+      ++i;
+    }
+  }
+  std::vector<bool> used;
+  for (const auto& spec : model.matrices) {
+    used.push_back(std::find(words.begin(), words.end(), spec.name) != words.end());
+  }
+  return used;
+}
+
+[[noreturn]] void bad_declaration(const std::string& text, const std::string& what) {
+  throw InputError("matrix declaration '" + text + "': " + what);
+}
+
+double parse_number(const std::string& text, const std::string& key, const std::string& value) {
+  std::size_t used = 0;
+  double v = 0.0;
+  try {
+    v = std::stod(value, &used);
+  } catch (const std::exception&) {
+    used = 0;
+  }
+  if (value.empty() || used != value.size()) {
+    bad_declaration(text, key + " must be a number (got '" + value + "')");
+  }
+  return v;
+}
+
+std::vector<std::string> split(const std::string& text, char sep) {
+  std::vector<std::string> parts;
+  std::size_t start = 0;
+  for (;;) {
+    const auto at = text.find(sep, start);
+    parts.push_back(text.substr(start, at - start));
+    if (at == std::string::npos) break;
+    start = at + 1;
+  }
+  return parts;
+}
+
+}  // namespace
+
+ensembles::MatrixSpec parse_declaration(const std::string& text) {
+  using ensembles::DiagonalLawKind;
+  const auto eq = text.find('=');
+  if (eq == std::string::npos || eq == 0) {
+    bad_declaration(text, "expected NAME=ENSEMBLE, e.g. X1=gue");
+  }
+  ensembles::MatrixSpec spec;
+  spec.name = text.substr(0, eq);
+  const bool identifier =
+      std::isalpha(static_cast<unsigned char>(spec.name[0])) &&
+      std::all_of(spec.name.begin(), spec.name.end(), [](char c) {
+        return std::isalnum(static_cast<unsigned char>(c)) || c == '_';
+      });
+  if (!identifier) {
+    bad_declaration(text, "a name is a letter followed by letters, digits or '_'");
+  }
+  const auto parts = split(text.substr(eq + 1), ':');
+  spec.kind = ensembles::parse_kind(parts[0]);
+  bool law_given = false;
+  for (std::size_t i = 1; i < parts.size(); ++i) {
+    const auto kv = parts[i].find('=');
+    if (kv == std::string::npos) bad_declaration(text, "expected key=value, got '" + parts[i] + "'");
+    const std::string key = parts[i].substr(0, kv), value = parts[i].substr(kv + 1);
+    const bool takes_ratio = spec.kind == ensembles::Kind::wishart_complex ||
+                             spec.kind == ensembles::Kind::wishart_real ||
+                             spec.kind == ensembles::Kind::ginibre_complex ||
+                             spec.kind == ensembles::Kind::ginibre_real;
+    if (key == "ratio" && takes_ratio) {
+      spec.ratio = parse_number(text, key, value);
+    } else if (key == "method" && ensembles::is_unitary(spec.kind)) {
+      if (value == "qr") {
+        spec.haar = ensembles::HaarMethod::qr;
+      } else if (value == "polar") {
+        spec.haar = ensembles::HaarMethod::polar;
+      } else {
+        bad_declaration(text, "method must be qr or polar (got '" + value + "')");
+      }
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "law") {
+      law_given = true;
+      if (value == "atoms") spec.diagonal.kind = DiagonalLawKind::atoms;
+      else if (value == "uniform") spec.diagonal.kind = DiagonalLawKind::uniform;
+      else if (value == "semicircle") spec.diagonal.kind = DiagonalLawKind::semicircle_quantiles;
+      else if (value == "marchenko_pastur") spec.diagonal.kind = DiagonalLawKind::marchenko_pastur_quantiles;
+      else if (value == "file") spec.diagonal.kind = DiagonalLawKind::file;
+      else bad_declaration(text, "law must be atoms, uniform, semicircle, marchenko_pastur or file (got '" + value + "')");
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "atoms") {
+      for (const auto& pair : split(value, ',')) {
+        const auto at = pair.find('@');
+        if (at == std::string::npos) {
+          bad_declaration(text, "atoms are value@weight pairs separated by ',' (got '" + pair + "')");
+        }
+        spec.diagonal.atoms.push_back({parse_number(text, "atom value", pair.substr(0, at)),
+                                       parse_number(text, "atom weight", pair.substr(at + 1))});
+      }
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "low") {
+      spec.diagonal.low = parse_number(text, key, value);
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "high") {
+      spec.diagonal.high = parse_number(text, key, value);
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "variance") {
+      spec.diagonal.variance = parse_number(text, key, value);
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "ratio") {
+      spec.diagonal.ratio = parse_number(text, key, value);
+    } else if (spec.kind == ensembles::Kind::diagonal && key == "path") {
+      spec.diagonal.path = value;
+    } else {
+      bad_declaration(text, "key '" + key + "' does not apply to " +
+                                std::string(ensembles::kind_name(spec.kind)));
+    }
+  }
+  if (spec.kind == ensembles::Kind::diagonal && !law_given && spec.diagonal.atoms.empty()) {
+    bad_declaration(text, "a diagonal needs atoms=value@weight,... or law=...");
+  }
+  return spec;
+}
+
+SizeRunner::SizeRunner(const Model& model, Index n)
+    : n_(n),
+      samplers_(make_samplers(model)),
+      used_(used_matrices(model)),
+      expression_(model.expression, model.matrices, model.check),
+      plan_(expression_, n) {
+  if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
+}
+
+observe::SpectrumKind SizeRunner::spectrum_kind() const {
+  return expression_.spectrum() == expr::Spectrum::eigenvalues
+             ? observe::SpectrumKind::eigenvalues
+             : observe::SpectrumKind::singular_values;
+}
+
+std::vector<ensembles::Sample> SizeRunner::draw(std::uint64_t seed, std::uint64_t trial) const {
+  std::vector<ensembles::Sample> samples(samplers_.size());
+  for (std::size_t i = 0; i < samplers_.size(); ++i) {
+    if (used_[i]) samples[i] = samplers_[i].draw(n_, seed, trial);
+  }
+  return samples;
+}
+
+TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
+                                     const std::vector<ensembles::Sample>& samples) const {
+  TrialOutcome out;
+  out.trial = trial;
+  auto start = std::chrono::steady_clock::now();
+  expr::Evaluated value = plan_.evaluate(samples);
+  out.seconds.evaluate = seconds_since(start);
+  // LAPACK on a matrix with NaN/Inf may loop, fail or return garbage: refuse it first (O(N²)).
+  const bool finite = value.is_complex ? value.complex.allFinite() : value.real.allFinite();
+  if (!finite) {
+    out.failed = true;
+    out.reason = "non-finite entry in the evaluated matrix";
+    return out;
+  }
+  start = std::chrono::steady_clock::now();
+  try {
+    out.spectrum = expr::compute_spectrum(plan_.spectrum(), value);
+  } catch (const NumericalError& e) {
+    out.failed = true;
+    out.reason = e.what();
+  }
+  out.seconds.spectrum = seconds_since(start);
+  return out;
+}
+
+TrialOutcome SizeRunner::run(std::uint64_t seed, std::uint64_t trial) const {
+  const auto start = std::chrono::steady_clock::now();
+  const auto samples = draw(seed, trial);
+  const double sample_seconds = seconds_since(start);
+  TrialOutcome out = spectrum_of(trial, samples);
+  out.seconds.sample = sample_seconds;
+  return out;
+}
+
+void record(observe::Observations& obs, const TrialOutcome& outcome) {
+  if (outcome.failed) {
+    observe::record_failure(obs, outcome.trial, outcome.reason);
+  } else {
+    observe::record_trial(obs, outcome.trial,
+                          {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())});
+  }
+}
+
+}  // namespace freegap::model
