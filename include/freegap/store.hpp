@@ -1,0 +1,172 @@
+// The HDF5 run file: a self-describing, resumable record of one job's observations.
+//
+// One writer (rank 0) creates the file, streams finished work units into it and marks each unit
+// committed with a two-phase flush (data, flush, marker, flush), so a kill at any instant leaves a
+// file that opens and resumes: a resume trusts only committed units. Every unit's rows sit at
+// fixed positions (trial index), so the file's content outside /provenance does not depend on
+// how many ranks ran, in what order units finished or how often the run was resumed.
+// The layout is documented in src/store/SCHEMA.md. Only this part knows HDF5 exists.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <map>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "freegap/observe.hpp"
+
+namespace freegap::store {
+
+/// The value of the root attribute file_kind.
+inline constexpr const char* kFileKind = "freegap run";
+/// Format version [major, minor]. A reader refuses another major version; a minor version only
+/// adds things an older reader may ignore.
+inline constexpr int kFormatMajor = 1;
+inline constexpr int kFormatMinor = 0;
+
+/// What is stored for one matrix size N.
+struct SizeLayout {
+  std::int64_t n = 0;                ///< N, ≥ 1: the length of a kept spectrum row
+  std::int64_t trials = 0;           ///< T, ≥ 1: trials 0..T−1
+  std::int64_t trials_per_unit = 0;  ///< B, ≥ 1: unit u holds trials [u·B, min((u+1)·B, T))
+  /// Bin edges, max moment, spectrum kind (must equal RunHeader::spectrum) and the trials whose
+  /// full spectrum is kept (each < T).
+  observe::ObserveConfig observe;
+
+  /// U = ⌈T / B⌉.
+  std::int64_t units() const;
+  /// The first trial of unit u and one past its last.
+  std::int64_t unit_begin(std::int64_t unit) const;
+  std::int64_t unit_end(std::int64_t unit) const;
+  /// S: how many trials keep their full spectrum.
+  std::int64_t keep_count() const {
+    return static_cast<std::int64_t>(observe.keep_spectrum_trials.size());
+  }
+  friend bool operator==(const SizeLayout&, const SizeLayout&) = default;
+};
+
+/// Everything about the run that does not depend on how it ran.
+struct RunHeader {
+  std::string job_text;       ///< the job file, verbatim
+  std::string job_canonical;  ///< its canonical text
+  std::string job_hash;       ///< hash of the canonical text; resume requires it to match
+  std::string expression;     ///< the expression as written
+  observe::SpectrumKind spectrum = observe::SpectrumKind::eigenvalues;
+  bool self_adjoint = true;  ///< whether the expression was found self-adjoint
+  std::vector<SizeLayout> sizes;
+  /// Free-form key/value pairs the caller wants recorded (seed, job name, ...); keys are
+  /// non-empty and contain no '/' or '.'.
+  std::map<std::string, std::string> metadata;
+  /// The build that created the file. create() writes this build's freegap::tool_version and
+  /// freegap::git_revision, whatever is given here; reading fills them from the file.
+  std::string tool_version;
+  std::string git_revision;
+
+  /// Throws InputError naming the field and the rule it breaks.
+  void validate() const;
+};
+
+/// The observations of exactly one unit: `obs.config` equals the size's layout, `obs.trials`
+/// holds one row for each of the unit's trials in order, `obs.histogram` counts only them.
+struct UnitResult {
+  std::size_t size_index = 0;
+  std::int64_t unit = 0;
+  observe::Observations obs;
+};
+
+/// Where and how long a unit ran. Goes to /provenance only.
+struct UnitProvenance {
+  int rank = 0;
+  std::string host;
+  double seconds = 0.0;
+};
+
+/// One row of /provenance/sessions: one open-run-close of the writer.
+struct SessionRecord {
+  std::string started;  ///< UTC, ISO 8601 ("2026-01-31T12:00:00Z")
+  std::string ended;    ///< empty while running or if the session was killed
+  int ranks = 0;
+  std::vector<std::string> hosts;
+  /// "finished", "interrupted", "running" (only the last row: a live writer, or one killed
+  /// with no later session yet), or "killed" (stored "running" with a later session after it,
+  /// or a row a kill tore; decided when read, never written).
+  std::string status;
+  std::string tool_version;
+  std::string git_revision;
+};
+
+/// One row of /provenance/units, appended when a unit commits.
+struct UnitRecord {
+  std::size_t size_index = 0;
+  std::int64_t unit = 0;
+  int rank = 0;
+  std::string host;
+  double seconds = 0.0;
+  std::int64_t session = 0;  ///< row of /provenance/sessions
+  std::string committed_at;  ///< UTC, ISO 8601
+};
+
+struct Provenance {
+  std::string created;  ///< UTC, ISO 8601: when create() made the file
+  std::vector<SessionRecord> sessions;
+  /// In commit order; a record whose append a kill tore (or cannot be read) is left out.
+  std::vector<UnitRecord> units;
+};
+
+/// An open run file. Move-only; closing (destruction) ends an open session as "interrupted".
+/// Errors: InputError for a file the user pointed at that cannot be used (the message names the
+/// path and the fix), Error for a failure while writing or a misuse of the API.
+class RunFile {
+ public:
+  /// Creates a run file for `header` at `path`, which must not exist. The file is built under a
+  /// temporary name in the same directory and renamed into place only when the header and every
+  /// dataset exist; on failure nothing is left behind.
+  static RunFile create(const std::string& path, const RunHeader& header);
+  /// Opens an existing run file to continue it. Checks, in order: a freegap run file, major
+  /// format version, the job hash, then the layout. Throws InputError printing both sides.
+  static RunFile open_for_resume(const std::string& path, const RunHeader& expected);
+  /// Opens read-only (checks kind and major version). To read a file while a writer holds it,
+  /// set HDF5_USE_FILE_LOCKING=FALSE in the environment.
+  static RunFile open_read(const std::string& path);
+
+  RunFile(RunFile&&) noexcept;
+  RunFile& operator=(RunFile&&) noexcept;
+  RunFile(const RunFile&) = delete;
+  RunFile& operator=(const RunFile&) = delete;
+  ~RunFile();
+
+  const std::string& path() const;
+  const RunHeader& header() const;
+  /// One flag per unit of a size: whether it is committed.
+  std::vector<bool> committed(std::size_t size_index) const;
+  /// Whether every unit of every size is committed.
+  bool complete() const;
+
+  /// Appends a session row to /provenance/sessions. Required before write_unit.
+  void begin_session(int ranks, const std::vector<std::string>& hosts);
+  /// Ends the open session: status "finished" or "interrupted".
+  void end_session(const std::string& status);
+  /// Writes a unit's rows at their trial positions, flushes, marks it committed, appends its
+  /// provenance record, flushes again. Throws Error if the unit does not fit the layout or is
+  /// already committed; nothing is marked committed then.
+  void write_unit(const UnitResult& unit, const UnitProvenance& where);
+
+  /// Observations of a size rebuilt from its committed units only: the histogram is the sum of
+  /// their unit histograms, rows are their trials in trial order.
+  observe::Observations read_observations(std::size_t size_index) const;
+  Provenance read_provenance() const;
+
+  /// The implementation (opaque; public only so that helpers in the source file can name it).
+  struct Impl;
+
+ private:
+  explicit RunFile(std::unique_ptr<Impl> impl);
+  std::unique_ptr<Impl> impl_;
+};
+
+/// "eigenvalues" or "singular_values", as stored in the file.
+std::string spectrum_name(observe::SpectrumKind kind);
+
+}  // namespace freegap::store

@@ -1,0 +1,1199 @@
+// The run file: create, resume, stream committed units, read back. Layout: src/store/SCHEMA.md.
+#include <fcntl.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <array>
+#include <cerrno>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <ctime>
+#include <fstream>
+#include <limits>
+#include <sstream>
+
+#include "freegap/errors.hpp"
+#include "freegap/store.hpp"
+#include "freegap/version.hpp"
+#include "h5.hpp"
+
+namespace freegap::store {
+namespace {
+
+using h5::Id;
+using h5::Where;
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+constexpr hsize_t kUnlimited = H5S_UNLIMITED;
+
+// ---------------------------------------------------------------------------------------------
+// Small helpers
+
+std::string now_utc() {
+  const std::time_t now = std::time(nullptr);
+  std::tm parts{};
+  gmtime_r(&now, &parts);
+  std::array<char, 32> text{};
+  std::strftime(text.data(), text.size(), "%Y-%m-%dT%H:%M:%SZ", &parts);
+  return text.data();
+}
+
+// Hashes are 64 hex digits; a 12-digit prefix is enough to tell two jobs apart in a message.
+std::string short_hash(const std::string& hash) {
+  constexpr std::size_t kShown = 12;
+  return hash.size() <= kShown ? hash : hash.substr(0, kShown) + "…";
+}
+
+std::string join(const std::vector<std::string>& parts, char separator) {
+  std::string out;
+  for (std::size_t i = 0; i < parts.size(); ++i) {
+    if (i > 0) out += separator;
+    out += parts[i];
+  }
+  return out;
+}
+
+std::vector<std::string> split(const std::string& text, char separator) {
+  std::vector<std::string> out;
+  if (text.empty()) return out;
+  std::string::size_type begin = 0;
+  while (true) {
+    const auto end = text.find(separator, begin);
+    out.push_back(text.substr(begin, end - begin));
+    if (end == std::string::npos) break;
+    begin = end + 1;
+  }
+  return out;
+}
+
+template <typename T>
+std::string list_text(const std::vector<T>& values) {
+  std::ostringstream out;
+  out.precision(17);
+  out << '[';
+  for (std::size_t i = 0; i < values.size(); ++i) out << (i > 0 ? ", " : "") << values[i];
+  out << ']';
+  return out.str();
+}
+
+observe::SpectrumKind spectrum_from_name(const std::string& name, bool& ok) {
+  ok = true;
+  if (name == "eigenvalues") return observe::SpectrumKind::eigenvalues;
+  if (name == "singular_values") return observe::SpectrumKind::singular_values;
+  ok = false;
+  return observe::SpectrumKind::eigenvalues;
+}
+
+std::string size_group_name(std::size_t index) { return "sizes/" + std::to_string(index); }
+
+hsize_t as_hsize(std::int64_t value) { return static_cast<hsize_t>(value); }
+
+// ---------------------------------------------------------------------------------------------
+// Messages for files the user pointed at (STYLE.md §10–11: name the path and the fix)
+
+enum class Purpose { resume, read };
+
+std::string other_path_fix(Purpose purpose) {
+  return purpose == Purpose::resume ? "choose another output path" : "check the path";
+}
+
+std::string damaged_fix(Purpose purpose) {
+  return purpose == Purpose::resume ? "restore a good copy, or start over with --fresh"
+                                    : "restore a good copy";
+}
+
+[[noreturn]] void refuse_not_run_file(const std::string& path, const std::string& why,
+                                      Purpose purpose) {
+  throw InputError("'" + path + "' is not a freegap run file (" + why + "); " +
+                   other_path_fix(purpose));
+}
+
+[[noreturn]] void refuse_damaged(const std::string& path, std::string why, Purpose purpose) {
+  // The helpers' messages start with the path, which this message already names.
+  const std::string prefix = "run file '" + path + "': ";
+  if (why.starts_with(prefix)) why.erase(0, prefix.size());
+  throw InputError("run file '" + path + "' is damaged (" + why + "); " + damaged_fix(purpose));
+}
+
+// HDF5 files start with this signature at offset 0, 512, 1024, 2048, ... (a user block may
+// come first).
+bool has_hdf5_signature(std::ifstream& in, std::uint64_t size) {
+  static constexpr std::array<char, 8> kSignature = {'\x89', 'H',  'D',    'F',
+                                                     '\r',   '\n', '\x1a', '\n'};
+  for (std::uint64_t offset = 0; offset + kSignature.size() <= size;
+       offset = offset == 0 ? 512 : offset * 2) {
+    std::array<char, 8> bytes{};
+    in.seekg(static_cast<std::streamoff>(offset));
+    if (!in.read(bytes.data(), bytes.size())) return false;
+    if (bytes == kSignature) return true;
+  }
+  return false;
+}
+
+// Opens an existing file with `flags`, turning every way it can fail into a message the user
+// can act on instead of an HDF5 error stack.
+Id open_existing(const std::string& path, Purpose purpose, unsigned flags) {
+  h5::quiet();
+  struct stat info {};
+  if (::stat(path.c_str(), &info) != 0) {
+    if (errno == ENOENT) {
+      throw InputError("run file '" + path + "' does not exist; check the path");
+    }
+    throw InputError("cannot open run file '" + path + "' (" + std::strerror(errno) +
+                     "); check the path and its permissions");
+  }
+  if (!S_ISREG(info.st_mode)) refuse_not_run_file(path, "not a regular file", purpose);
+  {
+    std::ifstream in(path, std::ios::binary);
+    if (!in) {
+      throw InputError("cannot open run file '" + path + "' (" + std::strerror(errno) +
+                       "); check the path and its permissions");
+    }
+    if (!has_hdf5_signature(in, static_cast<std::uint64_t>(info.st_size))) {
+      refuse_not_run_file(path, "not an HDF5 file", purpose);
+    }
+  }
+  const hid_t id = H5Fopen(path.c_str(), flags, H5P_DEFAULT);
+  if (id >= 0) return Id(id, H5Fclose);
+  const auto stack = h5::error_stack();
+  H5Eclear2(H5E_DEFAULT);
+  const auto mentions = [&](const char* words) {
+    return std::any_of(stack.begin(), stack.end(), [&](const std::string& line) {
+      return line.find(words) != std::string::npos;
+    });
+  };
+  if (mentions("unable to lock")) {
+    throw InputError("run file '" + path +
+                     "' is open in another process (HDF5 could not lock it); " +
+                     (purpose == Purpose::resume
+                          ? "wait for that run to finish or use another output path"
+                          : "wait for that run to finish, or set HDF5_USE_FILE_LOCKING=FALSE to "
+                            "read it while it is written"));
+  }
+  if (mentions("truncated file")) {
+    throw InputError("run file '" + path +
+                     "' is truncated (it ends before the data HDF5 recorded); " +
+                     damaged_fix(purpose));
+  }
+  refuse_damaged(path, "HDF5 cannot open it: " + (stack.empty() ? "unknown" : stack.back()),
+                 purpose);
+}
+
+void check_kind_and_version(hid_t file, const std::string& path, Purpose purpose) {
+  const Where where{path};
+  if (!h5::has_attribute(file, "file_kind")) {
+    refuse_not_run_file(path, "file_kind is missing", purpose);
+  }
+  std::string kind;
+  try {
+    kind = h5::read_string_attribute(file, "file_kind", where);
+  } catch (const Error&) {
+    refuse_not_run_file(path, "file_kind is not a string", purpose);
+  }
+  if (kind != kFileKind) refuse_not_run_file(path, "file_kind is \"" + kind + "\"", purpose);
+  if (!h5::has_attribute(file, "format_version")) {
+    refuse_damaged(path, "format_version is missing", purpose);
+  }
+  std::vector<int> version;
+  try {
+    version = h5::read_int_array_attribute(file, "format_version", where);
+  } catch (const Error&) {
+    refuse_damaged(path, "format_version is not two integers", purpose);
+  }
+  if (version.size() != 2) refuse_damaged(path, "format_version is not two integers", purpose);
+  if (version[0] != kFormatMajor) {
+    throw InputError("run file '" + path + "' has format version " + std::to_string(version[0]) +
+                     "." + std::to_string(version[1]) + "; this freegap reads " +
+                     std::to_string(kFormatMajor) + ".x; use a freegap that reads " +
+                     std::to_string(version[0]) + ".x" +
+                     (purpose == Purpose::resume ? ", or a new output path" : ""));
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Provenance rows as HDF5 compound types
+
+struct SessionRow {
+  const char* started;
+  const char* ended;
+  std::int32_t ranks;
+  const char* hosts;
+  const char* status;
+  const char* tool_version;
+  const char* git_revision;
+};
+
+struct UnitRow {
+  std::int64_t size_index;
+  std::int64_t unit;
+  std::int32_t rank;
+  const char* host;
+  double seconds;
+  std::int64_t session;
+  const char* committed_at;
+};
+
+Id session_type(hid_t string, Where where) {
+  Id type = h5::own(H5Tcreate(H5T_COMPOUND, sizeof(SessionRow)), H5Tclose, where,
+                    "make the sessions type");
+  const std::string what = "make the sessions type";
+  h5::check(H5Tinsert(type.get(), "started", HOFFSET(SessionRow, started), string), where, what);
+  h5::check(H5Tinsert(type.get(), "ended", HOFFSET(SessionRow, ended), string), where, what);
+  h5::check(H5Tinsert(type.get(), "ranks", HOFFSET(SessionRow, ranks), H5T_NATIVE_INT32), where,
+            what);
+  h5::check(H5Tinsert(type.get(), "hosts", HOFFSET(SessionRow, hosts), string), where, what);
+  h5::check(H5Tinsert(type.get(), "status", HOFFSET(SessionRow, status), string), where, what);
+  h5::check(H5Tinsert(type.get(), "tool_version", HOFFSET(SessionRow, tool_version), string), where,
+            what);
+  h5::check(H5Tinsert(type.get(), "git_revision", HOFFSET(SessionRow, git_revision), string), where,
+            what);
+  return type;
+}
+
+Id unit_type(hid_t string, Where where) {
+  const std::string what = "make the unit records type";
+  Id type = h5::own(H5Tcreate(H5T_COMPOUND, sizeof(UnitRow)), H5Tclose, where, what);
+  h5::check(H5Tinsert(type.get(), "size_index", HOFFSET(UnitRow, size_index), H5T_NATIVE_INT64),
+            where, what);
+  h5::check(H5Tinsert(type.get(), "unit", HOFFSET(UnitRow, unit), H5T_NATIVE_INT64), where, what);
+  h5::check(H5Tinsert(type.get(), "rank", HOFFSET(UnitRow, rank), H5T_NATIVE_INT32), where, what);
+  h5::check(H5Tinsert(type.get(), "host", HOFFSET(UnitRow, host), string), where, what);
+  h5::check(H5Tinsert(type.get(), "seconds", HOFFSET(UnitRow, seconds), H5T_NATIVE_DOUBLE), where,
+            what);
+  h5::check(H5Tinsert(type.get(), "session", HOFFSET(UnitRow, session), H5T_NATIVE_INT64), where,
+            what);
+  h5::check(H5Tinsert(type.get(), "committed_at", HOFFSET(UnitRow, committed_at), string), where,
+            what);
+  return type;
+}
+
+// The same fields without padding, for the file.
+Id packed(hid_t type, Where where) {
+  Id copy = h5::own(H5Tcopy(type), H5Tclose, where, "pack a compound type");
+  h5::check(H5Tpack(copy.get()), where, "pack a compound type");
+  return copy;
+}
+
+// Reads every row of a 1-D compound dataset and hands each to `convert` (or its index to
+// `unreadable`) before HDF5's strings are freed. The provenance tables grow by metadata
+// changes, which a kill can tear (SCHEMA.md): a row whose strings cannot be read is reported
+// instead of making the whole table, and with it every resume, fail.
+template <typename Row, typename Convert, typename Unreadable>
+void read_all_rows(hid_t dataset, hid_t type, Where where, const std::string& what, Convert convert,
+                   Unreadable unreadable) {
+  const auto dims = h5::extent(dataset, where);
+  if (dims.size() != 1) h5::fail(where, what);
+  for (hsize_t i = 0; i < dims[0]; ++i) {
+    Row row{};
+    Id file_space = h5::own(H5Dget_space(dataset), H5Sclose, where, what);
+    const hsize_t start[1] = {i};
+    const hsize_t count[1] = {1};
+    h5::check(H5Sselect_hyperslab(file_space.get(), H5S_SELECT_SET, start, nullptr, count, nullptr),
+              where, what);
+    Id mem_space = h5::own(H5Screate_simple(1, count, nullptr), H5Sclose, where, what);
+    if (H5Dread(dataset, type, mem_space.get(), file_space.get(), H5P_DEFAULT, &row) < 0) {
+      H5Eclear2(H5E_DEFAULT);
+      unreadable(static_cast<std::size_t>(i));
+      continue;
+    }
+    struct Reclaim {
+      hid_t type, space;
+      void* buffer;
+      ~Reclaim() { H5Dvlen_reclaim(type, space, H5P_DEFAULT, buffer); }
+    } reclaim{type, mem_space.get(), &row};
+    convert(row);
+  }
+}
+
+std::string text_or_empty(const char* text) { return text == nullptr ? std::string() : text; }
+
+void append_row(hid_t dataset, hid_t type, const void* row, Where where, const std::string& what) {
+  auto dims = h5::extent(dataset, where);
+  const hsize_t at = dims[0];
+  dims[0] = at + 1;
+  h5::check(H5Dset_extent(dataset, dims.data()), where, what);
+  h5::write_block(dataset, type, {at}, {1}, row, where, what);
+}
+
+}  // namespace
+
+// ---------------------------------------------------------------------------------------------
+// Plain data
+
+std::string spectrum_name(observe::SpectrumKind kind) {
+  return kind == observe::SpectrumKind::eigenvalues ? "eigenvalues" : "singular_values";
+}
+
+std::int64_t SizeLayout::units() const {
+  return trials_per_unit <= 0 ? 0 : (trials + trials_per_unit - 1) / trials_per_unit;
+}
+std::int64_t SizeLayout::unit_begin(std::int64_t unit) const { return unit * trials_per_unit; }
+std::int64_t SizeLayout::unit_end(std::int64_t unit) const {
+  return std::min((unit + 1) * trials_per_unit, trials);
+}
+
+void RunHeader::validate() const {
+  const auto refuse = [](const std::string& what) { throw InputError("run header: " + what); };
+  if (job_hash.empty()) refuse("job_hash must not be empty");
+  if (sizes.empty()) refuse("sizes must hold at least one size");
+  for (std::size_t i = 0; i < sizes.size(); ++i) {
+    const SizeLayout& s = sizes[i];
+    const std::string at = "sizes[" + std::to_string(i) + "].";
+    if (s.n < 1) refuse(at + "n must be ≥ 1 (got " + std::to_string(s.n) + ")");
+    if (s.trials < 1) refuse(at + "trials must be ≥ 1 (got " + std::to_string(s.trials) + ")");
+    if (s.trials_per_unit < 1) {
+      refuse(at + "trials_per_unit must be ≥ 1 (got " + std::to_string(s.trials_per_unit) + ")");
+    }
+    try {
+      s.observe.validate();
+    } catch (const InputError& e) {
+      refuse(at + "observe: " + e.what());
+    }
+    if (s.observe.kind != spectrum) {
+      refuse(at + "observe.kind must equal the run's spectrum (" + spectrum_name(spectrum) + ")");
+    }
+    if (!s.observe.keep_spectrum_trials.empty() &&
+        s.observe.keep_spectrum_trials.back() >= static_cast<std::uint64_t>(s.trials)) {
+      refuse(at + "observe.keep_spectrum_trials must be < trials (got " +
+             std::to_string(s.observe.keep_spectrum_trials.back()) + ")");
+    }
+  }
+  for (const auto& [key, value] : metadata) {
+    if (key.empty() || key.find_first_of("/.") != std::string::npos) {
+      refuse("metadata key '" + key + "' must be non-empty without '/' or '.'");
+    }
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// The open file
+
+namespace {
+
+struct SizeHandles {
+  Id group;
+  Id moments, min, max, norm, failed, failure_reason;
+  Id unit_histograms, unit_below, unit_above, unit_committed;
+  Id spectra, spectrum_length;
+};
+
+}  // namespace
+
+struct RunFile::Impl {
+  std::string path;
+  Id file;  // declared first, so it closes after every object in it
+  bool writable = false;
+  RunHeader header;
+  Id string_type, session_type, unit_type;
+  Id sessions, unit_records;
+  std::vector<SizeHandles> sizes;
+  std::vector<std::vector<bool>> committed;
+  std::int64_t session = -1;  // row of the open session in /provenance/sessions
+  SessionRecord current;
+
+  Where where() const { return Where{path}; }
+  void flush(const std::string& what) {
+    h5::check(H5Fflush(file.get(), H5F_SCOPE_GLOBAL), where(), what);
+  }
+  void make_types() {
+    string_type = h5::string_type(where());
+    session_type = store::session_type(string_type.get(), where());
+    unit_type = store::unit_type(string_type.get(), where());
+  }
+  void write_session_row(hsize_t row, bool append);
+  std::vector<SessionRecord> read_sessions() const;
+};
+
+namespace {
+
+// ---------------------------------------------------------------------------------------------
+// Writing a new file
+
+void write_static_1d(hid_t group, const char* name, hid_t file_type, hid_t mem_type,
+                     std::size_t count, const void* data, Where where) {
+  // A zero-length dataset must be chunked with an unlimited maximum (a chunk cannot be empty).
+  h5::Shape shape{{count}, {}, {}, false};
+  if (count == 0) shape = h5::Shape{{0}, {kUnlimited}, {1}, false};
+  Id dataset = h5::create_dataset(group, name, file_type, shape, nullptr, where);
+  h5::write_block(dataset.get(), mem_type, {0}, {count}, data, where,
+                  std::string("write dataset '") + name + "'");
+}
+
+void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, hid_t string,
+                Where where) {
+  const std::string name = std::to_string(index);
+  Id group = h5::own(H5Gcreate2(sizes_group, name.c_str(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
+                     H5Gclose, where, "create group '/sizes/" + name + "'");
+  const hid_t g = group.get();
+  const auto& config = layout.observe;
+  h5::write_int64_attribute(g, "n", layout.n, where);
+  h5::write_int64_attribute(g, "trials", layout.trials, where);
+  h5::write_int64_attribute(g, "trials_per_unit", layout.trials_per_unit, where);
+  h5::write_int64_attribute(g, "units", layout.units(), where);
+  h5::write_int64_attribute(g, "max_moment", config.max_moment, where);
+  h5::write_int64_attribute(g, "keep_count", layout.keep_count(), where);
+  h5::write_int64_attribute(g, "bins", static_cast<std::int64_t>(config.bins()), where);
+
+  write_static_1d(g, "bin_edges", H5T_IEEE_F64LE, H5T_NATIVE_DOUBLE, config.bin_edges.size(),
+                  config.bin_edges.data(), where);
+  write_static_1d(g, "kept_trials", H5T_STD_U64LE, H5T_NATIVE_UINT64,
+                  config.keep_spectrum_trials.size(), config.keep_spectrum_trials.data(), where);
+
+  // Every chunk holds rows of exactly one unit, and every chunk is allocated now: a later write
+  // of a unit touches only its own chunks' raw bytes, never another unit's nor the chunk index.
+  const hsize_t t = as_hsize(layout.trials);
+  const hsize_t rows = as_hsize(std::min(layout.trials_per_unit, layout.trials));
+  const hsize_t u = as_hsize(layout.units());
+  const hsize_t columns = as_hsize(config.max_moment) + 1;
+  const hsize_t bins = config.bins();
+  const std::int64_t zero64 = 0;
+  const std::int8_t zero8 = 0;
+  h5::create_dataset(g, "moments", H5T_IEEE_F64LE, {{t, columns}, {}, {rows, columns}, true}, &kNaN,
+                     where);
+  for (const char* scalar : {"min", "max", "norm"}) {
+    h5::create_dataset(g, scalar, H5T_IEEE_F64LE, {{t}, {}, {rows}, true}, &kNaN, where);
+  }
+  h5::create_dataset(g, "failed", H5T_STD_I8LE, {{t}, {}, {rows}, true}, &zero8, where);
+  h5::create_dataset(g, "failure_reason", string, {{t}, {}, {rows}, true}, nullptr, where);
+  h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE, {{u, bins}, {}, {1, bins}, true}, &zero64,
+                     where);
+  h5::create_dataset(g, "unit_below", H5T_STD_I64LE, {{u}, {}, {1}, true}, &zero64, where);
+  h5::create_dataset(g, "unit_above", H5T_STD_I64LE, {{u}, {}, {1}, true}, &zero64, where);
+  h5::create_dataset(g, "unit_committed", H5T_STD_I8LE, {{u}, {}, {1}, true}, &zero8, where);
+
+  const hsize_t kept = as_hsize(layout.keep_count());
+  const hsize_t n = as_hsize(layout.n);
+  if (kept == 0) {
+    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{0, n}, {kUnlimited, n}, {1, n}, false},
+                       &kNaN, where);
+    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{0}, {kUnlimited}, {1}, false},
+                       &zero64, where);
+  } else {
+    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{kept, n}, {}, {1, n}, true}, &kNaN, where);
+    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{kept}, {}, {1}, true}, &zero64,
+                       where);
+  }
+}
+
+void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t session_file_type,
+                  hid_t unit_file_type, Where where) {
+  h5::write_string_attribute(file, "file_kind", kFileKind, where);
+  h5::write_int_array_attribute(file, "format_version", {kFormatMajor, kFormatMinor}, where);
+  h5::write_string_attribute(file, "tool_version", header.tool_version, where);
+  h5::write_string_attribute(file, "git_revision", header.git_revision, where);
+  h5::write_string_attribute(file, "job_text", header.job_text, where);
+  h5::write_string_attribute(file, "job_canonical", header.job_canonical, where);
+  h5::write_string_attribute(file, "job_hash", header.job_hash, where);
+  h5::write_string_attribute(file, "expression", header.expression, where);
+  h5::write_string_attribute(file, "spectrum", spectrum_name(header.spectrum), where);
+  h5::write_int64_attribute(file, "self_adjoint", header.self_adjoint ? 1 : 0, where);
+  h5::write_int64_attribute(file, "size_count", static_cast<std::int64_t>(header.sizes.size()),
+                            where);
+
+  Id metadata = h5::own(H5Gcreate2(file, "metadata", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
+                        H5Gclose, where, "create group '/metadata'");
+  for (const auto& [key, value] : header.metadata) {
+    h5::write_string_attribute(metadata.get(), key.c_str(), value, where);
+  }
+
+  Id sizes = h5::own(H5Gcreate2(file, "sizes", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT), H5Gclose,
+                     where, "create group '/sizes'");
+  for (std::size_t i = 0; i < header.sizes.size(); ++i) {
+    write_size(sizes.get(), i, header.sizes[i], string, where);
+  }
+
+  Id provenance = h5::own(H5Gcreate2(file, "provenance", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
+                          H5Gclose, where, "create group '/provenance'");
+  h5::write_string_attribute(provenance.get(), "created", now_utc(), where);
+  // One row per chunk: an append then writes a new chunk and never rewrites earlier rows.
+  h5::create_dataset(provenance.get(), "sessions", session_file_type,
+                     {{0}, {kUnlimited}, {1}, false}, nullptr, where);
+  h5::create_dataset(provenance.get(), "units", unit_file_type, {{0}, {kUnlimited}, {1}, false},
+                     nullptr, where);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Reading an existing file
+
+std::vector<double> read_doubles_1d(hid_t group, const char* name, Where where) {
+  Id dataset = h5::open_dataset(group, name, where);
+  const auto dims = h5::extent(dataset.get(), where);
+  if (dims.size() != 1) h5::fail(where, std::string("read dataset '") + name + "' (not 1-D)");
+  std::vector<double> values(dims[0]);
+  h5::read_block(dataset.get(), H5T_NATIVE_DOUBLE, {0}, {dims[0]}, values.data(), where,
+                 std::string("read dataset '") + name + "'");
+  return values;
+}
+
+std::vector<std::uint64_t> read_uint64_1d(hid_t group, const char* name, Where where) {
+  Id dataset = h5::open_dataset(group, name, where);
+  const auto dims = h5::extent(dataset.get(), where);
+  if (dims.size() != 1) h5::fail(where, std::string("read dataset '") + name + "' (not 1-D)");
+  std::vector<std::uint64_t> values(dims[0]);
+  h5::read_block(dataset.get(), H5T_NATIVE_UINT64, {0}, {dims[0]}, values.data(), where,
+                 std::string("read dataset '") + name + "'");
+  return values;
+}
+
+// Reads the header; an Error (a missing or malformed piece) means the file is damaged.
+RunHeader read_header(hid_t file, Where where) {
+  RunHeader header;
+  header.tool_version = h5::read_string_attribute(file, "tool_version", where);
+  header.git_revision = h5::read_string_attribute(file, "git_revision", where);
+  header.job_text = h5::read_string_attribute(file, "job_text", where);
+  header.job_canonical = h5::read_string_attribute(file, "job_canonical", where);
+  header.job_hash = h5::read_string_attribute(file, "job_hash", where);
+  header.expression = h5::read_string_attribute(file, "expression", where);
+  const std::string spectrum = h5::read_string_attribute(file, "spectrum", where);
+  bool ok = false;
+  header.spectrum = spectrum_from_name(spectrum, ok);
+  if (!ok) throw Error("attribute 'spectrum' is \"" + spectrum + "\"");
+  header.self_adjoint = h5::read_int64_attribute(file, "self_adjoint", where) != 0;
+
+  Id metadata = h5::open_group(file, "metadata", where);
+  H5O_info_t object{};
+  h5::check(H5Oget_info2(metadata.get(), &object, H5O_INFO_NUM_ATTRS), where,
+            "read group '/metadata'");
+  for (hsize_t i = 0; i < object.num_attrs; ++i) {
+    Id attribute = h5::own(H5Aopen_by_idx(metadata.get(), ".", H5_INDEX_NAME, H5_ITER_INC, i,
+                                          H5P_DEFAULT, H5P_DEFAULT),
+                           H5Aclose, where, "read group '/metadata'");
+    const ssize_t length = H5Aget_name(attribute.get(), 0, nullptr);
+    if (length < 0) h5::fail(where, "read group '/metadata'");
+    std::string key(static_cast<std::size_t>(length) + 1, '\0');
+    H5Aget_name(attribute.get(), key.size(), key.data());
+    key.resize(static_cast<std::size_t>(length));
+    header.metadata[key] = h5::read_string_attribute(metadata.get(), key.c_str(), where);
+  }
+
+  const std::int64_t count = h5::read_int64_attribute(file, "size_count", where);
+  if (count < 1) throw Error("attribute 'size_count' is " + std::to_string(count));
+  for (std::int64_t i = 0; i < count; ++i) {
+    Id group = h5::open_group(file, size_group_name(static_cast<std::size_t>(i)), where);
+    const hid_t g = group.get();
+    SizeLayout layout;
+    layout.n = h5::read_int64_attribute(g, "n", where);
+    layout.trials = h5::read_int64_attribute(g, "trials", where);
+    layout.trials_per_unit = h5::read_int64_attribute(g, "trials_per_unit", where);
+    layout.observe.max_moment = static_cast<int>(h5::read_int64_attribute(g, "max_moment", where));
+    layout.observe.kind = header.spectrum;
+    layout.observe.bin_edges = read_doubles_1d(g, "bin_edges", where);
+    layout.observe.keep_spectrum_trials = read_uint64_1d(g, "kept_trials", where);
+    header.sizes.push_back(std::move(layout));
+  }
+  try {
+    header.validate();
+  } catch (const InputError& e) {
+    throw Error(e.what());
+  }
+  return header;
+}
+
+void expect_extent(hid_t dataset, const std::vector<hsize_t>& expected, const std::string& name,
+                   Where where) {
+  if (h5::extent(dataset, where) != expected) {
+    throw Error("dataset '" + name + "' has the wrong shape");
+  }
+}
+
+SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout, Where where) {
+  SizeHandles s;
+  const std::string group_name = size_group_name(index);
+  s.group = h5::open_group(file, group_name, where);
+  const hid_t g = s.group.get();
+  const hsize_t t = as_hsize(layout.trials);
+  const hsize_t u = as_hsize(layout.units());
+  const auto open = [&](const char* name, const std::vector<hsize_t>& dims) {
+    Id dataset = h5::open_dataset(g, name, where);
+    expect_extent(dataset.get(), dims, "/" + group_name + "/" + name, where);
+    return dataset;
+  };
+  s.moments = open("moments", {t, as_hsize(layout.observe.max_moment) + 1});
+  s.min = open("min", {t});
+  s.max = open("max", {t});
+  s.norm = open("norm", {t});
+  s.failed = open("failed", {t});
+  s.failure_reason = open("failure_reason", {t});
+  s.unit_histograms = open("unit_histograms", {u, layout.observe.bins()});
+  s.unit_below = open("unit_below", {u});
+  s.unit_above = open("unit_above", {u});
+  s.unit_committed = open("unit_committed", {u});
+  s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)});
+  s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())});
+  return s;
+}
+
+std::vector<bool> read_committed(const SizeHandles& s, const SizeLayout& layout, Where where) {
+  const auto u = static_cast<std::size_t>(layout.units());
+  std::vector<std::int8_t> marks(u, 0);
+  h5::read_block(s.unit_committed.get(), H5T_NATIVE_INT8, {0}, {u}, marks.data(), where,
+                 "read the commit markers");
+  std::vector<bool> out(u);
+  // Only the exact value 1 counts: anything else was never written by a finished commit.
+  for (std::size_t i = 0; i < u; ++i) out[i] = marks[i] == 1;
+  return out;
+}
+
+// The first way `file` and `job` differ (empty if none), "what: X in the file, Y for this job".
+std::string first_difference(const RunHeader& file, const RunHeader& job) {
+  const auto differ = [](const std::string& what, const std::string& in_file,
+                         const std::string& for_job) {
+    return what + ": " + in_file + " in the file, " + for_job + " for this job";
+  };
+  if (file.expression != job.expression) {
+    return differ("expression", "\"" + file.expression + "\"", "\"" + job.expression + "\"");
+  }
+  if (file.spectrum != job.spectrum) {
+    return differ("spectrum", spectrum_name(file.spectrum), spectrum_name(job.spectrum));
+  }
+  if (file.sizes.size() != job.sizes.size()) {
+    return differ("number of sizes", std::to_string(file.sizes.size()),
+                  std::to_string(job.sizes.size()));
+  }
+  for (std::size_t i = 0; i < file.sizes.size(); ++i) {
+    const SizeLayout& a = file.sizes[i];
+    const SizeLayout& b = job.sizes[i];
+    const std::string at = "sizes[" + std::to_string(i) + "].";
+    if (a.n != b.n) return differ(at + "n", std::to_string(a.n), std::to_string(b.n));
+    if (a.trials != b.trials) {
+      return differ(at + "trials", std::to_string(a.trials), std::to_string(b.trials));
+    }
+    if (a.trials_per_unit != b.trials_per_unit) {
+      return differ(at + "trials_per_unit", std::to_string(a.trials_per_unit),
+                    std::to_string(b.trials_per_unit));
+    }
+    if (a.observe.max_moment != b.observe.max_moment) {
+      return differ(at + "max_moment", std::to_string(a.observe.max_moment),
+                    std::to_string(b.observe.max_moment));
+    }
+    if (a.observe.bin_edges != b.observe.bin_edges) {
+      return differ(at + "bin_edges", list_text(a.observe.bin_edges),
+                    list_text(b.observe.bin_edges));
+    }
+    if (a.observe.keep_spectrum_trials != b.observe.keep_spectrum_trials) {
+      return differ(at + "kept trials", list_text(a.observe.keep_spectrum_trials),
+                    list_text(b.observe.keep_spectrum_trials));
+    }
+  }
+  return "";
+}
+
+// Opens, checks kind and version, reads the header and every size's datasets. `flags` is
+// H5F_ACC_RDONLY or H5F_ACC_RDWR.
+std::unique_ptr<RunFile::Impl> load(const std::string& path, Purpose purpose, unsigned flags) {
+  auto impl = std::make_unique<RunFile::Impl>();
+  impl->path = path;
+  impl->file = open_existing(path, purpose, flags);
+  impl->writable = flags == H5F_ACC_RDWR;
+  check_kind_and_version(impl->file.get(), path, purpose);
+  try {
+    const Where where = impl->where();
+    impl->header = read_header(impl->file.get(), where);
+    impl->make_types();
+    for (std::size_t i = 0; i < impl->header.sizes.size(); ++i) {
+      impl->sizes.push_back(open_size(impl->file.get(), i, impl->header.sizes[i], where));
+      impl->committed.push_back(read_committed(impl->sizes.back(), impl->header.sizes[i], where));
+    }
+    Id provenance = h5::open_group(impl->file.get(), "provenance", where);
+    impl->sessions = h5::open_dataset(provenance.get(), "sessions", where);
+    impl->unit_records = h5::open_dataset(provenance.get(), "units", where);
+  } catch (const InputError&) {
+    throw;
+  } catch (const Error& e) {
+    refuse_damaged(path, e.what(), purpose);
+  }
+  return impl;
+}
+
+// Removes a temporary file unless released.
+class TempFile {
+ public:
+  explicit TempFile(std::string path) : path_(std::move(path)) {}
+  TempFile(const TempFile&) = delete;
+  TempFile& operator=(const TempFile&) = delete;
+  ~TempFile() {
+    if (!path_.empty()) ::unlink(path_.c_str());
+  }
+  void release() { path_.clear(); }
+
+ private:
+  std::string path_;
+};
+
+std::string temp_name_for(const std::string& path) {
+  static unsigned counter = 0;
+  const auto slash = path.rfind('/');
+  const std::string dir = slash == std::string::npos ? "" : path.substr(0, slash + 1);
+  const std::string base = slash == std::string::npos ? path : path.substr(slash + 1);
+  // Hidden and unique per process and call, in the same directory so the rename is atomic.
+  return dir + "." + base + ".creating." + std::to_string(::getpid()) + "." +
+         std::to_string(++counter);
+}
+
+[[noreturn]] void refuse_existing(const std::string& path) {
+  throw InputError("cannot create run file '" + path +
+                   "': it already exists; resume it with the same job, use a new output path, "
+                   "or --fresh to start over");
+}
+
+}  // namespace
+
+// ---------------------------------------------------------------------------------------------
+// RunFile
+
+RunFile::RunFile(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
+RunFile::RunFile(RunFile&&) noexcept = default;
+RunFile& RunFile::operator=(RunFile&&) noexcept = default;
+
+RunFile::~RunFile() {
+  if (impl_ && impl_->session >= 0) {
+    try {
+      end_session("interrupted");
+    } catch (...) {
+      // Destructors must not throw; the row then stays "running", which readers treat as killed.
+    }
+  }
+}
+
+const std::string& RunFile::path() const { return impl_->path; }
+const RunHeader& RunFile::header() const { return impl_->header; }
+
+RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
+  header_in.validate();
+  h5::quiet();
+  RunHeader header = header_in;
+  header.tool_version = freegap::tool_version;
+  header.git_revision = freegap::git_revision;
+
+  struct stat info {};
+  if (::lstat(path.c_str(), &info) == 0) refuse_existing(path);
+
+  // Reserve the temporary name ourselves: unlike HDF5, open() tells why it failed (errno).
+  const std::string temp = temp_name_for(path);
+  const int fd = ::open(temp.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_CLOEXEC, 0666);
+  if (fd < 0) {
+    throw InputError("cannot create run file '" + path + "' (" + std::strerror(errno) +
+                     "); choose an output path in a directory you can write to");
+  }
+  ::close(fd);
+  TempFile guard(temp);
+
+  auto impl = std::make_unique<Impl>();
+  impl->path = path;
+  impl->writable = true;
+  impl->header = header;
+  const Where temp_where{temp};
+  try {
+    impl->file = h5::own(H5Fcreate(temp.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, H5P_DEFAULT), H5Fclose,
+                         temp_where, "create the file");
+    impl->make_types();
+    Id session_file = packed(impl->session_type.get(), temp_where);
+    Id unit_file = packed(impl->unit_type.get(), temp_where);
+    write_header(impl->file.get(), header, impl->string_type.get(), session_file.get(),
+                 unit_file.get(), temp_where);
+    for (std::size_t i = 0; i < header.sizes.size(); ++i) {
+      impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i], temp_where));
+      impl->committed.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), false);
+    }
+    Id provenance = h5::open_group(impl->file.get(), "provenance", temp_where);
+    impl->sessions = h5::open_dataset(provenance.get(), "sessions", temp_where);
+    impl->unit_records = h5::open_dataset(provenance.get(), "units", temp_where);
+    impl->flush("flush the new file");
+  } catch (const InputError&) {
+    throw;
+  } catch (const Error& e) {
+    throw Error("cannot create run file '" + path + "': " + e.what());
+  }
+
+  // Into place only now, and never over a file that appeared meanwhile. The open HDF5 handle
+  // follows the inode, so the file stays open under its new name.
+  if (::renameat2(AT_FDCWD, temp.c_str(), AT_FDCWD, path.c_str(), RENAME_NOREPLACE) != 0) {
+    const int error = errno;
+    if (error == EEXIST) refuse_existing(path);
+    bool moved = false;
+    if (error == EINVAL || error == ENOSYS) {
+      // A file system without RENAME_NOREPLACE: a hard link also refuses an existing target.
+      if (::link(temp.c_str(), path.c_str()) == 0) {
+        moved = true;
+      } else if (errno == EEXIST) {
+        refuse_existing(path);
+      }
+    }
+    if (!moved) {
+      throw InputError("cannot create run file '" + path + "' (" + std::strerror(error) +
+                       "); choose an output path in a directory you can write to");
+    }
+  } else {
+    guard.release();
+  }
+  return RunFile(std::move(impl));
+}
+
+RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expected) {
+  expected.validate();
+  {
+    // Every check on a read-only handle first: a foreign file is then never opened for writing,
+    // so HDF5 cannot touch it (closing a read-write handle may rewrite its end).
+    auto probe = load(path, Purpose::resume, H5F_ACC_RDONLY);
+    const RunHeader& found = probe->header;
+    if (found.job_hash != expected.job_hash) {
+      throw InputError("run file '" + path + "' was written by another job (job hash " +
+                       short_hash(found.job_hash) + " in the file, " +
+                       short_hash(expected.job_hash) +
+                       " for this job); use a new output path or --fresh to start over");
+    }
+    const std::string difference = first_difference(found, expected);
+    if (!difference.empty()) {
+      throw InputError("run file '" + path +
+                       "' does not match this job although the job hash does (" + difference +
+                       "); use a new output path or --fresh to start over");
+    }
+  }
+  return RunFile(load(path, Purpose::resume, H5F_ACC_RDWR));
+}
+
+RunFile RunFile::open_read(const std::string& path) {
+  return RunFile(load(path, Purpose::read, H5F_ACC_RDONLY));
+}
+
+std::vector<bool> RunFile::committed(std::size_t size_index) const {
+  if (size_index >= impl_->committed.size()) {
+    throw Error("run file '" + impl_->path + "': no size " + std::to_string(size_index));
+  }
+  return impl_->committed[size_index];
+}
+
+bool RunFile::complete() const {
+  for (const auto& flags : impl_->committed) {
+    if (std::find(flags.begin(), flags.end(), false) != flags.end()) return false;
+  }
+  return true;
+}
+
+void RunFile::Impl::write_session_row(hsize_t row, bool append) {
+  const std::string hosts = join(current.hosts, ',');
+  const SessionRow data{current.started.c_str(),
+                        current.ended.c_str(),
+                        current.ranks,
+                        hosts.c_str(),
+                        current.status.c_str(),
+                        current.tool_version.c_str(),
+                        current.git_revision.c_str()};
+  if (append) {
+    append_row(sessions.get(), session_type.get(), &data, where(), "append a session record");
+  } else {
+    h5::write_block(sessions.get(), session_type.get(), {row}, {1}, &data, where(),
+                    "update a session record");
+  }
+}
+
+std::vector<SessionRecord> RunFile::Impl::read_sessions() const {
+  std::vector<SessionRecord> out;
+  read_all_rows<SessionRow>(
+      sessions.get(), session_type.get(), where(), "read the sessions",
+      [&](const SessionRow& row) {
+        SessionRecord r;
+        r.started = text_or_empty(row.started);
+        r.ended = text_or_empty(row.ended);
+        r.ranks = row.ranks;
+        r.hosts = split(text_or_empty(row.hosts), ',');
+        r.status = text_or_empty(row.status);
+        r.tool_version = text_or_empty(row.tool_version);
+        r.git_revision = text_or_empty(row.git_revision);
+        out.push_back(std::move(r));
+      },
+      [&](std::size_t) { out.emplace_back(); });
+  // A row torn by a kill (no status, or unreadable) and a "running" row followed by a later
+  // session were both killed. Only the last row can be "running" for real (a live writer).
+  for (std::size_t i = 0; i < out.size(); ++i) {
+    if (out[i].status.empty() || (out[i].status == "running" && i + 1 < out.size())) {
+      out[i].status = "killed";
+    }
+  }
+  return out;
+}
+
+void RunFile::begin_session(int ranks, const std::vector<std::string>& hosts) {
+  h5::quiet();
+  Impl& f = *impl_;
+  if (!f.writable)
+    throw Error("run file '" + f.path + "' is open read-only; cannot begin a session");
+  if (f.session >= 0) throw Error("run file '" + f.path + "': a session is already open");
+  if (ranks < 1) throw Error("run file '" + f.path + "': a session needs ranks ≥ 1");
+  for (const auto& host : hosts) {
+    if (host.find(',') != std::string::npos) {
+      throw Error("run file '" + f.path + "': host name '" + host + "' contains ','");
+    }
+  }
+  // Rows of earlier sessions are never rewritten: one a kill tore may point at file space that
+  // HDF5 has since given to another object (SCHEMA.md), so writing it could damage that object.
+  // Whether an earlier session was killed is decided when reading instead.
+  const hsize_t row = h5::extent(f.sessions.get(), f.where())[0];
+  f.current = SessionRecord{
+      now_utc(), "", ranks, hosts, "running", freegap::tool_version, freegap::git_revision};
+  f.write_session_row(0, true);
+  f.session = static_cast<std::int64_t>(row);
+  f.flush("flush the session record");
+}
+
+void RunFile::end_session(const std::string& status) {
+  h5::quiet();
+  Impl& f = *impl_;
+  if (f.session < 0) throw Error("run file '" + f.path + "': no session is open");
+  if (status != "finished" && status != "interrupted") {
+    throw Error("run file '" + f.path + "': session status must be finished or interrupted (got '" +
+                status + "')");
+  }
+  f.current.ended = now_utc();
+  f.current.status = status;
+  const auto row = static_cast<hsize_t>(f.session);
+  f.session = -1;
+  f.write_session_row(row, false);
+  f.flush("flush the session record");
+}
+
+void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run) {
+  h5::quiet();
+  Impl& f = *impl_;
+  const auto refuse = [&](const std::string& why) {
+    throw Error("cannot write unit " + std::to_string(unit.unit) + " of size " +
+                std::to_string(unit.size_index) + " to run file '" + f.path + "': " + why);
+  };
+  if (!f.writable) refuse("the file is open read-only");
+  if (f.session < 0) refuse("no session is open (call begin_session first)");
+  if (unit.size_index >= f.header.sizes.size()) refuse("no such size");
+  const SizeLayout& layout = f.header.sizes[unit.size_index];
+  if (unit.unit < 0 || unit.unit >= layout.units()) refuse("no such unit");
+  const auto u = static_cast<std::size_t>(unit.unit);
+  if (f.committed[unit.size_index][u]) refuse("it is already committed");
+  const observe::Observations& obs = unit.obs;
+  if (!(obs.config == layout.observe)) refuse("its observe configuration differs from the file's");
+  const std::int64_t begin = layout.unit_begin(unit.unit);
+  const std::int64_t end = layout.unit_end(unit.unit);
+  const auto rows = static_cast<std::size_t>(end - begin);
+  if (obs.trials.size() != rows) {
+    refuse("it holds " + std::to_string(obs.trials.size()) + " rows, expected " +
+           std::to_string(rows));
+  }
+  const std::size_t bins = layout.observe.bins();
+  if (obs.histogram.counts.size() != bins) refuse("its histogram has the wrong number of bins");
+  const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
+  const auto n = static_cast<std::size_t>(layout.n);
+
+  // Dense buffers in the datasets' layout.
+  std::vector<double> moments(rows * columns, kNaN), mins(rows), maxs(rows), norms(rows);
+  std::vector<std::int8_t> failed(rows);
+  std::vector<const char*> reasons(rows);
+  const auto& kept = layout.observe.keep_spectrum_trials;
+  const auto kept_begin = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(begin)) - kept.begin());
+  const auto kept_end = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) - kept.begin());
+  std::vector<double> spectra((kept_end - kept_begin) * n, kNaN);
+  std::vector<std::int64_t> lengths(kept_end - kept_begin, 0);
+  for (std::size_t i = 0; i < rows; ++i) {
+    const observe::TrialRecord& row = obs.trials[i];
+    const auto trial = static_cast<std::uint64_t>(begin) + i;
+    if (row.trial != trial) {
+      refuse("row " + std::to_string(i) + " holds trial " + std::to_string(row.trial) +
+             ", expected " + std::to_string(trial));
+    }
+    if (row.failed ? !row.moments.empty() : row.moments.size() != columns) {
+      refuse("trial " + std::to_string(trial) + " has " + std::to_string(row.moments.size()) +
+             " moments");
+    }
+    std::copy(row.moments.begin(), row.moments.end(), moments.begin() + i * columns);
+    mins[i] = row.min;
+    maxs[i] = row.max;
+    norms[i] = row.norm;
+    failed[i] = row.failed ? 1 : 0;
+    reasons[i] = row.reason.c_str();
+    const bool keeps = layout.observe.keeps_spectrum(trial);
+    if (!keeps && !row.spectrum.empty()) {
+      refuse("trial " + std::to_string(trial) + " carries a spectrum but is not kept");
+    }
+    if (keeps) {
+      if (row.spectrum.size() > n) {
+        refuse("trial " + std::to_string(trial) + " has a spectrum longer than N");
+      }
+      const auto j = static_cast<std::size_t>(std::lower_bound(kept.begin(), kept.end(), trial) -
+                                              kept.begin() - kept_begin);
+      std::copy(row.spectrum.begin(), row.spectrum.end(), spectra.begin() + j * n);
+      lengths[j] = static_cast<std::int64_t>(row.spectrum.size());
+    }
+  }
+
+  const SizeHandles& s = f.sizes[unit.size_index];
+  const Where w = f.where();
+  const std::string what =
+      "write unit " + std::to_string(unit.unit) + " of size " + std::to_string(unit.size_index);
+  const hsize_t b = as_hsize(begin);
+  const hsize_t r = rows;
+  try {
+    // Phase 1: the unit's rows at their fixed positions, then flush.
+    h5::write_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns}, moments.data(), w,
+                    what);
+    h5::write_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {r}, mins.data(), w, what);
+    h5::write_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {r}, maxs.data(), w, what);
+    h5::write_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {r}, norms.data(), w, what);
+    h5::write_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {r}, failed.data(), w, what);
+    h5::write_block(s.failure_reason.get(), f.string_type.get(), {b}, {r}, reasons.data(), w, what);
+    h5::write_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins},
+                    obs.histogram.counts.data(), w, what);
+    h5::write_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.below, w, what);
+    h5::write_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.above, w, what);
+    h5::write_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_end - kept_begin, n},
+                    spectra.data(), w, what);
+    h5::write_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
+                    {kept_end - kept_begin}, lengths.data(), w, what);
+    f.flush(what);
+
+    // Phase 2: the commit marker (and the provenance record), then flush. A kill before this
+    // flush completes leaves the marker unset, and the unit is redone on resume.
+    const std::int8_t one = 1;
+    h5::write_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
+    const std::string committed_at = now_utc();
+    const UnitRow record{static_cast<std::int64_t>(unit.size_index),
+                         unit.unit,
+                         where_run.rank,
+                         where_run.host.c_str(),
+                         where_run.seconds,
+                         f.session,
+                         committed_at.c_str()};
+    append_row(f.unit_records.get(), f.unit_type.get(), &record, w, "append a unit record");
+    f.flush(what);
+  } catch (const Error& e) {
+    throw Error(std::string(e.what()) + "; the unit is not committed and will be redone on resume");
+  }
+  f.committed[unit.size_index][u] = true;
+}
+
+observe::Observations RunFile::read_observations(std::size_t size_index) const {
+  h5::quiet();
+  const Impl& f = *impl_;
+  if (size_index >= f.header.sizes.size()) {
+    throw Error("run file '" + f.path + "': no size " + std::to_string(size_index));
+  }
+  const SizeLayout& layout = f.header.sizes[size_index];
+  const SizeHandles& s = f.sizes[size_index];
+  const auto& flags = f.committed[size_index];
+  const Where w = f.where();
+  const std::string what = "read the rows of size " + std::to_string(size_index);
+  const std::size_t bins = layout.observe.bins();
+  const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
+  const auto n = static_cast<std::size_t>(layout.n);
+  const auto& kept = layout.observe.keep_spectrum_trials;
+
+  observe::Observations obs = observe::start_observations(layout.observe);
+  try {
+    // Committed units in runs of consecutive units, one read per dataset per run.
+    std::size_t u0 = 0;
+    while (u0 < flags.size()) {
+      if (!flags[u0]) {
+        ++u0;
+        continue;
+      }
+      std::size_t u1 = u0;
+      while (u1 < flags.size() && flags[u1]) ++u1;
+      const std::int64_t begin = layout.unit_begin(static_cast<std::int64_t>(u0));
+      const std::int64_t end = layout.unit_end(static_cast<std::int64_t>(u1) - 1);
+      const auto rows = static_cast<std::size_t>(end - begin);
+      const hsize_t b = as_hsize(begin);
+      const std::size_t units = u1 - u0;
+
+      std::vector<std::int64_t> counts(units * bins), below(units), above(units);
+      h5::read_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u0, 0}, {units, bins},
+                     counts.data(), w, what);
+      h5::read_block(s.unit_below.get(), H5T_NATIVE_INT64, {u0}, {units}, below.data(), w, what);
+      h5::read_block(s.unit_above.get(), H5T_NATIVE_INT64, {u0}, {units}, above.data(), w, what);
+      for (std::size_t i = 0; i < units; ++i) {
+        for (std::size_t k = 0; k < bins; ++k) obs.histogram.counts[k] += counts[i * bins + k];
+        obs.histogram.below += below[i];
+        obs.histogram.above += above[i];
+      }
+
+      std::vector<double> moments(rows * columns), mins(rows), maxs(rows), norms(rows);
+      std::vector<std::int8_t> failed(rows);
+      h5::read_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns}, moments.data(), w,
+                     what);
+      h5::read_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, mins.data(), w, what);
+      h5::read_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, maxs.data(), w, what);
+      h5::read_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, norms.data(), w, what);
+      h5::read_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {rows}, failed.data(), w, what);
+      const auto reasons = h5::read_strings(s.failure_reason.get(), b, rows, w, what);
+
+      const auto kept_begin = static_cast<std::size_t>(
+          std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(begin)) -
+          kept.begin());
+      const auto kept_end = static_cast<std::size_t>(
+          std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) -
+          kept.begin());
+      const std::size_t kept_rows = kept_end - kept_begin;
+      std::vector<double> spectra(kept_rows * n);
+      std::vector<std::int64_t> lengths(kept_rows);
+      h5::read_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_rows, n},
+                     spectra.data(), w, what);
+      h5::read_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin}, {kept_rows},
+                     lengths.data(), w, what);
+
+      for (std::size_t i = 0; i < rows; ++i) {
+        observe::TrialRecord row;
+        row.trial = static_cast<std::uint64_t>(begin) + i;
+        row.failed = failed[i] != 0;
+        row.reason = reasons[i];
+        if (!row.failed) {
+          row.moments.assign(moments.begin() + i * columns, moments.begin() + (i + 1) * columns);
+        }
+        row.min = mins[i];
+        row.max = maxs[i];
+        row.norm = norms[i];
+        const auto slot = std::lower_bound(kept.begin(), kept.end(), row.trial);
+        if (slot != kept.end() && *slot == row.trial) {
+          const auto j = static_cast<std::size_t>(slot - kept.begin()) - kept_begin;
+          if (lengths[j] < 0 || static_cast<std::size_t>(lengths[j]) > n) {
+            throw Error("spectrum_length of trial " + std::to_string(row.trial) + " is " +
+                        std::to_string(lengths[j]));
+          }
+          const auto first = spectra.begin() + static_cast<std::ptrdiff_t>(j * n);
+          row.spectrum.assign(first, first + lengths[j]);
+        }
+        obs.trials.push_back(std::move(row));
+      }
+      u0 = u1;
+    }
+  } catch (const Error& e) {
+    refuse_damaged(f.path, e.what(), Purpose::read);
+  }
+  return obs;
+}
+
+Provenance RunFile::read_provenance() const {
+  h5::quiet();
+  const Impl& f = *impl_;
+  Provenance out;
+  const Where w = f.where();
+  Id provenance = h5::open_group(f.file.get(), "provenance", w);
+  out.created = h5::read_string_attribute(provenance.get(), "created", w);
+  out.sessions = f.read_sessions();
+  read_all_rows<UnitRow>(
+      f.unit_records.get(), f.unit_type.get(), w, "read the unit records",
+      [&](const UnitRow& row) {
+        // A record whose append was torn by a kill reads as fill (no commit time): skip it.
+        if (text_or_empty(row.committed_at).empty()) return;
+        UnitRecord r;
+        r.size_index = static_cast<std::size_t>(row.size_index);
+        r.unit = row.unit;
+        r.rank = row.rank;
+        r.host = text_or_empty(row.host);
+        r.seconds = row.seconds;
+        r.session = row.session;
+        r.committed_at = text_or_empty(row.committed_at);
+        out.units.push_back(std::move(r));
+      },
+      [](std::size_t) {});
+  return out;
+}
+
+}  // namespace freegap::store
