@@ -1,18 +1,226 @@
 // The freegap executable: parses the command line and dispatches to the library (STYLE.md §1).
 #include <CLI/CLI.hpp>
+#include <algorithm>
+#include <chrono>
+#include <mpi.h>
+#include <cstdio>
 #include <iostream>
+#include <string>
+#include <vector>
 
 #include "freegap/errors.hpp"
+#include "freegap/linalg.hpp"
+#include "freegap/model.hpp"
+#include "freegap/observe.hpp"
+#include "freegap/run.hpp"
+#include "freegap/store.hpp"
 #include "freegap/version.hpp"
+
+namespace {
+
+// Exit statuses (documented in the README).
+constexpr int kExitBadInput = 2;
+constexpr int kExitFailure = 1;
+
+struct SampleOptions {
+  std::vector<std::string> declarations;
+  std::string expression;
+  std::vector<long long> sizes;
+  long long trials = 10;
+  std::uint64_t seed = 1;
+  int max_moment = 6;
+  bool explain = false;
+  bool singular_values = false;
+};
+
+int run_sample(const SampleOptions& opt) {
+  freegap::model::Model model;
+  for (const auto& d : opt.declarations) model.matrices.push_back(freegap::model::parse_declaration(d));
+  model.expression = opt.expression;
+  model.check.force_singular_values = opt.singular_values;
+  if (opt.trials < 1) throw freegap::InputError("--trials must be at least 1 (got " + std::to_string(opt.trials) + ")");
+  for (std::size_t i = 0; i < opt.sizes.size(); ++i) {
+    if (opt.sizes[i] < 1) throw freegap::InputError("--sizes: every size must be positive (got " + std::to_string(opt.sizes[i]) + ")");
+    if (i > 0 && opt.sizes[i] <= opt.sizes[i - 1]) {
+      throw freegap::InputError("--sizes must be increasing (got " + std::to_string(opt.sizes[i]) +
+                                " after " + std::to_string(opt.sizes[i - 1]) + ")");
+    }
+  }
+  // Build every size's runner first, so a bad declaration or expression fails before any work.
+  std::vector<freegap::model::SizeRunner> runners;
+  for (long long n : opt.sizes) runners.emplace_back(model, n);
+  if (opt.explain) {
+    for (const auto& r : runners) std::cout << r.plan().explain() << "\n";
+    return 0;
+  }
+  const auto& expression = runners.front().expression();
+  std::printf("expression: %s  (%s; %s)\n", expression.text().c_str(),
+              expression.self_adjoint() ? "self-adjoint" : "not self-adjoint",
+              expression.spectrum() == freegap::expr::Spectrum::eigenvalues ? "eigenvalues"
+                                                                          : "singular values");
+  std::printf("seed %llu, %lld trials per size; moments m_k = (1/N) sum x^k, mean +- standard error\n\n",
+              static_cast<unsigned long long>(opt.seed), opt.trials);
+  std::printf("%8s %6s", "N", "failed");
+  for (int k = 1; k <= opt.max_moment; ++k) std::printf("   %20s", ("m_" + std::to_string(k)).c_str());
+  std::printf("   %18s %18s %10s\n", "largest", "norm", "s/trial");
+  for (auto& runner : runners) {
+    freegap::observe::ObserveConfig config;
+    config.bin_edges = freegap::observe::uniform_edges(-1.0, 1.0, 1);  // histogram unused here
+    config.max_moment = opt.max_moment;
+    config.kind = runner.spectrum_kind();
+    auto obs = freegap::observe::start_observations(config);
+    const auto start = std::chrono::steady_clock::now();
+    for (long long t = 0; t < opt.trials; ++t) {
+      freegap::model::record(obs, runner.run(opt.seed, static_cast<std::uint64_t>(t)));
+    }
+    const double secs = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    const auto s = freegap::observe::summarize(obs);
+    std::printf("%8lld %6lld", static_cast<long long>(runner.size()), static_cast<long long>(s.failed));
+    for (int k = 1; k <= opt.max_moment; ++k) {
+      std::printf("   %10.5f +- %7.5f", s.moments[k].mean, s.moments[k].standard_error);
+    }
+    std::printf("   %8.5f +- %6.4f %8.5f +- %6.4f %10.3f\n", s.max.mean, s.max.standard_error,
+                s.norm.mean, s.norm.standard_error, secs / static_cast<double>(opt.trials));
+  }
+  return 0;
+}
+
+int run_inspect(const std::string& path, bool show_job, bool show_moments) {
+  const auto file = freegap::store::RunFile::open_read(path);
+  const auto& h = file.header();
+  std::printf("run file:   %s\n", path.c_str());
+  std::printf("written by: freegap %s (%s), format %d.x\n", h.tool_version.c_str(),
+              h.git_revision.c_str(), freegap::store::kFormatMajor);
+  for (const auto& [key, value] : h.metadata) std::printf("%-13s %s\n", (key + ":").c_str(), value.c_str());
+  std::printf("expression: %s (%s; %s)\n", h.expression.c_str(),
+              h.self_adjoint ? "self-adjoint" : "not self-adjoint",
+              freegap::store::spectrum_name(h.spectrum).c_str());
+  std::printf("job hash:   %s\n\n", h.job_hash.c_str());
+  std::printf("%10s %12s %14s %10s %8s\n", "N", "units", "trials", "failed", "spectra");
+  bool complete = true;
+  std::vector<std::string> failures;
+  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
+    const auto& layout = h.sizes[i];
+    const auto committed = file.committed(i);
+    const auto done = std::count(committed.begin(), committed.end(), true);
+    const auto obs = file.read_observations(i);
+    const auto summary = freegap::observe::summarize(obs);
+    std::printf("%10lld %5lld/%-6lld %6lld/%-7lld %10lld %8lld%s\n", static_cast<long long>(layout.n),
+                static_cast<long long>(done), static_cast<long long>(committed.size()),
+                static_cast<long long>(obs.trials.size()), static_cast<long long>(layout.trials),
+                static_cast<long long>(summary.failed), static_cast<long long>(layout.keep_count()),
+                done == static_cast<long long>(committed.size()) ? "" : "  incomplete");
+    if (done != static_cast<long long>(committed.size())) complete = false;
+    for (const auto& [reason, count] : summary.failure_reasons) {
+      failures.push_back("N = " + std::to_string(layout.n) + ": " + std::to_string(count) +
+                         " trial(s): " + reason);
+    }
+  }
+  std::printf("\nstatus:     %s\n", complete ? "complete" : "incomplete (run the job again to resume)");
+  for (const auto& f : failures) std::printf("failure:    %s\n", f.c_str());
+  const auto prov = file.read_provenance();
+  std::printf("created:    %s\n", prov.created.c_str());
+  for (std::size_t i = 0; i < prov.sessions.size(); ++i) {
+    const auto& s = prov.sessions[i];
+    std::printf("session %zu:  %s .. %s, %d rank(s), %s\n", i, s.started.c_str(),
+                s.ended.empty() ? "?" : s.ended.c_str(), s.ranks, s.status.c_str());
+  }
+  if (show_moments) {
+    // Per-size means over committed, non-failed trials, with standard errors (derived when read).
+    std::printf("\nmoments m_k = (1/N) sum x^k over committed trials, mean +- standard error\n");
+    for (std::size_t i = 0; i < h.sizes.size(); ++i) {
+      const auto s = freegap::observe::summarize(file.read_observations(i));
+      std::printf("N = %lld (%lld trials):\n", static_cast<long long>(h.sizes[i].n),
+                  static_cast<long long>(s.trials - s.failed));
+      for (std::size_t k = 1; k < s.moments.size(); ++k) {
+        std::printf("  m_%-2zu %14.6f +- %.6f\n", k, s.moments[k].mean, s.moments[k].standard_error);
+      }
+      std::printf("  smallest %9.6f, largest %9.6f, operator norm %.6f +- %.6f (mean over trials)\n",
+                  s.min.mean, s.max.mean, s.norm.mean, s.norm.standard_error);
+    }
+  }
+  if (show_job) std::printf("\n--- job file ---\n%s", h.job_text.c_str());
+  return 0;
+}
+
+}  // namespace
 
 int main(int argc, char** argv) {
   CLI::App app{"freegap: finite-N random matrices against their free-probability limits"};
   app.set_version_flag("--version", std::string(freegap::tool_version) + " (" +
                                         freegap::git_revision + ")");
+  app.require_subcommand(1);
+
+  SampleOptions sample;
+  auto* sample_cmd = app.add_subcommand(
+      "sample", "Sample a model in this process and print its moments per size");
+  sample_cmd->add_option("-m,--matrix", sample.declarations,
+                         "Declare a matrix: NAME=ENSEMBLE[:key=value]... (repeatable)")
+      ->required();
+  sample_cmd->add_option("-e,--expression", sample.expression, "Expression in the declared matrices")
+      ->required();
+  sample_cmd->add_option("-n,--sizes", sample.sizes, "Sizes N, increasing")->required()->delimiter(',');
+  sample_cmd->add_option("-t,--trials", sample.trials, "Trials per size");
+  sample_cmd->add_option("-s,--seed", sample.seed, "Job seed");
+  sample_cmd->add_option("-k,--max-moment", sample.max_moment, "Highest moment shown")
+      ->check(CLI::Range(1, 12));
+  sample_cmd->add_flag("--explain", sample.explain, "Print the evaluation plan and stop");
+  sample_cmd->add_flag("--singular-values", sample.singular_values,
+                       "Singular values even for a self-adjoint expression");
+
+  std::string job_path;
+  freegap::run::RunOptions run_options;
+  auto* run_cmd = app.add_subcommand(
+      "run", "Run (or resume) a job file; under mpirun/srun with any number of ranks");
+  run_cmd->add_option("job", job_path, "Job file (TOML)")->required();
+  run_cmd->add_option("-o,--output", run_options.output, "Run file (default: the job's output)");
+  run_cmd->add_flag("--fresh", run_options.fresh, "Delete an existing run file and start over");
+  run_cmd->add_flag("--explain", run_options.explain,
+                    "Print the evaluation plans, units and memory estimates; run nothing");
+  run_cmd->add_option("--threads", run_options.threads, "BLAS threads per rank")
+      ->check(CLI::Range(1, 1024));
+  run_cmd->add_option("--progress-every", run_options.progress_seconds,
+                      "Seconds between progress lines when stderr is not a terminal")
+      ->check(CLI::PositiveNumber);
+  run_cmd->add_flag("-q,--quiet", run_options.quiet, "No progress output");
+
+  std::string inspect_path;
+  bool inspect_job = false;
+  auto* inspect_cmd = app.add_subcommand("inspect", "Describe a run file: contents, completeness, failures");
+  inspect_cmd->add_option("run_file", inspect_path, "Run file (HDF5)")->required();
+  inspect_cmd->add_flag("--job", inspect_job, "Also print the job file stored in the run file");
+  bool inspect_moments = false;
+  inspect_cmd->add_flag("--moments", inspect_moments,
+                        "Also print each size's moments, extremes and norm with standard errors");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    return app.exit(e);
+    const int rc = app.exit(e);
+    return rc == 0 ? 0 : kExitBadInput;
+  }
+  if (*run_cmd) {
+    int provided = 0;
+    MPI_Init_thread(&argc, &argv, MPI_THREAD_FUNNELED, &provided);
+    int status = freegap::run::kExitFailure;
+    try {
+      status = freegap::run::run_job(job_path, run_options, MPI_COMM_WORLD, std::cout, std::cerr);
+    } catch (const std::exception& e) {
+      std::cerr << "freegap: " << e.what() << "\n";
+      MPI_Abort(MPI_COMM_WORLD, freegap::run::kExitFailure);
+    }
+    MPI_Finalize();
+    return status;
+  }
+  try {
+    if (*inspect_cmd) return run_inspect(inspect_path, inspect_job, inspect_moments);
+    if (*sample_cmd) return run_sample(sample);
+  } catch (const freegap::InputError& e) {
+    std::cerr << "freegap: " << e.what() << "\n";
+    return kExitBadInput;
+  } catch (const freegap::Error& e) {
+    std::cerr << "freegap: " << e.what() << "\n";
+    return kExitFailure;
   }
   return 0;
 }

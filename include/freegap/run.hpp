@@ -1,0 +1,53 @@
+// The MPI runner: turns a job into a run file on one process or many ranks, with dynamic
+// cost-balanced scheduling, crash-safe streaming, resume, signals and progress.
+//
+// Work units are (size, block of trials) with the block size fixed by the job, so the units — and
+// the numbers in them — are the same however many ranks run. Rank 0 coordinates, computes like any
+// other rank between coordination steps, and is the only writer. Units go out biggest first
+// (cost ∝ N³ × trials, the dense work), each worker asking for its next unit when it starts one,
+// so the answer is waiting when it finishes.
+//
+// Signals: SIGUSR1 means "checkpoint now and stop cleanly": every rank stops at its next trial
+// boundary, drops its unfinished unit, the committed units stay in the file, and the run exits
+// with kExitResumable. SIGTERM and SIGINT do the same (under mpirun a rank has only 1–2 s after
+// SIGTERM before SIGKILL — shared/reference/cluster-notes.md §1 — but every unit is committed as
+// it arrives, so a kill loses at most the units in flight).
+#pragma once
+
+#include <mpi.h>
+
+#include <cstdint>
+#include <iosfwd>
+#include <string>
+
+#include "freegap/job.hpp"
+#include "freegap/model.hpp"
+
+namespace freegap::run {
+
+/// Exit statuses of `freegap run` (also documented in the README).
+inline constexpr int kExitFinished = 0;
+inline constexpr int kExitFailure = 1;    ///< an unexpected error (I/O, MPI)
+inline constexpr int kExitBadInput = 2;   ///< job file, command line or run file refused
+inline constexpr int kExitResumable = 3;  ///< stopped by a signal; run the same command to resume
+
+struct RunOptions {
+  std::string output;     ///< run file; empty: the job's output
+  bool fresh = false;     ///< delete an existing run file and start over
+  bool explain = false;   ///< print the evaluation plans and the work, run nothing
+  int threads = 1;        ///< BLAS threads per rank
+  double progress_seconds = 30.0;  ///< plain progress line interval when stderr is not a terminal
+  bool quiet = false;     ///< no progress output
+};
+
+/// Peak bytes one rank holds while running one trial of `runner`'s model at its size: the
+/// samples, the sampler's transient factorisation storage, the plan's temporaries and the
+/// spectrum, plus a fixed allowance for the process itself.
+std::size_t estimate_peak_bytes(const model::SizeRunner& runner);
+
+/// Runs (or resumes) a job on the ranks of `comm`. Every rank calls it with the same arguments.
+/// Returns the exit status; messages go to `err` on rank 0 only.
+int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
+            std::ostream& out, std::ostream& err);
+
+}  // namespace freegap::run

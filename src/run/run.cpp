@@ -1,0 +1,823 @@
+// The MPI runner (see include/freegap/run.hpp for the design).
+#include "freegap/run.hpp"
+
+#include <unistd.h>
+
+#include <algorithm>
+#include <chrono>
+#include <csignal>
+#include <cstdio>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <optional>
+#include <iostream>
+#include <sstream>
+#include <thread>
+
+#include "freegap/errors.hpp"
+#include "freegap/store.hpp"
+
+extern "C" void openblas_set_num_threads(int);
+
+namespace freegap::run {
+
+namespace {
+
+// ---- signals ---------------------------------------------------------------------------------
+
+volatile std::sig_atomic_t g_stop_signal = 0;
+
+extern "C" void on_stop_signal(int sig) { g_stop_signal = sig; }
+
+void install_signal_handlers() {
+  struct sigaction sa {};
+  sa.sa_handler = on_stop_signal;
+  sigemptyset(&sa.sa_mask);
+  sa.sa_flags = SA_RESTART;
+  sigaction(SIGUSR1, &sa, nullptr);
+  sigaction(SIGTERM, &sa, nullptr);
+  sigaction(SIGINT, &sa, nullptr);
+}
+
+bool stop_requested() { return g_stop_signal != 0; }
+
+// ---- MPI helpers -----------------------------------------------------------------------------
+
+constexpr int kTagRequest = 1;  // worker → 0: int32 0 = give me work
+constexpr int kTagAssign = 2;   // 0 → worker: int64[2] {size index, unit} or {-1, -1} = no more
+constexpr int kTagResult = 3;   // worker → 0: serialised unit result
+constexpr int kTagStopped = 4;  // worker → 0: int32: stopped by a signal, unit dropped; done
+
+int comm_rank(MPI_Comm comm) {
+  int r = 0;
+  MPI_Comm_rank(comm, &r);
+  return r;
+}
+int comm_size(MPI_Comm comm) {
+  int s = 1;
+  MPI_Comm_size(comm, &s);
+  return s;
+}
+
+void broadcast_string(std::string& s, MPI_Comm comm) {
+  long long n = static_cast<long long>(s.size());
+  MPI_Bcast(&n, 1, MPI_LONG_LONG, 0, comm);
+  s.resize(static_cast<std::size_t>(n));
+  if (n > 0) MPI_Bcast(s.data(), static_cast<int>(n), MPI_CHAR, 0, comm);
+}
+
+/// Every rank reports (code, message); all learn the worst code and the message of the lowest
+/// rank with that code, so they exit together with one message.
+std::pair<int, std::string> agree(int code, const std::string& message, MPI_Comm comm) {
+  int worst = 0;
+  MPI_Allreduce(&code, &worst, 1, MPI_INT, MPI_MAX, comm);
+  if (worst == 0) return {0, {}};
+  const int me = comm_rank(comm);
+  int candidate = code == worst ? me : comm_size(comm);
+  int first = 0;
+  MPI_Allreduce(&candidate, &first, 1, MPI_INT, MPI_MIN, comm);
+  std::string msg = message;
+  long long n = static_cast<long long>(msg.size());
+  MPI_Bcast(&n, 1, MPI_LONG_LONG, first, comm);
+  msg.resize(static_cast<std::size_t>(n));
+  if (n > 0) MPI_Bcast(msg.data(), static_cast<int>(n), MPI_CHAR, first, comm);
+  return {worst, msg};
+}
+
+std::string host_name() {
+  char name[MPI_MAX_PROCESSOR_NAME] = {};
+  int len = 0;
+  MPI_Get_processor_name(name, &len);
+  return std::string(name, static_cast<std::size_t>(len));
+}
+
+// ---- serialisation of a unit's observations ----------------------------------------------------
+
+struct Writer {
+  std::vector<char> bytes;
+  template <class T>
+  void put(const T& v) {
+    const char* p = reinterpret_cast<const char*>(&v);
+    bytes.insert(bytes.end(), p, p + sizeof(T));
+  }
+  void put_doubles(const std::vector<double>& v) {
+    put<std::uint64_t>(v.size());
+    const char* p = reinterpret_cast<const char*>(v.data());
+    bytes.insert(bytes.end(), p, p + v.size() * sizeof(double));
+  }
+  void put_string(const std::string& s) {
+    put<std::uint64_t>(s.size());
+    bytes.insert(bytes.end(), s.begin(), s.end());
+  }
+};
+
+struct Reader {
+  const std::vector<char>& bytes;
+  std::size_t at = 0;
+  template <class T>
+  T get() {
+    if (at + sizeof(T) > bytes.size()) throw Error("corrupt unit message between ranks");
+    T v;
+    std::memcpy(&v, bytes.data() + at, sizeof(T));
+    at += sizeof(T);
+    return v;
+  }
+  std::vector<double> get_doubles() {
+    const auto n = get<std::uint64_t>();
+    if (at + n * sizeof(double) > bytes.size()) throw Error("corrupt unit message between ranks");
+    std::vector<double> v(n);
+    std::memcpy(v.data(), bytes.data() + at, n * sizeof(double));
+    at += n * sizeof(double);
+    return v;
+  }
+  std::string get_string() {
+    const auto n = get<std::uint64_t>();
+    if (at + n > bytes.size()) throw Error("corrupt unit message between ranks");
+    std::string s(bytes.data() + at, n);
+    at += n;
+    return s;
+  }
+};
+
+struct UnitDone {
+  std::size_t size_index = 0;
+  std::int64_t unit = 0;
+  int rank = 0;
+  double seconds = 0.0;
+  observe::Observations obs;
+};
+
+std::vector<char> pack(const UnitDone& u) {
+  Writer w;
+  w.put<std::uint64_t>(u.size_index);
+  w.put<std::int64_t>(u.unit);
+  w.put<std::int32_t>(u.rank);
+  w.put<double>(u.seconds);
+  const auto& h = u.obs.histogram;
+  w.put<std::uint64_t>(h.counts.size());
+  for (auto c : h.counts) w.put<std::int64_t>(c);
+  w.put<std::int64_t>(h.below);
+  w.put<std::int64_t>(h.above);
+  w.put<std::uint64_t>(u.obs.trials.size());
+  for (const auto& t : u.obs.trials) {
+    w.put<std::uint64_t>(t.trial);
+    w.put<std::uint8_t>(t.failed ? 1 : 0);
+    w.put_string(t.reason);
+    w.put_doubles(t.moments);
+    w.put<double>(t.min);
+    w.put<double>(t.max);
+    w.put<double>(t.norm);
+    w.put_doubles(t.spectrum);
+  }
+  return std::move(w.bytes);
+}
+
+UnitDone unpack(const std::vector<char>& bytes, const observe::ObserveConfig& config) {
+  Reader r{bytes};
+  UnitDone u;
+  u.size_index = r.get<std::uint64_t>();
+  u.unit = r.get<std::int64_t>();
+  u.rank = r.get<std::int32_t>();
+  u.seconds = r.get<double>();
+  u.obs = observe::start_observations(config);
+  const auto bins = r.get<std::uint64_t>();
+  if (bins != u.obs.histogram.counts.size()) throw Error("unit message has the wrong bin count");
+  for (auto& c : u.obs.histogram.counts) c = r.get<std::int64_t>();
+  u.obs.histogram.below = r.get<std::int64_t>();
+  u.obs.histogram.above = r.get<std::int64_t>();
+  const auto rows = r.get<std::uint64_t>();
+  u.obs.trials.resize(rows);
+  for (auto& t : u.obs.trials) {
+    t.trial = r.get<std::uint64_t>();
+    t.failed = r.get<std::uint8_t>() != 0;
+    t.reason = r.get_string();
+    t.moments = r.get_doubles();
+    t.min = r.get<double>();
+    t.max = r.get<double>();
+    t.norm = r.get<double>();
+    t.spectrum = r.get_doubles();
+  }
+  return u;
+}
+
+// ---- work units ----------------------------------------------------------------------------
+
+struct Unit {
+  std::size_t size_index = 0;
+  std::int64_t unit = 0;
+  std::int64_t first_trial = 0, end_trial = 0;
+  double cost = 0.0;
+};
+
+std::string human_bytes(double b) {
+  const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB"};
+  int i = 0;
+  while (b >= 1024.0 && i < 4) {
+    b /= 1024.0;
+    ++i;
+  }
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.1f %s", b, units[i]);
+  return buf;
+}
+
+std::string human_seconds(double s) {
+  char buf[32];
+  if (s < 60) {
+    std::snprintf(buf, sizeof buf, "%.0fs", s);
+  } else if (s < 3600) {
+    std::snprintf(buf, sizeof buf, "%dm%02ds", static_cast<int>(s) / 60, static_cast<int>(s) % 60);
+  } else {
+    std::snprintf(buf, sizeof buf, "%dh%02dm", static_cast<int>(s) / 3600,
+                  (static_cast<int>(s) % 3600) / 60);
+  }
+  return buf;
+}
+
+// MemAvailable from /proc/meminfo (Linux), 0 if unknown.
+std::size_t available_memory_bytes() {
+  std::ifstream in("/proc/meminfo");
+  std::string key;
+  std::size_t value = 0;
+  std::string unit;
+  while (in >> key >> value >> unit) {
+    if (key == "MemAvailable:") return value * 1024;
+  }
+  return 0;
+}
+
+// How many ranks share this node (for the default per-rank memory budget).
+int ranks_on_this_node(MPI_Comm comm) {
+  MPI_Comm node;
+  MPI_Comm_split_type(comm, MPI_COMM_TYPE_SHARED, 0, MPI_INFO_NULL, &node);
+  const int n = comm_size(node);
+  MPI_Comm_free(&node);
+  return n;
+}
+
+/// The per-size pieces every rank needs: the trial runner and the observation settings.
+struct Prepared {
+  job::Job job;
+  std::vector<model::SizeRunner> runners;
+  std::vector<observe::ObserveConfig> configs;  // filled after the bin edges are known
+};
+
+std::string prefix(const job::Job& job, const std::string& key) {
+  const int line = job.line_of(key);
+  return job.path + ":" + (line > 0 ? std::to_string(line) + ":" : std::string()) + " " + key +
+         ": ";
+}
+
+model::Model model_of(const job::Job& job) {
+  model::Model m;
+  m.matrices = job.matrices;
+  m.expression = job.expression;
+  m.check.force_singular_values = job.observe.singular_values;
+  return m;
+}
+
+std::vector<model::SizeRunner> make_runners(const job::Job& job) {
+  std::vector<model::SizeRunner> runners;
+  const model::Model m = model_of(job);
+  try {
+    for (auto n : job.sizes) runners.emplace_back(m, n);
+  } catch (const expr::ExprError& e) {
+    throw InputError(prefix(job, "expression") + e.what());
+  }
+  return runners;
+}
+
+/// The deterministic pilot trial that fixes an automatic histogram range: trial index
+/// 4294967295 (never a real trial) at the smallest size; its [min, max] widened by margin × width.
+constexpr std::uint64_t kPilotTrial = 4294967295ULL;
+
+std::vector<double> pilot_edges(const job::Job& job, const model::SizeRunner& smallest) {
+  const auto outcome = smallest.run(job.seed, kPilotTrial);
+  if (outcome.failed) {
+    throw InputError(prefix(job, "observe.range") + "the pilot trial failed (" + outcome.reason +
+                     "); give range = [low, high]");
+  }
+  const double lo = outcome.spectrum.minCoeff(), hi = outcome.spectrum.maxCoeff();
+  double width = hi - lo;
+  if (!(width > 0)) width = std::max(1.0, std::abs(hi));
+  return observe::uniform_edges(lo - job.observe.margin * width, hi + job.observe.margin * width,
+                                job.observe.bins);
+}
+
+observe::ObserveConfig config_for(const job::Job& job, std::size_t size_index,
+                                  const std::vector<double>& edges,
+                                  const model::SizeRunner& runner) {
+  observe::ObserveConfig c;
+  c.bin_edges = edges;
+  c.max_moment = job.observe.max_moment;
+  c.kind = runner.spectrum_kind();
+  const std::int64_t keep = std::min(job.observe.keep_spectra, job.trials[size_index]);
+  for (std::int64_t t = 0; t < keep; ++t) c.keep_spectrum_trials.push_back(static_cast<std::uint64_t>(t));
+  return c;
+}
+
+store::RunHeader make_header(const Prepared& p, int threads) {
+  store::RunHeader h;
+  h.job_text = p.job.text;
+  h.job_canonical = p.job.canonical();
+  h.job_hash = p.job.hash();
+  h.expression = p.job.expression;
+  const auto& e = p.runners.front().expression();
+  h.self_adjoint = e.self_adjoint();
+  h.spectrum = p.runners.front().spectrum_kind();
+  h.metadata["job_name"] = p.job.name.empty() ? std::string("(unnamed)") : p.job.name;
+  h.metadata["seed"] = std::to_string(p.job.seed);
+  // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
+  // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
+  h.metadata["blas_threads"] = std::to_string(threads);
+  for (std::size_t i = 0; i < p.runners.size(); ++i) {
+    store::SizeLayout s;
+    s.n = p.job.sizes[i];
+    s.trials = p.job.trials[i];
+    s.trials_per_unit = p.job.trials_per_unit;
+    s.observe = p.configs[i];
+    h.sizes.push_back(std::move(s));
+  }
+  return h;
+}
+
+std::vector<Unit> all_units(const job::Job& job) {
+  std::vector<Unit> units;
+  for (std::size_t i = 0; i < job.sizes.size(); ++i) {
+    const std::int64_t t = job.trials[i], b = job.trials_per_unit;
+    const double n = static_cast<double>(job.sizes[i]);
+    for (std::int64_t u = 0; u * b < t; ++u) {
+      Unit unit{i, u, u * b, std::min(t, (u + 1) * b), 0.0};
+      // Dense work grows as N³ per trial (tridiagonal reduction, products, QR).
+      unit.cost = n * n * n * static_cast<double>(unit.end_trial - unit.first_trial);
+      units.push_back(unit);
+    }
+  }
+  // Biggest first (longest-processing-time order); ties in a fixed order.
+  std::stable_sort(units.begin(), units.end(), [](const Unit& a, const Unit& b) {
+    if (a.cost != b.cost) return a.cost > b.cost;
+    if (a.size_index != b.size_index) return a.size_index > b.size_index;
+    return a.unit < b.unit;
+  });
+  return units;
+}
+
+/// Runs one unit's trials; returns false (dropping the unit) if a stop was requested before it
+/// finished. `between_trials` lets rank 0 coordinate after every trial.
+template <class Between>
+bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
+                  Between&& between_trials) {
+  const auto start = std::chrono::steady_clock::now();
+  done.size_index = unit.size_index;
+  done.unit = unit.unit;
+  done.rank = rank;
+  done.obs = observe::start_observations(p.configs[unit.size_index]);
+  const auto& runner = p.runners[unit.size_index];
+  for (std::int64_t t = unit.first_trial; t < unit.end_trial; ++t) {
+    if (stop_requested()) return false;
+    model::record(done.obs, runner.run(p.job.seed, static_cast<std::uint64_t>(t)));
+    between_trials();
+  }
+  done.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  return true;
+}
+
+// ---- progress ----------------------------------------------------------------------------------
+
+class Progress {
+ public:
+  Progress(std::ostream& err, std::size_t total_units, std::int64_t total_trials,
+           std::size_t already_units, std::int64_t already_trials, double interval, bool quiet)
+      : err_(err), total_units_(total_units), total_trials_(total_trials),
+        done_units_(already_units), done_trials_(already_trials), start_trials_(already_trials),
+        interval_(interval), quiet_(quiet), tty_(isatty(STDERR_FILENO) != 0),
+        start_(std::chrono::steady_clock::now()), last_(start_) {}
+
+  void unit_done(std::int64_t trials) {
+    ++done_units_;
+    done_trials_ += trials;
+    maybe_print(false);
+  }
+  void tick() { maybe_print(false); }
+  void finish() {
+    maybe_print(true);
+    if (tty_ && !quiet_) err_ << "\n";
+  }
+
+ private:
+  void maybe_print(bool force) {
+    if (quiet_) return;
+    const auto now = std::chrono::steady_clock::now();
+    const double since = std::chrono::duration<double>(now - last_).count();
+    if (!force && since < (tty_ ? 0.5 : interval_)) return;
+    last_ = now;
+    const double elapsed = std::chrono::duration<double>(now - start_).count();
+    const double rate = elapsed > 0 ? static_cast<double>(done_trials_ - start_trials_) / elapsed : 0;
+    const double eta = rate > 0 ? static_cast<double>(total_trials_ - done_trials_) / rate : 0;
+    char line[200];
+    std::snprintf(line, sizeof line, "units %zu/%zu (%.0f%%), %.2f trials/s, ETA %s",
+                  done_units_, total_units_,
+                  total_units_ ? 100.0 * static_cast<double>(done_units_) / static_cast<double>(total_units_) : 100.0,
+                  rate, rate > 0 ? human_seconds(eta).c_str() : "unknown");
+    if (tty_) {
+      err_ << "\r" << line << "   " << std::flush;
+    } else {
+      err_ << "freegap: " << line << "\n" << std::flush;
+    }
+  }
+
+  std::ostream& err_;
+  std::size_t total_units_;
+  std::int64_t total_trials_;
+  std::size_t done_units_;
+  std::int64_t done_trials_, start_trials_;
+  double interval_;
+  bool quiet_, tty_;
+  std::chrono::steady_clock::time_point start_, last_;
+};
+
+// ---- rank 0: coordinate, compute, write --------------------------------------------------------
+
+/// Up to this many ranks rank 0 also computes. Beyond it, one rank's share of the work is at most
+/// 1/17 ≈ 6%, while a rank-0 trial of the largest size delays every answer by up to one trial.
+constexpr int kRankZeroComputesUpTo = 16;
+
+struct WorkerState {
+  bool finished = false;       // will send nothing more
+  bool told_to_stop = false;   // has been answered "no more work"
+  int outstanding = 0;         // units assigned and not returned
+};
+
+int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
+               const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts) {
+  const int ranks = comm_size(comm);
+  std::vector<WorkerState> workers(static_cast<std::size_t>(ranks));
+  workers[0].finished = true;  // rank 0 itself
+  std::size_t next = 0;
+  bool stopping = false;
+
+  std::size_t total_units = 0;
+  std::int64_t total_trials = 0, done_trials = 0;
+  std::size_t done_units = 0;
+  for (std::size_t i = 0; i < p.job.sizes.size(); ++i) {
+    const auto committed = file.committed(i);
+    total_units += committed.size();
+    total_trials += p.job.trials[i];
+    for (std::size_t u = 0; u < committed.size(); ++u) {
+      if (committed[u]) {
+        ++done_units;
+        const std::int64_t b = p.job.trials_per_unit;
+        done_trials += std::min<std::int64_t>(b, p.job.trials[i] - static_cast<std::int64_t>(u) * b);
+      }
+    }
+  }
+  Progress progress(err, total_units, total_trials, done_units, done_trials,
+                    options.progress_seconds, options.quiet);
+
+  auto write = [&](const UnitDone& d) {
+    store::UnitResult r;
+    r.size_index = d.size_index;
+    r.unit = d.unit;
+    r.obs = d.obs;
+    store::UnitProvenance where;
+    where.rank = d.rank;
+    where.host = hosts[static_cast<std::size_t>(d.rank)];
+    where.seconds = d.seconds;
+    file.write_unit(r, where);
+    progress.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
+  };
+
+  auto answer = [&](int worker) {
+    std::int64_t msg[2] = {-1, -1};
+    auto& w = workers[static_cast<std::size_t>(worker)];
+    if (!stopping && next < pending.size()) {
+      msg[0] = static_cast<std::int64_t>(pending[next].size_index);
+      msg[1] = pending[next].unit;
+      ++next;
+      ++w.outstanding;
+    } else {
+      w.told_to_stop = true;
+    }
+    MPI_Send(msg, 2, MPI_INT64_T, worker, kTagAssign, comm);
+    if (w.told_to_stop && w.outstanding == 0) w.finished = true;
+  };
+
+  // Handles every message that has arrived; with `block`, waits (polling) for at least one.
+  auto service = [&](bool block) {
+    for (;;) {
+      if (stop_requested()) stopping = true;
+      int flag = 0;
+      MPI_Status st;
+      MPI_Iprobe(MPI_ANY_SOURCE, MPI_ANY_TAG, comm, &flag, &st);
+      if (!flag) {
+        if (!block) return;
+        progress.tick();
+        std::this_thread::sleep_for(std::chrono::milliseconds(2));
+        continue;
+      }
+      block = false;
+      const int src = st.MPI_SOURCE;
+      auto& w = workers[static_cast<std::size_t>(src)];
+      if (st.MPI_TAG == kTagRequest) {
+        std::int32_t dummy = 0;
+        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagRequest, comm, MPI_STATUS_IGNORE);
+        answer(src);
+      } else if (st.MPI_TAG == kTagResult) {
+        int count = 0;
+        MPI_Get_count(&st, MPI_CHAR, &count);
+        std::vector<char> bytes(static_cast<std::size_t>(count));
+        MPI_Recv(bytes.data(), count, MPI_CHAR, src, kTagResult, comm, MPI_STATUS_IGNORE);
+        const UnitDone d = unpack(bytes, p.configs.at(
+            static_cast<std::size_t>(*reinterpret_cast<const std::uint64_t*>(bytes.data()))));
+        write(d);
+        --w.outstanding;
+        if (w.told_to_stop && w.outstanding == 0) w.finished = true;
+      } else if (st.MPI_TAG == kTagStopped) {
+        std::int32_t dummy = 0;
+        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagStopped, comm, MPI_STATUS_IGNORE);
+        stopping = true;
+        w.finished = true;
+      } else {
+        throw Error("unexpected message tag " + std::to_string(st.MPI_TAG) + " from rank " +
+                    std::to_string(src));
+      }
+    }
+  };
+
+  // Rank 0 computes too — taking units from the same queue and coordinating between its trials —
+  // as long as there are few ranks; with many, answering promptly matters more than its share of
+  // the work (src/run/SCALING.md).
+  const bool rank0_computes = ranks <= kRankZeroComputesUpTo;
+  for (;;) {
+    if (!rank0_computes) break;
+    service(false);
+    if (stopping || next >= pending.size()) break;
+    const Unit unit = pending[next++];
+    UnitDone d;
+    if (!compute_unit(p, unit, 0, d, [&] { service(false); })) {
+      stopping = true;
+      break;
+    }
+    write(d);
+  }
+  while (!std::all_of(workers.begin(), workers.end(), [](const WorkerState& w) { return w.finished; })) {
+    service(true);
+  }
+  progress.finish();
+  return (stopping && !file.complete()) ? kExitResumable : kExitFinished;
+}
+
+// ---- other ranks: compute ------------------------------------------------------------------------
+
+void work(const Prepared& p, MPI_Comm comm) {
+  const int me = comm_rank(comm);
+  std::int64_t assign[2];
+  MPI_Request req;
+  auto ask = [&] {
+    MPI_Irecv(assign, 2, MPI_INT64_T, 0, kTagAssign, comm, &req);
+    std::int32_t zero = 0;
+    MPI_Send(&zero, 1, MPI_INT32_T, 0, kTagRequest, comm);
+  };
+  auto wait_answer = [&] {
+    int done = 0;
+    while (!done) {
+      MPI_Test(&req, &done, MPI_STATUS_IGNORE);
+      if (!done) std::this_thread::sleep_for(std::chrono::milliseconds(2));
+    }
+  };
+  ask();
+  for (;;) {
+    wait_answer();
+    if (assign[0] < 0) return;  // no more work, or stopping
+    Unit unit;
+    unit.size_index = static_cast<std::size_t>(assign[0]);
+    unit.unit = assign[1];
+    const std::int64_t b = p.job.trials_per_unit;
+    unit.first_trial = unit.unit * b;
+    unit.end_trial = std::min(p.job.trials[unit.size_index], (unit.unit + 1) * b);
+    ask();  // ask for the next unit now, so the answer waits for us
+    UnitDone d;
+    if (!compute_unit(p, unit, me, d, [] {})) {
+      std::int32_t sig = g_stop_signal;
+      MPI_Send(&sig, 1, MPI_INT32_T, 0, kTagStopped, comm);
+      wait_answer();  // every request gets exactly one answer; take it and leave
+      return;
+    }
+    const auto bytes = pack(d);
+    MPI_Send(bytes.data(), static_cast<int>(bytes.size()), MPI_CHAR, 0, kTagResult, comm);
+  }
+}
+
+}  // namespace
+
+std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
+  const auto n = static_cast<double>(runner.size());
+  // Samplers hold at most one N×N complex factorisation input besides their output (QR works in
+  // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
+  // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
+  const double sampler_transient = 3.0 * 16.0 * n * n;
+  return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
+                                  sampler_transient + 8.0 * n + 64.0 * 1024 * 1024);
+}
+
+int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
+            std::ostream& out, std::ostream& err) {
+  const int me = comm_rank(comm);
+  const int ranks = comm_size(comm);
+  install_signal_handlers();
+  openblas_set_num_threads(std::max(1, options.threads));
+
+  // 1. Every rank parses the same job text (rank 0 reads it) and builds the same runners.
+  Prepared p;
+  std::string text, message;
+  int code = 0;
+  if (me == 0) {
+    std::ifstream in(job_path);
+    if (!in) {
+      code = kExitBadInput;
+      message = "cannot read job file '" + job_path + "': " + std::strerror(errno);
+    } else {
+      std::ostringstream ss;
+      ss << in.rdbuf();
+      text = ss.str();
+    }
+  }
+  if (auto [c, m] = agree(code, message, comm); c != 0) {
+    if (me == 0) err << "freegap: " << m << "\n";
+    return c;
+  }
+  broadcast_string(text, comm);
+  try {
+    p.job = job::parse_job(text, job_path);
+    if (!options.output.empty()) p.job.output = options.output;
+    p.runners = make_runners(p.job);
+    if (options.threads > 1) {
+      // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
+      // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
+      bool complex_svd = false;
+      for (const auto& m : p.job.matrices) {
+        complex_svd |= m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+      }
+      const auto& e = p.runners.front().expression();
+      complex_svd |= e.spectrum() == expr::Spectrum::singular_values && !e.is_real();
+      if (complex_svd) {
+        throw InputError("--threads " + std::to_string(options.threads) +
+                         ": this job needs complex singular value decompositions, which crash "
+                         "with more than one OpenBLAS thread in the OpenBLAS shipped with "
+                         "Debian 12; use --threads 1 and more ranks instead");
+      }
+    }
+  } catch (const InputError& e) {
+    code = kExitBadInput;
+    message = e.what();
+  }
+  if (auto [c, m] = agree(code, message, comm); c != 0) {
+    if (me == 0) err << "freegap: " << m << "\n";
+    return c;
+  }
+
+  // 2. Memory: refuse a size whose estimated peak does not fit a rank, before any work.
+  {
+    std::size_t limit = static_cast<std::size_t>(p.job.memory_per_rank_bytes);
+    std::string source = "memory_per_rank in the job";
+    if (limit == 0) {
+      const int local = ranks_on_this_node(comm);
+      limit = available_memory_bytes() / static_cast<std::size_t>(std::max(1, local));
+      source = "this node's available memory shared by " + std::to_string(local) + " rank(s)";
+    }
+    std::string msg;
+    int c = 0;
+    for (const auto& r : p.runners) {
+      const auto need = estimate_peak_bytes(r);
+      if (limit > 0 && need > limit) {
+        c = kExitBadInput;
+        msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
+              human_bytes(static_cast<double>(need)) + " per rank (estimate), more than the " +
+              human_bytes(static_cast<double>(limit)) + " from " + source +
+              "; remove the size, run fewer ranks per node, or raise memory_per_rank";
+        break;
+      }
+    }
+    if (auto [cc, m] = agree(c, msg, comm); cc != 0) {
+      if (me == 0) err << "freegap: " << m << "\n";
+      return cc;
+    }
+  }
+
+  if (options.explain) {
+    if (me == 0) {
+      for (std::size_t i = 0; i < p.runners.size(); ++i) {
+        out << p.runners[i].plan().explain();
+        out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
+            << "; estimated peak per rank: "
+            << human_bytes(static_cast<double>(estimate_peak_bytes(p.runners[i]))) << "\n\n";
+      }
+    }
+    return kExitFinished;
+  }
+
+  // 3. Rank 0 opens or creates the run file and fixes the bin edges; everyone learns the edges
+  //    and which units are still to do.
+  std::optional<store::RunFile> file;
+  std::vector<double> edges;
+  std::vector<Unit> pending;
+  code = 0;
+  message.clear();
+  if (me == 0) {
+    try {
+      namespace fs = std::filesystem;
+      const std::string& path = p.job.output;
+      if (options.fresh && fs::exists(path)) fs::remove(path);
+      const bool resume = fs::exists(path);
+      if (resume) {
+        // The bin edges of a resumed run are the file's (an automatic range was fixed by the
+        // first session's pilot trial); everything else must match the job.
+        edges = store::RunFile::open_read(path).header().sizes.front().observe.bin_edges;
+      } else {
+        edges = p.job.observe.auto_range
+                    ? pilot_edges(p.job, p.runners.front())
+                    : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
+      }
+      for (std::size_t i = 0; i < p.runners.size(); ++i) {
+        p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+      }
+      if (resume) {
+        file.emplace(store::RunFile::open_for_resume(path, make_header(p, options.threads)));
+        const auto& meta = file->header().metadata;
+        const auto it = meta.find("blas_threads");
+        const std::string mine = std::to_string(options.threads);
+        if (it != meta.end() && it->second != mine) {
+          throw InputError("run file '" + path + "' was written with " + it->second +
+                           " BLAS thread(s) per rank and this run asks for " + mine +
+                           "; the last bits of the results depend on it, so resume with --threads " +
+                           it->second + " or start over with --fresh");
+        }
+      } else {
+        file.emplace(store::RunFile::create(path, make_header(p, options.threads)));
+      }
+    } catch (const InputError& e) {
+      code = kExitBadInput;
+      message = e.what();
+    } catch (const std::exception& e) {
+      code = kExitFailure;
+      message = e.what();
+    }
+  }
+  if (auto [c, m] = agree(code, message, comm); c != 0) {
+    if (me == 0) err << "freegap: " << m << "\n";
+    return c;
+  }
+  {
+    long long ne = static_cast<long long>(edges.size());
+    MPI_Bcast(&ne, 1, MPI_LONG_LONG, 0, comm);
+    edges.resize(static_cast<std::size_t>(ne));
+    MPI_Bcast(edges.data(), static_cast<int>(ne), MPI_DOUBLE, 0, comm);
+    p.configs.clear();
+    for (std::size_t i = 0; i < p.runners.size(); ++i) {
+      p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+    }
+  }
+  std::vector<std::string> hosts(static_cast<std::size_t>(ranks));
+  {
+    std::string mine = host_name();
+    for (int r = 0; r < ranks; ++r) {
+      std::string h = mine;
+      long long n = static_cast<long long>(h.size());
+      MPI_Bcast(&n, 1, MPI_LONG_LONG, r, comm);
+      h.resize(static_cast<std::size_t>(n));
+      MPI_Bcast(h.data(), static_cast<int>(n), MPI_CHAR, r, comm);
+      hosts[static_cast<std::size_t>(r)] = h;
+    }
+  }
+
+  int status = kExitFinished;
+  if (me == 0) {
+    try {
+      std::vector<std::vector<bool>> committed;
+      for (std::size_t i = 0; i < p.runners.size(); ++i) committed.push_back(file->committed(i));
+      for (const auto& u : all_units(p.job)) {
+        if (!committed[u.size_index][static_cast<std::size_t>(u.unit)]) pending.push_back(u);
+      }
+      file->begin_session(ranks, hosts);
+      status = coordinate(p, *file, pending, comm, options, err, hosts);
+      file->end_session(status == kExitFinished ? "finished" : "interrupted");
+      if (status == kExitResumable) {
+        err << "freegap: stopped by signal " << static_cast<int>(g_stop_signal)
+            << "; committed units are in '" << p.job.output
+            << "'; run the same command again to resume\n";
+      } else if (!options.quiet) {
+        out << "freegap: run complete: " << p.job.output << "\n";
+      }
+    } catch (const std::exception& e) {
+      err << "freegap: " << e.what() << "\n";
+      MPI_Abort(comm, kExitFailure);
+    }
+  } else {
+    work(p, comm);
+  }
+  MPI_Bcast(&status, 1, MPI_INT, 0, comm);
+  return status;
+}
+
+}  // namespace freegap::run
