@@ -45,6 +45,11 @@ struct RunOptions {
 /// spectrum, plus a fixed allowance for the process itself.
 std::size_t estimate_peak_bytes(const model::SizeRunner& runner);
 
+/// Installs the SIGUSR1/SIGTERM/SIGINT handlers that turn a signal into a clean stop. run_job
+/// installs them too; main calls this before MPI_Init so a signal forwarded during start-up does
+/// not kill the process.
+void install_signal_handlers();
+
 /// Runs (or resumes) a job on the ranks of `comm`. Every rank calls it with the same arguments.
 /// Returns the exit status; messages go to `err` on rank 0 only.
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,

@@ -166,6 +166,17 @@ class RunFile {
   std::unique_ptr<Impl> impl_;
 };
 
+/// The header of an existing run file, read-only, after the checks of open_for_resume that do not
+/// need the job (kind, major version), with the messages of a resume. For a runner that must
+/// look at the file (its bin edges, its metadata) before deciding to open it for writing.
+RunHeader read_header_for_resume(const std::string& path);
+
+/// Throws InputError unless `path` may be deleted to start a run over (--fresh): it must not
+/// exist, or be a freegap run file (possibly truncated or damaged so that HDF5 cannot open it)
+/// that no other process holds open. A directory, a foreign HDF5 file or any other file is
+/// refused.
+void check_replaceable(const std::string& path);
+
 /// "eigenvalues" or "singular_values", as stored in the file.
 std::string spectrum_name(observe::SpectrumKind kind);
 

@@ -2,6 +2,7 @@
 #include <CLI/CLI.hpp>
 #include <algorithm>
 #include <chrono>
+#include <cmath>
 #include <mpi.h>
 #include <cstdio>
 #include <iostream>
@@ -181,7 +182,17 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(1, 1024));
   run_cmd->add_option("--progress-every", run_options.progress_seconds,
                       "Seconds between progress lines when stderr is not a terminal")
-      ->check(CLI::PositiveNumber);
+      ->check(CLI::Validator(
+          [](std::string& value) -> std::string {
+            try {
+              std::size_t used = 0;
+              const double v = std::stod(value, &used);
+              if (used == value.size() && v > 0 && std::isfinite(v)) return {};
+            } catch (const std::exception&) {
+            }
+            return "must be a positive number of seconds (got " + value + ")";
+          },
+          "SECONDS>0"));
   run_cmd->add_flag("-q,--quiet", run_options.quiet, "No progress output");
 
   std::string inspect_path;
@@ -193,6 +204,20 @@ int main(int argc, char** argv) {
   inspect_cmd->add_flag("--moments", inspect_moments,
                         "Also print each size's moments, extremes and norm with standard errors");
 
+  // An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
+  // subcommand is required).
+  if (argc > 1 && argv[1][0] != '-') {
+    const std::string first = argv[1];
+    bool known = false;
+    for (const auto* sub : app.get_subcommands([](const CLI::App*) { return true; })) {
+      known |= sub->get_name() == first;
+    }
+    if (!known) {
+      std::cerr << "freegap: unknown command '" << first
+                << "'; the commands are sample, run and inspect (see freegap --help)\n";
+      return kExitBadInput;
+    }
+  }
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -200,6 +225,7 @@ int main(int argc, char** argv) {
     return rc == 0 ? 0 : kExitBadInput;
   }
   if (*run_cmd) {
+    freegap::run::install_signal_handlers();
     int provided = 0;
     MPI_Init_thread(&argc, &argv, MPI_THREAD_FUNNELED, &provided);
     int status = freegap::run::kExitFailure;

@@ -30,6 +30,8 @@ volatile std::sig_atomic_t g_stop_signal = 0;
 
 extern "C" void on_stop_signal(int sig) { g_stop_signal = sig; }
 
+}  // namespace
+
 void install_signal_handlers() {
   struct sigaction sa {};
   sa.sa_handler = on_stop_signal;
@@ -39,6 +41,8 @@ void install_signal_handlers() {
   sigaction(SIGTERM, &sa, nullptr);
   sigaction(SIGINT, &sa, nullptr);
 }
+
+namespace {
 
 bool stop_requested() { return g_stop_signal != 0; }
 
@@ -728,34 +732,37 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     try {
       namespace fs = std::filesystem;
       const std::string& path = p.job.output;
-      if (options.fresh && fs::exists(path)) fs::remove(path);
-      const bool resume = fs::exists(path);
+      if (options.fresh) {
+        store::check_replaceable(path);  // never delete anything but a run file
+        fs::remove(path);
+      }
+      const bool resume = fs::exists(path) || fs::is_symlink(path);
+      const std::string threads = std::to_string(options.threads);
       if (resume) {
-        // The bin edges of a resumed run are the file's (an automatic range was fixed by the
-        // first session's pilot trial); everything else must match the job.
-        edges = store::RunFile::open_read(path).header().sizes.front().observe.bin_edges;
+        // Read-only first: the bin edges of a resumed run are the file's (an automatic range was
+        // fixed by the first session's pilot trial), and the BLAS thread count must match before
+        // the file is opened for writing.
+        const store::RunHeader found = store::read_header_for_resume(path);
+        const auto it = found.metadata.find("blas_threads");
+        if (found.job_hash == p.job.hash() && it != found.metadata.end() &&
+            it->second != threads) {
+          throw InputError("run file '" + path + "' was written with " + it->second +
+                           " BLAS thread(s) per rank and this run asks for " + threads +
+                           "; the last bits of the results depend on it, so resume with --threads " +
+                           it->second + " or start over with --fresh");
+        }
+        edges = found.sizes.empty() ? std::vector<double>{} : found.sizes.front().observe.bin_edges;
       } else {
         edges = p.job.observe.auto_range
                     ? pilot_edges(p.job, p.runners.front())
                     : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
       }
+      if (edges.size() < 2) edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
       for (std::size_t i = 0; i < p.runners.size(); ++i) {
         p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
       }
-      if (resume) {
-        file.emplace(store::RunFile::open_for_resume(path, make_header(p, options.threads)));
-        const auto& meta = file->header().metadata;
-        const auto it = meta.find("blas_threads");
-        const std::string mine = std::to_string(options.threads);
-        if (it != meta.end() && it->second != mine) {
-          throw InputError("run file '" + path + "' was written with " + it->second +
-                           " BLAS thread(s) per rank and this run asks for " + mine +
-                           "; the last bits of the results depend on it, so resume with --threads " +
-                           it->second + " or start over with --fresh");
-        }
-      } else {
-        file.emplace(store::RunFile::create(path, make_header(p, options.threads)));
-      }
+      file.emplace(resume ? store::RunFile::open_for_resume(path, make_header(p, options.threads))
+                          : store::RunFile::create(path, make_header(p, options.threads)));
     } catch (const InputError& e) {
       code = kExitBadInput;
       message = e.what();

@@ -854,6 +854,53 @@ RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expec
   return RunFile(load(path, Purpose::resume, H5F_ACC_RDWR));
 }
 
+RunHeader read_header_for_resume(const std::string& path) {
+  return load(path, Purpose::resume, H5F_ACC_RDONLY)->header;
+}
+
+void check_replaceable(const std::string& path) {
+  h5::quiet();
+  struct stat info {};
+  if (::stat(path.c_str(), &info) != 0) return;  // nothing there: nothing to replace
+  const std::string refuse = "--fresh replaces only freegap run files; choose another output path";
+  if (!S_ISREG(info.st_mode)) {
+    throw InputError("'" + path + "' is not a freegap run file (not a regular file); " + refuse);
+  }
+  {
+    std::ifstream in(path, std::ios::binary);
+    if (!in || !has_hdf5_signature(in, static_cast<std::uint64_t>(info.st_size))) {
+      throw InputError("'" + path + "' is not a freegap run file (not an HDF5 file); " + refuse);
+    }
+  }
+  const hid_t id = H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT);
+  if (id < 0) {
+    const auto stack = h5::error_stack();
+    H5Eclear2(H5E_DEFAULT);
+    const bool locked = std::any_of(stack.begin(), stack.end(), [](const std::string& line) {
+      return line.find("unable to lock") != std::string::npos;
+    });
+    if (locked) {
+      throw InputError("run file '" + path +
+                       "' is open in another process (HDF5 could not lock it); wait for that "
+                       "run to finish or use another output path");
+    }
+    return;  // an HDF5 file HDF5 cannot open (truncated, damaged): a run file may be replaced
+  }
+  const Id file(id, H5Fclose);
+  if (!h5::has_attribute(file.get(), "file_kind")) {
+    throw InputError("'" + path + "' is not a freegap run file (file_kind is missing); " + refuse);
+  }
+  std::string kind(1, '?');  // not a literal assignment: GCC 12 -Wrestrict false positive
+  try {
+    kind = h5::read_string_attribute(file.get(), "file_kind", Where{path});
+  } catch (const Error&) {
+  }
+  if (kind != kFileKind) {
+    throw InputError("'" + path + "' is not a freegap run file (file_kind is \"" + kind + "\"); " +
+                     refuse);
+  }
+}
+
 RunFile RunFile::open_read(const std::string& path) {
   return RunFile(load(path, Purpose::read, H5F_ACC_RDONLY));
 }
