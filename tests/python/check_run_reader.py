@@ -15,8 +15,10 @@ and while the writer is still running:
 then lets the run finish and checks the rows read live are unchanged in the finished file.
 """
 import os
+import signal
 import re
 import sys
+import time
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import runhelp as rh  # noqa: E402  (sets HDF5_USE_FILE_LOCKING=FALSE for this process)
@@ -134,6 +136,15 @@ def attempt(c, exe, d, trials):
     if not live:
         rh.reap(proc)
         return None
+    # Freeze the writer (SIGSTOP) so it stays live, holding its file open and its lock, for
+    # every read below; it continues (SIGCONT) after them. Without this the run could finish
+    # between a read and the next, and the checks would race it.
+    os.kill(proc.pid, signal.SIGSTOP)
+    state = rh.committed_state(out)
+    if proc.poll() is not None or state is None or state[0] >= state[1]:
+        os.kill(proc.pid, signal.SIGCONT)
+        rh.reap(proc)
+        return None
     # SCHEMA.md: a reader of a live file sees it "as of some earlier flush; that is consistent
     # for committed units but not guaranteed in general". An HDF5 error from a read that raced a
     # flush is therefore retried (and printed); the checks themselves are never retried.
@@ -143,15 +154,16 @@ def attempt(c, exe, d, trials):
             seen = read_live(c, out)
             break
         except Exception as e:  # noqa: BLE001
+            # Frozen inside a flush: let the writer finish it, freeze it again, read again.
             print("  -- live read raced a flush (%s: %s); reading again" % (type(e).__name__, e))
+            os.kill(proc.pid, signal.SIGCONT)
+            time.sleep(0.02)
+            os.kill(proc.pid, signal.SIGSTOP)
     c.check(seen is not None, "the live file could be read (3 tries)")
     seen = seen or {}
     p_open = rh.run([exe, "inspect", out], d, env=rh.child_env(file_locking=False))
     p_locked = rh.run([exe, "inspect", out], d, env=rh.child_env())
-    still_live = proc.poll() is None
-    if not still_live:
-        rh.reap(proc)
-        return None
+    os.kill(proc.pid, signal.SIGCONT)
     c.equal(p_open.returncode, 0, "inspect of the live file with HDF5_USE_FILE_LOCKING=FALSE exits 0")
     c.check(re.search(r"^status:\s+incomplete", p_open.stdout, re.M) is not None,
             "inspect of the live file says incomplete", p_open.stdout + p_open.stderr)
