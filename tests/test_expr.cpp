@@ -541,3 +541,28 @@ TEST(ExprEndToEnd, FreeSumWithProjectSamplers) {
   Eigen::JacobiSVD<CMatrix> svd(ref);
   EXPECT_NEAR(sv[0], svd.singularValues()[0], 1e-10 * sv[0]);
 }
+
+namespace {
+
+// The public expansion: coefficients and words of small expressions, worked by hand.
+TEST(ExprExpansion, MonomialsOfSmallExpressions) {
+  const std::vector<en::MatrixSpec> decl = {spec("X", en::Kind::gue), spec("U", en::Kind::haar_unitary),
+                                            spec("Y", en::Kind::gue)};
+  auto words = [&](const std::string& text) {
+    std::map<std::vector<std::pair<int, bool>>, double> out;
+    for (const auto& m : fe::Expression(text, decl).expansion()) out[m.letters] = m.coefficient;
+    return out;
+  };
+  using W = std::vector<std::pair<int, bool>>;
+  EXPECT_EQ(words("2 X + 1"), (std::map<W, double>{{W{}, 1.0}, {W{{0, false}}, 2.0}}));
+  EXPECT_EQ(words("X Y + Y X"),
+            (std::map<W, double>{{W{{0, false}, {2, false}}, 1.0}, {W{{2, false}, {0, false}}, 1.0}}));
+  EXPECT_EQ(words("U X U^*"),
+            (std::map<W, double>{{W{{1, false}, {0, false}, {1, true}}, 1.0}}));
+  EXPECT_EQ(words("U U^* + X - X"), (std::map<W, double>{{W{}, 1.0}}));  // U U^* = I; X − X = 0
+  EXPECT_EQ(words("(X + 1)^2"),
+            (std::map<W, double>{{W{}, 1.0}, {W{{0, false}}, 2.0}, {W{{0, false}, {0, false}}, 1.0}}));
+  EXPECT_THROW(fe::Expression("(X + Y)^20", decl).expansion(1000), fe::ExprError);
+}
+
+}  // namespace

@@ -92,6 +92,14 @@ struct CheckOptions {
   std::size_t max_monomials = 100000;
 };
 
+/// One term c·w of an expression expanded as a noncommutative polynomial in the declared
+/// matrices: `letters` holds (index into declared(), adjointed) pairs in product order; an empty
+/// word is the identity. A self-adjoint matrix's letter is never marked adjointed.
+struct Monomial {
+  double coefficient = 0.0;
+  std::vector<std::pair<int, bool>> letters;
+};
+
 namespace detail {
 struct ExpressionData;
 struct PlanData;
@@ -116,6 +124,10 @@ class Expression {
   const std::string& note() const;
   /// The symbolic shape, e.g. "N×N".
   std::string shape() const;
+  /// The expression expanded into monomials (normal form of the self-adjointness check: U U^*
+  /// of a unitary cancels, adjacent diagonal letters are sorted), terms with zero coefficient
+  /// dropped. Throws ExprError if the expansion has more than `max_monomials` terms.
+  std::vector<Monomial> expansion(std::size_t max_monomials = 100000) const;
 
  private:
   friend class Plan;

@@ -68,6 +68,10 @@ bool Expression::self_adjoint() const { return data_->self_adjoint; }
 Spectrum Expression::spectrum() const { return data_->spectrum; }
 bool Expression::is_real() const { return data_->real; }
 const std::string& Expression::note() const { return data_->note; }
+std::vector<Monomial> Expression::expansion(std::size_t max_monomials) const {
+  return detail::expand_monomials(*data_, max_monomials);
+}
+
 std::string Expression::shape() const {
   const auto& s = data_->shapes[data_->root];
   return data_->dim_names[s.rows] + "×" + data_->dim_names[s.cols];

@@ -61,4 +61,7 @@ void check_shapes(ExpressionData& data);
 /// Decides self-adjointness by expansion into words; returns false and sets `note` past the cap.
 bool decide_self_adjoint(ExpressionData& data, std::size_t max_monomials);
 
+/// The expansion behind Expression::expansion; throws ExprError past the cap.
+std::vector<Monomial> expand_monomials(const ExpressionData& data, std::size_t max_monomials);
+
 }  // namespace freegap::expr::detail

@@ -531,5 +531,24 @@ bool decide_self_adjoint(ExpressionData& data, std::size_t max_monomials) {
   }
 }
 
+std::vector<Monomial> expand_monomials(const ExpressionData& data, std::size_t max_monomials) {
+  const Algebra algebra(data, max_monomials);
+  Poly p;
+  try {
+    p = algebra.expand(data.root);
+  } catch (const CapReached&) {
+    throw ExprError("the expansion exceeds " + std::to_string(max_monomials) + " monomials", 0);
+  }
+  std::vector<Monomial> out;
+  for (const auto& [w, c] : p) {
+    if (c == 0.0) continue;
+    Monomial m;
+    m.coefficient = c;
+    for (const int l : w) m.letters.emplace_back(l / 2, (l & 1) != 0);
+    out.push_back(std::move(m));
+  }
+  return out;
+}
+
 }  // namespace detail
 }  // namespace freegap::expr

@@ -1,0 +1,159 @@
+// Tridiagonal β-ensemble models and observations without diagonalising, for sizes dense methods
+// cannot reach (N up to 10^7 in O(N) memory).
+//
+// Models (Dumitriu & Edelman 2002, "Matrix models for beta ensembles", J. Math. Phys. 43(11);
+// shared/reference/check-values-and-methods.md §4f), normalised like the dense samplers of
+// ensembles.hpp so the same limit laws and finite-N facts apply:
+//
+//   hermite(β)    X = √(2/β)·H_β/√N, H_β = (1/√2)·tridiag(N(0,2) iid; χ_{β(N−1)}, …, χ_β), i.e.
+//                 diag_i = √(2/β)·g_i/√N, off_i = χ_{β(N−1−i)}/√(βN) (0-based i). β = 2 has the
+//                 eigenvalue law of the dense `gue`, β = 1 that of the dense `goe` (diagonal
+//                 variance 2: E tr X² = 1 + 1/N); any β > 0: E tr X² = 1 + (2/β − 1)/N.
+//                 Limit: semicircle on [−2, 2].
+//   laguerre(β,c) W = B Bᵀ/(βM), M = ensembles::companion_size(N, c) = round(N/c), B lower
+//                 bidiagonal with B_ii = χ_{β(M−i)}, B_{i+1,i} = χ_{β(N−1−i)} (Dumitriu & Edelman's
+//                 a = βM/2). β = 1 has the eigenvalue law of the dense `wishart_real`
+//                 (W = XXᵀ/M, X N×M), β = 2 that of `wishart_complex`. The tridiagonal entries
+//                 come straight from B (diag B_ii² + B_{i,i−1}², off B_ii·B_{i+1,i}); no dense
+//                 matrix is formed. Limit: Marchenko–Pastur(c).
+//                 When N > M (c > 1) the model needs a > β(N−1)/2, which fails; then the nonzero
+//                 eigenvalues of XX^* are those of the M×M matrix X^*X, so the first M rows hold
+//                 the M×M model with the roles of N and M swapped (B_ii = χ_{β(N−i)},
+//                 B_{i+1,i} = χ_{β(M−1−i)}), still divided by βM, and the last N − M rows are exact
+//                 zeros decoupled from it (zero off-diagonal entries). The law is then exactly
+//                 that of the dense sampler, including the N − M zero eigenvalues.
+//
+// Random numbers: one rng::Stream keyed {seed, spec.name, N, trial}, drawn in this order:
+// hermite — the N diagonal normals g_0..g_{N−1}, then the N − 1 chi variates off_0..off_{N−2};
+// laguerre — for i = 0..m−1 the square B_ii², then (if i < m − 1) B_{i+1,i}², with m = min(N, M).
+// The tridiagonal and dense samplers with the same name give matrices with the same eigenvalue
+// law, not the same matrices.
+//
+// Observations: #{λ < x} by the Sturm count (the inertia of the LDLᵀ factorisation of T − xI,
+// Sylvester's law; bisection on it: Barth, Martin & Wilkinson 1967), histograms from counts at the
+// bin edges (the same bin rule as observe::Histogram), the extremes by bisection, the moments
+// (1/N) Tr T^k from the entries, and the operator norm max(|λ_min|, |λ_max|).
+#pragma once
+
+#include <Eigen/Core>
+#include <cstdint>
+#include <span>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "freegap/observe.hpp"
+#include "freegap/rng.hpp"
+
+namespace freegap::tridiagonal {
+
+using Index = Eigen::Index;
+
+enum class Family { hermite, laguerre };
+
+/// One tridiagonal model. `name` keys its random stream, like a dense matrix's name.
+struct ModelSpec {
+  Family family = Family::hermite;
+  double beta = 2.0;   ///< β > 0 (1: real, 2: complex, any other value allowed)
+  double ratio = 1.0;  ///< Laguerre only: c = N/M > 0
+  std::string name;    ///< stream name
+};
+
+/// A real symmetric tridiagonal matrix: diag.size() == N, off.size() == N − 1.
+struct Tridiagonal {
+  Eigen::VectorXd diag;
+  Eigen::VectorXd off;
+
+  Index size() const { return diag.size(); }
+};
+
+/// Checks a spec (β and ratio finite and > 0); throws InputError naming the key and the fix.
+void validate(const ModelSpec& spec);
+
+/// Samples the normalised model at size n ≥ 1 for (seed, trial). Deterministic in
+/// (seed, spec.name, n, trial). Throws InputError on a bad spec or size (n < 1, n ≥ 2^32, or a
+/// Laguerre M that rounds to 0).
+Tridiagonal sample(const ModelSpec& spec, Index n, std::uint64_t seed, std::uint64_t trial);
+
+/// The matrix scale·T + shift·I, itself tridiagonal (diag scale·d + shift, off scale·e). Its
+/// eigenvalues are scale·λ + shift; a negative scale is fine (Sturm counts depend on off² only).
+Tridiagonal affine(const Tridiagonal& t, double scale, double shift);
+
+/// Gamma(shape, scale 1) variate, shape > 0: Marsaglia & Tsang (2000), "A simple method for
+/// generating gamma variables", ACM TOMS 26(3), for shape ≥ 1; for shape < 1,
+/// Gamma(shape + 1)·U^(1/shape) (the boost noted in the same paper). Deterministic in the stream.
+double gamma_variate(rng::Stream& stream, double shape);
+/// Square of a chi variate with k > 0 degrees of freedom (not necessarily an integer):
+/// χ²_k = 2·Gamma(k/2).
+double chi_square_variate(rng::Stream& stream, double k);
+
+/// #{λ < x} for every point x, by Sturm counts with the ratio recurrence
+/// q_i = (d_i − x) − e_{i−1}²/q_{i−1} (the LDLᵀ pivots of T − xI; counting q_i < 0), vectorised
+/// across points. A pivot that is exactly 0 is replaced by +pivmin (tiny): this is the count of
+/// T − xI + pivmin·e_i e_iᵀ, a positive semidefinite perturbation, so an eigenvalue exactly at x is
+/// not counted as below it — the rule `#{λ < x}` holds at ties, matching observe::Histogram.
+/// The ratio form keeps the pivots (not the determinants, which overflow) and an infinite pivot
+/// after a zero one propagates harmlessly (e²/∞ = 0) — Kahan's scaled-Sturm-count practice
+/// (Kahan 1966, "Accurate eigenvalues of a symmetric tri-diagonal matrix", from memory). Entries
+/// beyond 2^±400, whose squares could leave the double range, are first scaled by an exact power
+/// of two (points too). Entries must be finite. Points may be in any order (±Inf allowed); NaN
+/// points are refused (InputError). O(N · points), vectorised 4-wide on AVX2 CPUs.
+std::vector<std::int64_t> counts_below(const Tridiagonal& t, std::span<const double> points);
+
+/// Gershgorin interval [low, high] containing every eigenvalue (common practice).
+std::pair<double, double> gershgorin(const Tridiagonal& t);
+
+/// Smallest and largest eigenvalue, each to within tolerance/2 of the eigenvalue of a matrix
+/// within a few ulps of T (the Sturm count is backward stable: Kahan 1966; Demmel, Dhillon & Ren
+/// 1995, from memory), by multisection: each pass evaluates 8 points per unconverged extreme in
+/// one vectorised Sturm sweep, shrinking each bracket 9-fold. Start: Gershgorin. A tolerance
+/// below 4 ulps of the spectral bound is raised to it. Throws InputError if tolerance is not > 0
+/// or the Gershgorin bound overflows double. O(N·log(width/tolerance)/log 9).
+struct Extremes {
+  double min = 0.0;
+  double max = 0.0;
+};
+Extremes extremes(const Tridiagonal& t, double tolerance);
+double smallest(const Tridiagonal& t, double tolerance);
+double largest(const Tridiagonal& t, double tolerance);
+/// Operator norm ‖T‖₂ = max(|λ_min|, |λ_max|), from `extremes` (same tolerance).
+double operator_norm(const Tridiagonal& t, double tolerance);
+
+/// m_k = (1/N) Tr T^k for k = 0..max_moment (≤ observe::kMaxMomentLimit), from the entries.
+/// Method: the rows of T^j (bandwidth j) for j ≤ ⌈K/2⌉ by T^{j+1} = T^j·T on the upper half-band,
+/// and Tr T^{2j} = ‖T^j‖_F², Tr T^{2j+1} = ⟨T^j, T^{j+1}⟩_F. Cost O(N·K²): ≈ 0.6·N·K² flops
+/// (not O(N·K); measured in RESULTS-tridiagonal.md), memory O(N + K·B) (rows in blocks of
+/// B = 2048 with a margin of ⌈K/2⌉ + 2, so each block's rows are exact).
+/// Accuracy: T is scaled by a power of two 2^e ≥ its Gershgorin bound (exact), the per-row terms
+/// are summed with Neumaier's (1974) compensated sum; a moment too large for double is ±Inf.
+/// Throws InputError for max_moment outside 0..kMaxMomentLimit or a non-finite entry.
+std::vector<double> moments(const Tridiagonal& t, int max_moment);
+
+/// How observe_trial transforms the sampled matrix: P = scale·T + shift·I (the runner's affine
+/// expressions such as `2 X + 1`), and how precisely it locates the extremes.
+struct TrialOptions {
+  double scale = 1.0;
+  double shift = 0.0;
+  /// Bisection tolerance for min and max (absolute, in the units of P).
+  double extreme_tolerance = 1e-10;
+};
+
+/// One trial observed without diagonalising, into the same record and histogram the dense path
+/// produces (observe::observe_trial on the eigenvalues of P): histogram from Sturm counts at the
+/// bin edges, moments from `moments`, min/max by bisection (started from the bins the histogram
+/// found them in), norm = max(|min|, |max|). A non-finite entry, a moment that overflows double, or
+/// Sturm counts that are not monotone in x record a failed trial (nothing added to `into`). If the
+/// configuration keeps this trial's spectrum, all eigenvalues are computed by LAPACK dsterf
+/// (O(N²) time: 110 s at N = 10^5) and kept ascending. Throws InputError for a bad configuration,
+/// a config.kind other than eigenvalues, a histogram that does not match the bins, or a
+/// non-finite scale/shift.
+observe::TrialRecord observe_trial(const ModelSpec& spec, Index n, std::uint64_t seed,
+                                   std::uint64_t trial, const observe::ObserveConfig& config,
+                                   observe::Histogram& into, const TrialOptions& options = {});
+
+/// The same for a matrix already sampled (and mapped): the observation half of observe_trial.
+observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
+                                    const observe::ObserveConfig& config, observe::Histogram& into,
+                                    double extreme_tolerance);
+
+}  // namespace freegap::tridiagonal
