@@ -425,7 +425,7 @@ TEST(JobErrors, MissingRequiredKeys) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nratio = 2\n"),
             "study.toml:5: matrices.X.ensemble: missing; add ensemble = \"...\" (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre)");
   EXPECT_EQ(error_of("seed = 1\nsizes = [10]\ntrials = 2\nexpression = \"  \"\n"),
             "study.toml:4: expression: is empty; write the expression to study, e.g. expression "
             "= \"X + Y\"");
@@ -435,7 +435,7 @@ TEST(JobErrors, UnknownEnsemble) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nensemble = \"gaussian\"\n"),
             "study.toml:6: matrices.X.ensemble: unknown ensemble 'gaussian' (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre)");
 }
 
 TEST(JobErrors, BadMatrixParameters) {

@@ -16,6 +16,12 @@
 //   haar_unitary        U Haar on U(N), by corrected QR (default) or by the polar factor.
 //   haar_orthogonal     O Haar on O(N), by corrected QR (default) or by the polar factor.
 //   diagonal            deterministic real diagonal matrix with a given law (see DiagonalLaw).
+//   beta_hermite        the β-Hermite eigenvalue law, any β > 0 (β = 1, 2: the GOE and GUE laws
+//                       above), normalised to the semicircle on [−2, 2]. Only its tridiagonal
+//                       model exists (Dumitriu & Edelman 2002; include/freegap/tridiagonal.hpp),
+//                       so it may appear only alone or as a·X + b in an expression.
+//   beta_laguerre       the β-Laguerre law, any β > 0 and ratio c (β = 1, 2: real and complex
+//                       Wishart), normalised to Marchenko–Pastur(c); tridiagonal model only.
 //
 // The random numbers of matrix `name` in trial t at size N come from the stream
 // rng::StreamKey{seed, name, N, t} and from nothing else.
@@ -42,6 +48,8 @@ enum class Kind {
   haar_unitary,
   haar_orthogonal,
   diagonal,
+  beta_hermite,   ///< β-Hermite eigenvalue law (any β > 0); tridiagonal model only
+  beta_laguerre,  ///< β-Laguerre eigenvalue law (any β > 0, ratio c); tridiagonal model only
 };
 
 /// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
@@ -85,7 +93,8 @@ struct DiagonalLaw {
 struct MatrixSpec {
   std::string name;
   Kind kind = Kind::gue;
-  double ratio = 1.0;  ///< c = N/M for wishart_* and ginibre_* (ginibre: 1 = square)
+  double ratio = 1.0;  ///< c = N/M for wishart_*, ginibre_* (ginibre: 1 = square), beta_laguerre
+  double beta = 2.0;   ///< β for beta_hermite and beta_laguerre
   HaarMethod haar = HaarMethod::qr;
   DiagonalLaw diagonal;
 };

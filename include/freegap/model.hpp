@@ -11,6 +11,7 @@
 #include "freegap/ensembles.hpp"
 #include "freegap/expr.hpp"
 #include "freegap/observe.hpp"
+#include "freegap/tridiagonal.hpp"
 
 namespace freegap::model {
 
@@ -21,6 +22,15 @@ struct Model {
   std::vector<ensembles::MatrixSpec> matrices;
   std::string expression;
   expr::CheckOptions check;
+  /// Use dense matrices even where the tridiagonal path applies (for comparison).
+  bool force_dense = false;
+};
+
+/// How a size's trials are computed.
+enum class Path {
+  dense,        ///< sample dense matrices, evaluate the expression, LAPACK spectrum
+  tridiagonal,  ///< a·X + b of one β-ensemble matrix X: Dumitriu–Edelman model, Sturm counts,
+                ///< bisection extremes, band moments; O(N) time per bin and O(N) memory
 };
 
 /// Parses a matrix declaration as written on the command line:
@@ -54,6 +64,14 @@ class SizeRunner {
   SizeRunner(const Model& model, Index n);
 
   Index size() const { return n_; }
+  Path path() const { return tri_ ? Path::tridiagonal : Path::dense; }
+  /// What will be computed: the evaluation plan, or the tridiagonal model and its observations.
+  std::string explain() const;
+  /// Observes trial `trial` into `obs` (either path). Failed trials become failure rows.
+  void observe_trial(observe::Observations& obs, std::uint64_t seed, std::uint64_t trial) const;
+  /// Smallest and largest eigenvalue (or singular value) of one trial, for an automatic
+  /// histogram range; throws NumericalError if the trial fails.
+  std::pair<double, double> pilot_range(std::uint64_t seed, std::uint64_t trial) const;
   const expr::Expression& expression() const { return expression_; }
   const expr::Plan& plan() const { return plan_; }
   observe::SpectrumKind spectrum_kind() const;
@@ -72,6 +90,8 @@ class SizeRunner {
   std::vector<bool> used_;
   expr::Expression expression_;
   expr::Plan plan_;
+  std::optional<tridiagonal::ModelSpec> tri_;
+  double tri_scale_ = 1.0, tri_shift_ = 0.0;
 };
 
 /// Records an outcome into observations (a failed one as a failure row).

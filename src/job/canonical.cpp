@@ -94,6 +94,12 @@ std::string Job::canonical() const {
       case Kind::goe:
       case Kind::wigner_rademacher:
         break;
+      case Kind::beta_hermite:
+        out += "; beta = " + exact(m.beta);
+        break;
+      case Kind::beta_laguerre:
+        out += "; beta = " + exact(m.beta) + "; ratio = " + exact(m.ratio);
+        break;
     }
     out += "\n";
   }

@@ -306,7 +306,7 @@ constexpr LawName kLaws[] = {
 };
 
 const std::vector<std::string_view> kAllMatrixKeys = {
-    "ensemble", "ratio", "method", "law", "atoms", "low", "high", "variance", "path"};
+    "ensemble", "ratio", "method", "law", "atoms", "low", "high", "variance", "path", "beta"};
 
 bool has_ratio(Kind k) {
   return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
@@ -314,6 +314,8 @@ bool has_ratio(Kind k) {
 }
 
 std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
+  if (kind == Kind::beta_hermite) return {"ensemble", "beta"};
+  if (kind == Kind::beta_laguerre) return {"ensemble", "beta", "ratio"};
   if (has_ratio(kind)) return {"ensemble", "ratio"};
   if (ensembles::is_unitary(kind)) return {"ensemble", "method"};
   if (kind != Kind::diagonal) return {"ensemble"};
@@ -475,7 +477,12 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
            "does not apply to " + owner + " (its keys: " + join(keys) + "); remove it");
   }
 
-  if (has_ratio(spec.kind)) {
+  if (spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre) {
+    if (const toml::node* v = t.get("beta")) spec.beta = r.positive_number(*v, prefix + ".beta");
+    if (spec.kind == Kind::beta_laguerre) {
+      if (const toml::node* v = t.get("ratio")) spec.ratio = r.positive_number(*v, prefix + ".ratio");
+    }
+  } else if (has_ratio(spec.kind)) {
     if (const toml::node* v = t.get("ratio")) spec.ratio = r.positive_number(*v, prefix + ".ratio");
   } else if (ensembles::is_unitary(spec.kind)) {
     if (const toml::node* v = t.get("method")) {

@@ -4,8 +4,10 @@
 #include <chrono>
 #include <algorithm>
 #include <cctype>
+#include <cstdio>
 
 #include "freegap/errors.hpp"
+#include "freegap/tridiagonal.hpp"
 
 namespace freegap::model {
 
@@ -112,12 +114,16 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
     const auto kv = parts[i].find('=');
     if (kv == std::string::npos) bad_declaration(text, "expected key=value, got '" + parts[i] + "'");
     const std::string key = parts[i].substr(0, kv), value = parts[i].substr(kv + 1);
-    const bool takes_ratio = spec.kind == ensembles::Kind::wishart_complex ||
+    const bool takes_ratio = spec.kind == ensembles::Kind::beta_laguerre ||
+                             spec.kind == ensembles::Kind::wishart_complex ||
                              spec.kind == ensembles::Kind::wishart_real ||
                              spec.kind == ensembles::Kind::ginibre_complex ||
                              spec.kind == ensembles::Kind::ginibre_real;
     if (key == "ratio" && takes_ratio) {
       spec.ratio = parse_number(text, key, value);
+    } else if (key == "beta" && (spec.kind == ensembles::Kind::beta_hermite ||
+                                 spec.kind == ensembles::Kind::beta_laguerre)) {
+      spec.beta = parse_number(text, key, value);
     } else if (key == "method" && ensembles::is_unitary(spec.kind)) {
       if (value == "qr") {
         spec.haar = ensembles::HaarMethod::qr;
@@ -171,6 +177,115 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       expression_(model.expression, model.matrices, model.check),
       plan_(expression_, n) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
+  // The tridiagonal path applies when the expression is a·X + b for one matrix X whose
+  // eigenvalue law has an exact tridiagonal model (Dumitriu & Edelman 2002) and eigenvalues are
+  // asked for. It is decided from the job alone, never per rank: its random numbers differ from
+  // the dense path's.
+  using ensembles::Kind;
+  int letter = -1;
+  double a = 0.0, b = 0.0;
+  bool affine = true;
+  for (const auto& m : expression_.expansion()) {
+    if (m.letters.empty()) {
+      b = m.coefficient;
+    } else if (m.letters.size() == 1 && letter < 0) {
+      letter = m.letters[0].first;
+      a = m.coefficient;
+    } else {
+      affine = false;
+    }
+  }
+  affine = affine && letter >= 0;
+  for (std::size_t i = 0; i < model.matrices.size(); ++i) {
+    const auto& spec = model.matrices[i];
+    const bool beta_only = spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre;
+    if (!beta_only || !used_[i]) continue;
+    if (!affine || letter != static_cast<int>(i)) {
+      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
+                       ") has only a tridiagonal model, which gives the law of its eigenvalues "
+                       "alone; use it alone or as a·" + spec.name + " + b");
+    }
+    if (model.force_dense) {
+      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
+                       ") has no dense sampler, so force_dense cannot apply; compare with gue or "
+                       "goe (β = 2, 1) or wishart_complex or wishart_real instead");
+    }
+    if (expression_.spectrum() != expr::Spectrum::eigenvalues) {
+      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
+                       "): singular values are not available on the tridiagonal path; observe "
+                       "eigenvalues");
+    }
+  }
+  if (!affine || model.force_dense || expression_.spectrum() != expr::Spectrum::eigenvalues) return;
+  const auto& x = model.matrices[static_cast<std::size_t>(letter)];
+  tridiagonal::ModelSpec t;
+  t.name = x.name;
+  switch (x.kind) {
+    case Kind::gue: t.family = tridiagonal::Family::hermite; t.beta = 2.0; break;
+    case Kind::goe: t.family = tridiagonal::Family::hermite; t.beta = 1.0; break;
+    case Kind::beta_hermite: t.family = tridiagonal::Family::hermite; t.beta = x.beta; break;
+    case Kind::wishart_complex: t.family = tridiagonal::Family::laguerre; t.beta = 2.0; t.ratio = x.ratio; break;
+    case Kind::wishart_real: t.family = tridiagonal::Family::laguerre; t.beta = 1.0; t.ratio = x.ratio; break;
+    case Kind::beta_laguerre: t.family = tridiagonal::Family::laguerre; t.beta = x.beta; t.ratio = x.ratio; break;
+    default: return;  // no tridiagonal model (Wigner ±1, Ginibre, Haar, diagonal)
+  }
+  tridiagonal::validate(t);
+  tri_ = t;
+  tri_scale_ = a;
+  tri_shift_ = b;
+}
+
+std::string SizeRunner::explain() const {
+  if (!tri_) return plan_.explain();
+  char buf[512];
+  std::snprintf(buf, sizeof buf,
+                "expression: %s\nsize: N = %lld\npath: tridiagonal (Dumitriu & Edelman 2002 %s "
+                "model, beta = %g%s), scaled by %g and shifted by %g\nobservations: histogram by "
+                "Sturm counts at the bin edges, smallest and largest eigenvalue by bisection to "
+                "1e-10, moments from the band of T^j; no dense matrix and no spectrum\nmemory: "
+                "O(N), about %.1f MiB\n",
+                expression_.text().c_str(), static_cast<long long>(n_),
+                tri_->family == tridiagonal::Family::hermite ? "beta-Hermite" : "beta-Laguerre",
+                tri_->beta,
+                tri_->family == tridiagonal::Family::laguerre
+                    ? (", ratio c = " + std::to_string(tri_->ratio)).c_str()
+                    : "",
+                tri_scale_, tri_shift_, 48.0 * static_cast<double>(n_) / (1024.0 * 1024.0));
+  return buf;
+}
+
+void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
+                               std::uint64_t trial) const {
+  if (!tri_) {
+    record(obs, run(seed, trial));
+    return;
+  }
+  const auto exists = std::lower_bound(
+      obs.trials.begin(), obs.trials.end(), trial,
+      [](const observe::TrialRecord& r, std::uint64_t t) { return r.trial < t; });
+  if (exists != obs.trials.end() && exists->trial == trial) {
+    throw InputError("trial " + std::to_string(trial) + " is already recorded");
+  }
+  tridiagonal::TrialOptions options;
+  options.scale = tri_scale_;
+  options.shift = tri_shift_;
+  auto row = tridiagonal::observe_trial(*tri_, n_, seed, trial, obs.config, obs.histogram, options);
+  const auto at = std::lower_bound(
+      obs.trials.begin(), obs.trials.end(), trial,
+      [](const observe::TrialRecord& r, std::uint64_t t) { return r.trial < t; });
+  obs.trials.insert(at, std::move(row));
+}
+
+std::pair<double, double> SizeRunner::pilot_range(std::uint64_t seed, std::uint64_t trial) const {
+  if (tri_) {
+    const auto t = tridiagonal::affine(tridiagonal::sample(*tri_, n_, seed, trial), tri_scale_,
+                                       tri_shift_);
+    const auto x = tridiagonal::extremes(t, 1e-10);
+    return {x.min, x.max};
+  }
+  const auto outcome = run(seed, trial);
+  if (outcome.failed) throw NumericalError(outcome.reason);
+  return {outcome.spectrum.minCoeff(), outcome.spectrum.maxCoeff()};
 }
 
 observe::SpectrumKind SizeRunner::spectrum_kind() const {

@@ -14,6 +14,7 @@
 #include <iostream>
 #include <sstream>
 #include <thread>
+#include <tuple>
 
 #include "freegap/errors.hpp"
 #include "freegap/store.hpp"
@@ -278,6 +279,7 @@ model::Model model_of(const job::Job& job) {
   m.matrices = job.matrices;
   m.expression = job.expression;
   m.check.force_singular_values = job.observe.singular_values;
+  m.force_dense = job.force_dense;
   return m;
 }
 
@@ -286,7 +288,9 @@ std::vector<model::SizeRunner> make_runners(const job::Job& job) {
   const model::Model m = model_of(job);
   try {
     for (auto n : job.sizes) runners.emplace_back(m, n);
-  } catch (const expr::ExprError& e) {
+  } catch (const InputError& e) {
+    // Expression errors and the model's refusals (a tridiagonal-only matrix in a product, ...);
+    // the matrices themselves were validated with the job.
     throw InputError(prefix(job, "expression") + e.what());
   }
   return runners;
@@ -297,12 +301,13 @@ std::vector<model::SizeRunner> make_runners(const job::Job& job) {
 constexpr std::uint64_t kPilotTrial = 4294967295ULL;
 
 std::vector<double> pilot_edges(const job::Job& job, const model::SizeRunner& smallest) {
-  const auto outcome = smallest.run(job.seed, kPilotTrial);
-  if (outcome.failed) {
-    throw InputError(prefix(job, "observe.range") + "the pilot trial failed (" + outcome.reason +
+  double lo = 0.0, hi = 0.0;
+  try {
+    std::tie(lo, hi) = smallest.pilot_range(job.seed, kPilotTrial);
+  } catch (const NumericalError& e) {
+    throw InputError(prefix(job, "observe.range") + "the pilot trial failed (" + e.what() +
                      "); give range = [low, high]");
   }
-  const double lo = outcome.spectrum.minCoeff(), hi = outcome.spectrum.maxCoeff();
   double width = hi - lo;
   if (!(width > 0)) width = std::max(1.0, std::abs(hi));
   return observe::uniform_edges(lo - job.observe.margin * width, hi + job.observe.margin * width,
@@ -332,6 +337,8 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.spectrum = p.runners.front().spectrum_kind();
   h.metadata["job_name"] = p.job.name.empty() ? std::string("(unnamed)") : p.job.name;
   h.metadata["seed"] = std::to_string(p.job.seed);
+  // Which path computed the numbers (they differ between paths, so this is not provenance).
+  h.metadata["path"] = p.runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
   // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
   h.metadata["blas_threads"] = std::to_string(threads);
@@ -380,7 +387,7 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
   const auto& runner = p.runners[unit.size_index];
   for (std::int64_t t = unit.first_trial; t < unit.end_trial; ++t) {
     if (stop_requested()) return false;
-    model::record(done.obs, runner.run(p.job.seed, static_cast<std::uint64_t>(t)));
+    runner.observe_trial(done.obs, p.job.seed, static_cast<std::uint64_t>(t));
     between_trials();
   }
   done.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
@@ -617,6 +624,11 @@ void work(const Prepared& p, MPI_Comm comm) {
 
 std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
   const auto n = static_cast<double>(runner.size());
+  if (runner.path() == model::Path::tridiagonal) {
+    // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
+    // (measured 244 MiB at N = 10^7), plus the same 64 MiB allowance.
+    return static_cast<std::size_t>(48.0 * n + 64.0 * 1024 * 1024);
+  }
   // Samplers hold at most one N×N complex factorisation input besides their output (QR works in
   // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
   // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
@@ -712,7 +724,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   if (options.explain) {
     if (me == 0) {
       for (std::size_t i = 0; i < p.runners.size(); ++i) {
-        out << p.runners[i].plan().explain();
+        out << p.runners[i].explain();
         out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
             << "; estimated peak per rank: "
             << human_bytes(static_cast<double>(estimate_peak_bytes(p.runners[i]))) << "\n\n";
