@@ -1,0 +1,847 @@
+// Free additive and multiplicative convolution by analytic subordination, with exact moments from
+// free cumulants and S-transforms, support edges from the real-axis subordination functions, and
+// CDFs by graded Gauss–Legendre quadrature of the density.
+#include "freegap/analysis/free_convolution.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <numbers>
+#include <sstream>
+
+#include "freegap/errors.hpp"
+#include "laws_quadrature.hpp"
+
+namespace freegap::analysis {
+
+using cd = std::complex<double>;
+constexpr double kPiF = std::numbers::pi;
+
+namespace {
+
+std::string format_number(double x) {
+  std::ostringstream out;
+  out.precision(12);
+  out << x;
+  return out.str();
+}
+
+bool finite(cd z) { return std::isfinite(z.real()) && std::isfinite(z.imag()); }
+
+struct MapValue {
+  cd f;   // f(w)
+  cd df;  // f'(w)
+};
+
+// Damped Newton on φ(w) = f(w) − w, keeping w strictly in the half-plane sign·Im w > 0 (where the
+// subordination function lives; Belinschi & Bercovici 2007): a step is halved until it stays in
+// that half-plane and decreases |φ| (backtracking, standard practice), which keeps Newton from
+// wandering when f is close to a Möbius automorphism (near the centre of Bernoulli ⊞ Bernoulli).
+template <class Map>
+bool newton(const Map& map, cd& w, double sign, int max_steps, int& steps) {
+  MapValue v = map(w);
+  for (steps = 1; steps <= max_steps; ++steps) {
+    const cd phi = v.f - w;
+    const cd dphi = v.df - 1.0;
+    if (!finite(phi) || !finite(dphi) || dphi == 0.0) return false;
+    // Residual at rounding level: converged, even where φ' is tiny (ill-conditioned points).
+    if (std::abs(phi) <= 4.0 * std::numeric_limits<double>::epsilon() * (1.0 + std::abs(w))) {
+      return true;
+    }
+    cd step = phi / dphi;
+    cd next = w - step;
+    MapValue next_v{};
+    bool accepted = false;
+    for (int halvings = 0; halvings < 60; ++halvings, step *= 0.5, next = w - step) {
+      if (sign * next.imag() <= 0.0 || !finite(next)) continue;
+      next_v = map(next);
+      if (!finite(next_v.f)) continue;
+      // Near convergence |φ| sits at rounding level: accept tiny steps unconditionally.
+      if (std::abs(next_v.f - next) < std::abs(phi) ||
+          std::abs(step) <= 1e-13 * (1.0 + std::abs(w))) {
+        accepted = true;
+        break;
+      }
+    }
+    if (!accepted) return false;
+    w = next;
+    v = next_v;
+    if (std::abs(step) <= 1e-14 * (1.0 + std::abs(w))) {
+      return std::abs(v.f - w) <= 1e-10 * (1.0 + std::abs(w));
+    }
+  }
+  return false;
+}
+
+// The fixed point of f: warm Newton if a start is given, else (or if that fails) the averaged
+// iteration w ← (w + f(w))/2 from w0, finished by Newton. The plain iteration w ← f(w) stalls near
+// the axis when a law has atoms (f is then close to a real Möbius automorphism); averaging keeps
+// the fixed point and restores convergence (measured: reference §4a).
+template <class Map>
+SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, double sign,
+                               const SubordinationOptions& options, const char* who, cd z) {
+  SubordinationPoint out;
+  out.z = z;
+  if (start != nullptr && sign * start->imag() > 0.0) {
+    cd w = *start;
+    int steps = 0;
+    if (newton(map, w, sign, 50, steps)) {
+      out.omega1 = w;
+      out.newton_steps = steps;
+      return out;
+    }
+  }
+  cd w = w0;
+  int k = 0;
+  for (; k < options.max_averaged_steps; ++k) {
+    const cd f = map(w).f;
+    if (!finite(f)) break;
+    cd next = 0.5 * (w + f);
+    if (sign * next.imag() <= 0.0) next = cd(next.real(), 0.5 * w.imag());
+    const double change = std::abs(next - w);
+    w = next;
+    if (change < 1e-6 * (1.0 + std::abs(w))) break;
+  }
+  out.averaged_steps = k + 1;
+  int steps = 0;
+  bool converged = newton(map, w, sign, options.max_newton_steps, steps);
+  // Retry from other points of the half-plane: the fixed point is unique there, so any
+  // converged start gives it.
+  for (double lift : {1.0, 0.25, 4.0, 16.0}) {
+    if (converged) break;
+    w = cd(w0.real(), sign * lift * (1.0 + std::abs(w0)));
+    converged = newton(map, w, sign, options.max_newton_steps, steps);
+  }
+  if (!converged) {
+    // Last resort: the averaged iteration alone, run to a tight residual. Where the convolution
+    // has a gap and G(z) → 0 (a symmetric law at its centre), ω1 runs off to infinity; G_μ(ω1)
+    // is then ≈ 0 as it should be, and a large |ω1| is accepted as that limit.
+    w = w0;
+    for (int i = 0; i < 20 * options.max_averaged_steps && !converged; ++i) {
+      const cd f = map(w).f;
+      if (!finite(f)) break;
+      w = 0.5 * (w + f);
+      if (sign * w.imag() <= 0.0) break;
+      converged = std::abs(f - w) <= 1e-12 * (1.0 + std::abs(w)) ||
+                  std::abs(w) > 1e10 * (1.0 + std::abs(z));
+      out.averaged_steps = i + 1;
+    }
+  }
+  if (!converged) {
+    throw NumericalError(std::string(who) +
+                         ": subordination did not converge at z = " + format_number(z.real()) +
+                         (z.imag() >= 0 ? "+" : "") + format_number(z.imag()) + "i");
+  }
+  out.omega1 = w;
+  out.newton_steps = steps;
+  return out;
+}
+
+// h = F − id = 1/G − id and its derivative −G'/G² − 1.
+struct HValue {
+  cd h;
+  cd dh;
+};
+HValue h_additive(const Law& law, cd w) {
+  const cd g = law.cauchy(w);
+  const cd dg = law.cauchy_derivative(w);
+  return {1.0 / g - w, -dg / (g * g) - 1.0};
+}
+
+// Multiplicative h(w) = η(w)/w with η(w) = 1 − w/G(1/w) (η = ψ/(1+ψ), 1 + ψ(w) = G(1/w)/w), so
+// h(w) = 1/w − 1/G(1/w) and h'(w) = −1/w² − G'(1/w)/(G(1/w)² w²).
+HValue h_multiplicative(const Law& law, cd w) {
+  const cd u = 1.0 / w;
+  const cd g = law.cauchy(u);
+  const cd dg = law.cauchy_derivative(u);
+  return {u - 1.0 / g, -u * u - dg / (g * g) * u * u};
+}
+
+double real_f(const Law& law, double t) {
+  const double g = law.cauchy(cd(t, 0.0)).real();
+  if (!std::isfinite(g)) return 0.0;
+  return 1.0 / g;
+}
+
+double real_eta(const Law& law, double t) {
+  const double g = law.cauchy(cd(1.0 / t, 0.0)).real();
+  if (!std::isfinite(g)) return 1.0;
+  return 1.0 - t / g;
+}
+
+// Bisection for an increasing function: the t in [a, b] with f(t) = target (f(a) ≤ target ≤ f(b)).
+template <class F>
+double invert_increasing(const F& f, double a, double b, double target) {
+  for (int i = 0; i < 200; ++i) {
+    const double mid = 0.5 * (a + b);
+    if (mid <= a || mid >= b) break;
+    if (f(mid) < target) {
+      a = mid;
+    } else {
+      b = mid;
+    }
+  }
+  return 0.5 * (a + b);
+}
+
+// The first local minimum of x(t) met when t walks from far (t_min + d) towards t_min, refined by
+// golden-section search; the value there is the edge. Outside the support the subordination
+// functions are real and x(t) is the inverse of ω1 along the real axis; it turns back exactly
+// where the fixed point stops being attracting (f' = 1), i.e. at the edge.
+template <class X>
+double first_minimum(const X& x, double t_min, double distance) {
+  const double q = 0.85;
+  const int steps = static_cast<int>(std::ceil(std::log(1e-14 / 8.0) / std::log(q)));
+  double previous_t = t_min + distance;
+  double previous_x = x(previous_t);
+  double before_t = previous_t;
+  for (int k = 1; k <= steps; ++k) {
+    const double t = t_min + distance * std::pow(q, k);
+    const double value = x(t);
+    if (value > previous_x) {
+      // Minimum bracketed by [t, before_t]; golden-section search.
+      double a = t;
+      double b = before_t;
+      const double r = 0.5 * (std::sqrt(5.0) - 1.0);
+      double c = b - r * (b - a);
+      double d = a + r * (b - a);
+      double xc = x(c);
+      double xd = x(d);
+      for (int i = 0; i < 200 && b - a > 1e-15 * std::max(1.0, std::abs(a)); ++i) {
+        if (xc < xd) {
+          b = d;
+          d = c;
+          xd = xc;
+          c = b - r * (b - a);
+          xc = x(c);
+        } else {
+          a = c;
+          c = d;
+          xc = xd;
+          d = a + r * (b - a);
+          xd = x(d);
+        }
+      }
+      return std::min({xc, xd, previous_x});
+    }
+    before_t = previous_t;
+    previous_t = t;
+    previous_x = value;
+  }
+  return std::min(previous_x, x(t_min));
+}
+
+// Right edge of the continuous part of μ ⊞ ν. For real x above the support, ω1(x) = t > hi_μ and
+// ω2 > hi_ν are real with F_μ(t) = F_ν(ω2) = F(x) and ω1 + ω2 = x + F(x) (Belinschi & Bercovici
+// 2007), so x(t) = t + ω2(t) − F_μ(t) with ω2(t) = F_ν^{-1}(F_μ(t)).
+double additive_right_edge(const Law& mu, const Law& nu) {
+  const Support sm = mu.support();
+  const Support sn = nu.support();
+  const double width = (sm.hi - sm.lo) + (sn.hi - sn.lo);
+  if (width <= 0.0) return sm.hi + sn.hi;
+  const double hm = sm.hi;
+  const double hn = sn.hi;
+  const double fn_edge = real_f(nu, hn);
+  auto fnu = [&](double w) { return real_f(nu, w); };
+  auto fmu = [&](double t) { return real_f(mu, t); };
+  auto omega2 = [&](double g) {
+    if (g <= fn_edge) return hn;
+    double b = hn + width;
+    while (fnu(b) < g) b = hn + 2.0 * (b - hn);
+    return invert_increasing(fnu, hn, b, g);
+  };
+  double t_min = hm;
+  if (fmu(hm) < fn_edge) {
+    double b = hm + width;
+    while (fmu(b) < fn_edge) b = hm + 2.0 * (b - hm);
+    t_min = invert_increasing(fmu, hm, b, fn_edge);
+  }
+  auto x_of = [&](double t) {
+    const double g = fmu(t);
+    return t + omega2(g) - g;
+  };
+  double distance = 8.0 * width;
+  for (int i = 0; i < 20 && x_of(t_min + distance / 0.85) < x_of(t_min + distance); ++i) {
+    distance *= 4.0;
+  }
+  return first_minimum(x_of, t_min, distance);
+}
+
+// Right edge of μ ⊠ ν (μ, ν on [0, ∞)). With ζ = 1/x below 1/edge, ω1(ζ) = t ∈ (0, 1/hi_μ) and
+// ω2 ∈ (0, 1/hi_ν) are real, η_μ(t) = η_ν(ω2) = η(ζ) and ω1ω2 = ζη(ζ) (Belinschi & Bercovici 2007),
+// so x(t) = η_μ(t)/(t ω2(t)); the edge is its first minimum from t → 0 (where x → ∞).
+double multiplicative_right_edge(const Law& mu, const Law& nu) {
+  const double hm = mu.support().hi;
+  const double hn = nu.support().hi;
+  if (hm <= 0.0 || hn <= 0.0) return 0.0;
+  const double wn_max = 1.0 / hn;
+  const double eta_n_edge = real_eta(nu, wn_max);
+  auto eta_nu = [&](double w) { return real_eta(nu, w); };
+  auto eta_mu = [&](double t) { return real_eta(mu, t); };
+  double t_max = 1.0 / hm;
+  if (eta_mu(t_max) > eta_n_edge) t_max = invert_increasing(eta_mu, 0.0, t_max, eta_n_edge);
+  auto x_of_s = [&](double s) {  // s = t_max − t, so that the walk goes towards s → 0
+    const double t = t_max - s;
+    const double eta = eta_mu(t);
+    const double w2 = eta >= eta_n_edge ? wn_max : invert_increasing(eta_nu, 0.0, wn_max, eta);
+    return eta / (t * w2);
+  };
+  double distance = 0.999 * t_max;
+  return first_minimum(x_of_s, 0.0, distance);
+}
+
+// The law of 1/X for X on (0, ∞): G_{1/X}(z) = (1/z)(1 − G_X(1/z)/z). Used only for edges.
+class Reciprocal final : public Law {
+ public:
+  explicit Reciprocal(LawPtr law) : law_(std::move(law)) {}
+  double density(double x) const override { return x > 0 ? law_->density(1.0 / x) / (x * x) : 0.0; }
+  double cdf(double x) const override { return x > 0 ? 1.0 - law_->cdf(1.0 / x) : 0.0; }
+  cd cauchy(cd z) const override { return (1.0 - law_->cauchy(1.0 / z) / z) / z; }
+  std::vector<double> moments(int) const override {
+    throw InputError("reciprocal law: moments are not available");
+  }
+  Support support() const override {
+    const Support s = law_->support();
+    return {1.0 / s.hi, 1.0 / s.lo, {}};
+  }
+  std::string describe() const override { return "1/(" + law_->describe() + ")"; }
+
+ private:
+  LawPtr law_;
+};
+
+// Power series helpers (coefficients by power of z) for the S-transform route.
+std::vector<long double> multiply(const std::vector<long double>& a,
+                                  const std::vector<long double>& b, int n) {
+  std::vector<long double> c(n + 1, 0.0L);
+  for (int i = 0; i <= n && i < static_cast<int>(a.size()); ++i) {
+    for (int j = 0; i + j <= n && j < static_cast<int>(b.size()); ++j) c[i + j] += a[i] * b[j];
+  }
+  return c;
+}
+
+// Compositional inverse g of f (f[0] = 0, f[1] ≠ 0): f(g(z)) = z, coefficient by coefficient.
+std::vector<long double> revert(const std::vector<long double>& f, int n) {
+  std::vector<long double> g(n + 1, 0.0L);
+  g[1] = 1.0L / f[1];
+  for (int m = 2; m <= n; ++m) {
+    // Coefficient of z^m in f(g) with g[m] = 0; g[m] then enters only as f[1]·g[m].
+    std::vector<long double> power = g;  // g^1
+    long double c = 0.0L;
+    for (int k = 1; k <= m; ++k) {
+      if (k > 1) power = multiply(power, g, m);
+      c += f[k] * power[m];
+    }
+    g[m] = -c / f[1];
+  }
+  return g;
+}
+
+}  // namespace
+
+// ------------------------------------------------------------------------- cumulants ↔ moments
+std::vector<double> free_cumulants(std::span<const double> moments) {
+  const int n = static_cast<int>(moments.size()) - 1;
+  std::vector<double> kappa(std::max(n + 1, 1), 0.0);
+  if (n < 1) return kappa;
+  // powers[s][j] = [z^j] M(z)^s, M(z) = Σ m_k z^k.
+  std::vector<std::vector<long double>> powers(n + 1, std::vector<long double>(n + 1, 0.0L));
+  powers[0][0] = 1.0L;
+  std::vector<long double> m(moments.begin(), moments.end());
+  for (int s = 1; s <= n; ++s) powers[s] = multiply(powers[s - 1], m, n);
+  for (int k = 1; k <= n; ++k) {
+    long double rest = 0.0L;
+    for (int s = 1; s < k; ++s) rest += kappa[s] * powers[s][k - s];
+    kappa[k] = static_cast<double>(m[k] - rest);
+  }
+  return kappa;
+}
+
+std::vector<double> moments_from_free_cumulants(std::span<const double> cumulants) {
+  const int n = static_cast<int>(cumulants.size()) - 1;
+  std::vector<long double> m(std::max(n + 1, 1), 0.0L);
+  m[0] = 1.0L;
+  for (int k = 1; k <= n; ++k) {
+    // m_k = Σ_s κ_s [z^{k−s}] M^s with M known to degree k−1 (the s = 1 term uses m_{k−1}).
+    std::vector<long double> power(k, 0.0L);
+    power[0] = 1.0L;
+    std::vector<long double> mk(m.begin(), m.begin() + k);
+    long double sum = 0.0L;
+    for (int s = 1; s <= k; ++s) {
+      power = multiply(power, mk, k - 1);
+      sum += cumulants[s] * power[k - s];
+    }
+    m[k] = sum;
+  }
+  return std::vector<double>(m.begin(), m.end());
+}
+
+// -------------------------------------------------------------------------- SubordinatedLaw
+cd SubordinatedLaw::atom_cauchy(cd z) const {
+  cd sum = 0.0;
+  for (const Atom& a : support_.atoms) sum += a.mass / (z - a.value);
+  return sum;
+}
+
+double SubordinatedLaw::density_at(double x, cd& warm, bool& have_warm) const {
+  if (!(x > continuous_lo_ && x < continuous_hi_)) return 0.0;
+  // Distance to the axis: ε·width in the bulk, shrinking in proportion to the distance to the
+  // nearest edge, so the Cauchy-kernel smoothing error (relative size ε/distance) stays ~ε
+  // up to the edges; for ⊠ with its support starting at 0 this is ε·x, the scale-invariant choice.
+  const double width = continuous_hi_ - continuous_lo_;
+  const double gap = std::min({x - continuous_lo_, continuous_hi_ - x, width});
+  double distance = std::max(options_.epsilon * gap, 1e-300);
+  cd z(x, distance);
+  SubordinationPoint p;
+  for (;;) {
+    try {
+      p = solve(z, have_warm ? &warm : nullptr);
+      break;
+    } catch (const NumericalError&) {
+      // Very close to an edge the fixed point is ill-conditioned (f' → 1 there); step back from
+      // the axis, up to the bulk distance, before giving up.
+      if (distance >= epsilon_abs_) throw;
+      distance = std::min(epsilon_abs_, 100.0 * distance);
+      z = cd(x, distance);
+      have_warm = false;
+    }
+  }
+  warm = p.omega1;
+  have_warm = true;
+  // Polish to ε → 0: the boundary value of the subordination function at real x solves the same
+  // equation, and where it stays off the axis Newton from the ε-solution reaches it.
+  cd omega = p.omega1;
+  cd g;
+  double value;
+  if (polish(x, omega, g)) {
+    value = -g.imag() / kPiF;  // atoms off x contribute real terms only
+  } else {
+    value = -(p.cauchy - atom_cauchy(z)).imag() / kPiF;
+  }
+  return std::max(0.0, value);
+}
+
+double SubordinatedLaw::density(double x) const {
+  cd warm;
+  bool have_warm = false;
+  return density_at(x, warm, have_warm);
+}
+
+std::vector<double> SubordinatedLaw::densities(std::span<const double> xs) const {
+  std::vector<double> out;
+  out.reserve(xs.size());
+  cd warm;
+  bool have_warm = false;
+  for (double x : xs) out.push_back(density_at(x, warm, have_warm));
+  return out;
+}
+
+cd SubordinatedLaw::cauchy(cd z) const {
+  if (z.imag() < 0.0) return std::conj(cauchy(std::conj(z)));
+  if (z.imag() == 0.0) {
+    // On the real axis outside the support G is real: take it from just above the axis.
+    const cd g = solve(cd(z.real(), 1e-3 * epsilon_abs_)).cauchy;
+    if (z.real() > support_.hi || z.real() < support_.lo) return g.real();
+    return g;
+  }
+  return solve(z).cauchy;
+}
+
+namespace {
+
+// x = lo + half(1 − cos θ), written so that both edges keep full relative precision.
+double x_of_theta(double lo, double hi, double theta) {
+  const double half = 0.5 * (hi - lo);
+  if (theta <= 0.5 * kPiF) return lo + 2.0 * half * std::pow(std::sin(0.5 * theta), 2);
+  return hi - 2.0 * half * std::pow(std::cos(0.5 * theta), 2);
+}
+
+double theta_of_x(double lo, double hi, double x) {
+  const double half = 0.5 * (hi - lo);
+  if (x - lo <= hi - x)
+    return 2.0 * std::asin(std::sqrt(std::clamp((x - lo) / (2.0 * half), 0.0, 1.0)));
+  return kPiF - 2.0 * std::asin(std::sqrt(std::clamp((hi - x) / (2.0 * half), 0.0, 1.0)));
+}
+
+}  // namespace
+
+void SubordinatedLaw::build_table() const {
+  const double lo = continuous_lo_;
+  const double hi = continuous_hi_;
+  table_theta_.clear();
+  table_cumulative_.clear();
+  if (!(hi > lo)) return;
+  const double width = hi - lo;
+  const double half = 0.5 * width;
+  // The last layer next to an edge is not sampled (doubles cannot resolve it next to a nonzero
+  // edge); its mass comes from the local power law f ≈ A d^β fitted at d and 2d (d the layer
+  // width), which covers square-root, inverse-square-root and x^{−2/3} edges alike.
+  auto layer = [&](double edge) {
+    const double floor = 64.0 * std::numeric_limits<double>::epsilon() * std::abs(edge);
+    return std::max(1e-30 * width, std::max(1e-13 * width * (edge != 0.0), floor));
+  };
+  const double d_left = layer(lo);
+  const double d_right = layer(hi);
+  cd warm;
+  bool have_warm = false;
+  auto tail = [&](double edge, double d, double direction, double& beta) {
+    const double f1 = density_at(edge + direction * d, warm, have_warm);
+    const double f2 = density_at(edge + direction * 2.0 * d, warm, have_warm);
+    have_warm = false;
+    beta = (f1 > 0.0 && f2 > 0.0) ? std::log2(f2 / f1) : 0.0;
+    if (!(f1 > 0.0) || !(beta > -1.0)) return 0.0;
+    return f1 * d / (beta + 1.0);
+  };
+  left_tail_ = tail(lo, d_left, 1.0, left_beta_);
+  const double right_tail = tail(hi, d_right, -1.0, right_beta_);
+  const double theta_lo = theta_of_x(lo, hi, lo + d_left);
+  const double theta_hi = theta_of_x(lo, hi, hi - d_right);
+  // Graded breakpoints in θ: geometric towards both edges, uniform in between.
+  std::vector<double> breaks{theta_lo};
+  for (int j = 60; j >= 3; --j) {
+    const double t = 0.5 * kPiF * std::ldexp(1.0, -j);
+    if (t > theta_lo) breaks.push_back(t);
+  }
+  for (int i = 0; i <= 32; ++i) breaks.push_back(0.125 * kPiF + 0.75 * kPiF * i / 32.0);
+  for (int j = 3; j <= 60; ++j) {
+    const double t = kPiF - 0.5 * kPiF * std::ldexp(1.0, -j);
+    if (t < theta_hi) breaks.push_back(t);
+  }
+  breaks.push_back(theta_hi);
+  const detail::GaussRule& rule = detail::gauss_legendre(16);
+  auto panel = [&](double a, double b) {
+    double sum = 0.0;
+    for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
+      const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[i];
+      sum +=
+          rule.weights[i] * density_at(x_of_theta(lo, hi, t), warm, have_warm) * half * std::sin(t);
+    }
+    return 0.5 * (b - a) * sum;
+  };
+  double cumulative = left_tail_;
+  table_theta_.push_back(theta_lo);
+  table_cumulative_.push_back(cumulative);
+  struct Piece {
+    double a, b, whole;
+    int depth;
+  };
+  for (std::size_t i = 0; i + 1 < breaks.size(); ++i) {
+    std::vector<Piece> stack{{breaks[i], breaks[i + 1], panel(breaks[i], breaks[i + 1]), 0}};
+    while (!stack.empty()) {
+      Piece p = stack.back();
+      stack.pop_back();
+      const double mid = 0.5 * (p.a + p.b);
+      const double left = panel(p.a, mid);
+      const double right = panel(mid, p.b);
+      if (p.depth >= 24 || std::abs(left + right - p.whole) <= 1e-14) {
+        cumulative += left + right;
+        table_theta_.push_back(p.b);
+        table_cumulative_.push_back(cumulative);
+      } else {
+        stack.push_back({mid, p.b, right, p.depth + 1});  // right half after the left one
+        stack.push_back({p.a, mid, left, p.depth + 1});
+      }
+    }
+  }
+  table_theta_.push_back(kPiF);
+  table_cumulative_.push_back(cumulative + right_tail);
+}
+
+double SubordinatedLaw::cdf(double x) const {
+  std::call_once(table_once_, [this] { build_table(); });
+  double atoms = 0.0;
+  for (const Atom& a : support_.atoms) {
+    if (a.value <= x) atoms += a.mass;
+  }
+  const double lo = continuous_lo_;
+  const double hi = continuous_hi_;
+  if (table_theta_.size() < 2 || x <= lo) return std::min(1.0, atoms);
+  if (x >= hi) return std::min(1.0, atoms + table_cumulative_.back());
+  const double half = 0.5 * (hi - lo);
+  const double theta = theta_of_x(lo, hi, x);
+  if (theta <= table_theta_.front()) {
+    // Inside the unsampled edge layer: the fitted power law.
+    const double d_layer = x_of_theta(lo, hi, table_theta_.front()) - lo;
+    return std::min(1.0, atoms + left_tail_ * std::pow((x - lo) / d_layer, left_beta_ + 1.0));
+  }
+  if (theta >= table_theta_[table_theta_.size() - 2]) {
+    const double d_layer = hi - x_of_theta(lo, hi, table_theta_[table_theta_.size() - 2]);
+    const double right_tail =
+        table_cumulative_.back() - table_cumulative_[table_cumulative_.size() - 2];
+    return std::clamp(atoms + table_cumulative_.back() -
+                          right_tail * std::pow((hi - x) / d_layer, right_beta_ + 1.0),
+                      0.0, 1.0);
+  }
+  const auto it = std::upper_bound(table_theta_.begin(), table_theta_.end(), theta);
+  const std::size_t leaf = static_cast<std::size_t>(std::distance(table_theta_.begin(), it)) - 1;
+  const double a = table_theta_[leaf];
+  const detail::GaussRule& rule = detail::gauss_legendre(16);
+  cd warm;
+  bool have_warm = false;
+  double sum = 0.0;
+  for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
+    const double t = 0.5 * (a + theta) + 0.5 * (theta - a) * rule.nodes[i];
+    sum +=
+        rule.weights[i] * density_at(x_of_theta(lo, hi, t), warm, have_warm) * half * std::sin(t);
+  }
+  return std::clamp(atoms + table_cumulative_[leaf] + 0.5 * (theta - a) * sum, 0.0, 1.0);
+}
+
+// ------------------------------------------------------------------------------------- ⊞
+FreeAdditiveConvolution::FreeAdditiveConvolution(LawPtr mu, LawPtr nu, SubordinationOptions options)
+    : mu_(std::move(mu)), nu_(std::move(nu)) {
+  options_ = options;
+  const Support sm = mu_->support();
+  const Support sn = nu_->support();
+  // Atoms: (μ⊞ν)({a+b}) = max(0, μ({a}) + ν({b}) − 1) (Bercovici & Voiculescu 1998, from memory).
+  for (const Atom& a : sm.atoms) {
+    for (const Atom& b : sn.atoms) {
+      if (a.mass + b.mass > 1.0 + 1e-15)
+        support_.atoms.push_back({a.value + b.value, a.mass + b.mass - 1.0});
+    }
+  }
+  std::sort(support_.atoms.begin(), support_.atoms.end(),
+            [](const Atom& l, const Atom& r) { return l.value < r.value; });
+  epsilon_abs_ = options_.epsilon * std::max(1.0, (sm.hi - sm.lo) + (sn.hi - sn.lo));
+  continuous_hi_ = additive_right_edge(*mu_, *nu_);
+  continuous_lo_ = -additive_right_edge(*affine(mu_, -1.0, 0.0), *affine(nu_, -1.0, 0.0));
+  double atom_mass = 0.0;
+  for (const Atom& a : support_.atoms) atom_mass += a.mass;
+  if (atom_mass >= 1.0 - 1e-12) continuous_lo_ = continuous_hi_ = support_.atoms.front().value;
+  support_.lo = continuous_lo_;
+  support_.hi = continuous_hi_;
+  for (const Atom& a : support_.atoms) {
+    support_.lo = std::min(support_.lo, a.value);
+    support_.hi = std::max(support_.hi, a.value);
+  }
+}
+
+SubordinationPoint FreeAdditiveConvolution::solve(cd z, const cd* start) const {
+  if (z.imag() < 0.0) {
+    const cd conj_start = start ? std::conj(*start) : cd();
+    SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
+    p.z = z;
+    p.omega1 = std::conj(p.omega1);
+    p.omega2 = std::conj(p.omega2);
+    p.cauchy = std::conj(p.cauchy);
+    return p;
+  }
+  if (z.imag() == 0.0) throw InputError("free_additive: solve needs z off the real axis");
+  auto map = [&](cd w) {
+    const HValue hm = h_additive(*mu_, w);
+    const HValue hn = h_additive(*nu_, z + hm.h);
+    return MapValue{z + hn.h, hn.dh * hm.dh};
+  };
+  SubordinationPoint p =
+      fixed_point(map, z + cd(0.0, 2.0), start, 1.0, options_, "free_additive", z);
+  p.omega2 = z + h_additive(*mu_, p.omega1).h;
+  p.cauchy = mu_->cauchy(p.omega1);
+  return p;
+}
+
+bool FreeAdditiveConvolution::polish(double x, cd& omega1, cd& g) const {
+  auto map = [&](cd w) {
+    const HValue hm = h_additive(*mu_, w);
+    const HValue hn = h_additive(*nu_, x + hm.h);
+    return MapValue{x + hn.h, hn.dh * hm.dh};
+  };
+  cd w = omega1;
+  int steps = 0;
+  if (!newton(map, w, 1.0, 40, steps)) return false;
+  if ((x + h_additive(*mu_, w).h).imag() <= 0.0) return false;
+  omega1 = w;
+  g = mu_->cauchy(w);
+  return finite(g);
+}
+
+cd FreeAdditiveConvolution::cauchy_derivative(cd z) const {
+  if (z.imag() < 0.0) return std::conj(cauchy_derivative(std::conj(z)));
+  if (z.imag() == 0.0) return Law::cauchy_derivative(z);
+  // G = G_μ(ω1), ω1 = f(z, ω1): ω1' = ∂_z f / (1 − ∂_w f), ∂_z f = 1 + h_ν'(ω2).
+  const SubordinationPoint p = solve(z);
+  const HValue hm = h_additive(*mu_, p.omega1);
+  const HValue hn = h_additive(*nu_, p.omega2);
+  const cd d_omega = (1.0 + hn.dh) / (1.0 - hn.dh * hm.dh);
+  return mu_->cauchy_derivative(p.omega1) * d_omega;
+}
+
+// R-transform additivity: κ_n(μ⊞ν) = κ_n(μ) + κ_n(ν) (Voiculescu 1986).
+std::vector<double> FreeAdditiveConvolution::moments(int k) const {
+  if (k < 0) throw InputError("moments: order must be >= 0 (got " + std::to_string(k) + ")");
+  const std::vector<double> a = free_cumulants(mu_->moments(k));
+  const std::vector<double> b = free_cumulants(nu_->moments(k));
+  std::vector<double> kappa(k + 1, 0.0);
+  for (int n = 1; n <= k; ++n) kappa[n] = a[n] + b[n];
+  return moments_from_free_cumulants(kappa);
+}
+
+std::string FreeAdditiveConvolution::describe() const {
+  return "free_additive(" + mu_->describe() + ", " + nu_->describe() + ")";
+}
+
+// ------------------------------------------------------------------------------------- ⊠
+FreeMultiplicativeConvolution::FreeMultiplicativeConvolution(LawPtr mu, LawPtr nu,
+                                                             SubordinationOptions options)
+    : mu_(std::move(mu)), nu_(std::move(nu)) {
+  options_ = options;
+  const Support sm = mu_->support();
+  const Support sn = nu_->support();
+  // Atoms (Belinschi 2003, from memory): at 0 the larger of the two masses at 0; at ab ≠ 0 the
+  // mass μ({a}) + ν({b}) − 1 when positive.
+  const double zero = std::max(mu_->mass_at(0.0), nu_->mass_at(0.0));
+  if (zero > 0.0) support_.atoms.push_back({0.0, zero});
+  for (const Atom& a : sm.atoms) {
+    for (const Atom& b : sn.atoms) {
+      if (a.value != 0.0 && b.value != 0.0 && a.mass + b.mass > 1.0 + 1e-15) {
+        support_.atoms.push_back({a.value * b.value, a.mass + b.mass - 1.0});
+      }
+    }
+  }
+  std::sort(support_.atoms.begin(), support_.atoms.end(),
+            [](const Atom& l, const Atom& r) { return l.value < r.value; });
+  epsilon_abs_ = options_.epsilon * std::max(1.0, sm.hi * sn.hi);
+  continuous_hi_ = multiplicative_right_edge(*mu_, *nu_);
+  if (sm.lo > 0.0 && sn.lo > 0.0) {
+    const Reciprocal rm(mu_);
+    const Reciprocal rn(nu_);
+    continuous_lo_ = 1.0 / multiplicative_right_edge(rm, rn);
+  } else {
+    continuous_lo_ = 0.0;
+  }
+  double atom_mass = 0.0;
+  for (const Atom& a : support_.atoms) atom_mass += a.mass;
+  if (atom_mass >= 1.0 - 1e-12) continuous_lo_ = continuous_hi_ = support_.atoms.front().value;
+  support_.lo = continuous_lo_;
+  support_.hi = continuous_hi_;
+  for (const Atom& a : support_.atoms) {
+    support_.lo = std::min(support_.lo, a.value);
+    support_.hi = std::max(support_.hi, a.value);
+  }
+}
+
+SubordinationPoint FreeMultiplicativeConvolution::solve(cd z, const cd* start) const {
+  if (z.imag() < 0.0) {
+    const cd conj_start = start ? std::conj(*start) : cd();
+    SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
+    p.z = z;
+    p.omega1 = std::conj(p.omega1);
+    p.omega2 = std::conj(p.omega2);
+    p.cauchy = std::conj(p.cauchy);
+    return p;
+  }
+  if (z.imag() == 0.0) throw InputError("free_multiplicative: solve needs z off the real axis");
+  // ζ = 1/z lies in the lower half-plane, and so does ω1(ζ); G(z) = ζ/(1 − η_μ(ω1(ζ))).
+  const cd zeta = 1.0 / z;
+  auto map = [&](cd w) {
+    const HValue hm = h_multiplicative(*mu_, w);
+    const HValue hn = h_multiplicative(*nu_, zeta * hm.h);
+    return MapValue{zeta * hn.h, zeta * hn.dh * zeta * hm.dh};
+  };
+  SubordinationPoint p = fixed_point(map, zeta, start, -1.0, options_, "free_multiplicative", z);
+  const HValue hm = h_multiplicative(*mu_, p.omega1);
+  p.omega2 = zeta * hm.h;
+  p.cauchy = zeta / (1.0 - p.omega1 * hm.h);
+  return p;
+}
+
+bool FreeMultiplicativeConvolution::polish(double x, cd& omega1, cd& g) const {
+  if (x <= 0.0) return false;
+  const double zeta = 1.0 / x;
+  auto map = [&](cd w) {
+    const HValue hm = h_multiplicative(*mu_, w);
+    const HValue hn = h_multiplicative(*nu_, zeta * hm.h);
+    return MapValue{zeta * hn.h, zeta * hn.dh * zeta * hm.dh};
+  };
+  cd w = omega1;
+  int steps = 0;
+  if (!newton(map, w, -1.0, 40, steps)) return false;
+  const HValue hm = h_multiplicative(*mu_, w);
+  if ((zeta * hm.h).imag() >= 0.0) return false;
+  omega1 = w;
+  g = zeta / (1.0 - w * hm.h);
+  return finite(g);
+}
+
+cd FreeMultiplicativeConvolution::cauchy_derivative(cd z) const {
+  if (z.imag() < 0.0) return std::conj(cauchy_derivative(std::conj(z)));
+  if (z.imag() == 0.0) return Law::cauchy_derivative(z);
+  // G = ζ/(1 − η), η = η_μ(ω1(ζ)), η_μ' = h + w h'; ω1' = ∂_ζ f/(1 − ∂_w f) with
+  // ∂_ζ f = h_ν(ω2) + ζ h_ν'(ω2) h_μ(ω1); dG/dz = −(1/z²) dG/dζ.
+  const SubordinationPoint p = solve(z);
+  const cd zeta = 1.0 / z;
+  const HValue hm = h_multiplicative(*mu_, p.omega1);
+  const HValue hn = h_multiplicative(*nu_, p.omega2);
+  const cd eta = p.omega1 * hm.h;
+  const cd d_eta_dw = hm.h + p.omega1 * hm.dh;
+  const cd df_dzeta = hn.h + zeta * hn.dh * hm.h;
+  const cd df_dw = zeta * hn.dh * zeta * hm.dh;
+  const cd d_omega = df_dzeta / (1.0 - df_dw);
+  const cd dg_dzeta = 1.0 / (1.0 - eta) + zeta * d_eta_dw * d_omega / ((1.0 - eta) * (1.0 - eta));
+  return -dg_dzeta * zeta * zeta;
+}
+
+// S_{μ⊠ν} = S_μ S_ν with S = χ(z)(1 + z)/z, χ the inverse of ψ(z) = Σ_{n≥1} m_n zⁿ (Voiculescu
+// 1987), all as truncated power series.
+std::vector<double> FreeMultiplicativeConvolution::moments(int k) const {
+  if (k < 0) throw InputError("moments: order must be >= 0 (got " + std::to_string(k) + ")");
+  std::vector<double> out(k + 1, 0.0);
+  out[0] = 1.0;
+  if (k == 0) return out;
+  const std::vector<double> a = mu_->moments(k);
+  const std::vector<double> b = nu_->moments(k);
+  if (a[1] == 0.0 || b[1] == 0.0) return out;  // one factor is δ_0, so is the product
+  auto s_series = [&](const std::vector<double>& m) {
+    std::vector<long double> psi(k + 1, 0.0L);
+    for (int n = 1; n <= k; ++n) psi[n] = m[n];
+    const std::vector<long double> chi = revert(psi, k);
+    std::vector<long double> s(k, 0.0L);  // S to degree k − 1
+    for (int n = 0; n < k; ++n) s[n] = chi[n + 1] + (n > 0 ? chi[n] : 0.0L);
+    return s;
+  };
+  const std::vector<long double> s = multiply(s_series(a), s_series(b), k - 1);
+  std::vector<long double> chi(k + 1, 0.0L);  // χ = S·z/(1 + z)
+  for (int n = 1; n <= k; ++n) {
+    long double sum = 0.0L;
+    for (int j = 0; j < n; ++j) sum += s[j] * (((n - 1 - j) % 2) ? -1.0L : 1.0L);
+    chi[n] = sum;
+  }
+  const std::vector<long double> psi = revert(chi, k);
+  for (int n = 1; n <= k; ++n) out[n] = static_cast<double>(psi[n]);
+  return out;
+}
+
+std::string FreeMultiplicativeConvolution::describe() const {
+  return "free_multiplicative(" + mu_->describe() + ", " + nu_->describe() + ")";
+}
+
+// ------------------------------------------------------------------------------- factories
+std::shared_ptr<const FreeAdditiveConvolution> free_additive(LawPtr mu, LawPtr nu,
+                                                             SubordinationOptions options) {
+  if (!mu || !nu) throw InputError("free_additive: a law is null");
+  if (mu->radial() || nu->radial()) {
+    throw InputError(
+        "free_additive: a radial law (circular) has no free additive convolution here");
+  }
+  if (!(options.epsilon > 0.0)) throw InputError("free_additive: epsilon must be > 0");
+  return std::make_shared<FreeAdditiveConvolution>(std::move(mu), std::move(nu), options);
+}
+
+std::shared_ptr<const FreeMultiplicativeConvolution> free_multiplicative(
+    LawPtr mu, LawPtr nu, SubordinationOptions options) {
+  if (!mu || !nu) throw InputError("free_multiplicative: a law is null");
+  if (mu->radial() || nu->radial()) {
+    throw InputError("free_multiplicative: a radial law (circular) is not supported");
+  }
+  for (const auto& [law, which] : {std::pair{mu.get(), "first"}, std::pair{nu.get(), "second"}}) {
+    const Support s = law->support();
+    if (s.lo < 0.0) {
+      throw InputError(std::string("free_multiplicative: the ") + which + " law " +
+                       law->describe() + " must lie on [0, inf) (its support starts at " +
+                       format_number(s.lo) + ")");
+    }
+  }
+  if (!(options.epsilon > 0.0)) throw InputError("free_multiplicative: epsilon must be > 0");
+  return std::make_shared<FreeMultiplicativeConvolution>(std::move(mu), std::move(nu), options);
+}
+
+}  // namespace freegap::analysis

@@ -1,0 +1,405 @@
+// Finite-N errors with Monte Carlo standard errors (see metrics.hpp).
+#include "freegap/analysis/metrics.hpp"
+
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "freegap/errors.hpp"
+#include "freegap/rng.hpp"
+
+namespace freegap::analysis {
+namespace {
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+// 8-point Gauss–Legendre nodes and weights on [−1, 1] (Abramowitz & Stegun 1964, Table 25.4).
+constexpr std::array<double, 4> kGl8Nodes = {0.1834346424956498, 0.5255324099163290,
+                                             0.7966664774136267, 0.9602898564975363};
+constexpr std::array<double, 4> kGl8Weights = {0.3626837833783620, 0.3137066458778873,
+                                               0.2223810344533745, 0.1012285362903763};
+
+template <class F>
+double gauss_legendre(const F& f, double a, double b) {
+  if (!(b > a)) return 0.0;
+  const double mid = 0.5 * (a + b), half = 0.5 * (b - a);
+  double sum = 0.0;
+  for (std::size_t i = 0; i < kGl8Nodes.size(); ++i) {
+    sum += kGl8Weights[i] * (f(mid - half * kGl8Nodes[i]) + f(mid + half * kGl8Nodes[i]));
+  }
+  return sum * half;
+}
+
+// ∫_a^b F, exactly through Φ when given (Φ covers the support; outside it F is 0 or 1), else by
+// Gauss–Legendre on the pieces inside the support (F is smooth there; the kinks at the support
+// ends are piece boundaries).
+double integral_of_cdf(const LimitDistribution& limit, double a, double b) {
+  if (!(b > a)) return 0.0;
+  const double lo = limit.support_low, hi = limit.support_high;
+  double total = 0.0;
+  const double above_start = std::max(a, hi);
+  if (b > above_start) total += b - above_start;  // F = 1 above the support
+  const double inner_a = std::max(a, lo), inner_b = std::min(b, hi);
+  if (inner_b > inner_a) {
+    if (limit.cdf_integral) {
+      total += limit.cdf_integral(inner_b) - limit.cdf_integral(inner_a);
+    } else {
+      total += gauss_legendre(limit.cdf, inner_a, inner_b);
+    }
+  }
+  return total;
+}
+
+// A point x in [a, b] with F(x) = c, given F(a) < c < F(b): the quantile when available (clipped),
+// else the Illinois variant of regula falsi (Dowell & Jarratt 1971), which keeps a bracket.
+double crossing(const LimitDistribution& limit, double c, double a, double b, double fa,
+                double fb) {
+  if (limit.quantile) return std::clamp(limit.quantile(c), a, b);
+  double ga = fa - c, gb = fb - c;
+  int side = 0;
+  for (int it = 0; it < 100 && (b - a) > 1e-15 * (1.0 + std::fabs(a) + std::fabs(b)); ++it) {
+    const double x = (a * gb - b * ga) / (gb - ga);
+    const double gx = limit.cdf(x) - c;
+    if (gx == 0.0) return x;
+    if ((gx < 0.0) == (ga < 0.0)) {
+      a = x, ga = gx;
+      if (side == -1) gb *= 0.5;
+      side = -1;
+    } else {
+      b = x, gb = gx;
+      if (side == 1) ga *= 0.5;
+      side = 1;
+    }
+  }
+  return 0.5 * (a + b);
+}
+
+// ∫_a^b |c − F(x)| dx for a constant c and non-decreasing F: split where F crosses c.
+double piece_distance(const LimitDistribution& limit, double c, double a, double b) {
+  if (!(b > a)) return 0.0;
+  const double fa = limit.cdf(a), fb = limit.cdf(b);
+  if (fa >= c) return integral_of_cdf(limit, a, b) - c * (b - a);
+  if (fb <= c) return c * (b - a) - integral_of_cdf(limit, a, b);
+  const double x = crossing(limit, c, a, b, fa, fb);
+  return (c * (x - a) - integral_of_cdf(limit, a, x)) +
+         (integral_of_cdf(limit, x, b) - c * (b - x));
+}
+
+void check_histogram(std::span<const double> edges, const observe::Histogram& h) {
+  if (edges.size() < 2 || h.counts.size() + 1 != edges.size()) {
+    throw InputError("histogram has " + std::to_string(h.counts.size()) + " bins but " +
+                     std::to_string(edges.size()) + " edges were given");
+  }
+}
+
+struct MeanSd {
+  double mean = 0.0, sd = kNaN;
+};
+
+MeanSd mean_sd(std::span<const double> x) {
+  MeanSd out;
+  if (x.empty()) return {kNaN, kNaN};
+  double sum = 0.0;
+  for (double v : x) sum += v;
+  out.mean = sum / static_cast<double>(x.size());
+  if (x.size() >= 2) {
+    double ss = 0.0;
+    for (double v : x) ss += (v - out.mean) * (v - out.mean);
+    out.sd = std::sqrt(ss / static_cast<double>(x.size() - 1));
+  }
+  return out;
+}
+
+// F_n at each edge from counts (mass below the first edge included at e_0).
+std::vector<double> edge_cdf(const observe::Histogram& h) {
+  const auto total = static_cast<double>(h.total());
+  std::vector<double> fn(h.counts.size() + 1);
+  double cum = static_cast<double>(h.below);
+  fn[0] = cum / total;
+  for (std::size_t i = 0; i < h.counts.size(); ++i) {
+    cum += static_cast<double>(h.counts[i]);
+    fn[i + 1] = cum / total;
+  }
+  return fn;
+}
+
+// Fixed nodes for the bootstrap replicates of the binned W1: F at the 8 Gauss–Legendre nodes of
+// every bin, evaluated once (the limit CDF may be costly), so each replicate needs no F calls.
+struct BinNodes {
+  std::vector<double> f_edges;                 // F(e_i)
+  std::vector<std::array<double, 8>> f_nodes;  // F at the nodes of bin i
+  std::vector<std::array<double, 8>> t_nodes;  // node position within the bin, in [0, 1]
+  double below_integral = 0.0;                 // ∫ F over [min(lo, e_0), e_0]
+  double above_integral = 0.0;                 // ∫ (1 − F) over [e_b, max(hi, e_b)]
+};
+
+BinNodes make_nodes(std::span<const double> edges, const LimitDistribution& limit) {
+  BinNodes nodes;
+  const std::size_t bins = edges.size() - 1;
+  nodes.f_edges.resize(edges.size());
+  for (std::size_t i = 0; i < edges.size(); ++i) nodes.f_edges[i] = limit.cdf(edges[i]);
+  nodes.f_nodes.resize(bins);
+  nodes.t_nodes.resize(bins);
+  for (std::size_t i = 0; i < bins; ++i) {
+    for (std::size_t k = 0; k < 4; ++k) {
+      const double t_lo = 0.5 * (1.0 - kGl8Nodes[k]), t_hi = 0.5 * (1.0 + kGl8Nodes[k]);
+      nodes.t_nodes[i][2 * k] = t_lo;
+      nodes.t_nodes[i][2 * k + 1] = t_hi;
+      nodes.f_nodes[i][2 * k] = limit.cdf(edges[i] + t_lo * (edges[i + 1] - edges[i]));
+      nodes.f_nodes[i][2 * k + 1] = limit.cdf(edges[i] + t_hi * (edges[i + 1] - edges[i]));
+    }
+  }
+  const double lo = std::min(limit.support_low, edges.front());
+  const double hi = std::max(limit.support_high, edges.back());
+  nodes.below_integral = integral_of_cdf(limit, lo, edges.front());
+  nodes.above_integral = (hi - edges.back()) - integral_of_cdf(limit, edges.back(), hi);
+  return nodes;
+}
+
+BinnedDistances distances_on_nodes(std::span<const double> edges, const std::vector<double>& fn,
+                                   const BinNodes& nodes) {
+  BinnedDistances out;
+  for (std::size_t i = 0; i < fn.size(); ++i) {
+    out.kolmogorov = std::max(out.kolmogorov, std::fabs(fn[i] - nodes.f_edges[i]));
+  }
+  double w1 = nodes.below_integral + nodes.above_integral;
+  for (std::size_t i = 0; i + 1 < edges.size(); ++i) {
+    double s = 0.0;
+    for (std::size_t k = 0; k < 8; ++k) {
+      const double t = nodes.t_nodes[i][k];
+      const double fn_t = fn[i] + t * (fn[i + 1] - fn[i]);
+      s += kGl8Weights[k / 2] * std::fabs(fn_t - nodes.f_nodes[i][k]);
+    }
+    w1 += 0.5 * s * (edges[i + 1] - edges[i]);
+  }
+  out.wasserstein1 = w1;
+  return out;
+}
+
+}  // namespace
+
+BinnedDistances binned_distances(std::span<const double> edges, const observe::Histogram& histogram,
+                                 const LimitDistribution& limit) {
+  check_histogram(edges, histogram);
+  if (histogram.total() <= 0) throw InputError("histogram is empty: no distances");
+  if (!limit.cdf) throw InputError("no limit CDF: no distances");
+  const std::vector<double> fn = edge_cdf(histogram);
+  BinnedDistances out;
+  const auto total = static_cast<double>(histogram.total());
+  std::vector<double> f(edges.size());
+  for (std::size_t i = 0; i < edges.size(); ++i) f[i] = limit.cdf(edges[i]);
+  for (std::size_t i = 0; i < edges.size(); ++i) {
+    out.kolmogorov = std::max(out.kolmogorov, std::fabs(fn[i] - f[i]));
+  }
+  for (std::size_t i = 0; i < histogram.counts.size(); ++i) {
+    out.resolution = std::max(
+        {out.resolution, static_cast<double>(histogram.counts[i]) / total, f[i + 1] - f[i]});
+  }
+  // W1: outside the edges F_n is 0 (below) or 1 (above); inside each bin F_n is linear. Where
+  // F_n − F changes sign inside a bin the bin is split at the linear-interpolation crossing so the
+  // quadrature never straddles the kink of |·|.
+  const double lo = std::min(limit.support_low, edges.front());
+  const double hi = std::max(limit.support_high, edges.back());
+  double w1 = integral_of_cdf(limit, lo, edges.front());
+  w1 += (hi - edges.back()) - integral_of_cdf(limit, edges.back(), hi);
+  for (std::size_t i = 0; i + 1 < edges.size(); ++i) {
+    const double a = edges[i], b = edges[i + 1];
+    const double slope = (fn[i + 1] - fn[i]) / (b - a);
+    const auto diff = [&](double x) { return std::fabs(fn[i] + slope * (x - a) - limit.cdf(x)); };
+    const double da = fn[i] - f[i], db = fn[i + 1] - f[i + 1];
+    if ((da < 0.0 && db > 0.0) || (da > 0.0 && db < 0.0)) {
+      const double x = a + (b - a) * da / (da - db);
+      w1 += gauss_legendre(diff, a, x) + gauss_legendre(diff, x, b);
+    } else {
+      w1 += gauss_legendre(diff, a, b);
+    }
+  }
+  out.wasserstein1 = w1;
+  return out;
+}
+
+SampleDistances sample_distances(std::vector<double> sample, const LimitDistribution& limit) {
+  if (sample.empty()) throw InputError("empty sample: no distances");
+  if (!limit.cdf) throw InputError("no limit CDF: no distances");
+  std::sort(sample.begin(), sample.end());
+  const std::size_t n = sample.size();
+  const auto nd = static_cast<double>(n);
+  SampleDistances out;
+  // Kolmogorov: D = max_i max(i/n − F(λ_(i)), F(λ_(i)) − (i−1)/n) (reference §4h).
+  for (std::size_t i = 0; i < n; ++i) {
+    const double f = limit.cdf(sample[i]);
+    out.kolmogorov = std::max(
+        {out.kolmogorov, static_cast<double>(i + 1) / nd - f, f - static_cast<double>(i) / nd});
+  }
+  // W1 = Σ_{i=0}^{n} ∫_{λ_(i)}^{λ_(i+1)} |i/n − F| with λ_(0), λ_(n+1) the support ends (§4h);
+  // pieces are also split at the support ends, where F has kinks.
+  const double lo = std::min(limit.support_low, sample.front());
+  const double hi = std::max(limit.support_high, sample.back());
+  double w1 = 0.0;
+  for (std::size_t i = 0; i <= n; ++i) {
+    const double a = i == 0 ? lo : sample[i - 1];
+    const double b = i == n ? hi : sample[i];
+    const double c = static_cast<double>(i) / nd;
+    double cuts[4] = {a, a, b, b};
+    cuts[1] = std::clamp(limit.support_low, a, b);
+    cuts[2] = std::clamp(limit.support_high, a, b);
+    for (int k = 0; k < 3; ++k) w1 += piece_distance(limit, c, cuts[k], cuts[k + 1]);
+  }
+  out.wasserstein1 = w1;
+  return out;
+}
+
+PooledDistances pooled_distances(std::span<const double> edges,
+                                 std::span<const observe::Histogram> units,
+                                 const LimitDistribution& limit, const MetricsOptions& options) {
+  if (units.empty()) throw InputError("no unit histograms: no pooled distances");
+  observe::Histogram sum = units[0];
+  check_histogram(edges, sum);
+  for (std::size_t u = 1; u < units.size(); ++u) observe::merge_into(sum, units[u]);
+  const BinnedDistances full = binned_distances(edges, sum, limit);
+  PooledDistances out;
+  out.kolmogorov.value = full.kolmogorov;
+  out.wasserstein1.value = full.wasserstein1;
+  out.resolution = full.resolution;
+  if (units.size() < 2 || options.bootstrap_replicates < 2) {
+    for (MetricValue* m : {&out.kolmogorov, &out.wasserstein1}) {
+      m->standard_error = m->noise_floor = kNaN;
+      m->resolved = false;
+    }
+    return out;
+  }
+  // Bootstrap over work units (Efron & Tibshirani 1993, from memory): units are independent
+  // blocks of trials, so resampling them keeps whatever correlation lives inside a unit.
+  const BinNodes nodes = make_nodes(edges, limit);
+  rng::Stream stream(rng::StreamKey{options.seed, "metrics-bootstrap-units", 0, 0});
+  const std::size_t b = edges.size();
+  std::vector<double> fn_sum(b, 0.0), fn_sq(b, 0.0), ks, w1;
+  observe::Histogram draw = sum;
+  for (int r = 0; r < options.bootstrap_replicates; ++r) {
+    std::fill(draw.counts.begin(), draw.counts.end(), 0);
+    draw.below = draw.above = 0;
+    for (std::size_t u = 0; u < units.size(); ++u) {
+      auto pick = static_cast<std::size_t>(stream.uniform() * static_cast<double>(units.size()));
+      pick = std::min(pick, units.size() - 1);
+      observe::merge_into(draw, units[pick]);
+    }
+    if (draw.total() <= 0) continue;
+    const std::vector<double> fn = edge_cdf(draw);
+    for (std::size_t i = 0; i < b; ++i) {
+      fn_sum[i] += fn[i];
+      fn_sq[i] += fn[i] * fn[i];
+    }
+    const BinnedDistances d = distances_on_nodes(edges, fn, nodes);
+    ks.push_back(d.kolmogorov);
+    w1.push_back(d.wasserstein1);
+  }
+  const auto reps = static_cast<double>(ks.size());
+  double floor_ks = 0.0, floor_w1 = 0.0;
+  std::vector<double> sd(b);
+  for (std::size_t i = 0; i < b; ++i) {
+    const double mean = fn_sum[i] / reps;
+    sd[i] = std::sqrt(std::max(0.0, (fn_sq[i] / reps - mean * mean) * reps / (reps - 1.0)));
+    floor_ks = std::max(floor_ks, sd[i]);
+  }
+  for (std::size_t i = 0; i + 1 < b; ++i)
+    floor_w1 += 0.5 * (sd[i] + sd[i + 1]) * (edges[i + 1] - edges[i]);
+  out.kolmogorov.standard_error = mean_sd(ks).sd;
+  out.wasserstein1.standard_error = mean_sd(w1).sd;
+  out.kolmogorov.noise_floor = floor_ks;
+  out.wasserstein1.noise_floor = floor_w1;
+  for (MetricValue* m : {&out.kolmogorov, &out.wasserstein1}) {
+    m->resolved = m->value >= kDistanceResolutionFactor * m->noise_floor;
+  }
+  return out;
+}
+
+SignedError signed_error(std::span<const double> values, double limit) {
+  SignedError out;
+  out.limit = limit;
+  const MeanSd ms = mean_sd(values);
+  out.mean = ms.mean;
+  out.error.value = ms.mean - limit;
+  out.error.standard_error = ms.sd / std::sqrt(static_cast<double>(values.size()));
+  out.error.noise_floor = out.error.standard_error;
+  out.error.resolved =
+      std::isfinite(out.error.value) && std::isfinite(out.error.standard_error) &&
+      std::fabs(out.error.value) >= kSignedResolutionFactor * out.error.standard_error;
+  return out;
+}
+
+SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& limit,
+                                 const MetricsOptions& options) {
+  SizeMetrics out;
+  out.n = data.n;
+  std::vector<const observe::TrialRecord*> ok;
+  for (const auto& t : data.trials) {
+    if (!t.failed) ok.push_back(&t);
+  }
+  out.trials_used = static_cast<std::int64_t>(ok.size());
+
+  if (!limit.distribution.cdf) {
+    out.notes.push_back("no limit CDF: no distances");
+  } else {
+    if (data.unit_histograms.empty()) {
+      out.notes.push_back("no histograms: no pooled distances");
+    } else {
+      const PooledDistances p =
+          pooled_distances(data.edges, data.unit_histograms, limit.distribution, options);
+      out.has_pooled = true;
+      out.pooled_kolmogorov = p.kolmogorov;
+      out.pooled_wasserstein1 = p.wasserstein1;
+      out.pooled_resolution = p.resolution;
+      if (data.unit_histograms.size() < 2) {
+        out.notes.push_back("one work unit: no bootstrap, pooled distances unresolved");
+      }
+    }
+    std::vector<double> ks, w1;
+    for (const auto* t : ok) {
+      if (t->spectrum.empty()) continue;
+      const SampleDistances d = sample_distances(t->spectrum, limit.distribution);
+      ks.push_back(d.kolmogorov);
+      w1.push_back(d.wasserstein1);
+    }
+    if (!ks.empty()) {
+      out.has_per_trial = true;
+      out.per_trial.trials = static_cast<std::int64_t>(ks.size());
+      const auto fill = [](std::span<const double> x, MetricValue& m, double& sd) {
+        const SignedError e = signed_error(x, 0.0);
+        m = e.error;
+        sd = mean_sd(x).sd;
+      };
+      fill(ks, out.per_trial.kolmogorov, out.per_trial.kolmogorov_sd);
+      fill(w1, out.per_trial.wasserstein1, out.per_trial.wasserstein1_sd);
+    } else {
+      out.notes.push_back("no kept spectra: no per-trial distances");
+    }
+  }
+
+  if (!limit.moments.empty() && !ok.empty()) {
+    const std::size_t k_max = std::min(limit.moments.size(), ok.front()->moments.size());
+    for (std::size_t k = 0; k < k_max; ++k) {
+      std::vector<double> v;
+      v.reserve(ok.size());
+      for (const auto* t : ok) v.push_back(t->moments[k]);
+      out.moment_errors.push_back(signed_error(v, limit.moments[k]));
+    }
+  } else if (limit.moments.empty()) {
+    out.notes.push_back("no exact limit moments: no moment errors");
+  }
+
+  std::vector<double> mx, mn, nm;
+  for (const auto* t : ok) {
+    mx.push_back(t->max);
+    mn.push_back(t->min);
+    nm.push_back(t->norm);
+  }
+  out.max_edge = signed_error(mx, limit.edge_high);
+  out.min_edge = signed_error(mn, limit.edge_low);
+  out.norm = signed_error(nm, limit.norm);
+  return out;
+}
+
+}  // namespace freegap::analysis
