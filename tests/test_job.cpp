@@ -756,7 +756,7 @@ path = "eigs.txt"
 // ---- the examples -------------------------------------------------------------------------------
 
 TEST(JobExamples, EveryExampleLoads) {
-  const fs::path jobs = fs::path(FREEGAP_TEST_DATA_DIR) / ".." / ".." / "jobs";
+  const fs::path jobs = fs::path(FREEGAP_SOURCE_DIR) / "jobs";
   int count = 0;
   for (const auto& entry : fs::directory_iterator(jobs)) {
     if (entry.path().extension() != ".toml") continue;

@@ -125,6 +125,28 @@ std::vector<double> spectral_moments(std::span<const double> x, int max_moment);
 /// Neumaier's (1974) compensated sum of `values`, in the given order.
 double compensated_sum(std::span<const double> values);
 
+/// A running compensated sum: Neumaier (1974), "Rundungsfehleranalyse einiger Verfahren zur
+/// Summation endlicher Summen", ZAMM 54 — Kahan's compensated sum with the branch that also
+/// catches the rounding error when the new term is larger than the running sum. Error
+/// ≤ 2u|S| + O(n u²) Σ|a_i| (u = 2^-53), so it no longer grows with the number of terms.
+struct CompensatedSum {
+  double sum = 0.0;
+  double compensation = 0.0;
+
+  void add(double a) {
+    const double t = sum + a;
+    // Both branches are the exact rounding error of sum + a (Fast2Sum needs the larger
+    // operand first).
+    if ((sum < 0 ? -sum : sum) >= (a < 0 ? -a : a)) {
+      compensation += (sum - t) + a;
+    } else {
+      compensation += (a - t) + sum;
+    }
+    sum = t;
+  }
+  double value() const { return sum + compensation; }
+};
+
 /// Observes one trial: validates `config`, then either records the trial as failed (a NaN or ±Inf
 /// in the spectrum, a negative singular value, a moment that overflows double) without touching
 /// `into`, or adds its values to `into` and returns its row. Throws InputError if the spectrum is

@@ -26,26 +26,7 @@ std::string number(double x) {
 
 [[noreturn]] void refuse(const std::string& what) { throw InputError("observe: " + what); }
 
-// Neumaier (1974), "Rundungsfehleranalyse einiger Verfahren zur Summation endlicher Summen",
-// ZAMM 54: Kahan's compensated sum, with the branch that also catches the rounding error when the
-// new term is larger than the running sum. Error ≤ 2u|S| + O(n u²) Σ|a_i| (u = 2^-53).
-struct NeumaierSum {
-  double sum = 0.0;
-  double compensation = 0.0;
-
-  void add(double a) {
-    const double t = sum + a;
-    // Both branches are the exact rounding error of sum + a (Møller/Knuth's Fast2Sum needs the
-    // larger operand first).
-    if (std::fabs(sum) >= std::fabs(a)) {
-      compensation += (sum - t) + a;
-    } else {
-      compensation += (a - t) + sum;
-    }
-    sum = t;
-  }
-  double value() const { return sum + compensation; }
-};
+using NeumaierSum = CompensatedSum;  // see observe.hpp
 
 void check_max_moment(int max_moment) {
   if (max_moment < 0 || max_moment > kMaxMomentLimit) {

@@ -26,21 +26,8 @@
 namespace freegap::tridiagonal {
 namespace {
 
-// Neumaier (1974) compensated summation, as in observe.cpp (the error no longer grows with N).
-struct NeumaierSum {
-  double sum = 0.0;
-  double compensation = 0.0;
-  void add(double a) {
-    const double t = sum + a;
-    if (std::fabs(sum) >= std::fabs(a)) {
-      compensation += (sum - t) + a;
-    } else {
-      compensation += (a - t) + sum;
-    }
-    sum = t;
-  }
-  double value() const { return sum + compensation; }
-};
+// Neumaier (1974) compensated summation, shared with observe (the error no longer grows with N).
+using NeumaierSum = observe::CompensatedSum;
 
 constexpr Index kBlock = 2048;
 
