@@ -488,4 +488,23 @@ std::vector<std::vector<int>> noncrossing_partitions(int n) {
   return out;
 }
 
+Polynomial polynomial_of(const expr::Expression& expression) {
+  Polynomial p;
+  for (const auto& m : expression.expansion()) {
+    Term t;
+    t.coefficient = Rational::from_double(m.coefficient);
+    for (const auto& [index, adjoint] : m.letters) t.word.push_back(Letter{index, adjoint});
+    p.push_back(std::move(t));
+  }
+  return p;
+}
+
+std::vector<ExactValue> limit_moments(const expr::Expression& expression, int max_order,
+                                      EngineOptions options) {
+  std::vector<FreeVariable> variables;
+  for (const auto& spec : expression.declared()) variables.push_back(free_variable_for(spec));
+  FreeMomentEngine engine(std::move(variables), options);
+  return engine.moments(polynomial_of(expression), max_order);
+}
+
 }  // namespace freegap::analysis

@@ -366,3 +366,41 @@ TEST(LimitMoments, VariablesForDeclaredMatrices) {
   g.ratio = 0.5;
   EXPECT_THROW(fa::free_variable_for(g), freegap::InputError);
 }
+
+namespace {
+
+freegap::ensembles::MatrixSpec declared(const std::string& name, freegap::ensembles::Kind kind) {
+  freegap::ensembles::MatrixSpec s;
+  s.name = name;
+  s.kind = kind;
+  return s;
+}
+
+// Limit moments straight from a job's expression text and declarations.
+// Sources: anticommutator of free semicirculars 2, 10, 66, 498 (reference §1.8, computed there by
+// Schwinger–Dyson word counting; Nica & Speicher 1998 for the law); A B A with B = ±1 Bernoulli:
+// 1, 3, 12, 55 (reference §1.6); U1 + U1^* + U2 + U2^*: Kesten–McKay d = 2, 4, 28, 232 (Kesten
+// 1959, McKay 1981, from memory; reference §1.4).
+TEST(LimitMomentsOfExpressions, FromExpressionText) {
+  using freegap::ensembles::Kind;
+  auto even = [](const std::vector<fa::ExactValue>& m) {
+    std::vector<std::string> out;
+    for (std::size_t k = 2; k < m.size(); k += 2) out.push_back(m[k].text);
+    return out;
+  };
+  const freegap::expr::Expression anti("X1 X2 + X2 X1",
+                                       {declared("X1", Kind::gue), declared("X2", Kind::gue)});
+  EXPECT_EQ(even(fa::limit_moments(anti, 8)), (std::vector<std::string>{"2", "10", "66", "498"}));
+  auto b = declared("B", Kind::diagonal);
+  b.diagonal.atoms = {{1.0, 0.5}, {-1.0, 0.5}};
+  const freegap::expr::Expression aba("A B A", {declared("A", Kind::gue), b});
+  EXPECT_EQ(even(fa::limit_moments(aba, 8)), (std::vector<std::string>{"1", "3", "12", "55"}));
+  const freegap::expr::Expression km(
+      "U1 + U1^* + U2 + U2^*", {declared("U1", Kind::haar_unitary), declared("U2", Kind::haar_unitary)});
+  EXPECT_EQ(even(fa::limit_moments(km, 6)), (std::vector<std::string>{"4", "28", "232"}));
+  const auto odd = fa::limit_moments(km, 5);
+  EXPECT_EQ(odd[1].text, "0");
+  EXPECT_EQ(odd[3].text, "0");
+}
+
+}  // namespace

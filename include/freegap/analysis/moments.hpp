@@ -45,6 +45,7 @@
 #include <vector>
 
 #include "freegap/ensembles.hpp"
+#include "freegap/expr.hpp"
 
 namespace freegap::analysis {
 
@@ -265,8 +266,19 @@ class FreeMomentEngine {
 /// letters separated by spaces, a trailing "^*" marking an adjoint: "s1 s2 + s2 s1",
 /// "u1 + u1^* + u2 + u2^*", "1/2 a b - 3". Names map to variable indices through `names`.
 /// Throws InputError naming the unknown word. (Not the job-file expression syntax: that is
-/// freegap::expr's; see the report for the accessor that would connect the two.)
+/// freegap::expr's; limit_moments below takes an expr::Expression.)
 Polynomial parse_polynomial(std::string_view text, const std::vector<std::string>& names);
+
+/// The polynomial of an expression: its expansion (expr::Expression::expansion) with each declared
+/// matrix as variable of the same index and coefficients read with Rational::from_double.
+Polynomial polynomial_of(const expr::Expression& expression);
+
+/// Exact limit moments τ(P^k), k = 0..max_order, of an expression in declared matrices, each
+/// matrix replaced by its free limit variable (free_variable_for). Throws InputError for a matrix
+/// without exact limit moments (rectangular Ginibre, a diagonal read from a file) or a too-large
+/// expansion.
+std::vector<ExactValue> limit_moments(const expr::Expression& expression, int max_order,
+                                      EngineOptions options = {});
 
 /// Every non-crossing partition of {0..n−1}, each as a block index per element (blocks numbered in
 /// order of first element). Brute-force reference for tests; n ≤ 16.
