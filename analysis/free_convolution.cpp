@@ -15,16 +15,9 @@
 namespace freegap::analysis {
 
 using cd = std::complex<double>;
-constexpr double kPiF = std::numbers::pi;
+constexpr double kPi = std::numbers::pi;
 
 namespace {
-
-std::string format_number(double x) {
-  std::ostringstream out;
-  out.precision(12);
-  out << x;
-  return out.str();
-}
 
 bool finite(cd z) { return std::isfinite(z.real()) && std::isfinite(z.imag()); }
 
@@ -129,8 +122,8 @@ SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, double si
   }
   if (!converged) {
     throw NumericalError(std::string(who) +
-                         ": subordination did not converge at z = " + format_number(z.real()) +
-                         (z.imag() >= 0 ? "+" : "") + format_number(z.imag()) + "i");
+                         ": subordination did not converge at z = " + detail::format_number(z.real()) +
+                         (z.imag() >= 0 ? "+" : "") + detail::format_number(z.imag()) + "i");
   }
   out.omega1 = w;
   out.newton_steps = steps;
@@ -414,9 +407,9 @@ double SubordinatedLaw::density_at(double x, cd& warm, bool& have_warm) const {
   cd g;
   double value;
   if (polish(x, omega, g)) {
-    value = -g.imag() / kPiF;  // atoms off x contribute real terms only
+    value = -g.imag() / kPi;  // atoms off x contribute real terms only
   } else {
-    value = -(p.cauchy - atom_cauchy(z)).imag() / kPiF;
+    value = -(p.cauchy - atom_cauchy(z)).imag() / kPi;
   }
   return std::max(0.0, value);
 }
@@ -452,7 +445,7 @@ namespace {
 // x = lo + half(1 − cos θ), written so that both edges keep full relative precision.
 double x_of_theta(double lo, double hi, double theta) {
   const double half = 0.5 * (hi - lo);
-  if (theta <= 0.5 * kPiF) return lo + 2.0 * half * std::pow(std::sin(0.5 * theta), 2);
+  if (theta <= 0.5 * kPi) return lo + 2.0 * half * std::pow(std::sin(0.5 * theta), 2);
   return hi - 2.0 * half * std::pow(std::cos(0.5 * theta), 2);
 }
 
@@ -460,7 +453,7 @@ double theta_of_x(double lo, double hi, double x) {
   const double half = 0.5 * (hi - lo);
   if (x - lo <= hi - x)
     return 2.0 * std::asin(std::sqrt(std::clamp((x - lo) / (2.0 * half), 0.0, 1.0)));
-  return kPiF - 2.0 * std::asin(std::sqrt(std::clamp((hi - x) / (2.0 * half), 0.0, 1.0)));
+  return kPi - 2.0 * std::asin(std::sqrt(std::clamp((hi - x) / (2.0 * half), 0.0, 1.0)));
 }
 
 }  // namespace
@@ -499,12 +492,12 @@ void SubordinatedLaw::build_table() const {
   // Graded breakpoints in θ: geometric towards both edges, uniform in between.
   std::vector<double> breaks{theta_lo};
   for (int j = 60; j >= 3; --j) {
-    const double t = 0.5 * kPiF * std::ldexp(1.0, -j);
+    const double t = 0.5 * kPi * std::ldexp(1.0, -j);
     if (t > theta_lo) breaks.push_back(t);
   }
-  for (int i = 0; i <= 32; ++i) breaks.push_back(0.125 * kPiF + 0.75 * kPiF * i / 32.0);
+  for (int i = 0; i <= 32; ++i) breaks.push_back(0.125 * kPi + 0.75 * kPi * i / 32.0);
   for (int j = 3; j <= 60; ++j) {
-    const double t = kPiF - 0.5 * kPiF * std::ldexp(1.0, -j);
+    const double t = kPi - 0.5 * kPi * std::ldexp(1.0, -j);
     if (t < theta_hi) breaks.push_back(t);
   }
   breaks.push_back(theta_hi);
@@ -543,7 +536,7 @@ void SubordinatedLaw::build_table() const {
       }
     }
   }
-  table_theta_.push_back(kPiF);
+  table_theta_.push_back(kPi);
   table_cumulative_.push_back(cumulative + right_tail);
 }
 
@@ -837,7 +830,7 @@ std::shared_ptr<const FreeMultiplicativeConvolution> free_multiplicative(
     if (s.lo < 0.0) {
       throw InputError(std::string("free_multiplicative: the ") + which + " law " +
                        law->describe() + " must lie on [0, inf) (its support starts at " +
-                       format_number(s.lo) + ")");
+                       detail::format_number(s.lo) + ")");
     }
   }
   if (!(options.epsilon > 0.0)) throw InputError("free_multiplicative: epsilon must be > 0");

@@ -17,13 +17,6 @@ constexpr double kPi = std::numbers::pi;
 
 namespace {
 
-std::string number(double x) {
-  std::ostringstream out;
-  out.precision(12);
-  out << x;
-  return out.str();
-}
-
 void check_moment_order(int k) {
   if (k < 0) throw InputError("moments: order must be >= 0 (got " + std::to_string(k) + ")");
 }
@@ -68,7 +61,7 @@ class Semicircle final : public Law {
     return m;
   }
   Support support() const override { return {-r_, r_, {}}; }
-  std::string describe() const override { return "semicircle(variance=" + number(v_) + ")"; }
+  std::string describe() const override { return "semicircle(variance=" + detail::format_number(v_) + ")"; }
 
  private:
   double v_;
@@ -118,7 +111,7 @@ class MarchenkoPastur final : public Law {
     if (c_ > 1.0) return {0.0, b_, {{0.0, 1.0 - 1.0 / c_}}};
     return {a_, b_, {}};
   }
-  std::string describe() const override { return "marchenko_pastur(ratio=" + number(c_) + ")"; }
+  std::string describe() const override { return "marchenko_pastur(ratio=" + detail::format_number(c_) + ")"; }
 
  private:
   double c_;
@@ -293,7 +286,7 @@ class Uniform final : public Law {
     return a_ + p * (b_ - a_);
   }
   std::string describe() const override {
-    return "uniform(" + number(a_) + ", " + number(b_) + ")";
+    return "uniform(" + detail::format_number(a_) + ", " + detail::format_number(b_) + ")";
   }
 
  private:
@@ -413,7 +406,7 @@ class FussCatalan final : public Law {
         if (!ok) next = 0.5 * (y + next);
       }
       if (!ok)
-        throw NumericalError("fuss_catalan: root continuation failed at z = " + number(z.real()));
+        throw NumericalError("fuss_catalan: root continuation failed at z = " + detail::format_number(z.real()));
       w = candidate;
       y = next;
     }
@@ -533,7 +526,7 @@ class Affine final : public Law {
     return Law::quantile(p);
   }
   std::string describe() const override {
-    return number(a_) + "*(" + law_->describe() + ")+" + number(b_);
+    return detail::format_number(a_) + "*(" + law_->describe() + ")+" + detail::format_number(b_);
   }
   bool radial() const override { return law_->radial(); }
 
@@ -553,7 +546,7 @@ cd Law::cauchy_derivative(cd z) const {
 
 double Law::quantile(double p) const {
   if (!(p >= 0.0 && p <= 1.0)) {
-    throw InputError("quantile: probability must lie in [0, 1] (got " + number(p) + ")");
+    throw InputError("quantile: probability must lie in [0, 1] (got " + detail::format_number(p) + ")");
   }
   const Support s = support();
   double lo = s.lo;
@@ -590,7 +583,7 @@ double Law::mass_at(double x) const {
 // ----------------------------------------------------------------------------------- factories
 LawPtr semicircle(double variance) {
   if (!(variance > 0.0) || !std::isfinite(variance)) {
-    throw InputError("semicircle: variance must be a finite number > 0 (got " + number(variance) +
+    throw InputError("semicircle: variance must be a finite number > 0 (got " + detail::format_number(variance) +
                      ")");
   }
   return std::make_shared<Semicircle>(variance);
@@ -598,7 +591,7 @@ LawPtr semicircle(double variance) {
 
 LawPtr marchenko_pastur(double ratio) {
   if (!(ratio > 0.0) || !std::isfinite(ratio)) {
-    throw InputError("marchenko_pastur: ratio must be a finite number > 0 (got " + number(ratio) +
+    throw InputError("marchenko_pastur: ratio must be a finite number > 0 (got " + detail::format_number(ratio) +
                      ")");
   }
   return std::make_shared<MarchenkoPastur>(ratio);
@@ -622,12 +615,12 @@ LawPtr make_atoms(std::vector<Atom> points, const char* who, std::string name) {
     if (!std::isfinite(a.value)) throw InputError(std::string(who) + ": values must be finite");
     if (!(a.mass >= 0.0) || !std::isfinite(a.mass)) {
       throw InputError(std::string(who) + ": weights must be finite and >= 0 (got " +
-                       number(a.mass) + ")");
+                       detail::format_number(a.mass) + ")");
     }
     total += a.mass;
   }
   if (std::abs(total - 1.0) > 1e-9) {
-    throw InputError(std::string(who) + ": weights must sum to 1 (got " + number(total) + ")");
+    throw InputError(std::string(who) + ": weights must sum to 1 (got " + detail::format_number(total) + ")");
   }
   std::sort(points.begin(), points.end(),
             [](const Atom& l, const Atom& r) { return l.value < r.value; });
@@ -670,7 +663,7 @@ LawPtr empirical(std::span<const double> values) {
 
 LawPtr uniform(double a, double b) {
   if (!std::isfinite(a) || !std::isfinite(b) || !(a < b)) {
-    throw InputError("uniform: needs finite a < b (got " + number(a) + ", " + number(b) + ")");
+    throw InputError("uniform: needs finite a < b (got " + detail::format_number(a) + ", " + detail::format_number(b) + ")");
   }
   return std::make_shared<Uniform>(a, b);
 }
@@ -687,8 +680,8 @@ LawPtr circular() { return std::make_shared<Circular>(); }
 LawPtr affine(LawPtr law, double a, double b) {
   if (!law) throw InputError("affine: law is null");
   if (!std::isfinite(a) || !std::isfinite(b) || a == 0.0) {
-    throw InputError("affine: needs finite a != 0 and finite b (got a=" + number(a) +
-                     ", b=" + number(b) + ")");
+    throw InputError("affine: needs finite a != 0 and finite b (got a=" + detail::format_number(a) +
+                     ", b=" + detail::format_number(b) + ")");
   }
   if (law->radial() && (a <= 0.0 || b != 0.0)) {
     throw InputError("affine: a radial law (" + law->describe() +

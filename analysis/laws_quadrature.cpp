@@ -1,6 +1,8 @@
 // Gauss–Legendre rules and the adaptive integrators used for CDFs and moments checks.
 #include "laws_quadrature.hpp"
 
+#include <sstream>
+
 #include <algorithm>
 #include <cmath>
 #include <map>
@@ -85,6 +87,13 @@ double integrate_density(const std::function<double(double)>& f, double lo, doub
     return f(lo + 2.0 * half * s * s) * half * std::sin(t);
   };
   return integrate(integrand, 0.0, theta, tol);
+}
+
+std::string format_number(double x) {
+  std::ostringstream out;
+  out.precision(12);
+  out << x;
+  return out.str();
 }
 
 }  // namespace freegap::analysis::detail

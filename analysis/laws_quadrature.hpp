@@ -2,6 +2,7 @@
 #pragma once
 
 #include <functional>
+#include <string>
 #include <vector>
 
 namespace freegap::analysis::detail {
@@ -22,5 +23,8 @@ double integrate(const std::function<double(double)>& f, double a, double b, dou
 /// substitution x = lo + (hi − lo)(1 − cos θ)/2 makes the integrand smooth at both edges.
 double integrate_density(const std::function<double(double)>& f, double lo, double hi, double x,
                          double tol = 1e-14);
+
+/// A number for messages and descriptions: 12 significant digits.
+std::string format_number(double x);
 
 }  // namespace freegap::analysis::detail
