@@ -10,6 +10,7 @@
 #include <string>
 #include <vector>
 
+#include "commands.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
@@ -205,6 +206,9 @@ int main(int argc, char** argv) {
   inspect_cmd->add_flag("--moments", inspect_moments,
                         "Also print each size's moments, extremes and norm with standard errors");
 
+  // Subcommands in files of their own (commands.hpp).
+  std::vector<freegap::cli::Subcommand> extra;
+
   // An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
   // subcommand is required).
   if (argc > 1 && argv[1][0] != '-') {
@@ -214,8 +218,12 @@ int main(int argc, char** argv) {
       known |= sub->get_name() == first;
     }
     if (!known) {
-      std::cerr << "freegap: unknown command '" << first
-                << "'; the commands are sample, run and inspect (see freegap --help)\n";
+      std::string names;
+      for (const auto* sub : app.get_subcommands([](const CLI::App*) { return true; })) {
+        names += (names.empty() ? "" : ", ") + sub->get_name();
+      }
+      std::cerr << "freegap: unknown command '" << first << "'; the commands are " << names
+                << " (see freegap --help)\n";
       return kExitBadInput;
     }
   }
@@ -249,6 +257,9 @@ int main(int argc, char** argv) {
   try {
     if (*inspect_cmd) return run_inspect(inspect_path, inspect_job, inspect_moments);
     if (*sample_cmd) return run_sample(sample);
+    for (const auto& sub : extra) {
+      if (*sub.command) return sub.action();
+    }
   } catch (const freegap::InputError& e) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitBadInput;
