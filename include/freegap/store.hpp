@@ -156,6 +156,10 @@ class RunFile {
   /// Observations of a size rebuilt from its committed units only: the histogram is the sum of
   /// their unit histograms, rows are their trials in trial order.
   observe::Observations read_observations(std::size_t size_index) const;
+
+  /// The histogram of each committed unit of a size, in unit order (the independent replicates
+  /// a bootstrap resamples).
+  std::vector<observe::Histogram> read_unit_histograms(std::size_t size_index) const;
   Provenance read_provenance() const;
 
   /// The implementation (opaque; public only so that helpers in the source file can name it).

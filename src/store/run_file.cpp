@@ -1117,6 +1117,31 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
   f.committed[unit.size_index][u] = true;
 }
 
+std::vector<observe::Histogram> RunFile::read_unit_histograms(std::size_t size_index) const {
+  h5::quiet();
+  const Impl& f = *impl_;
+  if (size_index >= f.header.sizes.size()) {
+    throw Error("run file '" + f.path + "': no size " + std::to_string(size_index));
+  }
+  const SizeLayout& layout = f.header.sizes[size_index];
+  const SizeHandles& s = f.sizes[size_index];
+  const auto& flags = f.committed[size_index];
+  const Where w = f.where();
+  const std::string what = "read the unit histograms of size " + std::to_string(size_index);
+  const std::size_t bins = layout.observe.bins();
+  std::vector<observe::Histogram> out;
+  for (std::size_t u = 0; u < flags.size(); ++u) {
+    if (!flags[u]) continue;
+    observe::Histogram h = observe::empty_histogram(layout.observe);
+    h5::read_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins}, h.counts.data(), w,
+                   what);
+    h5::read_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &h.below, w, what);
+    h5::read_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &h.above, w, what);
+    out.push_back(std::move(h));
+  }
+  return out;
+}
+
 observe::Observations RunFile::read_observations(std::size_t size_index) const {
   h5::quiet();
   const Impl& f = *impl_;

@@ -78,6 +78,9 @@ LawPtr fuss_catalan(int s);
 LawPtr circular();
 /// The empirical law (1/n) Σ δ_{λ_i} of a spectrum (repeated values merged).
 LawPtr empirical(std::span<const double> values);
+/// The law of √Y for Y ~ law on [0, ∞) (singular values from squared singular values). Even
+/// moments are Y's moments; odd moments and the Cauchy transform are computed by quadrature.
+LawPtr square_root(LawPtr law);
 /// The law of a·X + b for X ~ law (a ≠ 0; for a radial law only a > 0, b = 0).
 LawPtr affine(LawPtr law, double a, double b);
 

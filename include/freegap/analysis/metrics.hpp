@@ -46,6 +46,10 @@ namespace freegap::analysis {
 
 inline constexpr double kDistanceResolutionFactor = 3.0;
 inline constexpr double kSignedResolutionFactor = 2.0;
+/// A moment error no larger than this times max|x|^k is at the level of floating-point rounding
+/// (the moments are accurate to a few ulps relative to (1/N) Σ |x|^k, observe.hpp) and is never
+/// resolved, whatever its standard error.
+inline constexpr double kRoundingResolution = 1e-12;
 
 /// What the metrics need of a limit law. Only `cdf` and the support are required.
 struct LimitDistribution {

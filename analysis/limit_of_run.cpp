@@ -1,0 +1,412 @@
+// The limit of a job's model by the rules listed in limit.hpp.
+#include <algorithm>
+#include <cmath>
+#include <map>
+#include <optional>
+#include <set>
+#include <sstream>
+
+#include "freegap/analysis/free_convolution.hpp"
+#include "freegap/analysis/limit.hpp"
+#include "freegap/analysis/moments.hpp"
+#include "freegap/errors.hpp"
+#include "freegap/job.hpp"
+#include "laws_quadrature.hpp"
+
+namespace freegap::analysis {
+
+namespace {
+
+using ensembles::Kind;
+using ensembles::MatrixSpec;
+using Letters = std::vector<std::pair<int, bool>>;
+
+bool semicircular(Kind k) {
+  return k == Kind::gue || k == Kind::goe || k == Kind::wigner_rademacher || k == Kind::beta_hermite;
+}
+bool marchenko_pastur_kind(Kind k) {
+  return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::beta_laguerre;
+}
+bool ginibre(Kind k) { return k == Kind::ginibre_complex || k == Kind::ginibre_real; }
+
+// The limit law of one self-adjoint matrix, or a reason why there is none.
+struct LetterLaw {
+  LawPtr law;
+  std::string name;  // for the rule text
+  std::string reason;
+};
+
+LetterLaw law_of(const MatrixSpec& m) {
+  using DL = ensembles::DiagonalLawKind;
+  const std::string who = m.name + " (" + std::string(ensembles::kind_name(m.kind)) + ")";
+  if (semicircular(m.kind)) return {semicircle(1.0), "semicircle", {}};
+  if (marchenko_pastur_kind(m.kind)) {
+    return {marchenko_pastur(m.ratio), "Marchenko-Pastur(" + detail::format_number(m.ratio) + ")", {}};
+  }
+  if (m.kind != Kind::diagonal) return {nullptr, {}, who + " is not self-adjoint"};
+  switch (m.diagonal.kind) {
+    case DL::atoms: {
+      std::vector<Atom> points;
+      for (const auto& a : m.diagonal.atoms) points.push_back({a.value, a.weight});
+      return {atoms(std::move(points)), "its atoms", {}};
+    }
+    case DL::uniform:
+      return {uniform(m.diagonal.low, m.diagonal.high), "uniform", {}};
+    case DL::semicircle_quantiles:
+      return {semicircle(m.diagonal.variance), "semicircle", {}};
+    case DL::marchenko_pastur_quantiles:
+      return {marchenko_pastur(m.diagonal.ratio), "Marchenko-Pastur", {}};
+    case DL::file:
+      break;
+  }
+  return {nullptr, {}, who + " is read from a file; its limit law is not known to the analysis"};
+}
+
+// The law of X² for a self-adjoint matrix X with a known law, when it has a closed form here.
+LawPtr square_law(const MatrixSpec& m, const LawPtr& law) {
+  if (semicircular(m.kind)) return marchenko_pastur(1.0);  // X² of a standard semicircular
+  if (m.kind == Kind::diagonal && m.diagonal.kind == ensembles::DiagonalLawKind::atoms) {
+    std::vector<Atom> squared;
+    for (const Atom& a : law->support().atoms) squared.push_back({a.value * a.value, a.mass});
+    return atoms(std::move(squared));
+  }
+  if (m.kind == Kind::diagonal && m.diagonal.kind == ensembles::DiagonalLawKind::semicircle_quantiles) {
+    return affine(marchenko_pastur(1.0), m.diagonal.variance, 0.0);
+  }
+  return nullptr;
+}
+
+// One free term of a sum: its law, what it uses, and how it reads.
+struct FreeTerm {
+  LawPtr law;
+  std::string text;
+  std::set<int> random_letters;         // random matrices and Haar unitaries it uses
+  std::set<int> deterministic_letters;  // deterministic matrices it uses unconjugated
+  bool unitary_pair = false;            // c·(U + U^*)
+  bool haar_orthogonal = false;         // a conjugation or pair by a Haar orthogonal
+  bool haar_unitary = false;
+  double coefficient = 1.0;
+};
+
+struct Failure {
+  std::string reason;
+};
+
+std::string word_text(const Letters& letters, const std::vector<MatrixSpec>& declared) {
+  std::string s;
+  for (const auto& [i, adj] : letters) {
+    s += (s.empty() ? "" : " ") + declared[static_cast<std::size_t>(i)].name + (adj ? "^*" : "");
+  }
+  return s;
+}
+
+// A monomial c·w as a free self-adjoint term, or nullopt with `why` set.
+std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<MatrixSpec>& d,
+                            std::string& why) {
+  auto spec = [&](std::size_t k) -> const MatrixSpec& { return d[static_cast<std::size_t>(w[k].first)]; };
+  auto use = [&](FreeTerm& t, int letter) {
+    if (ensembles::is_random(d[static_cast<std::size_t>(letter)].kind)) {
+      t.random_letters.insert(letter);
+    } else {
+      t.deterministic_letters.insert(letter);
+    }
+  };
+  const std::string text = word_text(w, d);
+  FreeTerm t;
+  t.coefficient = c;
+  if (w.size() == 1 && ensembles::is_self_adjoint(spec(0).kind)) {
+    const LetterLaw l = law_of(spec(0));
+    if (!l.law) {
+      why = l.reason;
+      return std::nullopt;
+    }
+    t.law = l.law;
+    t.text = text + " → " + l.name +
+             (semicircular(spec(0).kind)           ? " (Wigner 1955)"
+              : marchenko_pastur_kind(spec(0).kind) ? " (Marchenko & Pastur 1967)"
+                                                   : "");
+    use(t, w[0].first);
+    return t;
+  }
+  // U X U^* or U^* X U: a free copy of X's law.
+  if (w.size() == 3 && ensembles::is_unitary(spec(0).kind) && w[2].first == w[0].first &&
+      w[0].second != w[2].second && ensembles::is_self_adjoint(spec(1).kind)) {
+    const LetterLaw l = law_of(spec(1));
+    if (!l.law) {
+      why = l.reason;
+      return std::nullopt;
+    }
+    t.law = l.law;
+    t.text = text + " → free copy of " + spec(1).name + " (" + l.name + "; Voiculescu 1991)";
+    t.random_letters.insert(w[0].first);
+    if (ensembles::is_random(spec(1).kind)) t.random_letters.insert(w[1].first);
+    (spec(0).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
+    return t;
+  }
+  // X Y X (or X U Y U^* X): law(X²) ⊠ law(Y) when Y ≥ 0.
+  const bool sandwich3 = w.size() == 3 && w[0].first == w[2].first && w[0].first != w[1].first &&
+                         ensembles::is_self_adjoint(spec(0).kind) &&
+                         ensembles::is_self_adjoint(spec(1).kind);
+  const bool sandwich5 = w.size() == 5 && w[0].first == w[4].first &&
+                         ensembles::is_self_adjoint(spec(0).kind) &&
+                         ensembles::is_unitary(spec(1).kind) && w[3].first == w[1].first &&
+                         w[1].second != w[3].second && ensembles::is_self_adjoint(spec(2).kind);
+  if (sandwich3 || sandwich5) {
+    const MatrixSpec& x = spec(0);
+    const MatrixSpec& y = spec(sandwich3 ? 1 : 2);
+    const bool x_fixed = !ensembles::is_random(x.kind);
+    const bool y_fixed = !ensembles::is_random(y.kind) && sandwich3;
+    if (x_fixed && y_fixed) {
+      why = "'" + text + "': two deterministic matrices are not free of each other";
+      return std::nullopt;
+    }
+    const LetterLaw lx = law_of(x);
+    const LetterLaw ly = law_of(y);
+    if (!lx.law || !ly.law) {
+      why = !lx.law ? lx.reason : ly.reason;
+      return std::nullopt;
+    }
+    const LawPtr x2 = square_law(x, lx.law);
+    if (!x2) {
+      why = "'" + text + "': the law of " + x.name + "² has no closed form here";
+      return std::nullopt;
+    }
+    if (ly.law->support().lo < 0.0) {
+      why = "'" + text + "': the middle factor " + y.name +
+            " takes negative values, and the free multiplicative convolution needs a law on "
+            "[0, inf) (its exact moments are still reported)";
+      return std::nullopt;
+    }
+    t.law = free_multiplicative(x2, ly.law);
+    t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + ") (Voiculescu 1987)";
+    use(t, w[0].first);
+    if (sandwich3) {
+      use(t, w[1].first);
+    } else {
+      t.random_letters.insert(w[1].first);
+      if (ensembles::is_random(y.kind)) t.random_letters.insert(w[2].first);
+      (spec(1).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
+    }
+    return t;
+  }
+  why = "no rule covers the term '" + text + "'";
+  return std::nullopt;
+}
+
+std::string ginibre_singular_values(const std::vector<expr::Monomial>& terms,
+                                    const std::vector<MatrixSpec>& d, DerivedLimit& out) {
+  if (terms.size() != 1 || terms[0].letters.empty()) {
+    return "singular values are predicted only for a single product of Ginibre matrices";
+  }
+  const auto& w = terms[0].letters;
+  std::set<int> seen;
+  for (const auto& [i, adj] : w) {
+    const MatrixSpec& m = d[static_cast<std::size_t>(i)];
+    if (!ginibre(m.kind)) return "singular values are predicted only for products of Ginibre matrices";
+    if (!seen.insert(i).second) return "a Ginibre matrix repeats in the product";
+    if (w.size() > 1 && m.ratio != 1.0) return "products of rectangular Ginibre matrices are not predicted";
+  }
+  const double c = std::abs(terms[0].coefficient);
+  const int s = static_cast<int>(w.size());
+  LawPtr law;
+  if (s == 1 && d[static_cast<std::size_t>(w[0].first)].ratio != 1.0) {
+    const double ratio = d[static_cast<std::size_t>(w[0].first)].ratio;
+    law = square_root(marchenko_pastur(ratio));
+    out.rule = "singular values of a rectangular Ginibre matrix → √ of Marchenko–Pastur(" +
+               detail::format_number(ratio) + ") (Marchenko & Pastur 1967)";
+  } else if (s == 1) {
+    law = quarter_circle();
+    out.rule = "singular values of a square Ginibre matrix → quarter-circle law (Marchenko & Pastur 1967)";
+  } else {
+    law = square_root(fuss_catalan(s));
+    out.rule = "singular values of a product of " + std::to_string(s) +
+               " Ginibre matrices → √ of the Fuss–Catalan law π^⊠" + std::to_string(s) +
+               " (Banica, Belinschi, Capitaine & Collins 2011)";
+  }
+  out.law = c == 1.0 ? law : affine(law, c, 0.0);
+  return {};
+}
+
+}  // namespace
+
+expr::Expression run_expression(const store::RunHeader& header) {
+  const job::Job job = job::parse_job(header.job_text, "<job stored in the run file>");
+  expr::CheckOptions check;
+  check.force_singular_values = job.observe.singular_values;
+  return expr::Expression(job.expression, job.matrices, check);
+}
+
+DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
+  DerivedLimit out;
+  const auto& d = expression.declared();
+  const bool eigenvalues = expression.spectrum() == expr::Spectrum::eigenvalues;
+
+  // Exact moments first: they stand on their own, whatever the rules say.
+  if (eigenvalues) {
+    try {
+      for (const ExactValue& v : limit_moments(expression, std::max(max_moment, 0))) {
+        out.exact_moments.push_back(v.value);
+        out.exact_moment_text.push_back(v.text);
+      }
+    } catch (const Error& e) {
+      out.moments_note = e.what();
+    }
+  } else {
+    out.moments_note = "exact moments are computed for eigenvalues only (this model's spectrum is its singular values)";
+  }
+
+  std::vector<expr::Monomial> terms;
+  try {
+    terms = expression.expansion(10000);
+  } catch (const Error& e) {
+    out.reason = std::string("the expression's expansion is too large for the rules: ") + e.what();
+    return out;
+  }
+  if (!eigenvalues) {
+    if (expression.self_adjoint()) {
+      out.reason = "singular values of a self-adjoint expression (forced) are not predicted; use eigenvalues";
+      return out;
+    }
+    out.reason = ginibre_singular_values(terms, d, out);
+    if (!out.reason.empty()) out.reason = "no predictor applies yet: " + out.reason;
+    return out;
+  }
+
+  // Split into the constant, the U + U^* pairs and the other terms.
+  double shift = 0.0;
+  std::vector<FreeTerm> free_terms;
+  std::map<int, std::vector<const expr::Monomial*>> single_unitary;  // letter → its monomials
+  for (const auto& m : terms) {
+    if (m.letters.empty()) {
+      shift += m.coefficient;
+      continue;
+    }
+    if (m.letters.size() == 1 && ensembles::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind)) {
+      single_unitary[m.letters[0].first].push_back(&m);
+      continue;
+    }
+    std::string why;
+    auto t = term_of(m.coefficient, m.letters, d, why);
+    if (!t) {
+      out.reason = "no predictor applies yet: " + why;
+      return out;
+    }
+    free_terms.push_back(std::move(*t));
+  }
+  for (const auto& [letter, ms] : single_unitary) {
+    const MatrixSpec& u = d[static_cast<std::size_t>(letter)];
+    if (ms.size() != 2 || ms[0]->coefficient != ms[1]->coefficient ||
+        ms[0]->letters[0].second == ms[1]->letters[0].second) {
+      out.reason = "no predictor applies yet: " + u.name + " appears alone, not as " + u.name +
+                   " + " + u.name + "^*";
+      return out;
+    }
+    FreeTerm t;
+    t.law = arcsine();
+    t.coefficient = ms[0]->coefficient;
+    t.text = u.name + " + " + u.name + "^* → arcsine law (Kesten 1959)";
+    t.random_letters.insert(letter);
+    t.unitary_pair = true;
+    (u.kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
+    free_terms.push_back(std::move(t));
+  }
+  if (free_terms.empty()) {
+    out.law = atoms({{shift, 1.0}});
+    out.rule = "a multiple of the identity";
+    return out;
+  }
+
+  // Freeness: random matrices and unitaries in one term only; a deterministic matrix
+  // unconjugated in one term only.
+  std::map<int, int> random_owner;
+  std::map<int, int> fixed_owner;
+  for (std::size_t i = 0; i < free_terms.size(); ++i) {
+    for (int l : free_terms[i].random_letters) {
+      if (random_owner.count(l)) {
+        out.reason = "no predictor applies yet: " + d[static_cast<std::size_t>(l)].name +
+                     " appears in more than one term, so the terms are not free of each other";
+        return out;
+      }
+      random_owner[l] = static_cast<int>(i);
+    }
+    for (int l : free_terms[i].deterministic_letters) fixed_owner.emplace(l, static_cast<int>(i));
+  }
+  std::set<int> fixed_terms;
+  for (const auto& [letter, owner] : fixed_owner) fixed_terms.insert(owner);
+  for (std::size_t i = 0; i < free_terms.size(); ++i) {
+    for (int l : free_terms[i].deterministic_letters) {
+      if (fixed_owner.at(l) != static_cast<int>(i)) {
+        out.reason = "no predictor applies yet: " + d[static_cast<std::size_t>(l)].name +
+                     " appears unconjugated in more than one term";
+        return out;
+      }
+    }
+  }
+  if (fixed_terms.size() > 1) {
+    out.reason = "no predictor applies yet: two terms hold deterministic matrices without a Haar "
+                 "conjugation, and commuting matrices are not free";
+    return out;
+  }
+
+  // Kesten–McKay: every term is U_i + U_i^* with coefficient 1.
+  const bool all_pairs = std::all_of(free_terms.begin(), free_terms.end(), [](const FreeTerm& t) {
+    return t.unitary_pair && t.coefficient == 1.0;
+  });
+  LawPtr law;
+  std::string rule;
+  if (all_pairs && free_terms.size() > 1) {
+    const int deg = static_cast<int>(free_terms.size());
+    law = kesten_mckay(deg);
+    rule = "a sum of " + std::to_string(deg) + " free U + U^* → Kesten–McKay law of degree " +
+           std::to_string(2 * deg) + " (Kesten 1959; McKay 1981)";
+  } else {
+    for (const FreeTerm& t : free_terms) {
+      const LawPtr scaled = t.coefficient == 1.0 ? t.law : affine(t.law, t.coefficient, 0.0);
+      law = law ? LawPtr(free_additive(law, scaled)) : scaled;
+      rule += (rule.empty() ? "" : "; ") +
+              (t.coefficient == 1.0 ? std::string() : detail::format_number(t.coefficient) + "·") +
+              "(" + t.text + ")";
+    }
+    if (free_terms.size() > 1) {
+      rule = "free additive convolution of free terms (Voiculescu 1986; Belinschi & Bercovici "
+             "2007): " + rule;
+    } else {
+      rule = free_terms[0].text;
+      if (free_terms[0].coefficient != 1.0) {
+        rule += "; scaled by " + detail::format_number(free_terms[0].coefficient);
+      }
+    }
+  }
+  if (shift != 0.0) {
+    law = affine(law, 1.0, shift);
+    rule += "; shifted by " + detail::format_number(shift);
+  }
+  out.law = law;
+  out.rule = rule;
+
+  // The published-rate key of the model, when it is one the table knows.
+  if (free_terms.size() == 1 && !free_terms[0].unitary_pair && free_terms[0].random_letters.size() == 1 &&
+      free_terms[0].deterministic_letters.empty() && !free_terms[0].haar_unitary &&
+      !free_terms[0].haar_orthogonal) {
+    switch (d[static_cast<std::size_t>(*free_terms[0].random_letters.begin())].kind) {
+      case Kind::gue: out.rate_key = "gue"; break;
+      case Kind::goe: out.rate_key = "goe"; break;
+      case Kind::wigner_rademacher: out.rate_key = "wigner"; break;
+      case Kind::wishart_complex: out.rate_key = "wishart_complex"; break;
+      case Kind::wishart_real: out.rate_key = "wishart_real"; break;
+      default: break;
+    }
+  } else if (free_terms.size() > 1 &&
+             std::all_of(free_terms.begin(), free_terms.end(), [](const FreeTerm& t) {
+               // deterministic matrices, each either as it is or conjugated by its own Haar matrix
+               const bool conjugated = t.haar_unitary || t.haar_orthogonal;
+               return !t.unitary_pair && t.random_letters.size() == (conjugated ? 1U : 0U);
+             })) {
+    const bool orth = std::any_of(free_terms.begin(), free_terms.end(),
+                                  [](const FreeTerm& t) { return t.haar_orthogonal; });
+    out.rate_key = orth ? "haar_orthogonal_sum" : "haar_unitary_sum";
+  }
+  return out;
+}
+
+}  // namespace freegap::analysis

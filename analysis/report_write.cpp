@@ -1,0 +1,172 @@
+// Writing a report directory: CSV tables, the HDF5 copy of the tables, the figures, all or nothing.
+#include <hdf5.h>
+#include <spawn.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <cerrno>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+
+#include "freegap/analysis/report.hpp"
+#include "freegap/errors.hpp"
+#include "freegap/version.hpp"
+
+extern char** environ;
+
+namespace freegap::analysis {
+
+namespace fs = std::filesystem;
+
+namespace {
+
+void write_text(const fs::path& path, const std::string& text) {
+  std::ofstream out(path, std::ios::binary);
+  out << text;
+  out.close();
+  if (!out) throw Error("report: cannot write '" + path.string() + "': " + std::strerror(errno));
+}
+
+// Every table as /tables/<name>/<column>: a float64 dataset for numeric columns, a
+// variable-length UTF-8 string dataset for text columns; attributes say what wrote the file.
+void write_hdf5(const fs::path& path, const std::vector<Table>& tables) {
+  H5Eset_auto2(H5E_DEFAULT, nullptr, nullptr);
+  const hid_t file = H5Fcreate(path.c_str(), H5F_ACC_EXCL, H5P_DEFAULT, H5P_DEFAULT);
+  if (file < 0) throw Error("report: cannot create '" + path.string() + "'");
+  bool ok = true;
+  const hid_t str = H5Tcopy(H5T_C_S1);
+  H5Tset_size(str, H5T_VARIABLE);
+  H5Tset_cset(str, H5T_CSET_UTF8);
+  const auto attribute = [&](hid_t where, const char* name, const std::string& value) {
+    const hid_t space = H5Screate(H5S_SCALAR);
+    const hid_t a = H5Acreate2(where, name, str, space, H5P_DEFAULT, H5P_DEFAULT);
+    const char* p = value.c_str();
+    ok &= a >= 0 && H5Awrite(a, str, &p) >= 0;
+    H5Aclose(a);
+    H5Sclose(space);
+  };
+  attribute(file, "kind", "freegap report");
+  attribute(file, "tool_version", tool_version);
+  attribute(file, "git_revision", git_revision);
+  const hid_t group = H5Gcreate2(file, "tables", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
+  ok &= group >= 0;
+  for (const Table& t : tables) {
+    const hid_t g = H5Gcreate2(group, t.name.c_str(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
+    ok &= g >= 0;
+    const hsize_t rows = t.rows.size();
+    for (std::size_t c = 0; c < t.columns.size(); ++c) {
+      const bool text = !t.rows.empty() && std::holds_alternative<std::string>(t.rows.front()[c]);
+      const hid_t space = H5Screate_simple(1, &rows, nullptr);
+      const hid_t type = text ? str : H5T_IEEE_F64LE;
+      const hid_t d = H5Dcreate2(g, t.columns[c].c_str(), type, space, H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
+      ok &= d >= 0;
+      if (text) {
+        std::vector<const char*> values;
+        for (const auto& row : t.rows) values.push_back(std::get<std::string>(row[c]).c_str());
+        if (rows > 0) ok &= H5Dwrite(d, str, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()) >= 0;
+      } else {
+        std::vector<double> values;
+        for (const auto& row : t.rows) values.push_back(std::get<double>(row[c]));
+        if (rows > 0) ok &= H5Dwrite(d, H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()) >= 0;
+      }
+      H5Dclose(d);
+      H5Sclose(space);
+    }
+    H5Gclose(g);
+  }
+  H5Gclose(group);
+  H5Tclose(str);
+  ok &= H5Fclose(file) >= 0;
+  if (!ok) throw Error("report: writing '" + path.string() + "' failed");
+}
+
+// Runs argv, waits; returns its exit status, or throws when it cannot start.
+int run_program(const std::vector<std::string>& argv) {
+  std::vector<char*> args;
+  for (const auto& a : argv) args.push_back(const_cast<char*>(a.c_str()));
+  args.push_back(nullptr);
+  pid_t pid = 0;
+  const int rc = posix_spawnp(&pid, args[0], nullptr, nullptr, args.data(), environ);
+  if (rc != 0) throw Error("report: cannot start '" + argv[0] + "': " + std::strerror(rc));
+  int status = 0;
+  while (waitpid(pid, &status, 0) < 0) {
+    if (errno != EINTR) throw Error("report: waiting for '" + argv[0] + "' failed");
+  }
+  return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
+}
+
+// ".NAME.WHAT.PID" beside the directory NAME.
+fs::path hidden_sibling(const fs::path& parent, const fs::path& dir, const char* what) {
+  std::string name(".");
+  name += dir.filename().string();
+  name += what;
+  name += std::to_string(getpid());
+  return parent / name;
+}
+
+fs::path default_dir(const std::string& first) {
+  const fs::path p(first);
+  return p.parent_path() / (p.stem().string() + "-report");
+}
+
+}  // namespace
+
+std::string write_report(const std::vector<std::string>& run_files, const ReportOptions& options,
+                         Report* built) {
+  const fs::path dir = options.output_dir.empty() ? default_dir(run_files.at(0)) : fs::path(options.output_dir);
+  std::error_code ec;
+  if (fs::exists(dir, ec)) {
+    if (!fs::is_directory(dir, ec)) {
+      throw InputError("report: output '" + dir.string() + "' exists and is not a directory; choose another -o");
+    }
+    if (!fs::is_empty(dir, ec) && !fs::exists(dir / "report.md", ec)) {
+      throw InputError("report: output directory '" + dir.string() +
+                       "' is not empty and holds no report.md, so it is not a freegap report; "
+                       "choose another -o (a report directory is replaced as a whole)");
+    }
+  }
+  const Report report = build_report(run_files, options);
+
+  // Everything goes into a temporary sibling first; it replaces `dir` only when complete.
+  const fs::path parent = dir.has_parent_path() ? dir.parent_path() : fs::path(".");
+  const fs::path tmp = hidden_sibling(parent, dir, ".writing.");
+  fs::remove_all(tmp, ec);
+  if (!fs::create_directories(tmp, ec) || ec) {
+    throw Error("report: cannot create '" + tmp.string() + "': " + ec.message());
+  }
+  try {
+    write_text(tmp / "report.md", report.markdown);
+    for (const Table& t : report.tables) write_text(tmp / (t.name + ".csv"), to_csv(t));
+    write_hdf5(tmp / "report.h5", report.tables);
+    if (options.figures) {
+      fs::create_directories(tmp / "figures");
+      const std::string script =
+          options.plot_script.empty() ? std::string(FREEGAP_ANALYSIS_DIR "/plot_report.py") : options.plot_script;
+      if (!fs::exists(script, ec)) {
+        throw Error("report: the figure script '" + script + "' is missing; use --no-figures");
+      }
+      const int rc = run_program({options.python, script, tmp.string()});
+      if (rc != 0) {
+        throw Error("report: drawing the figures failed (" + options.python + " " + script +
+                    " exited with " + std::to_string(rc) +
+                    "); it needs Debian's python3-matplotlib, or use --no-figures");
+      }
+    }
+    if (fs::exists(dir, ec)) {
+      const fs::path old = hidden_sibling(parent, dir, ".old.");
+      fs::rename(dir, old);
+      fs::rename(tmp, dir);
+      fs::remove_all(old, ec);
+    } else {
+      fs::rename(tmp, dir);
+    }
+  } catch (...) {
+    fs::remove_all(tmp, ec);
+    throw;
+  }
+  if (built) *built = report;
+  return dir.string();
+}
+
+}  // namespace freegap::analysis
