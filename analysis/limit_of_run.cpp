@@ -204,17 +204,12 @@ std::string ginibre_singular_values(const std::vector<expr::Monomial>& terms,
     const MatrixSpec& m = d[static_cast<std::size_t>(i)];
     if (!ginibre(m.kind)) return "singular values are predicted only for products of Ginibre matrices";
     if (!seen.insert(i).second) return "a Ginibre matrix repeats in the product";
-    if (w.size() > 1 && m.ratio != 1.0) return "products of rectangular Ginibre matrices are not predicted";
+    if (m.ratio != 1.0) return "rectangular Ginibre matrices are not predicted";
   }
   const double c = std::abs(terms[0].coefficient);
   const int s = static_cast<int>(w.size());
   LawPtr law;
-  if (s == 1 && d[static_cast<std::size_t>(w[0].first)].ratio != 1.0) {
-    const double ratio = d[static_cast<std::size_t>(w[0].first)].ratio;
-    law = square_root(marchenko_pastur(ratio));
-    out.rule = "singular values of a rectangular Ginibre matrix → √ of Marchenko–Pastur(" +
-               detail::format_number(ratio) + ") (Marchenko & Pastur 1967)";
-  } else if (s == 1) {
+  if (s == 1) {
     law = quarter_circle();
     out.rule = "singular values of a square Ginibre matrix → quarter-circle law (Marchenko & Pastur 1967)";
   } else {

@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # The README's demo command: install what is missing, build, run a small job on two local MPI
-# ranks, and print what the run file holds with each size's moments.
+# ranks, print what the run file holds with each size's moments, and report it against its limit
+# (build/demo-report/: report.md, tables and figures).
 #
 # Re-running it resumes the same run file, which is already complete, so a second run is quick;
 # delete build/demo.h5 (or pass --fresh to freegap run) to sample again.
@@ -17,3 +18,7 @@ mpirun -np 2 -x OPENBLAS_NUM_THREADS "$exe" run "$FREEGAP_ROOT/jobs/demo.toml" -
 echo
 echo "== the run file (limit: arcsine law, m2 = 2, m4 = 6, m6 = 20, m8 = 70, norm 2) =="
 "$exe" inspect "$out" --moments
+echo
+echo "== against the limit: errors per size, rates and figures =="
+"$exe" report "$out" -o "$FREEGAP_BUILD_DIR/demo-report"
+echo "open $FREEGAP_BUILD_DIR/demo-report/report.md and $FREEGAP_BUILD_DIR/demo-report/figures/"

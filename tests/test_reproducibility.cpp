@@ -174,13 +174,20 @@ TEST_F(ReproducibilityTwoProcesses, SameKeyGivesBitIdenticalMatricesInEveryProce
   }
 }
 
-// Samplers that use no factorisation (Gaussian and Rademacher Wigner, Ginibre, Wishart through a
-// rank-k update, diagonal) give the same bits with 1 and 2 OpenBLAS threads. N = 400 so that
-// OpenBLAS actually splits the rank-k update between threads (it runs small sizes on one thread).
-TEST_F(ReproducibilityTwoProcesses, SamplersWithoutFactorisationIgnoreBlasThreadCount) {
+// Samplers that call no BLAS at all (Gaussian and Rademacher Wigner, Ginibre, diagonal) give the
+// same bits with 1 and 2 OpenBLAS threads. Wishart is left out: its rank-k update goes through
+// BLAS, and how OpenBLAS splits it between threads is a matter of its CPU kernel — measured here:
+// Debian's OpenBLAS 0.3.21 gives the same bits for 1 and 2 threads on one x86-64 machine and
+// different last bits for the complex update (zherk) on an AMD EPYC with AVX-512. That is why a
+// run file records its BLAS thread count and a resume with another count is refused
+// (tests/python/check_run_bad_input.py). N = 400 so that OpenBLAS would split the work.
+TEST_F(ReproducibilityTwoProcesses, SamplersWithoutBlasIgnoreBlasThreadCount) {
   const std::string key_args = " --n 400 --seed 5 --trial 2 --name W";
   for (const Case& c : all_cases()) {
-    if (ens::is_unitary(c.kind)) continue;
+    if (ens::is_unitary(c.kind) || c.kind == ens::Kind::wishart_complex ||
+        c.kind == ens::Kind::wishart_real) {
+      continue;
+    }
     SCOPED_TRACE(c.label);
     const std::string args = std::string(c.tool_args) + key_args;
     const CommandResult one = run("OPENBLAS_NUM_THREADS=1 " + kTool + " checksum " + args);

@@ -16,8 +16,8 @@
 //     unitary in one term only; deterministic matrices unconjugated in one term only) → the free
 //     additive convolution of their laws (Voiculescu 1986; Belinschi & Bercovici 2007);
 //   - singular values of a product G_1 ⋯ G_s of distinct square Ginibre matrices → √ of the
-//     Fuss–Catalan law π^{⊠s} (Banica, Belinschi, Capitaine & Collins 2011); of one rectangular
-//     Ginibre matrix → √ of Marchenko–Pastur(c).
+//     Fuss–Catalan law π^{⊠s} (Banica, Belinschi, Capitaine & Collins 2011; s = 1: the
+//     quarter-circle law).
 // Anything else gets a plain sentence saying that no predictor applies yet, and the finite-N
 // data is still reported.
 #pragma once

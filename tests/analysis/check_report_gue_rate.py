@@ -1,0 +1,125 @@
+#!/usr/bin/env python3
+"""End to end: a GUE size ladder, run under mpirun, reported by `freegap report`.
+
+Usage: check_report_gue_rate.py BUILD_DIR
+
+What must hold (fixed seed, so the numbers never change between runs):
+1. The fitted exponent of the Kolmogorov distance of the mean spectral distribution is
+   consistent with 1: its 95% t-interval contains 1 (Götze & Tikhomirov 2005, rate 1/N for the
+   GUE, from memory; shared/reference §3.3).
+2. The distances themselves match the exact finite-N mean spectral distribution of the GUE,
+   computed here independently with numpy from the Hermite kernel
+   K_N(x, x) = Σ_{k<N} ψ_k(x)² (ψ_k the Hermite functions orthonormal for e^{−x²/2}; Mehta 2004,
+   from memory), evaluated at the same bin edges: |measured − exact| ≤ 4 SE of the measurement.
+   Sample: 16384 trials per size, so the pooled noise floor is a quarter of the signal.
+3. The mean largest eigenvalue approaches the edge 2 from below (E λ_max ≈ 2 + E[TW₂] N^{−2/3},
+   E[TW₂] ≈ −1.77, Tracy & Widom 1994, from memory): below 2 by more than 3 SE at every size, and
+   closer to 2 at every larger size; its fitted exponent is consistent with 2/3.
+"""
+import csv
+import math
+import os
+import sys
+
+import numpy as np
+from scipy.integrate import cumulative_trapezoid
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "python"))
+import runhelp as rh  # noqa: E402
+
+SIZES = [100, 200, 400, 800]
+BINS, LOW, HIGH = 400, -2.5, 2.5
+JOB = """\
+name = "GUE ladder for the rate of the mean spectrum"
+seed = 7
+sizes = [%s]
+trials = 16384
+expression = "X"
+
+[matrices.X]
+ensemble = "gue"
+
+[observe]
+bins = %d
+range = [%g, %g]
+max_moment = 4
+
+[run]
+trials_per_unit = 256
+""" % (", ".join(map(str, SIZES)), BINS, LOW, HIGH)
+
+
+def exact_binned_kolmogorov(n):
+    """max over the bin edges of |E F_N − F_sc| for the GUE normalised as X = H/√N."""
+    y = np.linspace(-2.6, 2.6, 260001)
+    x = math.sqrt(n) * y
+    psi_prev = np.zeros_like(x)
+    psi = (2 * math.pi) ** -0.25 * np.exp(-x * x / 4)
+    k_diag = psi * psi
+    for k in range(n - 1):
+        psi_prev, psi = psi, (x * psi - math.sqrt(k) * psi_prev) / math.sqrt(k + 1)
+        k_diag += psi * psi
+    density = k_diag / math.sqrt(n)  # of y = x/√N, averaged over the N eigenvalues
+    f_n = cumulative_trapezoid(density, y, initial=0.0)
+    yc = np.clip(y, -2, 2)
+    f_sc = 0.5 + yc * np.sqrt(4 - yc * yc) / (4 * math.pi) + np.arcsin(yc / 2) / math.pi
+    edges = np.linspace(LOW, HIGH, BINS + 1)
+    return float(np.max(np.abs(np.interp(edges, y, f_n - f_sc))))
+
+
+def rows(path):
+    with open(path, newline="") as f:
+        return list(csv.DictReader(f))
+
+
+def main():
+    exe = rh.freegap_exe(sys.argv)
+    c = rh.Checks("report: GUE rates end to end")
+    with rh.WorkDir("gue-rate") as d:
+        rh.write(os.path.join(d, "gue.toml"), JOB)
+        r = rh.run(rh.command(exe, ["run", "gue.toml", "-o", "gue.h5", "--quiet"], ranks=2), d)
+        if not c.equal(r.returncode, 0, "the run finishes"):
+            print(r.stderr)
+            c.finish()
+        r = rh.run([exe, "report", "gue.h5", "-o", "rep", "--no-figures"], d)
+        if not c.equal(r.returncode, 0, "report exits 0"):
+            print(r.stderr)
+            c.finish()
+        fits = {f["key"]: f for f in rows(os.path.join(d, "rep", "fits.csv"))}
+        sizes = {int(float(s["n"])): s for s in rows(os.path.join(d, "rep", "sizes.csv"))}
+        ext = [e for e in rows(os.path.join(d, "rep", "extremes.csv")) if e["quantity"] == "largest"]
+
+        ks = fits.get("kolmogorov")
+        c.check(ks is not None and ks["ok"] == "1", "the Kolmogorov distance is fitted",
+                ks and ks["warnings"])
+        if ks is not None and ks["ok"] == "1":
+            lo, hi, alpha = float(ks["ci_low"]), float(ks["ci_high"]), float(ks["alpha"])
+            c.check(lo <= 1.0 <= hi, "α(Kolmogorov) = %.3f, 95%% CI [%.3f, %.3f] contains 1" % (alpha, lo, hi))
+            c.check(float(ks["published_alpha"]) == 1.0 and "Götze" in ks["published_source"],
+                    "the published exponent 1 (Götze & Tikhomirov) is printed beside it")
+        for n in SIZES[:3]:  # the Hermite recurrence in doubles is reliable up to N = 400 here
+            s = sizes[n]
+            measured, se = float(s["kolmogorov"]), float(s["kolmogorov_se"])
+            exact = exact_binned_kolmogorov(n)
+            c.check(abs(measured - exact) <= 4 * se and s["kolmogorov_resolved"] == "1",
+                    "N = %d: Kolmogorov %.4g ± %.2g against the exact %.4g (Hermite kernel)" % (n, measured, se, exact))
+
+        ext.sort(key=lambda e: float(e["n"]))
+        gaps = []
+        for e in ext:
+            mean, se = float(e["mean"]), float(e["standard_error"])
+            gaps.append(2.0 - mean)
+            c.check(2.0 - mean > 3 * se, "N = %s: mean largest %.5f is below 2 by more than 3 SE (%.1g)"
+                    % (e["n"], mean, se))
+        c.check(all(a > b for a, b in zip(gaps, gaps[1:])), "the gap to 2 shrinks with N: %s"
+                % ", ".join("%.4g" % g for g in gaps))
+        lg = fits.get("largest")
+        if c.check(lg is not None and lg["ok"] == "1", "the largest eigenvalue's gap is fitted"):
+            c.check(float(lg["ci_low"]) <= 2 / 3 <= float(lg["ci_high"]),
+                    "α(largest) = %s, 95%% CI [%s, %s] contains 2/3 (Tracy–Widom scaling)"
+                    % (lg["alpha"][:6], lg["ci_low"][:6], lg["ci_high"][:6]))
+    c.finish()
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,167 @@
+// The limit of a model by the rules of analysis/limit.hpp: which law each expression gets, checked
+// against closed forms and against the exact free-cumulant moments (an independent computation).
+// Reference values: shared/reference/check-values-and-methods.md ("ref §x.y"), which names the
+// published source of each.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <numbers>
+#include <string>
+#include <vector>
+
+#include "freegap/analysis/limit.hpp"
+#include "freegap/analysis/moments.hpp"
+#include "freegap/model.hpp"
+
+namespace fa = freegap::analysis;
+
+namespace {
+
+fa::DerivedLimit derive(const std::vector<std::string>& declarations, const std::string& text,
+                        int k = 8, bool singular_values = false) {
+  std::vector<freegap::ensembles::MatrixSpec> specs;
+  for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
+  freegap::expr::CheckOptions check;
+  check.force_singular_values = singular_values;
+  return fa::derive_limit(freegap::expr::Expression(text, specs, check), k);
+}
+
+// The law's moments against the exact ones (two independent computations) to `tol`, relative.
+void expect_moments_agree(const fa::DerivedLimit& d, double tol) {
+  ASSERT_TRUE(d.law) << d.reason;
+  ASSERT_FALSE(d.exact_moments.empty()) << d.moments_note;
+  const auto m = d.law->moments(static_cast<int>(d.exact_moments.size()) - 1);
+  for (std::size_t k = 1; k < d.exact_moments.size(); ++k) {
+    EXPECT_NEAR(m[k], d.exact_moments[k], tol * std::max(1.0, std::abs(d.exact_moments[k])))
+        << "k = " << k << ", law " << d.law->describe();
+  }
+}
+
+}  // namespace
+
+TEST(LimitOfRun, WignerAndWishartClosedForms) {
+  // Semicircle: Catalan even moments 1, 2, 5, 14 (Wigner 1955; ref §1.1).
+  const auto gue = derive({"X=gue"}, "X");
+  ASSERT_TRUE(gue.law);
+  EXPECT_EQ(gue.law->describe(), "semicircle(variance=1)");
+  EXPECT_EQ(gue.rate_key, "gue");
+  EXPECT_EQ(gue.exact_moment_text, (std::vector<std::string>{"1", "0", "1", "0", "2", "0", "5", "0", "14"}));
+  EXPECT_EQ(derive({"X=goe"}, "X").rate_key, "goe");
+  EXPECT_EQ(derive({"X=wigner_rademacher"}, "X").rate_key, "wigner");
+  // a X + b: support [b − 2|a|, b + 2|a|].
+  const auto shifted = derive({"X=gue"}, "2 * X + 1");
+  ASSERT_TRUE(shifted.law);
+  EXPECT_NEAR(shifted.law->support().lo, -3.0, 1e-12);
+  EXPECT_NEAR(shifted.law->support().hi, 5.0, 1e-12);
+  expect_moments_agree(shifted, 1e-12);
+  // Marchenko–Pastur c = 1/2: support [(1 − √½)², (1 + √½)²] = [0.085786437626905, 2.9142135623731]
+  // (ref §1.2), moments 1, 3/2, 11/4, 45/8.
+  const auto mp = derive({"W=wishart_complex:ratio=0.5"}, "W");
+  ASSERT_TRUE(mp.law);
+  EXPECT_NEAR(mp.law->support().lo, 0.085786437626905, 1e-12);
+  EXPECT_NEAR(mp.law->support().hi, 2.9142135623731, 1e-12);
+  EXPECT_EQ(mp.exact_moment_text[3], "11/4");
+  EXPECT_EQ(mp.rate_key, "wishart_complex");
+  expect_moments_agree(mp, 1e-12);
+}
+
+TEST(LimitOfRun, HaarRotatedSumIsArcsine) {
+  // B + U B U^* with B = ±1: the arcsine density 1/(π√(4 − x²)) (ref §1.3).
+  const auto d = derive({"B=diagonal:atoms=1@0.5,-1@0.5", "U=haar_unitary"}, "B + U B U^*");
+  ASSERT_TRUE(d.law) << d.reason;
+  EXPECT_EQ(d.rate_key, "haar_unitary_sum");
+  for (double x : {-1.9, -1.0, 0.0, 0.5, 1.5, 1.95}) {
+    EXPECT_NEAR(d.law->density(x), 1.0 / (std::numbers::pi * std::sqrt(4.0 - x * x)), 1e-8) << x;
+  }
+  EXPECT_EQ(derive({"B=diagonal:atoms=1@0.5,-1@0.5", "O=haar_orthogonal"}, "B + O B O^*").rate_key,
+            "haar_orthogonal_sum");
+}
+
+TEST(LimitOfRun, UnitaryPairsGiveArcsineAndKestenMcKay) {
+  const auto one = derive({"U=haar_unitary"}, "U + U^*");
+  ASSERT_TRUE(one.law) << one.reason;
+  EXPECT_NEAR(one.law->cdf(1.0), 0.5 + std::asin(0.5) / std::numbers::pi, 1e-12);  // ref §1.3
+  // Kesten–McKay of degree 4: moments 4, 28, 232 (ref §1.4).
+  const auto km = derive({"U1=haar_unitary", "U2=haar_unitary"}, "U1 + U1^* + U2 + U2^*", 6);
+  ASSERT_TRUE(km.law) << km.reason;
+  EXPECT_EQ(km.exact_moment_text[2], "4");
+  EXPECT_EQ(km.exact_moment_text[4], "28");
+  EXPECT_EQ(km.exact_moment_text[6], "232");
+  expect_moments_agree(km, 1e-12);
+  EXPECT_NEAR(km.law->support().hi, 2.0 * std::sqrt(3.0), 1e-12);  // 2√(2d − 1), d = 2
+}
+
+TEST(LimitOfRun, FreeSumsOfIndependentMatrices) {
+  // Two free standard semicirculars: semicircle of variance 2, edge 2√2 (ref §1.1).
+  const auto ss = derive({"X=gue", "Y=gue"}, "X + Y");
+  ASSERT_TRUE(ss.law) << ss.reason;
+  EXPECT_NEAR(ss.law->support().hi, 2.0 * std::sqrt(2.0), 1e-8);
+  EXPECT_NEAR(ss.law->density(0.0), 1.0 / (std::numbers::pi * std::sqrt(2.0)), 1e-8);
+  // GUE plus a deterministic two-level spectrum, and Wishart plus a rotated uniform spectrum:
+  // ⊞ by subordination against the exact free-cumulant moments.
+  expect_moments_agree(derive({"X=gue", "D=diagonal:atoms=1@0.25,-0.5@0.75"}, "X + D"), 1e-7);
+  expect_moments_agree(
+      derive({"W=wishart_real:ratio=0.25", "D=diagonal:law=uniform:low=0:high=1", "O=haar_orthogonal"},
+             "W + 0.5 * O D O^*"),
+      1e-7);
+}
+
+TEST(LimitOfRun, SandwichIsFreeMultiplicativeConvolution) {
+  // A D A with A semicircular and D ≥ 0: law(D) ⊠ free Poisson (Voiculescu 1987). Moments by the
+  // S-transform against the free-cumulant engine.
+  const auto d = derive({"A=gue", "D=diagonal:atoms=1@0.5,3@0.5"}, "A D A", 6);
+  ASSERT_TRUE(d.law) << d.reason;
+  expect_moments_agree(d, 1e-9);
+  // A B A with B = ±1: the middle factor is not ≥ 0; no predictor, but the exact moments 1, 3,
+  // 12, 55 of ref §1.6 (even orders) are still given.
+  const auto sign = derive({"A=gue", "B=diagonal:atoms=1@0.5,-1@0.5"}, "A B A", 8);
+  EXPECT_FALSE(sign.law);
+  EXPECT_NE(sign.reason.find("negative values"), std::string::npos) << sign.reason;
+  EXPECT_EQ(sign.exact_moment_text[2], "1");
+  EXPECT_EQ(sign.exact_moment_text[4], "3");
+  EXPECT_EQ(sign.exact_moment_text[6], "12");
+  EXPECT_EQ(sign.exact_moment_text[8], "55");
+}
+
+TEST(LimitOfRun, GinibreSingularValues) {
+  // Square Ginibre: quarter circle; product of two: √ of Fuss–Catalan π^⊠2, whose squared
+  // moments are the Fuss–Catalan numbers 1, 3, 12 and whose edge is √(27/4) (ref §1.5).
+  const auto one = derive({"G=ginibre_complex"}, "G");
+  ASSERT_TRUE(one.law) << one.reason;
+  EXPECT_NEAR(one.law->support().hi, 2.0, 1e-12);
+  const auto two = derive({"G1=ginibre_complex", "G2=ginibre_complex"}, "G1 G2");
+  ASSERT_TRUE(two.law) << two.reason;
+  const auto m = two.law->moments(6);
+  EXPECT_NEAR(m[2], 1.0, 1e-12);
+  EXPECT_NEAR(m[4], 3.0, 1e-12);
+  EXPECT_NEAR(m[6], 12.0, 1e-12);
+  EXPECT_NEAR(two.law->support().hi, std::sqrt(27.0 / 4.0), 1e-12);
+  // √ of Marchenko–Pastur(1) is the quarter circle: odd moments by quadrature against
+  // ∫_0^2 s √(4 − s²)/π ds = 8/(3π) and ∫_0^2 s³ √(4 − s²)/π ds = 64/(15π) (computed here by the
+  // substitution u = 4 − s²).
+  const auto root = fa::square_root(fa::marchenko_pastur(1.0));
+  const auto rm = root->moments(3);
+  EXPECT_NEAR(rm[1], 8.0 / (3.0 * std::numbers::pi), 1e-8);
+  EXPECT_NEAR(rm[3], 64.0 / (15.0 * std::numbers::pi), 1e-8);
+  for (double s : {0.3, 1.0, 1.7}) EXPECT_NEAR(root->cdf(s), one.law->cdf(s), 1e-12) << s;
+}
+
+TEST(LimitOfRun, SaysPlainlyWhenNoRuleApplies) {
+  // The anticommutator is for the polynomial solver; its exact moments 2, 10, 66 (ref §1.8) stay.
+  const auto anti = derive({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1", 6);
+  EXPECT_FALSE(anti.law);
+  EXPECT_NE(anti.reason.find("no predictor applies yet"), std::string::npos);
+  EXPECT_EQ(anti.exact_moment_text[2], "2");
+  EXPECT_EQ(anti.exact_moment_text[4], "10");
+  EXPECT_EQ(anti.exact_moment_text[6], "66");
+  // The same GUE in two terms: the terms are not free.
+  const auto twice = derive({"X=gue", "U=haar_unitary"}, "X + U X U^*");
+  EXPECT_FALSE(twice.law);
+  EXPECT_NE(twice.reason.find("more than one term"), std::string::npos) << twice.reason;
+  // Two deterministic matrices commute: not free.
+  const auto fixed = derive({"A=diagonal:atoms=1@0.5,-1@0.5", "B=diagonal:atoms=2@0.5,0@0.5"}, "A + B");
+  EXPECT_FALSE(fixed.law);
+  EXPECT_NE(fixed.reason.find("commuting"), std::string::npos) << fixed.reason;
+  // A unitary alone.
+  EXPECT_FALSE(derive({"U=haar_unitary", "B=diagonal:atoms=1@1"}, "U B U^* + U").law);
+}
