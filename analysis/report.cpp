@@ -11,6 +11,7 @@
 #include <numbers>
 #include <memory>
 #include <optional>
+#include <sstream>
 #include <unordered_map>
 
 #include "freegap/analysis/fit.hpp"
@@ -461,8 +462,31 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
         std::to_string(options.bootstrap_replicates) + " replicates per size, " +
         std::to_string(options.fit_bootstrap_replicates) + " for the exponents, fixed seeds.\n\n";
   if (runs.size() > 1) {
-    md += "## Runs collated\n\n| # | file | job | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) |\n"
-          "|---|---|---|---|---|---|---|---|---|\n";
+    // What sets each run apart: the settings of its canonical job (one per line, or per "; "
+    // field with the line's prefix) that not every run shares.
+    std::vector<std::vector<std::string>> fields(runs.size());
+    std::map<std::string, std::size_t> count;
+    for (std::size_t r = 0; r < runs.size(); ++r) {
+      std::istringstream lines(runs[r].header.job_canonical);
+      std::string line;
+      while (std::getline(lines, line)) {
+        const auto colon = line.find(": ");
+        const std::string prefix = colon == std::string::npos ? std::string() : line.substr(0, colon + 2);
+        std::string rest = colon == std::string::npos ? line : line.substr(colon + 2);
+        std::size_t start = 0;
+        while (start <= rest.size()) {
+          const auto end = rest.find("; ", start);
+          fields[r].push_back(prefix + rest.substr(start, end == std::string::npos ? std::string::npos : end - start));
+          if (end == std::string::npos) break;
+          start = end + 2;
+        }
+      }
+      std::sort(fields[r].begin(), fields[r].end());
+      fields[r].erase(std::unique(fields[r].begin(), fields[r].end()), fields[r].end());
+      for (const auto& f : fields[r]) ++count[f];
+    }
+    md += "## Runs collated\n\n| # | file | job | what differs | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) |\n"
+          "|---|---|---|---|---|---|---|---|---|---|\n";
     for (std::size_t r = 0; r < runs.size(); ++r) {
       const auto& run = runs[r];
       bool complete = true;
@@ -471,13 +495,19 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
         complete &= s.units_done == s.units_total;
         if (s.has_data()) last = &s;
       }
+      std::string differs;
+      for (const auto& f : fields[r]) {
+        if (count[f] < runs.size()) differs += (differs.empty() ? "" : "; ") + f;
+      }
+      if (differs.empty()) differs = "–";
+      if (differs.size() > 160) differs = differs.substr(0, 157) + "...";
       std::string alpha = "–";
       for (const auto& f : run.fits) {
         if (f.key == "kolmogorov" && f.fit.ok) alpha = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
       }
       md += "| " + std::to_string(r + 1) + " | " + run.label + " | " +
-            (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " | `" +
-            run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
+            (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " | " +
+            differs + " | `" + run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
             std::to_string(run.sizes.size()) + " | " + (complete ? "complete" : "incomplete") + " | " +
             (last && last->metrics.has_pooled ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.pooled_kolmogorov) : "–") +
             " | " + alpha + " |\n";
