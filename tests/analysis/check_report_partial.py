@@ -9,7 +9,9 @@ Usage: check_report_partial.py BUILD_DIR
    which sizes are incomplete (matching the file's own unit_committed flags, read with h5py),
    draws PNG and SVG figures (non-empty files), and its CSV tables list every size with its
    status. The HDF5 copy of the tables holds the same sizes.
-2. Bad input: a missing file, a file that is not a run file, an output directory holding
+2. Two run files (a sweep) are reported together: a collated table saying what differs, one
+   section per run, and a figure of all runs' distances.
+3. Bad input: a missing file, a file that is not a run file, an output directory holding
    something else — each exits 2 with a message naming the place, and leaves nothing behind.
 """
 import csv
@@ -102,6 +104,20 @@ def main():
             c.equal(sorted(int(x) for x in f["tables/sizes/n"][:]), sorted(n for n, _, _ in state),
                     "report.h5 /tables/sizes/n lists every size")
             c.equal(f.attrs["kind"], "freegap report", "report.h5 says what it is")
+
+        # ---- two runs of a sweep (here: the killed one and a complete one with another seed and
+        # a smaller ladder) reported together
+        rh.write(os.path.join(d, "other.toml"), JOB.replace("seed = 31", "seed = 32").replace("[40, 80, 320]", "[40, 80]"))
+        r = rh.run([exe, "run", "other.toml", "-o", "other.h5", "--quiet"], d)
+        c.equal(r.returncode, 0, "a second, complete run")
+        r = rh.run([exe, "report", "killed.h5", "other.h5", "-o", "sweep"], d)
+        c.equal(r.returncode, 0, "report on two run files exits 0")
+        md = open(os.path.join(d, "sweep", "report.md")).read() if r.returncode == 0 else ""
+        c.check("## Runs collated" in md and "| 1 | killed.h5 |" in md and "| 2 | other.h5 |" in md,
+                "report.md opens with a table collating both runs")
+        c.check("seed = 31" in md and "seed = 32" in md, "the table says what sets each run apart (the seed)")
+        c.check("## 1. killed.h5" in md and "## 2. other.h5" in md, "each run has its own section")
+        c.check(os.path.exists(os.path.join(d, "sweep", "figures", "sweep_errors.png")), "the sweep figure is drawn")
 
         # ---- bad input: exit 2, a message naming the place, nothing written
         rh.write(os.path.join(d, "notes.txt"), "not a run file\n")
