@@ -24,7 +24,9 @@ inline constexpr const char* kFileKind = "freegap run";
 /// Format version [major, minor]. A reader refuses another major version; a minor version only
 /// adds things an older reader may ignore.
 inline constexpr int kFormatMajor = 1;
-inline constexpr int kFormatMinor = 1;  ///< 1.1 added the estimates (SCHEMA.md)
+/// The newest minor version written: 1.1 added the estimates (SCHEMA.md); a file without
+/// estimates is written as 1.0, which it is.
+inline constexpr int kFormatMinor = 1;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {

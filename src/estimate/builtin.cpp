@@ -76,7 +76,8 @@ class PopulationSecondMoment final : public Estimator {
     const std::string* ratio = parameter(spec, "ratio");
     const std::string how = "give ratio = c, the N/M of the Wishart matrix in the expression";
     if (ratio == nullptr) {
-      throw InputError(where(job, spec, "parameters") + "the built-in '" + spec.builtin +
+      const bool table = job.line_of("estimator." + spec.name + ".parameters") > 0;
+      throw InputError(where(job, spec, table ? "parameters" : "") + "the built-in '" + spec.builtin +
                        "' needs the parameter ratio; " + how);
     }
     const auto r = std::from_chars(ratio->data(), ratio->data() + ratio->size(), ratio_);

@@ -742,7 +742,7 @@ std::string read_truth_text(const Reader& r, const toml::node& node, std::string
 EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t index,
                              const std::filesystem::path& base,
                              const std::vector<ensembles::MatrixSpec>& matrices,
-                             std::map<std::string, int, std::less<>>& lines) {
+                             std::map<std::string, int, std::less<>>& lines, bool read_library) {
   EstimatorSpec e;
   std::string prefix = "estimator[" + std::to_string(index) + "]";
   const int table_line = static_cast<int>(t.source().begin.line);
@@ -782,6 +782,8 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
     const std::string given = r.string(*v, prefix + ".library", "a file path in quotes");
     if (given.empty()) r.fail(prefix + ".library", "is empty; give the shared library's path");
     e.library = (base / std::filesystem::path(given)).string();
+  }
+  if (t.get("library") != nullptr && read_library) {
     errno = 0;
     std::ifstream in(e.library, std::ios::binary);
     std::error_code ec;
@@ -913,7 +915,7 @@ std::string Job::where(std::string_view key) const {
          ": ";
 }
 
-Job parse_job(std::string_view text, const std::string& path) {
+Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries) {
   Job job;
   job.path = path;
   job.text = std::string(text);
@@ -1019,10 +1021,11 @@ Job parse_job(std::string_view text, const std::string& path) {
       r.fail_node(*v, "estimator", "must be a list of tables; write each as [[estimator]]");
     }
     for (std::size_t i = 0; i < list->size(); ++i) {
-      auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines);
+      auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
+                                 read_estimator_libraries);
       for (const auto& other : job.estimators) {
         if (other.name == spec.name) {
-          r.fail("estimator." + spec.name + ".name",
+          r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",
                  "\"" + spec.name + "\" names two estimators; give each a name of its own");
         }
       }

@@ -532,7 +532,9 @@ void write_estimators(hid_t file, const std::vector<EstimateColumn>& columns, hi
 void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t session_file_type,
                   hid_t unit_file_type, Where where) {
   h5::write_string_attribute(file, "file_kind", kFileKind, where);
-  h5::write_int_array_attribute(file, "format_version", {kFormatMajor, kFormatMinor}, where);
+  // A file without estimates is exactly a 1.0 file; 1.1 only adds them (SCHEMA.md).
+  h5::write_int_array_attribute(file, "format_version",
+                                {kFormatMajor, header.estimates.empty() ? 0 : kFormatMinor}, where);
   h5::write_string_attribute(file, "tool_version", header.tool_version, where);
   h5::write_string_attribute(file, "git_revision", header.git_revision, where);
   h5::write_string_attribute(file, "job_text", header.job_text, where);
