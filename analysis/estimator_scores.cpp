@@ -410,8 +410,9 @@ std::string estimator_scores_markdown(const std::vector<EstimateScore>& scores) 
     out += "\n";
     for (const auto* s : group) {
       if (!tv.known) continue;
-      out += "- `" + s->estimator + "." + s->estimate + "`: |bias| " +
-             describe_fit(s->bias_rate, std::nullopt) + "; RMSE " +
+      out += "- `" + s->estimator + "." + s->estimate + "` |bias|: " +
+             describe_fit(s->bias_rate, std::nullopt) + "\n";
+      out += "- `" + s->estimator + "." + s->estimate + "` RMSE: " +
              describe_fit(s->rmse_rate, std::nullopt) + "\n";
     }
     for (const auto* s : group) {
