@@ -402,7 +402,11 @@ class LibraryEstimator final : public Estimator {
       // crashing plug-in dies quietly and the rank records the signal.
       for (int s : {SIGSEGV, SIGBUS, SIGFPE, SIGILL, SIGABRT}) ::signal(s, SIG_DFL);
       mine.reset();
-      serve(theirs.get(), estimate_, static_cast<int>(spec_.estimates.size()), parameters_);
+      // Hold none of the rank's descriptors (the run file and its lock, MPI's sockets): only
+      // standard input, output, error and the socket, moved to descriptor 3.
+      if (::dup2(theirs.get(), 3) < 0) ::_exit(4);
+      ::close_range(4, ~0U, 0);
+      serve(3, estimate_, static_cast<int>(spec_.estimates.size()), parameters_);
     }
     pid_ = pid;
     sock_ = std::move(mine);
@@ -496,6 +500,8 @@ class CommandEstimator final : public Estimator {
     posix_spawn_file_actions_adddup2(&actions, in_read.get(), 0);
     posix_spawn_file_actions_adddup2(&actions, out_write.get(), 1);
     posix_spawn_file_actions_adddup2(&actions, err_write.get(), 2);
+    // The command gets none of the rank's other descriptors (the run file, MPI's sockets).
+    posix_spawn_file_actions_addclosefrom_np(&actions, 3);
     posix_spawnattr_t attr;
     posix_spawnattr_init(&attr);
     // A process group of its own: a timeout kills the command and anything it started, and a
