@@ -14,6 +14,7 @@
 #include <sstream>
 #include <unordered_map>
 
+#include "freegap/analysis/estimator_scores.hpp"
 #include "freegap/analysis/fit.hpp"
 #include "freegap/analysis/free_convolution.hpp"
 #include "freegap/analysis/limit.hpp"
@@ -81,6 +82,7 @@ struct RunResult {
   std::vector<SizeResult> sizes;
   std::vector<FitResult> fits;
   std::vector<std::string> notes;
+  std::vector<EstimateScore> estimates;  // plug-in estimators scored against their truths
 };
 
 // The CDF of a law on a graded grid x(θ) = lo + w(1 − cos θ)/2, θ ∈ [0, π], interpolated by cubic
@@ -336,6 +338,12 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
     run.sizes.push_back(std::move(s));
   }
   fit_run(run, options);
+  ScoreOptions score;
+  if (run.limit.law) {
+    const Support sup = run.limit.law->support();
+    score.limit_edges = std::make_pair(sup.lo, sup.hi);
+  }
+  run.estimates = score_estimators(file, score);
   return run;
 }
 
@@ -669,6 +677,14 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
         for (const auto& w : warnings) md += "- " + w + "\n";
       }
     }
+    if (!run.estimates.empty()) {
+      std::string section = estimator_scores_markdown(run.estimates);
+      if (section.rfind("## ", 0) == 0) section = "\n#" + section;  // a subsection of this run
+      md += section;
+      if (options.figures) {
+        md += "\nFigure: `figures/estimators_run" + std::to_string(r + 1) + "` (error against N per estimator).\n";
+      }
+    }
     md += "\n";
   }
   if (options.figures) {
@@ -690,6 +706,12 @@ Report build_report(const std::vector<std::string>& run_files, const ReportOptio
   Report out;
   tables_of(runs, out.tables);
   out.markdown = markdown_of(runs, options);
+  for (std::size_t r = 0; r < runs.size(); ++r) {
+    if (!runs[r].estimates.empty()) {
+      out.files.emplace_back("estimators_run" + std::to_string(r + 1) + ".csv",
+                             estimator_scores_csv(runs[r].estimates));
+    }
+  }
   for (const auto& run : runs) {
     for (const auto& s : run.sizes) {
       if (s.units_done != s.units_total) {

@@ -138,6 +138,7 @@ std::string write_report(const std::vector<std::string>& run_files, const Report
   try {
     write_text(tmp / "report.md", report.markdown);
     for (const Table& t : report.tables) write_text(tmp / (t.name + ".csv"), to_csv(t));
+    for (const auto& [name, text] : report.files) write_text(tmp / name, text);
     write_hdf5(tmp / "report.h5", report.tables);
     if (options.figures) {
       fs::create_directories(tmp / "figures");
@@ -151,6 +152,16 @@ std::string write_report(const std::vector<std::string>& run_files, const Report
         throw Error("report: drawing the figures failed (" + options.python + " " + script +
                     " exited with " + std::to_string(rc) +
                     "); it needs Debian's python3-matplotlib, or use --no-figures");
+      }
+      const std::string estimators = fs::path(script).parent_path() / "plot_estimators.py";
+      for (const auto& [name, text] : report.files) {
+        if (name.rfind("estimators_run", 0) != 0) continue;
+        const std::string stem = (tmp / "figures" / fs::path(name).stem()).string();
+        const int erc = run_program({options.python, estimators, (tmp / name).string(), stem});
+        if (erc != 0) {
+          throw Error("report: drawing the estimator figure failed (" + estimators + " exited with " +
+                      std::to_string(erc) + "); use --no-figures");
+        }
       }
     }
     if (fs::exists(dir, ec)) {

@@ -85,7 +85,7 @@ inline freegap::observe::Observations observe_trials(const freegap::store::SizeL
 inline freegap::store::UnitResult unit(const freegap::store::RunHeader& h, std::size_t size_index,
                                        std::int64_t unit) {
   const auto& s = h.sizes[size_index];
-  return {size_index, unit, observe_trials(s, s.unit_begin(unit), s.unit_end(unit))};
+  return {size_index, unit, observe_trials(s, s.unit_begin(unit), s.unit_end(unit)), {}, {}};
 }
 
 }  // namespace store_sample

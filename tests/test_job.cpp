@@ -318,10 +318,10 @@ TEST(JobErrors, TomlSyntax) {
 TEST(JobErrors, UnknownTopLevelKey) {
   EXPECT_EQ(error_of("seed = 1\nsead = 2\n"),
             "study.toml:2: sead: unknown key 'sead' (did you mean 'seed'?); known keys at the top "
-            "level: name, seed, sizes, trials, expression, matrices, observe, run");
+            "level: name, seed, sizes, trials, expression, matrices, observe, run, estimator");
   EXPECT_EQ(error_of("seed = 1\nplot = true\n"),
             "study.toml:2: plot: unknown key 'plot'; known keys at the top level: name, seed, "
-            "sizes, trials, expression, matrices, observe, run");
+            "sizes, trials, expression, matrices, observe, run, estimator");
 }
 
 TEST(JobErrors, UnknownKeyInObserve) {

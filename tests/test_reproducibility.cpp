@@ -177,8 +177,9 @@ TEST_F(ReproducibilityTwoProcesses, SameKeyGivesBitIdenticalMatricesInEveryProce
 // Samplers that call no BLAS at all (Gaussian and Rademacher Wigner, Ginibre, diagonal) give the
 // same bits with 1 and 2 OpenBLAS threads. Wishart is left out: its rank-k update goes through
 // BLAS, and how OpenBLAS splits it between threads is a matter of its CPU kernel — measured here:
-// Debian's OpenBLAS 0.3.21 gives the same bits for 1 and 2 threads on one x86-64 machine and
-// different last bits for the complex update (zherk) on an AMD EPYC with AVX-512. That is why a
+// Debian's OpenBLAS 0.3.21 on an AMD EPYC gives the same bits for 1 and 2 threads with the kernel
+// it detects, and different last bits for the complex update (zherk) with OPENBLAS_CORETYPE=Haswell
+// (which the development shell here sets). That is why a
 // run file records its BLAS thread count and a resume with another count is refused
 // (tests/python/check_run_bad_input.py). N = 400 so that OpenBLAS would split the work.
 TEST_F(ReproducibilityTwoProcesses, SamplersWithoutBlasIgnoreBlasThreadCount) {

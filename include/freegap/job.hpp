@@ -24,6 +24,19 @@
 //   keep_spectra = 0                        # ≥ 0
 //   spectrum = "auto"                       # or "singular_values"
 //
+//   [[estimator]]                           # optional, any number (src/estimate/PLUGINS.md)
+//   name = "second"                         # required, unique identifier
+//   builtin = "population_second_moment"    # exactly one of builtin, library, command
+//   library = "libmine.so"                  #   (relative to the job file)
+//   command = ["python3", "est.py"]         #   (argv; a relative argv[0] with '/' is resolved)
+//   timeout = 60                            # seconds per trial, > 0; default 60
+//   [estimator.parameters]                  # optional key = value (string, number, boolean)
+//   ratio = 0.5
+//   [estimator.truth]                       # required: one key per estimate, naming its truth
+//   second_moment = "matrix_moment:T:4"     # a number, "none", "limit_moment:K",
+//                                           # "limit_edge:lower|upper", "limit_norm",
+//                                           # "matrix_moment:NAME:K", "matrix_ratio:NAME"
+//
 //   [run]                                   # optional
 //   trials_per_unit = 8                     # ≥ 1; default kDefaultTrialsPerUnit
 //   memory_per_rank = "8 GiB"               # B, kB, MB, GB, TB, KiB, MiB, GiB, TiB, or integer
@@ -52,6 +65,7 @@
 #include <map>
 #include <string>
 #include <string_view>
+#include <utility>
 #include <vector>
 
 #include "freegap/ensembles.hpp"
@@ -76,6 +90,28 @@ struct ObserveSettings {
   bool singular_values = false;   ///< force singular values of a self-adjoint expression
 };
 
+/// Default per-trial timeout of an estimator, seconds.
+inline constexpr double kDefaultEstimatorTimeout = 60.0;
+
+/// One [[estimator]] of the job file: where its estimates come from and what each is compared
+/// with. Plain data; src/estimate/ loads and runs it.
+struct EstimatorSpec {
+  enum class Source { builtin, library, command };
+  std::string name;  ///< identifier, unique in the job
+  Source source = Source::builtin;
+  std::string builtin;               ///< builtin: its name
+  std::string library;               ///< library: path resolved against the job's directory
+  std::string library_digest;        ///< library: SHA-256 of the file when the job was loaded
+  std::vector<std::string> command;  ///< command: argv (argv[0] resolved if relative with '/')
+  double timeout = kDefaultEstimatorTimeout;  ///< seconds per trial
+  /// [estimator.parameters], values as text, sorted by key.
+  std::vector<std::pair<std::string, std::string>> parameters;
+  /// The estimates, sorted by name, and each one's truth text (parallel): a number written with
+  /// %.17g, "none", or a quantity the analysis computes (see the file comment above).
+  std::vector<std::string> estimates;
+  std::vector<std::string> truths;
+};
+
 struct Job {
   std::string path;  ///< where it was read from ("<text>" when parsed from a string)
   std::string text;  ///< the file's text, verbatim (stored in the run file)
@@ -94,6 +130,8 @@ struct Job {
   std::string output;
   std::int64_t memory_per_rank_bytes = 0;  ///< 0 = not given
   bool force_dense = false;                ///< force the dense path
+  /// [[estimator]] tables, in file order.
+  std::vector<EstimatorSpec> estimators;
 
   /// One entry per matrix, parallel to `matrices`: for a law = "file" diagonal, the count and
   /// SHA-256 of the sorted numbers read from its file when the job was loaded ("<K> <hex>"), so
@@ -105,7 +143,8 @@ struct Job {
 
   /// Canonical text of everything that defines the numbers: seed, sizes, trials,
   /// trials_per_unit, matrices (sorted, numbers as %.17g, file digests), the expression
-  /// verbatim, the observe settings and force_dense. Not the name, output, memory limit, path,
+  /// verbatim, the observe settings, force_dense and the estimators (when there are any; a job
+  /// without estimators keeps the canonical text it had before they existed). Not the name, output, memory limit, path,
   /// comments or formatting.
   std::string canonical() const;
   /// SHA-256 of canonical(), 64 lowercase hex digits.
@@ -121,7 +160,10 @@ struct Job {
 /// validation message).
 Job load_job(const std::string& path);
 /// Parses job text; `path` names it in messages and anchors relative paths. Throws InputError.
-Job parse_job(std::string_view text, const std::string& path);
+/// With `read_estimator_libraries` false, an estimator's library is not read (its digest stays
+/// empty): for readers of a finished run file's job text, where the library may be gone.
+Job parse_job(std::string_view text, const std::string& path,
+              bool read_estimator_libraries = true);
 
 /// Parses an amount of memory: "<number> <unit>" with unit B, kB, MB, GB, TB (powers of 1000)
 /// or KiB, MiB, GiB, TiB (powers of 1024), case-insensitive, space optional ("4GiB", "1.5 GB").

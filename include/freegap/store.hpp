@@ -24,7 +24,9 @@ inline constexpr const char* kFileKind = "freegap run";
 /// Format version [major, minor]. A reader refuses another major version; a minor version only
 /// adds things an older reader may ignore.
 inline constexpr int kFormatMajor = 1;
-inline constexpr int kFormatMinor = 0;
+/// The newest minor version written: 1.1 added the estimates (SCHEMA.md); a file without
+/// estimates is written as 1.0, which it is.
+inline constexpr int kFormatMinor = 1;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {
@@ -47,6 +49,15 @@ struct SizeLayout {
   friend bool operator==(const SizeLayout&, const SizeLayout&) = default;
 };
 
+/// One estimate column: which estimator made it, its name, and the text of its truth (a number,
+/// "none" or a quantity the analysis computes; include/freegap/job.hpp).
+struct EstimateColumn {
+  std::string estimator;
+  std::string estimate;
+  std::string truth;
+  friend bool operator==(const EstimateColumn&, const EstimateColumn&) = default;
+};
+
 /// Everything about the run that does not depend on how it ran.
 struct RunHeader {
   std::string job_text;       ///< the job file, verbatim
@@ -63,7 +74,12 @@ struct RunHeader {
   /// freegap::git_revision, whatever is given here; reading fills them from the file.
   std::string tool_version;
   std::string git_revision;
+  /// The estimate columns, estimator by estimator (an estimator's columns are consecutive).
+  /// Empty: the job declares no estimators, and the file has no estimate datasets.
+  std::vector<EstimateColumn> estimates;
 
+  /// The estimators' names, in column order, each once.
+  std::vector<std::string> estimators() const;
   /// Throws InputError naming the field and the rule it breaks.
   void validate() const;
 };
@@ -74,6 +90,17 @@ struct UnitResult {
   std::size_t size_index = 0;
   std::int64_t unit = 0;
   observe::Observations obs;
+  /// With estimators only: rows × E values (row i is trial unit_begin + i; NaN where failed) and
+  /// rows × P failure reasons ("" where the estimator did not fail), row-major.
+  std::vector<double> estimates;
+  std::vector<std::string> estimate_failures;
+};
+
+/// The estimates of a size's committed trials, in trial order.
+struct EstimateRows {
+  std::vector<std::uint64_t> trials;
+  std::vector<double> values;         ///< trials × E, row-major
+  std::vector<std::string> failures;  ///< trials × P, row-major
 };
 
 /// Where and how long a unit ran. Goes to /provenance only.
@@ -160,6 +187,9 @@ class RunFile {
   /// The histogram of each committed unit of a size, in unit order (the independent replicates
   /// a bootstrap resamples).
   std::vector<observe::Histogram> read_unit_histograms(std::size_t size_index) const;
+
+  /// The estimate rows of a size's committed units (empty without estimators).
+  EstimateRows read_estimates(std::size_t size_index) const;
   Provenance read_provenance() const;
 
   /// The implementation (opaque; public only so that helpers in the source file can name it).

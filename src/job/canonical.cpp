@@ -114,6 +114,34 @@ std::string Job::canonical() const {
   out += "; keep_spectra = " + std::to_string(observe.keep_spectra);
   out += observe.singular_values ? "; spectrum = singular_values\n" : "; spectrum = auto\n";
   out += force_dense ? "force_dense = true\n" : "force_dense = false\n";
+  // Estimators define numbers in the file too (their estimates). Nothing is printed for a job
+  // without them, so such jobs keep their hash. A library is identified by its bytes (the path is
+  // where, not what); a command by its argv only — freegap cannot see what a program reads.
+  for (const auto& e : estimators) {
+    out += "estimator " + e.name + ":";
+    switch (e.source) {
+      case EstimatorSpec::Source::builtin:
+        out += " builtin = " + with_length(e.builtin);
+        break;
+      case EstimatorSpec::Source::library:
+        out += " library sha256 = " + e.library_digest;
+        break;
+      case EstimatorSpec::Source::command:
+        out += " command =";
+        for (const auto& word : e.command) {
+          out += ' ';
+          out += with_length(word);
+        }
+        break;
+    }
+    out += "; timeout = " + exact(e.timeout) + "\n";
+    for (const auto& [key, value] : e.parameters) {
+      out += "  parameter " + key + " = " + with_length(value) + "\n";
+    }
+    for (std::size_t i = 0; i < e.estimates.size(); ++i) {
+      out += "  estimate " + e.estimates[i] + ": truth = " + with_length(e.truths[i]) + "\n";
+    }
+  }
   return out;
 }
 

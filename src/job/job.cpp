@@ -685,6 +685,186 @@ void read_run(const Reader& r, const toml::table& t, const std::filesystem::path
     job.force_dense = r.boolean(*v, "run.force_dense");
 }
 
+// ---- estimators ----------------------------------------------------------------------------------
+
+// Checks a truth written as text; returns it unchanged or fails at the node.
+std::string read_truth_text(const Reader& r, const toml::node& node, std::string_view key,
+                            const std::vector<ensembles::MatrixSpec>& matrices) {
+  const std::string forms =
+      "a number, \"none\", \"limit_moment:K\", \"limit_edge:lower\", \"limit_edge:upper\", "
+      "\"limit_norm\", \"matrix_moment:NAME:K\" or \"matrix_ratio:NAME\"";
+  const std::string text = r.string(node, key, forms);
+  std::vector<std::string> parts;
+  std::size_t start = 0;
+  for (;;) {
+    const std::size_t colon = text.find(':', start);
+    parts.push_back(text.substr(start, colon == std::string::npos ? std::string::npos : colon - start));
+    if (colon == std::string::npos) break;
+    start = colon + 1;
+  }
+  const auto order = [&](const std::string& digits) {
+    std::int64_t k = -1;
+    const auto result = std::from_chars(digits.data(), digits.data() + digits.size(), k);
+    if (result.ec != std::errc() || result.ptr != digits.data() + digits.size() || k < 1 ||
+        k > observe::kMaxMomentLimit) {
+      r.fail_node(node, key, "moment order '" + digits + "' must be an integer 1.." +
+                                 std::to_string(observe::kMaxMomentLimit));
+    }
+  };
+  const auto matrix = [&](const std::string& name) {
+    const bool declared = std::any_of(matrices.begin(), matrices.end(),
+                                      [&](const auto& m) { return m.name == name; });
+    if (!declared) {
+      r.fail_node(node, key, "names matrix '" + name + "', which the job does not declare");
+    }
+  };
+  const std::string& head = parts[0];
+  if (parts.size() == 1 && (head == "none" || head == "limit_norm")) return text;
+  if (head == "limit_moment" && parts.size() == 2) {
+    order(parts[1]);
+    return text;
+  }
+  if (head == "limit_edge" && parts.size() == 2 && (parts[1] == "lower" || parts[1] == "upper")) {
+    return text;
+  }
+  if (head == "matrix_moment" && parts.size() == 3) {
+    matrix(parts[1]);
+    order(parts[2]);
+    return text;
+  }
+  if (head == "matrix_ratio" && parts.size() == 2) {
+    matrix(parts[1]);
+    return text;
+  }
+  r.fail_node(node, key, "must be " + forms + " (got \"" + text + "\")");
+}
+
+EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t index,
+                             const std::filesystem::path& base,
+                             const std::vector<ensembles::MatrixSpec>& matrices,
+                             std::map<std::string, int, std::less<>>& lines, bool read_library) {
+  EstimatorSpec e;
+  std::string prefix = "estimator[" + std::to_string(index) + "]";
+  const int table_line = static_cast<int>(t.source().begin.line);
+  const auto note_lines = [&](const toml::table& table, const std::string& at) {
+    for (auto&& [key, node] : table) {
+      lines.emplace(at + "." + std::string(key.str()), static_cast<int>(key.source().begin.line));
+    }
+  };
+  const toml::node* name = t.get("name");
+  if (name == nullptr) {
+    r.fail_at(table_line, prefix, "has no name; add name = \"...\" (letters, digits, '_')");
+  }
+  e.name = r.string(*name, prefix + ".name", "a name in quotes");
+  if (!is_identifier(e.name) || e.name.size() > 64) {
+    r.fail_node(*name, prefix + ".name",
+                "must start with a letter and hold only letters, digits and '_', at most 64 "
+                "characters (got \"" + e.name + "\")");
+  }
+  prefix = "estimator." + e.name;
+  note_lines(t, prefix);
+  lines.emplace(prefix, table_line);
+  r.check_keys(t, prefix, {"name", "builtin", "library", "command", "timeout", "parameters", "truth"},
+               " in an [[estimator]]");
+  const int sources = (t.get("builtin") ? 1 : 0) + (t.get("library") ? 1 : 0) +
+                      (t.get("command") ? 1 : 0);
+  if (sources != 1) {
+    r.fail(prefix, sources == 0 ? "says nowhere to get estimates from; add builtin = \"...\", "
+                                  "library = \"path.so\" or command = [\"program\", ...]"
+                                : "gives more than one of builtin, library and command; keep one");
+  }
+  if (const toml::node* v = t.get("builtin")) {
+    e.source = EstimatorSpec::Source::builtin;
+    e.builtin = r.string(*v, prefix + ".builtin", "the name of a built-in estimator in quotes");
+  }
+  if (const toml::node* v = t.get("library")) {
+    e.source = EstimatorSpec::Source::library;
+    const std::string given = r.string(*v, prefix + ".library", "a file path in quotes");
+    if (given.empty()) r.fail(prefix + ".library", "is empty; give the shared library's path");
+    e.library = (base / std::filesystem::path(given)).string();
+  }
+  if (t.get("library") != nullptr && read_library) {
+    errno = 0;
+    std::ifstream in(e.library, std::ios::binary);
+    std::error_code ec;
+    if (!in || std::filesystem::is_directory(e.library, ec)) {
+      r.fail(prefix + ".library", "cannot read '" + e.library + "'" +
+                                      (errno != 0 ? std::string(": ") + std::strerror(errno) : "") +
+                                      "; give the path of the plug-in's shared library (relative "
+                                      "to the job file)");
+    }
+    std::ostringstream bytes;
+    bytes << in.rdbuf();
+    e.library_digest = sha256_hex(bytes.str());
+  }
+  if (const toml::node* v = t.get("command")) {
+    e.source = EstimatorSpec::Source::command;
+    const auto* list = v->as_array();
+    const std::string rule = "a list of strings: the program and its arguments, e.g. "
+                             "[\"python3\", \"estimate.py\"]";
+    if (list == nullptr || list->empty()) {
+      r.fail_node(*v, prefix + ".command", "must be " + rule);
+    }
+    for (const auto& item : *list) e.command.push_back(r.string(item, prefix + ".command", rule));
+    if (e.command[0].empty()) r.fail_node(*v, prefix + ".command", "names an empty program");
+    if (e.command[0].find('/') != std::string::npos && e.command[0][0] != '/') {
+      e.command[0] = (base / std::filesystem::path(e.command[0])).string();
+    }
+  }
+  if (const toml::node* v = t.get("timeout")) {
+    e.timeout = r.positive_number(*v, prefix + ".timeout");
+  }
+  if (const toml::node* v = t.get("parameters")) {
+    const auto& params = r.table(*v, prefix + ".parameters",
+                                 "write [estimator.parameters] and key = value under it");
+    note_lines(params, prefix + ".parameters");
+    for (auto&& [key, node] : params) {
+      const std::string at = prefix + ".parameters." + std::string(key.str());
+      std::string value;
+      if (const auto* s = node.as_string()) {
+        value = s->get();
+      } else if (const auto* i = node.as_integer()) {
+        value = std::to_string(i->get());
+      } else if (const auto* f = node.as_floating_point()) {
+        value = short_number(f->get());
+      } else if (const auto* b = node.as_boolean()) {
+        value = b->get() ? "true" : "false";
+      } else {
+        r.fail_node(node, at, "must be a string, a number or a boolean (got " + describe(node) + ")");
+      }
+      e.parameters.emplace_back(std::string(key.str()), value);
+    }
+  }
+  const toml::node* truth = t.get("truth");
+  if (truth == nullptr) {
+    r.fail(prefix, "has no [estimator.truth]; name each estimate's truth, e.g. "
+                   "second_moment = \"matrix_moment:T:4\" or a number");
+  }
+  const auto& truths = r.table(*truth, prefix + ".truth",
+                               "write [estimator.truth] and estimate = truth under it");
+  note_lines(truths, prefix + ".truth");
+  if (truths.empty()) r.fail(prefix + ".truth", "names no estimate; add estimate = truth");
+  for (auto&& [key, node] : truths) {
+    const std::string at = prefix + ".truth." + std::string(key.str());
+    if (!is_identifier(key.str()) || key.str().size() > 64) {
+      r.fail_node(node, at, "estimate names start with a letter and hold only letters, digits "
+                            "and '_', at most 64 characters");
+    }
+    std::string text;
+    if (node.is_integer() || node.is_floating_point()) {
+      const double x = r.finite_number(node, at);
+      char buf[40];
+      const auto result = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
+      text.assign(buf, result.ptr);
+    } else {
+      text = read_truth_text(r, node, at, matrices);
+    }
+    e.estimates.emplace_back(key.str());
+    e.truths.push_back(text);
+  }
+  return e;
+}
+
 }  // namespace
 
 // ---- public ------------------------------------------------------------------------------------
@@ -735,7 +915,7 @@ std::string Job::where(std::string_view key) const {
          ": ";
 }
 
-Job parse_job(std::string_view text, const std::string& path) {
+Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries) {
   Job job;
   job.path = path;
   job.text = std::string(text);
@@ -752,7 +932,8 @@ Job parse_job(std::string_view text, const std::string& path) {
   r.record_lines(doc, "");
 
   r.check_keys(doc, "",
-               {"name", "seed", "sizes", "trials", "expression", "matrices", "observe", "run"},
+               {"name", "seed", "sizes", "trials", "expression", "matrices", "observe", "run",
+                "estimator"},
                " at the top level");
 
   const std::filesystem::path file(path);
@@ -833,6 +1014,23 @@ Job parse_job(std::string_view text, const std::string& path) {
   }
   if (const toml::node* v = doc.get("run")) {
     read_run(r, r.table(*v, "run", "write [run] and its keys under it"), base, job);
+  }
+  if (const toml::node* v = doc.get("estimator")) {
+    const auto* list = v->as_array();
+    if (list == nullptr || !list->is_array_of_tables()) {
+      r.fail_node(*v, "estimator", "must be a list of tables; write each as [[estimator]]");
+    }
+    for (std::size_t i = 0; i < list->size(); ++i) {
+      auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
+                                 read_estimator_libraries);
+      for (const auto& other : job.estimators) {
+        if (other.name == spec.name) {
+          r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",
+                 "\"" + spec.name + "\" names two estimators; give each a name of its own");
+        }
+      }
+      job.estimators.push_back(std::move(spec));
+    }
   }
   return job;
 }

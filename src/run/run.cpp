@@ -10,6 +10,7 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <memory>
 #include <optional>
 #include <iostream>
 #include <sstream>
@@ -17,6 +18,7 @@
 #include <tuple>
 
 #include "freegap/errors.hpp"
+#include "freegap/estimate.hpp"
 #include "freegap/store.hpp"
 
 extern "C" void openblas_set_num_threads(int);
@@ -151,6 +153,8 @@ struct UnitDone {
   int rank = 0;
   double seconds = 0.0;
   observe::Observations obs;
+  std::vector<double> estimates;            // trials × E (with estimators only)
+  std::vector<std::string> estimate_failures;  // trials × P
 };
 
 std::vector<char> pack(const UnitDone& u) {
@@ -175,6 +179,9 @@ std::vector<char> pack(const UnitDone& u) {
     w.put<double>(t.norm);
     w.put_doubles(t.spectrum);
   }
+  w.put_doubles(u.estimates);
+  w.put<std::uint64_t>(u.estimate_failures.size());
+  for (const auto& reason : u.estimate_failures) w.put_string(reason);
   return std::move(w.bytes);
 }
 
@@ -203,6 +210,11 @@ UnitDone unpack(const std::vector<char>& bytes, const observe::ObserveConfig& co
     t.norm = r.get<double>();
     t.spectrum = r.get_doubles();
   }
+  u.estimates = r.get_doubles();
+  const auto reasons = r.get<std::uint64_t>();
+  if (reasons > bytes.size()) throw Error("corrupt unit message between ranks");
+  u.estimate_failures.resize(reasons);
+  for (auto& reason : u.estimate_failures) reason = r.get_string();
   return u;
 }
 
@@ -266,6 +278,9 @@ struct Prepared {
   job::Job job;
   std::vector<model::SizeRunner> runners;
   std::vector<observe::ObserveConfig> configs;  // filled after the bin edges are known
+  /// The job's estimators, opened in this rank (empty set without any). Shared so that the
+  /// const Prepared handed around can still call them (a plug-in's helper process has state).
+  std::shared_ptr<estimate::EstimatorSet> estimators = std::make_shared<estimate::EstimatorSet>();
 };
 
 std::string prefix(const job::Job& job, const std::string& key) {
@@ -279,11 +294,23 @@ model::Model model_of(const job::Job& job) {
   m.matrices = job.matrices;
   m.expression = job.expression;
   m.check.force_singular_values = job.observe.singular_values;
-  m.force_dense = job.force_dense;
+  // Estimators read every trial's spectrum, which only the dense path computes.
+  m.force_dense = job.force_dense || !job.estimators.empty();
   return m;
 }
 
 std::vector<model::SizeRunner> make_runners(const job::Job& job) {
+  if (!job.estimators.empty()) {
+    for (const auto& spec : job.matrices) {
+      if (spec.kind == ensembles::Kind::beta_hermite || spec.kind == ensembles::Kind::beta_laguerre) {
+        throw InputError(prefix(job, "estimator." + job.estimators.front().name) +
+                         "estimators need every trial's spectrum, and matrix '" + spec.name +
+                         "' (" + std::string(ensembles::kind_name(spec.kind)) +
+                         ") has only a tridiagonal model, which computes none; use gue, goe, "
+                         "wishart_complex or wishart_real, or remove the estimators");
+      }
+    }
+  }
   std::vector<model::SizeRunner> runners;
   const model::Model m = model_of(job);
   try {
@@ -350,6 +377,11 @@ store::RunHeader make_header(const Prepared& p, int threads) {
     s.observe = p.configs[i];
     h.sizes.push_back(std::move(s));
   }
+  for (const auto& e : p.job.estimators) {
+    for (std::size_t k = 0; k < e.estimates.size(); ++k) {
+      h.estimates.push_back({e.name, e.estimates[k], e.truths[k]});
+    }
+  }
   return h;
 }
 
@@ -385,9 +417,32 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
   done.rank = rank;
   done.obs = observe::start_observations(p.configs[unit.size_index]);
   const auto& runner = p.runners[unit.size_index];
+  auto& estimators = *p.estimators;
+  std::vector<double> values;
+  std::vector<std::string> reasons;
   for (std::int64_t t = unit.first_trial; t < unit.end_trial; ++t) {
     if (stop_requested()) return false;
-    runner.observe_trial(done.obs, p.job.seed, static_cast<std::uint64_t>(t));
+    const auto trial = static_cast<std::uint64_t>(t);
+    if (estimators.empty()) {
+      runner.observe_trial(done.obs, p.job.seed, trial);
+    } else {
+      // The same trial as observe_trial's dense path, then every estimator on its spectrum.
+      const model::TrialOutcome outcome = runner.run(p.job.seed, trial);
+      model::record(done.obs, outcome);
+      if (outcome.failed) {
+        estimators.fail_all("the trial failed: " + outcome.reason, values, reasons);
+      } else {
+        estimate::TrialInput input;
+        input.n = runner.size();
+        input.trial = trial;
+        input.seed = p.job.seed;
+        input.kind = runner.spectrum_kind();
+        input.spectrum = {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())};
+        estimators.run(input, values, reasons);
+      }
+      done.estimates.insert(done.estimates.end(), values.begin(), values.end());
+      done.estimate_failures.insert(done.estimate_failures.end(), reasons.begin(), reasons.end());
+    }
     between_trials();
   }
   done.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
@@ -491,6 +546,8 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     r.size_index = d.size_index;
     r.unit = d.unit;
     r.obs = d.obs;
+    r.estimates = d.estimates;
+    r.estimate_failures = d.estimate_failures;
     store::UnitProvenance where;
     where.rank = d.rank;
     where.host = hosts[static_cast<std::size_t>(d.rank)];
@@ -668,6 +725,9 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     p.job = job::parse_job(text, job_path);
     if (!options.output.empty()) p.job.output = options.output;
     p.runners = make_runners(p.job);
+    // Loads and checks every estimator (library entry points, ABI version, declared names,
+    // commands on PATH) on every rank, before anything is written.
+    p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
     if (options.threads > 1) {
       // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
       // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.

@@ -235,14 +235,23 @@ void read_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start
 
 std::vector<std::string> read_strings(hid_t dataset, hsize_t start, hsize_t count, Where where,
                                       const std::string& what) {
+  return read_strings(dataset, std::vector<hsize_t>{start}, std::vector<hsize_t>{count}, where,
+                      what);
+}
+
+std::vector<std::string> read_strings(hid_t dataset, const std::vector<hsize_t>& start,
+                                      const std::vector<hsize_t>& counts, Where where,
+                                      const std::string& what) {
   std::vector<std::string> out;
+  hsize_t count = 1;
+  for (const auto c : counts) count *= c;
   if (count == 0) return out;
   Id type = string_type(where);
   {
     Id file_type = own(H5Dget_type(dataset), H5Tclose, where, what);
     check(H5Tset_cset(type.get(), H5Tget_cset(file_type.get())), where, what);
   }
-  auto [file_space, mem_space] = block_spaces(dataset, {start}, {count}, where, what);
+  auto [file_space, mem_space] = block_spaces(dataset, start, counts, where, what);
   std::vector<char*> pointers(count, nullptr);
   check(
       H5Dread(dataset, type.get(), mem_space.get(), file_space.get(), H5P_DEFAULT, pointers.data()),

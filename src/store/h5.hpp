@@ -112,5 +112,9 @@ void read_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start
 /// pointer, e.g. a never-written element, reads as "").
 std::vector<std::string> read_strings(hid_t dataset, hsize_t start, hsize_t count, Where where,
                                       const std::string& what);
+/// The same for any block of a string dataset of any rank, in row-major order.
+std::vector<std::string> read_strings(hid_t dataset, const std::vector<hsize_t>& start,
+                                      const std::vector<hsize_t>& count, Where where,
+                                      const std::string& what);
 
 }  // namespace freegap::store::h5

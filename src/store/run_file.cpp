@@ -365,6 +365,31 @@ void RunHeader::validate() const {
       refuse("metadata key '" + key + "' must be non-empty without '/' or '.'");
     }
   }
+  std::vector<std::string> seen;
+  for (std::size_t i = 0; i < estimates.size(); ++i) {
+    const auto& e = estimates[i];
+    if (e.estimator.empty() || e.estimate.empty()) {
+      refuse("estimates[" + std::to_string(i) + "] needs an estimator and an estimate name");
+    }
+    if (i > 0 && estimates[i - 1].estimator != e.estimator &&
+        std::find(seen.begin(), seen.end(), e.estimator) != seen.end()) {
+      refuse("the columns of estimator '" + e.estimator + "' must be consecutive");
+    }
+    for (std::size_t j = 0; j < i; ++j) {
+      if (estimates[j].estimator == e.estimator && estimates[j].estimate == e.estimate) {
+        refuse("estimate '" + e.estimator + "." + e.estimate + "' appears twice");
+      }
+    }
+    if (seen.empty() || seen.back() != e.estimator) seen.push_back(e.estimator);
+  }
+}
+
+std::vector<std::string> RunHeader::estimators() const {
+  std::vector<std::string> names;
+  for (const auto& e : estimates) {
+    if (names.empty() || names.back() != e.estimator) names.push_back(e.estimator);
+  }
+  return names;
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -377,6 +402,7 @@ struct SizeHandles {
   Id moments, min, max, norm, failed, failure_reason;
   Id unit_histograms, unit_below, unit_above, unit_committed;
   Id spectra, spectrum_length;
+  Id estimates, estimate_failure;  // only with estimators
 };
 
 }  // namespace
@@ -422,7 +448,7 @@ void write_static_1d(hid_t group, const char* name, hid_t file_type, hid_t mem_t
 }
 
 void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, hid_t string,
-                Where where) {
+                std::size_t estimate_columns, std::size_t estimator_count, Where where) {
   const std::string name = std::to_string(index);
   Id group = h5::own(H5Gcreate2(sizes_group, name.c_str(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
                      H5Gclose, where, "create group '/sizes/" + name + "'");
@@ -475,12 +501,40 @@ void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, 
     h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{kept}, {}, {1}, true}, &zero64,
                        where);
   }
+  if (estimate_columns > 0) {
+    // Format 1.1: the estimates, chunked by unit like every per-trial dataset.
+    h5::create_dataset(g, "estimates", H5T_IEEE_F64LE,
+                       {{t, estimate_columns}, {}, {rows, estimate_columns}, true}, &kNaN, where);
+    h5::create_dataset(g, "estimate_failure", string,
+                       {{t, estimator_count}, {}, {rows, estimator_count}, true}, nullptr, where);
+  }
+}
+
+// The /estimators group: one row per estimate column (format 1.1).
+void write_estimators(hid_t file, const std::vector<EstimateColumn>& columns, hid_t string,
+                      Where where) {
+  Id group = h5::own(H5Gcreate2(file, "estimators", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
+                     H5Gclose, where, "create group '/estimators'");
+  std::vector<const char*> estimator, estimate, truth;
+  for (const auto& c : columns) {
+    estimator.push_back(c.estimator.c_str());
+    estimate.push_back(c.estimate.c_str());
+    truth.push_back(c.truth.c_str());
+  }
+  for (const auto& [name, values] : {std::pair<const char*, const std::vector<const char*>*>{
+                                         "estimator", &estimator},
+                                     {"estimate", &estimate},
+                                     {"truth", &truth}}) {
+    write_static_1d(group.get(), name, string, string, values->size(), values->data(), where);
+  }
 }
 
 void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t session_file_type,
                   hid_t unit_file_type, Where where) {
   h5::write_string_attribute(file, "file_kind", kFileKind, where);
-  h5::write_int_array_attribute(file, "format_version", {kFormatMajor, kFormatMinor}, where);
+  // A file without estimates is exactly a 1.0 file; 1.1 only adds them (SCHEMA.md).
+  h5::write_int_array_attribute(file, "format_version",
+                                {kFormatMajor, header.estimates.empty() ? 0 : kFormatMinor}, where);
   h5::write_string_attribute(file, "tool_version", header.tool_version, where);
   h5::write_string_attribute(file, "git_revision", header.git_revision, where);
   h5::write_string_attribute(file, "job_text", header.job_text, where);
@@ -501,8 +555,11 @@ void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t sessi
   Id sizes = h5::own(H5Gcreate2(file, "sizes", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT), H5Gclose,
                      where, "create group '/sizes'");
   for (std::size_t i = 0; i < header.sizes.size(); ++i) {
-    write_size(sizes.get(), i, header.sizes[i], string, where);
+    write_size(sizes.get(), i, header.sizes[i], string, header.estimates.size(),
+               header.estimators().size(), where);
   }
+
+  if (!header.estimates.empty()) write_estimators(file, header.estimates, string, where);
 
   Id provenance = h5::own(H5Gcreate2(file, "provenance", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
                           H5Gclose, where, "create group '/provenance'");
@@ -583,6 +640,23 @@ RunHeader read_header(hid_t file, Where where) {
     layout.observe.keep_spectrum_trials = read_uint64_1d(g, "kept_trials", where);
     header.sizes.push_back(std::move(layout));
   }
+  if (h5::has_link(file, "estimators")) {
+    Id group = h5::open_group(file, "estimators", where);
+    std::vector<std::vector<std::string>> fields;
+    for (const char* name : {"estimator", "estimate", "truth"}) {
+      Id dataset = h5::open_dataset(group.get(), name, where);
+      const auto dims = h5::extent(dataset.get(), where);
+      if (dims.size() != 1) throw Error(std::string("dataset '/estimators/") + name + "' is not 1-D");
+      fields.push_back(h5::read_strings(dataset.get(), 0, dims[0], where,
+                                        std::string("read '/estimators/") + name + "'"));
+    }
+    if (fields[1].size() != fields[0].size() || fields[2].size() != fields[0].size()) {
+      throw Error("the datasets of '/estimators' differ in length");
+    }
+    for (std::size_t i = 0; i < fields[0].size(); ++i) {
+      header.estimates.push_back({fields[0][i], fields[1][i], fields[2][i]});
+    }
+  }
   try {
     header.validate();
   } catch (const InputError& e) {
@@ -598,7 +672,8 @@ void expect_extent(hid_t dataset, const std::vector<hsize_t>& expected, const st
   }
 }
 
-SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout, Where where) {
+SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
+                      std::size_t estimate_columns, std::size_t estimator_count, Where where) {
   SizeHandles s;
   const std::string group_name = size_group_name(index);
   s.group = h5::open_group(file, group_name, where);
@@ -622,6 +697,10 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout, W
   s.unit_committed = open("unit_committed", {u});
   s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)});
   s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())});
+  if (estimate_columns > 0) {
+    s.estimates = open("estimates", {t, estimate_columns});
+    s.estimate_failure = open("estimate_failure", {t, estimator_count});
+  }
   return s;
 }
 
@@ -647,6 +726,14 @@ std::string first_difference(const RunHeader& file, const RunHeader& job) {
   }
   if (file.spectrum != job.spectrum) {
     return differ("spectrum", spectrum_name(file.spectrum), spectrum_name(job.spectrum));
+  }
+  if (file.estimates != job.estimates) {
+    const auto list = [](const std::vector<EstimateColumn>& columns) {
+      std::string out;
+      for (const auto& c : columns) out += (out.empty() ? "" : ", ") + c.estimator + "." + c.estimate;
+      return "[" + out + "]";
+    };
+    return differ("estimates", list(file.estimates), list(job.estimates));
   }
   if (file.sizes.size() != job.sizes.size()) {
     return differ("number of sizes", std::to_string(file.sizes.size()),
@@ -693,7 +780,9 @@ std::unique_ptr<RunFile::Impl> load(const std::string& path, Purpose purpose, un
     impl->header = read_header(impl->file.get(), where);
     impl->make_types();
     for (std::size_t i = 0; i < impl->header.sizes.size(); ++i) {
-      impl->sizes.push_back(open_size(impl->file.get(), i, impl->header.sizes[i], where));
+      impl->sizes.push_back(open_size(impl->file.get(), i, impl->header.sizes[i],
+                                      impl->header.estimates.size(),
+                                      impl->header.estimators().size(), where));
       impl->committed.push_back(read_committed(impl->sizes.back(), impl->header.sizes[i], where));
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", where);
@@ -794,7 +883,9 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
     write_header(impl->file.get(), header, impl->string_type.get(), session_file.get(),
                  unit_file.get(), temp_where);
     for (std::size_t i = 0; i < header.sizes.size(); ++i) {
-      impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i], temp_where));
+      impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i],
+                                      header.estimates.size(), header.estimators().size(),
+                                      temp_where));
       impl->committed.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), false);
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", temp_where);
@@ -1072,6 +1163,17 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
     }
   }
 
+  const std::size_t columns_e = f.header.estimates.size();
+  const std::size_t estimators = f.header.estimators().size();
+  if (unit.estimates.size() != rows * columns_e ||
+      unit.estimate_failures.size() != rows * estimators) {
+    refuse("it holds " + std::to_string(unit.estimates.size()) + " estimates and " +
+           std::to_string(unit.estimate_failures.size()) + " estimate failure reasons, expected " +
+           std::to_string(rows * columns_e) + " and " + std::to_string(rows * estimators));
+  }
+  std::vector<const char*> estimate_reasons;
+  for (const auto& reason : unit.estimate_failures) estimate_reasons.push_back(reason.c_str());
+
   const SizeHandles& s = f.sizes[unit.size_index];
   const Where w = f.where();
   const std::string what =
@@ -1095,6 +1197,12 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
                     spectra.data(), w, what);
     h5::write_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
                     {kept_end - kept_begin}, lengths.data(), w, what);
+    if (columns_e > 0) {
+      h5::write_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns_e},
+                      unit.estimates.data(), w, what);
+      h5::write_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
+                      estimate_reasons.data(), w, what);
+    }
     f.flush(what);
 
     // Phase 2: the commit marker (and the provenance record), then flush. A kill before this
@@ -1239,6 +1347,45 @@ observe::Observations RunFile::read_observations(std::size_t size_index) const {
     refuse_damaged(f.path, e.what(), Purpose::read);
   }
   return obs;
+}
+
+EstimateRows RunFile::read_estimates(std::size_t size_index) const {
+  h5::quiet();
+  const Impl& f = *impl_;
+  if (size_index >= f.header.sizes.size()) {
+    throw Error("run file '" + f.path + "': no size " + std::to_string(size_index));
+  }
+  EstimateRows out;
+  const std::size_t columns = f.header.estimates.size();
+  const std::size_t estimators = f.header.estimators().size();
+  if (columns == 0) return out;
+  const SizeLayout& layout = f.header.sizes[size_index];
+  const SizeHandles& s = f.sizes[size_index];
+  const auto& flags = f.committed[size_index];
+  const Where w = f.where();
+  const std::string what = "read the estimates of size " + std::to_string(size_index);
+  try {
+    for (std::size_t u = 0; u < flags.size(); ++u) {
+      if (!flags[u]) continue;
+      const std::int64_t begin = layout.unit_begin(static_cast<std::int64_t>(u));
+      const std::int64_t end = layout.unit_end(static_cast<std::int64_t>(u));
+      const auto rows = static_cast<std::size_t>(end - begin);
+      std::vector<double> values(rows * columns);
+      h5::read_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {as_hsize(begin), 0}, {rows, columns},
+                     values.data(), w, what);
+      const auto reasons = h5::read_strings(s.estimate_failure.get(),
+                                            std::vector<hsize_t>{as_hsize(begin), 0},
+                                            std::vector<hsize_t>{rows, estimators}, w, what);
+      for (std::size_t i = 0; i < rows; ++i) {
+        out.trials.push_back(static_cast<std::uint64_t>(begin) + i);
+      }
+      out.values.insert(out.values.end(), values.begin(), values.end());
+      out.failures.insert(out.failures.end(), reasons.begin(), reasons.end());
+    }
+  } catch (const Error& e) {
+    refuse_damaged(f.path, e.what(), Purpose::read);
+  }
+  return out;
 }
 
 Provenance RunFile::read_provenance() const {

@@ -14,6 +14,8 @@
 //                    the same numbers, one row per (run, size[, k]) / fit / run
 //   histograms.csv, limit_density.csv, limit_atoms.csv
 //                    what the figures draw (bin counts as densities, the limit density on a grid)
+//   estimators_run<r>.csv
+//                    the scores of run r's plug-in estimators, when it has any
 //   report.h5        every table as an HDF5 group of column datasets (/tables/<name>/<column>)
 //   figures/*.png, figures/*.svg
 //                    drawn by analysis/plot_report.py with Debian's python3-matplotlib
@@ -21,6 +23,7 @@
 
 #include <cstdint>
 #include <string>
+#include <utility>
 #include <variant>
 #include <vector>
 
@@ -48,6 +51,9 @@ struct Report {
   std::string markdown;       ///< report.md
   std::vector<Table> tables;  ///< every CSV (and HDF5 group) by name
   std::vector<std::string> incomplete;  ///< "file: N = n (u of U units)" per incomplete size
+  /// Further files by name: estimators_run<r>.csv, the scores of a run's plug-in estimators
+  /// (estimator_scores.hpp), drawn as figures/estimators_run<r> by analysis/plot_estimators.py.
+  std::vector<std::pair<std::string, std::string>> files;
 };
 
 /// Analyses the run files (in order) and returns the report without writing anything.

@@ -1,0 +1,109 @@
+// Estimators that ride along with a run: built-in ones, plug-in shared libraries (the C ABI of
+// include/freegap/estimator_abi.h) and external commands, each called on every trial's spectrum
+// and returning named scalar estimates. A failure of one estimator on one trial — a crash, a hang
+// past its timeout, a NaN, a wrong count, malformed output — is that trial's recorded failure,
+// never the run's (src/estimate/PLUGINS.md).
+//
+// Containment: a plug-in library runs in a helper process forked from the rank once (and again
+// after a failure), fed trials through a socket pair, so a segfault or a hang kills the helper,
+// not the rank; a command is a new process per trial. Built-ins are freegap's own code and run in
+// the rank.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <span>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "freegap/job.hpp"
+#include "freegap/observe.hpp"
+
+namespace freegap::estimate {
+
+/// What every estimator sees of one trial.
+struct TrialInput {
+  std::int64_t n = 0;
+  std::uint64_t trial = 0;
+  std::uint64_t seed = 0;
+  observe::SpectrumKind kind = observe::SpectrumKind::eigenvalues;
+  std::span<const double> spectrum;
+};
+
+/// One estimator's answer for one trial: one value per estimate of its spec (in the spec's
+/// order, i.e. sorted by estimate name), or failed with a short reason and every value NaN.
+struct Outcome {
+  bool failed = false;
+  std::string reason;
+  std::vector<double> values;
+};
+
+class Estimator {
+ public:
+  virtual ~Estimator() = default;
+  /// Never throws for anything the estimator does; a failure is an Outcome.
+  virtual Outcome estimate(const TrialInput& input) = 0;
+};
+
+/// Opens one estimator of `job` in this process: finds the built-in, or loads the library and
+/// checks its ABI version, entry points and declared names against the job's truth table, or
+/// checks the command's program can be found. Throws InputError "file:line: estimator.NAME...:
+/// rule and fix" (DESIGN.md rule 6: before the run starts, nothing written).
+std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index);
+
+/// Every estimator of a job, in job order, and the flat layout of their results: estimate
+/// columns are the estimators' estimates in order (estimator 0's, then 1's, ...).
+class EstimatorSet {
+ public:
+  EstimatorSet() = default;
+  /// Opens every estimator (throws InputError like open_estimator).
+  explicit EstimatorSet(const job::Job& job);
+
+  bool empty() const { return estimators_.empty(); }
+  std::size_t estimator_count() const { return estimators_.size(); }
+  std::size_t estimate_count() const { return columns_; }
+
+  /// Runs every estimator on one trial. `values` gets estimate_count() numbers (NaN for a failed
+  /// estimator), `reasons` one string per estimator ("" when it did not fail).
+  void run(const TrialInput& input, std::vector<double>& values, std::vector<std::string>& reasons);
+  /// The rows of a trial that has no spectrum: every value NaN, every reason `why`.
+  void fail_all(const std::string& why, std::vector<double>& values,
+                std::vector<std::string>& reasons) const;
+
+ private:
+  std::vector<std::unique_ptr<Estimator>> estimators_;
+  std::vector<std::size_t> widths_;
+  std::size_t columns_ = 0;
+};
+
+// ---- built-ins ---------------------------------------------------------------------------------
+
+/// A built-in estimator's name, the estimates it returns and a one-line description.
+struct BuiltinInfo {
+  std::string_view name;
+  std::vector<std::string_view> estimates;  ///< sorted
+  std::string_view description;
+};
+/// Every built-in, by name.
+std::vector<BuiltinInfo> builtins();
+
+/// Moment estimator of the population spectrum's second moment σ₂ = (1/N) tr Σ² from the
+/// eigenvalues λ of a sample covariance S = Σ^{1/2} (X X^*/M) Σ^{1/2} with c = N/M:
+/// m_k = (1/N) Σ λ^k, plain σ̂₂ = m₂ − c m₁² (consistent; Bai & Silverstein 2010, ch. 3, from
+/// memory), unbiased for Gaussian entries after dividing by 1 − 1/M² (complex) or
+/// (M − 1)(M + 2)/M² (real; Srivastava 2005). Returns {plain, unbiased}.
+std::pair<double, double> population_second_moment(std::span<const double> eigenvalues,
+                                                   std::int64_t m, bool real_entries);
+
+// ---- the command bridge's text format (src/estimate/PLUGINS.md) --------------------------------
+
+/// The text a command reads on standard input for one trial.
+std::string command_input(const TrialInput& input,
+                          const std::vector<std::pair<std::string, std::string>>& parameters);
+/// Parses a command's standard output: one "name value" line per declared estimate (any order,
+/// blank lines and lines starting with '#' ignored). Values come back in the order of `names`.
+/// A malformed line, an unknown, missing or repeated name, or a non-finite value fails.
+Outcome parse_command_output(std::string_view text, const std::vector<std::string>& names);
+
+}  // namespace freegap::estimate

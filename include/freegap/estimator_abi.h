@@ -1,0 +1,94 @@
+/* The plug-in estimator interface: a plain-C ABI for shared libraries that freegap loads with
+ * dlopen and calls on every trial of a run, on every rank. Usable from C and C++.
+ *
+ * A plug-in exports two functions with C linkage:
+ *
+ *   const freegap_estimator_info* freegap_estimator_describe(void);
+ *       Returns static data: the ABI version the plug-in was built against and the names of the
+ *       scalar estimates it returns, in the order it writes them. Called once per process when
+ *       the job is checked, before any trial; it must not fail, allocate per call or have side
+ *       effects.
+ *
+ *   int freegap_estimator_estimate(const freegap_trial* trial, double* estimates, int capacity,
+ *                                  char* message, int message_size);
+ *       Called once per trial with the trial's spectrum. Writes its estimates into
+ *       estimates[0..k) in the order of estimate_names and returns k, the number written
+ *       (capacity is the declared count; k must equal it). On failure returns a negative number
+ *       and may write a short NUL-terminated reason into message (at most message_size bytes).
+ *
+ * Rules (enforced by freegap; see src/estimate/PLUGINS.md):
+ *   - abi_version must equal FREEGAP_ESTIMATOR_ABI_VERSION, else the job is refused;
+ *   - estimate names are letters, digits and '_', starting with a letter, at most 64 characters,
+ *     no name twice, 1..FREEGAP_ESTIMATOR_MAX_ESTIMATES of them; the job file's [estimator.truth]
+ *     table must name exactly these estimates;
+ *   - the call runs in a helper process of the rank (one per estimator per rank), so a crash, a
+ *     hang past the job's timeout, a NaN or infinite value, or a return value other than the
+ *     declared count marks that trial's estimates failed with the reason, and the run goes on;
+ *   - estimates must be a deterministic function of the trial's input (spectrum, N, trial index,
+ *     seed, parameters) for results to be the same on any number of ranks; use the seed and
+ *     trial index if the estimator needs random numbers;
+ *   - the helper is a fork of the rank: a plug-in must not call MPI, and state kept between calls
+ *     in the helper is lost when the helper is restarted after a failure.
+ */
+#ifndef FREEGAP_ESTIMATOR_ABI_H
+#define FREEGAP_ESTIMATOR_ABI_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* Version of this interface. A change to any struct below or to the meaning of a field raises
+ * it; freegap refuses a plug-in built against another version. */
+#define FREEGAP_ESTIMATOR_ABI_VERSION 1
+
+/* The exported symbols freegap looks up. */
+#define FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL "freegap_estimator_describe"
+#define FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL "freegap_estimator_estimate"
+
+/* At most this many estimates per estimator. */
+#define FREEGAP_ESTIMATOR_MAX_ESTIMATES 64
+
+/* What the spectrum is (freegap_trial.spectrum_kind). */
+#define FREEGAP_SPECTRUM_EIGENVALUES 0     /* real eigenvalues of a self-adjoint matrix, ascending */
+#define FREEGAP_SPECTRUM_SINGULAR_VALUES 1 /* singular values of any other matrix, descending */
+
+/* One parameter of the job file's [estimator.parameters] table, as text: strings verbatim,
+ * numbers as the shortest text that reads back to the same double, booleans "true"/"false". */
+typedef struct freegap_parameter {
+  const char* key;
+  const char* value;
+} freegap_parameter;
+
+/* One trial's input. All pointers are valid for the duration of the call only. */
+typedef struct freegap_trial {
+  uint32_t abi_version;    /* FREEGAP_ESTIMATOR_ABI_VERSION */
+  int32_t spectrum_kind;   /* FREEGAP_SPECTRUM_* */
+  int64_t n;               /* the matrix size N */
+  uint64_t trial;          /* trial index within this size, 0-based */
+  uint64_t seed;           /* the job's seed */
+  const double* spectrum;  /* spectrum_length values (N, or fewer for a rectangular matrix) */
+  int64_t spectrum_length;
+  const freegap_parameter* parameters; /* sorted by key */
+  int64_t parameter_count;
+} freegap_trial;
+
+/* What a plug-in declares about itself. */
+typedef struct freegap_estimator_info {
+  uint32_t abi_version;              /* must be FREEGAP_ESTIMATOR_ABI_VERSION */
+  int32_t estimate_count;            /* 1..FREEGAP_ESTIMATOR_MAX_ESTIMATES */
+  const char* const* estimate_names; /* estimate_count names */
+  const char* description;           /* one line for humans; may be NULL */
+} freegap_estimator_info;
+
+typedef const freegap_estimator_info* (*freegap_estimator_describe_fn)(void);
+typedef int (*freegap_estimator_estimate_fn)(const freegap_trial* trial, double* estimates,
+                                             int capacity, char* message, int message_size);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif /* FREEGAP_ESTIMATOR_ABI_H */

@@ -1,0 +1,64 @@
+/* A test plug-in estimator (include/freegap/estimator_abi.h), compiled once per behaviour:
+ * FAULT = 0 well-behaved; 1 segfaults on trials ≡ 1 (mod 3); 2 sleeps 30 s on trials ≡ 1 (mod 3);
+ * 3 returns NaN on trials ≡ 1 (mod 3); 4 declares the wrong ABI version; 5 returns one value fewer
+ * than declared on trials ≡ 1 (mod 3); 6 exports no estimate entry point; 7 reports failure with a
+ * message on trials ≡ 1 (mod 3).
+ * Estimates: top = the largest value; mean_square = (1/N) Σ x² — deterministic in the spectrum. */
+#include <math.h>
+#include <signal.h>
+#include <stdio.h>
+#include <unistd.h>
+
+#include "freegap/estimator_abi.h"
+
+#ifndef FAULT
+#define FAULT 0
+#endif
+
+static const char* const kNames[] = {"top", "mean_square"};
+
+const freegap_estimator_info* freegap_estimator_describe(void) {
+  static const freegap_estimator_info info = {
+#if FAULT == 4
+      FREEGAP_ESTIMATOR_ABI_VERSION + 1,
+#else
+      FREEGAP_ESTIMATOR_ABI_VERSION,
+#endif
+      2, kNames, "test plug-in: largest value and mean square"};
+  return &info;
+}
+
+#if FAULT != 6
+int freegap_estimator_estimate(const freegap_trial* trial, double* estimates, int capacity,
+                               char* message, int message_size) {
+  if (capacity < 2 || trial->spectrum_length < 1) return -1;
+  const int faulty = trial->trial % 3 == 1;
+  double top = trial->spectrum[0], sum = 0.0;
+  for (int64_t i = 0; i < trial->spectrum_length; ++i) {
+    const double x = trial->spectrum[i];
+    if (x > top) top = x;
+    sum += x * x;
+  }
+  estimates[0] = top;
+  estimates[1] = sum / (double)trial->spectrum_length;
+#if FAULT == 1
+  if (faulty) raise(SIGSEGV);
+#elif FAULT == 2
+  if (faulty) sleep(30);
+#elif FAULT == 3
+  if (faulty) estimates[1] = NAN;
+#elif FAULT == 5
+  if (faulty) return 1;
+#elif FAULT == 7
+  if (faulty) {
+    snprintf(message, (size_t)message_size, "spectrum too short for trial %llu",
+             (unsigned long long)trial->trial);
+    return -1;
+  }
+#endif
+  (void)faulty;
+  (void)message;
+  (void)message_size;
+  return 2;
+}
+#endif

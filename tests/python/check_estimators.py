@@ -1,0 +1,217 @@
+#!/usr/bin/env python3
+"""Estimators ride along with a run (src/estimate/PLUGINS.md).
+
+Usage: check_estimators.py BUILD_DIR
+
+One job with five estimators — the built-in operator norm, the test plug-in library
+(tests/estimate/plugin.c), the same estimates through the test command (estimate_command.c),
+a plug-in that segfaults and a command that sleeps past its timeout on trials ≡ 1 (mod 3) — run
+as a plain process and under mpirun with 1 and 2 ranks, and once stopped by SIGUSR1 and resumed.
+Checks:
+  - every run exits 0 (faults never take the run down);
+  - /estimators and every size's estimates and estimate_failure are identical in all files
+    (NaN where a value failed), and the files are identical outside /provenance (h5diff);
+  - the library's and the command's estimates equal numpy's max and mean of squares of the kept
+    spectra (every trial keeps its spectrum), to the last bit for the library (binary transport)
+    and to %.17g round trip for the command (text transport);
+  - the faulty estimators record exactly the documented reasons on exactly trials ≡ 1 (mod 3);
+  - a missing library, a library without the entry point and one with the wrong ABI version are
+    refused before the run: exit 2, the documented message, no run file.
+"""
+import os
+import signal
+import sys
+import time
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import runhelp as rh  # noqa: E402
+
+import h5py  # noqa: E402
+import numpy as np  # noqa: E402
+
+# A scenario of our own: a two-level population of receiver gains T observed through a real
+# sample covariance W of twice as many snapshots as channels, S = T W T.
+JOB = """\
+name = "receiver gains"
+seed = 77
+sizes = [16, 32]
+trials = 6
+expression = "T W T"
+
+[matrices.T]
+ensemble = "diagonal"
+atoms = [[1.0, 0.5], [2.0, 0.5]]
+
+[matrices.W]
+ensemble = "wishart_real"
+ratio = 0.5
+
+[observe]
+bins = 20
+keep_spectra = 6
+
+[run]
+trials_per_unit = 2
+
+[[estimator]]
+name = "norm"
+builtin = "operator_norm"
+[estimator.truth]
+norm = "limit_norm"
+
+[[estimator]]
+name = "lib"
+library = "{plugins}/libtest_plugin_ok.so"
+[estimator.parameters]
+note = "test"
+[estimator.truth]
+top = "limit_norm"
+mean_square = "limit_moment:2"
+
+[[estimator]]
+name = "cmd"
+command = ["{plugins}/estimate_command", "ok"]
+[estimator.truth]
+top = "limit_norm"
+mean_square = "limit_moment:2"
+
+[[estimator]]
+name = "crashy"
+library = "{plugins}/libtest_plugin_{crash}.so"
+timeout = 5
+[estimator.truth]
+top = "none"
+mean_square = "none"
+
+[[estimator]]
+name = "slow"
+command = ["{plugins}/estimate_command", "sleep"]
+timeout = 0.5
+[estimator.truth]
+top = "none"
+mean_square = "none"
+"""
+
+CRASH = "plug-in crashed: signal 11 (SIGSEGV)"
+SLOW = "command did not finish within the timeout of 0.5 s; it was killed"
+
+
+def read(path):
+    with h5py.File(path, "r") as f:
+        head = {k: [x.decode() for x in f["estimators/" + k][:]]
+                for k in ("estimator", "estimate", "truth")}
+        sizes = []
+        for i in range(int(f.attrs["size_count"])):
+            g = f["sizes/%d" % i]
+            sizes.append({
+                "estimates": g["estimates"][:],
+                "failure": [[x.decode() for x in row] for row in g["estimate_failure"][:]],
+                "spectra": g["spectra"][:],
+                "committed": g["unit_committed"][:],
+            })
+        return head, sizes, list(f.attrs["format_version"])
+
+
+def main():
+    exe = rh.freegap_exe(sys.argv)
+    plugins = os.path.join(os.path.abspath(sys.argv[1]), "tests", "estimate")
+    c = rh.Checks("estimators ride along: ranks, resume, faults, refusals")
+    with rh.WorkDir("estimators") as d:
+        job = rh.write(os.path.join(d, "job.toml"), JOB.format(plugins=plugins, crash="segfault"))
+        files = {}
+        for way, ranks in [("plain", None), ("np1", 1), ("np2", 2)]:
+            out = os.path.join(d, way + ".h5")
+            r = rh.run(rh.command(exe, ["run", job, "-q", "-o", out], ranks), d)
+            c.equal(r.returncode, 0, "%s: exit 0 despite the faulty estimators" % way)
+            if r.returncode != 0:
+                print(r.stderr)
+            files[way] = out
+
+        # Stopped by SIGUSR1 after the first committed unit, then resumed.
+        resumed = os.path.join(d, "resumed.h5")
+        p = rh.start(rh.command(exe, ["run", job, "-q", "-o", resumed]), d)
+        deadline = time.time() + 60
+        while time.time() < deadline:
+            st = rh.committed_state(resumed) if os.path.exists(resumed) else None
+            if st and st[0] >= 1:
+                break
+            time.sleep(0.05)
+        os.kill(p.pid, signal.SIGUSR1)
+        rc, _, err = rh.reap(p)
+        st = rh.committed_state(resumed)
+        c.check(rc == rh.EXIT_RESUMABLE and st is not None and st[0] < st[1],
+                "stopped part-way by SIGUSR1 (exit 3, %s units committed)" % (st,), err)
+        r = rh.run(rh.command(exe, ["run", job, "-q", "-o", resumed]), d)
+        c.equal(r.returncode, 0, "resume: exit 0")
+        files["resumed"] = resumed
+
+        ref_head, ref_sizes, version = read(files["plain"])
+        c.equal(version, [1, 1], "format_version [1, 1] with estimates")
+        c.equal(ref_head["estimator"],
+                ["norm", "lib", "lib", "cmd", "cmd", "crashy", "crashy", "slow", "slow"],
+                "/estimators/estimator: the estimators' columns in job order")
+        c.equal(ref_head["estimate"][:5], ["norm", "mean_square", "top", "mean_square", "top"],
+                "/estimators/estimate: each estimator's estimates sorted by name")
+        c.equal(ref_head["truth"][:3], ["limit_norm", "limit_moment:2", "limit_norm"],
+                "/estimators/truth as written")
+        for way in ("np1", "np2", "resumed"):
+            head, sizes, _ = read(files[way])
+            same = head == ref_head and all(
+                np.array_equal(a["estimates"], b["estimates"], equal_nan=True)
+                and a["failure"] == b["failure"] for a, b in zip(sizes, ref_sizes))
+            c.check(same, "%s: estimates and failure reasons identical to the plain run" % way)
+            status, text = rh.h5diff(files["plain"], files[way])
+            c.equal(status, 0, "%s: h5diff outside /provenance finds no difference" % way)
+
+        for i, s in enumerate(ref_sizes):
+            e, spectra, fail = s["estimates"], s["spectra"], s["failure"]
+            top = spectra.max(axis=1)
+            mean_square = np.array([np.sum(x * x) / x.size for x in spectra])
+            c.check(np.array_equal(e[:, 0], np.abs(spectra).max(axis=1)),
+                    "size %d: built-in norm = max |eigenvalue| of the kept spectra" % i)
+            c.check(np.array_equal(e[:, 2], top) and np.allclose(e[:, 1], mean_square, rtol=1e-14,
+                                                                  atol=0),
+                    "size %d: plug-in top and mean_square match numpy" % i)
+            c.check(np.array_equal(e[:, 3:5], e[:, 1:3]),
+                    "size %d: the command gives the plug-in's values bit for bit" % i)
+            faulty = [t for t in range(len(fail)) if t % 3 == 1]
+            c.equal([t for t in range(len(fail)) if fail[t][3] == CRASH], faulty,
+                    "size %d: segfault recorded on trials ≡ 1 (mod 3) only" % i)
+            c.equal([t for t in range(len(fail)) if fail[t][4] == SLOW], faulty,
+                    "size %d: timeout recorded on trials ≡ 1 (mod 3) only" % i)
+            c.check(all(fail[t][:3] == ["", "", ""] for t in range(len(fail))),
+                    "size %d: the well-behaved estimators never fail" % i)
+            c.check(np.isnan(e[faulty][:, 5:]).all() and not np.isnan(
+                np.delete(e, faulty, axis=0)).any(),
+                    "size %d: NaN exactly where an estimator failed" % i)
+
+        # Refused before the run: exit 2, the message, nothing written.
+        cases = [
+            ("nothere", "cannot read '{p}/libtest_plugin_nothere.so': No such file or directory; "
+                        "give the path of the plug-in's shared library (relative to the job file)"),
+            ("noentry", "'{p}/libtest_plugin_noentry.so' does not export freegap_estimator_estimate;"
+                        " define it with C linkage as declared in include/freegap/estimator_abi.h"),
+            ("abi", "'{p}/libtest_plugin_abi.so' was built for plug-in ABI version 2, this freegap "
+                    "loads version 1; rebuild it against this freegap's "
+                    "include/freegap/estimator_abi.h"),
+        ]
+        line = JOB.splitlines().index('library = "{plugins}/libtest_plugin_{crash}.so"') + 1
+        for crash, message in cases:
+            bad = rh.write(os.path.join(d, "bad-%s.toml" % crash), JOB.format(plugins=plugins,
+                                                                                crash=crash))
+            out = os.path.join(d, "bad-%s.h5" % crash)
+            for ranks in (None, 2):
+                r = rh.run(rh.command(exe, ["run", bad, "-q", "-o", out], ranks), d)
+                expected = "freegap: %s:%d: estimator.crashy.library: %s\n" % (
+                    bad, line, message.format(p=plugins))
+                # Under mpirun, mpirun's own notice of the non-zero exit follows the message.
+                ok = r.stderr == expected if ranks is None else r.stderr.startswith(expected)
+                c.check(r.returncode == rh.EXIT_BAD_INPUT and ok,
+                        "%s (%s): exit 2 with the message" % (crash, ranks or "plain"),
+                        "exit %s\nexpected: %s\n     got: %s" % (r.returncode, expected, r.stderr))
+                c.check(not os.path.exists(out), "%s: no run file written" % crash)
+    c.finish()
+
+
+if __name__ == "__main__":
+    main()
