@@ -185,6 +185,18 @@ def main():
                 np.delete(e, faulty, axis=0)).any(),
                     "size %d: NaN exactly where an estimator failed" % i)
 
+        # The report scores every estimator against its truth, several of one truth side by side
+        # (the plug-in's and the command's estimates are the same numbers, so their rows agree).
+        r = rh.run([exe, "report", files["plain"], "-o", os.path.join(d, "rep")], d)
+        c.equal(r.returncode, 0, "report on a run with estimators: exit 0")
+        md = open(os.path.join(d, "rep", "report.md")).read() if r.returncode == 0 else ""
+        c.check("### Estimators" in md and "lib.mean_square" in md and "cmd.mean_square" in md,
+                "report.md has the estimators' section with the library's and the command's rows")
+        c.check(os.path.exists(os.path.join(d, "rep", "estimators_run1.csv")), "estimators_run1.csv written")
+        c.check(os.path.exists(os.path.join(d, "rep", "figures", "estimators_run1.png")) and
+                os.path.exists(os.path.join(d, "rep", "figures", "estimators_run1.svg")),
+                "the estimators' figure is drawn (PNG and SVG)")
+
         # Refused before the run: exit 2, the message, nothing written.
         cases = [
             ("nothere", "cannot read '{p}/libtest_plugin_nothere.so': No such file or directory; "
