@@ -12,6 +12,10 @@
 // with kExitResumable. SIGTERM and SIGINT do the same (under mpirun a rank has only 1–2 s after
 // SIGTERM before SIGKILL — shared/reference/cluster-notes.md §1 — but every unit is committed as
 // it arrives, so a kill loses at most the units in flight).
+//
+// Deadlines (RunOptions::stop_before_seconds, RunOptions::scheduler_end_time): rank 0 hands out a
+// unit only if, by the measured durations of finished units, it would end before the deadline;
+// otherwise every rank finishes its current unit, the run commits and exits kExitResumable.
 #pragma once
 
 #include <mpi.h>
