@@ -42,8 +42,8 @@ struct RunOptions {
   int threads = 1;        ///< BLAS threads per rank
   double progress_seconds = 30.0;  ///< plain progress line interval when stderr is not a terminal
   bool quiet = false;     ///< no progress output
-  /// --stop-before: start no unit that would not finish within this many seconds of the start
-  /// (by measured unit durations), then commit and exit kExitResumable; 0 = no limit.
+  /// --stop-before: start no unit that would not finish within this many seconds of run_job's
+  /// start (by measured unit durations), then commit and exit kExitResumable; 0 = no limit.
   double stop_before_seconds = 0.0;
   /// The scheduler's end time of the job in Unix seconds (SLURM_JOB_END_TIME, which the caller
   /// reads), 0 = unknown: start no unit that would not finish kSchedulerEndMarginSeconds before it.

@@ -500,6 +500,22 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   std::vector<model::SizeRunner> runners;
   for (const auto n : job.sizes) runners.push_back(runner_at(job, n));
   e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  if (options.threads > 1) {
+    // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
+    // 12's OpenBLAS 0.3.21; see run.cpp).
+    bool complex_svd = false;
+    for (const auto& m : job.matrices) {
+      complex_svd |= m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+    }
+    const auto& x = runners.front().expression();
+    complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
+    if (complex_svd) {
+      throw InputError("--threads " + std::to_string(options.threads) +
+                       ": this job needs complex singular value decompositions, which crash with "
+                       "more than one OpenBLAS thread in the OpenBLAS shipped with Debian 12; plan "
+                       "with --threads 1 and more ranks instead");
+    }
+  }
 
   const std::string cal_path = options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
   auto cal = Calibration::load(cal_path, this_machine());

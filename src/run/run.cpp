@@ -469,12 +469,16 @@ struct WorkerState {
 /// predicted and units are started. A rank's next unit starts when its current one ends.
 class Deadline {
  public:
-  Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks)
+  Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks,
+           std::chrono::steady_clock::time_point run_start)
       : sizes_(job.sizes), per_cost_(job.sizes.size(), 0.0),
         busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()) {
     const auto now = std::chrono::steady_clock::now();
     std::optional<double> left;
-    if (options.stop_before_seconds > 0) left = options.stop_before_seconds;
+    if (options.stop_before_seconds > 0) {
+      // Counted from the start of the run, so the set-up (pilot trial, file) counts too.
+      left = options.stop_before_seconds - std::chrono::duration<double>(now - run_start).count();
+    }
     if (options.scheduler_end_time > 0) {
       const double unix_now =
           std::chrono::duration<double>(std::chrono::system_clock::now().time_since_epoch()).count();
@@ -494,8 +498,6 @@ class Deadline {
       if (trials > 0) measured(u.size_index, trials, u.seconds);
     }
   }
-
-  bool active() const { return deadline_.has_value(); }
 
   /// Records a finished unit's wall time.
   void measured(std::size_t size_index, std::int64_t trials, double seconds) {
@@ -556,13 +558,13 @@ class Deadline {
 
 int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
                const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts,
-               bool& stopped_for_deadline) {
+               std::chrono::steady_clock::time_point run_start, bool& stopped_for_deadline) {
   const int ranks = comm_size(comm);
   std::vector<WorkerState> workers(static_cast<std::size_t>(ranks));
   workers[0].finished = true;  // rank 0 itself
   std::size_t next = 0;
   bool stopping = false;
-  Deadline deadline(options, p.job, file, ranks);
+  Deadline deadline(options, p.job, file, ranks, run_start);
 
   std::size_t total_units = 0;
   std::int64_t total_trials = 0, done_trials = 0;
@@ -745,6 +747,7 @@ std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
 
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
             std::ostream& out, std::ostream& err) {
+  const auto run_start = std::chrono::steady_clock::now();
   const int me = comm_rank(comm);
   const int ranks = comm_size(comm);
   install_signal_handlers();
@@ -926,7 +929,8 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
       }
       file->begin_session(ranks, hosts);
       bool stopped_for_deadline = false;
-      status = coordinate(p, *file, pending, comm, options, err, hosts, stopped_for_deadline);
+      status = coordinate(p, *file, pending, comm, options, err, hosts, run_start,
+                          stopped_for_deadline);
       file->end_session(status == kExitFinished ? "finished" : "interrupted");
       if (status == kExitResumable && stopped_for_deadline && g_stop_signal == 0) {
         err << "freegap: stopped before the deadline: the next unit would not finish in time; "

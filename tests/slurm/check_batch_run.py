@@ -49,7 +49,8 @@ trials_per_unit = 4
 def batch(c, exe, d, label, out, extra_env=None, signal_after=None):
     env = sh.batch_env(exe, **(extra_env or {}))
     log = os.path.join(d, out + ".log")
-    job_id = sh.sbatch(["-n", "2", "-t", "5", "-J", "fg-" + out, "-o", log,
+    # -t 15: the script's early warning comes 300 s (and up to 60 s more) before the limit.
+    job_id = sh.sbatch(["-n", "2", "-t", "15", "-J", "fg-" + out, "-o", log,
                         os.path.join(sh.SCRIPTS, "run.sbatch"), "job.toml", "-o", out, "--quiet"],
                        d, env)
     if signal_after is not None:

@@ -71,7 +71,8 @@ def main():
                     "job %d has ratio = %s and output ratios-%d.h5" % (i, value, i), text)
 
         log = os.path.join(d, "task-%a.log")
-        job_id = sh.sbatch(["--array=0-2", "-n", "1", "-t", "5", "-J", "fg-sweep-%d" % os.getpid(),
+        # -t 15: the script's early warning comes 300 s (and up to 60 s more) before the limit.
+        job_id = sh.sbatch(["--array=0-2", "-n", "1", "-t", "15", "-J", "fg-sweep-%d" % os.getpid(),
                             "-o", log, os.path.join(sh.SCRIPTS, "array.sbatch"),
                             os.path.join(out_dir, "jobs.txt"), "--quiet"], d, sh.batch_env(exe))
         states = sh.wait_job(job_id, 300)
