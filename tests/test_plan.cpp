@@ -44,8 +44,10 @@ TEST(Plan, RefusesBadDurations) {
   expect_input_error("", ": no duration given" + fix);
   expect_input_error("0", "0: must be positive" + fix);
   expect_input_error("0s", "0s: must be positive" + fix);
-  expect_input_error("10m1h", "10m1h: units must come in the order d, h, m, s, each at most once" + fix);
-  expect_input_error("1m1m", "1m1m: units must come in the order d, h, m, s, each at most once" + fix);
+  expect_input_error("10m1h",
+                     "10m1h: units must come in the order d, h, m, s, each at most once" + fix);
+  expect_input_error("1m1m",
+                     "1m1m: units must come in the order d, h, m, s, each at most once" + fix);
   expect_input_error("1h30", "1h30: the last number has no unit" + fix);
   expect_input_error("5x", "5x: unknown unit 'x' (use d, h, m, s)" + fix);
   expect_input_error("h", "h: expected a number at character 1" + fix);
@@ -101,7 +103,8 @@ TEST(Plan, WallTimeOfLargestFirstScheduling) {
 
 TEST(Plan, CalibrationFileIsReusedOnlyOnTheSameMachine) {
   namespace fs = std::filesystem;
-  const fs::path dir = fs::temp_directory_path() / ("freegap-plan-test-" + std::to_string(::getpid()));
+  const fs::path dir =
+      fs::temp_directory_path() / ("freegap-plan-test-" + std::to_string(::getpid()));
   fs::remove_all(dir);
   const std::string path = (dir / "sub" / "calibration.toml").string();
   fp::Machine m{"Test CPU 9000", 4, "SomeBLAS 1.0", "0.1.0 (abc)"};

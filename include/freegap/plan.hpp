@@ -4,8 +4,9 @@
 //
 // The cost model is measured, not assumed: a few trials of the job's own model (same matrices,
 // expression and observations) are timed at small sizes on this machine, and
-//   t(N) = a·N³ + b·N² + c   (dense path: tridiagonalisation, products and QR are N³, sampling and
-//                             observing N²)   or   t(N) = a·N + c   (tridiagonal path, O(N) per bin)
+//   t(N) = a·N³ + b·N² + c   (dense path: tridiagonalisation, products and QR are N³, sampling
+//                             and observing N²), or
+//   t(N) = a·N + c           (tridiagonal path: O(N) per bin edge, extreme and moment)
 // is fitted with non-negative coefficients by least squares on relative errors, then used at the
 // job's sizes. The fit is stored in a calibration file and reused until the machine changes (CPU
 // model, core count, BLAS build, freegap version); the BLAS thread count is part of each entry.
@@ -116,10 +117,10 @@ struct SizeEstimate {
   std::int64_t n = 0;
   std::int64_t trials = 0;
   double seconds_per_trial = 0.0;
-  double core_hours = 0.0;         ///< trials × seconds per trial × threads / 3600
-  std::size_t peak_bytes = 0;      ///< run::estimate_peak_bytes
-  std::size_t output_bytes = 0;    ///< this size's share of the run file
-  bool fits = true;                ///< peak_bytes ≤ the memory per rank (when known)
+  double core_hours = 0.0;       ///< trials × seconds per trial × threads / 3600
+  std::size_t peak_bytes = 0;    ///< run::estimate_peak_bytes
+  std::size_t output_bytes = 0;  ///< this size's share of the run file
+  bool fits = true;              ///< peak_bytes ≤ the memory per rank (when known)
 };
 
 struct Estimate {
@@ -132,7 +133,7 @@ struct Estimate {
   std::size_t output_bytes = 0;
   std::size_t memory_limit = 0;  ///< per rank; 0 unknown
   std::string memory_source;
-  double wall_seconds = 0.0;     ///< on options.ranks ranks
+  double wall_seconds = 0.0;  ///< on options.ranks ranks
   std::size_t units = 0;
   /// With a deadline: the fewest ranks (up to the number of units) whose wall time, with a 25 %
   /// margin, fits; 0 when none does.

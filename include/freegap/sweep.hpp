@@ -3,16 +3,17 @@
 //
 // The sweep file (TOML, our own):
 //
-//   base = "coupling.toml"        # required: the job every task starts from (relative to this file)
+//   base = "coupling.toml"        # required: the job every task starts from (relative to
+//                                 # this file)
 //   vary = "matrices.W.ratio"     # required: a dotted job key; added if the base job lacks it
 //   values = [0.25, 0.5, 1.0]     # required: one job per value, in this order
 //   directory = "coupling-sweep"  # optional: where the job files go (relative to this file);
 //                                 # default: the sweep file's stem next to it
 //
 // Task i gets DIRECTORY/<stem>-<i>.toml (stem: the sweep file's stem): the base job with `vary`
-// set to values[i], `name` set to "<base name> (<vary> = <value>)", `run.output` to <stem>-<i>.h5 (next
-// to the job file) and a relative `path` of a law = "file" diagonal made absolute. Every job is
-// validated before any file is written; DIRECTORY/jobs.txt then lists the job files, line i+1
+// set to values[i], `name` set to "<base name> (<vary> = <value>)", `run.output` to <stem>-<i>.h5
+// (next to the job file) and a relative `path` of a law = "file" diagonal made absolute. Every job
+// is validated before any file is written; DIRECTORY/jobs.txt then lists the job files, line i+1
 // for task i (what jobs/slurm/array.sbatch reads).
 #pragma once
 

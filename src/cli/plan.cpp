@@ -1,10 +1,11 @@
 // `freegap plan JOB.toml`: estimated time, core-hours, memory and output per size before a run.
+#include "freegap/plan.hpp"
+
 #include <iostream>
 
 #include "commands.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
-#include "freegap/plan.hpp"
 
 namespace freegap::cli {
 
@@ -27,8 +28,9 @@ Subcommand add_plan_command(CLI::App& app) {
       ->check(CLI::Range(1, 1 << 24));
   cmd->add_option("--threads", args->options.threads, "BLAS threads per rank (default 1)")
       ->check(CLI::Range(1, 1024));
-  cmd->add_option("--deadline", args->deadline,
-                  "Wall time available, e.g. 2h or 1d12h: suggests a rank count and a time request");
+  cmd->add_option(
+      "--deadline", args->deadline,
+      "Wall time available, e.g. 2h or 1d12h: suggests a rank count and a time request");
   cmd->add_option("--calibration", args->options.calibration_path,
                   "Calibration file (default $XDG_CACHE_HOME/freegap/calibration.toml)");
   cmd->add_flag("--remeasure", args->options.remeasure,

@@ -1,8 +1,9 @@
 // `freegap sweep SWEEP.toml`: one job file per value of a parameter, for a job array.
+#include "freegap/sweep.hpp"
+
 #include <iostream>
 
 #include "commands.hpp"
-#include "freegap/sweep.hpp"
 
 namespace freegap::cli {
 
@@ -10,7 +11,8 @@ Subcommand add_sweep_command(CLI::App& app) {
   auto path = std::make_shared<std::string>();
   auto* cmd = app.add_subcommand(
       "sweep", "Write one job file per value of a parameter (a sweep file) for a job array");
-  cmd->add_option("sweep_file", *path, "Sweep file (TOML: base, vary, values, directory)")->required();
+  cmd->add_option("sweep_file", *path, "Sweep file (TOML: base, vary, values, directory)")
+      ->required();
   return {cmd, [path] {
             const auto s = sweep::expand(*path);
             sweep::write(s);

@@ -1,6 +1,7 @@
 // Planning a job before it runs (see include/freegap/plan.hpp).
 #include "freegap/plan.hpp"
 
+#include <toml++/toml.h>
 #include <unistd.h>
 
 #include <Eigen/Dense>
@@ -17,7 +18,6 @@
 #include <queue>
 #include <sstream>
 #include <thread>
-#include <toml++/toml.h>
 
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
@@ -118,7 +118,8 @@ double parse_duration(std::string_view text) {
   bool any = false;
   while (i < text.size()) {
     std::size_t j = i;
-    while (j < text.size() && (std::isdigit(static_cast<unsigned char>(text[j])) || text[j] == '.')) ++j;
+    while (j < text.size() && (std::isdigit(static_cast<unsigned char>(text[j])) || text[j] == '.'))
+      ++j;
     if (j == i) bad_duration(text, "expected a number at character " + std::to_string(i + 1));
     const std::string digits(text.substr(i, j - i));
     double v = 0.0;
@@ -241,16 +242,18 @@ CostFit fit_cost(const std::vector<int>& powers, const std::vector<std::int64_t>
     if (r < best_residual) {
       best_residual = r;
       best.coefficients.assign(p, 0.0);
-      for (std::size_t c = 0; c < cols.size(); ++c) best.coefficients[cols[c]] = x(static_cast<Eigen::Index>(c));
+      for (std::size_t c = 0; c < cols.size(); ++c)
+        best.coefficients[cols[c]] = x(static_cast<Eigen::Index>(c));
     }
   }
   return best;
 }
 
-// ---- the machine and the calibration file --------------------------------------------------------
+// ---- the machine and the calibration file ------------------------------------------------------
 
 std::string Machine::key() const {
-  return "cpu=" + cpu + "; cores=" + std::to_string(cores) + "; blas=" + blas + "; freegap=" + freegap;
+  return "cpu=" + cpu + "; cores=" + std::to_string(cores) + "; blas=" + blas +
+         "; freegap=" + freegap;
 }
 
 Machine this_machine() {
@@ -268,7 +271,8 @@ Machine this_machine() {
   m.cores = online_cores();
   m.blas = linalg::blas_description();
   // OpenBLAS picks its kernel by CPU unless told (build-notes: OPENBLAS_CORETYPE).
-  if (const char* core = std::getenv("OPENBLAS_CORETYPE")) m.blas += " OPENBLAS_CORETYPE=" + std::string(core);
+  if (const char* core = std::getenv("OPENBLAS_CORETYPE"))
+    m.blas += " OPENBLAS_CORETYPE=" + std::string(core);
   m.freegap = std::string(tool_version) + " (" + git_revision + ")";
   return m;
 }
@@ -278,7 +282,8 @@ std::string default_calibration_path() {
   if (const char* x = std::getenv("XDG_CACHE_HOME"); x && *x) {
     return std::string(x) + "/freegap/calibration.toml";
   }
-  if (const char* h = std::getenv("HOME"); h && *h) return std::string(h) + "/.cache/freegap/calibration.toml";
+  if (const char* h = std::getenv("HOME"); h && *h)
+    return std::string(h) + "/.cache/freegap/calibration.toml";
   return ".freegap-calibration.toml";
 }
 
@@ -307,7 +312,8 @@ Calibration Calibration::load(const std::string& path, const Machine& machine) {
       entry.description = (*e)["description"].value_or(std::string());
       auto ints = [&](const char* k, auto& out) {
         if (const auto* a = (*e)[k].as_array()) {
-          for (const auto& v : *a) out.push_back(static_cast<std::decay_t<decltype(out[0])>>(v.value_or(0.0)));
+          for (const auto& v : *a)
+            out.push_back(static_cast<std::decay_t<decltype(out[0])>>(v.value_or(0.0)));
         }
       };
       ints("powers", entry.fit.powers);
@@ -407,7 +413,8 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   std::vector<std::int64_t> ladder;
   const std::int64_t first = tri ? 1000 : 32;
   const std::int64_t factor = tri ? 4 : 2;
-  for (std::int64_t n = std::min(first, std::max<std::int64_t>(1, largest / 8)); n < largest; n *= factor) {
+  for (std::int64_t n = std::min(first, std::max<std::int64_t>(1, largest / 8)); n < largest;
+       n *= factor) {
     ladder.push_back(n);
   }
   ladder.push_back(largest);
@@ -440,7 +447,8 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
       auto obs = observe::start_observations(config);
       const auto t0 = std::chrono::steady_clock::now();
       runner.observe_trial(obs, job.seed, trial++);
-      const double dt = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+      const double dt =
+          std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
       times.push_back(dt);
       here += dt;
     }
@@ -483,15 +491,18 @@ std::size_t output_bytes(const job::Job& job, std::size_t i) {
   const double bins = static_cast<double>(job.observe.bins);
   const double kept = static_cast<double>(std::min(job.observe.keep_spectra, job.trials[i]));
   const double n = static_cast<double>(job.sizes[i]);
-  const double bytes = t * (8.0 * k + 3 * 8.0 + 1.0 + 16.0) + units * (8.0 * bins + 8.0 * 2 + 1.0 + 120.0) +
-                       kept * (8.0 * n + 8.0) + 8.0 * (bins + 1) + (10.0 * units + kept) * 100.0 +
+  const double bytes = t * (8.0 * k + 3 * 8.0 + 1.0 + 16.0) +
+                       units * (8.0 * bins + 8.0 * 2 + 1.0 + 120.0) + kept * (8.0 * n + 8.0) +
+                       8.0 * (bins + 1) + (10.0 * units + kept) * 100.0 +
                        4096.0;  // the size's group, attributes and bin edges
   return static_cast<std::size_t>(bytes);
 }
 
 Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
-  if (options.ranks < 1) throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
-  if (options.threads < 1) throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
+  if (options.ranks < 1)
+    throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
+  if (options.threads < 1)
+    throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
   Estimate e;
   e.job_path = job.path;
   e.expression = job.expression;
@@ -505,7 +516,8 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     // 12's OpenBLAS 0.3.21; see run.cpp).
     bool complex_svd = false;
     for (const auto& m : job.matrices) {
-      complex_svd |= m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+      complex_svd |=
+          m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
     }
     const auto& x = runners.front().expression();
     complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
@@ -517,7 +529,8 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     }
   }
 
-  const std::string cal_path = options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
+  const std::string cal_path =
+      options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
   auto cal = Calibration::load(cal_path, this_machine());
   const std::string key = cost_key(job, options.threads);
   const CostFit* known = options.remeasure ? nullptr : cal.find(key);
@@ -530,11 +543,15 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
         << std::flush;
     const auto t0 = std::chrono::steady_clock::now();
     e.cost = measure_cost(job, options.threads);
-    const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    const double took =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     std::string at;
     for (auto n : e.cost.sizes) at += (at.empty() ? "" : ", ") + std::to_string(n);
     e.cost_source = "measured now at N = " + at + " in " + format_duration(took);
-    cal.put(key, job.expression + " (" + e.path + ", " + std::to_string(options.threads) + " BLAS thread(s))", e.cost);
+    cal.put(key,
+            job.expression + " (" + e.path + ", " + std::to_string(options.threads) +
+                " BLAS thread(s))",
+            e.cost);
     try {
       cal.save();
       e.cost_source += "; stored in " + cal_path;
@@ -551,7 +568,8 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   } else {
     const int local = std::min(options.ranks, online_cores());
     e.memory_limit = available_memory_bytes() / static_cast<std::size_t>(local);
-    e.memory_source = "this node's available memory shared by " + std::to_string(local) + " rank(s)";
+    e.memory_source =
+        "this node's available memory shared by " + std::to_string(local) + " rank(s)";
   }
 
   std::vector<double> unit_seconds;
@@ -565,17 +583,19 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
     if (!s.fits) {
-      e.warnings.push_back("N = " + std::to_string(s.n) + " needs about " + human_bytes(static_cast<double>(s.peak_bytes)) +
-                           " per rank (estimate), more than the " + human_bytes(static_cast<double>(e.memory_limit)) +
-                           " from " + e.memory_source +
-                           "; freegap run will refuse it: remove the size, run fewer ranks per node, or "
-                           "raise memory_per_rank where the node has the memory");
+      e.warnings.push_back(
+          "N = " + std::to_string(s.n) + " needs about " +
+          human_bytes(static_cast<double>(s.peak_bytes)) + " per rank (estimate), more than the " +
+          human_bytes(static_cast<double>(e.memory_limit)) + " from " + e.memory_source +
+          "; freegap run will refuse it: remove the size, run fewer ranks per node, or "
+          "raise memory_per_rank where the node has the memory");
     }
     e.core_hours += s.core_hours;
     e.output_bytes += s.output_bytes;
     for (std::int64_t u = 0; u * job.trials_per_unit < s.trials; ++u) {
       const auto in_unit = std::min(job.trials_per_unit, s.trials - u * job.trials_per_unit);
-      unit_seconds.push_back(static_cast<double>(in_unit) * s.seconds_per_trial + 0.002);  // + commit
+      unit_seconds.push_back(static_cast<double>(in_unit) * s.seconds_per_trial +
+                             0.002);  // + commit
     }
     e.sizes.push_back(s);
   }
@@ -591,18 +611,24 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     if (simulate_wall(unit_seconds, hi) * kMargin <= options.deadline_seconds) {
       while (lo < hi) {  // wall time does not increase with ranks (largest-first list scheduling)
         const int mid = lo + (hi - lo) / 2;
-        if (simulate_wall(unit_seconds, mid) * kMargin <= options.deadline_seconds) hi = mid; else lo = mid + 1;
+        if (simulate_wall(unit_seconds, mid) * kMargin <= options.deadline_seconds)
+          hi = mid;
+        else
+          lo = mid + 1;
       }
       e.suggested_ranks = lo;
       e.suggested_run_seconds = simulate_wall(unit_seconds, lo);
-      e.suggested_wall_seconds = std::min(options.deadline_seconds, e.suggested_run_seconds * kMargin + 60.0);
+      e.suggested_wall_seconds =
+          std::min(options.deadline_seconds, e.suggested_run_seconds * kMargin + 60.0);
     } else {
       const double longest = *std::max_element(unit_seconds.begin(), unit_seconds.end());
-      e.warnings.push_back(
-          "the job cannot finish within " + format_duration(options.deadline_seconds) +
-          " on any number of ranks: its longest unit alone takes about " + format_duration(longest) +
-          "; run it in several jobs that resume (freegap run --stop-before, jobs/slurm/long-run.sbatch) or "
-          "lower trials_per_unit");
+      e.warnings.push_back("the job cannot finish within " +
+                           format_duration(options.deadline_seconds) +
+                           " on any number of ranks: its longest unit alone takes about " +
+                           format_duration(longest) +
+                           "; run it in several jobs that resume (freegap run --stop-before, "
+                           "jobs/slurm/long-run.sbatch) or "
+                           "lower trials_per_unit");
     }
   }
   return e;
@@ -615,19 +641,23 @@ std::string format(const Estimate& e) {
   out << "expression:   " << e.expression << " (" << e.path << " path)\n";
   out << "ranks:        " << e.options.ranks << " × " << e.options.threads << " BLAS thread(s)\n";
   out << "cost model:   t(N) = " << e.cost.formula() << " per trial, " << e.cost_source << "\n";
-  out << "memory/rank:  " << (e.memory_limit ? human_bytes(static_cast<double>(e.memory_limit)) : std::string("unknown"))
+  out << "memory/rank:  "
+      << (e.memory_limit ? human_bytes(static_cast<double>(e.memory_limit))
+                         : std::string("unknown"))
       << " (" << e.memory_source << ")\n\n";
-  std::snprintf(line, sizeof line, "%10s %10s %12s %12s %12s %12s\n", "N", "trials", "s/trial", "core-hours",
-                "peak/rank", "output");
+  std::snprintf(line, sizeof line, "%10s %10s %12s %12s %12s %12s\n", "N", "trials", "s/trial",
+                "core-hours", "peak/rank", "output");
   out << line;
   for (const auto& s : e.sizes) {
-    std::snprintf(line, sizeof line, "%10lld %10lld %12.4g %12.4g %12s %12s%s\n", static_cast<long long>(s.n),
-                  static_cast<long long>(s.trials), s.seconds_per_trial, s.core_hours,
-                  human_bytes(static_cast<double>(s.peak_bytes)).c_str(),
-                  human_bytes(static_cast<double>(s.output_bytes)).c_str(), s.fits ? "" : "  does not fit");
+    std::snprintf(
+        line, sizeof line, "%10lld %10lld %12.4g %12.4g %12s %12s%s\n", static_cast<long long>(s.n),
+        static_cast<long long>(s.trials), s.seconds_per_trial, s.core_hours,
+        human_bytes(static_cast<double>(s.peak_bytes)).c_str(),
+        human_bytes(static_cast<double>(s.output_bytes)).c_str(), s.fits ? "" : "  does not fit");
     out << line;
   }
-  std::snprintf(line, sizeof line, "\ntotal:        %.4g core-hours in %zu units; run file about %s\n", e.core_hours,
+  std::snprintf(line, sizeof line,
+                "\ntotal:        %.4g core-hours in %zu units; run file about %s\n", e.core_hours,
                 e.units, human_bytes(static_cast<double>(e.output_bytes)).c_str());
   out << line;
   out << "wall time:    about " << format_duration(e.wall_seconds) << " on " << e.options.ranks
@@ -636,14 +666,16 @@ std::string format(const Estimate& e) {
     out << "deadline:     " << format_duration(e.options.deadline_seconds) << ": ";
     if (e.suggested_ranks > 0) {
       out << e.suggested_ranks << " rank(s), about " << format_duration(e.suggested_run_seconds)
-          << "; request " << slurm_time(e.suggested_wall_seconds) << " (sbatch --ntasks="
-          << e.suggested_ranks << " --time=" << slurm_time(e.suggested_wall_seconds) << ")\n";
+          << "; request " << slurm_time(e.suggested_wall_seconds)
+          << " (sbatch --ntasks=" << e.suggested_ranks
+          << " --time=" << slurm_time(e.suggested_wall_seconds) << ")\n";
     } else {
       out << "not reachable (see the warning)\n";
     }
   }
   for (const auto& w : e.warnings) out << "warning:      " << w << "\n";
-  out << "\nThese are estimates from a short measurement on this machine; other nodes, other load and\n"
+  out << "\nThese are estimates from a short measurement on this machine; other nodes, other load "
+         "and\n"
          "the site's scheduling policies and limits decide the real costs.\n";
   return out.str();
 }

@@ -1,10 +1,11 @@
 // Parameter sweeps (see include/freegap/sweep.hpp).
 #include "freegap/sweep.hpp"
 
+#include <toml++/toml.h>
+
 #include <filesystem>
 #include <fstream>
 #include <sstream>
-#include <toml++/toml.h>
 
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
@@ -70,7 +71,8 @@ Sweep expand(const std::string& sweep_path) {
   }
   const auto parts = split_key(*vary);
   for (const auto& p : parts) {
-    if (p.empty()) throw InputError(where(sweep_path, t.get("vary"), "vary") + "empty part in '" + *vary + "'");
+    if (p.empty())
+      throw InputError(where(sweep_path, t.get("vary"), "vary") + "empty part in '" + *vary + "'");
   }
   if (*vary == "name" || *vary == "output") {
     throw InputError(where(sweep_path, t.get("vary"), "vary") + "'" + *vary +
@@ -86,11 +88,13 @@ Sweep expand(const std::string& sweep_path) {
   const std::string stem = sweep_file.stem().string();
   fs::path dir = here / stem;
   if (auto d = t["directory"].value<std::string>()) {
-    if (d->empty()) throw InputError(where(sweep_path, t.get("directory"), "directory") + "must not be empty");
+    if (d->empty())
+      throw InputError(where(sweep_path, t.get("directory"), "directory") + "must not be empty");
     dir = fs::path(*d).is_absolute() ? fs::path(*d) : here / *d;
   }
   dir = dir.lexically_normal();
-  const fs::path base_path = fs::path(*base_rel).is_absolute() ? fs::path(*base_rel) : here / *base_rel;
+  const fs::path base_path =
+      fs::path(*base_rel).is_absolute() ? fs::path(*base_rel) : here / *base_rel;
   // Validate the base job as it is (its own messages name its own lines).
   const job::Job base_job = job::load_job(base_path.string());
   toml::table base = toml::parse_file(base_path.string());
@@ -110,7 +114,8 @@ Sweep expand(const std::string& sweep_path) {
         child = parent->get(parts[k]);
       }
       if (!child->is_table()) {
-        throw InputError(where(sweep_path, t.get("vary"), "vary") + "'" + parts[k] + "' in the base job is not a table");
+        throw InputError(where(sweep_path, t.get("vary"), "vary") + "'" + parts[k] +
+                         "' in the base job is not a table");
       }
       parent = child->as_table();
     }
@@ -121,12 +126,14 @@ Sweep expand(const std::string& sweep_path) {
     const std::string task_stem = stem + "-" + std::to_string(i);
     if (!job["run"]) job.insert("run", toml::table{});
     if (auto* run = job["run"].as_table()) run->insert_or_assign("output", task_stem + ".h5");
-    // A law = "file" diagonal's path is relative to its job file: keep it pointing at the same file.
+    // A law = "file" diagonal's path is relative to its job file: keep it pointing at the same
+    // file.
     if (auto* matrices = job["matrices"].as_table()) {
       for (auto& [name, m] : *matrices) {
         if (auto* mt = m.as_table()) {
           if (auto p = (*mt)["path"].value<std::string>(); p && !fs::path(*p).is_absolute()) {
-            mt->insert_or_assign("path", (base_path.parent_path() / *p).lexically_normal().string());
+            mt->insert_or_assign("path",
+                                 (base_path.parent_path() / *p).lexically_normal().string());
           }
         }
       }
