@@ -4,7 +4,8 @@
 # directory. Recipe and measured costs: shared/reference/cluster-notes.md §3–4 (start under 1 s,
 # stop about 4 s).
 #
-#   tests/slurm/cluster.sh start DIR   # prints "export SLURM_CONF=DIR/slurm.conf"
+#   tests/slurm/cluster.sh start DIR   # prints "export SLURM_CONF=DIR/slurm.conf"; stops a cluster
+#                                      # an interrupted run left in DIR first
 #   tests/slurm/cluster.sh stop DIR    # cancels every job, stops the daemons; idempotent
 #   tests/slurm/cluster.sh status DIR  # exit 0 if the node is up
 #
@@ -92,7 +93,9 @@ start_cluster() {
       die "$tool is missing; install Debian's packages: apt-get install slurmctld slurmd slurm-client munge"
   done
   if pid_of slurmctld >/dev/null || pid_of slurmd >/dev/null || pid_of munged >/dev/null; then
-    die "a cluster is already running in $DIR; stop it first"
+    # Left over from an interrupted test run in the same directory: ours, so stop it first.
+    echo "cluster.sh: stopping the cluster left running in $DIR" >&2
+    stop_cluster
   fi
   for p in "$CTLD_PORT" "$D_PORT"; do
     port_taken "$p" && die "port $p is in use (another Slurm?); set FREEGAP_SLURM_CTLD_PORT and FREEGAP_SLURM_D_PORT"
