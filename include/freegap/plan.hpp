@@ -41,7 +41,7 @@ struct CostFit {
   std::vector<int> powers;
   std::vector<double> coefficients;
   std::vector<std::int64_t> sizes;  ///< where it was measured
-  std::vector<double> seconds;      ///< median seconds per trial there
+  std::vector<double> seconds;      ///< fastest seconds per trial there (an unshared core)
   double predict(std::int64_t n) const;
   /// "3.1e-10·N³ + 2e-08·N² + 0.00012 s"
   std::string formula() const;
@@ -100,7 +100,7 @@ class Calibration {
 std::string cost_key(const job::Job& job, int threads);
 
 /// Times trials of the job's own model at a ladder of sizes up to the job's largest (dense:
-/// 32, 64, 128, … and the largest size itself; tridiagonal: 1000, 4000, …), stopping after a size
+/// 40, 80, 160, … and the largest size itself; tridiagonal: 1000, 4000, …), stopping after a size
 /// whose trial takes over 0.25 s or when `budget_seconds` are spent, and fits the cost. Uses
 /// `threads` BLAS threads. Throws InputError for a job whose model is refused.
 CostFit measure_cost(const job::Job& job, int threads, double budget_seconds = 4.0);

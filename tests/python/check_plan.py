@@ -8,13 +8,15 @@ Usage: check_plan.py BUILD_DIR
 2. The job is run as one process, under a small wrapper that reports the peak resident set size
    of its children (getrusage RUSAGE_CHILDREN, Linux ru_maxrss in KiB); so is one trial at
    N = 1400, where the matrices outweigh the process itself. Per size, the measured
-   seconds per trial (the units' own wall times in /provenance/units, divided by their trials)
+   seconds per trial (the fastest unit's own wall time in /provenance/units, divided by its
+   trials: like the plan's calibration, the time least disturbed by other work on the machine)
    are within a factor 2 of the plan's; the plan's largest peak memory per rank is at least the
    measured peak RSS; the plan's run-file size is within a factor 2 of the file's size.
 3. A second plan reuses the calibration file (no new measurement, same numbers); a file written
    for another machine (its machine line changed) is measured again and replaced.
-4. --deadline: the suggested rank count R fits the deadline with the 25 % margin (plan --ranks R
-   reports a wall time ≤ deadline/1.25), and R − 1 ranks do not.
+4. --deadline (one that 2 ranks meet): the suggested rank count R is at most 2, fits the deadline
+   with the 25 % margin (plan --ranks R reports a wall time ≤ deadline/1.25), and R − 1 ranks do
+   not.
 5. A size that cannot fit memory_per_rank gets a warning naming it and the fix.
 """
 import os
@@ -113,19 +115,24 @@ def main():
         with h5py.File(path, "r") as f:
             units = f["provenance/units"][:]
             sizes = [int(f["sizes/%d" % i].attrs["n"]) for i in range(int(f.attrs["size_count"]))]
-            per_trial = {}
+            fastest, average = {}, {}
             for i, n in enumerate(sizes):
                 g = f["sizes/%d" % i]
                 b, t = int(g.attrs["trials_per_unit"]), int(g.attrs["trials"])
                 mine = units[units["size_index"] == i]
-                trials = sum(min(b, t - int(u) * b) for u in mine["unit"])
-                per_trial[n] = float(np.sum(mine["seconds"])) / trials
+                per_unit = [float(u["seconds"]) / min(b, t - int(u["unit"]) * b) for u in mine]
+                fastest[n] = min(per_unit)
+                average[n] = float(np.mean(per_unit))
         for n in sizes:
             if n not in rows:
                 continue
-            predicted, measured = rows[n]["seconds"], per_trial[n]
+            # The plan predicts the time on an unshared core (its calibration keeps each size's
+            # fastest trial); the run's counterpart is its fastest unit. The average is printed too:
+            # other work on this shared machine only ever adds to it.
+            predicted, measured = rows[n]["seconds"], fastest[n]
             ratio = predicted / measured
-            print("  -- N = %d: plan %.4f s/trial, run %.4f s/trial, ratio %.2f" % (n, predicted, measured, ratio))
+            print("  -- N = %d: plan %.4f s/trial; run: fastest unit %.4f s/trial (ratio %.2f), average %.4f "
+                  "(ratio %.2f)" % (n, predicted, measured, ratio, average[n], predicted / average[n]))
             c.check(0.5 <= ratio <= 2.0, "N = %d: the plan's time per trial is within a factor 2 of the "
                     "measured one (%.4f against %.4f s)" % (n, predicted, measured))
         peak = max(v["peak"] for v in rows.values()) if rows else 0
@@ -155,13 +162,16 @@ def main():
             c.check("Some Other CPU" not in f.read(), "and replaced")
 
         # Deadline: the suggested rank count is the fewest that fits with the margin.
-        w1 = wall(p2.stdout)
-        deadline = max(2.0, 0.6 * w1)
+        # A deadline that 2 ranks meet with the margin (from the calibration as it is now), so the
+        # suggestion is 1 or 2 ranks and the checks below decide which is right.
+        p_two, _ = plan(exe, d, ["--ranks", "2"], cal)
+        deadline = float(int(wall(p_two.stdout) * 1.25) + 1)
         p4, _ = plan(exe, d, ["--deadline", "%.0fs" % deadline], cal)
         m = re.search(r"^deadline:.*?: (\d+) rank\(s\)", p4.stdout, re.M)
         c.check(m is not None, "--deadline %.0fs suggests a rank count" % deadline, p4.stdout)
         if m:
             r_ok = int(m.group(1))
+            c.check(r_ok <= 2, "the suggestion (%d) is at most the 2 ranks that meet the deadline" % r_ok)
             d_used = float("%.0f" % deadline)
             pr, _ = plan(exe, d, ["--ranks", str(r_ok)], cal)
             c.check(wall(pr.stdout) * 1.25 <= d_used + 0.5,
