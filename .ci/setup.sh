@@ -15,6 +15,8 @@ FREEGAP_PACKAGES=(
   libopenmpi-dev openmpi-bin libeigen3-dev libhdf5-dev hdf5-tools libcli11-dev
   libgtest-dev libbenchmark-dev libopenblas-dev liblapacke-dev librandom123-dev
   libtomlplusplus-dev python3 python3-numpy python3-scipy python3-h5py python3-matplotlib
+  # A real one-node Slurm for tests/slurm (started by hand, no systemd; cluster-notes §3).
+  slurmctld slurmd slurm-client munge
 )
 
 freegap_missing_packages() {

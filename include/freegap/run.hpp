@@ -12,6 +12,10 @@
 // with kExitResumable. SIGTERM and SIGINT do the same (under mpirun a rank has only 1–2 s after
 // SIGTERM before SIGKILL — shared/reference/cluster-notes.md §1 — but every unit is committed as
 // it arrives, so a kill loses at most the units in flight).
+//
+// Deadlines (RunOptions::stop_before_seconds, RunOptions::scheduler_end_time): rank 0 hands out a
+// unit only if, by the measured durations of finished units, it would end before the deadline;
+// otherwise every rank finishes its current unit, the run commits and exits kExitResumable.
 #pragma once
 
 #include <mpi.h>
@@ -29,7 +33,7 @@ namespace freegap::run {
 inline constexpr int kExitFinished = 0;
 inline constexpr int kExitFailure = 1;    ///< an unexpected error (I/O, MPI)
 inline constexpr int kExitBadInput = 2;   ///< job file, command line or run file refused
-inline constexpr int kExitResumable = 3;  ///< stopped by a signal; run the same command to resume
+inline constexpr int kExitResumable = 3;  ///< stopped by a signal or a deadline; run again to resume
 
 struct RunOptions {
   std::string output;     ///< run file; empty: the job's output
@@ -38,7 +42,17 @@ struct RunOptions {
   int threads = 1;        ///< BLAS threads per rank
   double progress_seconds = 30.0;  ///< plain progress line interval when stderr is not a terminal
   bool quiet = false;     ///< no progress output
+  /// --stop-before: start no unit that would not finish within this many seconds of run_job's
+  /// start (by measured unit durations), then commit and exit kExitResumable; 0 = no limit.
+  double stop_before_seconds = 0.0;
+  /// The scheduler's end time of the job in Unix seconds (SLURM_JOB_END_TIME, which the caller
+  /// reads), 0 = unknown: start no unit that would not finish kSchedulerEndMarginSeconds before it.
+  std::int64_t scheduler_end_time = 0;
 };
+
+/// Time kept free before the scheduler's end time: prediction error, the last commit, and the
+/// scheduler's own signals (which may come up to a minute early; cluster-notes §3).
+inline constexpr double kSchedulerEndMarginSeconds = 60.0;
 
 /// Peak bytes one rank holds while running one trial of `runner`'s model at its size: the
 /// samples, the sampler's transient factorisation storage, the plan's temporaries and the

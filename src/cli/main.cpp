@@ -15,6 +15,7 @@
 #include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
 #include "freegap/observe.hpp"
+#include "freegap/plan.hpp"
 #include "freegap/run.hpp"
 #include "freegap/store.hpp"
 #include "freegap/version.hpp"
@@ -196,6 +197,10 @@ int main(int argc, char** argv) {
           },
           "SECONDS>0"));
   run_cmd->add_flag("-q,--quiet", run_options.quiet, "No progress output");
+  std::string stop_before;
+  run_cmd->add_option("--stop-before", stop_before,
+                      "Start no unit that would not finish within this time (e.g. 90s, 10m, "
+                      "1h30m), then commit and exit 3; SLURM_JOB_END_TIME is also obeyed");
 
   std::string inspect_path;
   bool inspect_job = false;
@@ -209,6 +214,8 @@ int main(int argc, char** argv) {
   // Subcommands in files of their own (commands.hpp).
   std::vector<freegap::cli::Subcommand> extra;
   extra.push_back(freegap::cli::add_report_command(app));
+  extra.push_back(freegap::cli::add_plan_command(app));
+  extra.push_back(freegap::cli::add_sweep_command(app));
 
   // An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
   // subcommand is required).
@@ -236,6 +243,21 @@ int main(int argc, char** argv) {
   }
   if (*run_cmd) {
     freegap::run::install_signal_handlers();
+    try {
+      if (!stop_before.empty()) {
+        run_options.stop_before_seconds = freegap::plan::parse_duration(stop_before);
+      }
+      // Slurm sets the job's end time (Unix seconds) in newer versions; older ones do not, and
+      // the batch scripts in jobs/slurm/ pass --stop-before instead.
+      if (const char* end = std::getenv("SLURM_JOB_END_TIME"); end && *end) {
+        char* rest = nullptr;
+        const long long t = std::strtoll(end, &rest, 10);
+        if (rest && *rest == '\0' && t > 0) run_options.scheduler_end_time = t;
+      }
+    } catch (const freegap::InputError& e) {
+      std::cerr << "freegap: --stop-before " << e.what() << "\n";
+      return kExitBadInput;
+    }
     // A plain process without a launcher is a singleton MPI job of one rank. Open MPI then
     // spends ~0.2 s probing network transports it cannot use; the shared-memory layer is
     // enough for one process (measured: MPI_Init 0.28 s → 0.08 s). Only when no launcher is

@@ -7,6 +7,7 @@
 #include <chrono>
 #include <csignal>
 #include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
 #include <fstream>
@@ -515,13 +516,110 @@ struct WorkerState {
   int outstanding = 0;         // units assigned and not returned
 };
 
+/// --stop-before and the scheduler's end time: rank 0 starts a unit only if, by the measured
+/// durations, it would finish before the deadline. A unit's duration is predicted from the
+/// measured seconds per cost (N³ × trials, the runner's cost model) of finished units of the
+/// same size — this session's or, on resume, the earlier sessions' in /provenance — or else of
+/// the nearest size with a measurement. Before any unit has been measured nothing can be
+/// predicted and units are started. A rank's next unit starts when its current one ends.
+class Deadline {
+ public:
+  Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks,
+           std::chrono::steady_clock::time_point run_start)
+      : sizes_(job.sizes), per_cost_(job.sizes.size(), 0.0),
+        busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()) {
+    const auto now = std::chrono::steady_clock::now();
+    std::optional<double> left;
+    if (options.stop_before_seconds > 0) {
+      // Counted from the start of the run, so the set-up (pilot trial, file) counts too.
+      left = options.stop_before_seconds - std::chrono::duration<double>(now - run_start).count();
+    }
+    if (options.scheduler_end_time > 0) {
+      const double unix_now =
+          std::chrono::duration<double>(std::chrono::system_clock::now().time_since_epoch()).count();
+      const double to_end =
+          static_cast<double>(options.scheduler_end_time) - unix_now - kSchedulerEndMarginSeconds;
+      left = left ? std::min(*left, to_end) : to_end;
+    }
+    if (left) {
+      deadline_ = now + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+                            std::chrono::duration<double>(std::max(0.0, *left)));
+    }
+    if (!deadline_) return;
+    for (const auto& u : file.read_provenance().units) {
+      if (u.size_index >= sizes_.size() || !(u.seconds > 0)) continue;
+      const std::int64_t b = job.trials_per_unit;
+      const auto trials = std::min<std::int64_t>(b, job.trials[u.size_index] - u.unit * b);
+      if (trials > 0) measured(u.size_index, trials, u.seconds);
+    }
+  }
+
+  /// Records a finished unit's wall time.
+  void measured(std::size_t size_index, std::int64_t trials, double seconds) {
+    const double cost = cost_of(size_index, trials);
+    if (cost > 0) per_cost_[size_index] = std::max(per_cost_[size_index], seconds / cost);
+  }
+
+  /// Whether `unit` may go to `rank` now; if so, books the rank until its predicted end.
+  bool take(int rank, const Unit& unit, bool rank_busy) {
+    if (!deadline_) return true;
+    const auto now = std::chrono::steady_clock::now();
+    auto& busy = busy_until_[static_cast<std::size_t>(rank)];
+    const auto start = rank_busy ? std::max(now, busy) : now;
+    const double rate = rate_for(unit.size_index);
+    const double seconds = rate * unit.cost;
+    const auto end = start + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+                                 std::chrono::duration<double>(seconds));
+    if (rate > 0 && end > *deadline_) {
+      reached_ = true;
+      return false;
+    }
+    if (start >= *deadline_) {  // nothing measured yet, but the deadline has passed
+      reached_ = true;
+      return false;
+    }
+    busy = end;
+    return true;
+  }
+
+  bool reached() const { return reached_; }
+
+ private:
+  double cost_of(std::size_t size_index, std::int64_t trials) const {
+    const double n = static_cast<double>(sizes_[size_index]);
+    return n * n * n * static_cast<double>(trials);
+  }
+  double rate_for(std::size_t size_index) const {
+    if (per_cost_[size_index] > 0) return per_cost_[size_index];
+    double best = 0.0;
+    std::int64_t best_gap = 0;
+    for (std::size_t j = 0; j < sizes_.size(); ++j) {
+      if (!(per_cost_[j] > 0)) continue;
+      const std::int64_t gap = std::abs(sizes_[j] - sizes_[size_index]);
+      if (best == 0.0 || gap < best_gap) {
+        best = per_cost_[j];
+        best_gap = gap;
+      }
+    }
+    return best;
+  }
+
+  std::vector<std::int64_t> sizes_;
+  std::vector<double> per_cost_;  // seconds per unit of cost, the largest measured per size
+  std::vector<std::chrono::steady_clock::time_point> busy_until_;
+  std::optional<std::chrono::steady_clock::time_point> deadline_;
+  bool reached_ = false;
+};
+
 int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
-               const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts) {
+               const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts,
+               std::chrono::steady_clock::time_point run_start, bool& stopped_for_deadline) {
   const int ranks = comm_size(comm);
   std::vector<WorkerState> workers(static_cast<std::size_t>(ranks));
   workers[0].finished = true;  // rank 0 itself
   std::size_t next = 0;
   bool stopping = false;
+  Deadline deadline(options, p.job, file, ranks, run_start);
 
   std::size_t total_units = 0;
   std::int64_t total_trials = 0, done_trials = 0;
@@ -553,12 +651,17 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     where.host = hosts[static_cast<std::size_t>(d.rank)];
     where.seconds = d.seconds;
     file.write_unit(r, where);
+    deadline.measured(d.size_index, static_cast<std::int64_t>(d.obs.trials.size()), d.seconds);
     progress.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
   };
 
   auto answer = [&](int worker) {
     std::int64_t msg[2] = {-1, -1};
     auto& w = workers[static_cast<std::size_t>(worker)];
+    if (!stopping && next < pending.size() &&
+        !deadline.take(worker, pending[next], w.outstanding > 0)) {
+      stopping = true;  // the next unit would not finish before the deadline
+    }
     if (!stopping && next < pending.size()) {
       msg[0] = static_cast<std::int64_t>(pending[next].size_index);
       msg[1] = pending[next].unit;
@@ -621,6 +724,10 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     if (!rank0_computes) break;
     service(false);
     if (stopping || next >= pending.size()) break;
+    if (!deadline.take(0, pending[next], false)) {
+      stopping = true;  // the next unit would not finish before the deadline
+      break;
+    }
     const Unit unit = pending[next++];
     UnitDone d;
     if (!compute_unit(p, unit, 0, d, [&] { service(false); })) {
@@ -633,6 +740,7 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     service(true);
   }
   progress.finish();
+  stopped_for_deadline = deadline.reached();
   return (stopping && !file.complete()) ? kExitResumable : kExitFinished;
 }
 
@@ -696,6 +804,7 @@ std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
 
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
             std::ostream& out, std::ostream& err) {
+  const auto run_start = std::chrono::steady_clock::now();
   const int me = comm_rank(comm);
   const int ranks = comm_size(comm);
   install_signal_handlers();
@@ -879,9 +988,15 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
         if (!committed[u.size_index][static_cast<std::size_t>(u.unit)]) pending.push_back(u);
       }
       file->begin_session(ranks, hosts);
-      status = coordinate(p, *file, pending, comm, options, err, hosts);
+      bool stopped_for_deadline = false;
+      status = coordinate(p, *file, pending, comm, options, err, hosts, run_start,
+                          stopped_for_deadline);
       file->end_session(status == kExitFinished ? "finished" : "interrupted");
-      if (status == kExitResumable) {
+      if (status == kExitResumable && stopped_for_deadline && g_stop_signal == 0) {
+        err << "freegap: stopped before the deadline: the next unit would not finish in time; "
+               "committed units are in '"
+            << p.job.output << "'; run the same command again to resume\n";
+      } else if (status == kExitResumable) {
         err << "freegap: stopped by signal " << static_cast<int>(g_stop_signal)
             << "; committed units are in '" << p.job.output
             << "'; run the same command again to resume\n";

@@ -182,8 +182,31 @@ def cases(good_hash, other_hash, template):
              expect="--progress-every: must be a positive number of seconds (got -1)\n"
                     "Run with --help for more information.\n"),
         dict(name="unknown subcommand", files={"job.toml": GOOD}, args=["frobnicate", "job.toml"],
-             expect="freegap: unknown command 'frobnicate'; the commands are sample, run, inspect, report "
-                    "(see freegap --help)\n"),
+             expect="freegap: unknown command 'frobnicate'; the commands are sample, run, inspect, "
+                    "report, plan, sweep (see freegap --help)\n"),
+        dict(name="--stop-before with units out of order", files={"job.toml": GOOD},
+             args=["run", "job.toml", "--stop-before", "10m1h"] + run_out,
+             expect=F + "--stop-before 10m1h: units must come in the order d, h, m, s, each at most once; "
+                        "write e.g. 90s, 10m or 1h30m\n"),
+        dict(name="--stop-before with an unknown unit", files={"job.toml": GOOD},
+             args=["run", "job.toml", "--stop-before", "5 min"] + run_out,
+             expect=F + "--stop-before 5 min: unknown unit ' ' (use d, h, m, s); write e.g. 90s, 10m or 1h30m\n"),
+        dict(name="plan --deadline 0", files={"job.toml": GOOD},
+             args=["plan", "job.toml", "--deadline", "0", "--calibration", "cal.toml"],
+             expect=F + "--deadline 0: must be positive; write e.g. 90s, 10m or 1h30m\n"),
+        dict(name="plan of a job with a bad expression", files={"job.toml": edit('"X + Y"', '"X + * Y"')},
+             args=["plan", "job.toml", "--calibration", "cal.toml"],
+             expect=F + "job.toml:5: expression: expected a matrix name, a number or '(' after '+' at column 5\n"),
+        dict(name="sweep without values",
+             files={"job.toml": GOOD, "s.toml": 'base = "job.toml"\nvary = "seed"\nvalues = []\n'},
+             args=["sweep", "s.toml"],
+             expect=F + "s.toml:3: values: required: a non-empty list of values, e.g. values = [0.25, 0.5, 1.0]\n"),
+        dict(name="sweep value that makes a bad job",
+             files={"job.toml": GOOD, "s.toml": 'base = "job.toml"\nvary = "observe.bins"\nvalues = [10, 0]\n'},
+             args=["sweep", "s.toml"],
+             expect=lambda err: (err.startswith(F + "s.toml:3: values: value 0 makes an invalid job: ")
+                                 and "observe.bins" in err and err.count("\n") == 1,
+                                 "names the sweep file, the value and the job key, in one line")),
         dict(name="--threads 2 with complex singular values", files={"job.toml": COMPLEX_SVD},
              args=["run", "job.toml", "--threads", "2"] + run_out,
              expect=F + "--threads 2: this job needs complex singular value decompositions, which crash with "

@@ -1,0 +1,681 @@
+// Planning a job before it runs (see include/freegap/plan.hpp).
+#include "freegap/plan.hpp"
+
+#include <toml++/toml.h>
+#include <unistd.h>
+
+#include <Eigen/Dense>
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <cstdio>
+#include <cstdlib>
+#include <ctime>
+#include <filesystem>
+#include <fstream>
+#include <functional>
+#include <iostream>
+#include <queue>
+#include <sstream>
+#include <thread>
+
+#include "freegap/errors.hpp"
+#include "freegap/linalg.hpp"
+#include "freegap/model.hpp"
+#include "freegap/run.hpp"
+#include "freegap/version.hpp"
+
+extern "C" void openblas_set_num_threads(int);
+extern "C" int openblas_get_num_threads(void);
+
+namespace freegap::plan {
+
+namespace {
+
+[[noreturn]] void bad_duration(std::string_view text, const std::string& rule) {
+  throw InputError(std::string(text) + ": " + rule + "; write e.g. 90s, 10m or 1h30m");
+}
+
+std::string human_bytes(double b) {
+  const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB", "PiB"};
+  int i = 0;
+  while (b >= 1024.0 && i < 5) {
+    b /= 1024.0;
+    ++i;
+  }
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.1f %s", b, units[i]);
+  return buf;
+}
+
+std::string number(double v, const char* fmt = "%.3g") {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, fmt, v);
+  return buf;
+}
+
+std::string utc_now() {
+  const std::time_t t = std::time(nullptr);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  char buf[32];
+  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
+  return buf;
+}
+
+std::size_t available_memory_bytes() {
+  std::ifstream in("/proc/meminfo");
+  std::string key, unit;
+  std::size_t value = 0;
+  while (in >> key >> value >> unit) {
+    if (key == "MemAvailable:") return value * 1024;
+  }
+  return 0;
+}
+
+int online_cores() {
+  const long n = sysconf(_SC_NPROCESSORS_ONLN);
+  return n > 0 ? static_cast<int>(n) : 1;
+}
+
+model::Model model_of(const job::Job& job) {
+  model::Model m;
+  m.matrices = job.matrices;
+  m.expression = job.expression;
+  m.check.force_singular_values = job.observe.singular_values;
+  m.force_dense = job.force_dense;
+  return m;
+}
+
+model::SizeRunner runner_at(const job::Job& job, std::int64_t n) {
+  try {
+    return model::SizeRunner(model_of(job), n);
+  } catch (const InputError& e) {
+    throw InputError(job.where("expression") + e.what());
+  }
+}
+
+/// Trial indices the planner times: far from any real trial and from the runner's pilot trial
+/// (4294967295); the numbers are thrown away.
+constexpr std::uint64_t kTimingTrialBase = 4000000000ULL;
+
+}  // namespace
+
+// ---- durations --------------------------------------------------------------------------------
+
+double parse_duration(std::string_view text) {
+  if (text.empty()) bad_duration(text, "no duration given");
+  double total = 0.0;
+  std::size_t i = 0;
+  const std::string units = "dhms";
+  std::size_t last_unit = std::string::npos;  // index into units of the previous unit
+  bool any = false;
+  while (i < text.size()) {
+    std::size_t j = i;
+    while (j < text.size() && (std::isdigit(static_cast<unsigned char>(text[j])) || text[j] == '.'))
+      ++j;
+    if (j == i) bad_duration(text, "expected a number at character " + std::to_string(i + 1));
+    const std::string digits(text.substr(i, j - i));
+    double v = 0.0;
+    try {
+      std::size_t used = 0;
+      v = std::stod(digits, &used);
+      if (used != digits.size()) throw std::invalid_argument(digits);
+    } catch (const std::exception&) {
+      bad_duration(text, "'" + digits + "' is not a number");
+    }
+    if (j == text.size()) {
+      if (any) bad_duration(text, "the last number has no unit");
+      total = v;  // plain seconds
+      any = true;
+      break;
+    }
+    const auto u = units.find(static_cast<char>(std::tolower(static_cast<unsigned char>(text[j]))));
+    if (u == std::string::npos) {
+      bad_duration(text, "unknown unit '" + std::string(1, text[j]) + "' (use d, h, m, s)");
+    }
+    if (last_unit != std::string::npos && u <= last_unit) {
+      bad_duration(text, "units must come in the order d, h, m, s, each at most once");
+    }
+    last_unit = u;
+    static const double scale[] = {86400.0, 3600.0, 60.0, 1.0};
+    total += v * scale[u];
+    any = true;
+    i = j + 1;
+  }
+  if (!(total > 0) || !std::isfinite(total)) bad_duration(text, "must be positive");
+  return total;
+}
+
+std::string format_duration(double seconds) {
+  char buf[48];
+  const auto s = static_cast<long long>(std::ceil(std::max(0.0, seconds)));
+  if (seconds < 60) {
+    std::snprintf(buf, sizeof buf, "%.3gs", std::max(0.0, seconds));
+  } else if (s < 3600) {
+    std::snprintf(buf, sizeof buf, "%lldm%02llds", s / 60, s % 60);
+  } else if (s < 86400) {
+    const long long minutes = (s + 59) / 60;
+    std::snprintf(buf, sizeof buf, "%lldh%02lldm", minutes / 60, minutes % 60);
+  } else {
+    std::snprintf(buf, sizeof buf, "%lldd%02lldh", s / 86400, (s % 86400) / 3600);
+  }
+  return buf;
+}
+
+std::string slurm_time(double seconds) {
+  const auto minutes = static_cast<long long>(std::max(1.0, std::ceil(seconds / 60.0)));
+  char buf[48];
+  if (minutes < 60) {
+    std::snprintf(buf, sizeof buf, "%lld:00", minutes);
+  } else if (minutes < 1440) {
+    std::snprintf(buf, sizeof buf, "%lld:%02lld:00", minutes / 60, minutes % 60);
+  } else {
+    std::snprintf(buf, sizeof buf, "%lld-%02lld:%02lld:00", minutes / 1440, (minutes % 1440) / 60,
+                  minutes % 60);
+  }
+  return buf;
+}
+
+// ---- the cost fit -------------------------------------------------------------------------------
+
+double CostFit::predict(std::int64_t n) const {
+  double t = 0.0;
+  for (std::size_t k = 0; k < powers.size(); ++k) {
+    t += coefficients[k] * std::pow(static_cast<double>(n), powers[k]);
+  }
+  return t;
+}
+
+std::string CostFit::formula() const {
+  std::string out;
+  for (std::size_t k = 0; k < powers.size(); ++k) {
+    if (coefficients[k] == 0.0) continue;
+    if (!out.empty()) out += " + ";
+    out += number(coefficients[k], "%.3g");
+    if (powers[k] == 1) out += "·N";
+    if (powers[k] > 1) out += "·N^" + std::to_string(powers[k]);
+  }
+  return (out.empty() ? std::string("0") : out) + " s";
+}
+
+CostFit fit_cost(const std::vector<int>& powers, const std::vector<std::int64_t>& sizes,
+                 const std::vector<double>& seconds) {
+  if (sizes.empty() || sizes.size() != seconds.size() || powers.empty()) {
+    throw InputError("cost fit: needs as many timings as sizes, at least one");
+  }
+  const std::size_t m = sizes.size(), p = powers.size();
+  CostFit best;
+  best.powers = powers;
+  best.coefficients.assign(p, 0.0);
+  best.sizes = sizes;
+  best.seconds = seconds;
+  double best_residual = INFINITY;
+  // Every non-empty subset of the basis (at most 2^3 here): the unconstrained weighted fit on the
+  // subset, kept if all its coefficients are ≥ 0; the smallest residual wins. With so few columns
+  // this is exactly non-negative least squares.
+  for (unsigned mask = 1; mask < (1u << p); ++mask) {
+    std::vector<std::size_t> cols;
+    for (std::size_t k = 0; k < p; ++k) {
+      if (mask & (1u << k)) cols.push_back(k);
+    }
+    if (cols.size() > m) continue;
+    Eigen::MatrixXd a(static_cast<Eigen::Index>(m), static_cast<Eigen::Index>(cols.size()));
+    Eigen::VectorXd b(static_cast<Eigen::Index>(m));
+    for (std::size_t i = 0; i < m; ++i) {
+      const double w = 1.0 / seconds[i];
+      for (std::size_t c = 0; c < cols.size(); ++c) {
+        a(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(c)) =
+            w * std::pow(static_cast<double>(sizes[i]), powers[cols[c]]);
+      }
+      b(static_cast<Eigen::Index>(i)) = 1.0;
+    }
+    const Eigen::VectorXd x = a.colPivHouseholderQr().solve(b);
+    if ((x.array() < 0).any() || !x.allFinite()) continue;
+    const double r = (a * x - b).squaredNorm();
+    if (r < best_residual) {
+      best_residual = r;
+      best.coefficients.assign(p, 0.0);
+      for (std::size_t c = 0; c < cols.size(); ++c)
+        best.coefficients[cols[c]] = x(static_cast<Eigen::Index>(c));
+    }
+  }
+  return best;
+}
+
+// ---- the machine and the calibration file ------------------------------------------------------
+
+std::string Machine::key() const {
+  return "cpu=" + cpu + "; cores=" + std::to_string(cores) + "; blas=" + blas +
+         "; freegap=" + freegap;
+}
+
+Machine this_machine() {
+  Machine m;
+  std::ifstream in("/proc/cpuinfo");
+  std::string line;
+  while (std::getline(in, line)) {
+    if (line.rfind("model name", 0) == 0) {
+      const auto colon = line.find(':');
+      if (colon != std::string::npos) m.cpu = line.substr(line.find_first_not_of(" \t", colon + 1));
+      break;
+    }
+  }
+  if (m.cpu.empty()) m.cpu = "unknown";
+  m.cores = online_cores();
+  m.blas = linalg::blas_description();
+  // OpenBLAS picks its kernel by CPU unless told (build-notes: OPENBLAS_CORETYPE).
+  if (const char* core = std::getenv("OPENBLAS_CORETYPE"))
+    m.blas += " OPENBLAS_CORETYPE=" + std::string(core);
+  m.freegap = std::string(tool_version) + " (" + git_revision + ")";
+  return m;
+}
+
+std::string default_calibration_path() {
+  if (const char* p = std::getenv("FREEGAP_CALIBRATION"); p && *p) return p;
+  if (const char* x = std::getenv("XDG_CACHE_HOME"); x && *x) {
+    return std::string(x) + "/freegap/calibration.toml";
+  }
+  if (const char* h = std::getenv("HOME"); h && *h)
+    return std::string(h) + "/.cache/freegap/calibration.toml";
+  return ".freegap-calibration.toml";
+}
+
+Calibration Calibration::load(const std::string& path, const Machine& machine) {
+  Calibration c;
+  c.path_ = path;
+  c.machine_ = machine;
+  if (!std::filesystem::exists(path)) return c;
+  toml::table t;
+  try {
+    t = toml::parse_file(path);
+  } catch (const toml::parse_error&) {
+    c.stale_ = true;  // unreadable: measure again and replace it
+    return c;
+  }
+  if (t["machine"].value_or(std::string()) != machine.key()) {
+    c.stale_ = true;
+    return c;
+  }
+  if (const auto* costs = t["cost"].as_array()) {
+    for (const auto& node : *costs) {
+      const auto* e = node.as_table();
+      if (!e) continue;
+      Entry entry;
+      entry.key = (*e)["key"].value_or(std::string());
+      entry.description = (*e)["description"].value_or(std::string());
+      auto ints = [&](const char* k, auto& out) {
+        if (const auto* a = (*e)[k].as_array()) {
+          for (const auto& v : *a)
+            out.push_back(static_cast<std::decay_t<decltype(out[0])>>(v.value_or(0.0)));
+        }
+      };
+      ints("powers", entry.fit.powers);
+      ints("coefficients", entry.fit.coefficients);
+      ints("sizes", entry.fit.sizes);
+      ints("seconds", entry.fit.seconds);
+      if (entry.key.empty() || entry.fit.powers.empty() ||
+          entry.fit.powers.size() != entry.fit.coefficients.size()) {
+        continue;
+      }
+      c.entries_.push_back(std::move(entry));
+    }
+  }
+  return c;
+}
+
+const CostFit* Calibration::find(const std::string& key) const {
+  for (const auto& e : entries_) {
+    if (e.key == key) return &e.fit;
+  }
+  return nullptr;
+}
+
+void Calibration::put(const std::string& key, const std::string& description, const CostFit& fit) {
+  for (auto& e : entries_) {
+    if (e.key == key) {
+      e.description = description;
+      e.fit = fit;
+      return;
+    }
+  }
+  entries_.push_back({key, description, fit});
+}
+
+void Calibration::save() const {
+  namespace fs = std::filesystem;
+  const fs::path p(path_);
+  std::error_code ec;
+  if (p.has_parent_path()) fs::create_directories(p.parent_path(), ec);
+  toml::table t;
+  t.insert("machine", machine_.key());
+  t.insert("written", utc_now());
+  toml::array costs;
+  for (const auto& e : entries_) {
+    toml::table row;
+    row.insert("key", e.key);
+    row.insert("description", e.description);
+    toml::array powers, coefficients, sizes, seconds;
+    for (auto v : e.fit.powers) powers.push_back(static_cast<std::int64_t>(v));
+    for (auto v : e.fit.coefficients) coefficients.push_back(v);
+    for (auto v : e.fit.sizes) sizes.push_back(static_cast<std::int64_t>(v));
+    for (auto v : e.fit.seconds) seconds.push_back(v);
+    row.insert("powers", powers);
+    row.insert("coefficients", coefficients);
+    row.insert("sizes", sizes);
+    row.insert("seconds", seconds);
+    costs.push_back(std::move(row));
+  }
+  t.insert("cost", std::move(costs));
+  const std::string tmp = path_ + ".tmp." + std::to_string(getpid());
+  {
+    std::ofstream out(tmp);
+    if (!out) throw Error("cannot write the calibration file '" + tmp + "'");
+    out << "# freegap plan: seconds per trial measured on this machine, one entry per model and\n"
+           "# BLAS thread count. Replaced when the machine changes; delete it to measure again.\n";
+    out << t << "\n";
+    if (!out) throw Error("cannot write the calibration file '" + tmp + "'");
+  }
+  fs::rename(tmp, p, ec);
+  if (ec) {
+    fs::remove(tmp);
+    throw Error("cannot write the calibration file '" + path_ + "': " + ec.message());
+  }
+}
+
+std::string cost_key(const job::Job& job, int threads) {
+  // The canonical job with the seed, sizes and trials neutralised: what is left defines the work
+  // of one trial (matrices, expression, observations, force_dense).
+  job::Job j = job;
+  j.seed = 0;
+  j.sizes = {1};
+  j.trials = {1};
+  j.trials_per_unit = 1;
+  return job::sha256_hex(j.canonical() + "\nblas_threads=" + std::to_string(threads));
+}
+
+// ---- measuring ---------------------------------------------------------------------------------
+
+CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
+  if (job.sizes.empty()) throw InputError(job.where("sizes") + "the job has no sizes");
+  const int saved_threads = openblas_get_num_threads();
+  openblas_set_num_threads(std::max(1, threads));
+  const std::int64_t largest = job.sizes.back();
+  const bool tri = runner_at(job, largest).path() == model::Path::tridiagonal;
+  const std::vector<int> powers = tri ? std::vector<int>{1, 0} : std::vector<int>{3, 2, 0};
+  // Ladder of sizes: geometric up to the largest size of the job, which is timed itself if cheap.
+  std::vector<std::int64_t> ladder;
+  // Not powers of two: a leading dimension of 2^k slows BLAS down by cache-set conflicts
+  // (N = 256 measured 2× slower per N³ than 240 and 360 here), which real sizes rarely share.
+  const std::int64_t first = tri ? 1000 : 40;
+  const std::int64_t factor = tri ? 4 : 2;
+  for (std::int64_t n = std::min(first, std::max<std::int64_t>(1, largest / 8)); n < largest;
+       n *= factor) {
+    ladder.push_back(n);
+  }
+  ladder.push_back(largest);
+  while (ladder.size() < powers.size() + 1 && ladder.front() > 4) {
+    ladder.insert(ladder.begin(), std::max<std::int64_t>(2, ladder.front() / 2));
+  }
+
+  std::vector<std::int64_t> sizes;
+  std::vector<double> seconds;
+  const auto start = std::chrono::steady_clock::now();
+  auto spent = [&] {
+    return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  };
+  for (const auto n : ladder) {
+    const auto runner = runner_at(job, n);
+    observe::ObserveConfig config;
+    config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
+    config.max_moment = job.observe.max_moment;
+    config.kind = runner.spectrum_kind();
+    std::vector<double> times;
+    // One untimed trial first (first-touch page faults, lazy library set-up), then at least
+    // three timed ones and up to 0.15 s of them.
+    std::uint64_t trial = kTimingTrialBase;
+    {
+      auto obs = observe::start_observations(config);
+      runner.observe_trial(obs, job.seed, trial++);
+    }
+    double here = 0.0;
+    while (times.size() < 3 || (here < 0.15 && times.size() < 25)) {
+      auto obs = observe::start_observations(config);
+      const auto t0 = std::chrono::steady_clock::now();
+      runner.observe_trial(obs, job.seed, trial++);
+      const double dt =
+          std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+      times.push_back(dt);
+      here += dt;
+    }
+    sizes.push_back(n);
+    // The fastest timed trial: the time on an unshared core. Other processes on the machine
+    // only ever add to a trial's time, so the minimum is the measurement they disturb least.
+    seconds.push_back(std::max(*std::min_element(times.begin(), times.end()), 1e-9));
+    if (seconds.back() > 0.25 || spent() > budget_seconds) break;
+  }
+  openblas_set_num_threads(std::max(1, saved_threads));
+  return fit_cost(powers, sizes, seconds);
+}
+
+// ---- the estimate ------------------------------------------------------------------------------
+
+double simulate_wall(std::vector<double> unit_seconds, int ranks) {
+  std::sort(unit_seconds.begin(), unit_seconds.end(), std::greater<>());
+  std::priority_queue<double, std::vector<double>, std::greater<>> free_at;
+  for (int r = 0; r < std::max(1, ranks); ++r) free_at.push(0.0);
+  double wall = 0.0;
+  for (const double s : unit_seconds) {
+    const double t = free_at.top() + s;
+    free_at.pop();
+    free_at.push(t);
+    wall = std::max(wall, t);
+  }
+  // MPI start-up, the pilot trial and the file's creation: about a second (cluster-notes §1).
+  return wall + 1.0;
+}
+
+std::size_t output_bytes(const job::Job& job, std::size_t i) {
+  // SCHEMA.md: per trial a row of K+1 moments, min, max, norm (float64), failed (int8) and a
+  // variable-length failure reason (a 16-byte heap reference); per unit a histogram row of b
+  // counts, below, above, the commit marker and a provenance record (~120 bytes with its
+  // strings); per kept spectrum N float64 and its length. Every chunk costs HDF5 an index entry
+  // (about 100 bytes measured with chunked datasets of this shape) — 10 chunks per unit and one
+  // per kept spectrum.
+  const double t = static_cast<double>(job.trials[i]);
+  const double b = static_cast<double>(job.trials_per_unit);
+  const double units = std::ceil(t / b);
+  const double k = job.observe.max_moment + 1;
+  const double bins = static_cast<double>(job.observe.bins);
+  const double kept = static_cast<double>(std::min(job.observe.keep_spectra, job.trials[i]));
+  const double n = static_cast<double>(job.sizes[i]);
+  const double bytes = t * (8.0 * k + 3 * 8.0 + 1.0 + 16.0) +
+                       units * (8.0 * bins + 8.0 * 2 + 1.0 + 120.0) + kept * (8.0 * n + 8.0) +
+                       8.0 * (bins + 1) + (10.0 * units + kept) * 100.0 +
+                       4096.0;  // the size's group, attributes and bin edges
+  return static_cast<std::size_t>(bytes);
+}
+
+Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
+  if (options.ranks < 1)
+    throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
+  if (options.threads < 1)
+    throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
+  Estimate e;
+  e.job_path = job.path;
+  e.expression = job.expression;
+  e.options = options;
+  // Build every size's runner first: a bad model fails before any measurement.
+  std::vector<model::SizeRunner> runners;
+  for (const auto n : job.sizes) runners.push_back(runner_at(job, n));
+  e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  if (options.threads > 1) {
+    // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
+    // 12's OpenBLAS 0.3.21; see run.cpp).
+    bool complex_svd = false;
+    for (const auto& m : job.matrices) {
+      complex_svd |=
+          m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+    }
+    const auto& x = runners.front().expression();
+    complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
+    if (complex_svd) {
+      throw InputError("--threads " + std::to_string(options.threads) +
+                       ": this job needs complex singular value decompositions, which crash with "
+                       "more than one OpenBLAS thread in the OpenBLAS shipped with Debian 12; plan "
+                       "with --threads 1 and more ranks instead");
+    }
+  }
+
+  const std::string cal_path =
+      options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
+  auto cal = Calibration::load(cal_path, this_machine());
+  const std::string key = cost_key(job, options.threads);
+  const CostFit* known = options.remeasure ? nullptr : cal.find(key);
+  if (known) {
+    e.cost = *known;
+    e.cost_source = "from " + cal_path;
+  } else {
+    log << "freegap plan: measuring trials of this model on this machine"
+        << (cal.stale() ? " (the calibration file was for another machine)" : "") << "...\n"
+        << std::flush;
+    const auto t0 = std::chrono::steady_clock::now();
+    e.cost = measure_cost(job, options.threads);
+    const double took =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    std::string at;
+    for (auto n : e.cost.sizes) at += (at.empty() ? "" : ", ") + std::to_string(n);
+    e.cost_source = "measured now at N = " + at + " in " + format_duration(took);
+    cal.put(key,
+            job.expression + " (" + e.path + ", " + std::to_string(options.threads) +
+                " BLAS thread(s))",
+            e.cost);
+    try {
+      cal.save();
+      e.cost_source += "; stored in " + cal_path;
+    } catch (const Error& err) {
+      e.warnings.push_back(std::string(err.what()) + "; the measurement is not kept");
+    }
+  }
+
+  // Memory per rank: the job's memory_per_rank, else this node's available memory shared by the
+  // ranks that would run on it (at most one per core).
+  if (job.memory_per_rank_bytes > 0) {
+    e.memory_limit = static_cast<std::size_t>(job.memory_per_rank_bytes);
+    e.memory_source = "memory_per_rank in the job";
+  } else {
+    const int local = std::min(options.ranks, online_cores());
+    e.memory_limit = available_memory_bytes() / static_cast<std::size_t>(local);
+    e.memory_source =
+        "this node's available memory shared by " + std::to_string(local) + " rank(s)";
+  }
+
+  std::vector<double> unit_seconds;
+  for (std::size_t i = 0; i < job.sizes.size(); ++i) {
+    SizeEstimate s;
+    s.n = job.sizes[i];
+    s.trials = job.trials[i];
+    s.seconds_per_trial = e.cost.predict(s.n);
+    s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
+    s.peak_bytes = run::estimate_peak_bytes(runners[i]);
+    s.output_bytes = output_bytes(job, i);
+    s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
+    if (!s.fits) {
+      e.warnings.push_back(
+          "N = " + std::to_string(s.n) + " needs about " +
+          human_bytes(static_cast<double>(s.peak_bytes)) + " per rank (estimate), more than the " +
+          human_bytes(static_cast<double>(e.memory_limit)) + " from " + e.memory_source +
+          "; freegap run will refuse it: remove the size, run fewer ranks per node, or "
+          "raise memory_per_rank where the node has the memory");
+    }
+    e.core_hours += s.core_hours;
+    e.output_bytes += s.output_bytes;
+    for (std::int64_t u = 0; u * job.trials_per_unit < s.trials; ++u) {
+      const auto in_unit = std::min(job.trials_per_unit, s.trials - u * job.trials_per_unit);
+      unit_seconds.push_back(static_cast<double>(in_unit) * s.seconds_per_trial +
+                             0.002);  // + commit
+    }
+    e.sizes.push_back(s);
+  }
+  e.output_bytes += 64 * 1024;  // root attributes, job text, provenance sessions
+  e.units = unit_seconds.size();
+  e.wall_seconds = simulate_wall(unit_seconds, options.ranks);
+  if (options.deadline_seconds > 0) {
+    // The fewest ranks whose wall time with a 25 % margin fits the deadline. Beyond one rank per
+    // unit nothing gets faster.
+    constexpr double kMargin = 1.25;
+    const int most = static_cast<int>(std::max<std::size_t>(1, unit_seconds.size()));
+    int lo = 1, hi = most;
+    if (simulate_wall(unit_seconds, hi) * kMargin <= options.deadline_seconds) {
+      while (lo < hi) {  // wall time does not increase with ranks (largest-first list scheduling)
+        const int mid = lo + (hi - lo) / 2;
+        if (simulate_wall(unit_seconds, mid) * kMargin <= options.deadline_seconds)
+          hi = mid;
+        else
+          lo = mid + 1;
+      }
+      e.suggested_ranks = lo;
+      e.suggested_run_seconds = simulate_wall(unit_seconds, lo);
+      e.suggested_wall_seconds =
+          std::min(options.deadline_seconds, e.suggested_run_seconds * kMargin + 60.0);
+    } else {
+      const double longest = *std::max_element(unit_seconds.begin(), unit_seconds.end());
+      e.warnings.push_back("the job cannot finish within " +
+                           format_duration(options.deadline_seconds) +
+                           " on any number of ranks: its longest unit alone takes about " +
+                           format_duration(longest) +
+                           "; run it in several jobs that resume (freegap run --stop-before, "
+                           "jobs/slurm/long-run.sbatch) or "
+                           "lower trials_per_unit");
+    }
+  }
+  return e;
+}
+
+std::string format(const Estimate& e) {
+  std::ostringstream out;
+  char line[256];
+  out << "job:          " << e.job_path << "\n";
+  out << "expression:   " << e.expression << " (" << e.path << " path)\n";
+  out << "ranks:        " << e.options.ranks << " × " << e.options.threads << " BLAS thread(s)\n";
+  out << "cost model:   t(N) = " << e.cost.formula() << " per trial, " << e.cost_source << "\n";
+  out << "memory/rank:  "
+      << (e.memory_limit ? human_bytes(static_cast<double>(e.memory_limit))
+                         : std::string("unknown"))
+      << " (" << e.memory_source << ")\n\n";
+  std::snprintf(line, sizeof line, "%10s %10s %12s %12s %12s %12s\n", "N", "trials", "s/trial",
+                "core-hours", "peak/rank", "output");
+  out << line;
+  for (const auto& s : e.sizes) {
+    std::snprintf(
+        line, sizeof line, "%10lld %10lld %12.4g %12.4g %12s %12s%s\n", static_cast<long long>(s.n),
+        static_cast<long long>(s.trials), s.seconds_per_trial, s.core_hours,
+        human_bytes(static_cast<double>(s.peak_bytes)).c_str(),
+        human_bytes(static_cast<double>(s.output_bytes)).c_str(), s.fits ? "" : "  does not fit");
+    out << line;
+  }
+  std::snprintf(line, sizeof line,
+                "\ntotal:        %.4g core-hours in %zu units; run file about %s\n", e.core_hours,
+                e.units, human_bytes(static_cast<double>(e.output_bytes)).c_str());
+  out << line;
+  out << "wall time:    about " << format_duration(e.wall_seconds) << " on " << e.options.ranks
+      << " rank(s) (units largest first, one rank per core)\n";
+  if (e.options.deadline_seconds > 0) {
+    out << "deadline:     " << format_duration(e.options.deadline_seconds) << ": ";
+    if (e.suggested_ranks > 0) {
+      out << e.suggested_ranks << " rank(s), about " << format_duration(e.suggested_run_seconds)
+          << "; request " << slurm_time(e.suggested_wall_seconds)
+          << " (sbatch --ntasks=" << e.suggested_ranks
+          << " --time=" << slurm_time(e.suggested_wall_seconds) << ")\n";
+    } else {
+      out << "not reachable (see the warning)\n";
+    }
+  }
+  for (const auto& w : e.warnings) out << "warning:      " << w << "\n";
+  out << "\nThese are estimates from a short measurement on this machine; other nodes, other load "
+         "and\n"
+         "the site's scheduling policies and limits decide the real costs.\n";
+  return out.str();
+}
+
+}  // namespace freegap::plan

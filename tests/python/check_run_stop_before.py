@@ -1,0 +1,105 @@
+#!/usr/bin/env python3
+"""`freegap run --stop-before DURATION` and SLURM_JOB_END_TIME: no unit is started that would not
+finish in time; the run commits, exits 3 and resumes to the same file.
+
+Usage: check_run_stop_before.py BUILD_DIR
+
+1. Reference: the job (about 6 s of one core, units of about 0.3 s) run uninterrupted.
+2. --stop-before 3s, one process: exit 3, the deadline message on stderr, some but not all units
+   committed, the session "interrupted", and the committed units' own seconds add up to no more
+   than the 3 s plus one unit (a unit is started only if its predicted end is within the limit;
+   the prediction is the slowest unit so far). Resumed without a limit: equal to the reference.
+3. The same under mpirun -np 2 (rank 0 decides for every rank).
+4. SLURM_JOB_END_TIME = now + 60 s + 3 s (freegap keeps 60 s before the scheduler's end): the
+   same stop. Resumed: equal to the reference.
+5. --stop-before 1h changes nothing: exit 0, equal to the reference.
+"""
+import os
+import sys
+import time
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import runhelp as rh  # noqa: E402
+
+import h5py  # noqa: E402
+
+# A scenario of our own: a ±1 signal mixed with a rotated copy, many small units.
+JOB = """\
+name = "deadline test"
+seed = 99
+sizes = [150, 300]
+trials = [16, 64]
+expression = "B + U B U^*"
+
+[matrices.B]
+ensemble = "diagonal"
+atoms = [[1.0, 0.5], [-1.0, 0.5]]
+
+[matrices.U]
+ensemble = "haar_unitary"
+
+[observe]
+bins = 40
+max_moment = 4
+
+[run]
+trials_per_unit = 4
+"""
+
+MESSAGE = ("freegap: stopped before the deadline: the next unit would not finish in time; "
+           "committed units are in '%s'; run the same command again to resume")
+
+
+def unit_seconds(path):
+    with h5py.File(path, "r") as f:
+        units = f["provenance/units"][:]
+        return [(int(u["rank"]), float(u["seconds"])) for u in units]
+
+
+def stopped(c, exe, d, label, out, args, ranks=None, env=None, limit=3.0):
+    p = rh.run(rh.command(exe, ["run", "job.toml", "-o", out, "--quiet"] + args, ranks), d, env=env)
+    c.equal(p.returncode, rh.EXIT_RESUMABLE, "%s: exit status 3 (resumable)" % label)
+    c.check((MESSAGE % out) in p.stderr.splitlines(), "%s: stderr says it stopped before the deadline" % label,
+            p.stderr)
+    path = os.path.join(d, out)
+    done = rh.committed_state(path)
+    c.check(done is not None and 1 <= done[0] < done[1],
+            "%s: some but not all units committed (%s)" % (label, done))
+    c.equal([s["status"] for s in rh.sessions(path)], ["interrupted"], "%s: the session is interrupted" % label)
+    per_rank = {}
+    for rank, s in unit_seconds(path):
+        per_rank.setdefault(rank, []).append(s)
+    longest = max(max(v) for v in per_rank.values())
+    busiest = max(sum(v) for v in per_rank.values())
+    print("  -- %s: %s units committed; per-rank work %.2f s; longest unit %.2f s" %
+          (label, done, busiest, longest))
+    c.check(busiest <= limit + longest,
+            "%s: each rank's committed work (%.2f s) is within the limit plus one unit (%.1f + %.2f s)" %
+            (label, busiest, limit, longest))
+    p = rh.run(rh.command(exe, ["run", "job.toml", "-o", out, "--quiet"], ranks), d)
+    c.equal(p.returncode, 0, "%s: the same command without a limit resumes and exits 0" % label)
+    rc, diff = rh.h5diff(os.path.join(d, "reference.h5"), path)
+    c.check(rc == 0, "%s: the resumed file equals the uninterrupted run outside /provenance" % label, diff[-1500:])
+
+
+def main():
+    exe = rh.freegap_exe(sys.argv)
+    c = rh.Checks("run --stop-before and the scheduler's end time")
+    with rh.WorkDir("stop-before") as d:
+        rh.write(os.path.join(d, "job.toml"), JOB)
+        p = rh.run([exe, "run", "job.toml", "-o", "reference.h5", "--quiet"], d)
+        c.equal(p.returncode, 0, "uninterrupted reference run exits 0")
+        stopped(c, exe, d, "--stop-before 3s", "one.h5", ["--stop-before", "3s"])
+        stopped(c, exe, d, "--stop-before 3s on 2 ranks", "two.h5", ["--stop-before", "3s"], ranks=2)
+        end = int(time.time()) + 60 + 3
+        stopped(c, exe, d, "SLURM_JOB_END_TIME in 63 s", "slurm.h5", [],
+                env=rh.child_env(SLURM_JOB_END_TIME=str(end)), limit=3.0 + 1.0)
+        p = rh.run([exe, "run", "job.toml", "-o", "long.h5", "--quiet", "--stop-before", "1h"], d)
+        c.equal(p.returncode, 0, "--stop-before 1h: the run finishes (exit 0)")
+        rc, diff = rh.h5diff(os.path.join(d, "reference.h5"), os.path.join(d, "long.h5"))
+        c.check(rc == 0, "--stop-before 1h: equal to the reference outside /provenance", diff[-1500:])
+    c.finish()
+
+
+if __name__ == "__main__":
+    main()
