@@ -4,12 +4,13 @@ finish in time; the run commits, exits 3 and resumes to the same file.
 
 Usage: check_run_stop_before.py BUILD_DIR
 
-1. Reference: the job (about 6 s of one core, units of about 0.3 s) run uninterrupted.
-2. --stop-before 3s, one process: exit 3, the deadline message on stderr, some but not all units
+1. Reference: the job (a few seconds of one core, many short units) run uninterrupted.
+2. --stop-before L (L = 40 % of the reference's work, between 1 and 3 s), one process: exit 3, the deadline message on stderr, some but not all units
    committed, the session "interrupted", and the committed units' own seconds add up to no more
-   than the 3 s plus one unit (a unit is started only if its predicted end is within the limit;
+   than L plus one unit (a unit is started only if its predicted end is within the limit;
    the prediction is the slowest unit so far). Resumed without a limit: equal to the reference.
-3. The same under mpirun -np 2 (rank 0 decides for every rank).
+3. The same under mpirun -np 2 with L = 20 % of the reference's work (rank 0 decides for every
+   rank).
 4. SLURM_JOB_END_TIME = now + 60 s + 3 s (freegap keeps 60 s before the scheduler's end): the
    same stop. Resumed: equal to the reference.
 5. --stop-before 1h changes nothing: exit 0, equal to the reference.
@@ -28,7 +29,7 @@ JOB = """\
 name = "deadline test"
 seed = 99
 sizes = [150, 300]
-trials = [16, 64]
+trials = [32, 160]
 expression = "B + U B U^*"
 
 [matrices.B]
@@ -89,8 +90,17 @@ def main():
         rh.write(os.path.join(d, "job.toml"), JOB)
         p = rh.run([exe, "run", "job.toml", "-o", "reference.h5", "--quiet"], d)
         c.equal(p.returncode, 0, "uninterrupted reference run exits 0")
-        stopped(c, exe, d, "--stop-before 3s", "one.h5", ["--stop-before", "3s"])
-        stopped(c, exe, d, "--stop-before 3s on 2 ranks", "two.h5", ["--stop-before", "3s"], ranks=2)
+        # The limits are fractions of the reference's own work W (the sum of its units' seconds),
+        # so that a limit always cuts the run short however fast or loaded the machine is: one
+        # process needs about W, two ranks about W/2 (at least W/4 even if the machine gets twice
+        # as fast between the reference and the test run).
+        work = sum(s for _, s in unit_seconds(os.path.join(d, "reference.h5")))
+        one = min(3.0, max(1.0, 0.4 * work))
+        two = min(3.0, max(0.8, 0.2 * work))
+        print("  -- reference work %.2f s; limits %.2f s (1 process), %.2f s (2 ranks)" % (work, one, two))
+        stopped(c, exe, d, "--stop-before %.2fs" % one, "one.h5", ["--stop-before", "%.2fs" % one], limit=one)
+        stopped(c, exe, d, "--stop-before %.2fs on 2 ranks" % two, "two.h5", ["--stop-before", "%.2fs" % two],
+                ranks=2, limit=two)
         end = int(time.time()) + 60 + 3
         stopped(c, exe, d, "SLURM_JOB_END_TIME in 63 s", "slurm.h5", [],
                 env=rh.child_env(SLURM_JOB_END_TIME=str(end)), limit=3.0 + 1.0)
