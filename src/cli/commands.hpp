@@ -15,5 +15,6 @@ struct Subcommand {
 
 // One line per subcommand file, each defined in src/cli/<name>.cpp; main() calls them in the order
 // they are listed in main() (the order of `--help`).
+Subcommand add_limit_command(CLI::App& app);  // src/cli/limit.cpp
 
 }  // namespace freegap::cli

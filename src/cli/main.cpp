@@ -208,6 +208,7 @@ int main(int argc, char** argv) {
 
   // Subcommands in files of their own (commands.hpp).
   std::vector<freegap::cli::Subcommand> extra;
+  extra.push_back(freegap::cli::add_limit_command(app));
 
   // An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
   // subcommand is required).

@@ -182,7 +182,7 @@ def cases(good_hash, other_hash, template):
              expect="--progress-every: must be a positive number of seconds (got -1)\n"
                     "Run with --help for more information.\n"),
         dict(name="unknown subcommand", files={"job.toml": GOOD}, args=["frobnicate", "job.toml"],
-             expect="freegap: unknown command 'frobnicate'; the commands are sample, run, inspect "
+             expect="freegap: unknown command 'frobnicate'; the commands are sample, run, inspect, limit "
                     "(see freegap --help)\n"),
         dict(name="--threads 2 with complex singular values", files={"job.toml": COMPLEX_SVD},
              args=["run", "job.toml", "--threads", "2"] + run_out,
