@@ -204,7 +204,9 @@ struct PencilBuilder {
     int r, c, letter;
     std::complex<double> value;
   };
-  void add(int r, int c, int letter, std::complex<double> value) { entries_.push_back({r, c, letter, value}); }
+  void add(int r, int c, int letter, std::complex<double> value) {
+    entries_.push_back({r, c, letter, value});
+  }
   int grow(int rows) {
     const int start = size_;
     size_ += rows;

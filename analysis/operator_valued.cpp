@@ -103,8 +103,8 @@ Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega) const {
       phi(k) = a * (a * G - 1.0);
     }
   }
-  const Matrix T =
-      W * phi.asDiagonal() * W.partialPivLu().solve(g.eigen.cast<cd>().asDiagonal().toDenseMatrix());
+  const Matrix T = W * phi.asDiagonal() *
+                   W.partialPivLu().solve(g.eigen.cast<cd>().asDiagonal().toDenseMatrix());
   return A + AE * T * EA;
 }
 

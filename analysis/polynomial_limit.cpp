@@ -133,8 +133,8 @@ bool real_branch(const Eigen::MatrixXcd& G) {
 double find_edge(const OperatorValuedSolver& solver, double from, double direction, double scale,
                  const PolynomialLimitOptions& options) {
   State state;
-  SolveReport first = solve_chain(solver, cd(from, 0.05 * scale), 0.0, scale, options, state,
-                                  false);
+  SolveReport first =
+      solve_chain(solver, cd(from, 0.05 * scale), 0.0, scale, options, state, false);
   if (!first.converged) {
     throw NumericalError("polynomial limit: no solution beyond the norm bound at " +
                          detail::format_number(from));
@@ -291,9 +291,9 @@ std::vector<double> PolynomialLaw::solver_moments(int k) const {
     const cd z = c + R * e;
     const SolveReport r = solve_chain(*solver_, z, 0.0, scale_, options_, state, warm);
     if (!r.converged) {
-      throw NumericalError("polynomial limit: no convergence at z = " +
-                           detail::format_number(z.real()) + "+" +
-                           detail::format_number(z.imag()) + "i for the moments");
+      throw NumericalError(
+          "polynomial limit: no convergence at z = " + detail::format_number(z.real()) + "+" +
+          detail::format_number(z.imag()) + "i for the moments");
     }
     warm = true;
     cd power = 1.0;
@@ -342,7 +342,8 @@ void PolynomialLaw::build_table() const {
     for (int q = 0; q < kPanelNodes; ++q) {
       sum += rule.weights[q] * panel_integrand_[p * kPanelNodes + q];
     }
-    panel_cumulative_[p + 1] = panel_cumulative_[p] + 0.5 * (panel_theta_[p + 1] - panel_theta_[p]) * sum;
+    panel_cumulative_[p + 1] =
+        panel_cumulative_[p] + 0.5 * (panel_theta_[p + 1] - panel_theta_[p]) * sum;
   }
   mass_ = panel_cumulative_[P];
 }
@@ -390,8 +391,8 @@ std::string PolynomialLaw::describe() const {
   }
   return "limit of '" + polynomial_.text + "' in free " + letters + " (linearization, pencil " +
          std::to_string(pencil_.size) + "×" + std::to_string(pencil_.size) +
-         "; operator-valued subordination), support [" + detail::format_number(support_.lo) +
-         ", " + detail::format_number(support_.hi) + "]";
+         "; operator-valued subordination), support [" + detail::format_number(support_.lo) + ", " +
+         detail::format_number(support_.hi) + "]";
 }
 
 std::shared_ptr<const PolynomialLaw> polynomial_limit(const expr::Expression& e,

@@ -95,9 +95,10 @@ int run_limit(const LimitOptions& opt) {
   for (double x : failed) std::printf("  not converged at x = %.10g (no value reported)\n", x);
   const double mass = law->continuous_mass();
   if (std::abs(mass - 1.0) > 1e-4) {
-    std::printf("note: the density integrates to %.6f; the remaining mass %.6f sits in atoms this "
-                "solver does not locate, so the CDF counts only the continuous part\n",
-                mass, 1.0 - mass);
+    std::printf(
+        "note: the density integrates to %.6f; the remaining mass %.6f sits in atoms this "
+        "solver does not locate, so the CDF counts only the continuous part\n",
+        mass, 1.0 - mass);
   }
 
   if (opt.output.empty()) return 0;
@@ -105,7 +106,8 @@ int run_limit(const LimitOptions& opt) {
   const fs::path dir(opt.output);
   std::error_code ec;
   fs::create_directories(dir, ec);
-  if (ec) throw InputError("-o " + opt.output + ": cannot create the directory (" + ec.message() + ")");
+  if (ec)
+    throw InputError("-o " + opt.output + ": cannot create the directory (" + ec.message() + ")");
   const fs::path csv = dir / "limit.csv";
   const fs::path partial = dir / "limit.csv.partial";
   {
@@ -134,9 +136,10 @@ int run_limit(const LimitOptions& opt) {
     std::printf("wrote %s and %s\n", (dir / "limit.png").string().c_str(),
                 (dir / "limit.svg").string().c_str());
   } else {
-    std::printf("note: no figures (the plot script %s failed; it needs /usr/bin/python3 with "
-                "matplotlib: apt-get install python3-matplotlib); the CSV is complete\n",
-                script.c_str());
+    std::printf(
+        "note: no figures (the plot script %s failed; it needs /usr/bin/python3 with "
+        "matplotlib: apt-get install python3-matplotlib); the CSV is complete\n",
+        script.c_str());
   }
   return 0;
 }

@@ -65,12 +65,8 @@ fa::FreePolynomial commutator() {
 // Anticommutator density values of reference §1.8 [computed independently there from the cubic
 // z G³ + G² − z G + 1 = 0; law of Nica & Speicher 1998].
 const std::vector<std::pair<double, double>> kAnticommutator = {
-    {0.0, 1.0 / kPi},
-    {0.5, 0.255365556906527},
-    {1.0, 0.192988333008231},
-    {2.0, 0.113905759864852},
-    {3.0, 0.048137434405276},
-    {3.3, 0.0139806844807352}};
+    {0.0, 1.0 / kPi},         {0.5, 0.255365556906527}, {1.0, 0.192988333008231},
+    {2.0, 0.113905759864852}, {3.0, 0.048137434405276}, {3.3, 0.0139806844807352}};
 constexpr double kAnticommutatorEdge = 3.33019067678556;  // φ^{5/2}, reference §1.8
 
 }  // namespace
@@ -91,7 +87,8 @@ TEST(Pencil, CornerOfTheInverseIsTheResolvent) {
       {"X1^2 + X2", {"X1=gue", "X2=gue"}, 2},
       {"X1 B X1 + B", {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}, 3},
       {"2 X1 X2 X3 X2 + 2 X2 X3 X2 X1 - X1^4 + 0.5 X3 X1 X3 - X2 + 3",
-       {"X1=gue", "X2=gue", "X3=gue"}, 1 + 6 + 3 + 2},
+       {"X1=gue", "X2=gue", "X3=gue"},
+       1 + 6 + 3 + 2},
       {"B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"}, 1},
   };
   std::mt19937_64 gen(20240611);
@@ -181,8 +178,8 @@ TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
   // MP(1) ⊠ μ_B (Voiculescu 1987; A² is free Poisson(1), reference §1.6): compared with the
   // analysis issue's ⊠ by multiplicative subordination (Belinschi & Bercovici 2007).
   const auto law = law_of("A B A", {"A=gue", "B=diagonal:atoms=1@0.5,3@0.5"});
-  const auto product = fa::free_multiplicative(fa::marchenko_pastur(1.0),
-                                               fa::atoms({{1.0, 0.5}, {3.0, 0.5}}));
+  const auto product =
+      fa::free_multiplicative(fa::marchenko_pastur(1.0), fa::atoms({{1.0, 0.5}, {3.0, 0.5}}));
   EXPECT_NEAR(law->support().hi, product->support().hi, 1e-6);
   for (double x : {0.2, 1.0, 2.0, 4.0, 7.0}) {
     EXPECT_NEAR(law->density(x), product->density(x), 1e-6) << x;
@@ -197,8 +194,7 @@ TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
 
 TEST(PolynomialLimit, HaarRotationOfBernoulliIsArcsine) {
   // B + U B U^* → (½δ₋₁+½δ₁)^{⊞2} = arcsine on [−2, 2] (reference §1.3; Nica & Speicher 2006).
-  const auto law =
-      law_of("B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"});
+  const auto law = law_of("B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"});
   EXPECT_EQ(law->polynomial().letters.size(), 2u);
   EXPECT_EQ(law->polynomial().letters[1].name, "U B U^*");
   EXPECT_NEAR(law->support().hi, 2.0, 1e-6);
@@ -242,8 +238,7 @@ TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {
     const auto solver = law->solver_moments(6);
     for (int k = 0; k <= 6; ++k) {
       const double exact = law->exact_moments()[k];
-      EXPECT_NEAR(solver[k], exact, 1e-8 * std::max(1.0, std::abs(exact)))
-          << c.text << ": m_" << k;
+      EXPECT_NEAR(solver[k], exact, 1e-8 * std::max(1.0, std::abs(exact))) << c.text << ": m_" << k;
     }
   }
 }

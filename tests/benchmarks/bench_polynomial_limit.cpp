@@ -76,7 +76,11 @@ void BM_PolynomialLimitDensity400(benchmark::State& state) {
   state.counters["converged"] = converged;
   state.SetLabel(m.expression);
 }
-BENCHMARK(BM_PolynomialLimitDensity400)->Arg(0)->Arg(1)->Unit(benchmark::kMillisecond)->Iterations(3);
+BENCHMARK(BM_PolynomialLimitDensity400)
+    ->Arg(0)
+    ->Arg(1)
+    ->Unit(benchmark::kMillisecond)
+    ->Iterations(3);
 
 }  // namespace
 

@@ -167,7 +167,7 @@ class PolynomialLaw final : public Law {
   Support support_;
   double scale_ = 1.0;
   mutable std::once_flag table_once_;
-  mutable std::vector<double> panel_theta_;      // panel boundaries in θ, x = lo + w(1 − cos θ)/2
+  mutable std::vector<double> panel_theta_;  // panel boundaries in θ, x = lo + w(1 − cos θ)/2
   mutable std::vector<double> panel_integrand_;  // density·dx/dθ at the 8 nodes of each panel
   mutable std::vector<double> panel_cumulative_;
   mutable double mass_ = 1.0;
