@@ -205,6 +205,28 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
   const double from = bound * 1.05 + 0.05 * scale_;
   support_.hi = find_edge(*solver_, from, -1.0, scale_, options_);
   support_.lo = find_edge(*solver_, -from, 1.0, scale_, options_);
+  // A point mass sits, in the cases we meet (a factor with an atom at 0, e.g. X B X with B
+  // singular), at the constant term c_0 of P. Its mass is lim_{ε↓0} Re[iε G(c_0 + iε)] (Stieltjes
+  // inversion at an atom, standard); it is accepted when two distances to the axis agree, which a
+  // merely singular density (iεG ~ ε^{1−α} for f ~ |x − c_0|^{−α}) does not.
+  double c0 = 0.0;
+  for (const auto& t : polynomial_.terms) {
+    if (t.word.empty()) c0 += t.coefficient.real();
+  }
+  const double width = support_.hi - support_.lo;
+  if (c0 >= support_.lo - 1e-9 * width && c0 <= support_.hi + 1e-9 * width) {
+    double masses[2] = {0.0, 0.0};
+    const double distances[2] = {1e-4 * scale_, 1e-6 * scale_};
+    for (int i = 0; i < 2; ++i) {
+      State state;
+      const SolveReport r =
+          solve_chain(*solver_, cd(c0, distances[i]), 0.0, scale_, options_, state, false);
+      masses[i] = r.converged ? (cd(0.0, distances[i]) * r.cauchy).real() : 0.0;
+    }
+    if (masses[1] > 1e-6 && std::abs(masses[0] - masses[1]) < 1e-3 * masses[1]) {
+      support_.atoms.push_back({c0, masses[1]});
+    }
+  }
 }
 
 PolynomialLaw::~PolynomialLaw() = default;
@@ -320,9 +342,33 @@ void PolynomialLaw::build_table() const {
   const auto& rule = detail::gauss_legendre(kPanelNodes);
   panel_theta_.resize(P + 1);
   for (int p = 0; p <= P; ++p) panel_theta_[p] = kPi * p / P;
+  // The constant term c_0 is where an interior singularity of the density sits in the cases we
+  // meet (A B A at 0, f ~ |x|^{−1/3}); as a panel end it is integrated well by Gauss–Legendre.
+  double c0 = 0.0;
+  for (const auto& t : polynomial_.terms) {
+    if (t.word.empty()) c0 += t.coefficient.real();
+  }
+  if (c0 > support_.lo + 1e-6 * w && c0 < support_.hi - 1e-6 * w) {
+    const double t0 = std::acos(std::clamp(1.0 - 2.0 * (c0 - lo) / w, -1.0, 1.0));
+    // Panels graded geometrically towards t0 (5 halvings on each side), so that a singularity
+    // there leaves only a tiny mass in the panels that touch it.
+    const double h = kPi / P;
+    for (int k = 0; k <= 5; ++k) {
+      for (double side : {-1.0, 1.0}) {
+        const double t = t0 + side * h * std::ldexp(1.0, -k);
+        if (t > 0.0 && t < kPi) panel_theta_.push_back(t);
+      }
+    }
+    panel_theta_.push_back(t0);
+    std::sort(panel_theta_.begin(), panel_theta_.end());
+    panel_theta_.erase(std::unique(panel_theta_.begin(), panel_theta_.end(),
+                                   [](double a, double b) { return std::abs(a - b) < 1e-12; }),
+                       panel_theta_.end());
+  }
+  const int panels = static_cast<int>(panel_theta_.size()) - 1;
   std::vector<double> xs;
   std::vector<double> jac;
-  for (int p = 0; p < P; ++p) {
+  for (int p = 0; p < panels; ++p) {
     const double a = panel_theta_[p], b = panel_theta_[p + 1];
     for (int q = 0; q < kPanelNodes; ++q) {
       const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[q];
@@ -336,8 +382,8 @@ void PolynomialLaw::build_table() const {
     // A node the solver could not settle (only ever within ~1e−8 of an edge) counts as 0.
     panel_integrand_[i] = ds[i].converged ? ds[i].density * jac[i] : 0.0;
   }
-  panel_cumulative_.assign(P + 1, 0.0);
-  for (int p = 0; p < P; ++p) {
+  panel_cumulative_.assign(panels + 1, 0.0);
+  for (int p = 0; p < panels; ++p) {
     double sum = 0.0;
     for (int q = 0; q < kPanelNodes; ++q) {
       sum += rule.weights[q] * panel_integrand_[p * kPanelNodes + q];
@@ -345,7 +391,7 @@ void PolynomialLaw::build_table() const {
     panel_cumulative_[p + 1] =
         panel_cumulative_[p] + 0.5 * (panel_theta_[p + 1] - panel_theta_[p]) * sum;
   }
-  mass_ = panel_cumulative_[P];
+  mass_ = panel_cumulative_[panels];
 }
 
 double PolynomialLaw::continuous_mass() const {
@@ -360,7 +406,11 @@ double PolynomialLaw::cdf(double x) const {
   const double w = support_.hi - support_.lo;
   const double theta = std::acos(std::clamp(1.0 - 2.0 * (x - support_.lo) / w, -1.0, 1.0));
   const int P = static_cast<int>(panel_theta_.size()) - 1;
-  const int p = std::clamp(static_cast<int>(theta / kPi * P), 0, P - 1);
+  const int p = std::clamp(
+      static_cast<int>(std::upper_bound(panel_theta_.begin(), panel_theta_.end(), theta) -
+                       panel_theta_.begin()) -
+          1,
+      0, P - 1);
   const double a = panel_theta_[p], b = panel_theta_[p + 1];
   const auto& rule = detail::gauss_legendre(kPanelNodes);
   // ∫_a^θ of the degree-7 interpolant through the panel's nodes (Lagrange form), by the same rule.
@@ -380,7 +430,11 @@ double PolynomialLaw::cdf(double x) const {
     partial += rule.weights[r] * value;
   }
   partial *= 0.5 * (theta - a);
-  return std::clamp(panel_cumulative_[p] + partial, 0.0, 1.0);
+  double atoms = 0.0;
+  for (const Atom& a : support_.atoms) {
+    if (a.value <= x) atoms += a.mass;
+  }
+  return std::clamp(panel_cumulative_[p] + partial + atoms, 0.0, 1.0);
 }
 
 std::string PolynomialLaw::describe() const {

@@ -93,11 +93,16 @@ int run_limit(const LimitOptions& opt) {
   std::printf("density grid: %d points, %d converged; iterations per point: mean %.1f, max %lld\n",
               opt.points, converged, static_cast<double>(steps) / opt.points, worst);
   for (double x : failed) std::printf("  not converged at x = %.10g (no value reported)\n", x);
-  const double mass = law->continuous_mass();
+  double mass = law->continuous_mass();
+  for (const auto& a : support.atoms) {
+    std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
+    mass += a.mass;
+  }
   if (std::abs(mass - 1.0) > 1e-4) {
     std::printf(
-        "note: the density integrates to %.6f; the remaining mass %.6f sits in atoms this "
-        "solver does not locate, so the CDF counts only the continuous part\n",
+        "note: the density and the point masses found add up to %.6f; the remaining %.6f is "
+        "in point masses this solver does not locate or is lost near a singularity of the "
+        "density, and the CDF misses it\n",
         mass, 1.0 - mass);
   }
 

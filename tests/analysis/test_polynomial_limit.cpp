@@ -210,6 +210,24 @@ TEST(PolynomialLimit, HaarRotationOfBernoulliIsArcsine) {
   EXPECT_NEAR(law->cdf(std::sqrt(3.0)), 5.0 / 6.0, 1e-6);
 }
 
+TEST(PolynomialLimit, PointMassAtTheConstantTerm) {
+  // X B X with B = diag(0 × N/2, 1 × N/2) has rank N/2, so its law has the atom ½δ_0 (elementary);
+  // the rest is continuous, and the CDF jumps by ½ at 0.
+  const auto law = law_of("X B X", {"X=gue", "B=diagonal:atoms=0@0.5,1@0.5"});
+  ASSERT_EQ(law->support().atoms.size(), 1u);
+  EXPECT_EQ(law->support().atoms[0].value, 0.0);
+  EXPECT_NEAR(law->support().atoms[0].mass, 0.5, 1e-6);
+  // The density table next to an atom at the support's edge is accurate to a few 1e−4 only (the
+  // atom's Lorentzian tail at the final distance to the axis and the singular density there).
+  EXPECT_NEAR(law->continuous_mass(), 0.5, 1e-3);
+  EXPECT_NEAR(law->cdf(1e-9), 0.5, 1e-3);
+  // No atom where the density is merely singular: A B A with B = ±1, f ~ |x|^{−1/3} at 0; the
+  // table graded towards 0 still integrates it to 1 within 1e−3.
+  const auto aba = law_of("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"});
+  EXPECT_TRUE(aba->support().atoms.empty());
+  EXPECT_NEAR(aba->continuous_mass(), 1.0, 1e-3);
+}
+
 // ---------------------------------------------------------------------------------------------
 // The solver's moments against the exact free-cumulant engine (Nica & Speicher 2006, reference §4e)
 

@@ -155,6 +155,8 @@ class PolynomialLaw final : public Law {
   const Pencil& pencil() const { return pencil_; }
   const FreePolynomial& polynomial() const { return polynomial_; }
   /// Mass of the continuous part found by integrating the density (1 when there are no atoms).
+  /// The atom found (support().atoms) is a point mass at the constant term of P, if any; other
+  /// point masses are not located, and then continuous_mass() + Σ atoms < 1 says so.
   double continuous_mass() const;
 
  private:
