@@ -9,6 +9,7 @@
 #include "freegap/analysis/free_convolution.hpp"
 #include "freegap/analysis/limit.hpp"
 #include "freegap/analysis/moments.hpp"
+#include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
 #include "laws_quadrature.hpp"
@@ -231,7 +232,7 @@ expr::Expression run_expression(const store::RunHeader& header) {
   return expr::Expression(job.expression, job.matrices, check);
 }
 
-DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
+static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_moment) {
   DerivedLimit out;
   const auto& d = expression.declared();
   const bool eigenvalues = expression.spectrum() == expr::Spectrum::eigenvalues;
@@ -400,6 +401,28 @@ DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
     const bool orth = std::any_of(free_terms.begin(), free_terms.end(),
                                   [](const FreeTerm& t) { return t.haar_orthogonal; });
     out.rate_key = orth ? "haar_orthogonal_sum" : "haar_unitary_sum";
+  }
+  return out;
+}
+
+DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
+  DerivedLimit out = derive_by_rules(expression, max_moment);
+  if (out.law || expression.spectrum() != expr::Spectrum::eigenvalues || !expression.self_adjoint()) {
+    return out;
+  }
+  // No closed-form rule: the general solver for self-adjoint polynomials in free variables.
+  try {
+    PolynomialLimitOptions options;
+    options.exact_moment_order = 0;  // the exact moments are computed above, independently
+    const auto law = polynomial_limit(expression, options);
+    out.rule = "linearization and operator-valued subordination (Anderson 2013; Helton, Rashidi "
+               "Far & Speicher 2007; Belinschi, Mai & Speicher 2017), pencil of size " +
+               std::to_string(law->pencil_size()) + "; no closed-form rule applies (" +
+               out.reason.substr(out.reason.rfind("yet: ") == std::string::npos ? 0 : out.reason.rfind("yet: ") + 5) + ")";
+    out.law = law;
+    out.reason.clear();
+  } catch (const Error& e) {
+    out.reason += "; the polynomial solver does not cover it either: " + std::string(e.what());
   }
   return out;
 }

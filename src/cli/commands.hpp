@@ -16,6 +16,7 @@ struct Subcommand {
 // One line per subcommand file, each defined in src/cli/<name>.cpp; main() calls them in the order
 // they are listed in main() (the order of `--help`).
 Subcommand add_report_command(CLI::App& app);
+Subcommand add_limit_command(CLI::App& app);
 Subcommand add_plan_command(CLI::App& app);
 Subcommand add_sweep_command(CLI::App& app);
 

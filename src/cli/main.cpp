@@ -214,6 +214,7 @@ int main(int argc, char** argv) {
   // Subcommands in files of their own (commands.hpp).
   std::vector<freegap::cli::Subcommand> extra;
   extra.push_back(freegap::cli::add_report_command(app));
+  extra.push_back(freegap::cli::add_limit_command(app));
   extra.push_back(freegap::cli::add_plan_command(app));
   extra.push_back(freegap::cli::add_sweep_command(app));
 

@@ -112,11 +112,12 @@ TEST(LimitOfRun, SandwichIsFreeMultiplicativeConvolution) {
   const auto d = derive({"A=gue", "D=diagonal:atoms=1@0.5,3@0.5"}, "A D A", 6);
   ASSERT_TRUE(d.law) << d.reason;
   expect_moments_agree(d, 1e-9);
-  // A B A with B = ±1: the middle factor is not ≥ 0; no predictor, but the exact moments 1, 3,
-  // 12, 55 of ref §1.6 (even orders) are still given.
+  // A B A with B = ±1: the middle factor is not ≥ 0, so no ⊠ rule; the polynomial solver gives
+  // the law with edge 3√3/2 (ref §1.6), beside the exact moments 1, 3, 12, 55 (even orders).
   const auto sign = derive({"A=gue", "B=diagonal:atoms=1@0.5,-1@0.5"}, "A B A", 8);
-  EXPECT_FALSE(sign.law);
-  EXPECT_NE(sign.reason.find("negative values"), std::string::npos) << sign.reason;
+  ASSERT_TRUE(sign.law) << sign.reason;
+  EXPECT_NE(sign.rule.find("negative values"), std::string::npos) << sign.rule;
+  EXPECT_NEAR(sign.law->support().hi, 1.5 * std::sqrt(3.0), 1e-6);
   EXPECT_EQ(sign.exact_moment_text[2], "1");
   EXPECT_EQ(sign.exact_moment_text[4], "3");
   EXPECT_EQ(sign.exact_moment_text[6], "12");
@@ -146,22 +147,29 @@ TEST(LimitOfRun, GinibreSingularValues) {
   for (double s : {0.3, 1.0, 1.7}) EXPECT_NEAR(root->cdf(s), one.law->cdf(s), 1e-12) << s;
 }
 
-TEST(LimitOfRun, SaysPlainlyWhenNoRuleApplies) {
-  // The anticommutator is for the polynomial solver; its exact moments 2, 10, 66 (ref §1.8) stay.
+TEST(LimitOfRun, OtherwiseThePolynomialSolverOrAPlainReason) {
+  // The anticommutator has no closed-form rule: the polynomial solver gives its law, support edge
+  // φ^(5/2) = 3.33019067678556 (ref §1.8), and the exact moments 2, 10, 66 stay beside it.
   const auto anti = derive({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1", 6);
-  EXPECT_FALSE(anti.law);
-  EXPECT_NE(anti.reason.find("no predictor applies yet"), std::string::npos);
+  ASSERT_TRUE(anti.law) << anti.reason;
+  EXPECT_NE(anti.rule.find("linearization"), std::string::npos) << anti.rule;
+  EXPECT_NEAR(anti.law->support().hi, 3.33019067678556, 1e-6);
   EXPECT_EQ(anti.exact_moment_text[2], "2");
   EXPECT_EQ(anti.exact_moment_text[4], "10");
   EXPECT_EQ(anti.exact_moment_text[6], "66");
-  // The same GUE in two terms: the terms are not free.
+  // The same GUE in two terms, once rotated by an independent Haar unitary: the rules do not take
+  // it, but X and U X U^* are asymptotically free (Voiculescu 1991), and the solver gives
+  // semicircle ⊞ semicircle = the semicircle of variance 2, edge 2√2.
   const auto twice = derive({"X=gue", "U=haar_unitary"}, "X + U X U^*");
-  EXPECT_FALSE(twice.law);
-  EXPECT_NE(twice.reason.find("more than one term"), std::string::npos) << twice.reason;
+  ASSERT_TRUE(twice.law) << twice.reason;
+  EXPECT_NE(twice.rule.find("more than one term"), std::string::npos) << twice.rule;
+  EXPECT_NEAR(twice.law->support().hi, 2.0 * std::sqrt(2.0), 1e-6);
   // Two deterministic matrices commute: not free.
   const auto fixed = derive({"A=diagonal:atoms=1@0.5,-1@0.5", "B=diagonal:atoms=2@0.5,0@0.5"}, "A + B");
   EXPECT_FALSE(fixed.law);
   EXPECT_NE(fixed.reason.find("commuting"), std::string::npos) << fixed.reason;
+  EXPECT_NE(fixed.reason.find("the polynomial solver does not cover it either"), std::string::npos)
+      << fixed.reason;
   // A unitary alone.
   EXPECT_FALSE(derive({"U=haar_unitary", "B=diagonal:atoms=1@1"}, "U B U^* + U").law);
 }

@@ -183,7 +183,7 @@ def cases(good_hash, other_hash, template):
                     "Run with --help for more information.\n"),
         dict(name="unknown subcommand", files={"job.toml": GOOD}, args=["frobnicate", "job.toml"],
              expect="freegap: unknown command 'frobnicate'; the commands are sample, run, inspect, "
-                    "report, plan, sweep (see freegap --help)\n"),
+                    "report, limit, plan, sweep (see freegap --help)\n"),
         dict(name="--stop-before with units out of order", files={"job.toml": GOOD},
              args=["run", "job.toml", "--stop-before", "10m1h"] + run_out,
              expect=F + "--stop-before 10m1h: units must come in the order d, h, m, s, each at most once; "

@@ -18,8 +18,10 @@
 //   - singular values of a product G_1 ⋯ G_s of distinct square Ginibre matrices → √ of the
 //     Fuss–Catalan law π^{⊠s} (Banica, Belinschi, Capitaine & Collins 2011; s = 1: the
 //     quarter-circle law).
-// Anything else gets a plain sentence saying that no predictor applies yet, and the finite-N
-// data is still reported.
+// Any other self-adjoint expression (eigenvalues) goes to the general solver for polynomials in
+// free variables (polynomial_limit.hpp: linearization and operator-valued subordination). What
+// neither covers gets a plain sentence saying why no predictor applies, and the finite-N data is
+// still reported.
 #pragma once
 
 #include <string>
