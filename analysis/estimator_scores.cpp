@@ -1,6 +1,7 @@
 // Scoring of plug-in and built-in estimators against their truths
 // (include/freegap/analysis/estimator_scores.hpp).
 #include "freegap/analysis/estimator_scores.hpp"
+#include "freegap/analysis/limit.hpp"
 
 #include <algorithm>
 #include <charconv>
@@ -41,77 +42,22 @@ std::string fmt(const char* format, double x) {
   return buf;
 }
 
-// The limit law of one declared matrix, for the support of a·X + b.
-LawPtr law_of(const ensembles::MatrixSpec& spec) {
-  using ensembles::Kind;
-  switch (spec.kind) {
-    case Kind::gue:
-    case Kind::goe:
-    case Kind::wigner_rademacher:
-    case Kind::beta_hermite:
-      return semicircle(1.0);
-    case Kind::wishart_complex:
-    case Kind::wishart_real:
-    case Kind::beta_laguerre:
-      return marchenko_pastur(spec.ratio);
-    case Kind::diagonal:
-      switch (spec.diagonal.kind) {
-        case ensembles::DiagonalLawKind::atoms: {
-          std::vector<Atom> points;
-          for (const auto& a : spec.diagonal.atoms) points.push_back({a.value, a.weight});
-          return atoms(points);
-        }
-        case ensembles::DiagonalLawKind::uniform:
-          return uniform(spec.diagonal.low, spec.diagonal.high);
-        case ensembles::DiagonalLawKind::semicircle_quantiles:
-          return semicircle(spec.diagonal.variance);
-        case ensembles::DiagonalLawKind::marchenko_pastur_quantiles:
-          return marchenko_pastur(spec.diagonal.ratio);
-        case ensembles::DiagonalLawKind::file:
-          return nullptr;
-      }
-      return nullptr;
-    default:
-      return nullptr;
-  }
-}
-
-// Support edges of the limit of a·X + b for one matrix X, if the expression has that form.
-std::optional<std::pair<double, double>> affine_edges(const job::Job& job, std::string& note) {
-  const expr::Expression e(job.expression, job.matrices);
-  if (e.spectrum() != expr::Spectrum::eigenvalues) {
-    note = "the expression's singular values have no support edges computed here";
-    return std::nullopt;
-  }
-  int letter = -1;
-  double a = 0.0, b = 0.0;
-  for (const auto& m : e.expansion()) {
-    if (m.letters.empty()) {
-      b = m.coefficient;
-    } else if (m.letters.size() == 1 && letter < 0) {
-      letter = m.letters[0].first;
-      a = m.coefficient;
-    } else {
-      note = "support edges are computed here only for a·X + b of one matrix; pass them in "
-             "ScoreOptions::limit_edges or write the truth as a number";
+// Support edges of the model's limit law, by the same derivation the report uses (limit.hpp:
+// closed-form rules, else the polynomial solver).
+std::optional<std::pair<double, double>> limit_edges_of(const store::RunHeader& header, std::string& note) {
+  try {
+    const DerivedLimit d = derive_limit(run_expression(header), 0);
+    if (!d.law) {
+      note = d.reason;
       return std::nullopt;
     }
-  }
-  if (letter < 0) {
-    note = "the expression is a constant";
+    const Support s = d.law->support();
+    note = "support of the limit law " + d.law->describe();
+    return std::make_pair(s.lo, s.hi);
+  } catch (const Error& e) {
+    note = e.what();
     return std::nullopt;
   }
-  const auto law = law_of(job.matrices[static_cast<std::size_t>(letter)]);
-  if (!law) {
-    note = "no limit law is known here for matrix '" +
-           job.matrices[static_cast<std::size_t>(letter)].name + "'";
-    return std::nullopt;
-  }
-  const Support s = law->support();
-  double lo = a * s.lo + b, hi = a * s.hi + b;
-  if (lo > hi) std::swap(lo, hi);
-  note = "support of " + law->describe() + (a != 1.0 || b != 0.0 ? ", scaled and shifted" : "");
-  return std::make_pair(lo, hi);
 }
 
 // Percentile interval of bootstrap replicates (NaN-free), at `level`.
@@ -215,7 +161,7 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
     if (head == "limit_edge" || head == "limit_norm") {
       std::optional<std::pair<double, double>> edges = options.limit_edges;
       std::string note = "support edges given by the caller";
-      if (!edges) edges = affine_edges(job, note);
+      if (!edges) edges = limit_edges_of(header, note);
       if (!edges) {
         t.note = note;
         return t;

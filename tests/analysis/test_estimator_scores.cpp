@@ -245,10 +245,13 @@ TEST(EstimatorScores, TruthsResolveAgainstTheJob) {
   EXPECT_NEAR(m2.value, 11.625, 1e-12);
   EXPECT_EQ(analysis::resolve_truth("matrix_ratio:W", h).value, 0.5);
   EXPECT_EQ(analysis::resolve_truth("2.25", h).value, 2.25);
+  // The upper edge of the limit of T W T (law(T²) ⊠ Marchenko–Pastur, derived as the report
+  // does): between √m₂ = √11.625 and ‖T‖²·(1 + √c)² = 4 (1 + √0.5)² (norm bounds, common practice).
   const auto edge = analysis::resolve_truth("limit_edge:upper", h);
-  EXPECT_FALSE(edge.known);
-  EXPECT_EQ(edge.note, "support edges are computed here only for a·X + b of one matrix; pass them "
-                       "in ScoreOptions::limit_edges or write the truth as a number");
+  ASSERT_TRUE(edge.known) << edge.note;
+  EXPECT_NE(edge.note.find("free_multiplicative"), std::string::npos) << edge.note;
+  EXPECT_GT(edge.value, std::sqrt(11.625));
+  EXPECT_LT(edge.value, 4.0 * std::pow(1.0 + std::sqrt(0.5), 2));
   analysis::ScoreOptions given;
   given.limit_edges = std::make_pair(0.0, 30.0);
   EXPECT_EQ(analysis::resolve_truth("limit_edge:upper", h, given).value, 30.0);

@@ -61,8 +61,9 @@ struct ScoreOptions {
   double level = 0.95;
   std::uint64_t seed = 20261202;  ///< bootstrap stream seed (fixed: reports are reproducible)
   /// Support edges [lower, upper] of the expression's limit law, when the caller knows them (the
-  /// report computes limit laws); otherwise they are found for a·X + b of one matrix with a
-  /// known law, and "limit_edge"/"limit_norm" truths are unknown for anything else.
+  /// report computes limit laws); otherwise they are derived here (limit.hpp: closed-form rules,
+  /// else the polynomial solver), and "limit_edge"/"limit_norm" truths are unknown, with the
+  /// reason, for a model neither covers.
   std::optional<std::pair<double, double>> limit_edges;
 };
 
