@@ -593,11 +593,15 @@ FreeAdditiveConvolution::FreeAdditiveConvolution(LawPtr mu, LawPtr nu, Subordina
         support_.atoms.push_back({a.value + b.value, a.mass + b.mass - 1.0});
     }
   }
-  std::sort(support_.atoms.begin(), support_.atoms.end(),
-            [](const Atom& l, const Atom& r) { return l.value < r.value; });
   epsilon_abs_ = options_.epsilon * std::max(1.0, (sm.hi - sm.lo) + (sn.hi - sn.lo));
   continuous_hi_ = additive_right_edge(*mu_, *nu_);
   continuous_lo_ = -additive_right_edge(*affine(mu_, -1.0, 0.0), *affine(nu_, -1.0, 0.0));
+  finish_support();
+}
+
+void SubordinatedLaw::finish_support() {
+  std::sort(support_.atoms.begin(), support_.atoms.end(),
+            [](const Atom& l, const Atom& r) { return l.value < r.value; });
   double atom_mass = 0.0;
   for (const Atom& a : support_.atoms) atom_mass += a.mass;
   if (atom_mass >= 1.0 - 1e-12) continuous_lo_ = continuous_hi_ = support_.atoms.front().value;
@@ -609,16 +613,18 @@ FreeAdditiveConvolution::FreeAdditiveConvolution(LawPtr mu, LawPtr nu, Subordina
   }
 }
 
+SubordinationPoint SubordinatedLaw::solve_below_axis(cd z, const cd* start) const {
+  const cd conj_start = start ? std::conj(*start) : cd();
+  SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
+  p.z = z;
+  p.omega1 = std::conj(p.omega1);
+  p.omega2 = std::conj(p.omega2);
+  p.cauchy = std::conj(p.cauchy);
+  return p;
+}
+
 SubordinationPoint FreeAdditiveConvolution::solve(cd z, const cd* start) const {
-  if (z.imag() < 0.0) {
-    const cd conj_start = start ? std::conj(*start) : cd();
-    SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
-    p.z = z;
-    p.omega1 = std::conj(p.omega1);
-    p.omega2 = std::conj(p.omega2);
-    p.cauchy = std::conj(p.cauchy);
-    return p;
-  }
+  if (z.imag() < 0.0) return solve_below_axis(z, start);
   if (z.imag() == 0.0) throw InputError("free_additive: solve needs z off the real axis");
   auto map = [&](cd w) {
     const HValue hm = h_additive(*mu_, w);
@@ -690,8 +696,6 @@ FreeMultiplicativeConvolution::FreeMultiplicativeConvolution(LawPtr mu, LawPtr n
       }
     }
   }
-  std::sort(support_.atoms.begin(), support_.atoms.end(),
-            [](const Atom& l, const Atom& r) { return l.value < r.value; });
   epsilon_abs_ = options_.epsilon * std::max(1.0, sm.hi * sn.hi);
   continuous_hi_ = multiplicative_right_edge(*mu_, *nu_);
   if (sm.lo > 0.0 && sn.lo > 0.0) {
@@ -701,27 +705,11 @@ FreeMultiplicativeConvolution::FreeMultiplicativeConvolution(LawPtr mu, LawPtr n
   } else {
     continuous_lo_ = 0.0;
   }
-  double atom_mass = 0.0;
-  for (const Atom& a : support_.atoms) atom_mass += a.mass;
-  if (atom_mass >= 1.0 - 1e-12) continuous_lo_ = continuous_hi_ = support_.atoms.front().value;
-  support_.lo = continuous_lo_;
-  support_.hi = continuous_hi_;
-  for (const Atom& a : support_.atoms) {
-    support_.lo = std::min(support_.lo, a.value);
-    support_.hi = std::max(support_.hi, a.value);
-  }
+  finish_support();
 }
 
 SubordinationPoint FreeMultiplicativeConvolution::solve(cd z, const cd* start) const {
-  if (z.imag() < 0.0) {
-    const cd conj_start = start ? std::conj(*start) : cd();
-    SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
-    p.z = z;
-    p.omega1 = std::conj(p.omega1);
-    p.omega2 = std::conj(p.omega2);
-    p.cauchy = std::conj(p.cauchy);
-    return p;
-  }
+  if (z.imag() < 0.0) return solve_below_axis(z, start);
   if (z.imag() == 0.0) throw InputError("free_multiplicative: solve needs z off the real axis");
   // ζ = 1/z lies in the lower half-plane, and so does ω1(ζ); G(z) = ζ/(1 − η_μ(ω1(ζ))).
   const cd zeta = 1.0 / z;

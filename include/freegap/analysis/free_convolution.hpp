@@ -54,6 +54,12 @@ class SubordinatedLaw : public Law {
   /// Atom contributions to G, subtracted before Stieltjes inversion.
   std::complex<double> atom_cauchy(std::complex<double> z) const;
   virtual bool polish(double x, std::complex<double>& omega1, std::complex<double>& g) const = 0;
+  /// Sorts support_.atoms and sets support_.lo/hi from the continuous edges and the atoms (the
+  /// continuous part collapses onto the first atom when the atoms carry all the mass).
+  void finish_support();
+  /// solve() at z below the real axis by conjugate symmetry: every quantity is conj of its value
+  /// at conj(z).
+  SubordinationPoint solve_below_axis(std::complex<double> z, const std::complex<double>* start) const;
 
   SubordinationOptions options_;
   Support support_;
