@@ -1,19 +1,29 @@
 // Estimators: the [[estimator]] job tables, the plug-in ABI through the forked helper, the command
 // bridge and its text format, the built-ins, and every documented failure (src/estimate/PLUGINS.md).
 #include <gtest/gtest.h>
+#include <unistd.h>
 
 #include <cmath>
+#include <cstring>
+#include <filesystem>
+#include <sstream>
 #include <string>
 #include <vector>
 
 #include "freegap/errors.hpp"
 #include "freegap/estimate.hpp"
+#include "freegap/estimator_abi.h"
 #include "freegap/job.hpp"
+#include "freegap/linalg.hpp"
+#include "freegap/model.hpp"
+#include "freegap/plan.hpp"
 
 namespace {
 
 using freegap::InputError;
 namespace estimate = freegap::estimate;
+namespace expr = freegap::expr;
+namespace model = freegap::model;
 namespace job = freegap::job;
 
 const std::string kDir = std::string(FREEGAP_BINARY_DIR) + "/tests/estimate";
@@ -36,6 +46,18 @@ std::string library_estimator(const std::string& behaviour, double timeout = 5) 
          "\"\ntimeout = " + std::to_string(timeout) +
          "\n[estimator.parameters]\nscale = 2\n[estimator.truth]\ntop = \"limit_edge:upper\"\n"
          "mean_square = \"limit_moment:2\"\n";
+}
+
+// The version-2 plug-in that reads the matrix (tests/estimate/matrix_plugin.c).
+std::string matrix_estimator(const std::string& behaviour = "matrix") {
+  std::string text = "[[estimator]]\nname = \"probe\"\nlibrary = \"" + plugin(behaviour) +
+                     "\"\n[estimator.truth]\n";
+  for (const char* name : {"rows", "cols", "is_complex", "abi_seen", "checksum", "trace",
+                           "frobenius_square", "entry_10_re", "entry_10_im", "entry_01_re",
+                           "entry_01_im"}) {
+    text += std::string(name) + " = \"none\"\n";
+  }
+  return text;
 }
 
 std::string command_estimator(const std::string& mode, double timeout = 5) {
@@ -140,8 +162,12 @@ TEST(EstimatorOpen, RefusesBadLibrariesBeforeTheRun) {
                 "declared in include/freegap/estimator_abi.h");
   EXPECT_EQ(open_message(job_text(library_estimator("abi"))),
             "j.toml:13: estimator.lib.library: '" + plugin("abi") +
-                "' was built for plug-in ABI version 2, this freegap loads version 1; rebuild it "
-                "against this freegap's include/freegap/estimator_abi.h");
+                "' was built for plug-in ABI version 3, this freegap loads versions 1 to 2; "
+                "rebuild it against this freegap's include/freegap/estimator_abi.h");
+  EXPECT_EQ(open_message(job_text(matrix_estimator("wants"))),
+            "j.toml:13: estimator.probe.library: '" + plugin("wants") +
+                "' asks for input this freegap does not know (wants = 5; known: "
+                "FREEGAP_WANTS_MATRIX = 1); clear the unknown bits");
   std::string wrong_names = library_estimator("ok");
   wrong_names.replace(wrong_names.find("mean_square ="), 11, "mean_cube  ");
   EXPECT_EQ(open_message(job_text(wrong_names)),
@@ -170,6 +196,158 @@ TEST(EstimatorLibrary, ReturnsTheDeclaredEstimatesInSortedOrder) {
     EXPECT_EQ(values, (std::vector<double>{kMeanSquare, kTop}));
     EXPECT_EQ(reasons, (std::vector<std::string>{""}));
   }
+}
+
+// What matrix_plugin.c computes from the doubles of the matrix, computed here in the rank.
+double matrix_checksum(const freegap::expr::MatrixView& m) {
+  std::uint64_t h = 14695981039346656037ull;
+  for (std::size_t i = 0; i < m.doubles(); ++i) {
+    std::uint64_t bits;
+    std::memcpy(&bits, &m.data[i], sizeof bits);
+    h ^= bits;
+    h *= 1099511628211ull;
+  }
+  return static_cast<double>(h >> 12);
+}
+
+// The matrix an estimator reads reaches the plug-in's helper whole and bit for bit, laid out as
+// the header documents, for a real symmetric, a complex Hermitian and a rectangular
+// complex matrix; the kept copy is exactly what the spectrum was computed from.
+TEST(EstimatorLibrary, MatrixArrivesBitForBit) {
+  struct Case {
+    std::string what, matrices, expression;
+    bool self_adjoint, is_complex;
+    int rows, cols;
+  };
+  // Scenarios of our own: receiver gains (T W T), a two-level signal seen in a rotated frame
+  // (B + U B U^*), a channel matrix (G, whose singular values are the spectrum).
+  const std::vector<Case> cases = {
+      {"T W T", "[matrices.T]\nensemble = \"diagonal\"\natoms = [[1.0, 0.5], [2.0, 0.5]]\n"
+                "[matrices.W]\nensemble = \"wishart_real\"\nratio = 0.5\n",
+       "T W T", true, false, 12, 12},
+      {"B + U B U^*", "[matrices.B]\nensemble = \"diagonal\"\natoms = [[-1.0, 0.5], [1.0, 0.5]]\n"
+                      "[matrices.U]\nensemble = \"haar_unitary\"\n",
+       "B + U B U^*", true, true, 12, 12},
+      {"G", "[matrices.G]\nensemble = \"ginibre_complex\"\n", "G", false, true, 12, 12},
+  };
+  for (const auto& c : cases) {
+    const auto j = job::parse_job("seed = 9\nsizes = [12]\ntrials = 3\nexpression = \"" +
+                                      c.expression + "\"\n" + c.matrices + matrix_estimator(),
+                                  "j.toml");
+    estimate::EstimatorSet set(j);
+    ASSERT_TRUE(set.wants_matrix());
+    model::Model m;
+    m.matrices = j.matrices;
+    m.expression = j.expression;
+    m.force_dense = true;
+    const model::SizeRunner runner(m, 12);
+    for (std::uint64_t t = 0; t < 3; ++t) {
+      // Trials 0 and 2 keep the matrix where the runner does, in the set's shared memory (the
+      // helper maps it: no copy); trial 1 in memory of its own (the estimator copies it there).
+      std::vector<double> own;
+      const model::MatrixBuffer keep =
+          t == 1 ? model::MatrixBuffer([&own](std::size_t k) { own.resize(k); return own.data(); })
+                 : model::MatrixBuffer([&set](std::size_t k) { return set.matrix_buffer(k); });
+      const auto kept = runner.run(9, t, keep);
+      ASSERT_FALSE(kept.failed) << kept.reason;
+      ASSERT_NE(kept.matrix.data, nullptr);
+      // Keeping the matrix changes nothing of the trial.
+      const auto plain = runner.run(9, t);
+      EXPECT_EQ(plain.matrix.data, nullptr);
+      EXPECT_EQ(plain.spectrum, kept.spectrum) << c.what;
+      const auto& view = kept.matrix;
+      ASSERT_EQ(view.is_complex, c.is_complex) << c.what;
+      ASSERT_EQ(view.rows, c.rows);
+      ASSERT_EQ(view.cols, c.cols);
+      expr::Evaluated x;
+      x.is_complex = view.is_complex;
+      if (x.is_complex) {
+        x.complex = Eigen::Map<const Eigen::MatrixXcd>(
+            reinterpret_cast<const std::complex<double>*>(view.data), view.rows, view.cols);
+      } else {
+        x.real = Eigen::Map<const Eigen::MatrixXd>(view.data, view.rows, view.cols);
+      }
+      if (c.self_adjoint) {
+        // The copy's upper triangle is the exact mirror of the lower one (Hermitian, real
+        // diagonal), and the lower one is what LAPACK diagonalised: same eigenvalues, bit for bit.
+        if (x.is_complex) {
+          EXPECT_TRUE(x.complex == x.complex.adjoint()) << c.what;
+        } else {
+          EXPECT_TRUE(x.real == x.real.transpose()) << c.what;
+        }
+        expr::Evaluated again = x;
+        EXPECT_EQ(expr::compute_spectrum(expr::Spectrum::eigenvalues, again), kept.spectrum)
+            << c.what;
+      }
+      estimate::TrialInput in;
+      in.n = 12;
+      in.trial = t;
+      in.seed = 9;
+      in.kind = runner.spectrum_kind();
+      in.spectrum = std::span<const double>(kept.spectrum.data(),
+                                            static_cast<std::size_t>(kept.spectrum.size()));
+      in.matrix = view;
+      const double expected_checksum = matrix_checksum(view);
+      std::vector<double> values;
+      std::vector<std::string> reasons;
+      set.run(in, values, reasons);
+      ASSERT_EQ(reasons, (std::vector<std::string>{""})) << c.what;
+      // Sorted names: abi_seen, checksum, cols, entry_01_im, entry_01_re, entry_10_im,
+      // entry_10_re, frobenius_square, is_complex, rows, trace.
+      ASSERT_EQ(values.size(), 11u);
+      EXPECT_EQ(values[0], FREEGAP_ESTIMATOR_ABI_VERSION);
+      EXPECT_EQ(values[1], expected_checksum) << c.what << " trial " << t;
+      EXPECT_EQ(values[2], c.cols);
+      EXPECT_EQ(values[9], c.rows);
+      EXPECT_EQ(values[8], c.is_complex ? 1.0 : 0.0);
+      const std::complex<double> e01 = x.is_complex ? x.complex(0, 1) : x.real(0, 1);
+      const std::complex<double> e10 = x.is_complex ? x.complex(1, 0) : x.real(1, 0);
+      EXPECT_EQ(values[3], e01.imag());
+      EXPECT_EQ(values[4], e01.real());
+      EXPECT_EQ(values[5], e10.imag());
+      EXPECT_EQ(values[6], e10.real());
+      // Σ|entry|² = Σ λ² or Σ σ², and the trace Σ λ: the spectrum and the matrix agree to
+      // rounding (relative 1e-12 of Σ λ², generous for N = 12 in double precision).
+      const double sum_sq = kept.spectrum.squaredNorm();
+      EXPECT_NEAR(values[7], sum_sq, 1e-12 * sum_sq) << c.what;
+      if (c.self_adjoint) {
+        EXPECT_NEAR(values[10], kept.spectrum.sum(), 1e-12 * sum_sq) << c.what;
+      }
+    }
+  }
+}
+
+// The kept copy is in the memory estimate freegap run refuses by and freegap plan reports: one
+// N × N real matrix, 8 N² bytes, for T W T.
+TEST(EstimatorLibrary, PlanCountsTheKeptMatrix) {
+  const auto dir = std::filesystem::temp_directory_path() /
+                   ("freegap-test-estimate-plan-" + std::to_string(::getpid()));
+  std::filesystem::create_directories(dir);
+  freegap::plan::Options options;
+  options.calibration_path = (dir / "calibration.toml").string();
+  std::ostringstream log;
+  const auto without = freegap::plan::estimate(
+      job::parse_job(job_text(library_estimator("ok")), "j.toml"), options, log);
+  const auto with = freegap::plan::estimate(
+      job::parse_job(job_text(library_estimator("ok") + matrix_estimator()), "j.toml"), options,
+      log);
+  std::filesystem::remove_all(dir);
+  ASSERT_EQ(with.sizes.size(), 1u);
+  EXPECT_EQ(with.sizes[0].peak_bytes - without.sizes[0].peak_bytes, 8u * 20 * 20);
+}
+
+TEST(EstimatorLibrary, VersionOnePluginLoadsAndAMatrixReaderNeedsAMatrix) {
+  // plugin.c declares version 1 (its info ends before `wants`): loaded, spectrum only.
+  estimate::EstimatorSet old_one(job::parse_job(job_text(library_estimator("ok")), "j.toml"));
+  EXPECT_FALSE(old_one.wants_matrix());
+  // A matrix reader handed a trial without a matrix records why instead of calling the plug-in.
+  estimate::EstimatorSet reader(job::parse_job(job_text(matrix_estimator()), "j.toml"));
+  std::vector<double> values;
+  std::vector<std::string> reasons;
+  reader.run(input(0), values, reasons);
+  EXPECT_EQ(reasons, (std::vector<std::string>{
+                         "the plug-in asks for the matrix, and this trial has none to give"}));
+  EXPECT_TRUE(std::isnan(values.at(0)));
 }
 
 // Faulty plug-ins fail trials 1, 4, 7, ... (trial ≡ 1 mod 3) and behave on the others; the

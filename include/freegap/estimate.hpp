@@ -1,12 +1,12 @@
 // Estimators that ride along with a run: built-in ones, plug-in shared libraries (the C ABI of
 // include/freegap/estimator_abi.h) and external commands, each called on every trial's spectrum
-// and returning named scalar estimates. A failure of one estimator on one trial — a crash, a hang
+// (plug-ins that ask for it: and its matrix) and returning named scalar estimates. A failure of one estimator on one trial — a crash, a hang
 // past its timeout, a NaN, a wrong count, malformed output — is that trial's recorded failure,
 // never the run's (src/estimate/PLUGINS.md).
 //
 // Containment: a plug-in library runs in a helper process forked from the rank once (and again
-// after a failure), fed trials through a socket pair, so a segfault or a hang kills the helper,
-// not the rank; a command is a new process per trial. Built-ins are freegap's own code and run in
+// after a failure), fed trials through a socket pair (and, for a plug-in that reads the matrix,
+// shared memory it maps read-only), so a segfault or a hang kills the helper, not the rank; a command is a new process per trial. Built-ins are freegap's own code and run in
 // the rank.
 #pragma once
 
@@ -17,10 +17,14 @@
 #include <string_view>
 #include <vector>
 
+#include "freegap/expr.hpp"
 #include "freegap/job.hpp"
 #include "freegap/observe.hpp"
 
 namespace freegap::estimate {
+
+/// A trial's evaluated matrix as plug-ins see it.
+using MatrixView = expr::MatrixView;
 
 /// What every estimator sees of one trial.
 struct TrialInput {
@@ -29,6 +33,9 @@ struct TrialInput {
   std::uint64_t seed = 0;
   observe::SpectrumKind kind = observe::SpectrumKind::eigenvalues;
   std::span<const double> spectrum;
+  /// The evaluated matrix, given when some estimator wants it (EstimatorSet::wants_matrix);
+  /// best kept in EstimatorSet::matrix_buffer, which plug-in helpers read without a copy.
+  MatrixView matrix;
 };
 
 /// One estimator's answer for one trial: one value per estimate of its spec (in the spec's
@@ -39,11 +46,20 @@ struct Outcome {
   std::vector<double> values;
 };
 
+/// Memory shared with plug-in helper processes (a memfd they map read-only): where the runner
+/// keeps each trial's matrix for the estimators that read it, so that it reaches them without
+/// being copied again or sent through a socket. Defined in estimate.cpp.
+class SharedMatrixMemory;
+
 class Estimator {
  public:
   virtual ~Estimator() = default;
   /// Never throws for anything the estimator does; a failure is an Outcome.
   virtual Outcome estimate(const TrialInput& input) = 0;
+  /// Whether it reads the trial's matrix besides the spectrum (a plug-in that asked for it).
+  virtual bool wants_matrix() const { return false; }
+  /// Hands over the memory the set keeps trials' matrices in (for estimators that want them).
+  virtual void share_matrix_memory(std::shared_ptr<SharedMatrixMemory> memory) { (void)memory; }
 };
 
 /// Opens one estimator of `job` in this process: finds the built-in, or loads the library and
@@ -63,6 +79,13 @@ class EstimatorSet {
   bool empty() const { return estimators_.empty(); }
   std::size_t estimator_count() const { return estimators_.size(); }
   std::size_t estimate_count() const { return columns_; }
+  /// Whether any estimator reads the trial's matrix: the runner then keeps a copy of it per
+  /// trial (run::estimate_peak_bytes counts it) and passes it in TrialInput::matrix.
+  bool wants_matrix() const { return wants_matrix_; }
+  /// Room for a trial's matrix of `doubles` doubles in the memory the plug-in helpers share
+  /// (grown as needed; valid until the next call). Only when wants_matrix(); throws Error if the
+  /// memory cannot be grown.
+  double* matrix_buffer(std::size_t doubles);
 
   /// Runs every estimator on one trial. `values` gets estimate_count() numbers (NaN for a failed
   /// estimator), `reasons` one string per estimator ("" when it did not fail).
@@ -75,6 +98,8 @@ class EstimatorSet {
   std::vector<std::unique_ptr<Estimator>> estimators_;
   std::vector<std::size_t> widths_;
   std::size_t columns_ = 0;
+  bool wants_matrix_ = false;
+  std::shared_ptr<SharedMatrixMemory> matrix_memory_;
 };
 
 // ---- built-ins ---------------------------------------------------------------------------------

@@ -149,6 +149,19 @@ struct Evaluated {
   bool lower_only = false;
 };
 
+/// A whole evaluated matrix as estimators read it (include/freegap/estimator_abi.h): column-major
+/// rows × cols, complex entries as interleaved (real, imaginary) pairs.
+struct MatrixView {
+  const double* data = nullptr;
+  Index rows = 0;
+  Index cols = 0;
+  bool is_complex = false;
+  /// Doubles in `data`: rows · cols, twice that for a complex matrix.
+  std::size_t doubles() const {
+    return static_cast<std::size_t>(rows * cols) * (is_complex ? 2u : 1u);
+  }
+};
+
 /// What one step of a plan does.
 enum class StepKind {
   gemm,           ///< general product (zgemm / dgemm)

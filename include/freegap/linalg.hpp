@@ -74,8 +74,9 @@ void herk(const CMatrix& a, Op op, CMatrix& c, double alpha = 1.0, double beta =
 void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha = 1.0, double beta = 0.0);
 
 /// Copy the lower triangle onto the upper one (conjugated for complex matrices).
-void mirror_lower(CMatrix& c);
-void mirror_lower(RMatrix& c);
+/// Takes a matrix or a Map of one.
+void mirror_lower(Eigen::Ref<CMatrix> c);
+void mirror_lower(Eigen::Ref<RMatrix> c);
 
 /// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
 std::string blas_description();

@@ -4,6 +4,7 @@
 
 #include <Eigen/Core>
 #include <cstdint>
+#include <functional>
 #include <optional>
 #include <string>
 #include <vector>
@@ -55,7 +56,23 @@ struct TrialOutcome {
   std::string reason;
   Eigen::VectorXd spectrum;  ///< eigenvalues ascending or singular values descending
   StageSeconds seconds;
+  /// The evaluated matrix the spectrum was computed from, when run() was given a MatrixBuffer
+  /// (for estimators that read the matrix), in that buffer; data is null otherwise. Whole: a
+  /// self-adjoint one has its upper triangle mirrored from the lower one, which is what the
+  /// eigenvalues were computed from, and a real diagonal.
+  expr::MatrixView matrix;
 };
+
+/// Where a trial keeps a copy of its evaluated matrix: returns room for `doubles` doubles, valid
+/// until the next call (the runner hands the estimators' shared memory, so the copy is the only
+/// one made).
+using MatrixBuffer = std::function<double*(std::size_t doubles)>;
+
+/// Copies an evaluated matrix whole into the room `room` gives: the layout of expr::MatrixView;
+/// a self-adjoint one (diagonalised from its lower triangle) gets that triangle mirrored onto the
+/// upper one and a real diagonal. What SizeRunner::spectrum_of does to keep a trial's matrix.
+expr::MatrixView keep_copy(const expr::Evaluated& value, bool self_adjoint,
+                           const MatrixBuffer& room);
 
 /// Everything needed to run trials of a model at one size N: samplers, the checked expression
 /// and its evaluation plan. Construction validates everything (throws InputError).
@@ -80,9 +97,13 @@ class SizeRunner {
   std::vector<ensembles::Sample> draw(std::uint64_t seed, std::uint64_t trial) const;
   /// Evaluates and diagonalises given samples. A non-finite entry in the evaluated matrix or a
   /// LAPACK failure gives a failed outcome with its reason; nothing is thrown for those.
-  TrialOutcome spectrum_of(std::uint64_t trial, const std::vector<ensembles::Sample>& samples) const;
+  /// Given `keep_matrix`, also copies the evaluated matrix into the room it returns
+  /// (TrialOutcome::matrix).
+  TrialOutcome spectrum_of(std::uint64_t trial, const std::vector<ensembles::Sample>& samples,
+                           const MatrixBuffer& keep_matrix = {}) const;
   /// draw + spectrum_of.
-  TrialOutcome run(std::uint64_t seed, std::uint64_t trial) const;
+  TrialOutcome run(std::uint64_t seed, std::uint64_t trial,
+                   const MatrixBuffer& keep_matrix = {}) const;
 
  private:
   Index n_;

@@ -7,6 +7,7 @@
 #include <poll.h>
 #include <signal.h>
 #include <spawn.h>
+#include <sys/mman.h>
 #include <sys/prctl.h>
 #include <sys/socket.h>
 #include <sys/wait.h>
@@ -29,6 +30,52 @@
 extern char** environ;
 
 namespace freegap::estimate {
+
+// A memfd: the rank maps it read-write and writes each trial's matrix into it; plug-in helpers,
+// forked with the descriptor, map it read-only. It only grows, so a helper's older, smaller
+// mapping stays valid and it remaps when a request needs more.
+class SharedMatrixMemory {
+ public:
+  SharedMatrixMemory() : fd_(::memfd_create("freegap-trial-matrix", MFD_CLOEXEC)) {
+    if (fd_ < 0) {
+      throw Error(std::string("cannot create the memory shared with plug-in helpers (memfd_create: ") +
+                  std::strerror(errno) + ")");
+    }
+  }
+  ~SharedMatrixMemory() {
+    if (data_ != nullptr) ::munmap(data_, bytes_);
+    ::close(fd_);
+  }
+  SharedMatrixMemory(const SharedMatrixMemory&) = delete;
+  SharedMatrixMemory& operator=(const SharedMatrixMemory&) = delete;
+
+  int fd() const { return fd_; }
+  const double* data() const { return data_; }
+
+  double* reserve(std::size_t doubles) {
+    const std::size_t bytes = std::max<std::size_t>(doubles, 1) * sizeof(double);
+    if (bytes > bytes_) {
+      if (::ftruncate(fd_, static_cast<off_t>(bytes)) != 0) {
+        throw Error("cannot grow the memory shared with plug-in helpers to " +
+                    std::to_string(bytes) + " bytes: " + std::strerror(errno));
+      }
+      void* p = ::mmap(nullptr, bytes, PROT_READ | PROT_WRITE, MAP_SHARED, fd_, 0);
+      if (p == MAP_FAILED) {
+        throw Error("cannot map the memory shared with plug-in helpers: " +
+                    std::string(std::strerror(errno)));
+      }
+      if (data_ != nullptr) ::munmap(data_, bytes_);
+      data_ = static_cast<double*>(p);
+      bytes_ = bytes;
+    }
+    return data_;
+  }
+
+ private:
+  int fd_ = -1;
+  double* data_ = nullptr;
+  std::size_t bytes_ = 0;
+};
 
 namespace {
 
@@ -197,13 +244,18 @@ bool read_exact(int fd, void* data, std::size_t size) {
 
 // ---- plug-in libraries -------------------------------------------------------------------------
 
+// One trial for the helper: this header, then `length` spectrum values. The matrix, when the
+// plug-in asked for it, is at the start of the shared memory (rows · cols doubles, twice that
+// for a complex one), which the helper has mapped as descriptor 4.
 struct Request {
   std::uint64_t trial;
   std::uint64_t seed;
   std::int64_t n;
   std::int64_t length;
   std::int32_t kind;
-  std::int32_t pad;
+  std::int32_t matrix_is_complex;
+  std::int64_t matrix_rows;  // 0 without a matrix
+  std::int64_t matrix_cols;
 };
 
 struct Response {
@@ -215,16 +267,32 @@ constexpr int kMessageSize = 512;
 
 // The helper process: answers requests until the rank closes its end of the socket. Never
 // returns; never calls MPI or anything that flushes the rank's stdio buffers.
-[[noreturn]] void serve(int fd, freegap_estimator_estimate_fn estimate, int capacity,
-                        const std::vector<freegap_parameter>& parameters) {
+[[noreturn]] void serve(int fd, int matrix_fd, freegap_estimator_estimate_fn estimate,
+                        int capacity, const std::vector<freegap_parameter>& parameters) {
   std::vector<double> spectrum;
+  const void* matrix = nullptr;  // the shared memory, mapped read-only
+  std::size_t matrix_bytes = 0;
   std::vector<double> out(static_cast<std::size_t>(capacity));
+  constexpr std::int64_t kMost = std::int64_t{1} << 34;  // a sanity bound, not a limit in use
   for (;;) {
     Request req{};
     if (!read_exact(fd, &req, sizeof req)) ::_exit(0);
-    if (req.length < 0 || req.length > (std::int64_t{1} << 34)) ::_exit(3);
+    if (req.length < 0 || req.length > kMost || req.matrix_rows < 0 || req.matrix_cols < 0 ||
+        req.matrix_rows > kMost || req.matrix_cols > kMost / std::max<std::int64_t>(1, req.matrix_rows)) {
+      ::_exit(3);
+    }
     spectrum.resize(static_cast<std::size_t>(req.length));
     if (!read_exact(fd, spectrum.data(), spectrum.size() * sizeof(double))) ::_exit(0);
+    const std::size_t need = static_cast<std::size_t>(req.matrix_rows * req.matrix_cols) *
+                             (req.matrix_is_complex ? 2u : 1u) * sizeof(double);
+    if (need > matrix_bytes) {
+      if (matrix_fd < 0) ::_exit(3);
+      void* p = ::mmap(nullptr, need, PROT_READ, MAP_SHARED, matrix_fd, 0);
+      if (p == MAP_FAILED) ::_exit(5);
+      if (matrix != nullptr) ::munmap(const_cast<void*>(matrix), matrix_bytes);
+      matrix = p;
+      matrix_bytes = need;
+    }
     freegap_trial trial{};
     trial.abi_version = FREEGAP_ESTIMATOR_ABI_VERSION;
     trial.spectrum_kind = req.kind;
@@ -235,6 +303,12 @@ constexpr int kMessageSize = 512;
     trial.spectrum_length = req.length;
     trial.parameters = parameters.data();
     trial.parameter_count = static_cast<std::int64_t>(parameters.size());
+    if (req.matrix_rows > 0) {
+      trial.matrix = static_cast<const double*>(matrix);
+      trial.matrix_rows = req.matrix_rows;
+      trial.matrix_cols = req.matrix_cols;
+      trial.matrix_is_complex = req.matrix_is_complex != 0 ? 1 : 0;
+    }
     char message[kMessageSize] = {};
     std::fill(out.begin(), out.end(), kNaN);
     const int status = estimate(&trial, out.data(), capacity, message, kMessageSize);
@@ -279,12 +353,22 @@ class LibraryEstimator final : public Estimator {
       throw InputError(at + "'" + spec.library + "': " FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL
                             " returned NULL; return a pointer to static freegap_estimator_info");
     }
-    if (info->abi_version != FREEGAP_ESTIMATOR_ABI_VERSION) {
+    if (info->abi_version < FREEGAP_ESTIMATOR_ABI_OLDEST ||
+        info->abi_version > FREEGAP_ESTIMATOR_ABI_VERSION) {
       throw InputError(at + "'" + spec.library + "' was built for plug-in ABI version " +
-                       std::to_string(info->abi_version) + ", this freegap loads version " +
+                       std::to_string(info->abi_version) + ", this freegap loads versions " +
+                       std::to_string(FREEGAP_ESTIMATOR_ABI_OLDEST) + " to " +
                        std::to_string(FREEGAP_ESTIMATOR_ABI_VERSION) +
                        "; rebuild it against this freegap's include/freegap/estimator_abi.h");
     }
+    // Version 1's info ends before `wants`: read it only from version 2 on.
+    const std::uint32_t wants = info->abi_version >= 2 ? info->wants : 0u;
+    if ((wants & ~FREEGAP_WANTS_MATRIX) != 0) {
+      throw InputError(at + "'" + spec.library + "' asks for input this freegap does not know " +
+                       "(wants = " + std::to_string(wants) + "; known: FREEGAP_WANTS_MATRIX = " +
+                       std::to_string(FREEGAP_WANTS_MATRIX) + "); clear the unknown bits");
+    }
+    wants_matrix_ = (wants & FREEGAP_WANTS_MATRIX) != 0;
     if (info->estimate_count < 1 || info->estimate_count > FREEGAP_ESTIMATOR_MAX_ESTIMATES ||
         info->estimate_names == nullptr) {
       throw InputError(at + "'" + spec.library + "' declares " +
@@ -321,18 +405,40 @@ class LibraryEstimator final : public Estimator {
     // The library stays loaded: a plug-in's static destructors may run at exit, not here.
   }
 
+  bool wants_matrix() const override { return wants_matrix_; }
+  void share_matrix_memory(std::shared_ptr<SharedMatrixMemory> memory) override {
+    if (wants_matrix_ && pid_ <= 0) matrix_memory_ = std::move(memory);
+  }
+
   Outcome estimate(const TrialInput& input) override {
     const std::size_t count = spec_.estimates.size();
+    if (wants_matrix_) {
+      if (input.matrix.data == nullptr) {
+        return failed("the plug-in asks for the matrix, and this trial has none to give", count);
+      }
+      // Created before the helper is forked, which inherits it (throws Error: a failed trial).
+      if (!matrix_memory_) matrix_memory_ = std::make_shared<SharedMatrixMemory>();
+      // The runner writes it there already (EstimatorSet::matrix_buffer); anyone else's is copied.
+      if (input.matrix.data != matrix_memory_->data()) {
+        std::memcpy(matrix_memory_->reserve(input.matrix.doubles()), input.matrix.data,
+                    input.matrix.doubles() * sizeof(double));
+      }
+    }
     if (pid_ <= 0 && !start_helper()) {
       return failed("could not start the plug-in's helper process (" + start_error_ + ")", count);
     }
-    Request req{input.trial,
-                input.seed,
-                input.n,
-                static_cast<std::int64_t>(input.spectrum.size()),
-                input.kind == observe::SpectrumKind::eigenvalues ? FREEGAP_SPECTRUM_EIGENVALUES
-                                                                 : FREEGAP_SPECTRUM_SINGULAR_VALUES,
-                0};
+    Request req{};
+    req.trial = input.trial;
+    req.seed = input.seed;
+    req.n = input.n;
+    req.length = static_cast<std::int64_t>(input.spectrum.size());
+    req.kind = input.kind == observe::SpectrumKind::eigenvalues ? FREEGAP_SPECTRUM_EIGENVALUES
+                                                                : FREEGAP_SPECTRUM_SINGULAR_VALUES;
+    if (wants_matrix_) {
+      req.matrix_rows = input.matrix.rows;
+      req.matrix_cols = input.matrix.cols;
+      req.matrix_is_complex = input.matrix.is_complex ? 1 : 0;
+    }
     const auto deadline =
         Clock::now() + std::chrono::duration_cast<Clock::duration>(
                            std::chrono::duration<double>(spec_.timeout));
@@ -403,10 +509,17 @@ class LibraryEstimator final : public Estimator {
       for (int s : {SIGSEGV, SIGBUS, SIGFPE, SIGILL, SIGABRT}) ::signal(s, SIG_DFL);
       mine.reset();
       // Hold none of the rank's descriptors (the run file and its lock, MPI's sockets): only
-      // standard input, output, error and the socket, moved to descriptor 3.
-      if (::dup2(theirs.get(), 3) < 0) ::_exit(4);
-      ::close_range(4, ~0U, 0);
-      serve(3, estimate_, static_cast<int>(spec_.estimates.size()), parameters_);
+      // standard input, output, error, the socket (moved to descriptor 3) and the shared matrix
+      // memory (descriptor 4). Both are first moved above 4 so neither dup2 clobbers the other.
+      const int sock = ::fcntl(theirs.get(), F_DUPFD, 10);
+      const int shared = matrix_memory_ ? ::fcntl(matrix_memory_->fd(), F_DUPFD, 10) : -1;
+      if (sock < 0 || (matrix_memory_ && shared < 0) || ::dup2(sock, 3) < 0 ||
+          (shared >= 0 && ::dup2(shared, 4) < 0)) {
+        ::_exit(4);
+      }
+      ::close_range(shared >= 0 ? 5 : 4, ~0U, 0);
+      serve(3, shared >= 0 ? 4 : -1, estimate_, static_cast<int>(spec_.estimates.size()),
+            parameters_);
     }
     pid_ = pid;
     sock_ = std::move(mine);
@@ -454,6 +567,8 @@ class LibraryEstimator final : public Estimator {
   pid_t pid_ = -1;
   Fd sock_;
   std::string start_error_;
+  bool wants_matrix_ = false;
+  std::shared_ptr<SharedMatrixMemory> matrix_memory_;
 };
 
 // ---- external commands -------------------------------------------------------------------------
@@ -631,7 +746,18 @@ EstimatorSet::EstimatorSet(const job::Job& job) {
     estimators_.push_back(open_estimator(job, i));
     widths_.push_back(job.estimators[i].estimates.size());
     columns_ += widths_.back();
+    wants_matrix_ = wants_matrix_ || estimators_.back()->wants_matrix();
   }
+  if (wants_matrix_) {
+    // One memory for every plug-in that reads the matrix: the runner's copy is the only one.
+    matrix_memory_ = std::make_shared<SharedMatrixMemory>();
+    for (auto& e : estimators_) e->share_matrix_memory(matrix_memory_);
+  }
+}
+
+double* EstimatorSet::matrix_buffer(std::size_t doubles) {
+  if (!matrix_memory_) throw Error("no estimator of this job reads the matrix");
+  return matrix_memory_->reserve(doubles);
 }
 
 void EstimatorSet::run(const TrialInput& input, std::vector<double>& values,

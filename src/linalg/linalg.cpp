@@ -271,12 +271,12 @@ void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha, double beta) {
               static_cast<blasint>(a.rows()), beta, c.data(), static_cast<blasint>(n));
 }
 
-void mirror_lower(CMatrix& c) {
+void mirror_lower(Eigen::Ref<CMatrix> c) {
   const Index n = c.rows();
   for (Index j = 0; j + 1 < n; ++j) c.row(j).tail(n - j - 1) = c.col(j).tail(n - j - 1).adjoint();
 }
 
-void mirror_lower(RMatrix& c) {
+void mirror_lower(Eigen::Ref<RMatrix> c) {
   const Index n = c.rows();
   for (Index j = 0; j + 1 < n; ++j) {
     c.row(j).tail(n - j - 1) = c.col(j).tail(n - j - 1).transpose();

@@ -7,6 +7,7 @@
 #include <cstdio>
 
 #include "freegap/errors.hpp"
+#include "freegap/linalg.hpp"
 #include "freegap/tridiagonal.hpp"
 
 namespace freegap::model {
@@ -302,8 +303,34 @@ std::vector<ensembles::Sample> SizeRunner::draw(std::uint64_t seed, std::uint64_
   return samples;
 }
 
+expr::MatrixView keep_copy(const expr::Evaluated& value, bool self_adjoint,
+                           const MatrixBuffer& room) {
+  // A self-adjoint matrix is diagonalised from its lower triangle (and a real diagonal), so the
+  // copy's upper triangle is that triangle's mirror and its diagonal is real.
+  const bool mirror = self_adjoint || value.lower_only;
+  expr::MatrixView kept;
+  kept.is_complex = value.is_complex;
+  kept.rows = value.is_complex ? value.complex.rows() : value.real.rows();
+  kept.cols = value.is_complex ? value.complex.cols() : value.real.cols();
+  double* into = room(kept.doubles());
+  kept.data = into;
+  if (value.is_complex) {
+    Eigen::Map<Eigen::MatrixXcd> copy(reinterpret_cast<std::complex<double>*>(into), kept.rows,
+                                      kept.cols);
+    copy = value.complex;
+    if (mirror) linalg::mirror_lower(copy);
+    if (self_adjoint) copy.diagonal().imag().setZero();
+  } else {
+    Eigen::Map<Eigen::MatrixXd> copy(into, kept.rows, kept.cols);
+    copy = value.real;
+    if (mirror) linalg::mirror_lower(copy);
+  }
+  return kept;
+}
+
 TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
-                                     const std::vector<ensembles::Sample>& samples) const {
+                                     const std::vector<ensembles::Sample>& samples,
+                                     const MatrixBuffer& keep_matrix) const {
   TrialOutcome out;
   out.trial = trial;
   auto start = std::chrono::steady_clock::now();
@@ -316,6 +343,10 @@ TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
     out.reason = "non-finite entry in the evaluated matrix";
     return out;
   }
+  // The LAPACK routines overwrite their input: keep a copy first.
+  if (keep_matrix) {
+    out.matrix = keep_copy(value, plan_.spectrum() == expr::Spectrum::eigenvalues, keep_matrix);
+  }
   start = std::chrono::steady_clock::now();
   try {
     out.spectrum = expr::compute_spectrum(plan_.spectrum(), value);
@@ -327,11 +358,12 @@ TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
   return out;
 }
 
-TrialOutcome SizeRunner::run(std::uint64_t seed, std::uint64_t trial) const {
+TrialOutcome SizeRunner::run(std::uint64_t seed, std::uint64_t trial,
+                              const MatrixBuffer& keep_matrix) const {
   const auto start = std::chrono::steady_clock::now();
   const auto samples = draw(seed, trial);
   const double sample_seconds = seconds_since(start);
-  TrialOutcome out = spectrum_of(trial, samples);
+  TrialOutcome out = spectrum_of(trial, samples, keep_matrix);
   out.seconds.sample = sample_seconds;
   return out;
 }

@@ -20,6 +20,7 @@
 #include <thread>
 
 #include "freegap/errors.hpp"
+#include "freegap/estimate.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
 #include "freegap/run.hpp"
@@ -508,6 +509,9 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   // Build every size's runner first: a bad model fails before any measurement.
   std::vector<model::SizeRunner> runners;
   for (const auto n : job.sizes) runners.push_back(runner_at(job, n));
+  // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
+  // and one that reads the matrix adds its copies to the memory estimate.
+  const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
   e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
   if (options.threads > 1) {
     // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
@@ -577,7 +581,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     s.trials = job.trials[i];
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
-    s.peak_bytes = run::estimate_peak_bytes(runners[i]);
+    s.peak_bytes = run::estimate_peak_bytes(runners[i], keeps_matrix);
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
     if (!s.fits) {

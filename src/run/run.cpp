@@ -421,6 +421,11 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
   auto& estimators = *p.estimators;
   std::vector<double> values;
   std::vector<std::string> reasons;
+  // Estimators that read the matrix find it in the memory their plug-in helpers share.
+  model::MatrixBuffer keep_matrix;
+  if (estimators.wants_matrix()) {
+    keep_matrix = [&estimators](std::size_t doubles) { return estimators.matrix_buffer(doubles); };
+  }
   for (std::int64_t t = unit.first_trial; t < unit.end_trial; ++t) {
     if (stop_requested()) return false;
     const auto trial = static_cast<std::uint64_t>(t);
@@ -428,7 +433,7 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
       runner.observe_trial(done.obs, p.job.seed, trial);
     } else {
       // The same trial as observe_trial's dense path, then every estimator on its spectrum.
-      const model::TrialOutcome outcome = runner.run(p.job.seed, trial);
+      const model::TrialOutcome outcome = runner.run(p.job.seed, trial, keep_matrix);
       model::record(done.obs, outcome);
       if (outcome.failed) {
         estimators.fail_all("the trial failed: " + outcome.reason, values, reasons);
@@ -439,6 +444,7 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
         input.seed = p.job.seed;
         input.kind = runner.spectrum_kind();
         input.spectrum = {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())};
+        input.matrix = outcome.matrix;
         estimators.run(input, values, reasons);
       }
       done.estimates.insert(done.estimates.end(), values.begin(), values.end());
@@ -787,7 +793,7 @@ void work(const Prepared& p, MPI_Comm comm) {
 
 }  // namespace
 
-std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
+std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const auto n = static_cast<double>(runner.size());
   if (runner.path() == model::Path::tridiagonal) {
     // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
@@ -798,8 +804,12 @@ std::size_t estimate_peak_bytes(const model::SizeRunner& runner) {
   // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
   // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
   const double sampler_transient = 3.0 * 16.0 * n * n;
+  // Estimators that read the matrix: one whole N × N copy of it, in memory the rank shares with
+  // its plug-in helpers (they map it; they do not copy it).
+  const double matrix_copies =
+      keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
   return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
-                                  sampler_transient + 8.0 * n + 64.0 * 1024 * 1024);
+                                  sampler_transient + matrix_copies + 8.0 * n + 64.0 * 1024 * 1024);
 }
 
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
@@ -874,7 +884,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     std::string msg;
     int c = 0;
     for (const auto& r : p.runners) {
-      const auto need = estimate_peak_bytes(r);
+      const auto need = estimate_peak_bytes(r, p.estimators->wants_matrix());
       if (limit > 0 && need > limit) {
         c = kExitBadInput;
         msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
@@ -896,7 +906,9 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
         out << p.runners[i].explain();
         out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
             << "; estimated peak per rank: "
-            << human_bytes(static_cast<double>(estimate_peak_bytes(p.runners[i]))) << "\n\n";
+            << human_bytes(static_cast<double>(
+                   estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
+            << "\n\n";
       }
     }
     return kExitFinished;

@@ -1,4 +1,6 @@
-/* A test plug-in estimator (include/freegap/estimator_abi.h), compiled once per behaviour:
+/* A test plug-in estimator (include/freegap/estimator_abi.h) built against ABI version 1 — its
+ * info is version 1's struct, which ends before `wants` — so it also shows that freegap still
+ * loads a version-1 plug-in. Compiled once per behaviour:
  * FAULT = 0 well-behaved; 1 segfaults on trials ≡ 1 (mod 3); 2 sleeps 30 s on trials ≡ 1 (mod 3);
  * 3 returns NaN on trials ≡ 1 (mod 3); 4 declares the wrong ABI version; 5 returns one value fewer
  * than declared on trials ≡ 1 (mod 3); 6 exports no estimate entry point; 7 reports failure with a
@@ -17,15 +19,23 @@
 
 static const char* const kNames[] = {"top", "mean_square"};
 
+/* freegap_estimator_info as version 1 of the header declared it. */
+typedef struct info_version_1 {
+  uint32_t abi_version;
+  int32_t estimate_count;
+  const char* const* estimate_names;
+  const char* description;
+} info_version_1;
+
 const freegap_estimator_info* freegap_estimator_describe(void) {
-  static const freegap_estimator_info info = {
+  static const info_version_1 info = {
 #if FAULT == 4
       FREEGAP_ESTIMATOR_ABI_VERSION + 1,
 #else
-      FREEGAP_ESTIMATOR_ABI_VERSION,
+      1,
 #endif
       2, kNames, "test plug-in: largest value and mean square"};
-  return &info;
+  return (const freegap_estimator_info*)&info;
 }
 
 #if FAULT != 6

@@ -3,9 +3,11 @@
 
 Usage: check_estimators.py BUILD_DIR
 
-One job with five estimators — the built-in operator norm, the test plug-in library
-(tests/estimate/plugin.c), the same estimates through the test command (estimate_command.c),
-a plug-in that segfaults and a command that sleeps past its timeout on trials ≡ 1 (mod 3) — run
+One job with six estimators — the built-in operator norm, the test plug-in library
+(tests/estimate/plugin.c, ABI version 1), the same estimates through the test command
+(estimate_command.c), a plug-in that segfaults and a command that sleeps past its timeout on
+trials ≡ 1 (mod 3), and a version-2 plug-in that reads each trial's matrix
+(tests/estimate/matrix_plugin.c) — run
 as a plain process and under mpirun with 1 and 2 ranks, and once stopped by SIGUSR1 and resumed.
 Checks:
   - every run exits 0 (faults never take the run down);
@@ -15,6 +17,8 @@ Checks:
     spectra (every trial keeps its spectrum), to the last bit for the library (binary transport)
     and to %.17g round trip for the command (text transport);
   - the faulty estimators record exactly the documented reasons on exactly trials ≡ 1 (mod 3);
+  - the matrix reader received N × N real symmetric matrices agreeing with the kept spectra
+    (trace, Frobenius norm; their checksums are among the values identical in every file);
   - a missing library, a library without the entry point and one with the wrong ABI version are
     refused before the run: exit 2, the documented message, no run file.
 """
@@ -90,7 +94,28 @@ timeout = 0.5
 [estimator.truth]
 top = "none"
 mean_square = "none"
+
+[[estimator]]
+name = "probe"
+library = "{plugins}/libtest_plugin_matrix.so"
+[estimator.truth]
+abi_seen = "none"
+checksum = "none"
+cols = "none"
+entry_01_im = "none"
+entry_01_re = "none"
+entry_10_im = "none"
+entry_10_re = "none"
+frobenius_square = "none"
+is_complex = "none"
+rows = "none"
+trace = "none"
 """
+
+# The probe's columns (sorted estimate names) after the first nine.
+PROBE = {name: 9 + k for k, name in enumerate(
+    ["abi_seen", "checksum", "cols", "entry_01_im", "entry_01_re", "entry_10_im", "entry_10_re",
+     "frobenius_square", "is_complex", "rows", "trace"])}
 
 CRASH = "plug-in crashed: signal 11 (SIGSEGV)"
 SLOW = "command did not finish within the timeout of 0.5 s; it was killed"
@@ -148,7 +173,8 @@ def main():
         ref_head, ref_sizes, version = read(files["plain"])
         c.equal(version, [1, 1], "format_version [1, 1] with estimates")
         c.equal(ref_head["estimator"],
-                ["norm", "lib", "lib", "cmd", "cmd", "crashy", "crashy", "slow", "slow"],
+                ["norm", "lib", "lib", "cmd", "cmd", "crashy", "crashy", "slow", "slow"] +
+                ["probe"] * 11,
                 "/estimators/estimator: the estimators' columns in job order")
         c.equal(ref_head["estimate"][:5], ["norm", "mean_square", "top", "mean_square", "top"],
                 "/estimators/estimate: each estimator's estimates sorted by name")
@@ -179,11 +205,27 @@ def main():
                     "size %d: segfault recorded on trials ≡ 1 (mod 3) only" % i)
             c.equal([t for t in range(len(fail)) if fail[t][4] == SLOW], faulty,
                     "size %d: timeout recorded on trials ≡ 1 (mod 3) only" % i)
-            c.check(all(fail[t][:3] == ["", "", ""] for t in range(len(fail))),
+            c.check(all(fail[t][:3] == ["", "", ""] and fail[t][5] == "" for t in range(len(fail))),
                     "size %d: the well-behaved estimators never fail" % i)
-            c.check(np.isnan(e[faulty][:, 5:]).all() and not np.isnan(
-                np.delete(e, faulty, axis=0)).any(),
+            c.check(np.isnan(e[faulty][:, 5:9]).all() and not np.isnan(e[:, :5]).any() and
+                    not np.isnan(e[:, 9:]).any() and not np.isnan(np.delete(e, faulty, axis=0)).any(),
                     "size %d: NaN exactly where an estimator failed" % i)
+            # The matrix reader (ABI version 2) got each trial's N × N real symmetric matrix:
+            # Σ a_ii = Σ λ and Σ a_ij² = Σ λ² to rounding, the exact mirror a_01 = a_10.
+            n = spectra.shape[1]
+            p = {k: e[:, j] for k, j in PROBE.items()}
+            c.check((p["rows"] == n).all() and (p["cols"] == n).all() and
+                    (p["is_complex"] == 0).all() and (p["abi_seen"] == 2).all(),
+                    "size %d: the plug-in received an N x N real matrix through ABI version 2" % i)
+            sq = (spectra ** 2).sum(axis=1)
+            c.check(np.allclose(p["trace"], spectra.sum(axis=1), rtol=0, atol=1e-12 * sq.max()) and
+                    np.allclose(p["frobenius_square"], sq, rtol=1e-12, atol=0),
+                    "size %d: the matrix's trace and Frobenius norm match the kept spectra" % i)
+            c.check(np.array_equal(p["entry_01_re"], p["entry_10_re"]) and
+                    (p["entry_01_im"] == 0).all() and (p["entry_10_im"] == 0).all(),
+                    "size %d: the matrix is the exact symmetric mirror of its lower triangle" % i)
+            c.check(len(set(p["checksum"])) == len(p["checksum"]),
+                    "size %d: every trial's matrix has its own checksum" % i)
 
         # The report scores every estimator against its truth, several of one truth side by side
         # (the plug-in's and the command's estimates are the same numbers, so their rows agree).
@@ -203,8 +245,8 @@ def main():
                         "give the path of the plug-in's shared library (relative to the job file)"),
             ("noentry", "'{p}/libtest_plugin_noentry.so' does not export freegap_estimator_estimate;"
                         " define it with C linkage as declared in include/freegap/estimator_abi.h"),
-            ("abi", "'{p}/libtest_plugin_abi.so' was built for plug-in ABI version 2, this freegap "
-                    "loads version 1; rebuild it against this freegap's "
+            ("abi", "'{p}/libtest_plugin_abi.so' was built for plug-in ABI version 3, this freegap "
+                    "loads versions 1 to 2; rebuild it against this freegap's "
                     "include/freegap/estimator_abi.h"),
         ]
         line = JOB.splitlines().index('library = "{plugins}/libtest_plugin_{crash}.so"') + 1
