@@ -1,6 +1,7 @@
 // The freegap executable: parses the command line and dispatches to the library (STYLE.md §1).
 #include <CLI/CLI.hpp>
 #include <algorithm>
+#include <map>
 #include <chrono>
 #include <cmath>
 #include <mpi.h>
@@ -122,6 +123,31 @@ int run_inspect(const std::string& path, bool show_job, bool show_moments) {
   }
   std::printf("\nstatus:     %s\n", complete ? "complete" : "incomplete (run the job again to resume)");
   for (const auto& f : failures) std::printf("failure:    %s\n", f.c_str());
+  if (!h.estimates.empty()) {
+    // The estimators' columns, and per size how many committed trials each failed, and why.
+    std::string columns;
+    for (const auto& c : h.estimates) {
+      columns += (columns.empty() ? "" : ", ") + c.estimator + "." + c.estimate + " (truth " +
+                 c.truth + ")";
+    }
+    std::printf("estimates:  %s\n", columns.c_str());
+    const auto names = h.estimators();
+    for (std::size_t i = 0; i < h.sizes.size(); ++i) {
+      const auto rows = file.read_estimates(i);
+      for (std::size_t e = 0; e < names.size(); ++e) {
+        std::map<std::string, std::int64_t> reasons;
+        for (std::size_t t = 0; t < rows.trials.size(); ++t) {
+          const auto& reason = rows.failures[t * names.size() + e];
+          if (!reason.empty()) ++reasons[reason];
+        }
+        for (const auto& [reason, count] : reasons) {
+          std::printf("estimate failure: N = %lld: %s: %lld trial(s): %s\n",
+                      static_cast<long long>(h.sizes[i].n), names[e].c_str(),
+                      static_cast<long long>(count), reason.c_str());
+        }
+      }
+    }
+  }
   const auto prov = file.read_provenance();
   std::printf("created:    %s\n", prov.created.c_str());
   for (std::size_t i = 0; i < prov.sessions.size(); ++i) {

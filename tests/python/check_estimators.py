@@ -16,7 +16,8 @@ Checks:
   - the library's and the command's estimates equal numpy's max and mean of squares of the kept
     spectra (every trial keeps its spectrum), to the last bit for the library (binary transport)
     and to %.17g round trip for the command (text transport);
-  - the faulty estimators record exactly the documented reasons on exactly trials ≡ 1 (mod 3);
+  - the faulty estimators record exactly the documented reasons on exactly trials ≡ 1 (mod 3),
+    and `freegap inspect` counts them per size and estimator;
   - the matrix reader received N × N real symmetric matrices agreeing with the kept spectra
     (trace, Frobenius norm; their checksums are among the values identical in every file);
   - a missing library, a library without the entry point and one with the wrong ABI version are
@@ -226,6 +227,17 @@ def main():
                     "size %d: the matrix is the exact symmetric mirror of its lower triangle" % i)
             c.check(len(set(p["checksum"])) == len(p["checksum"]),
                     "size %d: every trial's matrix has its own checksum" % i)
+
+        # inspect lists the estimate columns and, per size, each estimator's failed trials.
+        r = rh.run([exe, "inspect", files["plain"]], d)
+        lines = r.stdout.splitlines()
+        want = ["estimate failure: N = %d: %s: 2 trial(s): %s" % (n, who, why)
+                for n in (16, 32) for who, why in (("crashy", CRASH), ("slow", SLOW))]
+        c.check(r.returncode == 0 and [l for l in lines if l.startswith("estimate failure:")] == want,
+                "inspect: the failed trials of each estimator per size, with the reason", r.stdout)
+        c.check(any(l.startswith("estimates:  norm.norm (truth limit_norm), lib.mean_square "
+                                 "(truth limit_moment:2)") for l in lines),
+                "inspect: the estimate columns with their truths", r.stdout)
 
         # The report scores every estimator against its truth, several of one truth side by side
         # (the plug-in's and the command's estimates are the same numbers, so their rows agree).
