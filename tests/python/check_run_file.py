@@ -140,6 +140,15 @@ def check_root(f):
     check(list(a["format_version"]) == [1, 0], "format_version = %r" % a["format_version"])
     check(isinstance(a["tool_version"], str) and a["tool_version"] != "", "tool_version")
     check(isinstance(a["git_revision"], str) and a["git_revision"] != "", "git_revision")
+    # The revision is looked up at every build (src/revision.cmake), so a run file written by a
+    # fresh build names the checkout's HEAD (with "-modified" if tracked files were changed).
+    source = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    head = subprocess.run(["git", "rev-parse", "--short=12", "HEAD"], cwd=source,
+                          capture_output=True, text=True)
+    if head.returncode == 0:
+        check(a["git_revision"].split("-")[0] == head.stdout.strip(),
+              "git_revision %r is the source's HEAD %s (rebuild if you committed since)"
+              % (a["git_revision"], head.stdout.strip()))
     check(a["job_text"].startswith("# sample job"), "job_text")
     check(a["job_canonical"] == "seed=7\nsample\n", "job_canonical")
     check(len(a["job_hash"]) == 64, "job_hash")
