@@ -69,43 +69,38 @@ const std::string kBuiltin =
     "[estimator.parameters]\nratio = 0.5\nentries = \"real\"\n[estimator.truth]\n"
     "second_moment = 1\nsecond_moment_unbiased = 1\n";
 
-model::TrialOutcome one_trial(int n) {
-  const auto j = job::parse_job(job_text(n, ""), "bench.toml");
-  model::Model m;
-  m.matrices = j.matrices;
-  m.expression = j.expression;
-  return model::SizeRunner(m, n).run(1, 0);
-}
+model::TrialOutcome one_trial(int n) { return runner_for(n, false).run(1, 0); }
 
 void BM_Trial(benchmark::State& state) {
-  const int n = static_cast<int>(state.range(0));
-  const auto j = job::parse_job(job_text(n, ""), "bench.toml");
-  model::Model m;
-  m.matrices = j.matrices;
-  m.expression = j.expression;
-  m.force_dense = true;
-  const model::SizeRunner runner(m, n);
+  const auto runner = runner_for(static_cast<int>(state.range(0)), false);
   std::uint64_t t = 0;
   for (auto _ : state) benchmark::DoNotOptimize(runner.run(1, t++));
 }
 BENCHMARK(BM_Trial)->Arg(1000)->Unit(benchmark::kMillisecond)->UseRealTime();
 
-void estimate_bench(benchmark::State& state, const std::string& estimator) {
-  const int n = static_cast<int>(state.range(0));
-  const auto outcome = one_trial(n);
-  estimate::EstimatorSet set(job::parse_job(job_text(n, estimator), "bench.toml"));
+// Times `set` on one trial's outcome, as the runner calls it (the first call, which starts a
+// library's helper, outside the timed loop).
+void time_set(benchmark::State& state, estimate::EstimatorSet& set,
+              const model::TrialOutcome& outcome) {
   estimate::TrialInput in;
-  in.n = n;
+  in.n = outcome.spectrum.size();
   in.seed = 1;
   in.spectrum = {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())};
+  in.matrix = outcome.matrix;
   std::vector<double> values;
   std::vector<std::string> reasons;
-  set.run(in, values, reasons);  // starts a library's helper outside the timed loop
+  set.run(in, values, reasons);
   for (auto _ : state) {
     set.run(in, values, reasons);
     ++in.trial;
     if (!reasons[0].empty()) state.SkipWithError(reasons[0].c_str());
   }
+}
+
+void estimate_bench(benchmark::State& state, const std::string& estimator) {
+  const int n = static_cast<int>(state.range(0));
+  estimate::EstimatorSet set(job::parse_job(job_text(n, estimator), "bench.toml"));
+  time_set(state, set, one_trial(n));
 }
 void BM_Builtin(benchmark::State& state) { estimate_bench(state, kBuiltin); }
 void BM_Library(benchmark::State& state) { estimate_bench(state, kLibrary); }
@@ -114,24 +109,34 @@ BENCHMARK(BM_Builtin)->Arg(1000)->Unit(benchmark::kMicrosecond)->UseRealTime();
 BENCHMARK(BM_Library)->Arg(1000)->Unit(benchmark::kMicrosecond)->UseRealTime();
 BENCHMARK(BM_Command)->Arg(1000)->Unit(benchmark::kMicrosecond)->UseRealTime();
 
-// The same library function called in the rank itself: what the helper's transport adds to.
-void BM_LibraryInProcess(benchmark::State& state) {
-  const int n = static_cast<int>(state.range(0));
-  const auto outcome = one_trial(n);
-  void* h = dlopen((kDir + "/libtest_plugin_ok.so").c_str(), RTLD_NOW | RTLD_LOCAL);
+// A plug-in's estimate function called in the rank itself, on one trial's spectrum (and
+// matrix): the floor that the call through the helper is compared with.
+void call_in_process(benchmark::State& state, const std::string& library,
+                     const Eigen::VectorXd& spectrum, const expr::MatrixView& matrix, int count) {
+  void* h = dlopen((kDir + "/" + library).c_str(), RTLD_NOW | RTLD_LOCAL);
   auto fn = reinterpret_cast<freegap_estimator_estimate_fn>(
       dlsym(h, FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL));
   freegap_trial t{};
   t.abi_version = FREEGAP_ESTIMATOR_ABI_VERSION;
-  t.n = n;
-  t.spectrum = outcome.spectrum.data();
-  t.spectrum_length = outcome.spectrum.size();
-  double out[2];
+  t.n = spectrum.size();
+  t.spectrum = spectrum.data();
+  t.spectrum_length = spectrum.size();
+  t.matrix = matrix.data;
+  t.matrix_rows = matrix.rows;
+  t.matrix_cols = matrix.cols;
+  t.matrix_is_complex = matrix.is_complex ? 1 : 0;
+  std::vector<double> out(static_cast<std::size_t>(count));
   char message[64];
   for (auto _ : state) {
-    benchmark::DoNotOptimize(fn(&t, out, 2, message, 64));
+    benchmark::DoNotOptimize(fn(&t, out.data(), count, message, 64));
     ++t.trial;
   }
+}
+
+// The same library function called in the rank itself: what the helper's transport adds to.
+void BM_LibraryInProcess(benchmark::State& state) {
+  call_in_process(state, "libtest_plugin_ok.so", one_trial(static_cast<int>(state.range(0))).spectrum,
+                  {}, 2);
 }
 BENCHMARK(BM_LibraryInProcess)->Arg(1000)->Unit(benchmark::kMicrosecond)->UseRealTime();
 
@@ -168,60 +173,28 @@ void BM_KeepCopy(benchmark::State& state) {
 BENCHMARK(BM_KeepCopy)->Args({1000, 0})->Args({1000, 1})->ArgNames({"n", "complex"})
     ->Unit(benchmark::kMicrosecond)->UseRealTime();
 
-// The matrix reader through its helper: request, spectrum and matrix over the socket pair.
+// The matrix reader through its helper: request and spectrum over the socket pair, the matrix
+// read where the runner keeps it, in the memory the helper maps.
 void BM_LibraryMatrix(benchmark::State& state) {
   const int n = static_cast<int>(state.range(0));
   const bool complex = state.range(1) != 0;
   estimate::EstimatorSet set(job::parse_job(
       complex ? complex_job_text(n, matrix_reader()) : job_text(n, matrix_reader()), "bench.toml"));
-  // Kept where the runner keeps it: in the memory the helper maps.
-  const auto outcome = runner_for(n, complex).run(
-      1, 0, [&set](std::size_t k) { return set.matrix_buffer(k); });
-  estimate::TrialInput in;
-  in.n = n;
-  in.seed = 1;
-  in.spectrum = {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())};
-  in.matrix = outcome.matrix;
-  std::vector<double> values;
-  std::vector<std::string> reasons;
-  set.run(in, values, reasons);  // starts the helper outside the timed loop
-  for (auto _ : state) {
-    set.run(in, values, reasons);
-    ++in.trial;
-    if (!reasons[0].empty()) state.SkipWithError(reasons[0].c_str());
-  }
+  time_set(state, set,
+           runner_for(n, complex).run(1, 0, [&set](std::size_t k) { return set.matrix_buffer(k); }));
 }
 BENCHMARK(BM_LibraryMatrix)->Args({1000, 0})->Args({1000, 1})->ArgNames({"n", "complex"})
     ->Unit(benchmark::kMicrosecond)->UseRealTime();
 
 // The same plug-in function called in the rank: its own O(N²) work, the floor.
 void BM_LibraryMatrixInProcess(benchmark::State& state) {
-  const int n = static_cast<int>(state.range(0));
-  const bool complex = state.range(1) != 0;
   std::vector<double> room;
-  const auto outcome = runner_for(n, complex).run(1, 0, [&room](std::size_t k) {
-    room.resize(k);
-    return room.data();
-  });
-  const auto view = outcome.matrix;
-  void* h = dlopen((kDir + "/libtest_plugin_matrix.so").c_str(), RTLD_NOW | RTLD_LOCAL);
-  auto fn = reinterpret_cast<freegap_estimator_estimate_fn>(
-      dlsym(h, FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL));
-  freegap_trial t{};
-  t.abi_version = FREEGAP_ESTIMATOR_ABI_VERSION;
-  t.n = n;
-  t.spectrum = outcome.spectrum.data();
-  t.spectrum_length = outcome.spectrum.size();
-  t.matrix = view.data;
-  t.matrix_rows = view.rows;
-  t.matrix_cols = view.cols;
-  t.matrix_is_complex = view.is_complex ? 1 : 0;
-  double out[11];
-  char message[64];
-  for (auto _ : state) {
-    benchmark::DoNotOptimize(fn(&t, out, 11, message, 64));
-    ++t.trial;
-  }
+  const auto outcome = runner_for(static_cast<int>(state.range(0)), state.range(1) != 0)
+                           .run(1, 0, [&room](std::size_t k) {
+                             room.resize(k);
+                             return room.data();
+                           });
+  call_in_process(state, "libtest_plugin_matrix.so", outcome.spectrum, outcome.matrix, 11);
 }
 BENCHMARK(BM_LibraryMatrixInProcess)->Args({1000, 0})->Args({1000, 1})
     ->ArgNames({"n", "complex"})->Unit(benchmark::kMicrosecond)->UseRealTime();
