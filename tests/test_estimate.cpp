@@ -336,6 +336,39 @@ TEST(EstimatorLibrary, PlanCountsTheKeptMatrix) {
   EXPECT_EQ(with.sizes[0].peak_bytes - without.sizes[0].peak_bytes, 8u * 20 * 20);
 }
 
+// A plug-in cannot change the matrix that another estimator of the rank reads next: the helper
+// holds no writable mapping of the shared memory and only a read-only descriptor of it.
+TEST(EstimatorLibrary, APluginCannotWriteTheSharedMatrix) {
+  std::string scribbler = matrix_estimator("scribble");
+  scribbler.replace(scribbler.find("\"probe\""), 7, "\"scribbler\"");
+  const auto j = job::parse_job(job_text(scribbler + matrix_estimator()), "j.toml");
+  estimate::EstimatorSet set(j);
+  model::Model m;
+  m.matrices = j.matrices;
+  m.expression = j.expression;
+  const model::SizeRunner runner(m, 20);
+  for (std::uint64_t t = 0; t < 2; ++t) {
+    const auto kept = runner.run(4, t, [&set](std::size_t k) { return set.matrix_buffer(k); });
+    const double expected_checksum = matrix_checksum(kept.matrix);
+    estimate::TrialInput in;
+    in.n = 20;
+    in.trial = t;
+    in.spectrum = std::span<const double>(kept.spectrum.data(),
+                                          static_cast<std::size_t>(kept.spectrum.size()));
+    in.matrix = kept.matrix;
+    std::vector<double> values;
+    std::vector<std::string> reasons;
+    set.run(in, values, reasons);
+    EXPECT_EQ(reasons, (std::vector<std::string>{
+                           "plug-in reported failure: cannot make the matrix writable "
+                           "(Permission denied)",
+                           ""}));
+    ASSERT_EQ(values.size(), 22u);
+    EXPECT_EQ(values[11 + 1], expected_checksum) << "trial " << t;  // the reader's checksum
+    EXPECT_EQ(matrix_checksum(kept.matrix), expected_checksum);
+  }
+}
+
 TEST(EstimatorLibrary, VersionOnePluginLoadsAndAMatrixReaderNeedsAMatrix) {
   // plugin.c declares version 1 (its info ends before `wants`): loaded, spectrum only.
   estimate::EstimatorSet old_one(job::parse_job(job_text(library_estimator("ok")), "j.toml"));

@@ -52,6 +52,21 @@ class SharedMatrixMemory {
   int fd() const { return fd_; }
   const double* data() const { return data_; }
 
+  // In a freshly forked helper: drops the rank's writable mapping and returns a read-only
+  // descriptor of the memory (a new open of it, so not even mprotect can make a mapping of it
+  // writable), or a copy of the rank's descriptor where /proc is not there to reopen it. Either
+  // way the plug-in cannot change the matrix another estimator of the rank reads next.
+  int read_only_in_child() const {
+    if (data_ != nullptr) ::munmap(data_, bytes_);
+    char path[64];
+    std::snprintf(path, sizeof path, "/proc/self/fd/%d", fd_);
+    const int fd = ::open(path, O_RDONLY);
+    if (fd < 0) return ::fcntl(fd_, F_DUPFD, 10);
+    const int high = ::fcntl(fd, F_DUPFD, 10);  // above the descriptors about to be set
+    ::close(fd);
+    return high;
+  }
+
   double* reserve(std::size_t doubles) {
     const std::size_t bytes = std::max<std::size_t>(doubles, 1) * sizeof(double);
     if (bytes > bytes_) {
@@ -510,9 +525,10 @@ class LibraryEstimator final : public Estimator {
       mine.reset();
       // Hold none of the rank's descriptors (the run file and its lock, MPI's sockets): only
       // standard input, output, error, the socket (moved to descriptor 3) and the shared matrix
-      // memory (descriptor 4). Both are first moved above 4 so neither dup2 clobbers the other.
+      // memory, read-only (descriptor 4). Both are first moved above 4 so neither dup2 clobbers
+      // the other.
       const int sock = ::fcntl(theirs.get(), F_DUPFD, 10);
-      const int shared = matrix_memory_ ? ::fcntl(matrix_memory_->fd(), F_DUPFD, 10) : -1;
+      const int shared = matrix_memory_ ? matrix_memory_->read_only_in_child() : -1;
       if (sock < 0 || (matrix_memory_ && shared < 0) || ::dup2(sock, 3) < 0 ||
           (shared >= 0 && ::dup2(shared, 4) < 0)) {
         ::_exit(4);

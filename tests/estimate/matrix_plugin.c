@@ -9,9 +9,15 @@
  *                               singular values);
  *   entry_10_re, entry_10_im,   entries (1, 0) and (0, 1), read with the documented
  *   entry_01_re, entry_01_im    column-major layout.
- * FAULT = 1 builds one that also sets an unknown bit of `wants`, which freegap must refuse. */
+ * FAULT = 1 builds one that also sets an unknown bit of `wants`, which freegap must refuse;
+ * FAULT = 2 one that tries to make the matrix writable and scribble on it (which freegap's
+ * read-only sharing must refuse): it reports failure with the reason mprotect gave, or, if it
+ * could write, returns its values as usual after writing. */
+#include <errno.h>
 #include <stdint.h>
+#include <stdio.h>
 #include <string.h>
+#include <sys/mman.h>
 
 #include "freegap/estimator_abi.h"
 
@@ -76,5 +82,13 @@ int freegap_estimator_estimate(const freegap_trial* t, double* out, int capacity
   out[8] = t->matrix_is_complex ? e10[1] : 0.0;
   out[9] = e01[0];
   out[10] = t->matrix_is_complex ? e01[1] : 0.0;
+#if FAULT == 2
+  /* The matrix starts a mapping of its own, so it is page-aligned. */
+  if (mprotect((void*)t->matrix, (size_t)count * sizeof(double), PROT_READ | PROT_WRITE) != 0) {
+    snprintf(message, (size_t)message_size, "cannot make the matrix writable (%s)", strerror(errno));
+    return -1;
+  }
+  ((double*)t->matrix)[0] = 1e300;
+#endif
   return 11;
 }
