@@ -1,13 +1,13 @@
 // Estimators that ride along with a run: built-in ones, plug-in shared libraries (the C ABI of
 // include/freegap/estimator_abi.h) and external commands, each called on every trial's spectrum
-// (plug-ins that ask for it: and its matrix) and returning named scalar estimates. A failure of one estimator on one trial — a crash, a hang
-// past its timeout, a NaN, a wrong count, malformed output — is that trial's recorded failure,
-// never the run's (src/estimate/PLUGINS.md).
+// (plug-ins that ask for it: and its matrix) and returning named scalar estimates. A failure of
+// one estimator on one trial — a crash, a hang past its timeout, a NaN, a wrong count, malformed
+// output — is that trial's recorded failure, never the run's (src/estimate/PLUGINS.md).
 //
 // Containment: a plug-in library runs in a helper process forked from the rank once (and again
 // after a failure), fed trials through a socket pair (and, for a plug-in that reads the matrix,
-// shared memory it maps read-only), so a segfault or a hang kills the helper, not the rank; a command is a new process per trial. Built-ins are freegap's own code and run in
-// the rank.
+// shared memory it maps read-only), so a segfault or a hang kills the helper, not the rank; a
+// command is a new process per trial. Built-ins are freegap's own code and run in the rank.
 #pragma once
 
 #include <cstdint>

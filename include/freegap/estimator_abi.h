@@ -29,8 +29,8 @@
  *     hang past the job's timeout, a NaN or infinite value, or a return value other than the
  *     declared count marks that trial's estimates failed with the reason, and the run goes on;
  *   - estimates must be a deterministic function of the trial's input (spectrum, matrix, N,
- *     trial index, seed, parameters) for results to be the same on any number of ranks; use the seed and
- *     trial index if the estimator needs random numbers;
+ *     trial index, seed, parameters) for results to be the same on any number of ranks; use the
+ *     seed and trial index if the estimator needs random numbers;
  *   - the helper is a fork of the rank: a plug-in must not call MPI, and state kept between calls
  *     in the helper is lost when the helper is restarted after a failure.
  */

@@ -38,8 +38,8 @@ class SharedMatrixMemory {
  public:
   SharedMatrixMemory() : fd_(::memfd_create("freegap-trial-matrix", MFD_CLOEXEC)) {
     if (fd_ < 0) {
-      throw Error(std::string("cannot create the memory shared with plug-in helpers (memfd_create: ") +
-                  std::strerror(errno) + ")");
+      throw Error(std::string("cannot create the memory shared with plug-in helpers ") +
+                  "(memfd_create: " + std::strerror(errno) + ")");
     }
   }
   ~SharedMatrixMemory() {
@@ -293,7 +293,8 @@ constexpr int kMessageSize = 512;
     Request req{};
     if (!read_exact(fd, &req, sizeof req)) ::_exit(0);
     if (req.length < 0 || req.length > kMost || req.matrix_rows < 0 || req.matrix_cols < 0 ||
-        req.matrix_rows > kMost || req.matrix_cols > kMost / std::max<std::int64_t>(1, req.matrix_rows)) {
+        req.matrix_rows > kMost ||
+        req.matrix_cols > kMost / std::max<std::int64_t>(1, req.matrix_rows)) {
       ::_exit(3);
     }
     spectrum.resize(static_cast<std::size_t>(req.length));

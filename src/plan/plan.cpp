@@ -510,7 +510,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   std::vector<model::SizeRunner> runners;
   for (const auto n : job.sizes) runners.push_back(runner_at(job, n));
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
-  // and one that reads the matrix adds its copies to the memory estimate.
+  // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
   e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
   if (options.threads > 1) {
