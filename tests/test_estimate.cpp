@@ -187,6 +187,27 @@ TEST(EstimatorOpen, RefusesBadLibrariesBeforeTheRun) {
             "parameter ratio; give ratio = c, the N/M of the Wishart matrix in the expression");
 }
 
+// A library named by a bare file name is the file beside the job file (here the job is in the
+// working directory), not a name for dlopen to look up on the system's library path.
+TEST(EstimatorOpen, BareLibraryNameIsTheFileBesideTheJob) {
+  const auto here = std::filesystem::current_path();
+  std::filesystem::current_path(kDir);
+  std::string text = library_estimator("ok");
+  text.replace(text.find(plugin("ok")), plugin("ok").size(), "libtest_plugin_ok.so");
+  std::vector<double> values;
+  std::vector<std::string> reasons;
+  std::string message;
+  try {
+    estimate::EstimatorSet set(job::parse_job(job_text(text), "j.toml"));
+    set.run(input(0), values, reasons);
+  } catch (const InputError& e) {
+    message = e.what();
+  }
+  std::filesystem::current_path(here);
+  EXPECT_EQ(message, "");
+  EXPECT_EQ(values, (std::vector<double>{kMeanSquare, kTop}));
+}
+
 TEST(EstimatorLibrary, ReturnsTheDeclaredEstimatesInSortedOrder) {
   estimate::EstimatorSet set(job::parse_job(job_text(library_estimator("ok")), "j.toml"));
   std::vector<double> values;

@@ -343,7 +343,11 @@ class LibraryEstimator final : public Estimator {
  public:
   LibraryEstimator(const job::Job& job, const job::EstimatorSpec& spec) : spec_(spec) {
     const std::string at = where(job, spec, "library");
-    handle_ = ::dlopen(spec.library.c_str(), RTLD_NOW | RTLD_LOCAL);
+    // The job names a file (beside the job file when relative); dlopen would look a bare file
+    // name up on the system's library path instead.
+    const std::string file =
+        spec.library.find('/') == std::string::npos ? "./" + spec.library : spec.library;
+    handle_ = ::dlopen(file.c_str(), RTLD_NOW | RTLD_LOCAL);
     if (handle_ == nullptr) {
       const char* why = ::dlerror();
       throw InputError(at + "cannot load '" + spec.library + "' (" + (why ? why : "unknown") +
