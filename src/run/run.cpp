@@ -806,10 +806,10 @@ std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matr
   const double sampler_transient = 3.0 * 16.0 * n * n;
   // Estimators that read the matrix: one whole N × N copy of it, in memory the rank shares with
   // its plug-in helpers (they map it; they do not copy it).
-  const double matrix_copies =
+  const double matrix_copy =
       keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
   return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
-                                  sampler_transient + matrix_copies + 8.0 * n + 64.0 * 1024 * 1024);
+                                  sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
 }
 
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
