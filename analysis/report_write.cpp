@@ -2,7 +2,6 @@
 #include <hdf5.h>
 #include <spawn.h>
 #include <sys/wait.h>
-#include <unistd.h>
 
 #include <cerrno>
 #include <cstring>
@@ -11,6 +10,7 @@
 
 #include "freegap/analysis/report.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/output_dir.hpp"
 #include "freegap/version.hpp"
 
 extern char** environ;
@@ -96,13 +96,33 @@ int run_program(const std::vector<std::string>& argv) {
   return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
 }
 
-// ".NAME.WHAT.PID" beside the directory NAME.
-fs::path hidden_sibling(const fs::path& parent, const fs::path& dir, const char* what) {
-  std::string name(".");
-  name += dir.filename().string();
-  name += what;
-  name += std::to_string(getpid());
-  return parent / name;
+// The figures (figures/*.png, *.svg) of a report whose tables are already in `tmp`.
+void draw_figures(const fs::path& tmp, const Report& report, const ReportOptions& options) {
+  std::error_code ec;
+  fs::create_directories(tmp / "figures", ec);
+  if (ec) throw Error("report: cannot create '" + (tmp / "figures").string() + "': " + ec.message());
+  const std::string script = options.plot_script.empty()
+                                 ? std::string(FREEGAP_ANALYSIS_DIR "/plot_report.py")
+                                 : options.plot_script;
+  if (!fs::exists(script, ec)) {
+    throw Error("report: the figure script '" + script + "' is missing; use --no-figures");
+  }
+  const int rc = run_program({options.python, script, tmp.string()});
+  if (rc != 0) {
+    throw Error("report: drawing the figures failed (" + options.python + " " + script +
+                " exited with " + std::to_string(rc) +
+                "); it needs Debian's python3-matplotlib, or use --no-figures");
+  }
+  const std::string estimators = fs::path(script).parent_path() / "plot_estimators.py";
+  for (const auto& [name, text] : report.files) {
+    if (name.rfind("estimators_run", 0) != 0) continue;
+    const std::string stem = (tmp / "figures" / fs::path(name).stem()).string();
+    const int erc = run_program({options.python, estimators, (tmp / name).string(), stem});
+    if (erc != 0) {
+      throw Error("report: drawing the estimator figure failed (" + estimators +
+                  " exited with " + std::to_string(erc) + "); use --no-figures");
+    }
+  }
 }
 
 fs::path default_dir(const std::string& first) {
@@ -114,68 +134,21 @@ fs::path default_dir(const std::string& first) {
 
 std::string write_report(const std::vector<std::string>& run_files, const ReportOptions& options,
                          Report* built) {
-  const fs::path dir = options.output_dir.empty() ? default_dir(run_files.at(0)) : fs::path(options.output_dir);
-  std::error_code ec;
-  if (fs::exists(dir, ec)) {
-    if (!fs::is_directory(dir, ec)) {
-      throw InputError("report: output '" + dir.string() + "' exists and is not a directory; choose another -o");
-    }
-    if (!fs::is_empty(dir, ec) && !fs::exists(dir / "report.md", ec)) {
-      throw InputError("report: output directory '" + dir.string() +
-                       "' is not empty and holds no report.md, so it is not a freegap report; "
-                       "choose another -o (a report directory is replaced as a whole)");
-    }
-  }
+  const fs::path dir =
+      options.output_dir.empty() ? default_dir(run_files.at(0)) : fs::path(options.output_dir);
+  // Refused before any work when the directory holds anything freegap did not write there.
+  output_dir::check_replaceable(dir, "report", "-o");
   const Report report = build_report(run_files, options);
 
-  // Everything goes into a temporary sibling first; it replaces `dir` only when complete.
-  const fs::path parent = dir.has_parent_path() ? dir.parent_path() : fs::path(".");
-  const fs::path tmp = hidden_sibling(parent, dir, ".writing.");
-  fs::remove_all(tmp, ec);
-  if (!fs::create_directories(tmp, ec) || ec) {
-    throw Error("report: cannot create '" + tmp.string() + "': " + ec.message());
-  }
-  try {
-    write_text(tmp / "report.md", report.markdown);
-    for (const Table& t : report.tables) write_text(tmp / (t.name + ".csv"), to_csv(t));
-    for (const auto& [name, text] : report.files) write_text(tmp / name, text);
-    write_hdf5(tmp / "report.h5", report.tables);
-    if (options.figures) {
-      fs::create_directories(tmp / "figures");
-      const std::string script =
-          options.plot_script.empty() ? std::string(FREEGAP_ANALYSIS_DIR "/plot_report.py") : options.plot_script;
-      if (!fs::exists(script, ec)) {
-        throw Error("report: the figure script '" + script + "' is missing; use --no-figures");
-      }
-      const int rc = run_program({options.python, script, tmp.string()});
-      if (rc != 0) {
-        throw Error("report: drawing the figures failed (" + options.python + " " + script +
-                    " exited with " + std::to_string(rc) +
-                    "); it needs Debian's python3-matplotlib, or use --no-figures");
-      }
-      const std::string estimators = fs::path(script).parent_path() / "plot_estimators.py";
-      for (const auto& [name, text] : report.files) {
-        if (name.rfind("estimators_run", 0) != 0) continue;
-        const std::string stem = (tmp / "figures" / fs::path(name).stem()).string();
-        const int erc = run_program({options.python, estimators, (tmp / name).string(), stem});
-        if (erc != 0) {
-          throw Error("report: drawing the estimator figure failed (" + estimators + " exited with " +
-                      std::to_string(erc) + "); use --no-figures");
-        }
-      }
-    }
-    if (fs::exists(dir, ec)) {
-      const fs::path old = hidden_sibling(parent, dir, ".old.");
-      fs::rename(dir, old);
-      fs::rename(tmp, dir);
-      fs::remove_all(old, ec);
-    } else {
-      fs::rename(tmp, dir);
-    }
-  } catch (...) {
-    fs::remove_all(tmp, ec);
-    throw;
-  }
+  // Everything goes into a staging sibling first; it replaces `dir` only when complete.
+  output_dir::Staged staged(dir, "report", "-o");
+  const fs::path& tmp = staged.path();
+  write_text(tmp / "report.md", report.markdown);
+  for (const Table& t : report.tables) write_text(tmp / (t.name + ".csv"), to_csv(t));
+  for (const auto& [name, text] : report.files) write_text(tmp / name, text);
+  write_hdf5(tmp / "report.h5", report.tables);
+  if (options.figures) draw_figures(tmp, report, options);
+  staged.commit();
   if (built) *built = report;
   return dir.string();
 }

@@ -13,6 +13,7 @@
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/model.hpp"
+#include "freegap/output_dir.hpp"
 
 #ifndef FREEGAP_ANALYSIS_DIR
 #define FREEGAP_ANALYSIS_DIR ""
@@ -46,6 +47,8 @@ int run_limit(const LimitOptions& opt) {
   if (opt.points < 10) {
     throw InputError("--points must be at least 10 (got " + std::to_string(opt.points) + ")");
   }
+  // An output directory holding anything freegap did not write is refused before any work.
+  if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
   std::vector<ensembles::MatrixSpec> specs;
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
   const expr::Expression expression(opt.expression, specs);
@@ -109,15 +112,11 @@ int run_limit(const LimitOptions& opt) {
   if (opt.output.empty()) return 0;
   namespace fs = std::filesystem;
   const fs::path dir(opt.output);
-  std::error_code ec;
-  fs::create_directories(dir, ec);
-  if (ec)
-    throw InputError("-o " + opt.output + ": cannot create the directory (" + ec.message() + ")");
-  const fs::path csv = dir / "limit.csv";
-  const fs::path partial = dir / "limit.csv.partial";
+  output_dir::Staged staged(dir, "limit", "-o");
+  const fs::path csv = staged.path() / "limit.csv";
   {
-    std::ofstream out(partial);
-    if (!out) throw InputError("-o " + opt.output + ": cannot write " + partial.string());
+    std::ofstream out(csv);
+    if (!out) throw InputError("-o " + opt.output + ": cannot write " + csv.string());
     out << "x,density,cdf\n";
     char line[128];
     for (const auto& r : reports) {
@@ -125,18 +124,19 @@ int run_limit(const LimitOptions& opt) {
                     r.converged ? r.density : std::nan(""), law->cdf(r.x));
       out << line;
     }
-    if (!out) throw Error("writing " + partial.string() + " failed");
+    if (!out) throw Error("writing " + csv.string() + " failed");
   }
-  fs::rename(partial, csv);
-  std::printf("wrote %s\n", csv.string().c_str());
 
   const char* env = std::getenv("FREEGAP_PLOT_LIMIT");
   const std::string script = env ? env : std::string(FREEGAP_ANALYSIS_DIR) + "/plot_limit.py";
   const std::string title = "N → ∞ law of " + expression.text();
   const std::string command = "/usr/bin/python3 " + quoted(script) + " " + quoted(csv.string()) +
-                              " " + quoted((dir / "limit").string()) + " " + quoted(title) + " " +
+                              " " + quoted((staged.path() / "limit").string()) + " " +
+                              quoted(title) + " " +
                               std::to_string(support.lo) + " " + std::to_string(support.hi);
   const int rc = std::system(command.c_str());
+  staged.commit();
+  std::printf("wrote %s\n", (dir / "limit.csv").string().c_str());
   if (rc == 0) {
     std::printf("wrote %s and %s\n", (dir / "limit.png").string().c_str(),
                 (dir / "limit.svg").string().c_str());

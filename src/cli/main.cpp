@@ -316,6 +316,11 @@ int main(int argc, char** argv) {
   } catch (const freegap::Error& e) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitFailure;
+  } catch (const std::exception& e) {
+    // Anything else (a file system or allocation failure) is still a message and an exit code,
+    // never a termination.
+    std::cerr << "freegap: " << e.what() << "\n";
+    return kExitFailure;
   }
   return 0;
 }

@@ -975,7 +975,13 @@ void check_replaceable(const std::string& path) {
                        "' is open in another process (HDF5 could not lock it); wait for that "
                        "run to finish or use another output path");
     }
-    return;  // an HDF5 file HDF5 cannot open (truncated, damaged): a run file may be replaced
+    // Truncated, damaged, or not HDF5 at all behind a copied signature: nothing proves freegap
+    // wrote it, so it is not deleted (a damaged run file of one's own is removed by hand).
+    throw InputError("'" + path +
+                     "' cannot be opened as an HDF5 file (damaged, cut short or not HDF5), so "
+                     "nothing proves it is a freegap run file and --fresh does not delete it; if "
+                     "it is a run file of yours, delete it yourself, otherwise choose another "
+                     "output path");
   }
   const Id file(id, H5Fclose);
   if (!h5::has_attribute(file.get(), "file_kind")) {

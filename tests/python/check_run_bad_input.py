@@ -77,6 +77,10 @@ EIGEN_FILE = edit('ensemble = "goe"', 'ensemble = "diagonal"\nlaw = "file"\npath
 
 OUT = "out.h5"
 
+UNPROVEN = ("'%s' cannot be opened as an HDF5 file (damaged, cut short or not HDF5), so nothing "
+            "proves it is a freegap run file and --fresh does not delete it; if it is a run file of "
+            "yours, delete it yourself, otherwise choose another output path\n")
+
 
 def build_templates(exe, t):
     """A finished run file of GOOD (g.h5) and of another job (o.h5, only for its hash)."""
@@ -116,6 +120,22 @@ def cases(good_hash, other_hash, template):
 
     def text_file(name):
         return lambda d: rh.write(os.path.join(d, name), "station log: 14 readings\n")
+
+    def signature_text(name):
+        # A text file that merely starts with the 8-byte HDF5 signature (issue 20, item 2).
+        return lambda d: open(os.path.join(d, name), "wb").write(
+            b"\x89HDF\r\n\x1a\n" + b"station log: 14 readings\n" * 40)
+
+    def foreign_cut(name):
+        # A foreign HDF5 file cut short in transfer: `head -c 3000 survey.h5` (issue 20, item 2).
+        def make(d):
+            full = os.path.join(d, "full-survey.h5")
+            with h5py.File(full, "w") as f:
+                f["soil_moisture"] = np.linspace(0.1, 0.4, 4000)
+            with open(full, "rb") as src, open(os.path.join(d, name), "wb") as dst:
+                dst.write(src.read(3000))
+            os.remove(full)
+        return make
 
     def eigen_file(content):
         return lambda d: rh.write(os.path.join(d, "levels.txt"), content)
@@ -258,6 +278,17 @@ def cases(good_hash, other_hash, template):
              output="survey.h5",
              expect=F + "'survey.h5' is not a freegap run file (file_kind is missing); --fresh replaces "
                         "only freegap run files; choose another output path\n"),
+        # Nothing HDF5 cannot open is deleted: no kind marker can be read, so nothing proves
+        # freegap wrote it (issue 20, item 2; these two were deleted and replaced before).
+        dict(name="--fresh on a text file that starts with the HDF5 signature", files={"job.toml": GOOD},
+             setup=[signature_text("s.h5")], args=["run", "job.toml", "-o", "s.h5", "--quiet", "--fresh"],
+             output="s.h5", expect=F + UNPROVEN % "s.h5"),
+        dict(name="--fresh on a foreign HDF5 file cut short", files={"job.toml": GOOD},
+             setup=[foreign_cut("s.h5")], args=["run", "job.toml", "-o", "s.h5", "--quiet", "--fresh"],
+             output="s.h5", expect=F + UNPROVEN % "s.h5"),
+        dict(name="--fresh on a run file cut short", files={"job.toml": GOOD},
+             setup=[truncated("cut.h5")], args=["run", "job.toml", "-o", "cut.h5", "--quiet", "--fresh"],
+             output="cut.h5", expect=F + UNPROVEN % "cut.h5"),
         dict(name="--fresh on a directory", files={"job.toml": GOOD},
              setup=[directory("results"), lambda d: rh.write(os.path.join(d, "results", "table.csv"), "1,2\n")],
              args=["run", "job.toml", "-o", "results", "--quiet", "--fresh"],
