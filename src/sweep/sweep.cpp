@@ -16,6 +16,9 @@ namespace fs = std::filesystem;
 
 namespace {
 
+// The second line of every task job file a sweep writes; what proves it may be overwritten.
+constexpr const char* kTaskMark = "Written by freegap sweep from ";
+
 std::string where(const std::string& path, const toml::node* node, const std::string& key) {
   std::string s = path + ":";
   if (node && node->source().begin.line > 0) s += std::to_string(node->source().begin.line) + ":";
@@ -140,7 +143,7 @@ Sweep expand(const std::string& sweep_path) {
     }
     std::ostringstream text;
     text << "# Task " << i << " of the sweep " << sweep_file.string() << ": " << *vary << " = "
-         << value_text << ".\n# Written by freegap sweep from " << base_path.string()
+         << value_text << ".\n# " << kTaskMark << base_path.string()
          << "; edit the sweep or the base job, not this file.\n"
          << job << "\n";
     Task task;
@@ -158,7 +161,54 @@ Sweep expand(const std::string& sweep_path) {
   return s;
 }
 
+namespace {
+
+// True when `path` is absent, or is a task job file an earlier `freegap sweep` wrote (its second
+// line carries the mark); anything else is not ours to overwrite.
+bool task_file_replaceable(const fs::path& path) {
+  std::error_code ec;
+  if (!fs::exists(fs::symlink_status(path, ec))) return true;
+  if (!fs::is_regular_file(fs::symlink_status(path, ec))) return false;
+  std::ifstream in(path);
+  std::string first, second;
+  return std::getline(in, first) && first.rfind("# Task ", 0) == 0 && std::getline(in, second) &&
+         second.rfind(std::string("# ") + kTaskMark, 0) == 0;
+}
+
+// True when `path` is absent, or is a list an earlier sweep wrote: every line names a task job
+// file of ours in the same directory.
+bool list_file_replaceable(const fs::path& path) {
+  std::error_code ec;
+  if (!fs::exists(fs::symlink_status(path, ec))) return true;
+  if (!fs::is_regular_file(fs::symlink_status(path, ec))) return false;
+  std::ifstream in(path);
+  std::string line;
+  while (std::getline(in, line)) {
+    const fs::path named(line);
+    if (named.parent_path() != path.parent_path() || named.extension() != ".toml" ||
+        !fs::exists(named, ec) || !task_file_replaceable(named)) {
+      return false;
+    }
+  }
+  return true;
+}
+
+}  // namespace
+
 void write(const Sweep& sweep) {
+  // Nothing is written unless every file it would overwrite is provably an earlier sweep's.
+  for (const auto& task : sweep.tasks) {
+    if (!task_file_replaceable(task.job_path)) {
+      throw InputError("sweep: '" + task.job_path + "' exists and was not written by freegap "
+                       "sweep, so it is not overwritten; set directory = \"...\" in the sweep "
+                       "file to another folder, or move that file away");
+    }
+  }
+  if (!list_file_replaceable(sweep.list_path)) {
+    throw InputError("sweep: '" + sweep.list_path + "' exists and is not a list freegap sweep "
+                     "wrote, so it is not overwritten; set directory = \"...\" in the sweep file "
+                     "to another folder, or move that file away");
+  }
   std::error_code ec;
   fs::create_directories(sweep.directory, ec);
   if (ec) throw Error("cannot create directory '" + sweep.directory + "': " + ec.message());

@@ -13,7 +13,9 @@ that manifest; anything else is refused with exit 2 and left exactly as it was. 
   4. `report -o .` in a directory holding a previous report (before: an uncaught
      std::filesystem_error, exit 134), from the directory itself;
   5. a report directory of an earlier freegap, without a manifest;
-  6. `limit -o` into a directory with a file of the user's, and twice into its own directory.
+  6. `limit -o` into a directory with a file of the user's, and twice into its own directory;
+  7. `sweep` over a task file or a jobs.txt of the user's (before: overwritten), and twice over
+     its own files.
 """
 import os
 import sys
@@ -136,6 +138,22 @@ def main():
             c.check(r.returncode == 0, "limit -o into its own directory (%s time): exit 0" % attempt,
                     r.stderr)
         c.check(os.path.isfile(os.path.join(d, "lim2", "limit.csv")), "  ... limit.csv is there")
+
+        # 7. sweep writes its task files only over files an earlier sweep wrote.
+        rh.write(os.path.join(d, "seeds.toml"), 'base = "job.toml"\nvary = "seed"\nvalues = [1, 2]\n')
+        r = rh.run([exe, "sweep", "seeds.toml"], d)
+        c.check(r.returncode == 0, "sweep into a new folder: exit 0", r.stderr)
+        r = rh.run([exe, "sweep", "seeds.toml"], d)
+        c.check(r.returncode == 0, "the same sweep again over its own files: exit 0", r.stderr)
+        for victim, text in (("seeds-1.toml", "# my own job, do not lose\n"), ("jobs.txt", "my list\n")):
+            rh.write(os.path.join(d, "seeds", victim), text)
+            before = rh.snapshot(d)
+            r = rh.run([exe, "sweep", "seeds.toml"], d)
+            c.equal(r.returncode, rh.EXIT_BAD_INPUT, "sweep over the user's %s: exit 2" % victim)
+            c.check("was not written by freegap sweep" in r.stderr or "is not a list freegap sweep wrote"
+                    in r.stderr, "  ... the message says why", r.stderr)
+            c.equal(rh.snapshot(d), before, "  ... nothing changed")
+            os.remove(os.path.join(d, "seeds", victim))
     c.finish()
 
 
