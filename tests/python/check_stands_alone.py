@@ -2,12 +2,12 @@
 
 Every line of every file of the source tree (the files git tracks, plus new files git does not
 ignore; the whole tree, without build directories, when it is not a git checkout) is checked for
-  - a path into a folder beside or above the repository (`shared/...`, `../shared`), or a mention
-    of a notes folder outside it;
-  - `DESIGN.md` or `STYLE.md` when the repository holds no file of that name;
-  - the names of notes that live outside the repository (`perf-anchors`,
-    `check-values-and-methods`, `build-notes`), and `cluster-notes` or `check-values` other than as
-    a path to the page in `docs/`;
+  - a path into the folder of notes that sat beside the repository (a path starting with its
+    name, "shared", and a slash, or going up to it), or a mention of that folder;
+  - the design or style notes (DESIGN or STYLE, then .md) when the repository holds no file of
+    that name;
+  - the file names of the outside notes on performance, check values and building, and the names
+    of the cluster notes and check values other than as a path to their page in `docs/`;
   - a `docs/NAME.md` mention whose file does not exist;
   - in Markdown files, a relative link whose target does not exist.
 It prints every offending line as `path:line: reason: text` and fails if there is one.
@@ -55,21 +55,23 @@ DIRSET = {Path(p).parent.as_posix() for p in FILES} | {
     q.as_posix() for p in FILES for q in Path(p).parents}
 
 OUTSIDE = [
-    (re.compile(r"(?<![\w.-])(?:\.\./)*shared/"), "path into a folder outside the repository"),
+    # Built from parts so that this file does not itself contain the strings it looks for.
+    (re.compile(r"(?<![\w./-])(?:\.\./)*shared" "/"), "path into a folder outside the repository"),
     (re.compile(r"\.\./shared\b"), "path into a folder outside the repository"),
     (re.compile(r"\b(?:the|a) shared folder\b", re.I),
      "mention of a folder outside the repository"),
     # "the design notes" with no docs/ page named on the line: notes a clone does not have.
     (re.compile(r"^(?!.*\bdocs/).*\b(?:build|design) notes\b", re.I),
      "mention of notes outside the repository"),
-    (re.compile(r"\breference §", re.I), "section of a reference outside the repository"),
-    (re.compile(r"\bperf-anchors\b"), "notes outside the repository (docs/performance.md)"),
-    (re.compile(r"\bcheck-values-and-methods\b"),
+    (re.compile(r"\breference\s§", re.I), "section of a reference outside the repository"),
+    (re.compile(r"\bperf" r"-anchors\b"), "notes outside the repository (docs/performance.md)"),
+    (re.compile(r"\bcheck" r"-values-and-methods\b"),
      "notes outside the repository (docs/check-values.md)"),
-    (re.compile(r"\bbuild-notes\b"), "notes outside the repository (docs/building.md)"),
+    (re.compile(r"\bbuild" r"-notes\b"), "notes outside the repository (docs/building.md)"),
 ]
 NAMED_FILES = [re.compile(r"\b(DESIGN|STYLE)\.md\b")]
-DOC_STEMS = re.compile(r"(?<![\w.-])((?:[\w.-]+/)*)(cluster-notes|check-values)(?![\w-])(\.md)?")
+DOC_STEMS = re.compile(r"(?<![\w.-])((?:[\w.-]+/)*)(cluster" r"-notes|check" r"-values)"
+                       r"(?![\w-])(\.md)?")
 DOCS_MENTION = re.compile(r"(?<![\w-])((?:\.\.?/)*)docs/([\w./-]*?[\w-]+\.md)\b")
 MD_LINK = re.compile(r"\]\(([^()\s]+)\)")
 
@@ -110,8 +112,37 @@ def check_line(path, text):
     return reasons
 
 
+def self_test():
+    """The detector itself: lines it must flag and lines it must pass (so a pattern broken into
+    matching nothing cannot make this test pass vacuously). Built from parts, as above."""
+    up, notes = "../" + "shared", "shared" + "/reference/"
+    must_flag = [
+        ("src/a.cpp", "// see %s/x" % up),
+        ("src/a.cpp", "// (%sbuild%s)" % (notes, "-notes.md")),
+        ("src/a.cpp", "// (%s rule 3)" % ("DESIGN" + ".md")),
+        ("src/a.cpp", "// (%s §10)" % ("STYLE" + ".md")),
+        ("src/a.cpp", "// (reference" + " §1.3)"),
+        ("src/a.cpp", "// (perf" + "-anchors §4)"),
+        ("src/a.cpp", "// (cluster" + "-notes §3)"),
+        ("src/a.cpp", "// in the shared" + " folder"),
+        ("src/a.cpp", "// docs/no-such-page.md §2"),
+        ("README.md", "[gone](docs/no-such-page.md)"),
+        ("docs/x.md", "[up too far](../../outside.md)"),
+    ]
+    must_pass = [
+        ("src/a.cpp", "// docs/cluster-notes.md §3.5 and docs/check-values.md §1.3"),
+        ("src/a.cpp", "// a shared matrix, /usr/share/doc, shared_ptr"),
+        ("docs/x.md", "[notes](cluster" "-notes.md) [design](design.md) [up](../README.md)"),
+        ("README.md", "[docs](docs/README.md), https://example.org/shared" + "/x"),
+    ]
+    failures = ["not flagged: %s: %s" % c for c in must_flag if not check_line(*c)]
+    failures += ["flagged: %s: %s: %s" % (c + (check_line(*c),)) for c in must_pass
+                 if check_line(*c)]
+    return failures
+
+
 def main():
-    problems = []
+    problems = self_test()
     for path in FILES:
         if path == SELF:
             continue  # it names the patterns it looks for
