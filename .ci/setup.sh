@@ -8,14 +8,14 @@ FREEGAP_ROOT="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
 FREEGAP_BUILD_DIR="${FREEGAP_BUILD_DIR:-$FREEGAP_ROOT/build}"
 export FREEGAP_ROOT FREEGAP_BUILD_DIR
 
-# The stack as Debian 12 ships it (shared build notes); python3-* are Debian's, for plots and
+# The stack as Debian 12 ships it (docs/building.md); python3-* are Debian's, for plots and
 # cross-checks, and are used through /usr/bin/python3.
 FREEGAP_PACKAGES=(
   build-essential cmake pkg-config git openssh-client
   libopenmpi-dev openmpi-bin libeigen3-dev libhdf5-dev hdf5-tools libcli11-dev
   libgtest-dev libbenchmark-dev libopenblas-dev liblapacke-dev librandom123-dev
   libtomlplusplus-dev python3 python3-numpy python3-scipy python3-h5py python3-matplotlib
-  # A real one-node Slurm for tests/slurm (started by hand, no systemd; cluster-notes §3).
+  # A real one-node Slurm for tests/slurm (started by hand, no systemd; docs/cluster-notes.md §3).
   slurmctld slurmd slurm-client munge
 )
 
@@ -53,8 +53,8 @@ freegap_build() {
   cmake --build "$FREEGAP_BUILD_DIR" -j "$jobs"
 }
 
-# One rank per core with one BLAS thread beats threads (perf-anchors §7); MPI as root needs the
-# override (cluster-notes §1). Harmless when not root.
+# One rank per core, one BLAS thread beats threads (docs/performance.md §8); MPI as root needs the
+# override (docs/cluster-notes.md §1.1). Harmless when not root.
 export OPENBLAS_NUM_THREADS="${OPENBLAS_NUM_THREADS:-1}"
 if [ "$(id -u)" -eq 0 ]; then
   export OMPI_ALLOW_RUN_AS_ROOT=1 OMPI_ALLOW_RUN_AS_ROOT_CONFIRM=1

@@ -286,14 +286,15 @@ BootstrapInterval bootstrap_alpha_of_means(std::span<const double> sizes,
 }
 
 std::span<const PublishedRate> published_rates() {
-  // shared/reference §3.3 (and §2.1–2.3, §3.2 for the sources named there).
+  // docs/check-values.md §3.3 (and §2.1–2.3, §3.2 for the sources named there).
   static constexpr std::array<PublishedRate, 10> kRates = {{
       {"moments/gue", "GUE moments E tr X^k − Cat", 2.0,
        "Harer & Zagier 1986 (from memory), genus expansion in 1/N^2"},
       {"moments/goe", "GOE moments E tr X^k − Cat", 1.0, "Ledoux 2009; exact polynomials §2.2"},
       {"moments/wishart_complex", "complex Wishart moments", 2.0,
        "Hanlon, Stanley & Stembridge 1992 (from memory)"},
-      {"moments/wishart_real", "real Wishart moments", 1.0, "exact polynomials, reference §2.3"},
+      {"moments/wishart_real", "real Wishart moments", 1.0,
+       "exact polynomials, docs/check-values.md §2.3"},
       {"moments/haar_unitary_sum", "Haar-unitary-rotated sums A + U B U^*", 2.0,
        "Collins 2003 (from memory)"},
       {"moments/haar_orthogonal_sum", "Haar-orthogonal-rotated sums A + O B O^T", 1.0,

@@ -69,7 +69,7 @@ bool newton(const Map& map, cd& w, double sign, int max_steps, int& steps) {
 // The fixed point of f: warm Newton if a start is given, else (or if that fails) the averaged
 // iteration w ← (w + f(w))/2 from w0, finished by Newton. The plain iteration w ← f(w) stalls near
 // the axis when a law has atoms (f is then close to a real Möbius automorphism); averaging keeps
-// the fixed point and restores convergence (measured: reference §4a).
+// the fixed point and restores convergence (measured: docs/check-values.md §4a).
 template <class Map>
 SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, double sign,
                                const SubordinationOptions& options, const char* who, cd z) {

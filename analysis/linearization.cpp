@@ -1,5 +1,5 @@
 // From an expression in declared matrices to a self-adjoint polynomial in free variables, and its
-// self-adjoint linear pencil (Anderson 2013; Belinschi, Mai & Speicher 2017; reference §4d).
+// self-adjoint linear pencil (Anderson 2013; Belinschi et al. 2017; docs/check-values.md §4d).
 #include <algorithm>
 #include <map>
 #include <optional>
@@ -228,7 +228,7 @@ struct PencilBuilder {
   std::vector<Entry> entries_;
 };
 
-// The k×k monomial pencil of x_{i_1}⋯x_{i_k} (reference §4d): x_{i_{r+1}} at (r, k−1−r), −1 at
+// Pencil of x_{i_1}⋯x_{i_k}, k×k (docs/check-values.md §4d): x_{i_{r+1}} at (r, k−1−r), −1 at
 // (r, k−r) for r ≥ 1; P = −u Q^{−1} v with u = row 0, v = column 0, Q the rest.
 struct MonomialEntry {
   int r, c, letter;  // letter −1: the constant −1
@@ -278,7 +278,7 @@ Pencil linearize(const FreePolynomial& polynomial) {
     if (adjoint < word) continue;  // the pair is built once, from its smaller word
     const std::complex<double> c_pair =
         0.5 * (c + (coefficient.count(adjoint) ? std::conj(coefficient.at(adjoint)) : c));
-    // q + q^* for q = c·w: [[0, c u, v^*], [c̄ u^*, 0, Q^*], [v, Q, 0]] (reference §4d).
+    // q + q^* for q = c·w: [[0, c u, v^*], [c̄ u^*, 0, Q^*], [v, Q, 0]] (docs/check-values.md §4d).
     const int a0 = b.grow(k - 1);  // rows of u^*, Q^*
     const int b0 = b.grow(k - 1);  // rows of v, Q
     for (const auto& e : entries) {

@@ -228,7 +228,7 @@ SampleDistances sample_distances(std::vector<double> sample, const LimitDistribu
   const std::size_t n = sample.size();
   const auto nd = static_cast<double>(n);
   SampleDistances out;
-  // Kolmogorov: D = max_i max(i/n − F(λ_(i)), F(λ_(i)) − (i−1)/n) (reference §4h).
+  // Kolmogorov: D = max_i max(i/n − F(λ_(i)), F(λ_(i)) − (i−1)/n) (docs/check-values.md §4h).
   for (std::size_t i = 0; i < n; ++i) {
     const double f = limit.cdf(sample[i]);
     out.kolmogorov = std::max(

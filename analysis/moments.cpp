@@ -27,7 +27,7 @@ struct FreeVariable::Tables {
 
   // Extends both tables to order n with the first-block recursion
   //   m_i = Σ_{s=1}^{i} κ_s [z^{i−s}] M(z)^s,   M(z) = Σ_{k≥0} m_k z^k
-  // (Nica & Speicher 2006, from memory; reference §4e), solved for whichever is not given.
+  // (Nica & Speicher 2006, from memory; docs/check-values.md §4e), solved for whichever is unknown.
   void extend(int n) {
     if (n > known_limit) {
       throw InputError("the law is known only up to order " + std::to_string(known_limit) +

@@ -1,5 +1,6 @@
 // Samplers against exact finite-N facts from outside the project. Stochastic checks use fixed
 // seeds and tolerances of a stated number of standard errors of a stated sample size.
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -58,7 +59,7 @@ std::vector<MeanSe> moments(const MatrixSpec& spec, Eigen::Index n, int trials, 
 
 // Source: Harer & Zagier (1986), "The Euler characteristic of the moduli space of curves" —
 // recursion (k+1)C_k = (4k−2)N C_{k−1} + (k−1)(2k−1)(2k−3)C_{k−2} (from memory for the exact
-// form); normalised values tabulated in shared/reference/check-values-and-methods.md §2.1.
+// form); normalised values tabulated in docs/check-values.md §2.1.
 // 20000 trials at N = 5 and N = 2; tolerance 5 standard errors.
 TEST(Gue, ExactFiniteNMomentsHarerZagier) {
   const auto m5 = moments(spec_of("X", Kind::gue), 5, 20000, 8);
@@ -72,7 +73,7 @@ TEST(Gue, ExactFiniteNMomentsHarerZagier) {
 // Source: exact GOE moments with diagonal variance 2 (Wick rule E H_ab H_cd = δ_ad δ_bc + δ_ac δ_bd;
 // E Tr H^4 = 2N^3 + 5N^2 + 5N, Goulden & Jackson 1997, from memory; recursion of Ledoux 2009,
 // "A recursion formula for the moments of the Gaussian orthogonal ensemble"); table in
-// shared/reference/check-values-and-methods.md §2.2. 20000 trials, 5 standard errors.
+// docs/check-values.md §2.2. 20000 trials, 5 standard errors.
 TEST(Goe, ExactFiniteNMoments) {
   const auto m5 = moments(spec_of("X", Kind::goe), 5, 20000, 6);
   const double exact5[] = {0, 0, 6.0 / 5, 0, 16.0 / 5, 0, 1476.0 / 125};
@@ -94,7 +95,7 @@ TEST(WignerRademacher, ExactMoments) {
 }
 
 // Source: exact Wishart moments E Tr (XX*)^k (complex: Hanlon, Stanley & Stembridge 1992, from
-// memory), normalised (1/N) E Tr (XX*/M)^k at c = 1/2 in shared/reference/check-values-and-methods.md
+// memory), normalised (1/N) E Tr (XX*/M)^k at c = 1/2 in docs/check-values.md
 // §2.3: complex N=5: 1, 3/2, 69/25, 57/10; real N=5: 1, 8/5, 81/25, 189/25. 20000 trials, 5 SE.
 TEST(Wishart, ExactFiniteNMoments) {
   const auto mc = moments(spec_of("W", Kind::wishart_complex, 0.5), 5, 20000, 4);
@@ -106,7 +107,7 @@ TEST(Wishart, ExactFiniteNMoments) {
 }
 
 // Source: square Ginibre (1/N) E Tr (GG*)^k with G = Z/√N: complex 1; 2; 5 + 1/N^2; real
-// 1; 2 + 1/N; 5 + 6/N + 4/N^2 (shared/reference/check-values-and-methods.md §2.3, computed
+// 1; 2 + 1/N; 5 + 6/N + 4/N^2 (docs/check-values.md §2.3, computed
 // independently there). Through singular values: Tr (GG*)^k = Σ s^{2k}. 20000 trials, N = 4, 5 SE.
 TEST(Ginibre, ExactFiniteNMomentsOfGGStar) {
   const int n = 4, trials = 20000;
@@ -177,9 +178,9 @@ HaarStats haar_stats(HaarMethod method, Eigen::Index n, int trials) {
 class HaarUnitary : public ::testing::TestWithParam<HaarMethod> {};
 
 // Sources: E|Tr U^k|^2 = min(k, N) (Diaconis & Shahshahani 1994, "On the eigenvalues of random
-// matrices"; Rains 1997 — from memory, recomputed exactly in the reference §2.5);
+// matrices"; Rains 1997 — from memory, recomputed exactly in ref §2.5);
 // E|U_11|^2 = 1/N, E|U_11|^4 = 2/(N(N+1)) (Weingarten calculus, Collins & Śniady 2006, from memory;
-// reference §2.5); expected eigenangle law exactly uniform for every N (Meckes & Meckes 2017).
+// ref §2.5); expected eigenangle law exactly uniform for every N (Meckes & Meckes 2017).
 // 6000 trials at N = 3 and N = 6; tolerance 5 standard errors; KS at level 0.001.
 TEST_P(HaarUnitary, DiaconisShahshahaniEntriesAndAngles) {
   for (Eigen::Index n : {3, 6}) {
@@ -225,8 +226,8 @@ TEST(HaarUnitary, UnitaryToRoundingAtModerateN) {
 }
 
 // Sources: E Tr O^2 = 1 for every N ≥ 1 (∫_{O(N)} s_λ = 1 iff λ has even parts; Macdonald, from
-// memory; reference §2.6) and E O_11^4 = 3/(N(N+2)) (orthogonal Weingarten calculus, Collins &
-// Śniady 2006, from memory; reference §2.6). 8000 trials at N = 3 and 5; 5 standard errors.
+// memory; ref §2.6) and E O_11^4 = 3/(N(N+2)) (orthogonal Weingarten calculus, Collins &
+// Śniady 2006, from memory; ref §2.6). 8000 trials at N = 3 and 5; 5 standard errors.
 TEST(HaarOrthogonal, TraceAndEntryMomentsBothSamplers) {
   for (HaarMethod method : {HaarMethod::qr, HaarMethod::polar}) {
     for (Eigen::Index n : {3, 5}) {
@@ -287,7 +288,7 @@ TEST(Diagonal, AtomsInOrderAndNoRandomness) {
 }
 
 // Midpoint quantiles: uniform on [a, b] gives a + (b − a)(k + 1/2)/N exactly; the semicircle
-// quantiles satisfy F(q_k) = (k + 1/2)/N with F from the reference §1.1 closed form; the
+// quantiles satisfy F(q_k) = (k + 1/2)/N with F from the ref §1.1 closed form; the
 // Marchenko–Pastur quantiles are checked against F computed by composite Simpson quadrature of the
 // density √((b−x)(x−a))/(2πcx) (Marchenko & Pastur 1967; quadrature: common practice), an
 // independent code path.

@@ -386,7 +386,7 @@ TEST(ExprPlan, CommonSubexpressionComputedOnce) {
   EXPECT_EQ(anti.steps()[1].description, "t1 + t1^*");
 }
 
-// Source: perf-anchors.md §4 (B + U B U^* as one zherk on the N/2 "+1" columns, 0.33 s against
+// Source: docs/performance.md §4 (B + U B U^* as one zherk on the N/2 "+1" columns, 0.33 s against
 // 1.57 s for zgemm at N = 2000). Flops by the header's conventions: 4·N²·(N/2) for the herk plus
 // 2·N·(N/2) for scaling the columns, N for adding diag(B).
 TEST(ExprPlan, FreeSumIsOneHerkOnHalfTheColumns) {
@@ -511,7 +511,7 @@ TEST(ExprEvaluate, RefusesWrongSamples) {
   EXPECT_THROW(plan.evaluate(in.samples), freegap::InputError);
 }
 
-// End to end with the project's samplers. Source: perf-anchors.md §4 pipeline (B = ±1 halves,
+// End to end with the project's samplers. Source: docs/performance.md §4 pipeline (B = ±1 halves,
 // U Haar); Tr(B + U B U^*) = 2 Tr B = 0 exactly, and Tr M² is checked against a dense product.
 TEST(ExprEndToEnd, FreeSumWithProjectSamplers) {
   const auto specs = table_specs();

@@ -1,4 +1,4 @@
-// Tests of the job file: parsing into Job, every validation message (exact text, STYLE.md §10),
+// Job file tests: parsing into Job, each validation message (exact; docs/building.md habit 10),
 // the canonical hash, SHA-256 against published vectors, and the example jobs in jobs/.
 #include <gtest/gtest.h>
 #include <unistd.h>

@@ -1,5 +1,6 @@
 // Whole trials (sample → expression → spectrum → observations) against published limit moments
 // and exact finite-N values; failure handling; command-line declarations.
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -38,8 +39,8 @@ model::Model make(std::vector<std::string> declarations, std::string expression)
 
 // B + U B U^* with B = diag(±1) half and half, U Haar unitary: the limit is Bernoulli ⊞ Bernoulli =
 // arcsine law on [−2, 2], even moments C(2k, k) = 2, 6, 20 (Nica & Speicher 2006, free convolution
-// of Bernoulli laws, from memory; reference §1.3). Haar-unitary corrections are O(1/N^2)
-// (Collins 2003, from memory; reference §2.5, §3.3), below 1e-3 at N = 200, far under the
+// of Bernoulli laws, from memory; ref §1.3). Haar-unitary corrections are O(1/N^2)
+// (Collins 2003, from memory; ref §2.5, §3.3), below 1e-3 at N = 200, far under the
 // tolerance: 5 standard errors of 60 trials. Odd moments vanish by symmetry.
 TEST(ModelLimits, FreeSumOfTwoBernoulliIsArcsine) {
   const auto s = run_model(make({"B=diagonal:atoms=1@0.5,-1@0.5", "U=haar_unitary"}, "B + U B U^*"),
@@ -59,7 +60,7 @@ TEST(ModelLimits, AnticommutatorExactSecondMoment) {
   EXPECT_NEAR(s.moments[2].mean, 2.0 + 2.0 / 16, 5 * s.moments[2].standard_error);
 }
 
-// Limit moments of the anticommutator of free semicirculars: 2, 10, 66 (reference §1.8, computed
+// Limit moments of the anticommutator of free semicirculars: 2, 10, 66 (ref §1.8, computed
 // there by Schwinger–Dyson word counting; law studied by Nica & Speicher 1998, "Commutators of free
 // random variables"). GUE corrections are O(1/N^2) (genus expansion, Harer & Zagier 1986), under
 // 0.02 for m_6 at N = 200 (bounded here by the N = 4 → 200 behaviour of m_2: 2/N^2); tolerance
@@ -73,7 +74,7 @@ TEST(ModelLimits, AnticommutatorLimitMoments) {
 }
 
 // A B A with A GUE and B = diag(±1): limit moments 1, 3, 12 for k = 2, 4, 6 (ternary numbers
-// C(3k,k)/(2k+1); reference §1.6, derived there from the free multiplicative formula of
+// C(3k,k)/(2k+1); ref §1.6, derived there from the free multiplicative formula of
 // Nica & Speicher 2006). 60 trials at N = 200; tolerance 5 standard errors plus 0.02 for the
 // O(1/N^2) correction.
 TEST(ModelLimits, GueSandwichOfBernoulli) {
@@ -86,7 +87,7 @@ TEST(ModelLimits, GueSandwichOfBernoulli) {
 }
 
 // Complex Wishart through a rectangular Ginibre: G G^* with G = Z/√M is X X^*/M exactly, so
-// E tr(G G^*)^2 = 1 + c for every N (reference §2.3). 20000 trials, N = 4, c = 1/2, 5 SE.
+// E tr(G G^*)^2 = 1 + c for every N (ref §2.3). 20000 trials, N = 4, c = 1/2, 5 SE.
 TEST(ModelLimits, RectangularGinibreGramIsWishart) {
   const auto s = run_model(make({"G=ginibre_complex:ratio=0.5"}, "G G^*"), 4, 20000, 2);
   EXPECT_NEAR(s.moments[1].mean, 1.0, 5 * s.moments[1].standard_error);

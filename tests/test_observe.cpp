@@ -24,7 +24,7 @@ constexpr double kU = 0x1p-53;  // unit roundoff of double
 // Exact integers for the reference moments: |Σ m_i^k| stays below 2^127 for the values used.
 __extension__ typedef __int128 Int128;
 
-// Expects `f` to throw InputError with exactly `message` (STYLE.md §10).
+// Expects `f` to throw InputError with exactly `message` (docs/building.md habit 10).
 template <class F>
 void expect_input_error(F&& f, const std::string& message) {
   try {

@@ -1,4 +1,4 @@
-// Reproducibility of the random numbers (DESIGN.md rule 1): a matrix is a pure function of
+// Reproducibility of the random numbers (docs/design.md rule 1): a matrix is a pure function of
 // (seed, matrix name, N, trial), the same in any process, and every key field matters.
 #include <gtest/gtest.h>
 #include <unistd.h>
@@ -134,7 +134,7 @@ class ReproducibilityTwoProcesses : public ::testing::Test {
 
 // (a) Same key → the same bytes in two separate processes and in this one, with one BLAS thread
 // everywhere: the configuration freegap runs in (one rank per core, one OpenBLAS thread each;
-// shared/reference/perf-anchors.md "how to use the 2 cores"). The thread count is pinned here
+// docs/performance.md §8). The thread count is pinned here
 // because ctest may run us with it unset, and the Haar samplers' bits depend on it (see the
 // disabled test below).
 TEST_F(ReproducibilityTwoProcesses, SameKeyGivesBitIdenticalMatricesInEveryProcess) {

@@ -17,7 +17,7 @@ using freegap::testing::mean_se;
 
 // Source: Random123 known-answer vectors for Philox4x32-10 (Salmon, Moraes, Dror & Shaw 2011,
 // "Parallel random numbers: as easy as 1, 2, 3", SC'11), as tabulated in
-// shared/reference/check-values-and-methods.md §4g.
+// docs/check-values.md §4g.
 TEST(Philox, KnownAnswerVectors) {
   using A4 = std::array<std::uint32_t, 4>;
   EXPECT_EQ(philox4x32_10({0, 0, 0, 0}, {0, 0}),

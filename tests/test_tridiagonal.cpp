@@ -102,7 +102,7 @@ TEST(TridiagonalInput, RefusesBadParametersWithExactMessages) {
 
 // ---- reproducibility ----------------------------------------------------------------------------
 
-// DESIGN.md rule 1: a trial's matrix depends only on (seed, name, N, trial).
+// docs/design.md rule 1: a trial's matrix depends only on (seed, name, N, trial).
 TEST(TridiagonalSample, IsAPureFunctionOfTheStreamKey) {
   for (const auto& spec : {hermite(2.0), hermite(0.7), laguerre(1.0, 0.5), laguerre(2.0, 3.0)}) {
     const auto a = tri::sample(spec, 300, kSeed, 4);
@@ -247,7 +247,7 @@ obs::Histogram lapack_histogram(const tri::Tridiagonal& t, const std::vector<dou
 }
 
 // Exact: the counts of eigenvalues below each edge are integers, and the measured agreement
-// (shared/reference/perf-anchors.md §5: identical at N = 10^3 … 10^5) is what the method claims.
+// (docs/performance.md §5: identical at N = 10^3 … 10^5) is what the method claims.
 // Sizes 10^3 … 2·10^4 here (dsterf is O(N²): 4 s at 2·10^4); N = 10^5 in the long test below.
 TEST(SturmHistogram, EqualsLapackHistogramBinByBin) {
   const auto semicircle_edges = obs::uniform_edges(-2.5, 2.5, 400);
@@ -278,7 +278,7 @@ TEST(SturmHistogram, EqualsLapackHistogramBinByBin) {
 }
 
 // The same comparison at N = 10^5 for GUE (β = 2). dsterf needs about 110 s for this one matrix
-// (perf-anchors §5) — the longest test of the suite, kept because the issue asks for N up to 10^5;
+// (docs/performance.md §5) — the suite's longest test, kept as the issue asks for N up to 10^5;
 // GOE and Laguerre are compared above at N ≤ 2·10^4 and 10^5 (c = 20).
 TEST(SturmHistogram, EqualsLapackHistogramAtHundredThousand) {
   const auto edges = obs::uniform_edges(-2.5, 2.5, 400);
@@ -427,7 +427,7 @@ TEST(ObserveTrial, MatchesTheDenseObservationOfTheSameMatrix) {
 }
 
 // A matrix with a non-finite entry is a failed trial with a reason, and nothing is counted
-// (DESIGN.md rule 2); a moment that overflows double fails with the dense path's reason.
+// (docs/design.md rule 2); a moment that overflows double fails with the dense path's reason.
 TEST(ObserveTrial, RecordsFailuresWithoutCounting) {
   obs::ObserveConfig config;
   config.bin_edges = obs::uniform_edges(-1.0, 1.0, 4);

@@ -17,7 +17,7 @@ namespace tri = freegap::tridiagonal;
 // Source: Tracy & Widom (1994), "Level-spacing distributions and the Airy kernel", CMP 159: for
 // GUE normalised to [−2, 2], N^(2/3)(λ_max − 2) → TW₂. Mean −1.7710868 and variance 0.8131947928
 // from Bornemann (2010), "On the numerical evaluation of distributions in random matrix theory"
-// (values as quoted in shared/reference/check-values-and-methods.md §3.2, recomputed there).
+// (values as quoted in docs/check-values.md §3.2, recomputed there).
 // The finite-N error of the TW approximation is O(N^(−2/3)) (Johnstone & Ma 2012, "Fast approach
 // to the Tracy–Widom law at the edge of GOE and GUE"), ≈ 10^-4 in these units at N = 10^6:
 // negligible against the standard errors of 150 trials (≈ 0.07 for the mean, ≈ 0.09 for the

@@ -58,7 +58,7 @@ struct LawCase {
 // variance convention) moves λ_max by ≈ 0.01 ≈ 0.25 of its standard deviation at N = 100, a KS
 // distance of ≈ 0.1, so the test would catch it. The count statistic is integer-valued; the KS
 // test with ties is conservative, which only lowers the false-alarm rate.
-// Models: Dumitriu & Edelman (2002), shared/reference/check-values-and-methods.md §4f; dense
+// Models: Dumitriu & Edelman (2002), docs/check-values.md §4f; dense
 // conventions §0.
 TEST(TridiagonalLaw, MatchesDenseSamplersKolmogorovSmirnov) {
   const LawCase cases[] = {
@@ -123,7 +123,7 @@ void expect_moments(const std::vector<MeanSe>& m, const std::vector<double>& exa
 }
 
 // Source: Harer & Zagier (1986), "The Euler characteristic of the moduli space of curves" (exact
-// form from memory); normalised values tabulated in shared/reference/check-values-and-methods.md
+// form from memory); normalised values tabulated in docs/check-values.md
 // §2.1 (N = 5: 1, 51/25, 27/5, 10521/625; N = 2: 1, 9/4, 15/2, 525/16). Odd moments vanish.
 // 20000 trials, tolerance 5 standard errors.
 TEST(TridiagonalMoments, HermiteBeta2MatchesHarerZagier) {
@@ -134,7 +134,7 @@ TEST(TridiagonalMoments, HermiteBeta2MatchesHarerZagier) {
 }
 
 // Source: exact GOE moments (diagonal variance 2), Wick enumeration tabulated in
-// check-values-and-methods.md §2.2 (E Tr H^4 = 2N^3 + 5N^2 + 5N, Goulden & Jackson 1997, from
+// docs/check-values.md §2.2 (E Tr H^4 = 2N^3 + 5N^2 + 5N, Goulden & Jackson 1997, from
 // memory; recursion of Ledoux 2009). N = 5: 6/5, 16/5, 1476/125, 33684/625; N = 10: 11/10, 51/20,
 // 7761/1000. 20000 trials, 5 standard errors.
 TEST(TridiagonalMoments, HermiteBeta1MatchesGoeTable) {
@@ -144,7 +144,7 @@ TEST(TridiagonalMoments, HermiteBeta1MatchesGoeTable) {
   expect_moments(m10, {1, 0, 11.0 / 10, 0, 51.0 / 20, 0, 7761.0 / 1000}, "GOE N=10");
 }
 
-// General β: E Tr H_β² = βN(N−1)/2 + N for Dumitriu & Edelman's H_β (check-values §4f, checked
+// Any β: E Tr H_β² = βN(N−1)/2 + N for Dumitriu & Edelman's H_β (docs/check-values.md §4f, checked
 // there for β = 4), so E tr X² = 1 + (2/β − 1)/N after the √(2/β)/√N normalisation. β = 4 and
 // β = 0.5 (non-integer χ degrees, gamma shapes below 1). 20000 trials at N = 5, 5 SE.
 TEST(TridiagonalMoments, GeneralBetaSecondMoment) {
@@ -154,7 +154,7 @@ TEST(TridiagonalMoments, GeneralBetaSecondMoment) {
   }
 }
 
-// E Tr (XX^*)^k for X N×M (check-values-and-methods.md §2.3; complex case Hanlon, Stanley &
+// E Tr (XX^*)^k for X N×M (docs/check-values.md §2.3; complex case Hanlon, Stanley &
 // Stembridge 1992, from memory), normalised to (1/N) E Tr (XX^*/M)^k.
 double wishart_moment(bool complex, double N, double M, int k) {
   double p = 0.0;

@@ -1,5 +1,5 @@
 // Samplers of the random and deterministic matrices a job declares, normalised so that the
-// limits are the standard ones (shared/reference/check-values-and-methods.md §0):
+// limits are the standard ones (docs/check-values.md §0):
 //
 //   gue                 X = H/√N, H = (A + A^*)/√2, A_ij = (g + i g')/√2: E|H_ij|^2 = 1, H_ii ~ N(0,1).
 //                       Limit: semicircle on [−2, 2].
@@ -53,7 +53,7 @@ enum class Kind {
 };
 
 /// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
-/// (shared/reference/perf-anchors.md §3), so it is the default.
+/// (docs/performance.md §3), so it is the default.
 enum class HaarMethod {
   qr,     ///< Mezzadri (2007): QR of a Ginibre matrix with the phase (sign) correction
   polar,  ///< polar factor Z (Z^*Z)^(-1/2) of a Ginibre matrix, through the SVD

@@ -1,4 +1,4 @@
-// Typed errors with short, stable messages; main turns them into exit codes (STYLE.md §10).
+// Typed errors, short stable messages; main maps them to exit codes (docs/building.md habit 10).
 #pragma once
 
 #include <stdexcept>

@@ -65,7 +65,7 @@ class Estimator {
 /// Opens one estimator of `job` in this process: finds the built-in, or loads the library and
 /// checks its ABI version, entry points and declared names against the job's truth table, or
 /// checks the command's program can be found. Throws InputError "file:line: estimator.NAME...:
-/// rule and fix" (DESIGN.md rule 6: before the run starts, nothing written).
+/// rule and fix" (docs/design.md rule 6: before the run starts, nothing written).
 std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index);
 
 /// Every estimator of a job, in job order, and the flat layout of their results: estimate

@@ -39,7 +39,7 @@
 // Y D Y^* = d_r I + W₊W₊^* − W₋W₋^*, W± = Y restricted to the columns where D ≠ d_r, scaled by
 // √|d − d_r|: at most two herks over the columns where D ≠ d_r. For B = ±1 and Haar U this is one
 // herk on N/2 columns, 4 times cheaper than a general product
-// (shared/reference/perf-anchors.md §4: 0.33 s against 1.57 s at N = 2000).
+// (docs/performance.md §4: 0.33 s against 1.57 s at N = 2000).
 //
 // Flop conventions (Plan::flops, explain): complex gemm 8mnk, real 2mnk; zherk 4n²k, dsyrk n²k;
 // scaling a complex entry by a real number 2, a real entry 1; adding a scaled term to a complex

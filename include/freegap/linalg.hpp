@@ -3,7 +3,7 @@
 // Matrices are Eigen column-major objects; every routine hands their storage straight to
 // LAPACKE/CBLAS (OpenBLAS). No dense linear algebra here is written as loops of our own.
 // Routines that take a non-const reference overwrite it (LAPACK works in place; this saves a
-// full N×N copy, which matters at N = 4000+: shared/reference/perf-anchors.md §6).
+// full N×N copy, which matters at N = 4000+: docs/performance.md §6).
 #pragma once
 
 #include <Eigen/Core>
@@ -25,7 +25,7 @@ enum class EigenDriver {
 };
 
 /// The driver used for `automatic`. Measured with OpenBLAS 0.3.21, one thread
-/// (shared/reference/perf-anchors.md §2): complex Hermitian two-stage/classic time ratio is
+/// (docs/performance.md §2): complex Hermitian two-stage/classic time ratio is
 /// 0.91 at N = 500, 0.76 at 1000, 0.62 at 2000, 0.51 at 4000, so two-stage from N ≥ 400;
 /// real symmetric two-stage is no faster (1.03 at N = 2000), so the classic driver throughout.
 EigenDriver choose_eigen_driver(Index n, bool is_complex);

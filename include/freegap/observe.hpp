@@ -9,14 +9,14 @@
 //     has no trace formula);
 //   - the smallest and the largest value, and the operator norm max_i |x_i|.
 //
-// Raw rows are stored and statistics are derived when read (STYLE.md §3–4): the histogram holds
+// Raw rows stored, statistics derived when read (docs/building.md habits 3–4): the histogram holds
 // integer counts, which add exactly; every trial keeps its own row, and rows are kept in trial
 // order. So any split of the trials across ranks, merged in any order, gives bit-identical
 // Observations, and summarize() — a pure function of them — gives bit-identical statistics.
 //
 // A trial whose spectrum holds NaN or ±Inf, whose solver failed, or whose observations cannot be
 // represented in double is recorded as failed with a short reason and contributes nothing to the
-// histogram or the statistics (DESIGN.md rule 2).
+// histogram or the statistics (docs/design.md rule 2).
 #pragma once
 
 #include <cstddef>

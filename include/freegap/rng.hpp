@@ -1,7 +1,7 @@
 // Counter-based random streams keyed by (job seed, matrix name, N, trial) — Random123 Philox4x32-10.
 //
 // A trial's numbers are a pure function of its key, never of the rank, thread or order that
-// produced them (DESIGN.md rule 1). Philox4x32-10: Salmon, Moraes, Dror & Shaw (2011),
+// produced them (docs/design.md rule 1). Philox4x32-10: Salmon, Moraes, Dror & Shaw (2011),
 // "Parallel random numbers: as easy as 1, 2, 3", SC'11.
 //
 // Layout of a stream:

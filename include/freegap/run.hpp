@@ -10,7 +10,7 @@
 // Signals: SIGUSR1 means "checkpoint now and stop cleanly": every rank stops at its next trial
 // boundary, drops its unfinished unit, the committed units stay in the file, and the run exits
 // with kExitResumable. SIGTERM and SIGINT do the same (under mpirun a rank has only 1–2 s after
-// SIGTERM before SIGKILL — shared/reference/cluster-notes.md §1 — but every unit is committed as
+// SIGTERM before SIGKILL — docs/cluster-notes.md §1.5 — but every unit is committed as
 // it arrives, so a kill loses at most the units in flight).
 //
 // Deadlines (RunOptions::stop_before_seconds, RunOptions::scheduler_end_time): rank 0 hands out a
@@ -51,7 +51,7 @@ struct RunOptions {
 };
 
 /// Time kept free before the scheduler's end time: prediction error, the last commit, and the
-/// scheduler's own signals (which may come up to a minute early; cluster-notes §3).
+/// scheduler's own signals (which may come up to a minute early; docs/cluster-notes.md §3.5).
 inline constexpr double kSchedulerEndMarginSeconds = 60.0;
 
 /// Peak bytes one rank holds while running one trial of `runner`'s model at its size: the

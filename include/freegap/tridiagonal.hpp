@@ -2,7 +2,7 @@
 // cannot reach (N up to 10^7 in O(N) memory).
 //
 // Models (Dumitriu & Edelman 2002, "Matrix models for beta ensembles", J. Math. Phys. 43(11);
-// shared/reference/check-values-and-methods.md §4f), normalised like the dense samplers of
+// docs/check-values.md §4f), normalised like the dense samplers of
 // ensembles.hpp so the same limit laws and finite-N facts apply:
 //
 //   hermite(β)    X = √(2/β)·H_β/√N, H_β = (1/√2)·tridiag(N(0,2) iid; χ_{β(N−1)}, …, χ_β), i.e.

@@ -1,4 +1,4 @@
-// The freegap executable: parses the command line and dispatches to the library (STYLE.md §1).
+// The freegap executable: parses the command line and calls the library (docs/building.md habit 1).
 #include <CLI/CLI.hpp>
 #include <algorithm>
 #include <map>

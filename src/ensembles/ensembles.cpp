@@ -56,7 +56,7 @@ bool has_ratio(Kind k) {
 // ---- quantiles of the continuous laws -------------------------------------------------------
 
 // Standard semicircle CDF on [−2, 2]: F(x) = 1/2 + x√(4−x²)/(4π) + arcsin(x/2)/π
-// (shared/reference/check-values-and-methods.md §1.1).
+// (docs/check-values.md §1.1).
 double semicircle_cdf(double x) {
   if (x <= -2.0) return 0.0;
   if (x >= 2.0) return 1.0;

@@ -1,5 +1,5 @@
 // The canonical text of a job and its hash. A run file is tied to the job that made it by this hash
-// (DESIGN.md rule 3), so it must change exactly when the numbers could: every field that enters a
+// (docs/design.md rule 3), so it must change exactly when the numbers could: every field entering a
 // trial or an observation is in it, printed in one fixed order and format; the name, the output
 // path, the memory limit, the file's comments, key order and layout are not.
 #include <charconv>

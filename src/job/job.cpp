@@ -1,5 +1,5 @@
 // Parsing and validating the TOML job file (include/freegap/job.hpp). Every message names the
-// file, the line and the dotted key, the rule broken and the fix (STYLE.md §10–11), so a user with
+// file, line and dotted key, the rule and the fix (docs/building.md habits 10–11), so a user with
 // a typo on line 40 of a long study does not have to guess.
 #include "freegap/job.hpp"
 

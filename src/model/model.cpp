@@ -1,4 +1,4 @@
-// One trial of a model: sample → evaluate → spectrum (DESIGN.md data flow).
+// One trial of a model: sample → evaluate → spectrum (docs/design.md, data flow).
 #include "freegap/model.hpp"
 
 #include <chrono>

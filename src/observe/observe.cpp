@@ -361,7 +361,7 @@ void merge_into(Observations& into, const Observations& from) {
         "cannot merge observations made with different configurations (bins, max_moment, "
         "spectrum kind or kept trials differ)");
   }
-  // First find any duplicate, so that a refused merge leaves `into` untouched (DESIGN.md rule 6).
+  // First find any duplicate, so a refused merge leaves `into` untouched (docs/design.md rule 6).
   {
     auto a = into.trials.begin();
     auto b = from.trials.begin();

@@ -265,7 +265,7 @@ Machine this_machine() {
   if (m.cpu.empty()) m.cpu = "unknown";
   m.cores = online_cores();
   m.blas = linalg::blas_description();
-  // OpenBLAS picks its kernel by CPU unless told (build-notes: OPENBLAS_CORETYPE).
+  // OpenBLAS picks its kernel by CPU unless told (OPENBLAS_CORETYPE; docs/building.md pitfall 4).
   if (const char* core = std::getenv("OPENBLAS_CORETYPE"))
     m.blas += " OPENBLAS_CORETYPE=" + std::string(core);
   m.freegap = std::string(tool_version) + " (" + git_revision + ")";
@@ -472,7 +472,7 @@ double simulate_wall(std::vector<double> unit_seconds, int ranks) {
     free_at.push(t);
     wall = std::max(wall, t);
   }
-  // MPI start-up, the pilot trial and the file's creation: about a second (cluster-notes §1).
+  // MPI start-up, the pilot trial and the file's creation: about 1 s (docs/cluster-notes.md §1.4).
   return wall + 1.0;
 }
 

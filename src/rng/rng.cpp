@@ -86,7 +86,7 @@ double Stream::normal() {
     return spare_normal_;
   }
   // Marsaglia & Bray (1964) polar method: cheaper than Box–Muller's sin/cos
-  // (perf-anchors: 7.7 vs 15.1 ns per sample). Rejection consumes a data-dependent number of
+  // (docs/performance.md §4: 7.7 vs 15.1 ns per sample). Rejection uses a data-dependent number of
   // words, but deterministically, so the stream stays a pure function of its key.
   for (;;) {
     const double u = 2.0 * uniform() - 1.0;

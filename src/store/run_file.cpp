@@ -91,7 +91,7 @@ std::string size_group_name(std::size_t index) { return "sizes/" + std::to_strin
 hsize_t as_hsize(std::int64_t value) { return static_cast<hsize_t>(value); }
 
 // ---------------------------------------------------------------------------------------------
-// Messages for files the user pointed at (STYLE.md §10–11: name the path and the fix)
+// Messages for files the user pointed at (docs/building.md habits 10–11: name the path and the fix)
 
 enum class Purpose { resume, read };
 

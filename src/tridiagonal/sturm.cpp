@@ -19,7 +19,7 @@ namespace detail {
 // multiversioning), so a default build — which must run on any node of a cluster — still uses
 // 4-wide division where the CPU has it. The points are the inner loop so the compiler vectorises
 // the recurrence across them: each row costs one vector division per 4 points, and the N rows are
-// read once (perf-anchors §5/§8: ≈ 0.26 ns per (row, point)).
+// read once (docs/performance.md §5: ≈ 0.26 ns per (row, point)).
 FREEGAP_SIMD_CLONES
 void sturm_sweep(const double* d, const double* e2, Index n, const double* x, double* q,
                  double* negatives, std::size_t m) {

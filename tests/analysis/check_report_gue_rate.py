@@ -6,7 +6,7 @@ Usage: check_report_gue_rate.py BUILD_DIR
 What must hold (fixed seed, so the numbers never change between runs):
 1. The fitted exponent of the Kolmogorov distance of the mean spectral distribution is
    consistent with 1: its 95% t-interval contains 1 (Götze & Tikhomirov 2005, rate 1/N for the
-   GUE, from memory; shared/reference §3.3).
+   GUE, from memory; docs/check-values.md §3.3).
 2. The distances themselves match the exact finite-N mean spectral distribution of the GUE,
    computed here independently with numpy from the Hermite kernel
    K_N(x, x) = Σ_{k<N} ψ_k(x)² (ψ_k the Hermite functions orthonormal for e^{−x²/2}; Mehta 2004,

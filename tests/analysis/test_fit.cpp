@@ -1,4 +1,4 @@
-// Rate fits: exact power laws, the calibration of shared/reference §4h ("ref §4h"), warnings, t
+// Rate fits: exact power laws, the calibration of docs/check-values.md §4h ("ref §4h"), warnings, t
 // quantiles and bootstrap coverage on synthetic data with a known exponent.
 #include <gtest/gtest.h>
 

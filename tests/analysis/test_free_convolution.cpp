@@ -1,5 +1,6 @@
 // Tests of free additive / multiplicative convolution by subordination (Belinschi & Bercovici
 // 2007).
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -25,7 +26,7 @@ double arcsine_density(double x) { return 1.0 / (kPi * std::sqrt(4.0 - x * x)); 
 }  // namespace
 
 TEST(FreeAdditive, BernoulliSquaredIsArcsine) {
-  // Source: (½δ₋₁+½δ₁)^{⊞2} is the arcsine law 1/(π√(4−x²)) (reference §1.3; Nica & Speicher
+  // Source: (½δ₋₁+½δ₁)^{⊞2} is the arcsine law 1/(π√(4−x²)) (ref §1.3; Nica & Speicher
   // 2006, from memory). Required: 1e−8 across (−1.99, 1.99), edges and the degenerate centre
   // included.
   const auto bb = fa::free_additive(bernoulli(), bernoulli());
@@ -37,7 +38,7 @@ TEST(FreeAdditive, BernoulliSquaredIsArcsine) {
     EXPECT_NEAR(grid[i], arcsine_density(xs[i]), 1e-8) << "x=" << xs[i];
     EXPECT_NEAR(bb->density(xs[i]), arcsine_density(xs[i]), 1e-8) << "cold x=" << xs[i];
   }
-  // Reference §4a outputs (computed independently there): 0.1643745184 at 0.5, 0.5097037441 at 1.9.
+  // Ref §4a outputs (computed independently there): 0.1643745184 at 0.5, 0.5097037441 at 1.9.
   EXPECT_NEAR(bb->density(0.5), 0.1643745184, 1e-10);
   EXPECT_NEAR(bb->density(1.9), 0.5097037441, 1e-10);
   // Edges ±2 and no atoms: the atom masses ½ + ½ − 1 = 0 (Bercovici & Voiculescu 1998, from
@@ -45,19 +46,19 @@ TEST(FreeAdditive, BernoulliSquaredIsArcsine) {
   EXPECT_NEAR(bb->support().lo, -2.0, 1e-8);
   EXPECT_NEAR(bb->support().hi, 2.0, 1e-8);
   EXPECT_TRUE(bb->support().atoms.empty());
-  // CDF: 1/2 + arcsin(x/2)/π; F(1) = 2/3, F(√3) = 5/6 (reference §1.3).
+  // CDF: 1/2 + arcsin(x/2)/π; F(1) = 2/3, F(√3) = 5/6 (ref §1.3).
   EXPECT_NEAR(bb->cdf(1.0), 2.0 / 3.0, 1e-9);
   EXPECT_NEAR(bb->cdf(std::sqrt(3.0)), 5.0 / 6.0, 1e-9);
   EXPECT_NEAR(bb->cdf(-1.999), 0.5 + std::asin(-1.999 / 2) / kPi, 1e-9);
   EXPECT_NEAR(bb->cdf(2.5), 1.0, 1e-9);
-  // Moments from added free cumulants: C(2k, k) (reference §1.3).
+  // Moments from added free cumulants: C(2k, k) (ref §1.3).
   const std::vector<double> m = bb->moments(10);
   const std::vector<double> expected{1, 0, 2, 0, 6, 0, 20, 0, 70, 0, 252};
   for (int k = 0; k <= 10; ++k) EXPECT_NEAR(m[k], expected[k], 1e-12) << k;
 }
 
 TEST(FreeAdditive, AveragedIterationThenNewtonConverges) {
-  // Reference §4a (measured there): at ε = 1e−8 the averaged iteration + Newton converges for
+  // Ref §4a (measured there): at ε = 1e−8 the averaged iteration + Newton converges for
   // Bernoulli ⊞ Bernoulli, x = 0 included (only Newton works there).
   const auto bb = fa::free_additive(bernoulli(), bernoulli());
   for (double x : {-1.5, -0.3, 0.0, 0.7, 1.95}) {
@@ -86,7 +87,7 @@ TEST(FreeAdditive, SemicirclesAddVariances) {
   const std::vector<double> m = sum->moments(8);
   const std::vector<double> e = exact->moments(8);
   for (int k = 0; k <= 8; ++k) EXPECT_NEAR(m[k], e[k], 1e-12 * std::max(1.0, e[k]));
-  // Reference §4a: semicircle(1) ⊞ semicircle(1) = semicircle(2): 0.2250790790 at 0, 0.1052710998
+  // Ref §4a: semicircle(1) ⊞ semicircle(1) = semicircle(2): 0.2250790790 at 0, 0.1052710998
   // at 2.5.
   const auto two = fa::free_additive(fa::semicircle(), fa::semicircle());
   EXPECT_NEAR(two->density(0.0), 0.2250790790, 1e-10);
@@ -155,7 +156,7 @@ TEST(FreeAdditive, EmpiricalSpectrumWithAtomsConverges) {
 }
 
 TEST(FreeMultiplicative, FreePoissonSquaredIsFussCatalan) {
-  // Source: π ⊠ π = Fuss–Catalan s = 2: moments 1, 3, 12, 55, right edge 27/4 (reference §1.5;
+  // Source: π ⊠ π = Fuss–Catalan s = 2: moments 1, 3, 12, 55, right edge 27/4 (ref §1.5;
   // Penson & Życzkowski 2011).
   const auto pp = fa::free_multiplicative(fa::marchenko_pastur(1.0), fa::marchenko_pastur(1.0));
   const std::vector<double> m = pp->moments(8);
@@ -175,7 +176,7 @@ TEST(FreeMultiplicative, FreePoissonSquaredIsFussCatalan) {
 }
 
 TEST(FreeMultiplicative, FreePoissonTimesProjection) {
-  // Source: reference §1.7 (derived there): π ⊠ (½δ₀ + ½δ₁) = ½δ₀ + ½·MP(1/2), moments ½·MP(1/2).
+  // Source: ref §1.7 (derived there): π ⊠ (½δ₀ + ½δ₁) = ½δ₀ + ½·MP(1/2), moments ½·MP(1/2).
   const auto law =
       fa::free_multiplicative(fa::marchenko_pastur(1.0), fa::atoms({{0.0, 0.5}, {1.0, 0.5}}));
   ASSERT_EQ(law->support().atoms.size(), 1u);
@@ -212,7 +213,7 @@ TEST(FreeCumulants, BernoulliAndRoundTrip) {
   for (int n = 1; n <= 8; ++n) EXPECT_NEAR(k[n], expected[n], 1e-14) << n;
   const std::vector<double> back = fa::moments_from_free_cumulants(k);
   for (int n = 0; n <= 8; ++n) EXPECT_NEAR(back[n], m[n], 1e-14) << n;
-  // MP(c) has κ_n = c^{n−1} (reference §1.2).
+  // MP(c) has κ_n = c^{n−1} (ref §1.2).
   const std::vector<double> kmp = fa::free_cumulants(fa::marchenko_pastur(0.5)->moments(6));
   for (int n = 1; n <= 6; ++n) EXPECT_NEAR(kmp[n], std::pow(0.5, n - 1), 1e-13) << n;
 }

@@ -1,4 +1,5 @@
 // Tests of the limit laws: closed-form values, moments, CDFs, Cauchy transforms, bad input.
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -61,13 +62,13 @@ void expect_input_error(F f, const std::string& message) {
 }  // namespace
 
 TEST(Laws, SemicircleMomentsAndCdf) {
-  // Source: Catalan numbers C(2k,k)/(k+1), reference §1.1 (Nica & Speicher 2006, from memory).
+  // Source: Catalan numbers C(2k,k)/(k+1), ref §1.1 (Nica & Speicher 2006, from memory).
   expect_moments(*fa::semicircle(), {1, 0, 1, 0, 2, 0, 5, 0, 14, 0, 42}, 1e-15);
   // Variance v scales m_{2k} by v^k (scaling, elementary).
   expect_moments(*fa::semicircle(2.0), {1, 0, 2, 0, 8, 0, 40}, 1e-15);
   const auto sc = fa::semicircle();
   EXPECT_NEAR(sc->density(0.0), 1.0 / kPi, 1e-16);  // √4/(2π)
-  // Source: CDF F(x) = 1/2 + x√(4−x²)/(4π) + arcsin(x/2)/π, reference §1.1; F(1) = 1/2 + √3/(4π) +
+  // Source: CDF F(x) = 1/2 + x√(4−x²)/(4π) + arcsin(x/2)/π, ref §1.1; F(1) = 1/2 + √3/(4π) +
   // 1/6.
   EXPECT_NEAR(sc->cdf(1.0), 0.5 + std::sqrt(3.0) / (4 * kPi) + 1.0 / 6.0, 1e-15);
   EXPECT_NEAR(sc->quantile(sc->cdf(0.7)), 0.7, 1e-12);
@@ -76,12 +77,12 @@ TEST(Laws, SemicircleMomentsAndCdf) {
 
 TEST(Laws, MarchenkoPasturValuesMomentsAtom) {
   const auto half = fa::marchenko_pastur(0.5);
-  // Source: reference §1.2 (computed independently there from the Marchenko–Pastur density).
+  // Source: ref §1.2 (computed independently there from the Marchenko–Pastur density).
   EXPECT_NEAR(half->support().lo, 0.085786437626905, 1e-14);
   EXPECT_NEAR(half->support().hi, 2.9142135623731, 1e-13);
   EXPECT_NEAR(half->density(1.0), 0.421084399347792, 1e-14);
   EXPECT_NEAR(fa::marchenko_pastur(1.0)->density(1.0), 0.275664447710896, 1e-14);
-  // Source: Narayana moments, reference §1.2 table (c = 1/2 and c = 2, atom included).
+  // Source: Narayana moments, ref §1.2 table (c = 1/2 and c = 2, atom included).
   expect_moments(*half, {1, 1, 1.5, 2.75, 45.0 / 8, 197.0 / 16, 903.0 / 32}, 1e-14);
   const auto two = fa::marchenko_pastur(2.0);
   expect_moments(*two, {1, 1, 3, 11, 45, 197, 903, 4279, 20793}, 1e-14);
@@ -97,7 +98,7 @@ TEST(Laws, MarchenkoPasturValuesMomentsAtom) {
 
 TEST(Laws, ArcsineValues) {
   const auto a = fa::arcsine();
-  // Source: reference §1.3 (computed independently there): f(1), f(1.9), F(√2) = 3/4, F(1.9).
+  // Source: ref §1.3 (computed independently there): f(1), f(1.9), F(√2) = 3/4, F(1.9).
   EXPECT_NEAR(a->density(1.0), 0.183776298473931, 1e-15);
   EXPECT_NEAR(a->density(1.9), 0.509703744125178, 1e-15);
   EXPECT_NEAR(a->cdf(std::sqrt(2.0)), 0.75, 1e-15);
@@ -108,13 +109,13 @@ TEST(Laws, ArcsineValues) {
 
 TEST(Laws, KestenMcKay) {
   const auto km = fa::kesten_mckay(2);
-  // Source: reference §1.4 table (closed walks on the 4-regular tree, computed independently).
+  // Source: ref §1.4 table (closed walks on the 4-regular tree, computed independently).
   expect_moments(*km, {1, 0, 4, 0, 28, 0, 232, 0, 2092, 0, 19864, 0, 195352}, 1e-15);
   EXPECT_NEAR(km->support().hi, 3.46410161513775, 1e-13);
   EXPECT_NEAR(km->density(0.0), 0.137832223855448, 1e-14);
   expect_moments(*fa::kesten_mckay(3), {1, 0, 6, 0, 66, 0, 876, 0, 12786}, 1e-15);
   EXPECT_NEAR(fa::kesten_mckay(3)->density(0.0), 0.11862709056953, 1e-13);
-  // d = 1 is the arcsine law (reference §1.4, first row).
+  // d = 1 is the arcsine law (ref §1.4, first row).
   EXPECT_NEAR(fa::kesten_mckay(1)->density(1.3), fa::arcsine()->density(1.3), 1e-15);
   EXPECT_NEAR(fa::kesten_mckay(1)->cdf(1.3), fa::arcsine()->cdf(1.3), 1e-12);
   EXPECT_NEAR(km->cdf(0.0), 0.5, 1e-13);  // symmetry
@@ -143,14 +144,14 @@ TEST(Laws, UniformQuarterCircleCircular) {
   expect_moments(*u, {1, 1, 7.0 / 3.0, 5.0}, 1e-15);  // (b^{n+1} − a^{n+1})/((n+1)(b−a))
   EXPECT_DOUBLE_EQ(u->quantile(0.25), 0.0);
   const auto q = fa::quarter_circle();
-  // Source: reference §1.9 (computed independently): E s = 8/(3π), E s³, E s⁵; even moments 1,
+  // Source: ref §1.9 (computed independently): E s = 8/(3π), E s³, E s⁵; even moments 1,
   // 2, 5.
   expect_moments(*q, {1, 0.848826363156775, 1, 1.35812218105084, 2, 3.10427927097335, 5}, 1e-14);
   EXPECT_NEAR(q->cdf(2.0), 1.0, 1e-15);
   const auto c = fa::circular();
   EXPECT_TRUE(c->radial());
   EXPECT_DOUBLE_EQ(c->cdf(0.5), 0.25);
-  // E|λ|^{2k} = 1/(k+1), E|λ| = 2/3 (reference §1.9, elementary).
+  // E|λ|^{2k} = 1/(k+1), E|λ| = 2/3 (ref §1.9, elementary).
   const std::vector<double> m = c->moments(4);
   EXPECT_DOUBLE_EQ(m[1], 2.0 / 3.0);
   EXPECT_DOUBLE_EQ(m[2], 0.5);
@@ -159,7 +160,7 @@ TEST(Laws, UniformQuarterCircleCircular) {
 
 TEST(Laws, FussCatalan) {
   const auto fc = fa::fuss_catalan(2);
-  // Source: reference §1.5 (Penson & Życzkowski 2011; values computed independently there).
+  // Source: ref §1.5 (Penson & Życzkowski 2011; values computed independently there).
   expect_moments(*fc, {1, 1, 3, 12, 55, 273, 1428, 7752, 43263}, 1e-15);
   EXPECT_DOUBLE_EQ(fc->support().hi, 6.75);
   EXPECT_NEAR(fc->density(0.5), 0.318309886183791, 1e-14);
@@ -169,7 +170,7 @@ TEST(Laws, FussCatalan) {
   EXPECT_NEAR(fc->density(6.0), 0.0150457656513178, 1e-14);
   expect_moments(*fa::fuss_catalan(3), {1, 1, 4, 22, 140, 969, 7084}, 1e-15);
   EXPECT_NEAR(fa::fuss_catalan(3)->support().hi, 256.0 / 27.0, 1e-14);
-  // s = 1 is the free Poisson law MP(1) (reference §1.5, first row).
+  // s = 1 is the free Poisson law MP(1) (ref §1.5, first row).
   EXPECT_NEAR(fa::fuss_catalan(1)->density(1.7), fa::marchenko_pastur(1.0)->density(1.7), 1e-14);
   EXPECT_NEAR(fa::fuss_catalan(1)->cdf(1.7), fa::marchenko_pastur(1.0)->cdf(1.7), 1e-12);
 }

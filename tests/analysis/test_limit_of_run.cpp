@@ -1,6 +1,6 @@
 // The limit of a model by the rules of analysis/limit.hpp: which law each expression gets, checked
 // against closed forms and against the exact free-cumulant moments (an independent computation).
-// Reference values: shared/reference/check-values-and-methods.md ("ref §x.y"), which names the
+// Reference values: docs/check-values.md ("ref §x.y"), which names the
 // published source of each.
 #include <gtest/gtest.h>
 

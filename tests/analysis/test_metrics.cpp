@@ -1,6 +1,6 @@
 // Distances, moment and edge errors with their Monte Carlo errors, and the unresolved marking.
 // Hand-computable cases use the uniform law on [0, 1] (F(x) = x); the semicircle CDF and its
-// antiderivative are those of shared/reference §1.1.
+// antiderivative are those of docs/check-values.md §1.1.
 #include <gtest/gtest.h>
 
 #include <cmath>

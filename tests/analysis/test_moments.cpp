@@ -1,5 +1,5 @@
 // Exact integers, rationals and limit moments of polynomials in free variables.
-// Reference values: shared/reference/check-values-and-methods.md (cited as "ref §x.y"), which names
+// Reference values: docs/check-values.md (cited as "ref §x.y"), which names
 // the published source of each (Nica & Speicher 2006 and the other papers there, several from
 // memory as the reference says).
 #include <gtest/gtest.h>
@@ -377,10 +377,10 @@ freegap::ensembles::MatrixSpec declared(const std::string& name, freegap::ensemb
 }
 
 // Limit moments straight from a job's expression text and declarations.
-// Sources: anticommutator of free semicirculars 2, 10, 66, 498 (reference §1.8, computed there by
+// Sources: anticommutator of free semicirculars 2, 10, 66, 498 (ref §1.8, computed there by
 // Schwinger–Dyson word counting; Nica & Speicher 1998 for the law); A B A with B = ±1 Bernoulli:
-// 1, 3, 12, 55 (reference §1.6); U1 + U1^* + U2 + U2^*: Kesten–McKay d = 2, 4, 28, 232 (Kesten
-// 1959, McKay 1981, from memory; reference §1.4).
+// 1, 3, 12, 55 (ref §1.6); U1 + U1^* + U2 + U2^*: Kesten–McKay d = 2, 4, 28, 232 (Kesten
+// 1959, McKay 1981, from memory; ref §1.4).
 TEST(LimitMomentsOfExpressions, FromExpressionText) {
   using freegap::ensembles::Kind;
   auto even = [](const std::vector<fa::ExactValue>& m) {

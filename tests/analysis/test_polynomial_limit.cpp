@@ -1,6 +1,7 @@
 // Tests of the limit law of self-adjoint polynomials in free variables: the pencil's algebra,
 // densities, edges and CDFs against published laws, and the solver's moments against the exact
 // free-cumulant engine.
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
 #include <Eigen/Dense>
@@ -62,18 +63,18 @@ fa::FreePolynomial commutator() {
   return p;
 }
 
-// Anticommutator density values of reference §1.8 [computed independently there from the cubic
+// Anticommutator density values of ref §1.8 [computed independently there from the cubic
 // z G³ + G² − z G + 1 = 0; law of Nica & Speicher 1998].
 const std::vector<std::pair<double, double>> kAnticommutator = {
     {0.0, 1.0 / kPi},         {0.5, 0.255365556906527}, {1.0, 0.192988333008231},
     {2.0, 0.113905759864852}, {3.0, 0.048137434405276}, {3.3, 0.0139806844807352}};
-constexpr double kAnticommutatorEdge = 3.33019067678556;  // φ^{5/2}, reference §1.8
+constexpr double kAnticommutatorEdge = 3.33019067678556;  // φ^{5/2}, ref §1.8
 
 }  // namespace
 
 // ---------------------------------------------------------------------------------------------
 // The pencil: (z − P)^{−1} is the corner of (Λ(z) − L)^{−1} (Schur complement; Anderson 2013,
-// reference §4d), checked on random Hermitian matrices.
+// ref §4d), checked on random Hermitian matrices.
 
 TEST(Pencil, CornerOfTheInverseIsTheResolvent) {
   struct Case {
@@ -82,7 +83,7 @@ TEST(Pencil, CornerOfTheInverseIsTheResolvent) {
     int size;  // the pencil size we expect from the construction
   };
   const std::vector<Case> cases = {
-      {"X^2", {"X=gue"}, 2},  // reference §4d: [[0, x], [x, −1]]
+      {"X^2", {"X=gue"}, 2},  // ref §4d: [[0, x], [x, −1]]
       {"X1 X2 + X2 X1", {"X1=gue", "X2=gue"}, 3},
       {"X1^2 + X2", {"X1=gue", "X2=gue"}, 2},
       {"X1 B X1 + B", {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}, 3},
@@ -130,7 +131,7 @@ TEST(Pencil, CornerOfTheInverseIsTheResolvent) {
 // Laws with published values
 
 TEST(PolynomialLimit, AnticommutatorOfFreeSemicirculars) {
-  // Nica & Speicher 1998 (law), reference §1.8 (values): density 1/π at 0, edge φ^{5/2}.
+  // Nica & Speicher 1998 (law), ref §1.8 (values): density 1/π at 0, edge φ^{5/2}.
   const auto law = law_of("X1 X2 + X2 X1", {"X1=gue", "X2=gue"});
   EXPECT_EQ(law->pencil_size(), 3);
   EXPECT_NEAR(law->support().hi, kAnticommutatorEdge, 1e-6);
@@ -150,7 +151,7 @@ TEST(PolynomialLimit, AnticommutatorOfFreeSemicirculars) {
 }
 
 TEST(PolynomialLimit, CommutatorHasTheAnticommutatorLaw) {
-  // Nica & Speicher 1998; reference §1.8: i(s1 s2 − s2 s1) has the same law as s1 s2 + s2 s1.
+  // Nica & Speicher 1998; ref §1.8: i(s1 s2 − s2 s1) has the same law as s1 s2 + s2 s1.
   const fa::PolynomialLaw law(commutator(), {}, {});
   EXPECT_NEAR(law.support().hi, kAnticommutatorEdge, 1e-6);
   EXPECT_NEAR(law.support().lo, -kAnticommutatorEdge, 1e-6);
@@ -159,7 +160,7 @@ TEST(PolynomialLimit, CommutatorHasTheAnticommutatorLaw) {
 
 TEST(PolynomialLimit, SquareOfSemicircularIsFreePoisson) {
   // x² of a standard semicircular is free Poisson(1) = Marchenko–Pastur(1) (Nica & Speicher 2006,
-  // from memory; reference §1.2 and §4d): density √((4 − x) x)/(2πx) on [0, 4].
+  // from memory; ref §1.2 and §4d): density √((4 − x) x)/(2πx) on [0, 4].
   const auto law = law_of("X^2", {"X=gue"});
   const auto mp = fa::marchenko_pastur(1.0);
   EXPECT_EQ(law->pencil_size(), 2);
@@ -168,14 +169,14 @@ TEST(PolynomialLimit, SquareOfSemicircularIsFreePoisson) {
   for (double x : {0.05, 0.5, 1.0, 2.0, 3.0, 3.9}) {
     EXPECT_NEAR(law->density(x), mp->density(x), 1e-6) << x;
   }
-  // reference §1.2: f(1) = 0.275664447710896 for c = 1.
+  // ref §1.2: f(1) = 0.275664447710896 for c = 1.
   EXPECT_NEAR(law->density(1.0), 0.275664447710896, 1e-6);
   for (double x : {0.1, 1.0, 2.0, 3.5}) EXPECT_NEAR(law->cdf(x), mp->cdf(x), 1e-6) << x;
 }
 
 TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
   // For A semicircular free from B ≥ 0, A B A has the law of B^{1/2} A² B^{1/2}, i.e.
-  // MP(1) ⊠ μ_B (Voiculescu 1987; A² is free Poisson(1), reference §1.6): compared with the
+  // MP(1) ⊠ μ_B (Voiculescu 1987; A² is free Poisson(1), ref §1.6): compared with the
   // analysis issue's ⊠ by multiplicative subordination (Belinschi & Bercovici 2007).
   const auto law = law_of("A B A", {"A=gue", "B=diagonal:atoms=1@0.5,3@0.5"});
   const auto product =
@@ -184,7 +185,7 @@ TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
   for (double x : {0.2, 1.0, 2.0, 4.0, 7.0}) {
     EXPECT_NEAR(law->density(x), product->density(x), 1e-6) << x;
   }
-  // With B = ±1 (reference §1.6, ternary numbers; derived there): f(0.5), f(1) and the edge
+  // With B = ±1 (ref §1.6, ternary numbers; derived there): f(0.5), f(1) and the edge
   // 3√3/2.
   const auto bernoulli = law_of("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"});
   EXPECT_NEAR(bernoulli->support().hi, 2.59807621135332, 1e-6);
@@ -193,7 +194,7 @@ TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
 }
 
 TEST(PolynomialLimit, HaarRotationOfBernoulliIsArcsine) {
-  // B + U B U^* → (½δ₋₁+½δ₁)^{⊞2} = arcsine on [−2, 2] (reference §1.3; Nica & Speicher 2006).
+  // B + U B U^* → (½δ₋₁+½δ₁)^{⊞2} = arcsine on [−2, 2] (ref §1.3; Nica & Speicher 2006).
   const auto law = law_of("B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"});
   EXPECT_EQ(law->polynomial().letters.size(), 2u);
   EXPECT_EQ(law->polynomial().letters[1].name, "U B U^*");
@@ -229,7 +230,7 @@ TEST(PolynomialLimit, PointMassAtTheConstantTerm) {
 }
 
 // ---------------------------------------------------------------------------------------------
-// The solver's moments against the exact free-cumulant engine (Nica & Speicher 2006, reference §4e)
+// The solver's moments against the exact free-cumulant engine (Nica & Speicher 2006, ref §4e)
 
 TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {
   struct Case {
@@ -240,7 +241,7 @@ TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {
       {"X1 X2 + X2 X1", {"X1=gue", "X2=gue"}},
       {"X1^2 + X2", {"X1=gue", "X2=goe"}},
       {"X1 B X1 + B", {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}},
-      {"X1^2 + X1 X2 + X2 X1", {"X1=gue", "X2=gue"}},  // reference §1.8: 1, 1, 4, 14, 60, ...
+      {"X1^2 + X1 X2 + X2 X1", {"X1=gue", "X2=gue"}},  // ref §1.8: 1, 1, 4, 14, 60, ...
       {"X1 X2 X1 + X2 X1 X2", {"X1=gue", "X2=gue"}},
       {"X1 X2 X3 + X3 X2 X1 + X2", {"X1=gue", "X2=gue", "X3=gue"}},
       {"X1^4 - X2^2 + X3", {"X1=gue", "X2=gue", "X3=gue"}},

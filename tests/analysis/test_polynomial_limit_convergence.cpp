@@ -11,8 +11,8 @@
 // per batch at every N, so the Monte Carlo noise of a batch's distance is comparable across N;
 // the distance's standard error is that of the K batch values. Largest eigenvalues: mean and
 // standard error over all trials. Expected behaviour: the Kolmogorov distance of the expected ESD
-// falls like 1/N (Götze & Tikhomirov 2005 for GUE, from memory; reference §3.3) and edges move
-// like N^{−2/3} (reference §3.1, §3.2).
+// falls like 1/N (Götze & Tikhomirov 2005, GUE, from memory; docs/check-values.md §3.3), edges move
+// like N^{−2/3} (docs/check-values.md §3.1, §3.2).
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -58,7 +58,7 @@ std::vector<SizeResult> run(const std::string& expression,
         }
         tops.push_back(outcome.spectrum.maxCoeff());
       }
-      // sup_x |F_n(x) − F(x)| (reference §4h).
+      // sup_x |F_n(x) − F(x)| (docs/check-values.md §4h).
       distances.push_back(
           freegap::testing::ks_statistic(values, [&](double x) { return law.cdf(x); }));
     }

@@ -2,7 +2,7 @@
 // the eigenvalue step against a direct LAPACKE call on the same matrix.
 //
 // Run with one BLAS thread (the production layout is one rank per core with one thread each,
-// shared/reference/perf-anchors.md "how to use the 2 cores"):
+// docs/performance.md §8, ranks rather than threads):
 //   OPENBLAS_NUM_THREADS=1 ./build-bench/tests/benchmarks/bench_foundation
 //
 // Sampler benchmarks are reported as the median over repetitions (Google Benchmark's `median`
@@ -10,7 +10,7 @@
 // copies of one matrix, iteration by iteration (first call swapped every iteration, so neither
 // side always runs on a warm cache), time both by hand, and report as counters the median time
 // of each side and the median of the per-pair ratios freegap/direct: on a shared, noisy machine
-// a paired ratio moves far less than either time (perf-anchors §"Noise": ±5–10 % vs ±15–25 %).
+// a paired ratio moves far less than either time (docs/performance.md §0: ±5–10 % vs ±15–25 %).
 #include <benchmark/benchmark.h>
 #include <lapacke.h>
 
@@ -59,7 +59,7 @@ ens::MatrixSpec make_spec(ens::Kind kind, double ratio = 1.0,
   spec.kind = kind;
   spec.ratio = ratio;
   spec.haar = haar;
-  // Two atoms ±1 with weight 1/2: the B of the B + U B U^* pipeline in perf-anchors §4.
+  // Two atoms ±1 with weight 1/2: the B of the B + U B U^* trial in docs/performance.md §4.
   spec.diagonal.kind = ens::DiagonalLawKind::atoms;
   spec.diagonal.atoms = {{-1.0, 0.5}, {1.0, 0.5}};
   return spec;

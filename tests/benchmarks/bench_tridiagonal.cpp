@@ -4,7 +4,7 @@
 //
 //   OPENBLAS_NUM_THREADS=1 ./build-tri/tests/benchmarks/bench_tridiagonal
 //
-// One thread throughout (perf-anchors §"how to use the 2 cores"). Peak RSS is reported as a
+// One thread throughout (docs/performance.md §8). Peak RSS is reported as a
 // counter (getrusage ru_maxrss, whole process so far: it only grows, so read it on the largest N).
 // Results and how to read them: tests/benchmarks/RESULTS-tridiagonal.md.
 #include <benchmark/benchmark.h>

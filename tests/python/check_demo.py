@@ -4,8 +4,8 @@ set-up): `mpirun -np 2 freegap run jobs/demo.toml`, then `freegap inspect --mome
 
 Checks: exit 0, every size complete with 24 trials and no failure, two ranks recorded in the
 provenance, and the N = 400 moments near the arcsine limit m2 = 2, m4 = 6 (Nica & Speicher 2006,
-free convolution of two Bernoulli laws, from memory; reference §1.3) within 5 printed standard
-errors plus the O(1/N²) Haar-unitary correction (< 1e-3 at N = 400; reference §3.3).
+Bernoulli ⊞ Bernoulli, from memory; docs/check-values.md §1.3) within 5 printed standard
+errors plus the O(1/N²) Haar-unitary correction (< 1e-3 at N = 400; docs/check-values.md §3.3).
 """
 import os
 import re

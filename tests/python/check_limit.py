@@ -2,7 +2,7 @@
 the figures, and bad input (exit 2, nothing written).
 
 Outside reference: the anticommutator s1 s2 + s2 s1 of free standard semicirculars has the Cauchy
-transform solving z G³ + G² − z G + 1 = 0 (shared/reference §1.8; law: Nica & Speicher 1998);
+transform solving z G³ + G² − z G + 1 = 0 (docs/check-values.md §1.8; law: Nica & Speicher 1998);
 numpy.roots solves the cubic at each x and the density is max(−Im G)/π over the roots, the CDF is
 scipy.integrate.quad of that density.
 
@@ -39,11 +39,11 @@ with tempfile.TemporaryDirectory() as tmp:
                         "-o", out, "--points", "200"], capture_output=True, text=True)
     check(r.returncode == 0, f"limit exits 0 (got {r.returncode}: {r.stderr})")
     text = r.stdout
-    # Edge φ^{5/2} = 3.33019067678556 (reference §1.8), printed to 10 decimals.
+    # Edge φ^{5/2} = 3.33019067678556 (docs/check-values.md §1.8), printed to 10 decimals.
     check("support: [-3.3301906768, 3.3301906768]" in text, "support edges printed")
     check("operator-norm limit: 3.3301906768" in text, "norm limit printed")
     check("pencil size: 3" in text, "pencil size printed")
-    # Moments 2, 10, 66 (reference §1.8), solver beside exact.
+    # Moments 2, 10, 66 (docs/check-values.md §1.8), solver beside exact.
     for k, m in ((2, "2"), (4, "10"), (6, "66")):
         line = next((l for l in text.splitlines() if l.strip().startswith(f"m{k} ")), "")
         check(line.split()[1:] == [m, m], f"m{k} solver and exact are {m}: '{line}'")

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Bad input gets a clear error, exit status 2, and nothing is written half-way (DESIGN.md, rule 6).
+"""Bad input gets a clear error, exit status 2, nothing written half-way (docs/design.md rule 6).
 
 Usage: check_run_bad_input.py BUILD_DIR
 

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""A kill at any moment leaves a file that opens and resumes to the same numbers (DESIGN.md, rule 3).
+"""A kill at any instant leaves a file that opens and resumes identically (docs/design.md rule 3).
 
 Usage: check_run_kill_resume.py BUILD_DIR
 

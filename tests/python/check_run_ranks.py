@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""The run file does not depend on how many ranks ran it (DESIGN.md, rule 1).
+"""The run file does not depend on how many ranks ran it (docs/design.md rule 1).
 
 Usage: check_run_ranks.py BUILD_DIR
 

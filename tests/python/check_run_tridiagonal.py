@@ -4,7 +4,7 @@
 Checks, under real runs:
   - an affine expression in one GUE matrix takes the tridiagonal path (said by --explain and
     recorded in the run file's /metadata), runs at N = 10^6, and its moments agree with the exact
-    E tr(2X + 1)^2 = 5 (E tr X^2 = 1 for GUE at every N, Harer & Zagier 1986; reference §2.1)
+    E tr(2X + 1)^2 = 5 (E tr X^2 = 1 for GUE, all N: Harer & Zagier 1986; docs/check-values.md §2.1)
     within 5 standard errors of the stated trial count;
   - the run file is identical outside /provenance for 1 process and 2 MPI ranks;
   - force_dense switches to the dense path (recorded too);

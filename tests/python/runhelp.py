@@ -23,7 +23,7 @@ import h5py  # noqa: E402
 import numpy as np  # noqa: E402
 
 # What every child gets: root may run mpirun, more ranks than cores, one BLAS thread.
-# (shared/reference/cluster-notes.md §1; the vader setting is harmless here and needed in Docker.)
+# (docs/cluster-notes.md §1.1–§1.3; the vader setting is harmless here and needed in Docker.)
 MPI_ENV = {
     "OMPI_ALLOW_RUN_AS_ROOT": "1",
     "OMPI_ALLOW_RUN_AS_ROOT_CONFIRM": "1",
@@ -33,7 +33,7 @@ MPI_ENV = {
 }
 os.environ.update(MPI_ENV)
 if shutil.which("ssh") is None and shutil.which("rsh") is None:
-    # Without ssh even single-node mpirun and singletons fail (cluster-notes §1).
+    # Without ssh even single-node mpirun and singletons fail (docs/cluster-notes.md §1.3).
     os.environ["OMPI_MCA_plm"] = "isolated"
 
 EXIT_FINISHED, EXIT_FAILURE, EXIT_BAD_INPUT, EXIT_RESUMABLE = 0, 1, 2, 3  # run.hpp

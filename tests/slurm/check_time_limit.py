@@ -8,7 +8,7 @@ The job needs about 50 s of one core; the batch jobs have the minimum limit of 1
 warning --signal=B:USR1@30 and FREEGAP_STOP_MARGIN=15 (--stop-before = time left − 15 s), so
 whichever comes first — Slurm's warning (up to 60 s early), freegap's own deadline, or SIGTERM
 at the limit (enforced up to ~30 s late) — stops the first job before the run is done
-(cluster-notes §3: the windows are wide, so the test asserts what happened, not when).
+(docs/cluster-notes.md §3.5: the windows are wide, so the test asserts what happened, not when).
 Two chains run at once (the node advertises 8 CPUs):
   resubmit  the script submits its follow-up (sbatch --dependency=afterany:<job>);
   requeue   FREEGAP_RESTART=requeue: the script requeues its own job (scontrol requeue).

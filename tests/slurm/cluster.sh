@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # A throw-away one-node Slurm cluster for the tests: munged, slurmctld and slurmd started by hand
 # as plain daemons (no systemd, no cgroups), everything — key, sockets, state, logs — in one
-# directory. Recipe and measured costs: shared/reference/cluster-notes.md §3–4 (start under 1 s,
+# directory. Recipe and measured costs: docs/cluster-notes.md §3–4 (start under 1 s,
 # stop about 4 s).
 #
 #   tests/slurm/cluster.sh start DIR   # prints "export SLURM_CONF=DIR/slurm.conf"; stops a cluster
@@ -41,7 +41,7 @@ wait_gone() {  # wait_gone SECONDS PID...: 0 when every pid has exited
   while :; do
     alive=0
     for p in "$@"; do
-      # A zombie (state Z) has exited; the sandbox's init reaps it later (cluster-notes §3).
+      # A zombie (state Z) has exited; the sandbox's init reaps it (docs/cluster-notes.md §3.3).
       if kill -0 "$p" 2>/dev/null && [ "$(ps -o stat= -p "$p" 2>/dev/null | cut -c1)" != Z ]; then
         alive=1
       fi
@@ -56,7 +56,7 @@ stop_cluster() {
   local p pids=()
   export SLURM_CONF="$DIR/slurm.conf"
   if pid_of slurmctld >/dev/null; then
-    # Jobs first: a job's slurmstepd outlives slurmd (cluster-notes §3).
+    # Jobs first: a job's slurmstepd outlives slurmd (docs/cluster-notes.md §3.3).
     scancel --user="$(id -un)" 2>/dev/null || true
     local deadline=$((SECONDS + 30))
     while [ -n "$(squeue -h 2>/dev/null)" ] && [ "$SECONDS" -lt "$deadline" ]; do sleep 0.2; done
@@ -106,7 +106,7 @@ start_cluster() {
   mungekey -c -k "$DIR/munge.key" >/dev/null 2>&1 || die "mungekey failed"
   chmod 600 "$DIR/munge.key"
   cat >"$DIR/slurm.conf" <<EOF
-# Written by tests/slurm/cluster.sh: a one-node test cluster (cluster-notes §3).
+# Written by tests/slurm/cluster.sh: a one-node test cluster (docs/cluster-notes.md §3).
 ClusterName=freegapci
 SlurmctldHost=localhost
 SlurmctldPort=$CTLD_PORT

@@ -1,6 +1,6 @@
 // Convergence-rate fits: error ≈ C·N^(−α), with confidence intervals and the published exponents.
 //
-// Method (shared/reference §4h):
+// Method (docs/check-values.md §4h):
 //  - weighted least squares of log e_j = log C − α log N_j, weights w_j = e_j²/s_j² (delta method:
 //    sd(log e) ≈ s/e). CI α̂ ± t_{m−2, (1+level)/2}·se(α̂), with se inflated by √(χ²/(m−2)) when the
 //    residual χ² exceeds m − 2 (the scatter is larger than the stated errors). Without standard
@@ -112,12 +112,12 @@ BootstrapInterval bootstrap_alpha_of_means(std::span<const double> sizes,
 /// The error point of per-trial values (mean − target, SE, resolved at 2 SE).
 ErrorPoint mean_error_point(double n, std::span<const double> values, double target);
 
-/// A published convergence exponent, for printing beside a fit (shared/reference §3.3).
+/// A published convergence exponent, for printing beside a fit (docs/check-values.md §3.3).
 struct PublishedRate {
   std::string_view key;          ///< e.g. "moments/gue"
   std::string_view description;  ///< what converges
   double alpha = 0.0;
-  std::string_view source;  ///< author, year (and "from memory" where the reference says so)
+  std::string_view source;  ///< author, year (and "from memory" where docs/check-values.md says so)
 };
 
 /// The table of known exponents.

@@ -1,5 +1,5 @@
 // Finite-N errors against the limit, each with its Monte Carlo standard error and a flag saying
-// whether it is resolved above its own noise (DESIGN.md rule 4).
+// whether it is resolved above its own noise (docs/design.md rule 4).
 //
 // Metrics for one size N:
 //  - Kolmogorov and Wasserstein-1 distance of the mean spectral distribution (pooled histogram of
@@ -17,7 +17,7 @@
 //    below the first or above the last edge is placed on that edge. Relative to the exact W1 of
 //    the pooled spectrum the error is at most the bin width (each eigenvalue moves by less than
 //    one bin).
-// Per-trial distances from kept spectra are exact (shared/reference §4h): Kolmogorov from the
+// Per-trial distances from kept spectra are exact (docs/check-values.md §4h): Kolmogorov from the
 // order statistics; W1 = Σ_i ∫_{λ_(i)}^{λ_(i+1)} |i/n − F| dx, each piece split at F^{−1}(i/n) and
 // integrated exactly with the antiderivative Φ of F when given, else by 8-point Gauss–Legendre on
 // each monotone piece.

@@ -6,7 +6,7 @@
 // matrices X_i (Voiculescu 1991).
 //
 // How: the moment–cumulant formula with mixed cumulants vanishing (Nica & Speicher 2006, from
-// memory; shared/reference §4e):
+// memory; docs/check-values.md §4e):
 //     τ(a_1 ⋯ a_n) = Σ_{π ∈ NC(n), π ≤ ker(variable)} Π_{V ∈ π} κ_V,
 // organised by the block V that contains the first letter: the gaps between consecutive elements
 // of V are intervals that are partitioned independently, so
@@ -18,11 +18,11 @@
 //
 // Cumulants of a block:
 //  - self-adjoint variable: κ_|V|, from its moments by m_n = Σ_{s=1}^n κ_s [z^{n−s}] M(z)^s (first-
-//    block decomposition, Nica & Speicher 2006, from memory; reference §4e);
+//    block decomposition, Nica & Speicher 2006, from memory; docs/check-values.md §4e);
 //  - Haar unitary u (*-free, τ(u^k) = δ_{k0}): κ(u^{ε_1}, ..., u^{ε_n}) is (−1)^{k−1} Cat(k−1) when
 //    n = 2k and the ε alternate (u, u^*, u, ... or u^*, u, ...), 0 otherwise — u is R-diagonal
 //    (Nica & Speicher 2006, Prop. 15.1, from memory; checked by the Kesten–McKay moments 4, 28, 232
-//    of reference §1.4 and by τ(u u^* u u^*) = 1);
+//    of docs/check-values.md §1.4 and by τ(u u^* u u^*) = 1);
 //  - circular c (limit of a square Ginibre matrix / √N): κ_2(c, c^*) = κ_2(c^*, c) = 1, all others
 //  0
 //    (Nica & Speicher 2006, from memory).
@@ -162,7 +162,7 @@ class FreeVariable {
  public:
   /// Semicircular of variance σ² (limit of GUE, GOE, Wigner): κ_2 = σ², others 0.
   static FreeVariable semicircular(Rational variance = Rational(1));
-  /// Marchenko–Pastur MP(c) (limit of W = X X^*/M, c = N/M): κ_n = c^{n−1} (reference §1.2).
+  /// Marchenko–Pastur MP(c) of W = X X^*/M, c = N/M: κ_n = c^{n−1} (docs/check-values.md §1.2).
   static FreeVariable marchenko_pastur(Rational ratio);
   /// A finitely supported law Σ w_i δ_{a_i} (deterministic diagonal; weights must sum to 1).
   static FreeVariable atoms(std::vector<std::pair<Rational, Rational>> value_weight);

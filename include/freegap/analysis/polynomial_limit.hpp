@@ -13,7 +13,7 @@
 //     including D itself (U is Haar and independent of the rest).
 //  2. Linearization (linearize): a self-adjoint pencil L = b_0 + Σ_i b_i x_i with real symmetric
 //     n×n coefficients such that (z − P)^{−1} = [(Λ(z) − L)^{−1}]_{11}, Λ(z) = diag(z, 0, …, 0)
-//     (Anderson 2013; Belinschi, Mai & Speicher 2017; shared/reference §4d). A palindromic word
+//     (Anderson 2013; Belinschi, Mai & Speicher 2017; docs/check-values.md §4d). A palindromic word
 //     (w = w^*) of length k adds k − 1 rows, a pair w, w^* adds 2(k − 1) rows, letters and
 //     constants go to the corner.
 //  3. Operator-valued Cauchy transform G(β) = E[(β − Σ_i b_i x_i)^{−1}], β = Λ_ε(z) − b_0 with
