@@ -22,6 +22,7 @@
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/store.hpp"
+#include "freegap/sweep.hpp"
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
@@ -348,6 +349,25 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   return run;
 }
 
+// The keys a sweep varied across these runs (sweep.hpp: the task jobs' point lines), in the order
+// they first appear; empty when no run came from a sweep.
+std::vector<std::string> sweep_keys(const std::vector<RunResult>& runs) {
+  std::vector<std::string> keys;
+  for (const auto& run : runs) {
+    for (const auto& [key, value] : sweep::point_of_job_text(run.header.job_text)) {
+      if (std::find(keys.begin(), keys.end(), key) == keys.end()) keys.push_back(key);
+    }
+  }
+  return keys;
+}
+
+std::string point_value(const RunResult& run, const std::string& key) {
+  for (const auto& [k, value] : sweep::point_of_job_text(run.header.job_text)) {
+    if (k == key) return value;
+  }
+  return "";
+}
+
 std::string status_of(const SizeResult& s) {
   if (s.units_done == s.units_total) return "complete";
   if (s.units_done == 0) return "no data";
@@ -358,6 +378,9 @@ std::string status_of(const SizeResult& s) {
 void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
   Table runs_t{"runs", {"run", "file", "job_name", "expression", "spectrum", "limit", "rule_or_reason",
                         "sizes", "complete"}, {}};
+  // Runs of a sweep get one column per varied key ("sweep.<key>"), their point's value.
+  const std::vector<std::string> keys = sweep_keys(runs);
+  for (const auto& key : keys) runs_t.columns.push_back("sweep." + key);
   Table sizes_t{"sizes",
                 {"run", "n", "status", "units_committed", "units_total", "trials_planned", "trials_used",
                  "trials_failed", "kolmogorov", "kolmogorov_se", "kolmogorov_noise_floor",
@@ -390,6 +413,7 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
                            run.limit.law ? run.limit.law->describe() : std::string("none"),
                            run.limit.law ? run.limit.rule : run.limit.reason,
                            static_cast<double>(run.sizes.size()), b(complete)});
+    for (const auto& key : keys) runs_t.rows.back().push_back(point_value(run, key));
     for (const auto& s : run.sizes) {
       const auto& m = s.metrics;
       const double n = static_cast<double>(s.n);
@@ -495,8 +519,16 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
       fields[r].erase(std::unique(fields[r].begin(), fields[r].end()), fields[r].end());
       for (const auto& f : fields[r]) ++count[f];
     }
-    md += "## Runs collated\n\n| # | file | job | what differs | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) |\n"
-          "|---|---|---|---|---|---|---|---|---|---|\n";
+    // A sweep's runs get one column per varied key, their point's value (sweep.hpp).
+    const std::vector<std::string> keys = sweep_keys(runs);
+    std::string key_head, key_rule;
+    for (const auto& key : keys) {
+      key_head += " " + key + " |";
+      key_rule += "---|";
+    }
+    md += "## Runs collated\n\n| # | file | job |" + key_head +
+          " what differs | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) |\n"
+          "|---|---|---|" + key_rule + "---|---|---|---|---|---|---|\n";
     for (std::size_t r = 0; r < runs.size(); ++r) {
       const auto& run = runs[r];
       bool complete = true;
@@ -515,9 +547,11 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
       for (const auto& f : run.fits) {
         if (f.key == "kolmogorov" && f.fit.ok) alpha = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
       }
+      std::string key_cells;
+      for (const auto& key : keys) key_cells += " " + point_value(run, key) + " |";
       md += "| " + std::to_string(r + 1) + " | " + run.label + " | " +
-            (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " | " +
-            differs + " | `" + run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
+            (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " |" +
+            key_cells + " " + differs + " | `" + run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
             std::to_string(run.sizes.size()) + " | " + (complete ? "complete" : "incomplete") + " | " +
             (last && last->metrics.has_pooled ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.pooled_kolmogorov) : "–") +
             " | " + alpha + " |\n";

@@ -10,8 +10,10 @@ namespace freegap::cli {
 Subcommand add_sweep_command(CLI::App& app) {
   auto path = std::make_shared<std::string>();
   auto* cmd = app.add_subcommand(
-      "sweep", "Write one job file per value of a parameter (a sweep file) for a job array");
-  cmd->add_option("sweep_file", *path, "Sweep file (TOML: base, vary, values, directory)")
+      "sweep", "Write one job file per point of a sweep (values of one or several job keys, as a "
+      "grid or zipped lists) for a job array");
+  cmd->add_option("sweep_file", *path,
+                  "Sweep file (TOML: base, vary with values or a [vary] table, combine, directory)")
       ->required();
   return {cmd, [path] {
             const auto s = sweep::expand(*path);

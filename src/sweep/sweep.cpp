@@ -3,6 +3,7 @@
 
 #include <toml++/toml.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -45,6 +46,185 @@ std::string toml_text(const toml::node& node) {
 
 }  // namespace
 
+namespace {
+
+// One varied key: its dotted path, its parts, and its values (in the sweep file's order).
+struct Axis {
+  std::string key;
+  std::vector<std::string> parts;
+  const toml::array* values = nullptr;
+  const toml::node* node = nullptr;  // for messages
+};
+
+// The axes of a sweep file: `vary = "KEY"` with `values = [...]`, or a [vary] table whose leaves
+// are the value lists (dotted keys and nested tables alike), in the order they are written.
+std::vector<Axis> read_axes(const std::string& path, const toml::table& t) {
+  std::vector<Axis> axes;
+  const toml::node* vary = t.get("vary");
+  if (vary == nullptr) {
+    throw InputError(where(path, nullptr, "vary") +
+                     "required: the dotted job key to vary with values = [...], e.g. vary = "
+                     "\"matrices.W.ratio\", or a [vary] table of keys and value lists");
+  }
+  if (const auto* key = vary->as_string()) {
+    const auto* values = t["values"].as_array();
+    if (!values || values->empty()) {
+      throw InputError(where(path, t.get("values"), "values") +
+                       "required: a non-empty list of values, e.g. values = [0.25, 0.5, 1.0]");
+    }
+    axes.push_back({key->get(), split_key(key->get()), values, vary});
+  } else if (const auto* table = vary->as_table()) {
+    if (t.get("values") != nullptr) {
+      throw InputError(where(path, t.get("values"), "values") +
+                       "goes with vary = \"KEY\"; with a [vary] table each key has its own list");
+    }
+    std::vector<std::pair<std::string, const toml::node*>> pending;
+    const auto walk = [&](const auto& self, const toml::table& tb, const std::string& prefix) -> void {
+      for (const auto& [k, v] : tb) {
+        const std::string key = prefix + std::string(k.str());
+        if (const auto* sub = v.as_table()) {
+          self(self, *sub, key + ".");
+        } else {
+          pending.emplace_back(key, &v);
+        }
+      }
+    };
+    walk(walk, *table, "");
+    std::stable_sort(pending.begin(), pending.end(), [](const auto& a, const auto& b) {
+      const auto& x = a.second->source().begin;
+      const auto& y = b.second->source().begin;
+      return x.line != y.line ? x.line < y.line : x.column < y.column;
+    });
+    for (const auto& [key, node] : pending) {
+      const auto* values = node->as_array();
+      if (!values || values->empty()) {
+        throw InputError(where(path, node, "vary." + key) +
+                         "must be a non-empty list of values, e.g. " + key + " = [1, 2, 3]");
+      }
+      axes.push_back({key, split_key(key), values, node});
+    }
+    if (axes.empty()) {
+      throw InputError(where(path, vary, "vary") + "names no key; add KEY = [values] under [vary]");
+    }
+  } else {
+    throw InputError(where(path, vary, "vary") +
+                     "must be a dotted job key in quotes or a [vary] table of keys and value lists");
+  }
+  for (const auto& a : axes) {
+    for (const auto& p : a.parts) {
+      if (p.empty()) {
+        throw InputError(where(path, a.node, "vary") + "empty part in '" + a.key + "'");
+      }
+    }
+    if (a.key == "name" || a.key == "output" || a.key == "run.output") {
+      throw InputError(where(path, a.node, "vary") + "'" + a.key +
+                       "' is set per task by the sweep; vary a key that changes the numbers");
+    }
+  }
+  return axes;
+}
+
+// The points of the sweep: every combination (grid; the last key varies fastest) or the i-th
+// values of every key together (zip). Each point is one value index per axis.
+std::vector<std::vector<std::size_t>> points_of(const std::string& path, const toml::table& t,
+                                                const std::vector<Axis>& axes) {
+  std::string combine = "grid";
+  if (const toml::node* c = t.get("combine")) {
+    const auto* text = c->as_string();
+    if (!text || (text->get() != "grid" && text->get() != "zip")) {
+      throw InputError(where(path, c, "combine") +
+                       "must be \"grid\" (every combination) or \"zip\" (the i-th values of "
+                       "every key together)");
+    }
+    combine = text->get();
+  }
+  std::vector<std::vector<std::size_t>> points;
+  if (combine == "zip") {
+    const std::size_t n = axes.front().values->size();
+    for (const auto& a : axes) {
+      if (a.values->size() != n) {
+        throw InputError(where(path, a.node, "vary." + a.key) + "has " +
+                         std::to_string(a.values->size()) + " values and " + axes.front().key +
+                         " has " + std::to_string(n) +
+                         "; combine = \"zip\" needs lists of one length (or use \"grid\")");
+      }
+    }
+    for (std::size_t i = 0; i < n; ++i) points.emplace_back(axes.size(), i);
+    return points;
+  }
+  std::size_t total = 1;
+  for (const auto& a : axes) {
+    total *= a.values->size();
+    if (total > kMaxTasks) {
+      throw InputError(where(path, a.node, "vary") + "the grid has more than " +
+                       std::to_string(kMaxTasks) + " points; split the sweep");
+    }
+  }
+  for (std::size_t i = 0; i < total; ++i) {
+    std::vector<std::size_t> point(axes.size());
+    std::size_t rest = i;
+    for (std::size_t k = axes.size(); k-- > 0;) {
+      point[k] = rest % axes[k].values->size();
+      rest /= axes[k].values->size();
+    }
+    points.push_back(std::move(point));
+  }
+  return points;
+}
+
+// Sets `parts` (a dotted key) in `job` to `value`, creating tables the base job lacks.
+void set_key(toml::table& job, const Axis& axis, const toml::node& value, const std::string& path) {
+  toml::table* parent = &job;
+  for (std::size_t k = 0; k + 1 < axis.parts.size(); ++k) {
+    auto* child = parent->get(axis.parts[k]);
+    if (!child) {
+      parent->insert(axis.parts[k], toml::table{});
+      child = parent->get(axis.parts[k]);
+    }
+    if (!child->is_table()) {
+      throw InputError(where(path, axis.node, "vary") + "'" + axis.parts[k] +
+                       "' in the base job is not a table");
+    }
+    parent = child->as_table();
+  }
+  value.visit([&](const auto& v) { parent->insert_or_assign(axis.parts.back(), v); });
+}
+
+// Paths in the job are relative to the base job's folder; the task files live elsewhere, so
+// every relative path a job names (a diagonal's eigenvalue file, a plug-in library, a command
+// given with a '/') is made absolute.
+void anchor_paths(toml::table& job, const fs::path& base_dir) {
+  const auto anchored = [&](const std::string& p) {
+    return (base_dir / p).lexically_normal().string();
+  };
+  if (auto* matrices = job["matrices"].as_table()) {
+    for (auto& [name, m] : *matrices) {
+      if (auto* mt = m.as_table()) {
+        if (auto p = (*mt)["path"].value<std::string>(); p && !fs::path(*p).is_absolute()) {
+          mt->insert_or_assign("path", anchored(*p));
+        }
+      }
+    }
+  }
+  if (auto* estimators = job["estimator"].as_array()) {
+    for (auto& e : *estimators) {
+      auto* et = e.as_table();
+      if (!et) continue;
+      if (auto p = (*et)["library"].value<std::string>(); p && !fs::path(*p).is_absolute()) {
+        et->insert_or_assign("library", anchored(*p));
+      }
+      if (auto* command = (*et)["command"].as_array(); command && !command->empty()) {
+        if (auto p = (*command)[0].value<std::string>();
+            p && p->find('/') != std::string::npos && !fs::path(*p).is_absolute()) {
+          command->replace(command->begin(), anchored(*p));
+        }
+      }
+    }
+  }
+}
+
+}  // namespace
+
 Sweep expand(const std::string& sweep_path) {
   toml::table t;
   try {
@@ -57,9 +237,10 @@ Sweep expand(const std::string& sweep_path) {
   }
   for (const auto& [k, v] : t) {
     const std::string key(k.str());
-    if (key != "base" && key != "vary" && key != "values" && key != "directory") {
+    if (key != "base" && key != "vary" && key != "values" && key != "directory" &&
+        key != "combine") {
       throw InputError(where(sweep_path, &v, key) +
-                       "unknown key; a sweep file has base, vary, values and directory");
+                       "unknown key; a sweep file has base, vary, values, combine and directory");
     }
   }
   const auto base_rel = t["base"].value<std::string>();
@@ -67,25 +248,8 @@ Sweep expand(const std::string& sweep_path) {
     throw InputError(where(sweep_path, t.get("base"), "base") +
                      "required: the job file every task starts from, e.g. base = \"study.toml\"");
   }
-  const auto vary = t["vary"].value<std::string>();
-  if (!vary || vary->empty()) {
-    throw InputError(where(sweep_path, t.get("vary"), "vary") +
-                     "required: the dotted job key to vary, e.g. vary = \"matrices.W.ratio\"");
-  }
-  const auto parts = split_key(*vary);
-  for (const auto& p : parts) {
-    if (p.empty())
-      throw InputError(where(sweep_path, t.get("vary"), "vary") + "empty part in '" + *vary + "'");
-  }
-  if (*vary == "name" || *vary == "output") {
-    throw InputError(where(sweep_path, t.get("vary"), "vary") + "'" + *vary +
-                     "' is set per task by the sweep; vary a key that changes the numbers");
-  }
-  const auto* values = t["values"].as_array();
-  if (!values || values->empty()) {
-    throw InputError(where(sweep_path, t.get("values"), "values") +
-                     "required: a non-empty list of values, e.g. values = [0.25, 0.5, 1.0]");
-  }
+  const std::vector<Axis> axes = read_axes(sweep_path, t);
+  const auto points = points_of(sweep_path, t, axes);
   const fs::path sweep_file = fs::absolute(sweep_path);
   const fs::path here = sweep_file.parent_path();
   const std::string stem = sweep_file.stem().string();
@@ -106,54 +270,35 @@ Sweep expand(const std::string& sweep_path) {
   Sweep s;
   s.directory = dir.string();
   s.list_path = (dir / "jobs.txt").string();
-  for (std::size_t i = 0; i < values->size(); ++i) {
+  for (std::size_t i = 0; i < points.size(); ++i) {
     toml::table job = base;
-    // Walk to the parent table of the key, creating tables the base job lacks.
-    toml::table* parent = &job;
-    for (std::size_t k = 0; k + 1 < parts.size(); ++k) {
-      auto* child = parent->get(parts[k]);
-      if (!child) {
-        parent->insert(parts[k], toml::table{});
-        child = parent->get(parts[k]);
-      }
-      if (!child->is_table()) {
-        throw InputError(where(sweep_path, t.get("vary"), "vary") + "'" + parts[k] +
-                         "' in the base job is not a table");
-      }
-      parent = child->as_table();
+    Task task;
+    std::string described;
+    for (std::size_t k = 0; k < axes.size(); ++k) {
+      const toml::node& value = *axes[k].values->get(points[i][k]);
+      set_key(job, axes[k], value, sweep_path);
+      task.point.emplace_back(axes[k].key, toml_text(value));
+      described += (k ? ", " : "") + axes[k].key + " = " + task.point.back().second;
     }
-    const toml::node& value = *values->get(i);
-    value.visit([&](const auto& v) { parent->insert_or_assign(parts.back(), v); });
-    const std::string value_text = toml_text(value);
-    job.insert_or_assign("name", base_name + " (" + *vary + " = " + value_text + ")");
+    job.insert_or_assign("name", base_name + " (" + described + ")");
     const std::string task_stem = stem + "-" + std::to_string(i);
     if (!job["run"]) job.insert("run", toml::table{});
     if (auto* run = job["run"].as_table()) run->insert_or_assign("output", task_stem + ".h5");
-    // A law = "file" diagonal's path is relative to its job file: keep it pointing at the same
-    // file.
-    if (auto* matrices = job["matrices"].as_table()) {
-      for (auto& [name, m] : *matrices) {
-        if (auto* mt = m.as_table()) {
-          if (auto p = (*mt)["path"].value<std::string>(); p && !fs::path(*p).is_absolute()) {
-            mt->insert_or_assign("path",
-                                 (base_path.parent_path() / *p).lexically_normal().string());
-          }
-        }
-      }
-    }
+    anchor_paths(job, base_path.parent_path());
     std::ostringstream text;
-    text << "# Task " << i << " of the sweep " << sweep_file.string() << ": " << *vary << " = "
-         << value_text << ".\n# " << kTaskMark << base_path.string()
-         << "; edit the sweep or the base job, not this file.\n"
-         << job << "\n";
-    Task task;
+    text << "# Task " << i << " of the sweep " << sweep_file.string() << ": " << described
+         << ".\n# " << kTaskMark << base_path.string()
+         << "; edit the sweep or the base job, not this file.\n";
+    // One line per varied key, for `freegap report`'s collation (sweep.hpp, kPointPrefix).
+    for (const auto& [key, value] : task.point) text << kPointPrefix << key << " = " << value << "\n";
+    text << job << "\n";
     task.job_path = (dir / (task_stem + ".toml")).string();
     task.text = text.str();
-    task.value = value_text;
+    task.value = described;
     try {
       job::parse_job(task.text, task.job_path);
     } catch (const InputError& e) {
-      throw InputError(where(sweep_path, values->get(i), "values") + "value " + value_text +
+      throw InputError(where(sweep_path, axes.front().node, "vary") + "point " + described +
                        " makes an invalid job: " + e.what());
     }
     s.tasks.push_back(std::move(task));
@@ -194,6 +339,19 @@ bool list_file_replaceable(const fs::path& path) {
 }
 
 }  // namespace
+
+std::vector<std::pair<std::string, std::string>> point_of_job_text(const std::string& job_text) {
+  std::vector<std::pair<std::string, std::string>> point;
+  std::istringstream lines(job_text);
+  std::string line;
+  while (std::getline(lines, line) && line.rfind("#", 0) == 0) {
+    if (line.rfind(kPointPrefix, 0) != 0) continue;
+    const std::string rest = line.substr(std::string(kPointPrefix).size());
+    const auto eq = rest.find(" = ");
+    if (eq != std::string::npos) point.emplace_back(rest.substr(0, eq), rest.substr(eq + 3));
+  }
+  return point;
+}
 
 void write(const Sweep& sweep) {
   // Nothing is written unless every file it would overwrite is provably an earlier sweep's.
