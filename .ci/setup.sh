@@ -17,6 +17,9 @@ FREEGAP_PACKAGES=(
   libtomlplusplus-dev python3 python3-numpy python3-scipy python3-h5py python3-matplotlib
   # A real one-node Slurm for tests/slurm (started by hand, no systemd; docs/cluster-notes.md §3).
   slurmctld slurmd slurm-client munge
+  # The installed-tree test loads freegap's module file with Lmod (tests/install/check_install.py);
+  # fuzzing needs clang with libFuzzer's runtime (tests/fuzz).
+  lmod clang libclang-rt-14-dev
 )
 
 freegap_missing_packages() {

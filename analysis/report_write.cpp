@@ -10,6 +10,7 @@
 
 #include "freegap/analysis/report.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/install_paths.hpp"
 #include "freegap/output_dir.hpp"
 #include "freegap/version.hpp"
 
@@ -102,7 +103,7 @@ void draw_figures(const fs::path& tmp, const Report& report, const ReportOptions
   fs::create_directories(tmp / "figures", ec);
   if (ec) throw Error("report: cannot create '" + (tmp / "figures").string() + "': " + ec.message());
   const std::string script = options.plot_script.empty()
-                                 ? std::string(FREEGAP_ANALYSIS_DIR "/plot_report.py")
+                                 ? install_paths::analysis_script("plot_report.py")
                                  : options.plot_script;
   if (!fs::exists(script, ec)) {
     throw Error("report: the figure script '" + script + "' is missing; use --no-figures");

@@ -12,12 +12,9 @@
 #include "commands.hpp"
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/install_paths.hpp"
 #include "freegap/model.hpp"
 #include "freegap/output_dir.hpp"
-
-#ifndef FREEGAP_ANALYSIS_DIR
-#define FREEGAP_ANALYSIS_DIR ""
-#endif
 
 namespace freegap::cli {
 
@@ -128,7 +125,15 @@ int run_limit(const LimitOptions& opt) {
   }
 
   const char* env = std::getenv("FREEGAP_PLOT_LIMIT");
-  const std::string script = env ? env : std::string(FREEGAP_ANALYSIS_DIR) + "/plot_limit.py";
+  // const: a non-const std::string would pick std::quoted (found by ADL) over ours below.
+  const std::string script = [&]() -> std::string {
+    if (env && *env) return env;
+    try {
+      return install_paths::analysis_script("plot_limit.py");
+    } catch (const Error&) {
+      return "plot_limit.py (not found beside freegap)";
+    }
+  }();
   const std::string title = "N → ∞ law of " + expression.text();
   const std::string command = "/usr/bin/python3 " + quoted(script) + " " + quoted(csv.string()) +
                               " " + quoted((staged.path() / "limit").string()) + " " +

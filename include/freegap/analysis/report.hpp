@@ -35,7 +35,7 @@ struct ReportOptions {
   int bootstrap_replicates = 200;  ///< per-size bootstrap of pooled distances
   int fit_bootstrap_replicates = 400;
   std::string python = "/usr/bin/python3";
-  std::string plot_script;  ///< empty: the analysis/plot_report.py of the source tree
+  std::string plot_script;  ///< empty: plot_report.py installed beside freegap (install_paths.hpp)
   int max_moment_fitted = 8;
 };
 
