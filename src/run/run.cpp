@@ -9,6 +9,7 @@
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
+#include <deque>
 #include <filesystem>
 #include <fstream>
 #include <memory>
@@ -413,6 +414,7 @@ template <class Between>
 bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
                   Between&& between_trials) {
   const auto start = std::chrono::steady_clock::now();
+  std::chrono::steady_clock::duration coordinating{};
   done.size_index = unit.size_index;
   done.unit = unit.unit;
   done.rank = rank;
@@ -450,9 +452,16 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
       done.estimates.insert(done.estimates.end(), values.begin(), values.end());
       done.estimate_failures.insert(done.estimate_failures.end(), reasons.begin(), reasons.end());
     }
+    const auto paused = std::chrono::steady_clock::now();
     between_trials();
+    coordinating += std::chrono::steady_clock::now() - paused;
   }
-  done.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  // The unit's own work: rank 0's coordination between its trials (writing other ranks' units)
+  // is not what the unit costs, and counted in it made every prediction of the deadline logic as
+  // slow as rank 0's busiest unit.
+  done.seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start - coordinating)
+          .count();
   return true;
 }
 
@@ -528,12 +537,18 @@ struct WorkerState {
 /// same size — this session's or, on resume, the earlier sessions' in /provenance — or else of
 /// the nearest size with a measurement. Before any unit has been measured nothing can be
 /// predicted and units are started. A rank's next unit starts when its current one ends.
+///
+/// The prediction is deliberately pessimistic (the slowest unit so far per cost), so a rank's
+/// predicted end must be re-anchored to the real clock whenever one of its units arrives:
+/// chaining predictions alone (a worker holds one unit ahead) added the over-estimate of every
+/// unit to the next, and with many tiny units a run stopped at a fifth of its budget.
 class Deadline {
  public:
   Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks,
            std::chrono::steady_clock::time_point run_start)
       : sizes_(job.sizes), per_cost_(job.sizes.size(), 0.0),
-        busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()) {
+        busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()),
+        queued_(static_cast<std::size_t>(ranks)) {
     const auto now = std::chrono::steady_clock::now();
     std::optional<double> left;
     if (options.stop_before_seconds > 0) {
@@ -566,16 +581,29 @@ class Deadline {
     if (cost > 0) per_cost_[size_index] = std::max(per_cost_[size_index], seconds / cost);
   }
 
+  /// A unit of `rank` has arrived: the rank's next unit (if it holds one) started just now, so
+  /// its predicted end is counted from now, not from the predicted end of the finished one.
+  void finished(int rank) {
+    if (!deadline_) return;
+    auto& queue = queued_[static_cast<std::size_t>(rank)];
+    if (!queue.empty()) queue.pop_front();
+    double ahead = 0.0;
+    for (const double s : queue) ahead += s;
+    busy_until_[static_cast<std::size_t>(rank)] = std::chrono::steady_clock::now() + seconds(ahead);
+  }
+
   /// Whether `unit` may go to `rank` now; if so, books the rank until its predicted end.
-  bool take(int rank, const Unit& unit, bool rank_busy) {
+  /// `extra_seconds`: what the rank spends besides the unit's own work (rank 0's coordination).
+  bool take(int rank, const Unit& unit, bool rank_busy, double extra_seconds = 0.0) {
     if (!deadline_) return true;
     const auto now = std::chrono::steady_clock::now();
     auto& busy = busy_until_[static_cast<std::size_t>(rank)];
+    auto& queue = queued_[static_cast<std::size_t>(rank)];
+    if (!rank_busy) queue.clear();  // nothing outstanding: the unit starts now
     const auto start = rank_busy ? std::max(now, busy) : now;
     const double rate = rate_for(unit.size_index);
-    const double seconds = rate * unit.cost;
-    const auto end = start + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
-                                 std::chrono::duration<double>(seconds));
+    const double predicted = rate * unit.cost + (rate > 0 ? extra_seconds : 0.0);
+    const auto end = start + seconds(predicted);
     if (rate > 0 && end > *deadline_) {
       reached_ = true;
       return false;
@@ -585,12 +613,17 @@ class Deadline {
       return false;
     }
     busy = end;
+    queue.push_back(predicted);
     return true;
   }
 
   bool reached() const { return reached_; }
 
  private:
+  static std::chrono::steady_clock::duration seconds(double s) {
+    return std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+        std::chrono::duration<double>(s));
+  }
   double cost_of(std::size_t size_index, std::int64_t trials) const {
     const double n = static_cast<double>(sizes_[size_index]);
     return n * n * n * static_cast<double>(trials);
@@ -613,6 +646,7 @@ class Deadline {
   std::vector<std::int64_t> sizes_;
   std::vector<double> per_cost_;  // seconds per unit of cost, the largest measured per size
   std::vector<std::chrono::steady_clock::time_point> busy_until_;
+  std::vector<std::deque<double>> queued_;  // per rank: predicted seconds of its units in hand
   std::optional<std::chrono::steady_clock::time_point> deadline_;
   bool reached_ = false;
 };
@@ -658,6 +692,7 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     where.seconds = d.seconds;
     file.write_unit(r, where);
     deadline.measured(d.size_index, static_cast<std::int64_t>(d.obs.trials.size()), d.seconds);
+    deadline.finished(d.rank);
     progress.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
   };
 
@@ -726,21 +761,28 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
   // as long as there are few ranks; with many, answering promptly matters more than its share of
   // the work (src/run/SCALING.md).
   const bool rank0_computes = ranks <= kRankZeroComputesUpTo;
+  // What rank 0 spends besides its units' own work (coordinating between its trials, writing),
+  // the most of any of its units so far: its next unit takes that long on top of the prediction.
+  double rank0_extra = 0.0;
   for (;;) {
     if (!rank0_computes) break;
     service(false);
     if (stopping || next >= pending.size()) break;
-    if (!deadline.take(0, pending[next], false)) {
+    if (!deadline.take(0, pending[next], false, rank0_extra)) {
       stopping = true;  // the next unit would not finish before the deadline
       break;
     }
     const Unit unit = pending[next++];
     UnitDone d;
+    const auto began = std::chrono::steady_clock::now();
     if (!compute_unit(p, unit, 0, d, [&] { service(false); })) {
       stopping = true;
       break;
     }
     write(d);
+    const double wall =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
+    rank0_extra = std::max(rank0_extra, wall - d.seconds);
   }
   while (!std::all_of(workers.begin(), workers.end(), [](const WorkerState& w) { return w.finished; })) {
     service(true);
