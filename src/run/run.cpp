@@ -21,6 +21,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/estimate.hpp"
+#include "freegap/plan.hpp"
 #include "freegap/store.hpp"
 
 extern "C" void openblas_set_num_threads(int);
@@ -273,6 +274,59 @@ int ranks_on_this_node(MPI_Comm comm) {
   const int n = comm_size(node);
   MPI_Comm_free(&node);
   return n;
+}
+
+// ---- the run file's size against the free space ---------------------------------------------
+
+/// The run file's predicted size when complete (the planner's estimate) beside the free space of
+/// its file system. A file already at the path counts as free: a resumed run grows it, --fresh
+/// deletes it (and a refused --fresh deletes nothing).
+struct Space {
+  std::size_t need = 0;
+  std::int64_t free = -1;   // -1: unknown (then nothing is refused)
+  std::uintmax_t held = 0;  // bytes of an existing file at the path
+
+  explicit Space(const job::Job& job)
+      : need(plan::run_file_bytes(job)), free(plan::free_bytes_for(job.output)) {
+    std::error_code ec;
+    if (std::filesystem::is_regular_file(job.output, ec)) {
+      const auto size = std::filesystem::file_size(job.output, ec);
+      if (!ec) held = size;
+    }
+  }
+  bool fits() const {
+    return free < 0 || static_cast<double>(need) <= static_cast<double>(free) +
+                                                       static_cast<double>(held);
+  }
+  std::string free_text() const {
+    return plan::human_bytes(static_cast<double>(free)) + " free on its file system" +
+           (held > 0 ? " (plus the " + plan::human_bytes(static_cast<double>(held)) +
+                           " the existing file takes)"
+                     : std::string());
+  }
+};
+
+// For --explain: "run file: PATH: about X when complete (estimate); Y free on its file system".
+std::string space_line(const job::Job& job) {
+  const Space s(job);
+  std::string line = "run file: " + job.output + ": about " +
+                     plan::human_bytes(static_cast<double>(s.need)) +
+                     " when complete (estimate); ";
+  if (s.free < 0) return line + "free space on its file system unknown";
+  line += s.free_text();
+  if (!s.fits()) line += "; more than is free: freegap run will refuse it";
+  return line;
+}
+
+// Refuses to start a run whose file would not fit, before anything is written.
+void check_free_space(const job::Job& job) {
+  const Space s(job);
+  if (s.fits()) return;
+  throw InputError("run file '" + job.output + "' needs about " +
+                   plan::human_bytes(static_cast<double>(s.need)) +
+                   " when complete (estimate), more than the " + s.free_text() +
+                   "; free space there, write the run file elsewhere with -o, or pass "
+                   "--ignore-free-space to run anyway");
 }
 
 /// The per-size pieces every rank needs: the trial runner and the observation settings.
@@ -952,6 +1006,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
                    estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
             << "\n\n";
       }
+      out << space_line(p.job) << "\n";
     }
     return kExitFinished;
   }
@@ -967,6 +1022,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     try {
       namespace fs = std::filesystem;
       const std::string& path = p.job.output;
+      if (!options.ignore_free_space) check_free_space(p.job);
       if (options.fresh) {
         store::check_replaceable(path);  // never delete anything but a run file
         fs::remove(path);
