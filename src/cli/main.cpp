@@ -205,6 +205,9 @@ int main(int argc, char** argv) {
   run_cmd->add_option("job", job_path, "Job file (TOML)")->required();
   auto* run_output =
       run_cmd->add_option("-o,--output", run_options.output, "Run file (default: the job's output)");
+  run_cmd->add_flag("--confine", run_options.confine,
+                    "Refuse a job file that names any path outside its own directory (eigenvalue "
+                    "files, run.output, plug-in libraries, commands)");
   run_cmd->add_flag("--ignore-free-space", run_options.ignore_free_space,
                     "Run even if the run file's predicted size exceeds the free space on its "
                     "file system");

@@ -937,7 +937,8 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   }
   broadcast_string(text, comm);
   try {
-    p.job = job::parse_job(text, job_path);
+    p.job = job::parse_job(text, job_path, true,
+                           options.confine ? job::Paths::confined : job::Paths::anywhere);
     if (!options.output.empty()) p.job.output = options.output;
     p.runners = make_runners(p.job);
     // Loads and checks every estimator (library entry points, ABI version, declared names,
