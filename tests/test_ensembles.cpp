@@ -420,6 +420,15 @@ TEST(BadInput, ExactMessages) {
   EXPECT_EQ(message_of([&] { Sampler(diagonal_spec(file)); }),
             std::string("matrix 'D': eigenvalue file '").append(bad).append(
                 "' line 2: 'x4' is not a finite number"));
+  // A job may name any readable file: its first word is quoted only as a short prefix of
+  // printable characters (here a line of a password file with a terminal escape sequence).
+  {
+    std::ofstream out(bad);
+    out << "root:x:0:0:\x1b[2Jroot:/root:/bin/bash\n";
+  }
+  EXPECT_EQ(message_of([&] { Sampler(diagonal_spec(file)); }),
+            std::string("matrix 'D': eigenvalue file '").append(bad).append(
+                "' line 1: 'root:x:0:0:?[2Jroot:/roo...' is not a finite number"));
   std::remove(bad.c_str());
   DiagonalLaw uni;
   uni.kind = DiagonalLawKind::uniform;

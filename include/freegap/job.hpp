@@ -156,14 +156,23 @@ struct Job {
   std::string where(std::string_view key) const;
 };
 
+/// Where the paths a job names may lie. A job names paths in matrices.NAME.path (an eigenvalue
+/// file it reads), run.output (the run file it writes), estimator library (a shared library it
+/// loads) and estimator command (a program it starts; a name without '/' is looked up on PATH).
+/// `confined` (`--confine`) refuses, before anything is opened, every one of them that resolves —
+/// through "..", absolute paths and symbolic links — outside the job file's directory, and every
+/// command looked up on PATH. It confines paths only: a plug-in or command inside the directory
+/// still runs with the user's rights.
+enum class Paths { anywhere, confined };
+
 /// Reads and parses a job file. Throws InputError ("cannot read job file 'x.toml': <reason>" or a
 /// validation message).
-Job load_job(const std::string& path);
+Job load_job(const std::string& path, Paths paths = Paths::anywhere);
 /// Parses job text; `path` names it in messages and anchors relative paths. Throws InputError.
 /// With `read_estimator_libraries` false, an estimator's library is not read (its digest stays
 /// empty): for readers of a finished run file's job text, where the library may be gone.
 Job parse_job(std::string_view text, const std::string& path,
-              bool read_estimator_libraries = true);
+              bool read_estimator_libraries = true, Paths paths = Paths::anywhere);
 
 /// Parses an amount of memory: "<number> <unit>" with unit B, kB, MB, GB, TB (powers of 1000)
 /// or KiB, MiB, GiB, TiB (powers of 1024), case-insensitive, space optional ("4GiB", "1.5 GB").

@@ -131,6 +131,8 @@ struct Estimate {
   std::vector<SizeEstimate> sizes;
   double core_hours = 0.0;
   std::size_t output_bytes = 0;
+  std::string output_path;       ///< the job's run file
+  std::int64_t output_free = -1;  ///< free bytes on its file system; -1 unknown
   std::size_t memory_limit = 0;  ///< per rank; 0 unknown
   std::string memory_source;
   double wall_seconds = 0.0;  ///< on options.ranks ranks
@@ -150,6 +152,18 @@ double simulate_wall(std::vector<double> unit_seconds, int ranks);
 /// Bytes the run file of `job` takes for size index i (results, kept spectra, commit markers and
 /// provenance; HDF5's own overhead approximately).
 std::size_t output_bytes(const job::Job& job, std::size_t size_index);
+/// Bytes of the whole run file of `job` when complete: every size's share plus the root
+/// attributes, job text and provenance sessions. What `plan`, `run --explain` and run's free-space
+/// check state.
+std::size_t run_file_bytes(const job::Job& job);
+
+/// Free space on the file system that holds (or would hold) the file `path`: bytes an
+/// unprivileged writer may still use there (statvfs f_bavail), read at the nearest existing
+/// directory of the path. -1 when it cannot be read.
+std::int64_t free_bytes_for(const std::string& path);
+
+/// "521.6 GiB": bytes in binary units with one decimal, as plan and run print them.
+std::string human_bytes(double bytes);
 
 /// The whole estimate; measures (and stores) the cost if the calibration file lacks it. Progress
 /// notes (e.g. "measuring…") go to `log`.

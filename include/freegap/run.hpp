@@ -48,6 +48,11 @@ struct RunOptions {
   /// The scheduler's end time of the job in Unix seconds (SLURM_JOB_END_TIME, which the caller
   /// reads), 0 = unknown: start no unit that would not finish kSchedulerEndMarginSeconds before it.
   std::int64_t scheduler_end_time = 0;
+  /// --confine: every path the job file names must lie inside its directory (job::Paths).
+  bool confine = false;
+  /// --ignore-free-space: create or resume the run file even when its predicted size
+  /// (plan::run_file_bytes) exceeds the free space on the output's file system.
+  bool ignore_free_space = false;
 };
 
 /// Time kept free before the scheduler's end time: prediction error, the last commit, and the

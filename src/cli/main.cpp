@@ -203,7 +203,14 @@ int main(int argc, char** argv) {
   auto* run_cmd = app.add_subcommand(
       "run", "Run (or resume) a job file; under mpirun/srun with any number of ranks");
   run_cmd->add_option("job", job_path, "Job file (TOML)")->required();
-  run_cmd->add_option("-o,--output", run_options.output, "Run file (default: the job's output)");
+  auto* run_output =
+      run_cmd->add_option("-o,--output", run_options.output, "Run file (default: the job's output)");
+  run_cmd->add_flag("--confine", run_options.confine,
+                    "Refuse a job file that names any path outside its own directory (eigenvalue "
+                    "files, run.output, plug-in libraries, commands)");
+  run_cmd->add_flag("--ignore-free-space", run_options.ignore_free_space,
+                    "Run even if the run file's predicted size exceeds the free space on its "
+                    "file system");
   run_cmd->add_flag("--fresh", run_options.fresh, "Delete an existing run file and start over");
   run_cmd->add_flag("--explain", run_options.explain,
                     "Print the evaluation plans, units and memory estimates; run nothing");
@@ -269,6 +276,12 @@ int main(int argc, char** argv) {
     return rc == 0 ? 0 : kExitBadInput;
   }
   if (*run_cmd) {
+    if (run_output->count() > 0 && run_options.output.empty()) {
+      // An empty -o would silently mean "the job's output"; say so instead.
+      std::cerr << "freegap: -o/--output: the run file's path is empty; give a path, or leave "
+                   "out -o to write the job's output\n";
+      return kExitBadInput;
+    }
     freegap::run::install_signal_handlers();
     try {
       if (!stop_before.empty()) {

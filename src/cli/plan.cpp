@@ -15,6 +15,7 @@ struct PlanArgs {
   std::string job;
   std::string deadline;
   plan::Options options;
+  bool confine = false;
 };
 
 }  // namespace
@@ -35,6 +36,9 @@ Subcommand add_plan_command(CLI::App& app) {
                   "Calibration file (default $XDG_CACHE_HOME/freegap/calibration.toml)");
   cmd->add_flag("--remeasure", args->options.remeasure,
                 "Measure the cost again even if the calibration file has this model");
+  cmd->add_flag("--confine", args->confine,
+                "Refuse a job file that names any path outside its own directory (as freegap run "
+                "--confine)");
   return {cmd, [args] {
             if (!args->deadline.empty()) {
               try {
@@ -43,7 +47,8 @@ Subcommand add_plan_command(CLI::App& app) {
                 throw InputError(std::string("--deadline ") + e.what());
               }
             }
-            const auto job = job::load_job(args->job);
+            const auto job = job::load_job(
+                args->job, args->confine ? job::Paths::confined : job::Paths::anywhere);
             const auto e = plan::estimate(job, args->options, std::cerr);
             std::cout << plan::format(e);
             return 0;

@@ -115,6 +115,20 @@ double invert_cdf(double p, double lo, double hi, Cdf cdf, Density density) {
   return x;
 }
 
+// A word of a file the job names, as a message may quote it: the file may be anyone's (a job
+// can name any readable file), so at most kQuotedChars printable ASCII characters, every other
+// byte (control characters, escape sequences, non-ASCII) shown as '?', and "..." when cut.
+constexpr std::size_t kQuotedChars = 24;
+std::string quoted_word(const std::string& word) {
+  std::string out;
+  for (std::size_t i = 0; i < word.size() && i < kQuotedChars; ++i) {
+    const auto c = static_cast<unsigned char>(word[i]);
+    out += (c >= 0x20 && c < 0x7f) ? static_cast<char>(c) : '?';
+  }
+  if (word.size() > kQuotedChars) out += "...";
+  return out;
+}
+
 std::vector<double> read_number_file(const MatrixSpec& spec) {
   const std::string& path = spec.diagonal.path;
   std::ifstream in(path);
@@ -137,7 +151,7 @@ std::vector<double> read_number_file(const MatrixSpec& spec) {
       }
       if (used != word.size() || !std::isfinite(v)) {
         fail(spec, "eigenvalue file '" + path + "' line " + std::to_string(line_no) + ": '" +
-                       word + "' is not a finite number");
+                       quoted_word(word) + "' is not a finite number");
       }
       values.push_back(v);
     }

@@ -17,6 +17,7 @@
 #include <initializer_list>
 #include <limits>
 #include <memory>
+#include <optional>
 #include <sstream>
 #include <utility>
 
@@ -218,9 +219,60 @@ class Reader {
 
   const std::string& path() const { return path_; }
 
+  // With Paths::confined, the job file's directory (symbolic links resolved): every path the job
+  // names must lie inside it.
+  void confine_to(const std::filesystem::path& base) {
+    const std::filesystem::path dir = base.empty() ? std::filesystem::path(".") : base;
+    std::error_code ec;
+    confine_dir_ = std::filesystem::weakly_canonical(std::filesystem::absolute(dir, ec), ec);
+    if (ec) fail_at(0, "job file", "cannot resolve its directory: " + ec.message());
+  }
+
+  // Refuses, under Paths::confined, a path the job names at `key` that resolves (through symbolic
+  // links and "..") outside the job file's directory. Called before the path is opened.
+  void check_confined(std::string_view key, const std::string& given,
+                      const std::filesystem::path& resolved) const {
+    if (!confine_dir_) return;
+    std::error_code ec;
+    std::filesystem::path at = std::filesystem::absolute(resolved, ec);
+    // weakly_canonical stops at the first component that does not exist, so a symbolic link
+    // whose target does not exist (yet) is followed by hand first.
+    for (int hops = 0; !ec && hops < 40 && std::filesystem::is_symlink(at, ec); ++hops) {
+      const auto target = std::filesystem::read_symlink(at, ec);
+      at = target.is_absolute() ? target : at.parent_path() / target;
+    }
+    const auto full = std::filesystem::weakly_canonical(at, ec);
+    if (!ec && inside(*confine_dir_, full)) return;
+    fail(key, "'" + given + "' lies outside the job file's directory '" + confine_dir_->string() +
+                  "', and --confine allows only paths inside it; give a path inside that "
+                  "directory, or " + std::string(kTrusted));
+  }
+
+  // A command's program without a '/' is looked up on PATH, which --confine does not allow.
+  void check_confined_program(std::string_view key, const std::string& program) const {
+    if (!confine_dir_ || program.find('/') != std::string::npos) return;
+    fail(key, "program '" + program + "' would be looked up on PATH, outside the job file's "
+              "directory '" + confine_dir_->string() + "', and --confine allows only paths "
+              "inside it; name a program inside that directory (e.g. \"./estimate.sh\"), or " +
+              std::string(kTrusted));
+  }
+
  private:
+  static constexpr std::string_view kTrusted = "run without --confine if you trust this job file";
+
+  // Whether `p` is strictly below `dir` (both absolute and canonical), component by component.
+  static bool inside(const std::filesystem::path& dir, const std::filesystem::path& p) {
+    auto q = p.begin();
+    for (auto d = dir.begin(); d != dir.end(); ++d, ++q) {
+      if (d->empty()) continue;  // a trailing separator
+      if (q == p.end() || *d != *q) return false;
+    }
+    return q != p.end();
+  }
+
   std::string path_;
   std::map<std::string, int, std::less<>>& lines_;
+  std::optional<std::filesystem::path> confine_dir_;
 };
 
 // ---- top level ---------------------------------------------------------------------------------
@@ -548,6 +600,7 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
         const std::string given = r.string(*v, key, "a file path in quotes");
         if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
         const std::filesystem::path resolved = base / std::filesystem::path(given);
+        r.check_confined(key, given, resolved);
         law.path = resolved.string();
         // Checked here, with the system's reason, before the sampler's more general message.
         std::FILE* f = std::fopen(law.path.c_str(), "r");
@@ -679,6 +732,7 @@ void read_run(const Reader& r, const toml::table& t, const std::filesystem::path
   if (const toml::node* v = t.get("output")) {
     const std::string given = r.string(*v, "run.output", "a file path in quotes");
     if (given.empty()) r.fail("run.output", "is empty; give the run file's path or remove the key");
+    r.check_confined("run.output", given, base / std::filesystem::path(given));
     job.output = (base / std::filesystem::path(given)).string();
   }
   if (const toml::node* v = t.get("force_dense"))
@@ -781,6 +835,7 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
     e.source = EstimatorSpec::Source::library;
     const std::string given = r.string(*v, prefix + ".library", "a file path in quotes");
     if (given.empty()) r.fail(prefix + ".library", "is empty; give the shared library's path");
+    r.check_confined(prefix + ".library", given, base / std::filesystem::path(given));
     e.library = (base / std::filesystem::path(given)).string();
   }
   if (t.get("library") != nullptr && read_library) {
@@ -807,6 +862,11 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
     }
     for (const auto& item : *list) e.command.push_back(r.string(item, prefix + ".command", rule));
     if (e.command[0].empty()) r.fail_node(*v, prefix + ".command", "names an empty program");
+    r.check_confined_program(prefix + ".command", e.command[0]);
+    if (e.command[0].find('/') != std::string::npos) {
+      r.check_confined(prefix + ".command", e.command[0],
+                       base / std::filesystem::path(e.command[0]));
+    }
     if (e.command[0].find('/') != std::string::npos && e.command[0][0] != '/') {
       e.command[0] = (base / std::filesystem::path(e.command[0])).string();
     }
@@ -915,7 +975,8 @@ std::string Job::where(std::string_view key) const {
          ": ";
 }
 
-Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries) {
+Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries,
+              Paths paths) {
   Job job;
   job.path = path;
   job.text = std::string(text);
@@ -938,6 +999,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
 
   const std::filesystem::path file(path);
   const std::filesystem::path base = file.parent_path();
+  if (paths == Paths::confined) r.confine_to(base);
   job.name = file.stem().string();
   job.output = (base / (file.stem().string() + ".h5")).string();
 
@@ -1035,7 +1097,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   return job;
 }
 
-Job load_job(const std::string& path) {
+Job load_job(const std::string& path, Paths paths) {
   std::FILE* f = std::fopen(path.c_str(), "rb");
   if (f == nullptr) {
     throw InputError("cannot read job file '" + path + "': " + std::strerror(errno));
@@ -1048,7 +1110,7 @@ Job load_job(const std::string& path) {
   if (std::ferror(f)) {
     throw InputError("cannot read job file '" + path + "': " + std::strerror(errno));
   }
-  return parse_job(text, path);
+  return parse_job(text, path, true, paths);
 }
 
 }  // namespace freegap::job

@@ -15,6 +15,7 @@
 #include <fstream>
 #include <functional>
 #include <iostream>
+#include <limits>
 #include <queue>
 #include <sstream>
 #include <thread>
@@ -35,18 +36,6 @@ namespace {
 
 [[noreturn]] void bad_duration(std::string_view text, const std::string& rule) {
   throw InputError(std::string(text) + ": " + rule + "; write e.g. 90s, 10m or 1h30m");
-}
-
-std::string human_bytes(double b) {
-  const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB", "PiB"};
-  int i = 0;
-  while (b >= 1024.0 && i < 5) {
-    b /= 1024.0;
-    ++i;
-  }
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.1f %s", b, units[i]);
-  return buf;
 }
 
 std::string number(double v, const char* fmt = "%.3g") {
@@ -101,6 +90,18 @@ model::SizeRunner runner_at(const job::Job& job, std::int64_t n) {
 constexpr std::uint64_t kTimingTrialBase = 4000000000ULL;
 
 }  // namespace
+
+std::string human_bytes(double b) {
+  const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB", "PiB"};
+  int i = 0;
+  while (b >= 1024.0 && i < 5) {
+    b /= 1024.0;
+    ++i;
+  }
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.1f %s", b, units[i]);
+  return buf;
+}
 
 // ---- durations --------------------------------------------------------------------------------
 
@@ -497,6 +498,28 @@ std::size_t output_bytes(const job::Job& job, std::size_t i) {
   return static_cast<std::size_t>(bytes);
 }
 
+std::size_t run_file_bytes(const job::Job& job) {
+  std::size_t bytes = 64 * 1024;  // root attributes, job text, provenance sessions
+  for (std::size_t i = 0; i < job.sizes.size(); ++i) bytes += output_bytes(job, i);
+  return bytes;
+}
+
+std::int64_t free_bytes_for(const std::string& path) {
+  namespace fs = std::filesystem;
+  std::error_code ec;
+  fs::path dir = fs::absolute(fs::path(path), ec).parent_path();
+  if (ec) return -1;
+  // The run file's directory may not exist yet (it is refused later): its nearest ancestor is on
+  // the file system it would be made on.
+  while (!dir.empty() && !fs::is_directory(dir, ec)) {
+    if (dir == dir.parent_path()) return -1;
+    dir = dir.parent_path();
+  }
+  const fs::space_info info = fs::space(dir, ec);
+  if (ec || info.available == static_cast<std::uintmax_t>(-1)) return -1;
+  return static_cast<std::int64_t>(std::min<std::uintmax_t>(info.available, std::numeric_limits<std::int64_t>::max()));
+}
+
 Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
   if (options.ranks < 1)
     throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
@@ -593,7 +616,6 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
           "raise memory_per_rank where the node has the memory");
     }
     e.core_hours += s.core_hours;
-    e.output_bytes += s.output_bytes;
     for (std::int64_t u = 0; u * job.trials_per_unit < s.trials; ++u) {
       const auto in_unit = std::min(job.trials_per_unit, s.trials - u * job.trials_per_unit);
       unit_seconds.push_back(static_cast<double>(in_unit) * s.seconds_per_trial +
@@ -601,7 +623,17 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     }
     e.sizes.push_back(s);
   }
-  e.output_bytes += 64 * 1024;  // root attributes, job text, provenance sessions
+  e.output_bytes = run_file_bytes(job);
+  e.output_path = job.output;
+  e.output_free = free_bytes_for(job.output);
+  if (e.output_free >= 0 && e.output_bytes > static_cast<std::size_t>(e.output_free)) {
+    e.warnings.push_back("the run file needs about " +
+                         human_bytes(static_cast<double>(e.output_bytes)) + " (estimate), more "
+                         "than the " + human_bytes(static_cast<double>(e.output_free)) +
+                         " free on the file system of '" + e.output_path +
+                         "'; freegap run will refuse it: free space there, write the run file "
+                         "elsewhere (run.output, or freegap run -o), or run fewer trials");
+  }
   e.units = unit_seconds.size();
   e.wall_seconds = simulate_wall(unit_seconds, options.ranks);
   if (options.deadline_seconds > 0) {
@@ -662,6 +694,11 @@ std::string format(const Estimate& e) {
                 "\ntotal:        %.4g core-hours in %zu units; run file about %s\n", e.core_hours,
                 e.units, human_bytes(static_cast<double>(e.output_bytes)).c_str());
   out << line;
+  out << "run file:     " << e.output_path << ": about "
+      << human_bytes(static_cast<double>(e.output_bytes)) << ", "
+      << (e.output_free >= 0 ? human_bytes(static_cast<double>(e.output_free)) + " free there"
+                             : std::string("free space there unknown"))
+      << "\n";
   out << "wall time:    about " << format_duration(e.wall_seconds) << " on " << e.options.ranks
       << " rank(s) (units largest first, one rank per core)\n";
   if (e.options.deadline_seconds > 0) {

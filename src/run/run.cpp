@@ -9,6 +9,7 @@
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
+#include <deque>
 #include <filesystem>
 #include <fstream>
 #include <memory>
@@ -20,6 +21,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/estimate.hpp"
+#include "freegap/plan.hpp"
 #include "freegap/store.hpp"
 
 extern "C" void openblas_set_num_threads(int);
@@ -274,6 +276,59 @@ int ranks_on_this_node(MPI_Comm comm) {
   return n;
 }
 
+// ---- the run file's size against the free space ---------------------------------------------
+
+/// The run file's predicted size when complete (the planner's estimate) beside the free space of
+/// its file system. A file already at the path counts as free: a resumed run grows it, --fresh
+/// deletes it (and a refused --fresh deletes nothing).
+struct Space {
+  std::size_t need = 0;
+  std::int64_t free = -1;   // -1: unknown (then nothing is refused)
+  std::uintmax_t held = 0;  // bytes of an existing file at the path
+
+  explicit Space(const job::Job& job)
+      : need(plan::run_file_bytes(job)), free(plan::free_bytes_for(job.output)) {
+    std::error_code ec;
+    if (std::filesystem::is_regular_file(job.output, ec)) {
+      const auto size = std::filesystem::file_size(job.output, ec);
+      if (!ec) held = size;
+    }
+  }
+  bool fits() const {
+    return free < 0 || static_cast<double>(need) <= static_cast<double>(free) +
+                                                       static_cast<double>(held);
+  }
+  std::string free_text() const {
+    return plan::human_bytes(static_cast<double>(free)) + " free on its file system" +
+           (held > 0 ? " (plus the " + plan::human_bytes(static_cast<double>(held)) +
+                           " the existing file takes)"
+                     : std::string());
+  }
+};
+
+// For --explain: "run file: PATH: about X when complete (estimate); Y free on its file system".
+std::string space_line(const job::Job& job) {
+  const Space s(job);
+  std::string line = "run file: " + job.output + ": about " +
+                     plan::human_bytes(static_cast<double>(s.need)) +
+                     " when complete (estimate); ";
+  if (s.free < 0) return line + "free space on its file system unknown";
+  line += s.free_text();
+  if (!s.fits()) line += "; more than is free: freegap run will refuse it";
+  return line;
+}
+
+// Refuses to start a run whose file would not fit, before anything is written.
+void check_free_space(const job::Job& job) {
+  const Space s(job);
+  if (s.fits()) return;
+  throw InputError("run file '" + job.output + "' needs about " +
+                   plan::human_bytes(static_cast<double>(s.need)) +
+                   " when complete (estimate), more than the " + s.free_text() +
+                   "; free space there, write the run file elsewhere with -o, or pass "
+                   "--ignore-free-space to run anyway");
+}
+
 /// The per-size pieces every rank needs: the trial runner and the observation settings.
 struct Prepared {
   job::Job job;
@@ -413,6 +468,7 @@ template <class Between>
 bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
                   Between&& between_trials) {
   const auto start = std::chrono::steady_clock::now();
+  std::chrono::steady_clock::duration coordinating{};
   done.size_index = unit.size_index;
   done.unit = unit.unit;
   done.rank = rank;
@@ -450,9 +506,16 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
       done.estimates.insert(done.estimates.end(), values.begin(), values.end());
       done.estimate_failures.insert(done.estimate_failures.end(), reasons.begin(), reasons.end());
     }
+    const auto paused = std::chrono::steady_clock::now();
     between_trials();
+    coordinating += std::chrono::steady_clock::now() - paused;
   }
-  done.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  // The unit's own work: rank 0's coordination between its trials (writing other ranks' units)
+  // is not what the unit costs, and counted in it made every prediction of the deadline logic as
+  // slow as rank 0's busiest unit.
+  done.seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start - coordinating)
+          .count();
   return true;
 }
 
@@ -528,12 +591,18 @@ struct WorkerState {
 /// same size — this session's or, on resume, the earlier sessions' in /provenance — or else of
 /// the nearest size with a measurement. Before any unit has been measured nothing can be
 /// predicted and units are started. A rank's next unit starts when its current one ends.
+///
+/// The prediction is deliberately pessimistic (the slowest unit so far per cost), so a rank's
+/// predicted end must be re-anchored to the real clock whenever one of its units arrives:
+/// chaining predictions alone (a worker holds one unit ahead) added the over-estimate of every
+/// unit to the next, and with many tiny units a run stopped at a fifth of its budget.
 class Deadline {
  public:
   Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks,
            std::chrono::steady_clock::time_point run_start)
       : sizes_(job.sizes), per_cost_(job.sizes.size(), 0.0),
-        busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()) {
+        busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()),
+        queued_(static_cast<std::size_t>(ranks)) {
     const auto now = std::chrono::steady_clock::now();
     std::optional<double> left;
     if (options.stop_before_seconds > 0) {
@@ -566,16 +635,29 @@ class Deadline {
     if (cost > 0) per_cost_[size_index] = std::max(per_cost_[size_index], seconds / cost);
   }
 
+  /// A unit of `rank` has arrived: the rank's next unit (if it holds one) started just now, so
+  /// its predicted end is counted from now, not from the predicted end of the finished one.
+  void finished(int rank) {
+    if (!deadline_) return;
+    auto& queue = queued_[static_cast<std::size_t>(rank)];
+    if (!queue.empty()) queue.pop_front();
+    double ahead = 0.0;
+    for (const double s : queue) ahead += s;
+    busy_until_[static_cast<std::size_t>(rank)] = std::chrono::steady_clock::now() + seconds(ahead);
+  }
+
   /// Whether `unit` may go to `rank` now; if so, books the rank until its predicted end.
-  bool take(int rank, const Unit& unit, bool rank_busy) {
+  /// `extra_seconds`: what the rank spends besides the unit's own work (rank 0's coordination).
+  bool take(int rank, const Unit& unit, bool rank_busy, double extra_seconds = 0.0) {
     if (!deadline_) return true;
     const auto now = std::chrono::steady_clock::now();
     auto& busy = busy_until_[static_cast<std::size_t>(rank)];
+    auto& queue = queued_[static_cast<std::size_t>(rank)];
+    if (!rank_busy) queue.clear();  // nothing outstanding: the unit starts now
     const auto start = rank_busy ? std::max(now, busy) : now;
     const double rate = rate_for(unit.size_index);
-    const double seconds = rate * unit.cost;
-    const auto end = start + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
-                                 std::chrono::duration<double>(seconds));
+    const double predicted = rate * unit.cost + (rate > 0 ? extra_seconds : 0.0);
+    const auto end = start + seconds(predicted);
     if (rate > 0 && end > *deadline_) {
       reached_ = true;
       return false;
@@ -585,12 +667,17 @@ class Deadline {
       return false;
     }
     busy = end;
+    queue.push_back(predicted);
     return true;
   }
 
   bool reached() const { return reached_; }
 
  private:
+  static std::chrono::steady_clock::duration seconds(double s) {
+    return std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+        std::chrono::duration<double>(s));
+  }
   double cost_of(std::size_t size_index, std::int64_t trials) const {
     const double n = static_cast<double>(sizes_[size_index]);
     return n * n * n * static_cast<double>(trials);
@@ -613,6 +700,7 @@ class Deadline {
   std::vector<std::int64_t> sizes_;
   std::vector<double> per_cost_;  // seconds per unit of cost, the largest measured per size
   std::vector<std::chrono::steady_clock::time_point> busy_until_;
+  std::vector<std::deque<double>> queued_;  // per rank: predicted seconds of its units in hand
   std::optional<std::chrono::steady_clock::time_point> deadline_;
   bool reached_ = false;
 };
@@ -658,6 +746,7 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     where.seconds = d.seconds;
     file.write_unit(r, where);
     deadline.measured(d.size_index, static_cast<std::int64_t>(d.obs.trials.size()), d.seconds);
+    deadline.finished(d.rank);
     progress.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
   };
 
@@ -726,21 +815,28 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
   // as long as there are few ranks; with many, answering promptly matters more than its share of
   // the work (src/run/SCALING.md).
   const bool rank0_computes = ranks <= kRankZeroComputesUpTo;
+  // What rank 0 spends besides its units' own work (coordinating between its trials, writing),
+  // the most of any of its units so far: its next unit takes that long on top of the prediction.
+  double rank0_extra = 0.0;
   for (;;) {
     if (!rank0_computes) break;
     service(false);
     if (stopping || next >= pending.size()) break;
-    if (!deadline.take(0, pending[next], false)) {
+    if (!deadline.take(0, pending[next], false, rank0_extra)) {
       stopping = true;  // the next unit would not finish before the deadline
       break;
     }
     const Unit unit = pending[next++];
     UnitDone d;
+    const auto began = std::chrono::steady_clock::now();
     if (!compute_unit(p, unit, 0, d, [&] { service(false); })) {
       stopping = true;
       break;
     }
     write(d);
+    const double wall =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
+    rank0_extra = std::max(rank0_extra, wall - d.seconds);
   }
   while (!std::all_of(workers.begin(), workers.end(), [](const WorkerState& w) { return w.finished; })) {
     service(true);
@@ -841,7 +937,8 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   }
   broadcast_string(text, comm);
   try {
-    p.job = job::parse_job(text, job_path);
+    p.job = job::parse_job(text, job_path, true,
+                           options.confine ? job::Paths::confined : job::Paths::anywhere);
     if (!options.output.empty()) p.job.output = options.output;
     p.runners = make_runners(p.job);
     // Loads and checks every estimator (library entry points, ABI version, declared names,
@@ -910,6 +1007,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
                    estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
             << "\n\n";
       }
+      out << space_line(p.job) << "\n";
     }
     return kExitFinished;
   }
@@ -925,6 +1023,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     try {
       namespace fs = std::filesystem;
       const std::string& path = p.job.output;
+      if (!options.ignore_free_space) check_free_space(p.job);
       if (options.fresh) {
         store::check_replaceable(path);  // never delete anything but a run file
         fs::remove(path);

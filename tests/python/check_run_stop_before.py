@@ -14,6 +14,15 @@ Usage: check_run_stop_before.py BUILD_DIR
 4. SLURM_JOB_END_TIME = now + 60 s + 3 s (freegap keeps 60 s before the scheduler's end): the
    same stop. Resumed: equal to the reference.
 5. --stop-before 1h changes nothing: exit 0, equal to the reference.
+6. Many tiny units (2000 units of 20 trials at N = 8) on 2 ranks with --stop-before 6s: the run
+   stops (exit 3), and the deadline message comes at least 3/4 of the budget after the launch
+   and at most 3 s after the budget. Before the fix a worker's predicted end was chained from
+   prediction to prediction, each as slow as rank 0's slowest unit (which counted the writes rank
+   0 does between its trials), so the run stopped early — measured here: the message 2.8 to 3.7 s
+   after the launch (20 s of a 100 s budget with 10^5 units); after it, 5.9 to 6.3 s. A liveness
+   check of the deadline logic, not a speed test: the budget is counted inside freegap from after
+   MPI's start-up, so the time seen from the launch is only longer, and the bounds leave a second
+   or more on either side.
 """
 import os
 import sys
@@ -51,6 +60,27 @@ MESSAGE = ("freegap: stopped before the deadline: the next unit would not finish
            "committed units are in '%s'; run the same command again to resume")
 
 
+# Many units of almost no work each: the deadline is decided again every few milliseconds.
+TINY_JOB = """\
+name = "many tiny units"
+seed = 7
+sizes = [8]
+trials = 40000
+expression = "X"
+
+[matrices.X]
+ensemble = "gue"
+
+[observe]
+bins = 4
+max_moment = 2
+
+[run]
+trials_per_unit = 20
+"""
+TINY_BUDGET = 6.0
+
+
 def unit_seconds(path):
     with h5py.File(path, "r") as f:
         units = f["provenance/units"][:]
@@ -83,6 +113,36 @@ def stopped(c, exe, d, label, out, args, ranks=None, env=None, limit=3.0):
     c.check(rc == 0, "%s: the resumed file equals the uninterrupted run outside /provenance" % label, diff[-1500:])
 
 
+def tiny_units(c, exe, d):
+    rh.write(os.path.join(d, "tiny.toml"), TINY_JOB)
+    label = "2000 tiny units, 2 ranks, --stop-before %.0fs" % TINY_BUDGET
+    start = time.monotonic()
+    proc = rh.start(rh.command(exe, ["run", "tiny.toml", "-o", "tiny.h5", "--quiet",
+                                     "--stop-before", "%.0fs" % TINY_BUDGET], 2), d)
+    said = None
+    lines = []
+    for line in proc.stderr:  # read as it comes, to time the deadline message
+        lines.append(line)
+        if said is None and line.rstrip("\n") == MESSAGE % "tiny.h5":
+            said = time.monotonic() - start
+    rc, _, _ = rh.reap(proc)
+    done = rh.committed_state(os.path.join(d, "tiny.h5"))
+    print("  -- %s: deadline message %s s after the launch, %s units committed" %
+          (label, "%.2f" % said if said is not None else "never", done))
+    c.equal(rc, rh.EXIT_RESUMABLE, "%s: exit status 3 (resumable)" % label)
+    c.check(said is not None, "%s: stderr says it stopped before the deadline" % label,
+            "".join(lines))
+    c.check(done is not None and 1 <= done[0] < done[1],
+            "%s: some but not all units committed (%s)" % (label, done))
+    if said is not None:
+        c.check(said >= 0.75 * TINY_BUDGET,
+                "%s: used at least 3/4 of the budget (stopped %.2f s after the launch)" %
+                (label, said))
+        c.check(said <= TINY_BUDGET + 3.0,
+                "%s: stopped at most 3 s after the budget, counted from the launch (%.2f s)" %
+                (label, said))
+
+
 def main():
     exe = rh.freegap_exe(sys.argv)
     c = rh.Checks("run --stop-before and the scheduler's end time")
@@ -108,6 +168,7 @@ def main():
         c.equal(p.returncode, 0, "--stop-before 1h: the run finishes (exit 0)")
         rc, diff = rh.h5diff(os.path.join(d, "reference.h5"), os.path.join(d, "long.h5"))
         c.check(rc == 0, "--stop-before 1h: equal to the reference outside /provenance", diff[-1500:])
+        tiny_units(c, exe, d)
     c.finish()
 
 

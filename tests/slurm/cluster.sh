@@ -1,8 +1,12 @@
 #!/usr/bin/env bash
 # A throw-away one-node Slurm cluster for the tests: munged, slurmctld and slurmd started by hand
-# as plain daemons (no systemd, no cgroups), everything — key, sockets, state, logs — in one
-# directory. Recipe and measured costs: docs/cluster-notes.md §3–4 (start under 1 s,
-# stop about 4 s).
+# as plain daemons (no systemd, no cgroups). DIR (in the build directory) holds the configuration,
+# the pid files and the logs; munge's key, socket and seed and Slurm's state and spool live in a
+# private directory made under /tmp for each start (DIR/runtime names it) and removed by stop:
+# munged refuses a socket below any directory that not everyone may search (a checkout in root's
+# home, a build directory under a chmod 0700 directory), so they must not depend on where the
+# build directory is. Recipe and measured costs (start under 1 s, stop about 4 s):
+# docs/cluster-notes.md §3–4.
 #
 #   tests/slurm/cluster.sh start DIR   # prints "export SLURM_CONF=DIR/slurm.conf"; stops a cluster
 #                                      # an interrupted run left in DIR first
@@ -75,6 +79,24 @@ stop_cluster() {
     wait_gone 10 "$p" || die "munged did not stop (pid $p)"
   fi
   rm -f "$DIR"/slurmd.pid "$DIR"/slurmctld.pid "$DIR"/munged.pid
+  remove_runtime
+}
+
+# The private directory of the last start, if it is one of ours (made by mktemp below).
+runtime_dir() {
+  local r
+  [ -s "$DIR/runtime" ] || return 1
+  r="$(cat "$DIR/runtime")"
+  case "$r" in
+    /tmp/freegap-slurm.*) [ -d "$r" ] && echo "$r" ;;
+    *) return 1 ;;
+  esac
+}
+
+remove_runtime() {
+  local r
+  if r="$(runtime_dir)"; then rm -rf "$r"; fi
+  rm -f "$DIR/runtime"
 }
 
 port_taken() {
@@ -100,11 +122,16 @@ start_cluster() {
   for p in "$CTLD_PORT" "$D_PORT"; do
     port_taken "$p" && die "port $p is in use (another Slurm?); set FREEGAP_SLURM_CTLD_PORT and FREEGAP_SLURM_D_PORT"
   done
+  remove_runtime 2>/dev/null || true
   rm -rf "$DIR"
-  mkdir -p "$DIR"/state "$DIR"/spool "$DIR"/log
+  mkdir -p "$DIR"/log
   DIR="$(cd "$DIR" && pwd)"
-  mungekey -c -k "$DIR/munge.key" >/dev/null 2>&1 || die "mungekey failed"
-  chmod 600 "$DIR/munge.key"
+  RUN="$(mktemp -d /tmp/freegap-slurm.XXXXXXXX)" || die "cannot make a directory under /tmp"
+  chmod 0755 "$RUN"  # searchable by everyone, as munged requires of its socket's directories
+  echo "$RUN" >"$DIR/runtime"
+  mkdir -p "$RUN"/state "$RUN"/spool
+  mungekey -c -k "$RUN/munge.key" >/dev/null 2>&1 || die "mungekey failed"
+  chmod 600 "$RUN/munge.key"
   cat >"$DIR/slurm.conf" <<EOF
 # Written by tests/slurm/cluster.sh: a one-node test cluster (docs/cluster-notes.md §3).
 ClusterName=freegapci
@@ -116,9 +143,9 @@ SlurmdUser=root
 AuthType=auth/munge
 CredType=cred/munge
 # cred_expire=10: a requeued job comes back after about 20 s instead of 150 s.
-AuthInfo=socket=$DIR/munge.sock,cred_expire=10
-StateSaveLocation=$DIR/state
-SlurmdSpoolDir=$DIR/spool
+AuthInfo=socket=$RUN/munge.sock,cred_expire=10
+StateSaveLocation=$RUN/state
+SlurmdSpoolDir=$RUN/spool
 SlurmctldPidFile=$DIR/slurmctld.pid
 SlurmdPidFile=$DIR/slurmd.pid
 SlurmctldLogFile=$DIR/log/slurmctld.log
@@ -140,8 +167,8 @@ PartitionName=debug Nodes=localhost Default=YES MaxTime=INFINITE State=UP
 EOF
   export SLURM_CONF="$DIR/slurm.conf"
   trap 'echo "cluster.sh: start failed; stopping what started" >&2; stop_cluster; exit 1' ERR
-  munged -S "$DIR/munge.sock" --key-file "$DIR/munge.key" --pid-file "$DIR/munged.pid" \
-    --log-file "$DIR/log/munged.log" --seed-file "$DIR/munged.seed"
+  munged -S "$RUN/munge.sock" --key-file "$RUN/munge.key" --pid-file "$DIR/munged.pid" \
+    --log-file "$DIR/log/munged.log" --seed-file "$RUN/munged.seed"
   slurmctld
   slurmd -N localhost
   local deadline=$((SECONDS + 30))
