@@ -36,22 +36,61 @@ std::string format_duration(double seconds);
 /// Slurm's --time form, rounded up to whole minutes: "MM:00", "HH:MM:00" or "D-HH:MM:00".
 std::string slurm_time(double seconds);
 
-/// Seconds per trial as Σ coefficient_k · N^power_k, with the measurements it was fitted to.
+/// One part of a trial's cost, measured and fitted on its own: on the dense path "sample"
+/// (drawing the matrices: a Haar sample's QR or polar factor is N³), "form" (evaluating the
+/// expression), "spectrum" (eigenvalues or singular values) and "observe" (histogram, moments,
+/// extremes); on the tridiagonal path one part, "trial".
+struct CostTerm {
+  std::string name;
+  std::vector<int> powers;
+  std::vector<double> coefficients;
+  std::vector<double> seconds;  ///< fastest seconds of this part per trial at CostFit::sizes
+};
+
+/// Seconds per trial as Σ coefficient_k · N^power_k (the sum of its terms' fits), with the
+/// measurements it was fitted to and how well it predicts them.
 struct CostFit {
   std::vector<int> powers;
   std::vector<double> coefficients;
   std::vector<std::int64_t> sizes;  ///< where it was measured
   std::vector<double> seconds;      ///< fastest seconds per trial there (an unshared core)
+  std::vector<CostTerm> terms;      ///< the parts, each fitted separately (empty: one fit)
+  /// Largest |predicted − measured| / measured over the calibrated sizes.
+  double fit_error = 0.0;
+  /// The largest calibrated size predicted from the smaller ones alone: |relative error| of that
+  /// one-step extrapolation; −1 when there were too few sizes to tell.
+  double step_error = -1.0;
+  /// Bytes one trial adds to a process at each calibrated size (peak resident memory of a trial
+  /// in a fresh child process, above what it started with); empty when not measured.
+  std::vector<double> trial_bytes;
+  /// trial_bytes fitted as a·N² + c (an N × N matrix and its companions); 0 when not measured.
+  double predict_bytes(std::int64_t n) const;
   double predict(std::int64_t n) const;
   /// "3.1e-10·N³ + 2e-08·N² + 0.00012 s"
   std::string formula() const;
+  std::int64_t largest_calibrated() const { return sizes.empty() ? 0 : sizes.back(); }
 };
+
+/// Fits every term separately (fit_cost with that term's powers) and sums them into one CostFit,
+/// with its fit_error and step_error.
+CostFit fit_terms(const std::vector<CostTerm>& measured, const std::vector<std::int64_t>& sizes);
 
 /// Least squares on relative errors, Σ ((t(N_i) − s_i)/s_i)², over coefficients ≥ 0 (the best of
 /// every subset of the powers whose unconstrained fit is non-negative). Throws InputError when
 /// sizes and seconds differ in length or are empty.
 CostFit fit_cost(const std::vector<int>& powers, const std::vector<std::int64_t>& sizes,
                  const std::vector<double>& seconds);
+
+/// Seconds `plan` may spend measuring a model's cost when the calibration file lacks it.
+inline constexpr double kCalibrationBudget = 60.0;
+/// Beyond this factor over the largest calibrated size, `plan` warns that it extrapolates.
+inline constexpr double kExtrapolationWarning = 2.0;
+/// The margin on the planned peak memory per rank in the Slurm request (--mem-per-cpu).
+inline constexpr double kMemoryMargin = 1.25;
+/// Resident memory of a rank before its first trial: the executable, Open MPI, HDF5 and the run
+/// file's buffers. Measured 23–42 MB peak for the ranks of small jobs (Open MPI 4.1.4, HDF5
+/// 1.10.8, Debian 12, 2 ranks and 1); 40 MiB covers them.
+inline constexpr double kRankBaseBytes = 40.0 * 1024 * 1024;
 
 /// What makes costs comparable between runs: CPU model, core count, BLAS build, freegap build.
 struct Machine {
@@ -77,7 +116,8 @@ class Calibration {
 
   const CostFit* find(const std::string& key) const;
   void put(const std::string& key, const std::string& description, const CostFit& fit);
-  /// Writes the file (through a temporary file and a rename); creates the directory.
+  /// Writes the file (through a temporary file and a rename); creates the directory. Throws
+  /// Error, writing nothing, when a file at the path is not one freegap plan wrote.
   void save() const;
 
   const std::string& path() const { return path_; }
@@ -92,6 +132,7 @@ class Calibration {
   Machine machine_;
   std::vector<Entry> entries_;
   bool stale_ = false;
+  bool foreign_ = false;  // a file at the path that freegap plan did not write: never replaced
 };
 
 /// The key of a job's trial cost: everything that defines the work of one trial (matrices,
@@ -100,10 +141,11 @@ class Calibration {
 std::string cost_key(const job::Job& job, int threads);
 
 /// Times trials of the job's own model at a ladder of sizes up to the job's largest (dense:
-/// 40, 80, 160, … and the largest size itself; tridiagonal: 1000, 4000, …), stopping after a size
-/// whose trial takes over 0.25 s or when `budget_seconds` are spent, and fits the cost. Uses
-/// `threads` BLAS threads. Throws InputError for a job whose model is refused.
-CostFit measure_cost(const job::Job& job, int threads, double budget_seconds = 4.0);
+/// 40, 80, 160, … and the largest size itself; tridiagonal: 1000, 4000, …), each part of a trial
+/// (CostTerm) on its own, climbing while the next size's measurement is predicted to fit in what
+/// is left of `budget_seconds`, and fits the cost term by term. Uses `threads` BLAS threads.
+/// Throws InputError for a job whose model is refused.
+CostFit measure_cost(const job::Job& job, int threads, double budget_seconds = kCalibrationBudget);
 
 struct Options {
   int ranks = 1;
@@ -111,6 +153,7 @@ struct Options {
   double deadline_seconds = 0.0;  ///< 0: no deadline
   std::string calibration_path;   ///< empty: default_calibration_path()
   bool remeasure = false;         ///< measure even if the calibration file has the model
+  double calibration_budget = kCalibrationBudget;  ///< seconds for a new measurement
 };
 
 struct SizeEstimate {
@@ -119,6 +162,7 @@ struct SizeEstimate {
   double seconds_per_trial = 0.0;
   double core_hours = 0.0;       ///< trials × seconds per trial × threads / 3600
   std::size_t peak_bytes = 0;    ///< run::estimate_peak_bytes
+  std::size_t working_bytes = 0; ///< the evaluation's own temporaries (expr::peak_working_bytes)
   std::size_t output_bytes = 0;  ///< this size's share of the run file
   bool fits = true;              ///< peak_bytes ≤ the memory per rank (when known)
 };
@@ -142,6 +186,13 @@ struct Estimate {
   int suggested_ranks = 0;
   double suggested_run_seconds = 0.0;   ///< estimated wall time on suggested_ranks
   double suggested_wall_seconds = 0.0;  ///< wall time to request for suggested_ranks
+  /// Memory per task to request from a scheduler: the largest measured peak per rank
+  /// (kRankBaseBytes + CostFit::predict_bytes; the runner's estimate where nothing was measured)
+  /// × kMemoryMargin.
+  std::size_t request_bytes_per_task = 0;
+  /// The Slurm submission for options.ranks ranks (or suggested_ranks with a deadline): --ntasks,
+  /// --time from the predicted wall time with the checkpoint margin, --mem-per-cpu.
+  std::string slurm_command;
   std::vector<std::string> warnings;
 };
 

@@ -36,6 +36,10 @@ Subcommand add_plan_command(CLI::App& app) {
                   "Calibration file (default $XDG_CACHE_HOME/freegap/calibration.toml)");
   cmd->add_flag("--remeasure", args->options.remeasure,
                 "Measure the cost again even if the calibration file has this model");
+  cmd->add_option("--calibration-budget", args->options.calibration_budget,
+                  "Seconds a new measurement of the cost may take (default 60): larger sizes "
+                  "are timed while they fit")
+      ->check(CLI::Range(0.1, 86400.0));
   cmd->add_flag("--confine", args->confine,
                 "Refuse a job file that names any path outside its own directory (as freegap run "
                 "--confine)");

@@ -2,10 +2,13 @@
 #include "freegap/plan.hpp"
 
 #include <toml++/toml.h>
+#include <malloc.h>
+#include <sys/wait.h>
 #include <unistd.h>
 
 #include <Eigen/Dense>
 #include <algorithm>
+#include <cerrno>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -33,6 +36,10 @@ extern "C" int openblas_get_num_threads(void);
 namespace freegap::plan {
 
 namespace {
+
+double seconds_since(std::chrono::steady_clock::time_point t0) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+}
 
 [[noreturn]] void bad_duration(std::string_view text, const std::string& rule) {
   throw InputError(std::string(text) + ": " + rule + "; write e.g. 90s, 10m or 1h30m");
@@ -88,6 +95,9 @@ model::SizeRunner runner_at(const job::Job& job, std::int64_t n) {
 /// Trial indices the planner times: far from any real trial and from the runner's pilot trial
 /// (4294967295); the numbers are thrown away.
 constexpr std::uint64_t kTimingTrialBase = 4000000000ULL;
+
+// The first line of every calibration file: what proves the file may be read and replaced.
+constexpr const char* kCalibrationHeader = "# freegap plan:";
 
 }  // namespace
 
@@ -181,6 +191,14 @@ std::string slurm_time(double seconds) {
 
 // ---- the cost fit -------------------------------------------------------------------------------
 
+double CostFit::predict_bytes(std::int64_t n) const {
+  if (trial_bytes.size() != sizes.size() || trial_bytes.empty()) return 0.0;
+  // Relative least squares wants positive data: a trial that allocated nothing counts as 1 byte.
+  std::vector<double> bytes;
+  for (double b : trial_bytes) bytes.push_back(std::max(b, 1.0));
+  return fit_cost({2, 0}, sizes, bytes).predict(n);
+}
+
 double CostFit::predict(std::int64_t n) const {
   double t = 0.0;
   for (std::size_t k = 0; k < powers.size(); ++k) {
@@ -245,6 +263,67 @@ CostFit fit_cost(const std::vector<int>& powers, const std::vector<std::int64_t>
   return best;
 }
 
+namespace {
+
+// The terms fitted on the first `count` sizes only, summed into one polynomial.
+CostFit combine_terms(const std::vector<CostTerm>& measured, const std::vector<std::int64_t>& sizes,
+                      std::size_t count) {
+  CostFit out;
+  out.sizes.assign(sizes.begin(), sizes.begin() + static_cast<std::ptrdiff_t>(count));
+  out.seconds.assign(count, 0.0);
+  for (const CostTerm& term : measured) {
+    const std::vector<double> seconds(term.seconds.begin(),
+                                      term.seconds.begin() + static_cast<std::ptrdiff_t>(count));
+    const CostFit f = fit_cost(term.powers, out.sizes, seconds);
+    out.terms.push_back({term.name, f.powers, f.coefficients, seconds});
+    for (std::size_t i = 0; i < count; ++i) out.seconds[i] += seconds[i];
+    for (std::size_t k = 0; k < f.powers.size(); ++k) {
+      const auto at = std::find(out.powers.begin(), out.powers.end(), f.powers[k]);
+      if (at == out.powers.end()) {
+        out.powers.push_back(f.powers[k]);
+        out.coefficients.push_back(f.coefficients[k]);
+      } else {
+        out.coefficients[static_cast<std::size_t>(at - out.powers.begin())] += f.coefficients[k];
+      }
+    }
+  }
+  // Highest power first, as formula() prints it.
+  std::vector<std::size_t> order(out.powers.size());
+  for (std::size_t k = 0; k < order.size(); ++k) order[k] = k;
+  std::sort(order.begin(), order.end(),
+            [&](std::size_t a, std::size_t b) { return out.powers[a] > out.powers[b]; });
+  std::vector<int> powers;
+  std::vector<double> coefficients;
+  for (const auto k : order) {
+    powers.push_back(out.powers[k]);
+    coefficients.push_back(out.coefficients[k]);
+  }
+  out.powers = powers;
+  out.coefficients = coefficients;
+  return out;
+}
+
+}  // namespace
+
+CostFit fit_terms(const std::vector<CostTerm>& measured, const std::vector<std::int64_t>& sizes) {
+  if (measured.empty()) throw InputError("cost fit: no terms");
+  CostFit out = combine_terms(measured, sizes, sizes.size());
+  for (std::size_t i = 0; i < sizes.size(); ++i) {
+    out.fit_error =
+        std::max(out.fit_error, std::abs(out.predict(sizes[i]) - out.seconds[i]) / out.seconds[i]);
+  }
+  // How far one step of extrapolation goes wrong: the largest size predicted from the others,
+  // once there are more of them than the widest term has coefficients.
+  std::size_t widest = 0;
+  for (const auto& t : measured) widest = std::max(widest, t.powers.size());
+  if (sizes.size() >= widest + 2) {
+    const CostFit smaller = combine_terms(measured, sizes, sizes.size() - 1);
+    out.step_error =
+        std::abs(smaller.predict(sizes.back()) - out.seconds.back()) / out.seconds.back();
+  }
+  return out;
+}
+
 // ---- the machine and the calibration file ------------------------------------------------------
 
 std::string Machine::key() const {
@@ -288,6 +367,15 @@ Calibration Calibration::load(const std::string& path, const Machine& machine) {
   c.path_ = path;
   c.machine_ = machine;
   if (!std::filesystem::exists(path)) return c;
+  {
+    // Only a file that starts as save() writes it is ours to read and replace.
+    std::ifstream in(path);
+    std::string first;
+    if (!std::getline(in, first) || first.rfind(kCalibrationHeader, 0) != 0) {
+      c.foreign_ = true;
+      return c;
+    }
+  }
   toml::table t;
   try {
     t = toml::parse_file(path);
@@ -316,6 +404,27 @@ Calibration Calibration::load(const std::string& path, const Machine& machine) {
       ints("coefficients", entry.fit.coefficients);
       ints("sizes", entry.fit.sizes);
       ints("seconds", entry.fit.seconds);
+      ints("trial_bytes", entry.fit.trial_bytes);
+      entry.fit.fit_error = (*e)["fit_error"].value_or(0.0);
+      entry.fit.step_error = (*e)["step_error"].value_or(-1.0);
+      if (const auto* terms = (*e)["terms"].as_array()) {
+        for (const auto& tn : *terms) {
+          const auto* tt = tn.as_table();
+          if (!tt) continue;
+          CostTerm term;
+          term.name = (*tt)["name"].value_or(std::string());
+          const auto numbers = [&](const char* k, auto& out) {
+            if (const auto* a = (*tt)[k].as_array()) {
+              for (const auto& v : *a)
+                out.push_back(static_cast<std::decay_t<decltype(out[0])>>(v.value_or(0.0)));
+            }
+          };
+          numbers("powers", term.powers);
+          numbers("coefficients", term.coefficients);
+          numbers("seconds", term.seconds);
+          entry.fit.terms.push_back(std::move(term));
+        }
+      }
       if (entry.key.empty() || entry.fit.powers.empty() ||
           entry.fit.powers.size() != entry.fit.coefficients.size()) {
         continue;
@@ -347,6 +456,10 @@ void Calibration::put(const std::string& key, const std::string& description, co
 void Calibration::save() const {
   namespace fs = std::filesystem;
   const fs::path p(path_);
+  if (foreign_) {
+    throw Error("'" + path_ + "' is not a calibration file of freegap plan, so it is not "
+                "replaced; name another with --calibration or FREEGAP_CALIBRATION");
+  }
   std::error_code ec;
   if (p.has_parent_path()) fs::create_directories(p.parent_path(), ec);
   toml::table t;
@@ -366,6 +479,25 @@ void Calibration::save() const {
     row.insert("coefficients", coefficients);
     row.insert("sizes", sizes);
     row.insert("seconds", seconds);
+    toml::array bytes;
+    for (auto v : e.fit.trial_bytes) bytes.push_back(v);
+    row.insert("trial_bytes", bytes);
+    row.insert("fit_error", e.fit.fit_error);
+    row.insert("step_error", e.fit.step_error);
+    toml::array terms;
+    for (const auto& term : e.fit.terms) {
+      toml::table tt;
+      toml::array tp, tc, ts;
+      for (auto v : term.powers) tp.push_back(static_cast<std::int64_t>(v));
+      for (auto v : term.coefficients) tc.push_back(v);
+      for (auto v : term.seconds) ts.push_back(v);
+      tt.insert("name", term.name);
+      tt.insert("powers", tp);
+      tt.insert("coefficients", tc);
+      tt.insert("seconds", ts);
+      terms.push_back(std::move(tt));
+    }
+    row.insert("terms", std::move(terms));
     costs.push_back(std::move(row));
   }
   t.insert("cost", std::move(costs));
@@ -373,7 +505,7 @@ void Calibration::save() const {
   {
     std::ofstream out(tmp);
     if (!out) throw Error("cannot write the calibration file '" + tmp + "'");
-    out << "# freegap plan: seconds per trial measured on this machine, one entry per model and\n"
+    out << kCalibrationHeader << " seconds per trial measured on this machine, one entry per model and\n"
            "# BLAS thread count. Replaced when the machine changes; delete it to measure again.\n";
     out << t << "\n";
     if (!out) throw Error("cannot write the calibration file '" + tmp + "'");
@@ -398,14 +530,85 @@ std::string cost_key(const job::Job& job, int threads) {
 
 // ---- measuring ---------------------------------------------------------------------------------
 
+namespace {
+
+// A /proc/self/status field in bytes (VmRSS, VmHWM); -1 when it cannot be read.
+double status_bytes(const char* field) {
+  std::ifstream in("/proc/self/status");
+  std::string line;
+  const std::string key = std::string(field) + ":";
+  while (std::getline(in, line)) {
+    if (line.rfind(key, 0) == 0) return 1024.0 * std::atof(line.c_str() + key.size());
+  }
+  return -1.0;
+}
+
+// Peak resident bytes one trial adds, measured in a forked child so that neither the parent's
+// heap nor its free lists hide it: the child makes every large allocation a fresh mapping,
+// resets its peak (/proc/self/clear_refs, "5"), runs the trial and reports VmHWM − VmRSS. −1 when
+// the kernel does not allow it.
+double trial_peak_bytes(const model::SizeRunner& runner, const observe::ObserveConfig& config,
+                        std::uint64_t seed, std::uint64_t trial) {
+  int fds[2];
+  if (::pipe(fds) != 0) return -1.0;
+  const pid_t pid = ::fork();
+  if (pid < 0) {
+    ::close(fds[0]);
+    ::close(fds[1]);
+    return -1.0;
+  }
+  if (pid == 0) {
+    ::close(fds[0]);
+    double extra = -1.0;
+    mallopt(M_MMAP_THRESHOLD, 64 * 1024);
+    mallopt(M_TRIM_THRESHOLD, 64 * 1024);
+    std::ofstream reset("/proc/self/clear_refs");
+    reset << "5";
+    reset.close();
+    const double before = status_bytes("VmRSS");
+    if (reset && before > 0) {
+      try {
+        auto obs = observe::start_observations(config);
+        runner.observe_trial(obs, seed, trial);
+        extra = std::max(0.0, status_bytes("VmHWM") - before);
+      } catch (...) {
+      }
+    }
+    const ssize_t w = ::write(fds[1], &extra, sizeof extra);
+    ::_exit(w == static_cast<ssize_t>(sizeof extra) ? 0 : 1);
+  }
+  ::close(fds[1]);
+  double extra = -1.0;
+  if (::read(fds[0], &extra, sizeof extra) != static_cast<ssize_t>(sizeof extra)) extra = -1.0;
+  ::close(fds[0]);
+  int status = 0;
+  while (::waitpid(pid, &status, 0) < 0 && errno == EINTR) {
+  }
+  return extra;
+}
+
+}  // namespace
+
 CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   if (job.sizes.empty()) throw InputError(job.where("sizes") + "the job has no sizes");
   const int saved_threads = openblas_get_num_threads();
   openblas_set_num_threads(std::max(1, threads));
   const std::int64_t largest = job.sizes.back();
   const bool tri = runner_at(job, largest).path() == model::Path::tridiagonal;
-  const std::vector<int> powers = tri ? std::vector<int>{1, 0} : std::vector<int>{3, 2, 0};
-  // Ladder of sizes: geometric up to the largest size of the job, which is timed itself if cheap.
+  // The parts of a trial and the powers of N each may grow with (dense: a Haar sample, a product
+  // and the eigenvalues are N³, Gaussian entries N², observing the spectrum N).
+  std::vector<CostTerm> terms;
+  if (tri) {
+    terms = {{"trial", {1, 0}, {}, {}}};
+  } else {
+    terms = {{"sample", {3, 2, 0}, {}, {}},
+             {"form", {3, 2, 0}, {}, {}},
+             {"spectrum", {3, 2, 0}, {}, {}},
+             {"observe", {1, 0}, {}, {}}};
+  }
+  const double growth = tri ? 1.0 : 3.0;
+  // Ladder of sizes: geometric up to the largest size of the job, which is timed itself if the
+  // budget allows.
   std::vector<std::int64_t> ladder;
   // Not powers of two: a leading dimension of 2^k slows BLAS down by cache-set conflicts
   // (N = 256 measured 2× slower per N³ than 240 and 360 here), which real sizes rarely share.
@@ -416,48 +619,74 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
     ladder.push_back(n);
   }
   ladder.push_back(largest);
-  while (ladder.size() < powers.size() + 1 && ladder.front() > 4) {
+  while (ladder.size() < 4 && ladder.front() > 4) {
     ladder.insert(ladder.begin(), std::max<std::int64_t>(2, ladder.front() / 2));
   }
 
   std::vector<std::int64_t> sizes;
-  std::vector<double> seconds;
+  std::vector<double> trial_bytes;
   const auto start = std::chrono::steady_clock::now();
   auto spent = [&] {
     return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   };
+  constexpr int kTimed = 3;  // timed trials at least, after one untimed
   for (const auto n : ladder) {
+    if (!sizes.empty()) {
+      // Climb only while this size's measurement (one untimed and kTimed timed trials, scaled
+      // from the last size by the fastest growth) is predicted to fit in what is left.
+      double last = 0.0;
+      for (const auto& t : terms) last += t.seconds.back();
+      const double predicted =
+          last * std::pow(static_cast<double>(n) / static_cast<double>(sizes.back()), growth);
+      if (spent() + (kTimed + 1) * predicted > budget_seconds) break;
+    }
     const auto runner = runner_at(job, n);
     observe::ObserveConfig config;
     config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
     config.max_moment = job.observe.max_moment;
     config.kind = runner.spectrum_kind();
-    std::vector<double> times;
+    std::vector<std::vector<double>> times(terms.size());
     // One untimed trial first (first-touch page faults, lazy library set-up), then at least
-    // three timed ones and up to 0.15 s of them.
+    // kTimed timed ones and up to 0.15 s of them.
     std::uint64_t trial = kTimingTrialBase;
     {
       auto obs = observe::start_observations(config);
       runner.observe_trial(obs, job.seed, trial++);
     }
     double here = 0.0;
-    while (times.size() < 3 || (here < 0.15 && times.size() < 25)) {
+    while (static_cast<int>(times[0].size()) < kTimed || (here < 0.15 && times[0].size() < 25)) {
       auto obs = observe::start_observations(config);
       const auto t0 = std::chrono::steady_clock::now();
-      runner.observe_trial(obs, job.seed, trial++);
-      const double dt =
-          std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-      times.push_back(dt);
-      here += dt;
+      if (tri) {
+        runner.observe_trial(obs, job.seed, trial++);
+        times[0].push_back(seconds_since(t0));
+      } else {
+        const auto outcome = runner.run(job.seed, trial++);
+        const auto t1 = std::chrono::steady_clock::now();
+        model::record(obs, outcome);
+        times[0].push_back(outcome.seconds.sample);
+        times[1].push_back(outcome.seconds.evaluate);
+        times[2].push_back(outcome.seconds.spectrum);
+        times[3].push_back(seconds_since(t1));
+      }
+      here += seconds_since(t0);
     }
     sizes.push_back(n);
-    // The fastest timed trial: the time on an unshared core. Other processes on the machine
-    // only ever add to a trial's time, so the minimum is the measurement they disturb least.
-    seconds.push_back(std::max(*std::min_element(times.begin(), times.end()), 1e-9));
-    if (seconds.back() > 0.25 || spent() > budget_seconds) break;
+    trial_bytes.push_back(trial_peak_bytes(runner, config, job.seed, trial++));
+    // The fastest timed trial of each part: its time on an unshared core. Other processes on the
+    // machine only ever add to a trial's time, so the minimum is the measurement they disturb
+    // least.
+    for (std::size_t k = 0; k < terms.size(); ++k) {
+      terms[k].seconds.push_back(std::max(*std::min_element(times[k].begin(), times[k].end()), 1e-9));
+    }
+    if (spent() > budget_seconds) break;
   }
   openblas_set_num_threads(std::max(1, saved_threads));
-  return fit_cost(powers, sizes, seconds);
+  CostFit fit = fit_terms(terms, sizes);
+  if (std::none_of(trial_bytes.begin(), trial_bytes.end(), [](double b) { return b < 0; })) {
+    fit.trial_bytes = trial_bytes;
+  }
+  return fit;
 }
 
 // ---- the estimate ------------------------------------------------------------------------------
@@ -520,6 +749,39 @@ std::int64_t free_bytes_for(const std::string& path) {
   return static_cast<std::int64_t>(std::min<std::uintmax_t>(info.available, std::numeric_limits<std::int64_t>::max()));
 }
 
+namespace {
+
+// What to ask a Slurm scheduler for (Estimate::slurm_command): the time from the predicted wall
+// time with the estimate's 25 % margin plus the checkpoint margin jobs/slurm/run.sbatch keeps
+// before the limit (5 % of it, at least 60 s); the memory per task from the largest planned peak
+// per rank with kMemoryMargin, in whole MiB.
+void slurm_request(Estimate& e, const job::Job& job) {
+  double peak = 0.0;
+  for (const auto& s : e.sizes) {
+    // The measured trial memory, but never less than the evaluation's own temporaries, which
+    // every trial holds (a fit from small sizes only may undershoot a large one).
+    const double trial = std::max(e.cost.predict_bytes(s.n), static_cast<double>(s.working_bytes));
+    peak = std::max(peak, e.cost.trial_bytes.empty() ? static_cast<double>(s.peak_bytes)
+                                                      : kRankBaseBytes + trial);
+  }
+  e.request_bytes_per_task = static_cast<std::size_t>(std::ceil(peak * kMemoryMargin));
+  const int ranks = e.suggested_ranks > 0 ? e.suggested_ranks : e.options.ranks;
+  double seconds = e.suggested_wall_seconds;
+  if (e.suggested_ranks == 0) {
+    const double planned = e.wall_seconds * 1.25;
+    seconds = std::max(planned + 60.0, planned / 0.95);
+  }
+  const int threads = std::max(1, e.options.threads);
+  const double mib = std::ceil(static_cast<double>(e.request_bytes_per_task) / threads / (1024.0 * 1024.0));
+  std::string command = "sbatch --ntasks=" + std::to_string(ranks);
+  if (threads > 1) command += " --cpus-per-task=" + std::to_string(threads);
+  command += " --time=" + slurm_time(seconds) + " --mem-per-cpu=" + number(mib, "%.0f") + "M";
+  command += " run.sbatch " + job.path;
+  e.slurm_command = command;
+}
+
+}  // namespace
+
 Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
   if (options.ranks < 1)
     throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
@@ -567,7 +829,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
         << (cal.stale() ? " (the calibration file was for another machine)" : "") << "...\n"
         << std::flush;
     const auto t0 = std::chrono::steady_clock::now();
-    e.cost = measure_cost(job, options.threads);
+    e.cost = measure_cost(job, options.threads, options.calibration_budget);
     const double took =
         std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     std::string at;
@@ -605,6 +867,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
     s.peak_bytes = run::estimate_peak_bytes(runners[i], keeps_matrix);
+    s.working_bytes = expr::peak_working_bytes(runners[i].expression(), runners[i].size());
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
     if (!s.fits) {
@@ -636,6 +899,16 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   }
   e.units = unit_seconds.size();
   e.wall_seconds = simulate_wall(unit_seconds, options.ranks);
+  const std::int64_t calibrated = e.cost.largest_calibrated();
+  if (calibrated > 0 && static_cast<double>(job.sizes.back()) >
+                            kExtrapolationWarning * static_cast<double>(calibrated)) {
+    e.warnings.push_back(
+        "the cost of N = " + std::to_string(job.sizes.back()) + " is extrapolated from trials " +
+        "timed at N ≤ " + std::to_string(calibrated) + " (" +
+        number(static_cast<double>(job.sizes.back()) / static_cast<double>(calibrated), "%.3g") +
+        "× beyond): the times may be off by more than the stated error; measure larger sizes "
+        "with --remeasure --calibration-budget SECONDS, or time a short run of the largest size");
+  }
   if (options.deadline_seconds > 0) {
     // The fewest ranks whose wall time with a 25 % margin fits the deadline. Beyond one rank per
     // unit nothing gets faster.
@@ -665,6 +938,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
                            "lower trials_per_unit");
     }
   }
+  slurm_request(e, job);
   return e;
 }
 
@@ -675,6 +949,27 @@ std::string format(const Estimate& e) {
   out << "expression:   " << e.expression << " (" << e.path << " path)\n";
   out << "ranks:        " << e.options.ranks << " × " << e.options.threads << " BLAS thread(s)\n";
   out << "cost model:   t(N) = " << e.cost.formula() << " per trial, " << e.cost_source << "\n";
+  if (e.cost.terms.size() > 1 && !e.sizes.empty()) {
+    // Each part of a trial fitted on its own, and its share at the job's largest size.
+    const std::int64_t n = e.sizes.back().n;
+    const double total = std::max(e.cost.predict(n), 1e-300);
+    std::string parts;
+    for (const auto& t : e.cost.terms) {
+      CostFit f;
+      f.powers = t.powers;
+      f.coefficients = t.coefficients;
+      parts += (parts.empty() ? "" : "; ") + t.name + " " + f.formula() + " (" +
+               number(100.0 * f.predict(n) / total, "%.0f") + " %)";
+    }
+    out << "cost parts:   " << parts << " — shares at N = " << n << "\n";
+  }
+  out << "cost error:   " << number(100.0 * e.cost.fit_error, "%.2g")
+      << " % at most at the timed sizes (N ≤ " << e.cost.largest_calibrated() << ")";
+  if (e.cost.step_error >= 0) {
+    out << "; " << number(100.0 * e.cost.step_error, "%.2g")
+        << " % predicting the largest timed size from the smaller ones";
+  }
+  out << "\n";
   out << "memory/rank:  "
       << (e.memory_limit ? human_bytes(static_cast<double>(e.memory_limit))
                          : std::string("unknown"))
@@ -712,6 +1007,11 @@ std::string format(const Estimate& e) {
       out << "not reachable (see the warning)\n";
     }
   }
+  out << "slurm:        " << e.slurm_command << "\n"
+      << "              (--mem-per-cpu: the largest peak per rank × " << number(kMemoryMargin, "%.2f")
+      << (e.cost.trial_bytes.empty() ? " from the runner's estimate"
+                                     : ", measured trial memory + 40 MiB per rank")
+      << "; --time: the wall time × 1.25 and the checkpoint margin of jobs/slurm/run.sbatch)\n";
   for (const auto& w : e.warnings) out << "warning:      " << w << "\n";
   out << "\nThese are estimates from a short measurement on this machine; other nodes, other load "
          "and\n"
