@@ -1,5 +1,6 @@
 // The run file: create, resume, stream committed units, read back. Layout: src/store/SCHEMA.md.
 #include <fcntl.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -33,6 +34,9 @@ using h5::Where;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr hsize_t kUnlimited = H5S_UNLIMITED;
+// Room reserved before a unit is written, beyond its strings: the metadata one unit can add
+// (a provenance row and its chunk index, a global heap collection) is a few KiB.
+constexpr std::uint64_t kRoomPerUnit = 1 << 20;
 
 // ---------------------------------------------------------------------------------------------
 // Small helpers
@@ -567,6 +571,30 @@ struct RunFile::Impl {
     unit_type = store::unit_type(string_type.get(), where());
   }
   void write_session_row(hsize_t row, bool append);
+  // Makes sure `bytes` past HDF5's end of file can be written: within the process's file size
+  // limit, and with disk blocks allocated (without changing the file's size). Returns 0 or the
+  // errno that says why not (ENOSPC, EDQUOT, EFBIG).
+  int reserve_room(std::uint64_t bytes) const {
+    haddr_t end = 0;
+    void* handle = nullptr;
+    if (H5Fget_eoa(file.get(), &end) < 0 ||
+        H5Fget_vfd_handle(file.get(), H5P_DEFAULT, &handle) < 0 || handle == nullptr) {
+      H5Eclear2(H5E_DEFAULT);
+      return 0;  // cannot tell: HDF5's own error will say it if there is no room
+    }
+    rlimit limit{};
+    if (::getrlimit(RLIMIT_FSIZE, &limit) == 0 && limit.rlim_cur != RLIM_INFINITY &&
+        end + bytes > limit.rlim_cur) {
+      return EFBIG;
+    }
+    const int fd = *static_cast<int*>(handle);
+    if (::fallocate(fd, FALLOC_FL_KEEP_SIZE, static_cast<off_t>(end), static_cast<off_t>(bytes)) !=
+        0) {
+      // A file system that cannot reserve (EOPNOTSUPP, ...) is no evidence of a full disk.
+      if (errno == ENOSPC || errno == EDQUOT) return errno;
+    }
+    return 0;
+  }
   std::vector<SessionRecord> read_sessions() const;
 };
 
@@ -1058,6 +1086,16 @@ void apply_damage(RunFile::Impl& f, const std::vector<DamagedUnit>& damaged) {
   f.integrity.damaged = damaged;
 }
 
+// Why a write failed for lack of room ("No space left on device", "File too large"), or "" if
+// it did not: such a failure is the file system's, not the file's, and says so.
+std::string lack_of_room(const std::string& message) {
+  for (const int error : {ENOSPC, EFBIG, EDQUOT}) {
+    const std::string text = std::strerror(error);
+    if (message.find(text) != std::string::npos) return text;
+  }
+  return "";
+}
+
 // Removes a temporary file unless released.
 class TempFile {
  public:
@@ -1159,7 +1197,16 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
   } catch (const InputError&) {
     throw;
   } catch (const Error& e) {
-    throw Error("cannot create run file '" + path + "': " + e.what());
+    // The file is built under a hidden name; the user knows only `path`.
+    std::string why = e.what();
+    const std::string prefix = "run file '" + temp + "': ";
+    if (why.starts_with(prefix)) why.erase(0, prefix.size());
+    if (const std::string room = lack_of_room(why); !room.empty()) {
+      throw Error("cannot create run file '" + path + "': there is no room for it (" + room +
+                  "); free space or choose an output path on another file system; nothing was "
+                  "left behind");
+    }
+    throw Error("cannot create run file '" + path + "': " + why);
   }
 
   // Into place only now, and never over a file that appeared meanwhile. The open HDF5 handle
@@ -1593,6 +1640,18 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
       "write unit " + std::to_string(unit.unit) + " of size " + std::to_string(unit.size_index);
   const hsize_t b = as_hsize(begin);
   const hsize_t r = rows;
+  // Room first. HDF5 records the grown end of the file in its superblock while it writes there,
+  // so a write that fails for lack of room leaves a file that HDF5 then calls truncated. With the
+  // room reserved beforehand, a full disk stops the run before any byte of the unit is written.
+  std::size_t string_bytes = 0;
+  for (const auto& row : obs.trials) string_bytes += row.reason.size() + 16;
+  for (const auto& reason : unit.estimate_failures) string_bytes += reason.size() + 16;
+  if (const int error = f.reserve_room(kRoomPerUnit + 2 * string_bytes); error != 0) {
+    throw Error("run file '" + f.path + "': no room to write unit " + std::to_string(unit.unit) +
+                " of size " + std::to_string(unit.size_index) + " (" + std::strerror(error) +
+                "); the committed units are safe and the file is resumable: free space and run "
+                "the same command again");
+  }
   try {
     // A unit found damaged is still marked committed in the file: unmark it first, so a kill
     // while it is rewritten leaves it uncommitted, never committed with half-written rows.
