@@ -37,6 +37,8 @@ constexpr hsize_t kUnlimited = H5S_UNLIMITED;
 // Room reserved before a unit is written, beyond its strings: the metadata one unit can add
 // (a provenance row and its chunk index, a global heap collection) is a few KiB.
 constexpr std::uint64_t kRoomPerUnit = 1 << 20;
+// The fill value of unit_committed in 1.2 files: a marker that reads it was never written.
+constexpr std::int8_t kMarkerLost = 2;
 
 // ---------------------------------------------------------------------------------------------
 // Small helpers
@@ -556,6 +558,7 @@ struct RunFile::Impl {
   // Per size and unit: unit_committed is 1 in the file, and whether the unit is committed and
   // undamaged (what readers use and a resume keeps).
   std::vector<std::vector<bool>> marked;
+  std::vector<std::vector<std::int8_t>> markers;  // as read (checks of 1.2 files)
   std::vector<std::vector<bool>> committed;
   Integrity integrity;
   std::int64_t session = -1;  // row of the open session in /provenance/sessions
@@ -654,7 +657,15 @@ void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, 
                      &zero64, where);
   h5::create_dataset(g, "unit_below", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
   h5::create_dataset(g, "unit_above", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
-  h5::create_dataset(g, "unit_committed", H5T_STD_I8LE, {{u}, {}, {1}, true, true}, &zero8, where);
+  // The fill value (what HDF5 returns for a chunk its index cannot find) is kMarkerLost; every
+  // marker is then written 0, so only a damaged chunk index can make a marker read kMarkerLost.
+  {
+    Id markers = h5::create_dataset(g, "unit_committed", H5T_STD_I8LE, {{u}, {}, {1}, true, true},
+                                    &kMarkerLost, where);
+    const std::vector<std::int8_t> zeros(u, 0);
+    h5::write_block(markers.get(), H5T_NATIVE_INT8, {0}, {u}, zeros.data(), where,
+                    "write the commit markers");
+  }
   // Format 1.2: row u is the SHA-256 of unit u's content, written before its commit marker.
   const std::uint8_t zero_u8 = 0;
   h5::create_dataset(g, "unit_sha256", H5T_STD_U8LE,
@@ -855,39 +866,52 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
   const hid_t g = s.group.get();
   const hsize_t t = as_hsize(layout.trials);
   const hsize_t u = as_hsize(layout.units());
-  const auto open = [&](const char* name, const std::vector<hsize_t>& dims) {
+  // The stored type too: HDF5 converts whatever type the file claims, so a damaged type message
+  // would turn values (a commit marker among them) silently into others, or crash a write.
+  const auto open = [&](const char* name, const std::vector<hsize_t>& dims, hid_t type) {
     Id dataset = h5::open_dataset(g, name, where);
-    expect_extent(dataset.get(), dims, "/" + group_name + "/" + name, where);
+    const std::string path = "/" + group_name + "/" + name;
+    expect_extent(dataset.get(), dims, path, where);
+    Id stored = h5::own(H5Dget_type(dataset.get()), H5Tclose, where, "read the type of " + path);
+    const bool ok =
+        type < 0 ? H5Tget_class(stored.get()) == H5T_STRING && H5Tis_variable_str(stored.get()) > 0
+                 : H5Tequal(stored.get(), type) > 0;
+    if (!ok) throw Error("dataset '" + path + "' has the wrong type");
     return dataset;
   };
-  s.moments = open("moments", {t, as_hsize(layout.observe.max_moment) + 1});
-  s.min = open("min", {t});
-  s.max = open("max", {t});
-  s.norm = open("norm", {t});
-  s.failed = open("failed", {t});
-  s.failure_reason = open("failure_reason", {t});
-  s.unit_histograms = open("unit_histograms", {u, layout.observe.bins()});
-  s.unit_below = open("unit_below", {u});
-  s.unit_above = open("unit_above", {u});
-  s.unit_committed = open("unit_committed", {u});
-  s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)});
-  s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())});
+  const hid_t f64 = H5T_IEEE_F64LE, i64 = H5T_STD_I64LE, i8 = H5T_STD_I8LE, text = -1;
+  s.moments = open("moments", {t, as_hsize(layout.observe.max_moment) + 1}, f64);
+  s.min = open("min", {t}, f64);
+  s.max = open("max", {t}, f64);
+  s.norm = open("norm", {t}, f64);
+  s.failed = open("failed", {t}, i8);
+  s.failure_reason = open("failure_reason", {t}, text);
+  s.unit_histograms = open("unit_histograms", {u, layout.observe.bins()}, i64);
+  s.unit_below = open("unit_below", {u}, i64);
+  s.unit_above = open("unit_above", {u}, i64);
+  s.unit_committed = open("unit_committed", {u}, i8);
+  s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)}, f64);
+  s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())}, i64);
   if (estimate_columns > 0) {
-    s.estimates = open("estimates", {t, estimate_columns});
-    s.estimate_failure = open("estimate_failure", {t, estimator_count});
+    s.estimates = open("estimates", {t, estimate_columns}, f64);
+    s.estimate_failure = open("estimate_failure", {t, estimator_count}, text);
   }
-  if (checksummed) s.unit_sha256 = open("unit_sha256", {u, kDigestBytes});
+  if (checksummed) s.unit_sha256 = open("unit_sha256", {u, kDigestBytes}, H5T_STD_U8LE);
   return s;
 }
 
-std::vector<bool> read_committed(const SizeHandles& s, const SizeLayout& layout, Where where) {
+std::vector<std::int8_t> read_markers(const SizeHandles& s, const SizeLayout& layout, Where where) {
   const auto u = static_cast<std::size_t>(layout.units());
   std::vector<std::int8_t> marks(u, 0);
   h5::read_block(s.unit_committed.get(), H5T_NATIVE_INT8, {0}, {u}, marks.data(), where,
                  "read the commit markers");
-  std::vector<bool> out(u);
-  // Only the exact value 1 counts: anything else was never written by a finished commit.
-  for (std::size_t i = 0; i < u; ++i) out[i] = marks[i] == 1;
+  return marks;
+}
+
+// Only the exact value 1 counts: anything else was never written by a finished commit.
+std::vector<bool> committed_of(const std::vector<std::int8_t>& marks) {
+  std::vector<bool> out(marks.size());
+  for (std::size_t i = 0; i < marks.size(); ++i) out[i] = marks[i] == 1;
   return out;
 }
 
@@ -971,7 +995,8 @@ std::unique_ptr<RunFile::Impl> load_unchecked(const std::string& path, Purpose p
       impl->sizes.push_back(open_size(impl->file.get(), i, impl->header.sizes[i],
                                       impl->header.estimates.size(),
                                       impl->header.estimators().size(), impl->checksummed, where));
-      impl->marked.push_back(read_committed(impl->sizes.back(), impl->header.sizes[i], where));
+      impl->markers.push_back(read_markers(impl->sizes.back(), impl->header.sizes[i], where));
+      impl->marked.push_back(committed_of(impl->markers.back()));
       impl->committed.push_back(impl->marked.back());
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", where);
@@ -983,6 +1008,41 @@ std::unique_ptr<RunFile::Impl> load_unchecked(const std::string& path, Purpose p
     refuse_damaged(path, e.what(), purpose);
   }
   return impl;
+}
+
+// Whether every chunk that holds unit u's rows is in its dataset's chunk index. A chunk the
+// index cannot find reads as fill values (no error), and writing it would add to an index that
+// is damaged: such a unit is not rewritten in place.
+bool chunks_found(const RunFile::Impl& f, std::size_t i, std::size_t u) {
+  const SizeLayout& layout = f.header.sizes[i];
+  const SizeHandles& s = f.sizes[i];
+  const hsize_t b = as_hsize(layout.unit_begin(static_cast<std::int64_t>(u)));
+  const auto found = [](const Id& dataset, std::vector<hsize_t> at) {
+    if (!dataset.valid()) return true;
+    unsigned mask = 0;
+    haddr_t address = HADDR_UNDEF;
+    hsize_t size = 0;
+    const bool ok =
+        H5Dget_chunk_info_by_coord(dataset.get(), at.data(), &mask, &address, &size) >= 0 &&
+        address != HADDR_UNDEF;
+    H5Eclear2(H5E_DEFAULT);
+    return ok;
+  };
+  bool all = found(s.moments, {b, 0}) && found(s.unit_histograms, {u, 0}) &&
+             found(s.estimates, {b, 0}) && found(s.estimate_failure, {b, 0}) &&
+             found(s.unit_sha256, {u, 0});
+  for (const Id* d : {&s.min, &s.max, &s.norm, &s.failed, &s.failure_reason}) {
+    all = all && found(*d, {b});
+  }
+  for (const Id* d : {&s.unit_below, &s.unit_above, &s.unit_committed}) all = all && found(*d, {u});
+  const auto& kept = layout.observe.keep_spectrum_trials;
+  const auto end = static_cast<std::uint64_t>(layout.unit_end(static_cast<std::int64_t>(u)));
+  for (std::size_t j = 0; j < kept.size(); ++j) {
+    if (kept[j] >= b && kept[j] < end) {
+      all = all && found(s.spectra, {j, 0}) && found(s.spectrum_length, {j});
+    }
+  }
+  return all;
 }
 
 // Reads unit u of size i as a reader would and compares it with its SHA-256: nullopt if it
@@ -1047,7 +1107,8 @@ std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std
     if (damage.reason.starts_with(prefix)) damage.reason.erase(0, prefix.size());
     // Changed bytes fail the checksum; any other failure means HDF5 could not find the chunk
     // (its index is damaged), and writing through that index could land anywhere.
-    damage.rewritable = damage.reason.find("Fletcher32") != std::string::npos;
+    damage.rewritable =
+        damage.reason.find("Fletcher32") != std::string::npos && chunks_found(f, i, u);
     return damage;
   }
   UnitView view{moments, mins,  maxs,    norms,   failed,    {}, counts,
@@ -1056,6 +1117,8 @@ std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std
   for (const auto& r : estimate_failures) view.estimate_failures.emplace_back(r);
   if (unit_digest(view) != stored) {
     damage.reason = "its content does not match its SHA-256";
+    damage.rewritable = chunks_found(f, i, u);
+    if (!damage.rewritable) damage.reason += " (a chunk of it is missing from the chunk index)";
     return damage;
   }
   return std::nullopt;
@@ -1067,6 +1130,14 @@ std::vector<DamagedUnit> check_units(const RunFile::Impl& f, const contained::Em
   if (!f.checksummed) return out;
   for (std::size_t i = 0; i < f.header.sizes.size(); ++i) {
     for (std::size_t u = 0; u < f.marked[i].size(); ++u) {
+      if (const int mark = f.markers[i][u]; mark != 0 && mark != 1) {
+        out.push_back({i, f.header.sizes[i].n, static_cast<std::int64_t>(u),
+                       mark == kMarkerLost
+                           ? "its commit marker is missing (the chunk index is damaged)"
+                           : "its commit marker reads " + std::to_string(mark),
+                       false});
+        continue;
+      }
       if (!f.marked[i][u]) continue;
       if (auto damage = check_unit(f, i, u)) out.push_back(std::move(*damage));
       emit(".");
@@ -1188,6 +1259,7 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
       impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i], header.estimates.size(),
                                       header.estimators().size(), true, temp_where));
       impl->marked.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), false);
+      impl->markers.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), 0);
       impl->committed.push_back(impl->marked.back());
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", temp_where);
