@@ -867,8 +867,11 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
   const hsize_t t = as_hsize(layout.trials);
   const hsize_t u = as_hsize(layout.units());
   // The stored type too: HDF5 converts whatever type the file claims, so a damaged type message
-  // would turn values (a commit marker among them) silently into others, or crash a write.
-  const auto open = [&](const char* name, const std::vector<hsize_t>& dims, hid_t type) {
+  // would turn values (a commit marker among them) silently into others, or crash a write. So
+  // are the chunk shape and (1.2) the checksum filter: HDF5 sizes its buffers by them, and a
+  // damaged one made a resume's write of a unit crash.
+  const auto open = [&](const char* name, const std::vector<hsize_t>& dims, hid_t type,
+                        const std::vector<hsize_t>& chunk) {
     Id dataset = h5::open_dataset(g, name, where);
     const std::string path = "/" + group_name + "/" + name;
     expect_extent(dataset.get(), dims, path, where);
@@ -877,26 +880,54 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
         type < 0 ? H5Tget_class(stored.get()) == H5T_STRING && H5Tis_variable_str(stored.get()) > 0
                  : H5Tequal(stored.get(), type) > 0;
     if (!ok) throw Error("dataset '" + path + "' has the wrong type");
+    Id create =
+        h5::own(H5Dget_create_plist(dataset.get()), H5Pclose, where, "read the layout of " + path);
+    std::vector<hsize_t> found(chunk.size() + 1, 0);
+    const bool chunked = H5Pget_layout(create.get()) == H5D_CHUNKED &&
+                         H5Pget_chunk(create.get(), static_cast<int>(found.size()), found.data()) ==
+                             static_cast<int>(chunk.size());
+    found.resize(chunk.size());
+    if (!chunked || found != chunk) throw Error("dataset '" + path + "' has the wrong chunk shape");
+    if (checksummed) {
+      const int filters = H5Pget_nfilters(create.get());
+      unsigned flags = 0;
+      std::size_t count = 0;
+      const bool filtered =
+          filters == 1 && H5Pget_filter2(create.get(), 0, &flags, &count, nullptr, 0, nullptr,
+                                         nullptr) == H5Z_FILTER_FLETCHER32;
+      // Variable-length strings cannot be filtered (SCHEMA.md).
+      if (type < 0 ? filters != 0 : !filtered) {
+        throw Error("dataset '" + path + "' has the wrong filters");
+      }
+    }
     return dataset;
   };
   const hid_t f64 = H5T_IEEE_F64LE, i64 = H5T_STD_I64LE, i8 = H5T_STD_I8LE, text = -1;
-  s.moments = open("moments", {t, as_hsize(layout.observe.max_moment) + 1}, f64);
-  s.min = open("min", {t}, f64);
-  s.max = open("max", {t}, f64);
-  s.norm = open("norm", {t}, f64);
-  s.failed = open("failed", {t}, i8);
-  s.failure_reason = open("failure_reason", {t}, text);
-  s.unit_histograms = open("unit_histograms", {u, layout.observe.bins()}, i64);
-  s.unit_below = open("unit_below", {u}, i64);
-  s.unit_above = open("unit_above", {u}, i64);
-  s.unit_committed = open("unit_committed", {u}, i8);
-  s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)}, f64);
-  s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())}, i64);
+  const hsize_t rows = as_hsize(std::min(layout.trials_per_unit, layout.trials));
+  const hsize_t n = as_hsize(layout.n);
+  const hsize_t columns = as_hsize(layout.observe.max_moment) + 1;
+  const hsize_t bins = layout.observe.bins();
+  const hsize_t kept = as_hsize(layout.keep_count());
+  s.moments = open("moments", {t, columns}, f64, {rows, columns});
+  s.min = open("min", {t}, f64, {rows});
+  s.max = open("max", {t}, f64, {rows});
+  s.norm = open("norm", {t}, f64, {rows});
+  s.failed = open("failed", {t}, i8, {rows});
+  s.failure_reason = open("failure_reason", {t}, text, {rows});
+  s.unit_histograms = open("unit_histograms", {u, bins}, i64, {1, bins});
+  s.unit_below = open("unit_below", {u}, i64, {1});
+  s.unit_above = open("unit_above", {u}, i64, {1});
+  s.unit_committed = open("unit_committed", {u}, i8, {1});
+  s.spectra = open("spectra", {kept, n}, f64, {1, n});
+  s.spectrum_length = open("spectrum_length", {kept}, i64, {1});
   if (estimate_columns > 0) {
-    s.estimates = open("estimates", {t, estimate_columns}, f64);
-    s.estimate_failure = open("estimate_failure", {t, estimator_count}, text);
+    s.estimates = open("estimates", {t, estimate_columns}, f64, {rows, estimate_columns});
+    s.estimate_failure =
+        open("estimate_failure", {t, estimator_count}, text, {rows, estimator_count});
   }
-  if (checksummed) s.unit_sha256 = open("unit_sha256", {u, kDigestBytes}, H5T_STD_U8LE);
+  if (checksummed) {
+    s.unit_sha256 = open("unit_sha256", {u, kDigestBytes}, H5T_STD_U8LE, {1, kDigestBytes});
+  }
   return s;
 }
 
