@@ -79,6 +79,7 @@ struct RunResult {
   std::string label;  // file name
   store::RunHeader header;
   store::Provenance provenance;
+  store::Integrity integrity;  // damaged units are left out of everything below
   DerivedLimit limit;
   LimitReference reference;
   std::vector<SizeResult> sizes;
@@ -300,6 +301,7 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   run.label = std::filesystem::path(path).filename().string();
   const auto file = store::RunFile::open_read(path);
   run.header = file.header();
+  run.integrity = file.integrity();
   run.provenance = file.read_provenance();
   const int max_moment = run.header.sizes.empty() ? 0 : run.header.sizes.front().observe.max_moment;
   try {
@@ -585,6 +587,20 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
       for (std::size_t i = 0; i < incomplete.size(); ++i) md += (i ? ", " : "") + incomplete[i];
       md += ". Their numbers below use the committed units only.\n";
     }
+    if (!run.integrity.checksummed) {
+      md += "- checksums: none (unverified: written before checksums)\n";
+    }
+    if (!run.integrity.damaged.empty()) {
+      md +=
+          "- **damaged units, left out** (their bytes do not match the checksums written with "
+          "them; resuming the run computes them again): ";
+      for (std::size_t i = 0; i < run.integrity.damaged.size(); ++i) {
+        const auto& d = run.integrity.damaged[i];
+        md += (i ? "; " : "") + std::string("N = ") + std::to_string(d.n) + " unit " +
+              std::to_string(d.unit) + " (" + d.reason + ")";
+      }
+      md += "\n";
+    }
     md += "\n### Limit\n\n";
     if (run.limit.law) {
       const Support s = run.limit.law->support();
@@ -749,6 +765,10 @@ Report build_report(const std::vector<std::string>& run_files, const ReportOptio
     }
   }
   for (const auto& run : runs) {
+    for (const auto& d : run.integrity.damaged) {
+      out.integrity.push_back(run.label + ": N = " + std::to_string(d.n) + ", unit " +
+                              std::to_string(d.unit) + ": " + d.reason + "; left out");
+    }
     for (const auto& s : run.sizes) {
       if (s.units_done != s.units_total) {
         out.incomplete.push_back(run.label + ": N = " + std::to_string(s.n) + " (" +

@@ -6,6 +6,7 @@
 #include <gtest/gtest.h>
 #include <hdf5.h>
 #include <signal.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <sys/wait.h>
 #include <unistd.h>
@@ -24,6 +25,7 @@
 #include <thread>
 #include <vector>
 
+#include "../src/store/contained.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/store.hpp"
 #include "freegap/version.hpp"
@@ -833,6 +835,359 @@ TEST(Store, HeaderIsValidatedBeforeAnythingIsWritten) {
   EXPECT_EQ(message_of_type<InputError>([&] { RunFile::create(dir.file("x.h5"), header); }),
             "run header: sizes[0].observe.keep_spectrum_trials must be < trials (got 23)");
   EXPECT_TRUE(dir.entries().empty());
+}
+
+}  // namespace
+
+// ---------------------------------------------------------------------------------------------
+// Checksums (format 1.2) and the check in a child process
+
+namespace {
+
+namespace contained = freegap::store::contained;
+
+// The file offset of the chunk of `dataset` that starts at `start`.
+haddr_t chunk_address(const std::string& path, const char* dataset,
+                      const std::vector<hsize_t>& start) {
+  const hid_t file = H5Fopen(path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT);
+  const hid_t data = H5Dopen2(file, dataset, H5P_DEFAULT);
+  haddr_t address = HADDR_UNDEF;
+  unsigned mask = 0;
+  hsize_t size = 0;
+  H5Dget_chunk_info_by_coord(data, start.data(), &mask, &address, &size);
+  H5Dclose(data);
+  H5Fclose(file);
+  return address;
+}
+
+// Writes `values` into rows [first, first + count) of a 1-D float64 dataset through HDF5, so
+// every chunk checksum stays right and only the content changes.
+void rewrite_rows(const std::string& path, const char* name, hsize_t first,
+                  const std::vector<double>& values) {
+  const hid_t file = H5Fopen(path.c_str(), H5F_ACC_RDWR, H5P_DEFAULT);
+  ASSERT_GE(file, 0);
+  const hid_t dataset = H5Dopen2(file, name, H5P_DEFAULT);
+  const hid_t space = H5Dget_space(dataset);
+  const hsize_t start[1] = {first};
+  const hsize_t count[1] = {values.size()};
+  H5Sselect_hyperslab(space, H5S_SELECT_SET, start, nullptr, count, nullptr);
+  const hid_t memory = H5Screate_simple(1, count, nullptr);
+  EXPECT_GE(H5Dwrite(dataset, H5T_NATIVE_DOUBLE, memory, space, H5P_DEFAULT, values.data()), 0);
+  H5Sclose(memory);
+  H5Sclose(space);
+  H5Dclose(dataset);
+  H5Fclose(file);
+}
+
+TEST(Store, ChangedBytesInAChunkNameTheUnitWhichAResumeComputesAgain) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  const auto header = store_sample::header();
+  write_whole_run(path, 3);
+  // Unit 2 of size 0 holds trials 8..11 (B = 4): flip bytes inside its chunk of `moments`.
+  const haddr_t at = chunk_address(path, "sizes/0/moments", {8, 0});
+  ASSERT_NE(at, HADDR_UNDEF);
+  std::string bytes = read_bytes(path);
+  for (int i = 0; i < 8; ++i) bytes[at + 16 + i] = static_cast<char>(bytes[at + 16 + i] ^ 0x5a);
+  write_bytes(path, bytes);
+
+  const auto integrity = freegap::store::verify(path);
+  EXPECT_TRUE(integrity.checksummed);
+  ASSERT_EQ(integrity.damaged.size(), 1u);
+  EXPECT_EQ(integrity.damaged[0].size_index, 0u);
+  EXPECT_EQ(integrity.damaged[0].n, header.sizes[0].n);
+  EXPECT_EQ(integrity.damaged[0].unit, 2);
+  EXPECT_EQ(integrity.damaged[0].reason,
+            "cannot read its rows (HDF5: data error detected by Fletcher32 checksum)");
+  EXPECT_TRUE(integrity.damaged[0].rewritable);
+  {
+    // Readers leave the unit out and use the rest.
+    auto file = RunFile::open_read(path);
+    EXPECT_EQ(file.integrity().damaged.size(), 1u);
+    EXPECT_EQ(file.committed(0), (std::vector<bool>{true, true, false, true, true, true}));
+    expect_identical(file.read_observations(0), merged(header, 0, {0, 1, 3, 4, 5}));
+    expect_identical(file.read_observations(1), merged(header, 1, all_units(header, 1)));
+  }
+  {
+    auto file = RunFile::open_for_resume(path, header);
+    EXPECT_FALSE(file.complete());
+    file.begin_session(1, {"node0"});
+    file.write_unit(store_sample::unit(header, 0, 2), {0, "node0", 1.0});
+    file.end_session("finished");
+  }
+  EXPECT_TRUE(freegap::store::verify(path).damaged.empty());
+  auto file = RunFile::open_read(path);
+  EXPECT_TRUE(file.complete());
+  expect_identical(file.read_observations(0), merged(header, 0, all_units(header, 0)));
+  const auto clean = dir.file("clean.h5");
+  write_whole_run(clean, 5);
+  EXPECT_EQ(h5diff(clean, path, true), 0);
+}
+
+TEST(Store, ContentThatDiffersFromItsDigestNamesTheUnit) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  const auto header = store_sample::header();
+  write_whole_run(path, 3);
+  // Through HDF5, so the chunk checksum is right: only the unit's SHA-256 can tell.
+  rewrite_rows(path, "sizes/1/norm", 0, {123.0});
+  const auto integrity = freegap::store::verify(path);
+  ASSERT_EQ(integrity.damaged.size(), 1u);
+  EXPECT_EQ(integrity.damaged[0].size_index, 1u);
+  EXPECT_EQ(integrity.damaged[0].unit, 0);
+  EXPECT_EQ(integrity.damaged[0].reason, "its content does not match its SHA-256");
+  auto file = RunFile::open_read(path);
+  EXPECT_FALSE(file.committed(1)[0]);
+  for (const auto& trial : file.read_observations(1).trials) EXPECT_NE(trial.norm, 123.0);
+}
+
+TEST(Store, AChangedHeaderIsRefused) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  write_whole_run(path, 3);
+  {
+    const hid_t file = H5Fopen(path.c_str(), H5F_ACC_RDWR, H5P_DEFAULT);
+    ASSERT_GE(file, 0);
+    H5Adelete(file, "expression");
+    const hid_t type = H5Tcopy(H5T_C_S1);
+    H5Tset_size(type, H5T_VARIABLE);
+    const hid_t scalar = H5Screate(H5S_SCALAR);
+    const hid_t attribute = H5Acreate2(file, "expression", type, scalar, H5P_DEFAULT, H5P_DEFAULT);
+    const char* text = "X - Y";
+    H5Awrite(attribute, type, &text);
+    H5Aclose(attribute);
+    H5Sclose(scalar);
+    H5Tclose(type);
+    H5Fclose(file);
+  }
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_read(path); }),
+            "run file '" + path +
+                "' is damaged (its header does not match the checksum written with it); "
+                "restore a good copy");
+  EXPECT_EQ(
+      message_of_type<InputError>([&] { RunFile::open_for_resume(path, store_sample::header()); }),
+      "run file '" + path +
+          "' is damaged (its header does not match the checksum written with it); restore a "
+          "good copy, or start over with --fresh");
+}
+
+TEST(Store, AFileWrittenBeforeChecksumsReadsAsUnverified) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  const auto header = store_sample::header();
+  write_whole_run(path, 3);
+  {
+    // What a 1.1 writer left: no header digest, no unit digests.
+    const hid_t file = H5Fopen(path.c_str(), H5F_ACC_RDWR, H5P_DEFAULT);
+    ASSERT_GE(file, 0);
+    EXPECT_GE(H5Adelete(file, "header_sha256"), 0);
+    EXPECT_GE(H5Ldelete(file, "sizes/0/unit_sha256", H5P_DEFAULT), 0);
+    EXPECT_GE(H5Ldelete(file, "sizes/1/unit_sha256", H5P_DEFAULT), 0);
+    H5Fclose(file);
+  }
+  set_format_version(path, 1, 1);
+  const auto integrity = freegap::store::verify(path);
+  EXPECT_FALSE(integrity.checksummed);
+  EXPECT_TRUE(integrity.damaged.empty());
+  {
+    auto file = RunFile::open_for_resume(path, header);
+    EXPECT_TRUE(file.complete());
+    EXPECT_FALSE(file.integrity().checksummed);
+  }
+  auto file = RunFile::open_read(path);
+  expect_identical(file.read_observations(0), merged(header, 0, all_units(header, 0)));
+}
+
+// What a resume says when it may not write the file: run in a child that drops root, because
+// root ignores file modes.
+std::string resume_message_as_nobody(const std::string& path) {
+  int channel[2];
+  if (::pipe(channel) != 0) return "(pipe failed)";
+  const pid_t child = ::fork();
+  if (child < 0) return "(fork failed)";
+  if (child == 0) {
+    ::close(channel[0]);
+    std::string message = "(no exception)";
+    if (::geteuid() == 0 && (::setgid(65534) != 0 || ::setuid(65534) != 0)) {
+      message = "(could not drop privileges)";
+    } else {
+      try {
+        RunFile::open_for_resume(path, store_sample::header());
+      } catch (const InputError& e) {
+        message = e.what();
+      } catch (const std::exception& e) {
+        message = std::string("(wrong exception type) ") + e.what();
+      }
+    }
+    const ssize_t ignored = ::write(channel[1], message.data(), message.size());
+    (void)ignored;
+    ::_exit(0);
+  }
+  ::close(channel[1]);
+  std::string message;
+  char buffer[512];
+  for (ssize_t got; (got = ::read(channel[0], buffer, sizeof buffer)) > 0;) {
+    message.append(buffer, static_cast<std::size_t>(got));
+  }
+  ::close(channel[0]);
+  ::waitpid(child, nullptr, 0);
+  return message;
+}
+
+TEST(Store, ResumeOfAReadOnlyFileSaysSoAndKeepsTheFile) {
+  TempDir dir;
+  const std::string shared = dir.file("shared");
+  fs::create_directory(shared);
+  fs::permissions(dir.file(""), fs::perms::all, fs::perm_options::add);
+  fs::permissions(shared, fs::perms::all, fs::perm_options::add);
+  const auto path = shared + "/run.h5";
+  write_whole_run(path, 3);
+  fs::permissions(path, fs::perms::owner_read | fs::perms::group_read | fs::perms::others_read);
+  const auto before = Snapshot::of(path);
+  EXPECT_EQ(resume_message_as_nobody(path),
+            "cannot resume run file '" + path +
+                "': no permission to write it (Permission denied); its committed units are "
+                "intact: make it writable, or copy it where you can write and run there, then "
+                "run the same command again");
+  EXPECT_TRUE(Snapshot::of(path) == before);
+}
+
+// Runs `body` in a child whose files may not grow beyond `limit` bytes (RLIMIT_FSIZE: writing
+// further fails with EFBIG, for root too) and returns what it sends back.
+std::string in_child_with_file_limit(
+    std::uint64_t limit, const std::function<std::string(const std::function<void()>&)>& body) {
+  int channel[2];
+  if (::pipe(channel) != 0) return "(pipe failed)";
+  const pid_t child = ::fork();
+  if (child < 0) return "(fork failed)";
+  if (child == 0) {
+    ::close(channel[0]);
+    const auto impose = [limit] {
+      ::signal(SIGXFSZ, SIG_IGN);
+      const rlimit r{limit, limit};
+      ::setrlimit(RLIMIT_FSIZE, &r);
+    };
+    std::string message;
+    try {
+      message = body(impose);
+    } catch (const std::exception& e) {
+      message = std::string("(exception) ") + e.what();
+    }
+    const ssize_t ignored = ::write(channel[1], message.data(), message.size());
+    (void)ignored;
+    ::_exit(0);
+  }
+  ::close(channel[1]);
+  std::string message;
+  char buffer[512];
+  for (ssize_t got; (got = ::read(channel[0], buffer, sizeof buffer)) > 0;) {
+    message.append(buffer, static_cast<std::size_t>(got));
+  }
+  ::close(channel[0]);
+  ::waitpid(child, nullptr, 0);
+  return message;
+}
+
+TEST(Store, NoRoomToCreateNamesTheRunFileNotItsTemporaryName) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  const auto message = in_child_with_file_limit(4096, [&](const std::function<void()>& impose) {
+    impose();
+    try {
+      RunFile::create(path, store_sample::header());
+    } catch (const InputError& e) {
+      return std::string("(input error) ") + e.what();
+    } catch (const Error& e) {
+      return std::string(e.what());
+    }
+    return std::string("(no exception)");
+  });
+  EXPECT_EQ(message, "cannot create run file '" + path +
+                         "': there is no room for it (File too large); free space or choose an "
+                         "output path on another file system; nothing was left behind");
+  EXPECT_TRUE(dir.entries().empty());
+}
+
+TEST(Store, NoRoomToWriteAUnitSaysTheFileIsResumable) {
+  TempDir dir;
+  const auto path = dir.file("run.h5");
+  const auto header = store_sample::header(40);  // 230 units: their records need room
+  const auto message = in_child_with_file_limit(0, [&](const std::function<void()>&) {
+    auto file = RunFile::create(path, header);
+    file.begin_session(1, {"node0"});
+    write_units(file, {{0, 0}});
+    // No byte more: the next units' strings and records need room the file does not have.
+    const rlimit r{fs::file_size(path), fs::file_size(path)};
+    ::signal(SIGXFSZ, SIG_IGN);
+    ::setrlimit(RLIMIT_FSIZE, &r);
+    try {
+      for (std::int64_t u = 1; u < header.sizes[0].units(); ++u) write_units(file, {{0, u}});
+    } catch (const Error& e) {
+      return std::string(e.what());
+    }
+    return std::string("(no exception)");
+  });
+  const std::string head = "run file '" + path + "': no room to write unit ";
+  const std::string tail =
+      " (File too large); the committed units are safe and the file is resumable: free space "
+      "and run the same command again";
+  EXPECT_EQ(message.substr(0, head.size()), head) << message;
+  ASSERT_GE(message.size(), tail.size());
+  EXPECT_EQ(message.substr(message.size() - tail.size()), tail) << message;
+  // And so it is: the committed units read back, and a resume completes the file.
+  {
+    auto file = RunFile::open_for_resume(path, header);
+    EXPECT_TRUE(file.committed(0)[0]);
+    EXPECT_TRUE(file.integrity().damaged.empty());
+    file.begin_session(1, {"node0"});
+    for (std::size_t s = 0; s < 2; ++s) {
+      const auto flags = file.committed(s);
+      for (std::size_t u = 0; u < flags.size(); ++u) {
+        if (!flags[u]) {
+          file.write_unit(store_sample::unit(header, s, static_cast<std::int64_t>(u)),
+                          {0, "node0", 1.0});
+        }
+      }
+    }
+    file.end_session("finished");
+  }
+  auto file = RunFile::open_read(path);
+  EXPECT_TRUE(file.complete());
+  expect_identical(file.read_observations(0), merged(header, 0, all_units(header, 0)));
+}
+
+TEST(Contained, ACrashInTheChildIsReportedNotSuffered) {
+  const auto outcome = contained::run(
+      [](const contained::Emit& emit) {
+        emit("before");
+        ::raise(SIGSEGV);
+      },
+      5.0);
+  EXPECT_EQ(outcome.kind, contained::Outcome::Kind::signalled);
+  EXPECT_EQ(outcome.signal, SIGSEGV);
+  EXPECT_EQ(contained::signal_text(outcome.signal), "signal 11 (SIGSEGV)");
+  EXPECT_EQ(outcome.lines, std::vector<std::string>{"before"});
+}
+
+TEST(Contained, AChildThatStopsReportingIsKilled) {
+  const auto outcome = contained::run(
+      [](const contained::Emit& emit) {
+        emit(".");
+        ::pause();  // never returns: the parent must give up on it
+      },
+      0.3);
+  EXPECT_EQ(outcome.kind, contained::Outcome::Kind::stalled);
+}
+
+TEST(Contained, LinesComeBackInOrderWithNewlinesFlattened) {
+  const auto outcome = contained::run(
+      [](const contained::Emit& emit) {
+        emit("one");
+        emit("two\nlines");
+      },
+      5.0);
+  EXPECT_EQ(outcome.kind, contained::Outcome::Kind::finished);
+  EXPECT_EQ(outcome.lines, (std::vector<std::string>{"one", "two lines"}));
 }
 
 }  // namespace

@@ -24,9 +24,9 @@ inline constexpr const char* kFileKind = "freegap run";
 /// Format version [major, minor]. A reader refuses another major version; a minor version only
 /// adds things an older reader may ignore.
 inline constexpr int kFormatMajor = 1;
-/// The newest minor version written: 1.1 added the estimates (SCHEMA.md); a file without
-/// estimates is written as 1.0, which it is.
-inline constexpr int kFormatMinor = 1;
+/// The minor version written: 1.1 added the estimates, 1.2 the checksums (SCHEMA.md). Files of
+/// 1.0 and 1.1 stay readable and resumable; they are reported as unverified.
+inline constexpr int kFormatMinor = 2;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {
@@ -142,6 +142,27 @@ struct Provenance {
   std::vector<UnitRecord> units;
 };
 
+/// A committed unit whose bytes no longer match the checksums written when it was committed.
+struct DamagedUnit {
+  std::size_t size_index = 0;
+  std::int64_t n = 0;  ///< N of that size, for messages
+  std::int64_t unit = 0;
+  std::string reason;  ///< what failed: a chunk's Fletcher-32 checksum, or the unit's SHA-256
+  /// Whether a resume may write the unit again in place: only when its bytes changed (a
+  /// checksum failed), not when HDF5 cannot find them (a damaged chunk index).
+  bool rewritable = false;
+};
+
+/// What the checks made when a run file was opened found.
+struct Integrity {
+  /// false: the file was written before checksums (format 1.0 or 1.1), so its data could not be
+  /// verified.
+  bool checksummed = false;
+  /// Damaged units, by size and unit. They count as not committed: readers leave them out and a
+  /// resume computes them again.
+  std::vector<DamagedUnit> damaged;
+};
+
 /// An open run file. Move-only; closing (destruction) ends an open session as "interrupted".
 /// Errors: InputError for a file the user pointed at that cannot be used (the message names the
 /// path and the fix), Error for a failure while writing or a misuse of the API.
@@ -151,8 +172,12 @@ class RunFile {
   /// temporary name in the same directory and renamed into place only when the header and every
   /// dataset exist; on failure nothing is left behind.
   static RunFile create(const std::string& path, const RunHeader& header);
+  /// Every open first checks the whole file in a child process (see verify): a file HDF5 cannot
+  /// read without crashing is refused with InputError, and damaged units are left out.
+  ///
   /// Opens an existing run file to continue it. Checks, in order: a freegap run file, major
   /// format version, the job hash, then the layout. Throws InputError printing both sides.
+  /// Damaged units are not committed: the resume computes them again.
   static RunFile open_for_resume(const std::string& path, const RunHeader& expected);
   /// Opens read-only (checks kind and major version). To read a file while a writer holds it,
   /// set HDF5_USE_FILE_LOCKING=FALSE in the environment.
@@ -166,7 +191,9 @@ class RunFile {
 
   const std::string& path() const;
   const RunHeader& header() const;
-  /// One flag per unit of a size: whether it is committed.
+  /// What the checks at opening found (damaged units are not committed()).
+  const Integrity& integrity() const;
+  /// One flag per unit of a size: whether it is committed (and not damaged).
   std::vector<bool> committed(std::size_t size_index) const;
   /// Whether every unit of every size is committed.
   bool complete() const;
@@ -195,8 +222,13 @@ class RunFile {
   /// The implementation (opaque; public only so that helpers in the source file can name it).
   struct Impl;
 
+  /// The check of verify (everything) or of the header alone, in a child process.
+  static Integrity check_contained(const std::string& path, bool resume, bool everything);
+
  private:
   explicit RunFile(std::unique_ptr<Impl> impl);
+  // Checks the file in a child process, then opens it here and leaves damaged units out.
+  static std::unique_ptr<Impl> load(const std::string& path, bool resume, unsigned flags);
   std::unique_ptr<Impl> impl_;
 };
 
@@ -204,6 +236,13 @@ class RunFile {
 /// need the job (kind, major version), with the messages of a resume. For a runner that must
 /// look at the file (its bin edges, its metadata) before deciding to open it for writing.
 RunHeader read_header_for_resume(const std::string& path);
+
+/// Checks a run file without opening it in this process: a child process opens it read-only,
+/// reads every object the readers use and compares every committed unit (and the header) with
+/// the checksums written with it. Throws InputError for a file that is not a usable run file,
+/// including one whose reading killed the child (a signal) or stalled it; otherwise returns the
+/// damaged units. `resume` only changes the fix the messages suggest.
+Integrity verify(const std::string& path, bool resume = false);
 
 /// Throws InputError unless `path` may be deleted to start a run over (--fresh): it must not
 /// exist, or be a freegap run file (possibly truncated or damaged so that HDF5 cannot open it)

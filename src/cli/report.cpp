@@ -40,6 +40,7 @@ Subcommand add_report_command(CLI::App& app) {
             const std::string dir = analysis::write_report(state->files, state->options, &report);
             std::cout << "report written to " << dir << "/report.md\n";
             for (const auto& s : report.incomplete) std::cout << "incomplete: " << s << "\n";
+            for (const auto& s : report.integrity) std::cout << "damaged: " << s << "\n";
             return 0;
           }};
 }

@@ -164,6 +164,7 @@ Id create_dataset(hid_t group, const char* name, hid_t type, const Shape& shape,
     check(H5Pset_chunk(create.get(), rank, shape.chunk.data()), where, what);
   }
   if (fill != nullptr) check(H5Pset_fill_value(create.get(), type, fill), where, what);
+  if (shape.checksum) check(H5Pset_fletcher32(create.get()), where, what);
   if (shape.allocate_now) {
     check(H5Pset_alloc_time(create.get(), H5D_ALLOC_TIME_EARLY), where, what);
   }
@@ -222,6 +223,17 @@ void write_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& star
   auto [file_space, mem_space] = block_spaces(dataset, start, count, where, what);
   check(H5Dwrite(dataset, mem_type, mem_space.get(), file_space.get(), H5P_DEFAULT, buffer), where,
         what);
+}
+
+void overwrite_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start,
+                     const std::vector<hsize_t>& count, const void* buffer, Where where,
+                     const std::string& what) {
+  if (empty_block(count)) return;
+  auto [file_space, mem_space] = block_spaces(dataset, start, count, where, what);
+  Id transfer = own(H5Pcreate(H5P_DATASET_XFER), H5Pclose, where, what);
+  check(H5Pset_edc_check(transfer.get(), H5Z_DISABLE_EDC), where, what);
+  check(H5Dwrite(dataset, mem_type, mem_space.get(), file_space.get(), transfer.get(), buffer),
+        where, what);
 }
 
 void read_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start,

@@ -89,6 +89,9 @@ struct Shape {
   /// Allocate (and fill) every chunk when the dataset is created, so later writes change only
   /// raw data, never the chunk index (see SCHEMA.md, "Why the file survives a kill").
   bool allocate_now = false;
+  /// Store a Fletcher-32 checksum with every chunk (chunked datasets only): a read of a chunk
+  /// whose bytes changed fails instead of returning them.
+  bool checksum = false;
 };
 
 /// Creates a dataset of `type` (a fill value is set only when `fill` is not null).
@@ -107,6 +110,12 @@ void write_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& star
 void read_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start,
                 const std::vector<hsize_t>& count, void* buffer, Where where,
                 const std::string& what);
+
+/// The same write without verifying the checksums of chunks HDF5 reads back to merge a partial
+/// write: used only to rewrite a unit found damaged, whose old chunk may fail its checksum.
+void overwrite_block(hid_t dataset, hid_t mem_type, const std::vector<hsize_t>& start,
+                     const std::vector<hsize_t>& count, const void* buffer, Where where,
+                     const std::string& what);
 
 /// Reads `count` variable-length strings starting at `start` of a 1-D string dataset (a null
 /// pointer, e.g. a never-written element, reads as "").

@@ -1,10 +1,12 @@
 // The run file: create, resume, stream committed units, read back. Layout: src/store/SCHEMA.md.
 #include <fcntl.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
 #include <algorithm>
 #include <array>
+#include <bit>
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
@@ -12,9 +14,14 @@
 #include <ctime>
 #include <fstream>
 #include <limits>
+#include <optional>
+#include <span>
 #include <sstream>
+#include <string_view>
 
+#include "contained.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/job.hpp"
 #include "freegap/store.hpp"
 #include "freegap/version.hpp"
 #include "h5.hpp"
@@ -27,6 +34,11 @@ using h5::Where;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr hsize_t kUnlimited = H5S_UNLIMITED;
+// Room reserved before a unit is written, beyond its strings: the metadata one unit can add
+// (a provenance row and its chunk index, a global heap collection) is a few KiB.
+constexpr std::uint64_t kRoomPerUnit = 1 << 20;
+// The fill value of unit_committed in 1.2 files: a marker that reads it was never written.
+constexpr std::int8_t kMarkerLost = 2;
 
 // ---------------------------------------------------------------------------------------------
 // Small helpers
@@ -89,6 +101,115 @@ observe::SpectrumKind spectrum_from_name(const std::string& name, bool& ok) {
 std::string size_group_name(std::size_t index) { return "sizes/" + std::to_string(index); }
 
 hsize_t as_hsize(std::int64_t value) { return static_cast<hsize_t>(value); }
+
+// ---------------------------------------------------------------------------------------------
+// Checksums (format 1.2). HDF5's Fletcher-32 filter guards every chunk of a size's datasets; a
+// SHA-256 of each unit's committed content (its row in unit_sha256) and of the header (root
+// attribute header_sha256) also catches what no chunk checksum covers: the strings of the
+// global heap, contiguous datasets, attributes, and a chunk index pointing at another chunk.
+
+static_assert(std::endian::native == std::endian::little, "digests hash little-endian bytes");
+
+constexpr std::size_t kDigestBytes = 32;
+using Digest = std::array<std::uint8_t, kDigestBytes>;
+
+// The byte string a digest hashes: every count as 8 bytes before its items, numbers as their
+// little-endian bytes, strings as length and bytes, so no two contents give the same bytes.
+class DigestInput {
+ public:
+  void count(std::uint64_t n) { bytes_.append(reinterpret_cast<const char*>(&n), sizeof n); }
+  template <typename T>
+  void numbers(std::span<const T> values) {
+    count(values.size());
+    bytes_.append(reinterpret_cast<const char*>(values.data()), values.size_bytes());
+  }
+  void text(std::string_view s) {
+    count(s.size());
+    bytes_.append(s);
+  }
+  Digest digest() const {
+    const std::string hex = job::sha256_hex(bytes_);
+    Digest out{};
+    for (std::size_t i = 0; i < kDigestBytes; ++i) {
+      out[i] = static_cast<std::uint8_t>(std::stoi(hex.substr(2 * i, 2), nullptr, 16));
+    }
+    return out;
+  }
+  std::string hex() const { return job::sha256_hex(bytes_); }
+
+ private:
+  std::string bytes_;
+};
+
+// One unit's committed content, as written and as read back.
+struct UnitView {
+  std::span<const double> moments, mins, maxs, norms;
+  std::span<const std::int8_t> failed;
+  std::vector<std::string_view> reasons;
+  std::span<const std::int64_t> counts;
+  std::int64_t below = 0, above = 0;
+  std::span<const double> spectra;
+  std::span<const std::int64_t> lengths;
+  std::span<const double> estimates;
+  std::vector<std::string_view> estimate_failures;
+};
+
+Digest unit_digest(const UnitView& v) {
+  DigestInput in;
+  in.text("freegap unit, format 1.2");
+  in.numbers(v.moments);
+  in.numbers(v.mins);
+  in.numbers(v.maxs);
+  in.numbers(v.norms);
+  in.numbers(v.failed);
+  in.count(v.reasons.size());
+  for (const auto r : v.reasons) in.text(r);
+  in.numbers(v.counts);
+  in.count(static_cast<std::uint64_t>(v.below));
+  in.count(static_cast<std::uint64_t>(v.above));
+  in.numbers(v.spectra);
+  in.numbers(v.lengths);
+  in.numbers(v.estimates);
+  in.count(v.estimate_failures.size());
+  for (const auto r : v.estimate_failures) in.text(r);
+  return in.digest();
+}
+
+// The header as read back (RunHeader) and the major format version, so a changed attribute is
+// caught. Not the minor version: a later minor version only adds things, and its files must
+// still pass this check; later minor versions hash the header as 1.2 does.
+std::string header_digest(const RunHeader& h, const std::vector<int>& version) {
+  DigestInput in;
+  in.text("freegap header, format 1.2");
+  in.count(static_cast<std::uint64_t>(version.at(0)));
+  for (const std::string* text : {&h.tool_version, &h.git_revision, &h.job_text, &h.job_canonical,
+                                  &h.job_hash, &h.expression}) {
+    in.text(*text);
+  }
+  in.text(h.spectrum == observe::SpectrumKind::eigenvalues ? "eigenvalues" : "singular_values");
+  in.count(h.self_adjoint ? 1 : 0);
+  in.count(h.sizes.size());
+  for (const SizeLayout& size : h.sizes) {
+    in.count(static_cast<std::uint64_t>(size.n));
+    in.count(static_cast<std::uint64_t>(size.trials));
+    in.count(static_cast<std::uint64_t>(size.trials_per_unit));
+    in.count(static_cast<std::uint64_t>(size.observe.max_moment));
+    in.numbers(std::span<const double>(size.observe.bin_edges));
+    in.numbers(std::span<const std::uint64_t>(size.observe.keep_spectrum_trials));
+  }
+  in.count(h.metadata.size());
+  for (const auto& [key, value] : h.metadata) {
+    in.text(key);
+    in.text(value);
+  }
+  in.count(h.estimates.size());
+  for (const auto& e : h.estimates) {
+    in.text(e.estimator);
+    in.text(e.estimate);
+    in.text(e.truth);
+  }
+  return in.hex();
+}
 
 // ---------------------------------------------------------------------------------------------
 // Messages for files the user pointed at (docs/building.md habits 10–11: name the path and the fix)
@@ -155,6 +276,21 @@ Id open_existing(const std::string& path, Purpose purpose, unsigned flags) {
       refuse_not_run_file(path, "not an HDF5 file", purpose);
     }
   }
+  if (flags == H5F_ACC_RDWR) {
+    // Ask the operating system first: HDF5's refusal would read as damage, and the fix for
+    // damage (--fresh) would throw away the committed units of a file that is merely read-only.
+    const int fd = ::open(path.c_str(), O_RDWR | O_CLOEXEC);
+    if (fd >= 0) {
+      ::close(fd);
+    } else if (const int error = errno; error == EROFS || error == EACCES || error == EPERM) {
+      const std::string why =
+          error == EROFS ? "its file system is read-only" : "no permission to write it";
+      throw InputError("cannot resume run file '" + path + "': " + why + " (" +
+                       std::strerror(error) +
+                       "); its committed units are intact: make it writable, or copy it where you "
+                       "can write and run there, then run the same command again");
+    }
+  }
   const hid_t id = H5Fopen(path.c_str(), flags, H5P_DEFAULT);
   if (id >= 0) return Id(id, H5Fclose);
   const auto stack = h5::error_stack();
@@ -181,7 +317,8 @@ Id open_existing(const std::string& path, Purpose purpose, unsigned flags) {
                  purpose);
 }
 
-void check_kind_and_version(hid_t file, const std::string& path, Purpose purpose) {
+// Returns the format version [major, minor].
+std::vector<int> check_kind_and_version(hid_t file, const std::string& path, Purpose purpose) {
   const Where where{path};
   if (!h5::has_attribute(file, "file_kind")) {
     refuse_not_run_file(path, "file_kind is missing", purpose);
@@ -210,6 +347,7 @@ void check_kind_and_version(hid_t file, const std::string& path, Purpose purpose
                      std::to_string(version[0]) + ".x" +
                      (purpose == Purpose::resume ? ", or a new output path" : ""));
   }
+  return version;
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -403,6 +541,7 @@ struct SizeHandles {
   Id unit_histograms, unit_below, unit_above, unit_committed;
   Id spectra, spectrum_length;
   Id estimates, estimate_failure;  // only with estimators
+  Id unit_sha256;                  // only with checksums (format 1.2)
 };
 
 }  // namespace
@@ -415,7 +554,13 @@ struct RunFile::Impl {
   Id string_type, session_type, unit_type;
   Id sessions, unit_records;
   std::vector<SizeHandles> sizes;
+  bool checksummed = false;  // format 1.2: chunks have Fletcher-32, units and header SHA-256
+  // Per size and unit: unit_committed is 1 in the file, and whether the unit is committed and
+  // undamaged (what readers use and a resume keeps).
+  std::vector<std::vector<bool>> marked;
+  std::vector<std::vector<std::int8_t>> markers;  // as read (checks of 1.2 files)
   std::vector<std::vector<bool>> committed;
+  Integrity integrity;
   std::int64_t session = -1;  // row of the open session in /provenance/sessions
   SessionRecord current;
 
@@ -429,6 +574,30 @@ struct RunFile::Impl {
     unit_type = store::unit_type(string_type.get(), where());
   }
   void write_session_row(hsize_t row, bool append);
+  // Makes sure `bytes` past HDF5's end of file can be written: within the process's file size
+  // limit, and with disk blocks allocated (without changing the file's size). Returns 0 or the
+  // errno that says why not (ENOSPC, EDQUOT, EFBIG).
+  int reserve_room(std::uint64_t bytes) const {
+    haddr_t end = 0;
+    void* handle = nullptr;
+    if (H5Fget_eoa(file.get(), &end) < 0 ||
+        H5Fget_vfd_handle(file.get(), H5P_DEFAULT, &handle) < 0 || handle == nullptr) {
+      H5Eclear2(H5E_DEFAULT);
+      return 0;  // cannot tell: HDF5's own error will say it if there is no room
+    }
+    rlimit limit{};
+    if (::getrlimit(RLIMIT_FSIZE, &limit) == 0 && limit.rlim_cur != RLIM_INFINITY &&
+        end + bytes > limit.rlim_cur) {
+      return EFBIG;
+    }
+    const int fd = *static_cast<int*>(handle);
+    if (::fallocate(fd, FALLOC_FL_KEEP_SIZE, static_cast<off_t>(end), static_cast<off_t>(bytes)) !=
+        0) {
+      // A file system that cannot reserve (EOPNOTSUPP, ...) is no evidence of a full disk.
+      if (errno == ENOSPC || errno == EDQUOT) return errno;
+    }
+    return 0;
+  }
   std::vector<SessionRecord> read_sessions() const;
 };
 
@@ -476,37 +645,53 @@ void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, 
   const hsize_t bins = config.bins();
   const std::int64_t zero64 = 0;
   const std::int8_t zero8 = 0;
-  h5::create_dataset(g, "moments", H5T_IEEE_F64LE, {{t, columns}, {}, {rows, columns}, true}, &kNaN,
-                     where);
+  h5::create_dataset(g, "moments", H5T_IEEE_F64LE, {{t, columns}, {}, {rows, columns}, true, true},
+                     &kNaN, where);
   for (const char* scalar : {"min", "max", "norm"}) {
-    h5::create_dataset(g, scalar, H5T_IEEE_F64LE, {{t}, {}, {rows}, true}, &kNaN, where);
+    h5::create_dataset(g, scalar, H5T_IEEE_F64LE, {{t}, {}, {rows}, true, true}, &kNaN, where);
   }
-  h5::create_dataset(g, "failed", H5T_STD_I8LE, {{t}, {}, {rows}, true}, &zero8, where);
-  h5::create_dataset(g, "failure_reason", string, {{t}, {}, {rows}, true}, nullptr, where);
-  h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE, {{u, bins}, {}, {1, bins}, true}, &zero64,
-                     where);
-  h5::create_dataset(g, "unit_below", H5T_STD_I64LE, {{u}, {}, {1}, true}, &zero64, where);
-  h5::create_dataset(g, "unit_above", H5T_STD_I64LE, {{u}, {}, {1}, true}, &zero64, where);
-  h5::create_dataset(g, "unit_committed", H5T_STD_I8LE, {{u}, {}, {1}, true}, &zero8, where);
+  h5::create_dataset(g, "failed", H5T_STD_I8LE, {{t}, {}, {rows}, true, true}, &zero8, where);
+  // Variable-length strings cannot be filtered: the unit's SHA-256 covers them.
+  h5::create_dataset(g, "failure_reason", string, {{t}, {}, {rows}, true, false}, nullptr, where);
+  h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE, {{u, bins}, {}, {1, bins}, true, true},
+                     &zero64, where);
+  h5::create_dataset(g, "unit_below", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
+  h5::create_dataset(g, "unit_above", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
+  // The fill value (what HDF5 returns for a chunk its index cannot find) is kMarkerLost; every
+  // marker is then written 0, so only a damaged chunk index can make a marker read kMarkerLost.
+  {
+    Id markers = h5::create_dataset(g, "unit_committed", H5T_STD_I8LE, {{u}, {}, {1}, true, true},
+                                    &kMarkerLost, where);
+    const std::vector<std::int8_t> zeros(u, 0);
+    h5::write_block(markers.get(), H5T_NATIVE_INT8, {0}, {u}, zeros.data(), where,
+                    "write the commit markers");
+  }
+  // Format 1.2: row u is the SHA-256 of unit u's content, written before its commit marker.
+  const std::uint8_t zero_u8 = 0;
+  h5::create_dataset(g, "unit_sha256", H5T_STD_U8LE,
+                     {{u, kDigestBytes}, {}, {1, kDigestBytes}, true, true}, &zero_u8, where);
 
   const hsize_t kept = as_hsize(layout.keep_count());
   const hsize_t n = as_hsize(layout.n);
   if (kept == 0) {
-    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{0, n}, {kUnlimited, n}, {1, n}, false},
+    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{0, n}, {kUnlimited, n}, {1, n}, false, true},
                        &kNaN, where);
-    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{0}, {kUnlimited}, {1}, false},
+    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{0}, {kUnlimited}, {1}, false, true},
                        &zero64, where);
   } else {
-    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{kept, n}, {}, {1, n}, true}, &kNaN, where);
-    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{kept}, {}, {1}, true}, &zero64,
+    h5::create_dataset(g, "spectra", H5T_IEEE_F64LE, {{kept, n}, {}, {1, n}, true, true}, &kNaN,
+                       where);
+    h5::create_dataset(g, "spectrum_length", H5T_STD_I64LE, {{kept}, {}, {1}, true, true}, &zero64,
                        where);
   }
   if (estimate_columns > 0) {
     // Format 1.1: the estimates, chunked by unit like every per-trial dataset.
     h5::create_dataset(g, "estimates", H5T_IEEE_F64LE,
-                       {{t, estimate_columns}, {}, {rows, estimate_columns}, true}, &kNaN, where);
+                       {{t, estimate_columns}, {}, {rows, estimate_columns}, true, true}, &kNaN,
+                       where);
     h5::create_dataset(g, "estimate_failure", string,
-                       {{t, estimator_count}, {}, {rows, estimator_count}, true}, nullptr, where);
+                       {{t, estimator_count}, {}, {rows, estimator_count}, true, false}, nullptr,
+                       where);
   }
 }
 
@@ -532,9 +717,9 @@ void write_estimators(hid_t file, const std::vector<EstimateColumn>& columns, hi
 void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t session_file_type,
                   hid_t unit_file_type, Where where) {
   h5::write_string_attribute(file, "file_kind", kFileKind, where);
-  // A file without estimates is exactly a 1.0 file; 1.1 only adds them (SCHEMA.md).
-  h5::write_int_array_attribute(file, "format_version",
-                                {kFormatMajor, header.estimates.empty() ? 0 : kFormatMinor}, where);
+  const std::vector<int> version = {kFormatMajor, kFormatMinor};
+  h5::write_int_array_attribute(file, "format_version", version, where);
+  h5::write_string_attribute(file, "header_sha256", header_digest(header, version), where);
   h5::write_string_attribute(file, "tool_version", header.tool_version, where);
   h5::write_string_attribute(file, "git_revision", header.git_revision, where);
   h5::write_string_attribute(file, "job_text", header.job_text, where);
@@ -673,45 +858,91 @@ void expect_extent(hid_t dataset, const std::vector<hsize_t>& expected, const st
 }
 
 SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
-                      std::size_t estimate_columns, std::size_t estimator_count, Where where) {
+                      std::size_t estimate_columns, std::size_t estimator_count, bool checksummed,
+                      Where where) {
   SizeHandles s;
   const std::string group_name = size_group_name(index);
   s.group = h5::open_group(file, group_name, where);
   const hid_t g = s.group.get();
   const hsize_t t = as_hsize(layout.trials);
   const hsize_t u = as_hsize(layout.units());
-  const auto open = [&](const char* name, const std::vector<hsize_t>& dims) {
+  // The stored type too: HDF5 converts whatever type the file claims, so a damaged type message
+  // would turn values (a commit marker among them) silently into others, or crash a write. So
+  // are the chunk shape and (1.2) the checksum filter: HDF5 sizes its buffers by them, and a
+  // damaged one made a resume's write of a unit crash.
+  const auto open = [&](const char* name, const std::vector<hsize_t>& dims, hid_t type,
+                        const std::vector<hsize_t>& chunk) {
     Id dataset = h5::open_dataset(g, name, where);
-    expect_extent(dataset.get(), dims, "/" + group_name + "/" + name, where);
+    const std::string path = "/" + group_name + "/" + name;
+    expect_extent(dataset.get(), dims, path, where);
+    Id stored = h5::own(H5Dget_type(dataset.get()), H5Tclose, where, "read the type of " + path);
+    const bool ok =
+        type < 0 ? H5Tget_class(stored.get()) == H5T_STRING && H5Tis_variable_str(stored.get()) > 0
+                 : H5Tequal(stored.get(), type) > 0;
+    if (!ok) throw Error("dataset '" + path + "' has the wrong type");
+    Id create =
+        h5::own(H5Dget_create_plist(dataset.get()), H5Pclose, where, "read the layout of " + path);
+    std::vector<hsize_t> found(chunk.size() + 1, 0);
+    const bool chunked = H5Pget_layout(create.get()) == H5D_CHUNKED &&
+                         H5Pget_chunk(create.get(), static_cast<int>(found.size()), found.data()) ==
+                             static_cast<int>(chunk.size());
+    found.resize(chunk.size());
+    if (!chunked || found != chunk) throw Error("dataset '" + path + "' has the wrong chunk shape");
+    if (checksummed) {
+      const int filters = H5Pget_nfilters(create.get());
+      unsigned flags = 0;
+      std::size_t count = 0;
+      const bool filtered =
+          filters == 1 && H5Pget_filter2(create.get(), 0, &flags, &count, nullptr, 0, nullptr,
+                                         nullptr) == H5Z_FILTER_FLETCHER32;
+      // Variable-length strings cannot be filtered (SCHEMA.md).
+      if (type < 0 ? filters != 0 : !filtered) {
+        throw Error("dataset '" + path + "' has the wrong filters");
+      }
+    }
     return dataset;
   };
-  s.moments = open("moments", {t, as_hsize(layout.observe.max_moment) + 1});
-  s.min = open("min", {t});
-  s.max = open("max", {t});
-  s.norm = open("norm", {t});
-  s.failed = open("failed", {t});
-  s.failure_reason = open("failure_reason", {t});
-  s.unit_histograms = open("unit_histograms", {u, layout.observe.bins()});
-  s.unit_below = open("unit_below", {u});
-  s.unit_above = open("unit_above", {u});
-  s.unit_committed = open("unit_committed", {u});
-  s.spectra = open("spectra", {as_hsize(layout.keep_count()), as_hsize(layout.n)});
-  s.spectrum_length = open("spectrum_length", {as_hsize(layout.keep_count())});
+  const hid_t f64 = H5T_IEEE_F64LE, i64 = H5T_STD_I64LE, i8 = H5T_STD_I8LE, text = -1;
+  const hsize_t rows = as_hsize(std::min(layout.trials_per_unit, layout.trials));
+  const hsize_t n = as_hsize(layout.n);
+  const hsize_t columns = as_hsize(layout.observe.max_moment) + 1;
+  const hsize_t bins = layout.observe.bins();
+  const hsize_t kept = as_hsize(layout.keep_count());
+  s.moments = open("moments", {t, columns}, f64, {rows, columns});
+  s.min = open("min", {t}, f64, {rows});
+  s.max = open("max", {t}, f64, {rows});
+  s.norm = open("norm", {t}, f64, {rows});
+  s.failed = open("failed", {t}, i8, {rows});
+  s.failure_reason = open("failure_reason", {t}, text, {rows});
+  s.unit_histograms = open("unit_histograms", {u, bins}, i64, {1, bins});
+  s.unit_below = open("unit_below", {u}, i64, {1});
+  s.unit_above = open("unit_above", {u}, i64, {1});
+  s.unit_committed = open("unit_committed", {u}, i8, {1});
+  s.spectra = open("spectra", {kept, n}, f64, {1, n});
+  s.spectrum_length = open("spectrum_length", {kept}, i64, {1});
   if (estimate_columns > 0) {
-    s.estimates = open("estimates", {t, estimate_columns});
-    s.estimate_failure = open("estimate_failure", {t, estimator_count});
+    s.estimates = open("estimates", {t, estimate_columns}, f64, {rows, estimate_columns});
+    s.estimate_failure =
+        open("estimate_failure", {t, estimator_count}, text, {rows, estimator_count});
+  }
+  if (checksummed) {
+    s.unit_sha256 = open("unit_sha256", {u, kDigestBytes}, H5T_STD_U8LE, {1, kDigestBytes});
   }
   return s;
 }
 
-std::vector<bool> read_committed(const SizeHandles& s, const SizeLayout& layout, Where where) {
+std::vector<std::int8_t> read_markers(const SizeHandles& s, const SizeLayout& layout, Where where) {
   const auto u = static_cast<std::size_t>(layout.units());
   std::vector<std::int8_t> marks(u, 0);
   h5::read_block(s.unit_committed.get(), H5T_NATIVE_INT8, {0}, {u}, marks.data(), where,
                  "read the commit markers");
-  std::vector<bool> out(u);
-  // Only the exact value 1 counts: anything else was never written by a finished commit.
-  for (std::size_t i = 0; i < u; ++i) out[i] = marks[i] == 1;
+  return marks;
+}
+
+// Only the exact value 1 counts: anything else was never written by a finished commit.
+std::vector<bool> committed_of(const std::vector<std::int8_t>& marks) {
+  std::vector<bool> out(marks.size());
+  for (std::size_t i = 0; i < marks.size(); ++i) out[i] = marks[i] == 1;
   return out;
 }
 
@@ -767,23 +998,37 @@ std::string first_difference(const RunHeader& file, const RunHeader& job) {
   return "";
 }
 
-// Opens, checks kind and version, reads the header and every size's datasets. `flags` is
-// H5F_ACC_RDONLY or H5F_ACC_RDWR.
-std::unique_ptr<RunFile::Impl> load(const std::string& path, Purpose purpose, unsigned flags) {
+// Opens in this process, checks kind and version, reads the header (and compares it with its
+// checksum) and every size's datasets and commit markers; the units' data are not checked here
+// (see check_units). `flags` is H5F_ACC_RDONLY or H5F_ACC_RDWR.
+std::unique_ptr<RunFile::Impl> load_unchecked(const std::string& path, Purpose purpose,
+                                              unsigned flags) {
   auto impl = std::make_unique<RunFile::Impl>();
   impl->path = path;
   impl->file = open_existing(path, purpose, flags);
   impl->writable = flags == H5F_ACC_RDWR;
-  check_kind_and_version(impl->file.get(), path, purpose);
+  const std::vector<int> version = check_kind_and_version(impl->file.get(), path, purpose);
   try {
     const Where where = impl->where();
     impl->header = read_header(impl->file.get(), where);
+    // A 1.2 file has every checksum; the attribute also counts in case the version was damaged.
+    impl->checksummed = version[1] >= 2 || h5::has_attribute(impl->file.get(), "header_sha256");
+    impl->integrity.checksummed = impl->checksummed;
+    if (impl->checksummed) {
+      const std::string stored =
+          h5::read_string_attribute(impl->file.get(), "header_sha256", where);
+      if (stored != header_digest(impl->header, version)) {
+        throw Error("its header does not match the checksum written with it");
+      }
+    }
     impl->make_types();
     for (std::size_t i = 0; i < impl->header.sizes.size(); ++i) {
       impl->sizes.push_back(open_size(impl->file.get(), i, impl->header.sizes[i],
                                       impl->header.estimates.size(),
-                                      impl->header.estimators().size(), where));
-      impl->committed.push_back(read_committed(impl->sizes.back(), impl->header.sizes[i], where));
+                                      impl->header.estimators().size(), impl->checksummed, where));
+      impl->markers.push_back(read_markers(impl->sizes.back(), impl->header.sizes[i], where));
+      impl->marked.push_back(committed_of(impl->markers.back()));
+      impl->committed.push_back(impl->marked.back());
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", where);
     impl->sessions = h5::open_dataset(provenance.get(), "sessions", where);
@@ -794,6 +1039,163 @@ std::unique_ptr<RunFile::Impl> load(const std::string& path, Purpose purpose, un
     refuse_damaged(path, e.what(), purpose);
   }
   return impl;
+}
+
+// Whether every chunk that holds unit u's rows is in its dataset's chunk index. A chunk the
+// index cannot find reads as fill values (no error), and writing it would add to an index that
+// is damaged: such a unit is not rewritten in place.
+bool chunks_found(const RunFile::Impl& f, std::size_t i, std::size_t u) {
+  const SizeLayout& layout = f.header.sizes[i];
+  const SizeHandles& s = f.sizes[i];
+  const hsize_t b = as_hsize(layout.unit_begin(static_cast<std::int64_t>(u)));
+  const auto found = [](const Id& dataset, std::vector<hsize_t> at) {
+    if (!dataset.valid()) return true;
+    unsigned mask = 0;
+    haddr_t address = HADDR_UNDEF;
+    hsize_t size = 0;
+    const bool ok =
+        H5Dget_chunk_info_by_coord(dataset.get(), at.data(), &mask, &address, &size) >= 0 &&
+        address != HADDR_UNDEF;
+    H5Eclear2(H5E_DEFAULT);
+    return ok;
+  };
+  bool all = found(s.moments, {b, 0}) && found(s.unit_histograms, {u, 0}) &&
+             found(s.estimates, {b, 0}) && found(s.estimate_failure, {b, 0}) &&
+             found(s.unit_sha256, {u, 0});
+  for (const Id* d : {&s.min, &s.max, &s.norm, &s.failed, &s.failure_reason}) {
+    all = all && found(*d, {b});
+  }
+  for (const Id* d : {&s.unit_below, &s.unit_above, &s.unit_committed}) all = all && found(*d, {u});
+  const auto& kept = layout.observe.keep_spectrum_trials;
+  const auto end = static_cast<std::uint64_t>(layout.unit_end(static_cast<std::int64_t>(u)));
+  for (std::size_t j = 0; j < kept.size(); ++j) {
+    if (kept[j] >= b && kept[j] < end) {
+      all = all && found(s.spectra, {j, 0}) && found(s.spectrum_length, {j});
+    }
+  }
+  return all;
+}
+
+// Reads unit u of size i as a reader would and compares it with its SHA-256: nullopt if it
+// matches, else the damage (a chunk failing its Fletcher-32 checksum makes HDF5's read fail).
+std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std::size_t u) {
+  DamagedUnit damage{i, f.header.sizes[i].n, static_cast<std::int64_t>(u), "", true};
+  const SizeLayout& layout = f.header.sizes[i];
+  const SizeHandles& s = f.sizes[i];
+  const Where w = f.where();
+  const std::string what = "read its rows";
+  const std::int64_t begin = layout.unit_begin(static_cast<std::int64_t>(u));
+  const std::int64_t end = layout.unit_end(static_cast<std::int64_t>(u));
+  const auto rows = static_cast<std::size_t>(end - begin);
+  const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
+  const std::size_t bins = layout.observe.bins();
+  const auto n = static_cast<std::size_t>(layout.n);
+  const auto& kept = layout.observe.keep_spectrum_trials;
+  const auto kept_begin = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(begin)) - kept.begin());
+  const auto kept_end = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) - kept.begin());
+  const std::size_t columns_e = f.header.estimates.size();
+  const std::size_t estimators = f.header.estimators().size();
+  const hsize_t b = as_hsize(begin);
+
+  std::vector<double> moments(rows * columns), mins(rows), maxs(rows), norms(rows);
+  std::vector<std::int8_t> failed(rows);
+  std::vector<std::string> reasons, estimate_failures;
+  std::vector<std::int64_t> counts(bins);
+  std::int64_t below = 0, above = 0;
+  std::vector<double> spectra((kept_end - kept_begin) * n);
+  std::vector<std::int64_t> lengths(kept_end - kept_begin);
+  std::vector<double> estimates(rows * columns_e);
+  Digest stored{};
+  try {
+    h5::read_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns}, moments.data(), w,
+                   what);
+    h5::read_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, mins.data(), w, what);
+    h5::read_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, maxs.data(), w, what);
+    h5::read_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, norms.data(), w, what);
+    h5::read_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {rows}, failed.data(), w, what);
+    reasons = h5::read_strings(s.failure_reason.get(), b, rows, w, what);
+    h5::read_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins}, counts.data(), w,
+                   what);
+    h5::read_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &below, w, what);
+    h5::read_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &above, w, what);
+    h5::read_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_end - kept_begin, n},
+                   spectra.data(), w, what);
+    h5::read_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin}, {kept_end - kept_begin},
+                   lengths.data(), w, what);
+    if (columns_e > 0) {
+      h5::read_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns_e},
+                     estimates.data(), w, what);
+      estimate_failures = h5::read_strings(s.estimate_failure.get(), std::vector<hsize_t>{b, 0},
+                                           std::vector<hsize_t>{rows, estimators}, w, what);
+    }
+    h5::read_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes}, stored.data(),
+                   w, "read its SHA-256");
+  } catch (const Error& e) {
+    damage.reason = e.what();
+    const std::string prefix = "run file '" + f.path + "': ";
+    if (damage.reason.starts_with(prefix)) damage.reason.erase(0, prefix.size());
+    // Changed bytes fail the checksum; any other failure means HDF5 could not find the chunk
+    // (its index is damaged), and writing through that index could land anywhere.
+    damage.rewritable =
+        damage.reason.find("Fletcher32") != std::string::npos && chunks_found(f, i, u);
+    return damage;
+  }
+  UnitView view{moments, mins,  maxs,    norms,   failed,    {}, counts,
+                below,   above, spectra, lengths, estimates, {}};
+  for (const auto& r : reasons) view.reasons.emplace_back(r);
+  for (const auto& r : estimate_failures) view.estimate_failures.emplace_back(r);
+  if (unit_digest(view) != stored) {
+    damage.reason = "its content does not match its SHA-256";
+    damage.rewritable = chunks_found(f, i, u);
+    if (!damage.rewritable) damage.reason += " (a chunk of it is missing from the chunk index)";
+    return damage;
+  }
+  return std::nullopt;
+}
+
+// Every unit marked committed, checked (format 1.2; an older file has nothing to check against).
+std::vector<DamagedUnit> check_units(const RunFile::Impl& f, const contained::Emit& emit) {
+  std::vector<DamagedUnit> out;
+  if (!f.checksummed) return out;
+  for (std::size_t i = 0; i < f.header.sizes.size(); ++i) {
+    for (std::size_t u = 0; u < f.marked[i].size(); ++u) {
+      if (const int mark = f.markers[i][u]; mark != 0 && mark != 1) {
+        out.push_back({i, f.header.sizes[i].n, static_cast<std::int64_t>(u),
+                       mark == kMarkerLost
+                           ? "its commit marker is missing (the chunk index is damaged)"
+                           : "its commit marker reads " + std::to_string(mark),
+                       false});
+        continue;
+      }
+      if (!f.marked[i][u]) continue;
+      if (auto damage = check_unit(f, i, u)) out.push_back(std::move(*damage));
+      emit(".");
+    }
+  }
+  return out;
+}
+
+// Damaged units count as not committed: readers leave them out, a resume computes them again.
+void apply_damage(RunFile::Impl& f, const std::vector<DamagedUnit>& damaged) {
+  for (const auto& d : damaged) {
+    if (d.size_index < f.committed.size() &&
+        static_cast<std::size_t>(d.unit) < f.committed[d.size_index].size()) {
+      f.committed[d.size_index][static_cast<std::size_t>(d.unit)] = false;
+    }
+  }
+  f.integrity.damaged = damaged;
+}
+
+// Why a write failed for lack of room ("No space left on device", "File too large"), or "" if
+// it did not: such a failure is the file system's, not the file's, and says so.
+std::string lack_of_room(const std::string& message) {
+  for (const int error : {ENOSPC, EFBIG, EDQUOT}) {
+    const std::string text = std::strerror(error);
+    if (message.find(text) != std::string::npos) return text;
+  }
+  return "";
 }
 
 // Removes a temporary file unless released.
@@ -873,6 +1275,8 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
   impl->path = path;
   impl->writable = true;
   impl->header = header;
+  impl->checksummed = true;
+  impl->integrity.checksummed = true;
   const Where temp_where{temp};
   try {
     impl->file = h5::own(H5Fcreate(temp.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, H5P_DEFAULT), H5Fclose,
@@ -883,10 +1287,11 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
     write_header(impl->file.get(), header, impl->string_type.get(), session_file.get(),
                  unit_file.get(), temp_where);
     for (std::size_t i = 0; i < header.sizes.size(); ++i) {
-      impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i],
-                                      header.estimates.size(), header.estimators().size(),
-                                      temp_where));
-      impl->committed.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), false);
+      impl->sizes.push_back(open_size(impl->file.get(), i, header.sizes[i], header.estimates.size(),
+                                      header.estimators().size(), true, temp_where));
+      impl->marked.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), false);
+      impl->markers.emplace_back(static_cast<std::size_t>(header.sizes[i].units()), 0);
+      impl->committed.push_back(impl->marked.back());
     }
     Id provenance = h5::open_group(impl->file.get(), "provenance", temp_where);
     impl->sessions = h5::open_dataset(provenance.get(), "sessions", temp_where);
@@ -895,7 +1300,16 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
   } catch (const InputError&) {
     throw;
   } catch (const Error& e) {
-    throw Error("cannot create run file '" + path + "': " + e.what());
+    // The file is built under a hidden name; the user knows only `path`.
+    std::string why = e.what();
+    const std::string prefix = "run file '" + temp + "': ";
+    if (why.starts_with(prefix)) why.erase(0, prefix.size());
+    if (const std::string room = lack_of_room(why); !room.empty()) {
+      throw Error("cannot create run file '" + path + "': there is no room for it (" + room +
+                  "); free space or choose an output path on another file system; nothing was "
+                  "left behind");
+    }
+    throw Error("cannot create run file '" + path + "': " + why);
   }
 
   // Into place only now, and never over a file that appeared meanwhile. The open HDF5 handle
@@ -922,12 +1336,113 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
   return RunFile(std::move(impl));
 }
 
+Integrity RunFile::check_contained(const std::string& path, bool resume, bool everything) {
+  const Purpose purpose = resume ? Purpose::resume : Purpose::read;
+  const contained::Outcome outcome = contained::run(
+      [&](const contained::Emit& emit) {
+        try {
+          h5::quiet();
+          auto impl = load_unchecked(path, purpose, H5F_ACC_RDONLY);
+          emit(".");
+          const bool checksummed = impl->checksummed;
+          if (everything) {
+            // Every read the commands make, in this process, so that the caller's reads of the
+            // same objects afterwards are known not to crash.
+            const auto damaged = check_units(*impl, emit);
+            apply_damage(*impl, damaged);
+            const RunFile file(std::move(impl));
+            for (std::size_t i = 0; i < file.header().sizes.size(); ++i) {
+              file.read_unit_histograms(i);
+              emit(".");
+              file.read_observations(i);
+              emit(".");
+              file.read_estimates(i);
+              emit(".");
+            }
+            file.read_provenance();
+            for (const auto& d : damaged) {
+              emit("D " + std::to_string(d.size_index) + " " + std::to_string(d.n) + " " +
+                   std::to_string(d.unit) + " " + (d.rewritable ? "1 " : "0 ") + d.reason);
+            }
+          }
+          emit(checksummed ? "C" : "U");
+        } catch (const InputError& e) {
+          emit(std::string("I ") + e.what());
+        } catch (const std::exception& e) {
+          emit(std::string("F ") + e.what());
+        }
+      },
+      contained::stall_limit());
+  std::string why;
+  switch (outcome.kind) {
+    case contained::Outcome::Kind::signalled:
+      why =
+          "reading it killed the process that checks it: " + contained::signal_text(outcome.signal);
+      break;
+    case contained::Outcome::Kind::stalled: {
+      std::ostringstream seconds;
+      seconds << outcome.stall_seconds;
+      why = "reading it made no progress for " + seconds.str() + " s";
+      break;
+    }
+    case contained::Outcome::Kind::lost:
+      why = "the process that checks it ended without an answer";
+      break;
+    case contained::Outcome::Kind::finished:
+      break;
+  }
+  if (!why.empty()) {
+    throw InputError("run file '" + path + "' is damaged where HDF5 cannot read it (" + why +
+                     "); " + damaged_fix(purpose));
+  }
+  Integrity out;
+  for (const std::string& line : outcome.lines) {
+    if (line == ".") continue;
+    if (line.starts_with("I ")) throw InputError(line.substr(2));
+    if (line.starts_with("F ")) refuse_damaged(path, line.substr(2), purpose);
+    if (line == "C") out.checksummed = true;
+    if (line.starts_with("D ")) {
+      std::istringstream in(line.substr(2));
+      DamagedUnit d;
+      in >> d.size_index >> d.n >> d.unit >> d.rewritable;
+      std::getline(in >> std::ws, d.reason);
+      out.damaged.push_back(std::move(d));
+    }
+  }
+  return out;
+}
+
+std::unique_ptr<RunFile::Impl> RunFile::load(const std::string& path, bool resume, unsigned flags) {
+  const Integrity found = check_contained(path, resume, true);
+  auto impl = load_unchecked(path, resume ? Purpose::resume : Purpose::read, flags);
+  apply_damage(*impl, found.damaged);
+  return impl;
+}
+
+Integrity verify(const std::string& path, bool resume) {
+  return RunFile::check_contained(path, resume, true);
+}
+
+const Integrity& RunFile::integrity() const { return impl_->integrity; }
+
 RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expected) {
   expected.validate();
+  const Integrity found = check_contained(path, true, true);
+  std::string stuck;
+  for (const auto& d : found.damaged) {
+    if (!d.rewritable) {
+      stuck += (stuck.empty() ? "" : "; ") + std::string("N = ") + std::to_string(d.n) + ", unit " +
+               std::to_string(d.unit) + ": " + d.reason;
+    }
+  }
+  if (!stuck.empty()) {
+    throw InputError("run file '" + path + "' is damaged where a resume cannot write it again (" +
+                     stuck + "); restore a good copy, or start over with --fresh");
+  }
   {
     // Every check on a read-only handle first: a foreign file is then never opened for writing,
     // so HDF5 cannot touch it (closing a read-write handle may rewrite its end).
-    auto probe = load(path, Purpose::resume, H5F_ACC_RDONLY);
+    auto probe = load_unchecked(path, Purpose::resume, H5F_ACC_RDONLY);
     const RunHeader& found = probe->header;
     if (found.job_hash != expected.job_hash) {
       throw InputError("run file '" + path + "' was written by another job (job hash " +
@@ -942,14 +1457,21 @@ RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expec
                        "); use a new output path or --fresh to start over");
     }
   }
-  return RunFile(load(path, Purpose::resume, H5F_ACC_RDWR));
+  auto impl = load_unchecked(path, Purpose::resume, H5F_ACC_RDWR);
+  apply_damage(*impl, found.damaged);
+  return RunFile(std::move(impl));
 }
 
 RunHeader read_header_for_resume(const std::string& path) {
-  return load(path, Purpose::resume, H5F_ACC_RDONLY)->header;
+  // The header alone: what the check reads is what this reads.
+  RunFile::check_contained(path, true, false);
+  return load_unchecked(path, Purpose::resume, H5F_ACC_RDONLY)->header;
 }
 
-void check_replaceable(const std::string& path) {
+namespace {
+
+// check_replaceable in this process: HDF5 reads the file here.
+void check_replaceable_here(const std::string& path) {
   h5::quiet();
   struct stat info {};
   if (::stat(path.c_str(), &info) != 0) return;  // nothing there: nothing to replace
@@ -998,8 +1520,49 @@ void check_replaceable(const std::string& path) {
   }
 }
 
+}  // namespace
+
+void check_replaceable(const std::string& path) {
+  const contained::Outcome outcome = contained::run(
+      [&](const contained::Emit& emit) {
+        try {
+          h5::quiet();
+          check_replaceable_here(path);
+          emit("Y");
+        } catch (const InputError& e) {
+          emit(std::string("I ") + e.what());
+        } catch (const std::exception& e) {
+          emit(std::string("F ") + e.what());
+        }
+      },
+      contained::stall_limit());
+  std::string why;
+  switch (outcome.kind) {
+    case contained::Outcome::Kind::signalled:
+      why =
+          "reading it killed the process that checks it: " + contained::signal_text(outcome.signal);
+      break;
+    case contained::Outcome::Kind::stalled:
+      why = "reading it made no progress";
+      break;
+    case contained::Outcome::Kind::lost:
+      why = "the process that checks it ended without an answer";
+      break;
+    case contained::Outcome::Kind::finished:
+      for (const std::string& line : outcome.lines) {
+        if (line.starts_with("I ")) throw InputError(line.substr(2));
+        if (line.starts_with("F ")) throw Error(line.substr(2));
+      }
+      return;
+  }
+  // What cannot be read cannot be proved a run file, and --fresh deletes nothing else.
+  throw InputError("'" + path + "' is damaged where HDF5 cannot read it (" + why +
+                   "), so it cannot be proved a freegap run file; --fresh replaces only freegap "
+                   "run files; move it away yourself or choose another output path");
+}
+
 RunFile RunFile::open_read(const std::string& path) {
-  return RunFile(load(path, Purpose::read, H5F_ACC_RDONLY));
+  return RunFile(load(path, false, H5F_ACC_RDONLY));
 }
 
 std::vector<bool> RunFile::committed(std::size_t size_index) const {
@@ -1186,35 +1749,80 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
       "write unit " + std::to_string(unit.unit) + " of size " + std::to_string(unit.size_index);
   const hsize_t b = as_hsize(begin);
   const hsize_t r = rows;
+  // Room first. HDF5 records the grown end of the file in its superblock while it writes there,
+  // so a write that fails for lack of room leaves a file that HDF5 then calls truncated. With the
+  // room reserved beforehand, a full disk stops the run before any byte of the unit is written.
+  std::size_t string_bytes = 0;
+  for (const auto& row : obs.trials) string_bytes += row.reason.size() + 16;
+  for (const auto& reason : unit.estimate_failures) string_bytes += reason.size() + 16;
+  if (const int error = f.reserve_room(kRoomPerUnit + 2 * string_bytes); error != 0) {
+    throw Error("run file '" + f.path + "': no room to write unit " + std::to_string(unit.unit) +
+                " of size " + std::to_string(unit.size_index) + " (" + std::strerror(error) +
+                "); the committed units are safe and the file is resumable: free space and run "
+                "the same command again");
+  }
   try {
-    // Phase 1: the unit's rows at their fixed positions, then flush.
-    h5::write_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns}, moments.data(), w,
-                    what);
-    h5::write_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {r}, mins.data(), w, what);
-    h5::write_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {r}, maxs.data(), w, what);
-    h5::write_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {r}, norms.data(), w, what);
-    h5::write_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {r}, failed.data(), w, what);
-    h5::write_block(s.failure_reason.get(), f.string_type.get(), {b}, {r}, reasons.data(), w, what);
-    h5::write_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins},
-                    obs.histogram.counts.data(), w, what);
-    h5::write_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.below, w, what);
-    h5::write_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.above, w, what);
-    h5::write_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_end - kept_begin, n},
-                    spectra.data(), w, what);
-    h5::write_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
-                    {kept_end - kept_begin}, lengths.data(), w, what);
+    // A unit found damaged is still marked committed in the file: unmark it first, so a kill
+    // while it is rewritten leaves it uncommitted, never committed with half-written rows.
+    // (Every write here skips the checksum check of chunks HDF5 reads back to merge a partial
+    // write: a damaged chunk is being replaced, not read.)
+    if (f.marked[unit.size_index][u]) {
+      const std::int8_t zero = 0;
+      h5::overwrite_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &zero, w, what);
+      f.flush(what);
+      f.marked[unit.size_index][u] = false;
+    }
+    // Phase 1: the unit's rows at their fixed positions and its SHA-256, then flush.
+    h5::overwrite_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns}, moments.data(), w,
+                        what);
+    h5::overwrite_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {r}, mins.data(), w, what);
+    h5::overwrite_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {r}, maxs.data(), w, what);
+    h5::overwrite_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {r}, norms.data(), w, what);
+    h5::overwrite_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {r}, failed.data(), w, what);
+    h5::overwrite_block(s.failure_reason.get(), f.string_type.get(), {b}, {r}, reasons.data(), w,
+                        what);
+    h5::overwrite_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins},
+                        obs.histogram.counts.data(), w, what);
+    h5::overwrite_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.below, w,
+                        what);
+    h5::overwrite_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.above, w,
+                        what);
+    h5::overwrite_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0},
+                        {kept_end - kept_begin, n}, spectra.data(), w, what);
+    h5::overwrite_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
+                        {kept_end - kept_begin}, lengths.data(), w, what);
     if (columns_e > 0) {
-      h5::write_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns_e},
-                      unit.estimates.data(), w, what);
-      h5::write_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
-                      estimate_reasons.data(), w, what);
+      h5::overwrite_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns_e},
+                          unit.estimates.data(), w, what);
+      h5::overwrite_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
+                          estimate_reasons.data(), w, what);
+    }
+    if (f.checksummed) {
+      UnitView view{moments,
+                    mins,
+                    maxs,
+                    norms,
+                    failed,
+                    {},
+                    obs.histogram.counts,
+                    obs.histogram.below,
+                    obs.histogram.above,
+                    spectra,
+                    lengths,
+                    unit.estimates,
+                    {}};
+      for (const char* reason : reasons) view.reasons.emplace_back(reason);
+      for (const auto& reason : unit.estimate_failures) view.estimate_failures.emplace_back(reason);
+      const Digest digest = unit_digest(view);
+      h5::overwrite_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes},
+                          digest.data(), w, what);
     }
     f.flush(what);
 
     // Phase 2: the commit marker (and the provenance record), then flush. A kill before this
     // flush completes leaves the marker unset, and the unit is redone on resume.
     const std::int8_t one = 1;
-    h5::write_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
+    h5::overwrite_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
     const std::string committed_at = now_utc();
     const UnitRow record{static_cast<std::int64_t>(unit.size_index),
                          unit.unit,
@@ -1228,6 +1836,7 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
   } catch (const Error& e) {
     throw Error(std::string(e.what()) + "; the unit is not committed and will be redone on resume");
   }
+  f.marked[unit.size_index][u] = true;
   f.committed[unit.size_index][u] = true;
 }
 

@@ -20,6 +20,9 @@ import subprocess  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 
+import hashlib  # noqa: E402
+import struct  # noqa: E402
+
 import h5py  # noqa: E402
 import numpy as np  # noqa: E402
 
@@ -52,6 +55,43 @@ def fails_without_spectrum(t):
     return t % 13 == 5
 
 
+def unit_sha256(g, u, B, T, keep):
+    """SHA-256 of unit u's content, built from SCHEMA.md ("Checksums") alone."""
+    begin, end = u * B, min((u + 1) * B, T)
+    out = bytearray()
+
+    def count(k):
+        out.extend(struct.pack("<Q", k))
+
+    def text(b):
+        count(len(b))
+        out.extend(b)
+
+    def numbers(a, dtype):
+        a = np.ascontiguousarray(a, dtype=dtype).ravel()
+        count(a.size)
+        out.extend(a.tobytes())
+
+    text(b"freegap unit, format 1.2")
+    numbers(g["moments"][begin:end], "<f8")
+    for name in ("min", "max", "norm"):
+        numbers(g[name][begin:end], "<f8")
+    numbers(g["failed"][begin:end], "<i1")
+    reasons = g["failure_reason"][begin:end]
+    count(len(reasons))
+    for r in reasons:
+        text(r if isinstance(r, bytes) else (r or "").encode())
+    numbers(g["unit_histograms"][u], "<i8")
+    count(int(g["unit_below"][u]))
+    count(int(g["unit_above"][u]))
+    rows = [j for j, t in enumerate(keep) if begin <= t < end]
+    numbers(g["spectra"][rows[0]:rows[-1] + 1] if rows else np.zeros(0), "<f8")
+    numbers(g["spectrum_length"][rows[0]:rows[-1] + 1] if rows else np.zeros(0), "<i8")
+    numbers(np.zeros(0), "<f8")  # no estimates in the sample run
+    count(0)
+    return hashlib.sha256(bytes(out)).digest()
+
+
 def check_size(f, index, size, units_expected_committed):
     """Checks /sizes/<index>; only the first `units_expected_committed` units (all if None)."""
     g = f["sizes/%d" % index]
@@ -67,6 +107,7 @@ def check_size(f, index, size, units_expected_committed):
         "max": (T,), "norm": (T,), "failed": (T,), "failure_reason": (T,),
         "unit_histograms": (U, b), "unit_below": (U,), "unit_above": (U,),
         "unit_committed": (U,), "spectra": (S, n), "spectrum_length": (S,),
+        "unit_sha256": (U, 32),
     }
     for name, shape in shapes.items():
         check(name in g and g[name].shape == shape,
@@ -74,6 +115,12 @@ def check_size(f, index, size, units_expected_committed):
     # Chunks never straddle two units (SCHEMA.md, "Why the file survives a kill").
     check(g["moments"].chunks == (min(B, T), K + 1), "%s/moments chunks" % where)
     check(g["unit_histograms"].chunks == (1, b), "%s/unit_histograms chunks" % where)
+    # Format 1.2: Fletcher-32 on every chunked dataset except the variable-length strings (and
+    # the header's bin_edges and kept_trials, which header_sha256 covers).
+    for name in shapes:
+        if g[name].chunks is not None and name not in ("failure_reason", "bin_edges",
+                                                       "kept_trials"):
+            check(g[name].fletcher32, "%s/%s has Fletcher-32" % (where, name))
 
     edges = g["bin_edges"][:]
     check(edges[0] == -size["half"] and edges[-1] == size["half"], where + " bin_edges ends")
@@ -84,6 +131,9 @@ def check_size(f, index, size, units_expected_committed):
     check(list(committed) == [1] * done + [0] * (U - done),
           "%s unit_committed = %s" % (where, list(committed)))
     trials = min(done * B, T)  # committed units are a prefix here (written in order)
+    for u in range(done):
+        check(bytes(g["unit_sha256"][u]) == unit_sha256(g, u, B, T, size["keep"]),
+              "%s unit %d: unit_sha256 is the SHA-256 SCHEMA.md describes" % (where, u))
 
     moments = g["moments"][:trials]
     mins, maxs, norms = g["min"][:trials], g["max"][:trials], g["norm"][:trials]
@@ -137,7 +187,9 @@ def check_size(f, index, size, units_expected_committed):
 def check_root(f):
     a = f.attrs
     check(a["file_kind"] == "freegap run", "file_kind = %r" % a["file_kind"])
-    check(list(a["format_version"]) == [1, 0], "format_version = %r" % a["format_version"])
+    check(list(a["format_version"]) == [1, 2], "format_version = %r" % a["format_version"])
+    check(len(a["header_sha256"]) == 64 and all(c in "0123456789abcdef" for c in a["header_sha256"]),
+          "header_sha256 = %r" % a["header_sha256"])
     check(isinstance(a["tool_version"], str) and a["tool_version"] != "", "tool_version")
     check(isinstance(a["git_revision"], str) and a["git_revision"] != "", "git_revision")
     # The revision is looked up at every build (src/revision.cmake), so a run file written by a

@@ -51,6 +51,8 @@ struct Report {
   std::string markdown;       ///< report.md
   std::vector<Table> tables;  ///< every CSV (and HDF5 group) by name
   std::vector<std::string> incomplete;  ///< "file: N = n (u of U units)" per incomplete size
+  /// "file: N = n, unit u: why; left out" per damaged unit (report.md also names them).
+  std::vector<std::string> integrity;
   /// Further files by name: estimators_run<r>.csv, the scores of a run's plug-in estimators
   /// (estimator_scores.hpp), drawn as figures/estimators_run<r> by analysis/plot_estimators.py.
   std::vector<std::pair<std::string, std::string>> files;
