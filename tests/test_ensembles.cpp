@@ -427,8 +427,9 @@ TEST(BadInput, ExactMessages) {
     out << "root:x:0:0:\x1b[2Jroot:/root:/bin/bash\n";
   }
   EXPECT_EQ(message_of([&] { Sampler(diagonal_spec(file)); }),
-            std::string("matrix 'D': eigenvalue file '").append(bad).append(
-                "' line 1: 'root:x:0:0:?[2Jroot:/roo...' is not a finite number"));
+            std::string("matrix 'D': eigenvalue file '")
+                .append(bad)
+                .append("' line 1: 'root:x:0:0:?[2Jroot:/roo...' is not a finite number"));
   std::remove(bad.c_str());
   DiagonalLaw uni;
   uni.kind = DiagonalLawKind::uniform;

@@ -175,7 +175,7 @@ struct Estimate {
   std::vector<SizeEstimate> sizes;
   double core_hours = 0.0;
   std::size_t output_bytes = 0;
-  std::string output_path;       ///< the job's run file
+  std::string output_path;        ///< the job's run file
   std::int64_t output_free = -1;  ///< free bytes on its file system; -1 unknown
   std::size_t memory_limit = 0;  ///< per rank; 0 unknown
   std::string memory_source;

@@ -238,8 +238,8 @@ int main(int argc, char** argv) {
   auto* run_cmd = app.add_subcommand(
       "run", "Run (or resume) a job file; under mpirun/srun with any number of ranks");
   run_cmd->add_option("job", job_path, "Job file (TOML)")->required();
-  auto* run_output =
-      run_cmd->add_option("-o,--output", run_options.output, "Run file (default: the job's output)");
+  auto* run_output = run_cmd->add_option("-o,--output", run_options.output,
+                                         "Run file (default: the job's output)");
   run_cmd->add_flag("--confine", run_options.confine,
                     "Refuse a job file that names any path outside its own directory (eigenvalue "
                     "files, run.output, plug-in libraries, commands)");

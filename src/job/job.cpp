@@ -245,16 +245,18 @@ class Reader {
     if (!ec && inside(*confine_dir_, full)) return;
     fail(key, "'" + given + "' lies outside the job file's directory '" + confine_dir_->string() +
                   "', and --confine allows only paths inside it; give a path inside that "
-                  "directory, or " + std::string(kTrusted));
+                  "directory, or " +
+                  std::string(kTrusted));
   }
 
   // A command's program without a '/' is looked up on PATH, which --confine does not allow.
   void check_confined_program(std::string_view key, const std::string& program) const {
     if (!confine_dir_ || program.find('/') != std::string::npos) return;
-    fail(key, "program '" + program + "' would be looked up on PATH, outside the job file's "
-              "directory '" + confine_dir_->string() + "', and --confine allows only paths "
-              "inside it; name a program inside that directory (e.g. \"./estimate.sh\"), or " +
-              std::string(kTrusted));
+    const std::string where = "outside the job file's directory '" + confine_dir_->string() +
+                              "', and --confine allows only paths inside it";
+    fail(key, "program '" + program + "' would be looked up on PATH, " + where +
+                  "; name a program inside that directory (e.g. \"./estimate.sh\"), or " +
+                  std::string(kTrusted));
   }
 
  private:

@@ -746,7 +746,8 @@ std::int64_t free_bytes_for(const std::string& path) {
   }
   const fs::space_info info = fs::space(dir, ec);
   if (ec || info.available == static_cast<std::uintmax_t>(-1)) return -1;
-  return static_cast<std::int64_t>(std::min<std::uintmax_t>(info.available, std::numeric_limits<std::int64_t>::max()));
+  return static_cast<std::int64_t>(
+      std::min<std::uintmax_t>(info.available, std::numeric_limits<std::int64_t>::max()));
 }
 
 namespace {
@@ -890,12 +891,12 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   e.output_path = job.output;
   e.output_free = free_bytes_for(job.output);
   if (e.output_free >= 0 && e.output_bytes > static_cast<std::size_t>(e.output_free)) {
-    e.warnings.push_back("the run file needs about " +
-                         human_bytes(static_cast<double>(e.output_bytes)) + " (estimate), more "
-                         "than the " + human_bytes(static_cast<double>(e.output_free)) +
-                         " free on the file system of '" + e.output_path +
-                         "'; freegap run will refuse it: free space there, write the run file "
-                         "elsewhere (run.output, or freegap run -o), or run fewer trials");
+    e.warnings.push_back(
+        "the run file needs about " + human_bytes(static_cast<double>(e.output_bytes)) +
+        " (estimate), more than the " + human_bytes(static_cast<double>(e.output_free)) +
+        " free on the file system of '" + e.output_path +
+        "'; freegap run will refuse it: free space there, write the run file "
+        "elsewhere (run.output, or freegap run -o), or run fewer trials");
   }
   e.units = unit_seconds.size();
   e.wall_seconds = simulate_wall(unit_seconds, options.ranks);

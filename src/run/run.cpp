@@ -295,8 +295,8 @@ struct Space {
     }
   }
   bool fits() const {
-    return free < 0 || static_cast<double>(need) <= static_cast<double>(free) +
-                                                       static_cast<double>(held);
+    return free < 0 ||
+           static_cast<double>(need) <= static_cast<double>(free) + static_cast<double>(held);
   }
   std::string free_text() const {
     return plan::human_bytes(static_cast<double>(free)) + " free on its file system" +
@@ -310,8 +310,7 @@ struct Space {
 std::string space_line(const job::Job& job) {
   const Space s(job);
   std::string line = "run file: " + job.output + ": about " +
-                     plan::human_bytes(static_cast<double>(s.need)) +
-                     " when complete (estimate); ";
+                     plan::human_bytes(static_cast<double>(s.need)) + " when complete (estimate); ";
   if (s.free < 0) return line + "free space on its file system unknown";
   line += s.free_text();
   if (!s.fits()) line += "; more than is free: freegap run will refuse it";
@@ -600,7 +599,8 @@ class Deadline {
  public:
   Deadline(const RunOptions& options, const job::Job& job, const store::RunFile& file, int ranks,
            std::chrono::steady_clock::time_point run_start)
-      : sizes_(job.sizes), per_cost_(job.sizes.size(), 0.0),
+      : sizes_(job.sizes),
+        per_cost_(job.sizes.size(), 0.0),
         busy_until_(static_cast<std::size_t>(ranks), std::chrono::steady_clock::now()),
         queued_(static_cast<std::size_t>(ranks)) {
     const auto now = std::chrono::steady_clock::now();
