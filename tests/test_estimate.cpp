@@ -548,8 +548,8 @@ TEST(EstimatorHost, ThisProcessNeverLoadsAPlugin) {
 }
 
 // A describe that crashes, hangs past the estimator's timeout or exits is a refusal of the job
-// (the message names the estimator's line), never a crash of this process.
-TEST(EstimatorHost, DescribeThatCrashesOrHangsIsRefused) {
+// (the message names the estimator's line), never a crash or an exit of this process.
+TEST(EstimatorHost, DescribeThatCrashesHangsOrExitsIsRefused) {
   EXPECT_EQ(open_message(job_text(library_estimator("describe_segfault"))),
             "j.toml:13: estimator.lib.library: '" + plugin("describe_segfault") +
                 "': freegap_estimator_describe crashed: signal 11 (SIGSEGV); fix the plug-in: "
@@ -559,6 +559,10 @@ TEST(EstimatorHost, DescribeThatCrashesOrHangsIsRefused) {
                 "': freegap_estimator_describe did not finish within the estimator's timeout of "
                 "0.5 s; fix the plug-in: loading it and freegap_estimator_describe must only "
                 "return static data");
+  EXPECT_EQ(open_message(job_text(library_estimator("describe_exit"))),
+            "j.toml:13: estimator.lib.library: '" + plugin("describe_exit") +
+                "': freegap_estimator_describe called exit(3); fix the plug-in: loading it and "
+                "freegap_estimator_describe must only return static data");
   EXPECT_FALSE(plugin_loaded_here());
 }
 

@@ -1,5 +1,5 @@
 // Estimators that ride along with a run (include/freegap/estimate.hpp): plug-in libraries in a
-// forked helper process, external commands, and the set that runs them on a trial.
+// helper program (src/estimate/host/), external commands, and the set that runs them on a trial.
 #include "freegap/estimate.hpp"
 
 #include <dlfcn.h>
@@ -34,7 +34,7 @@ extern char** environ;
 namespace freegap::estimate {
 
 // A memfd: the rank maps it read-write and writes each trial's matrix into it; plug-in helpers,
-// forked with the descriptor, map it read-only. It only grows, so a helper's older, smaller
+// sent a read-only descriptor of it, map it read-only. It only grows, so a helper's older, smaller
 // mapping stays valid and it remaps when a request needs more.
 class SharedMatrixMemory {
  public:

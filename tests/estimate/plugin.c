@@ -9,7 +9,7 @@
  * one line to standard error on every trial, and a line when loaded); 12 hangs for good on
  * trials ≡ 1 (mod 3) when the environment variable FREEGAP_TEST_PLUGIN_HANG names a file, after
  * writing "hanging on trial T" to that file, and is well-behaved otherwise (so that a stopped run
- * can be resumed).
+ * can be resumed); 13 calls exit(3) in describe.
  * Estimates: top = the largest value; mean_square = (1/N) Σ x² — deterministic in the spectrum. */
 #include <math.h>
 #include <signal.h>
@@ -46,6 +46,8 @@ const freegap_estimator_info* freegap_estimator_describe(void) {
   raise(SIGSEGV);
 #elif FAULT == 9
   for (;;) pause();
+#elif FAULT == 13
+  exit(3);
 #endif
   static const info_version_1 info = {
 #if FAULT == 4
