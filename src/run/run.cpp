@@ -870,6 +870,11 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   } catch (const InputError& e) {
     code = kExitBadInput;
     message = e.what();
+  } catch (const Error& e) {
+    // Not the input's fault (e.g. the plug-in helper program cannot be started): every rank
+    // stops the same way, before anything is written.
+    code = kExitFailure;
+    message = e.what();
   }
   if (auto [c, m] = agree(code, message, comm); c != 0) {
     if (me == 0) err << "freegap: " << m << "\n";
