@@ -7,6 +7,8 @@ With the test plug-ins of tests/estimate/plugin.c:
   - one whose describe segfaults, and one whose describe hangs past the estimator's timeout, are
     refused by `run` (1 and 2 ranks), `run --explain` and `plan`: exit 2, a message naming the
     estimator's job file line and what happened, no run file and no log — never a crash of freegap;
+  - without the helper program (FREEGAP_PLUGIN_HOST naming no file) a job with a library stops
+    with exit 1 and one message on 1 or 2 ranks, nothing written;
   - one that calls exit(0) on trials ≡ 1 (mod 3) has exactly those trials recorded as
     "plug-in called exit(0)", and the run exits 0;
   - one that prints on every trial (and when loaded) puts none of it in freegap's standard output
@@ -120,6 +122,23 @@ def main():
                         "exit %s\nexpected: %s\n     got: %s" % (r.returncode, expected, r.stderr))
                 c.check(not os.path.exists(out) and not os.path.exists(out + ".estimators.log"),
                         "%s, %s: no run file, no log" % (behaviour, label))
+
+        # 1b. Without the helper program a job with a library is refused too, as a failure of
+        #     the installation (exit 1) rather than of the job, on every rank, nothing written.
+        path = job("ok.toml", "ok")
+        out = os.path.join(d, "nohost.h5")
+        for ranks in (None, 2):
+            r = rh.run(rh.command(exe, ["run", path, "-q", "-o", out], ranks), d,
+                       env=rh.child_env(FREEGAP_PLUGIN_HOST=os.path.join(d, "no-such-host")))
+            expected = ("freegap: cannot start the plug-in's host process (%s: No such file or "
+                        "directory)\n" % os.path.join(d, "no-such-host"))
+            # Under mpirun, mpirun's notice follows; the ranks agree on one message, not one each.
+            ok = r.stderr == expected if ranks is None else (
+                r.stderr.startswith(expected) and r.stderr.count("freegap: cannot start") == 1
+                and "MPI_ABORT" not in r.stderr)
+            c.check(r.returncode == rh.EXIT_FAILURE and ok and not os.path.exists(out),
+                    "no helper program (%s): exit 1, one message, no run file" % (ranks or "plain"),
+                    "exit %s\nexpected: %s\n     got: %s" % (r.returncode, expected, r.stderr))
 
         # 2. exit(0) in estimate: recorded as an exit on exactly the trials that called it.
         path = job("exit.toml", "exit")
