@@ -533,7 +533,8 @@ class LibraryEstimator final : public Estimator {
       take_output(true);
       return failed("plug-in's helper sent something other than an answer", count);
     }
-    take_output(false);
+    // What the plug-in printed for this trial was flushed before its answer, so the wait for
+    // the answer has already moved it to the log.
     const std::size_t k =
         m.status > 0 ? static_cast<std::size_t>(std::min<int>(m.status, static_cast<int>(count)))
                      : 0;
