@@ -100,13 +100,14 @@ class EstimatorSet {
   EstimatorSet(EstimatorSet&&) = default;
   EstimatorSet& operator=(EstimatorSet&&) = default;
 
-  /// Waits for plug-ins and commands end soon after `requested` turns true (a stop signal):
-  /// the trial's estimate fails with "stopped: the run was asked to stop", and the caller drops
-  /// the unit.
+  /// A wait for a plug-in or a command ends within 0.1 s of `requested` turning true (a stop
+  /// signal): the trial's estimate fails with "stopped: the run was asked to stop", and the
+  /// caller drops the unit.
   void set_stop_check(std::function<bool()> requested);
   /// From now on, and for what they printed before (held in memory, up to the limit), the
   /// plug-ins' standard output and error are appended to `path`, created at the first line;
-  /// until then nothing is written anywhere. Each line is prefixed "ESTIMATOR[PID]: ".
+  /// until then nothing is written anywhere. Each line is prefixed "ESTIMATOR[PID] out: " or
+  /// "ESTIMATOR[PID] err: " (the helper's process id, the stream).
   void log_plugin_output_to(const std::string& path, std::size_t limit_bytes = kPluginLogLimit);
 
   bool empty() const { return estimators_.empty(); }

@@ -847,8 +847,9 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     p.job = job::parse_job(text, job_path);
     if (!options.output.empty()) p.job.output = options.output;
     p.runners = make_runners(p.job);
-    // Loads and checks every estimator (library entry points, ABI version, declared names,
-    // commands on PATH) on every rank, before anything is written.
+    // Opens and checks every estimator (a library is loaded and described by its helper
+    // process, never here: entry points, ABI version, declared names; commands on PATH) on
+    // every rank, before anything is written.
     p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
     p.estimators->set_stop_check([] { return stop_requested(); });
     if (options.threads > 1) {
