@@ -1,13 +1,19 @@
 // Estimators: the [[estimator]] job tables, the plug-in ABI through the forked helper, the command
 // bridge and its text format, the built-ins, and every documented failure (src/estimate/PLUGINS.md).
+#include <fcntl.h>
 #include <gtest/gtest.h>
 #include <unistd.h>
 
+#include <algorithm>
+#include <atomic>
+#include <chrono>
 #include <cmath>
 #include <cstring>
 #include <filesystem>
+#include <fstream>
 #include <sstream>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "freegap/errors.hpp"
@@ -517,6 +523,165 @@ TEST(EstimatorBuiltin, OperatorNormIsTheLargestModulus) {
   set.fail_all("the trial failed: x", values, reasons);
   EXPECT_TRUE(std::isnan(values.at(0)));
   EXPECT_EQ(reasons, (std::vector<std::string>{"the trial failed: x"}));
+}
+
+// ---- the plug-in runs only in its helper process (the program freegap-plugin-host) ----------
+
+// Whether this process has a test plug-in library mapped: it never should, since a plug-in is
+// loaded, described and run only in its helper.
+bool plugin_loaded_here() {
+  std::ifstream maps("/proc/self/maps");
+  std::string line;
+  while (std::getline(maps, line)) {
+    if (line.find("libtest_plugin_") != std::string::npos) return true;
+  }
+  return false;
+}
+
+TEST(EstimatorHost, ThisProcessNeverLoadsAPlugin) {
+  estimate::EstimatorSet set(job::parse_job(job_text(library_estimator("ok")), "j.toml"));
+  std::vector<double> values;
+  std::vector<std::string> reasons;
+  set.run(input(0), values, reasons);
+  EXPECT_EQ(values, (std::vector<double>{kMeanSquare, kTop}));
+  EXPECT_FALSE(plugin_loaded_here());
+}
+
+// A describe that crashes, hangs past the estimator's timeout or exits is a refusal of the job
+// (the message names the estimator's line), never a crash or an exit of this process.
+TEST(EstimatorHost, DescribeThatCrashesHangsOrExitsIsRefused) {
+  EXPECT_EQ(open_message(job_text(library_estimator("describe_segfault"))),
+            "j.toml:13: estimator.lib.library: '" + plugin("describe_segfault") +
+                "': freegap_estimator_describe crashed: signal 11 (SIGSEGV); fix the plug-in: "
+                "loading it and freegap_estimator_describe must only return static data");
+  EXPECT_EQ(open_message(job_text(library_estimator("describe_hang", 0.5))),
+            "j.toml:13: estimator.lib.library: '" + plugin("describe_hang") +
+                "': freegap_estimator_describe did not finish within the estimator's timeout of "
+                "0.5 s; fix the plug-in: loading it and freegap_estimator_describe must only "
+                "return static data");
+  EXPECT_EQ(open_message(job_text(library_estimator("describe_exit"))),
+            "j.toml:13: estimator.lib.library: '" + plugin("describe_exit") +
+                "': freegap_estimator_describe called exit(3); fix the plug-in: loading it and "
+                "freegap_estimator_describe must only return static data");
+  EXPECT_FALSE(plugin_loaded_here());
+}
+
+// exit() in the plug-in ends its helper only, and is recorded as what it is.
+TEST(EstimatorHost, ExitIsRecordedAsAnExit) { expect_faults("exit", "plug-in called exit(0)"); }
+
+// Reads a whole file ("" if there is none).
+std::string slurp(const std::filesystem::path& path) {
+  std::ifstream in(path, std::ios::binary);
+  std::ostringstream ss;
+  ss << in.rdbuf();
+  return ss.str();
+}
+
+// Runs `trials` trials of the chatty plug-in with this process's standard output and error sent
+// to files, so that the test sees whether anything of the plug-in reached them.
+struct ChattyRun {
+  std::string log, own_output;
+};
+ChattyRun chatty_run(const std::filesystem::path& dir, std::size_t limit, std::uint64_t trials) {
+  const auto own = dir / "own-output.txt";
+  const auto log = dir / "run.h5.estimators.log";
+  std::fflush(stdout);
+  std::fflush(stderr);
+  const int saved_out = ::dup(1), saved_err = ::dup(2);
+  const int sink = ::open(own.c_str(), O_WRONLY | O_CREAT | O_TRUNC, 0644);
+  ::dup2(sink, 1);
+  ::dup2(sink, 2);
+  ::close(sink);
+  {
+    estimate::EstimatorSet set(job::parse_job(job_text(library_estimator("chatty")), "j.toml"));
+    set.log_plugin_output_to(estimate::plugin_log_path((dir / "run.h5").string()), limit);
+    std::vector<double> values;
+    std::vector<std::string> reasons;
+    for (std::uint64_t t = 0; t < trials; ++t) set.run(input(t), values, reasons);
+  }
+  std::fflush(stdout);
+  std::fflush(stderr);
+  ::dup2(saved_out, 1);
+  ::dup2(saved_err, 2);
+  ::close(saved_out);
+  ::close(saved_err);
+  return {slurp(log), slurp(own)};
+}
+
+// What the plug-in prints goes to <run file>.estimators.log, a line at a time with the
+// estimator's name, the helper's process id and the stream, and never to this process's output.
+TEST(EstimatorHost, PluginOutputGoesToTheLogOnly) {
+  const auto dir = std::filesystem::temp_directory_path() /
+                   ("freegap-test-estimate-log-" + std::to_string(::getpid()));
+  std::filesystem::remove_all(dir);
+  std::filesystem::create_directories(dir);
+  const ChattyRun r = chatty_run(dir, estimate::kPluginLogLimit, 3);
+  EXPECT_EQ(r.own_output.find("chatty"), std::string::npos) << r.own_output.substr(0, 400);
+  // Printed while loading, before the log had a place: held and written first.
+  EXPECT_EQ(r.log.find("lib["), 0u);
+  EXPECT_NE(r.log.find("] out: chatty plug-in loaded\n"), std::string::npos);
+  for (int t = 0; t < 3; ++t) {
+    const std::string trial = "chatty trial " + std::to_string(t);
+    EXPECT_NE(r.log.find("] out: " + trial + " line 099 ...."), std::string::npos) << t;
+    EXPECT_NE(r.log.find("] err: " + trial + " to standard error\n"), std::string::npos) << t;
+  }
+  // 1 + 3 × (100 + 1) lines, each prefixed.
+  EXPECT_EQ(std::count(r.log.begin(), r.log.end(), '\n'), 1 + 3 * 101);
+  std::size_t prefixed = 0;
+  for (std::size_t at = 0; (at = r.log.find("lib[", at)) != std::string::npos; ++at) ++prefixed;
+  EXPECT_EQ(prefixed, 1u + 3 * 101);
+  // A second set appends.
+  const ChattyRun again = chatty_run(dir, estimate::kPluginLogLimit, 1);
+  EXPECT_EQ(again.log.substr(0, r.log.size()), r.log);
+  EXPECT_EQ(std::count(again.log.begin(), again.log.end(), '\n'), (1 + 3 * 101) + (1 + 101));
+  std::filesystem::remove_all(dir);
+}
+
+// The log stops growing at its limit, and says so.
+TEST(EstimatorHost, LogIsBoundedWithANote) {
+  const auto dir = std::filesystem::temp_directory_path() /
+                   ("freegap-test-estimate-limit-" + std::to_string(::getpid()));
+  std::filesystem::remove_all(dir);
+  std::filesystem::create_directories(dir);
+  const std::size_t limit = 20000;  // about two trials' output of the chatty plug-in
+  const ChattyRun r = chatty_run(dir, limit, 5);
+  const std::string note =
+      "freegap: this log reached its limit of 20000 bytes; further plug-in "
+      "output of process " +
+      std::to_string(::getpid()) + " is dropped\n";
+  ASSERT_GE(r.log.size(), note.size());
+  EXPECT_EQ(r.log.substr(r.log.size() - note.size()), note);
+  EXPECT_LE(r.log.size(), limit + note.size());
+  EXPECT_EQ(r.log.find("chatty trial 4"), std::string::npos);
+  EXPECT_EQ(r.own_output.find("chatty"), std::string::npos);
+  std::filesystem::remove_all(dir);
+}
+
+// A stop request ends the wait for a hanging plug-in at once: the estimate fails as stopped
+// (the runner then drops the unit), not after the 60 s timeout; the next trial gets a new helper.
+TEST(EstimatorHost, StopRequestEndsAWaitForAHangingPlugin) {
+  const auto sentinel = std::filesystem::temp_directory_path() /
+                        ("freegap-test-estimate-hang-" + std::to_string(::getpid()));
+  ::setenv("FREEGAP_TEST_PLUGIN_HANG", sentinel.c_str(), 1);
+  estimate::EstimatorSet set(job::parse_job(job_text(library_estimator("hang", 60)), "j.toml"));
+  std::atomic<bool> stop{false};
+  set.set_stop_check([&stop] { return stop.load(); });
+  std::thread signaller([&stop] {
+    std::this_thread::sleep_for(std::chrono::milliseconds(300));
+    stop = true;
+  });
+  std::vector<double> values;
+  std::vector<std::string> reasons;
+  set.run(input(1), values, reasons);  // trial 1 hangs
+  signaller.join();
+  ::unsetenv("FREEGAP_TEST_PLUGIN_HANG");
+  EXPECT_EQ(reasons, (std::vector<std::string>{"stopped: the run was asked to stop"}));
+  EXPECT_EQ(slurp(sentinel), "hanging on trial 1\n");  // it did hang
+  std::filesystem::remove(sentinel);
+  stop = false;
+  set.run(input(1), values, reasons);  // a new helper, without the variable: it answers
+  EXPECT_EQ(reasons, (std::vector<std::string>{""}));
+  EXPECT_EQ(values, (std::vector<double>{kMeanSquare, kTop}));
 }
 
 }  // namespace

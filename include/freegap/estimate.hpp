@@ -4,13 +4,16 @@
 // one estimator on one trial — a crash, a hang past its timeout, a NaN, a wrong count, malformed
 // output — is that trial's recorded failure, never the run's (src/estimate/PLUGINS.md).
 //
-// Containment: a plug-in library runs in a helper process forked from the rank once (and again
-// after a failure), fed trials through a socket pair (and, for a plug-in that reads the matrix,
-// shared memory it maps read-only), so a segfault or a hang kills the helper, not the rank; a
-// command is a new process per trial. Built-ins are freegap's own code and run in the rank.
+// Containment: a plug-in library is loaded, described and run only in a helper process, the
+// program freegap-plugin-host that the rank starts per library estimator (again after a
+// failure), fed trials through a socket pair (and, for a plug-in that reads the matrix, shared
+// memory it maps read-only), so a segfault, a hang or an exit ends the helper, not the rank, and
+// what the plug-in prints goes to a log beside the run file; a command is a new process per
+// trial. Built-ins are freegap's own code and run in the rank.
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <memory>
 #include <span>
 #include <string>
@@ -51,6 +54,15 @@ struct Outcome {
 /// being copied again or sent through a socket. Defined in estimate.cpp.
 class SharedMatrixMemory;
 
+/// Where plug-ins' standard output and error go: a log beside the run file. Defined in
+/// estimate.cpp.
+class PluginLog;
+
+/// The log of a run file's plug-in output: `<run file>.estimators.log`.
+std::string plugin_log_path(const std::string& run_file);
+/// The log grows to at most this many bytes (then a note says the rest is dropped).
+constexpr std::size_t kPluginLogLimit = std::size_t{16} << 20;
+
 class Estimator {
  public:
   virtual ~Estimator() = default;
@@ -60,13 +72,22 @@ class Estimator {
   virtual bool wants_matrix() const { return false; }
   /// Hands over the memory the set keeps trials' matrices in (for estimators that want them).
   virtual void share_matrix_memory(std::shared_ptr<SharedMatrixMemory> memory) { (void)memory; }
+  /// A wait for a plug-in or command ends (the trial failed, "stopped: ...") soon after
+  /// `requested` turns true, instead of at the estimator's timeout.
+  virtual void set_stop_check(std::function<bool()> requested) { (void)requested; }
 };
 
-/// Opens one estimator of `job` in this process: finds the built-in, or loads the library and
-/// checks its ABI version, entry points and declared names against the job's truth table, or
+/// Opens one estimator of `job`: finds the built-in, or starts the library's helper process,
+/// which loads it and describes it (this process never loads a plug-in), and checks its ABI
+/// version, entry points and declared names against the job's truth table — a library whose
+/// loading or describe crashes, hangs past the estimator's timeout or exits is refused too — or
 /// checks the command's program can be found. Throws InputError "file:line: estimator.NAME...:
-/// rule and fix" (docs/design.md rule 6: before the run starts, nothing written).
+/// rule and fix" (docs/design.md rule 6: before the run starts, nothing written), or Error if the helper program cannot
+/// be started. A library estimator opened alone discards its plug-in's output.
 std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index);
+/// The same, with the plug-in's output going to `log`.
+std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index,
+                                          std::shared_ptr<PluginLog> log);
 
 /// Every estimator of a job, in job order, and the flat layout of their results: estimate
 /// columns are the estimators' estimates in order (estimator 0's, then 1's, ...).
@@ -75,6 +96,19 @@ class EstimatorSet {
   EstimatorSet() = default;
   /// Opens every estimator (throws InputError like open_estimator).
   explicit EstimatorSet(const job::Job& job);
+  ~EstimatorSet();
+  EstimatorSet(EstimatorSet&&) = default;
+  EstimatorSet& operator=(EstimatorSet&&) = default;
+
+  /// A wait for a plug-in or a command ends within 0.1 s of `requested` turning true (a stop
+  /// signal): the trial's estimate fails with "stopped: the run was asked to stop", and the
+  /// caller drops the unit.
+  void set_stop_check(std::function<bool()> requested);
+  /// From now on, and for what they printed before (held in memory, up to the limit), the
+  /// plug-ins' standard output and error are appended to `path`, created at the first line;
+  /// until then nothing is written anywhere. Each line is prefixed "ESTIMATOR[PID] out: " or
+  /// "ESTIMATOR[PID] err: " (the helper's process id, the stream).
+  void log_plugin_output_to(const std::string& path, std::size_t limit_bytes = kPluginLogLimit);
 
   bool empty() const { return estimators_.empty(); }
   std::size_t estimator_count() const { return estimators_.size(); }
@@ -100,6 +134,7 @@ class EstimatorSet {
   std::size_t columns_ = 0;
   bool wants_matrix_ = false;
   std::shared_ptr<SharedMatrixMemory> matrix_memory_;
+  std::shared_ptr<PluginLog> log_;
 };
 
 // ---- built-ins ---------------------------------------------------------------------------------

@@ -1,13 +1,16 @@
 /* The plug-in estimator interface: a plain-C ABI for shared libraries that freegap loads with
- * dlopen and calls on every trial of a run, on every rank. Usable from C and C++.
+ * dlopen, in a helper process of each rank, and calls on every trial of a run. Usable from C and
+ * C++.
  *
  * A plug-in exports two functions with C linkage:
  *
  *   const freegap_estimator_info* freegap_estimator_describe(void);
  *       Returns static data: the ABI version the plug-in was built against and the names of the
- *       scalar estimates it returns, in the order it writes them. Called once per process when
- *       the job is checked, before any trial; it must not fail, allocate per call or have side
- *       effects.
+ *       scalar estimates it returns, in the order it writes them. Called once per helper process
+ *       (when the job is checked, before any trial, and again when a helper is replaced); it
+ *       must return the same data every time, and must not fail, allocate per call, have side
+ *       effects or take longer than the estimator's timeout (a crash, hang or exit refuses the
+ *       job).
  *
  *   int freegap_estimator_estimate(const freegap_trial* trial, double* estimates, int capacity,
  *                                  char* message, int message_size);
@@ -25,14 +28,16 @@
  *   - estimate names are letters, digits and '_', starting with a letter, at most 64 characters,
  *     no name twice, 1..FREEGAP_ESTIMATOR_MAX_ESTIMATES of them; the job file's [estimator.truth]
  *     table must name exactly these estimates;
- *   - the call runs in a helper process of the rank (one per estimator per rank), so a crash, a
- *     hang past the job's timeout, a NaN or infinite value, or a return value other than the
- *     declared count marks that trial's estimates failed with the reason, and the run goes on;
+ *   - the call runs in a helper process of the rank (one per estimator per rank), so a crash, an
+ *     exit, a hang past the job's timeout, a NaN or infinite value, or a return value other than
+ *     the declared count marks that trial's estimates failed with the reason, and the run goes
+ *     on; what the plug-in prints goes to the run's log RUN.estimators.log;
  *   - estimates must be a deterministic function of the trial's input (spectrum, matrix, N,
  *     trial index, seed, parameters) for results to be the same on any number of ranks; use the
  *     seed and trial index if the estimator needs random numbers;
- *   - the helper is a fork of the rank: a plug-in must not call MPI, and state kept between calls
- *     in the helper is lost when the helper is restarted after a failure.
+ *   - the helper is a program of its own (freegap-plugin-host), not a copy of the rank: a
+ *     plug-in must not call MPI, and state kept between calls in the helper is lost when the
+ *     helper is restarted after a failure.
  */
 #ifndef FREEGAP_ESTIMATOR_ABI_H
 #define FREEGAP_ESTIMATOR_ABI_H

@@ -1,5 +1,5 @@
 // Estimators that ride along with a run (include/freegap/estimate.hpp): plug-in libraries in a
-// forked helper process, external commands, and the set that runs them on a trial.
+// helper program (src/estimate/host/), external commands, and the set that runs them on a trial.
 #include "freegap/estimate.hpp"
 
 #include <dlfcn.h>
@@ -8,8 +8,8 @@
 #include <signal.h>
 #include <spawn.h>
 #include <sys/mman.h>
-#include <sys/prctl.h>
 #include <sys/socket.h>
+#include <sys/stat.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
@@ -21,18 +21,20 @@
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
+#include <functional>
 #include <limits>
 #include <set>
 
 #include "freegap/errors.hpp"
 #include "freegap/estimator_abi.h"
+#include "plugin_host_protocol.hpp"
 
 extern char** environ;
 
 namespace freegap::estimate {
 
 // A memfd: the rank maps it read-write and writes each trial's matrix into it; plug-in helpers,
-// forked with the descriptor, map it read-only. It only grows, so a helper's older, smaller
+// sent a read-only descriptor of it, map it read-only. It only grows, so a helper's older, smaller
 // mapping stays valid and it remaps when a request needs more.
 class SharedMatrixMemory {
  public:
@@ -52,19 +54,15 @@ class SharedMatrixMemory {
   int fd() const { return fd_; }
   const double* data() const { return data_; }
 
-  // In a freshly forked helper: drops the rank's writable mapping and returns a read-only
-  // descriptor of the memory (a new open of it, so not even mprotect can make a mapping of it
-  // writable), or a copy of the rank's descriptor where /proc is not there to reopen it. Either
-  // way the plug-in cannot change the matrix another estimator of the rank reads next.
-  int read_only_in_child() const {
-    if (data_ != nullptr) ::munmap(data_, bytes_);
+  // A new read-only descriptor of the memory for a plug-in host (a new open of it, so not even
+  // mprotect can make a mapping of it writable), or a copy of the rank's descriptor where /proc
+  // is not there to reopen it. The host never has a writable mapping: the plug-in cannot change
+  // the matrix another estimator of the rank reads next.
+  int read_only_descriptor() const {
     char path[64];
     std::snprintf(path, sizeof path, "/proc/self/fd/%d", fd_);
-    const int fd = ::open(path, O_RDONLY);
-    if (fd < 0) return ::fcntl(fd_, F_DUPFD, 10);
-    const int high = ::fcntl(fd, F_DUPFD, 10);  // above the descriptors about to be set
-    ::close(fd);
-    return high;
+    const int fd = ::open(path, O_RDONLY | O_CLOEXEC);
+    return fd >= 0 ? fd : ::fcntl(fd_, F_DUPFD_CLOEXEC, 0);
   }
 
   double* reserve(std::size_t doubles) {
@@ -94,6 +92,7 @@ class SharedMatrixMemory {
 
 namespace {
 
+using host::Request;
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 using Clock = std::chrono::steady_clock;
 
@@ -221,192 +220,224 @@ bool send_all(int fd, const void* data, std::size_t size) {
   return true;
 }
 
-enum class ReadStatus { ok, closed, timeout };
-
-// Reads exactly `size` bytes before `deadline`.
-ReadStatus recv_all(int fd, void* data, std::size_t size, Clock::time_point deadline) {
-  char* p = static_cast<char*>(data);
-  while (size > 0) {
-    const auto left =
-        std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now()).count();
-    if (left <= 0) return ReadStatus::timeout;
-    pollfd pfd{fd, POLLIN, 0};
-    const int ready = ::poll(&pfd, 1, static_cast<int>(std::min<long long>(left, 1 << 30)));
-    if (ready < 0 && errno == EINTR) continue;
-    if (ready < 0) return ReadStatus::closed;
-    if (ready == 0) continue;  // the deadline check above ends the loop
-    const ssize_t k = ::recv(fd, p, size, 0);
-    if (k < 0 && errno == EINTR) continue;
-    if (k <= 0) return ReadStatus::closed;
-    p += k;
-    size -= static_cast<std::size_t>(k);
-  }
-  return ReadStatus::ok;
-}
-
-// Blocking read for the helper side; false on end of file.
-bool read_exact(int fd, void* data, std::size_t size) {
-  char* p = static_cast<char*>(data);
-  while (size > 0) {
-    const ssize_t k = ::read(fd, p, size);
-    if (k < 0 && errno == EINTR) continue;
-    if (k <= 0) return false;
-    p += k;
-    size -= static_cast<std::size_t>(k);
-  }
-  return true;
-}
-
 // ---- plug-in libraries -------------------------------------------------------------------------
 
-// One trial for the helper: this header, then `length` spectrum values. The matrix, when the
-// plug-in asked for it, is at the start of the shared memory (rows · cols doubles, twice that
-// for a complex one), which the helper has mapped as descriptor 4.
-struct Request {
-  std::uint64_t trial;
-  std::uint64_t seed;
-  std::int64_t n;
-  std::int64_t length;
-  std::int32_t kind;
-  std::int32_t matrix_is_complex;
-  std::int64_t matrix_rows;  // 0 without a matrix
-  std::int64_t matrix_cols;
+// Where the plug-in host program is: FREEGAP_PLUGIN_HOST if set, else beside the running
+// executable (freegap and freegap-plugin-host are built and installed side by side), else where
+// this build put it (test programs run from other directories).
+std::string plugin_host_path() {
+  if (const char* env = std::getenv("FREEGAP_PLUGIN_HOST"); env != nullptr && *env != '\0') {
+    return env;
+  }
+  std::error_code ec;
+  const auto self = std::filesystem::read_symlink("/proc/self/exe", ec);
+  if (!ec) {
+    const auto beside = (self.parent_path() / host::kHostProgram).string();
+    if (::access(beside.c_str(), X_OK) == 0) return beside;
+  }
+#ifdef FREEGAP_PLUGIN_HOST_BUILT
+  if (::access(FREEGAP_PLUGIN_HOST_BUILT, X_OK) == 0) return FREEGAP_PLUGIN_HOST_BUILT;
+#endif
+  throw Error(std::string("cannot find the program ") + host::kHostProgram +
+              ", which runs plug-in estimators (looked beside the running program" +
+              (ec ? "" : " in " + self.parent_path().string()) +
+              "); build it with freegap, or set FREEGAP_PLUGIN_HOST to its path");
+}
+
+std::string read_text(std::string_view payload, std::size_t& at, std::size_t length) {
+  if (at + length > payload.size()) return {};
+  std::string s(payload.substr(at, length));
+  at += length;
+  return s;
+}
+
+std::uint32_t read_u32(std::string_view payload, std::size_t& at) {
+  std::uint32_t x = 0;
+  if (at + 4 <= payload.size()) std::memcpy(&x, payload.data() + at, 4);
+  at += 4;
+  return x;
+}
+
+// A running plug-in host: its process, the socket to it and the read ends of the pipes its
+// standard output and error go to. Ends the process when destroyed.
+struct HostProcess {
+  pid_t pid = -1;
+  Fd sock;
+  Fd output[2];  // standard output, standard error
+  bool matrix_sent = false;
+
+  HostProcess() = default;
+  HostProcess(const HostProcess&) = delete;
+  HostProcess& operator=(const HostProcess&) = delete;
+  ~HostProcess() { end(true); }
+
+  bool running() const { return pid > 0; }
+
+  // Ends the process: closes the socket (an idle host exits at once), waits up to a second
+  // unless `kill_now`, then SIGKILL. Returns its wait status (0 if none was running).
+  int end(bool kill_now) {
+    if (pid <= 0) return 0;
+    sock.reset();
+    int status = 0;
+    if (!kill_now) {
+      for (int i = 0; i < 200; ++i) {
+        if (::waitpid(pid, &status, WNOHANG) == pid) {
+          pid = -1;
+          return status;
+        }
+        ::usleep(5000);
+      }
+    }
+    ::kill(pid, SIGKILL);
+    while (::waitpid(pid, &status, 0) < 0 && errno == EINTR) {
+    }
+    pid = -1;
+    return status;
+  }
 };
 
-struct Response {
-  std::int32_t status;  // values written, or < 0: the plug-in reported failure
-  std::uint32_t message_length;
-};
+}  // namespace
 
-constexpr int kMessageSize = 512;
+// The log beside the run file that plug-ins' standard output and error go to
+// (src/estimate/PLUGINS.md): appended by every rank, created at the first line, bounded.
+class PluginLog {
+ public:
+  // Output before the log has a place (the plug-ins' loading and describe, before the run file
+  // is accepted) is held, up to the limit, and written when it gets one; never, for freegap plan
+  // and run --explain.
+  void open(const std::string& path, std::size_t limit) {
+    path_ = path;
+    limit_ = limit;
+    std::string held = std::move(held_);
+    held_.clear();
+    if (!held.empty()) write(held);
+    if (held_dropped_) note();
+  }
 
-// The helper process: answers requests until the rank closes its end of the socket. Never
-// returns; never calls MPI or anything that flushes the rank's stdio buffers.
-[[noreturn]] void serve(int fd, int matrix_fd, freegap_estimator_estimate_fn estimate,
-                        int capacity, const std::vector<freegap_parameter>& parameters) {
-  std::vector<double> spectrum;
-  const void* matrix = nullptr;  // the shared memory, mapped read-only
-  std::size_t matrix_bytes = 0;
-  std::vector<double> out(static_cast<std::size_t>(capacity));
-  constexpr std::int64_t kMost = std::int64_t{1} << 34;  // a sanity bound, not a limit in use
-  for (;;) {
-    Request req{};
-    if (!read_exact(fd, &req, sizeof req)) ::_exit(0);
-    if (req.length < 0 || req.length > kMost || req.matrix_rows < 0 || req.matrix_cols < 0 ||
-        req.matrix_rows > kMost ||
-        req.matrix_cols > kMost / std::max<std::int64_t>(1, req.matrix_rows)) {
-      ::_exit(3);
+  void write(std::string_view text) {
+    if (full_ || text.empty()) return;
+    if (path_.empty()) {
+      if (held_.size() + text.size() > limit_) {
+        held_dropped_ = true;
+      } else {
+        held_.append(text);
+      }
+      return;
     }
-    spectrum.resize(static_cast<std::size_t>(req.length));
-    if (!read_exact(fd, spectrum.data(), spectrum.size() * sizeof(double))) ::_exit(0);
-    const std::size_t need = static_cast<std::size_t>(req.matrix_rows * req.matrix_cols) *
-                             (req.matrix_is_complex ? 2u : 1u) * sizeof(double);
-    if (need > matrix_bytes) {
-      if (matrix_fd < 0) ::_exit(3);
-      void* p = ::mmap(nullptr, need, PROT_READ, MAP_SHARED, matrix_fd, 0);
-      if (p == MAP_FAILED) ::_exit(5);
-      if (matrix != nullptr) ::munmap(const_cast<void*>(matrix), matrix_bytes);
-      matrix = p;
-      matrix_bytes = need;
+    if (!ensure_open()) return;
+    struct stat st {};
+    if (::fstat(fd_.get(), &st) != 0) return;
+    if (static_cast<std::size_t>(st.st_size) + text.size() > limit_) {
+      note();
+      return;
     }
-    freegap_trial trial{};
-    trial.abi_version = FREEGAP_ESTIMATOR_ABI_VERSION;
-    trial.spectrum_kind = req.kind;
-    trial.n = req.n;
-    trial.trial = req.trial;
-    trial.seed = req.seed;
-    trial.spectrum = spectrum.data();
-    trial.spectrum_length = req.length;
-    trial.parameters = parameters.data();
-    trial.parameter_count = static_cast<std::int64_t>(parameters.size());
-    if (req.matrix_rows > 0) {
-      trial.matrix = static_cast<const double*>(matrix);
-      trial.matrix_rows = req.matrix_rows;
-      trial.matrix_cols = req.matrix_cols;
-      trial.matrix_is_complex = req.matrix_is_complex != 0 ? 1 : 0;
+    append(text);
+  }
+
+ private:
+  bool ensure_open() {
+    if (fd_.get() < 0 && !failed_) {
+      fd_ = Fd(::open(path_.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644));
+      failed_ = fd_.get() < 0;  // nowhere to put it: plug-in output is dropped, never shown
     }
-    char message[kMessageSize] = {};
-    std::fill(out.begin(), out.end(), kNaN);
-    const int status = estimate(&trial, out.data(), capacity, message, kMessageSize);
-    message[kMessageSize - 1] = '\0';
-    Response resp{status, static_cast<std::uint32_t>(std::strlen(message))};
-    const std::size_t count =
-        status > 0 ? static_cast<std::size_t>(std::min(status, capacity)) : 0;
-    if (!send_all(fd, &resp, sizeof resp) || !send_all(fd, out.data(), count * sizeof(double)) ||
-        !send_all(fd, message, resp.message_length)) {
-      ::_exit(0);
+    return fd_.get() >= 0;
+  }
+  void append(std::string_view text) {
+    while (!text.empty()) {
+      const ssize_t k = ::write(fd_.get(), text.data(), text.size());
+      if (k < 0 && errno == EINTR) continue;
+      if (k <= 0) return;
+      text.remove_prefix(static_cast<std::size_t>(k));
     }
   }
-}
+  // Said once per process: this process writes no more plug-in output to the log.
+  void note() {
+    if (full_ || !ensure_open()) return;
+    full_ = true;
+    append("freegap: this log reached its limit of " + std::to_string(limit_) +
+           " bytes; further plug-in output of process " + std::to_string(::getpid()) +
+           " is dropped\n");
+  }
+
+  std::string path_;
+  std::size_t limit_ = kPluginLogLimit;
+  Fd fd_;
+  bool failed_ = false;
+  bool full_ = false;
+  std::string held_;
+  bool held_dropped_ = false;
+};
+
+namespace {
 
 class LibraryEstimator final : public Estimator {
  public:
-  LibraryEstimator(const job::Job& job, const job::EstimatorSpec& spec) : spec_(spec) {
+  LibraryEstimator(const job::Job& job, const job::EstimatorSpec& spec,
+                   std::shared_ptr<PluginLog> log)
+      : spec_(spec), log_(std::move(log)) {
     const std::string at = where(job, spec, "library");
     // The job names a file (beside the job file when relative); dlopen would look a bare file
     // name up on the system's library path instead.
-    const std::string file =
-        spec.library.find('/') == std::string::npos ? "./" + spec.library : spec.library;
-    handle_ = ::dlopen(file.c_str(), RTLD_NOW | RTLD_LOCAL);
-    if (handle_ == nullptr) {
-      const char* why = ::dlerror();
-      throw InputError(at + "cannot load '" + spec.library + "' (" + (why ? why : "unknown") +
-                       "); give the path of a shared library built against "
-                       "include/freegap/estimator_abi.h");
-    }
-    auto describe = reinterpret_cast<freegap_estimator_describe_fn>(
-        ::dlsym(handle_, FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL));
-    estimate_ = reinterpret_cast<freegap_estimator_estimate_fn>(
-        ::dlsym(handle_, FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL));
-    for (const auto& [fn, symbol] :
-         {std::pair<const void*, const char*>{reinterpret_cast<const void*>(describe),
-                                              FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL},
-          {reinterpret_cast<const void*>(estimate_), FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL}}) {
-      if (fn == nullptr) {
-        throw InputError(at + "'" + spec.library + "' does not export " + symbol +
-                         "; define it with C linkage as declared in "
+    file_ = spec.library.find('/') == std::string::npos ? "./" + spec.library : spec.library;
+    host_path_ = plugin_host_path();
+    // The library is loaded and described in a host process, never in this one: a library
+    // whose loading or describe crashes, hangs or exits is refused here, before the run.
+    std::string why;
+    if (!start_host(why)) throw Error("cannot start the plug-in's host process (" + why + ")");
+    const std::string lib = "'" + spec.library + "'";
+    std::string payload;
+    switch (await_description(payload, why)) {
+      case Described::ok:
+        break;
+      case Described::cannot_load:
+        throw InputError(at + "cannot load " + lib + " (" + why +
+                         "); give the path of a shared library built against "
                          "include/freegap/estimator_abi.h");
-      }
+      case Described::refused:
+        throw InputError(at + lib + why);
+      case Described::failed:
+      case Described::stopped:  // not before set_stop_check
+        throw InputError(at + lib + ": " + why +
+                         "; fix the plug-in: loading it and " FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL
+                         " must only return static data");
     }
-    const freegap_estimator_info* info = describe();
-    if (info == nullptr) {
-      throw InputError(at + "'" + spec.library + "': " FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL
-                            " returned NULL; return a pointer to static freegap_estimator_info");
-    }
-    if (info->abi_version < FREEGAP_ESTIMATOR_ABI_OLDEST ||
-        info->abi_version > FREEGAP_ESTIMATOR_ABI_VERSION) {
-      throw InputError(at + "'" + spec.library + "' was built for plug-in ABI version " +
-                       std::to_string(info->abi_version) + ", this freegap loads versions " +
+    description_ = payload;
+    std::size_t pos = 0;
+    const std::uint32_t version = read_u32(payload, pos);
+    const auto count = static_cast<std::int32_t>(read_u32(payload, pos));
+    const std::uint32_t wants = read_u32(payload, pos);
+    const std::uint32_t flags = read_u32(payload, pos);
+    const std::uint32_t sent = read_u32(payload, pos);
+    if (version < FREEGAP_ESTIMATOR_ABI_OLDEST || version > FREEGAP_ESTIMATOR_ABI_VERSION) {
+      throw InputError(at + lib + " was built for plug-in ABI version " + std::to_string(version) +
+                       ", this freegap loads versions " +
                        std::to_string(FREEGAP_ESTIMATOR_ABI_OLDEST) + " to " +
                        std::to_string(FREEGAP_ESTIMATOR_ABI_VERSION) +
                        "; rebuild it against this freegap's include/freegap/estimator_abi.h");
     }
-    // Version 1's info ends before `wants`: read it only from version 2 on.
-    const std::uint32_t wants = info->abi_version >= 2 ? info->wants : 0u;
+    // The host reads `wants` only from version 2 on (version 1's info ends before it).
     if ((wants & ~FREEGAP_WANTS_MATRIX) != 0) {
-      throw InputError(at + "'" + spec.library + "' asks for input this freegap does not know " +
+      throw InputError(at + lib + " asks for input this freegap does not know " +
                        "(wants = " + std::to_string(wants) + "; known: FREEGAP_WANTS_MATRIX = " +
                        std::to_string(FREEGAP_WANTS_MATRIX) + "); clear the unknown bits");
     }
     wants_matrix_ = (wants & FREEGAP_WANTS_MATRIX) != 0;
-    if (info->estimate_count < 1 || info->estimate_count > FREEGAP_ESTIMATOR_MAX_ESTIMATES ||
-        info->estimate_names == nullptr) {
-      throw InputError(at + "'" + spec.library + "' declares " +
-                       std::to_string(info->estimate_count) + " estimates; declare 1 to " +
+    if (count < 1 || count > FREEGAP_ESTIMATOR_MAX_ESTIMATES || (flags & host::kNamesNull) != 0) {
+      throw InputError(at + lib + " declares " + std::to_string(count) +
+                       " estimates; declare 1 to " +
                        std::to_string(FREEGAP_ESTIMATOR_MAX_ESTIMATES) + " names");
     }
+    if ((flags & host::kNameNull) != 0) {
+      throw InputError(at + lib + " declares a NULL estimate name");
+    }
     std::vector<std::string> names;
-    for (int i = 0; i < info->estimate_count; ++i) {
-      const char* name = info->estimate_names[i];
-      if (name == nullptr) {
-        throw InputError(at + "'" + spec.library + "' declares a NULL estimate name");
-      }
-      names.emplace_back(name);
+    for (std::uint32_t i = 0; i < sent; ++i) {
+      const std::uint32_t length = read_u32(payload, pos);
+      names.push_back(read_text(payload, pos, length));
     }
     std::set<std::string> distinct(names.begin(), names.end());
     if (distinct.size() != names.size()) {
-      throw InputError(at + "'" + spec.library + "' declares an estimate name twice (" +
-                       join_names(names) + ")");
+      throw InputError(at + lib + " declares an estimate name twice (" + join_names(names) + ")");
     }
     check_names(job, spec, names, "the plug-in");
     // Declared order → the spec's sorted order.
@@ -415,20 +446,20 @@ class LibraryEstimator final : public Estimator {
           std::lower_bound(spec.estimates.begin(), spec.estimates.end(), name) -
           spec.estimates.begin()));
     }
-    for (const auto& [key, value] : spec_.parameters) {
-      parameters_.push_back({key.c_str(), value.c_str()});
-    }
   }
 
   ~LibraryEstimator() override {
-    stop_helper(false);
-    // The library stays loaded: a plug-in's static destructors may run at exit, not here.
+    host_.end(false);
+    take_output(true);
   }
 
   bool wants_matrix() const override { return wants_matrix_; }
   void share_matrix_memory(std::shared_ptr<SharedMatrixMemory> memory) override {
-    if (wants_matrix_ && pid_ <= 0) matrix_memory_ = std::move(memory);
+    if (!wants_matrix_ || memory == matrix_memory_) return;
+    matrix_memory_ = std::move(memory);
+    host_.matrix_sent = false;
   }
+  void set_stop_check(std::function<bool()> requested) override { stop_ = std::move(requested); }
 
   Outcome estimate(const TrialInput& input) override {
     const std::size_t count = spec_.estimates.size();
@@ -436,16 +467,31 @@ class LibraryEstimator final : public Estimator {
       if (input.matrix.data == nullptr) {
         return failed("the plug-in asks for the matrix, and this trial has none to give", count);
       }
-      // Created before the helper is forked, which inherits it (throws Error: a failed trial).
-      if (!matrix_memory_) matrix_memory_ = std::make_shared<SharedMatrixMemory>();
+      if (!matrix_memory_) share_matrix_memory(std::make_shared<SharedMatrixMemory>());
       // The runner writes it there already (EstimatorSet::matrix_buffer); anyone else's is copied.
       if (input.matrix.data != matrix_memory_->data()) {
         std::memcpy(matrix_memory_->reserve(input.matrix.doubles()), input.matrix.data,
                     input.matrix.doubles() * sizeof(double));
       }
     }
-    if (pid_ <= 0 && !start_helper()) {
-      return failed("could not start the plug-in's helper process (" + start_error_ + ")", count);
+    if (!host_.running()) {
+      // A new host after a failure: it loads the library again and must describe it as before.
+      std::string why, payload;
+      if (!start_host(why)) {
+        return failed("could not start the plug-in's host process (" + why + ")", count);
+      }
+      const Described d = await_description(payload, why);
+      if (d == Described::stopped) return stopped(count);
+      if (d != Described::ok) {
+        return failed("plug-in could not be loaded again after a failure: " + why, count);
+      }
+      if (payload != description_) {
+        host_.end(true);
+        return failed(
+            "plug-in described itself differently when loaded again; describe must "
+            "return the same static data every time",
+            count);
+      }
     }
     Request req{};
     req.trial = input.trial;
@@ -459,40 +505,51 @@ class LibraryEstimator final : public Estimator {
       req.matrix_cols = input.matrix.cols;
       req.matrix_is_complex = input.matrix.is_complex ? 1 : 0;
     }
-    const auto deadline =
-        Clock::now() + std::chrono::duration_cast<Clock::duration>(
-                           std::chrono::duration<double>(spec_.timeout));
-    if (!send_all(sock_.get(), &req, sizeof req) ||
-        !send_all(sock_.get(), input.spectrum.data(), input.spectrum.size() * sizeof(double))) {
+    if (!send_request(req) || !send_all(host_.sock.get(), input.spectrum.data(),
+                                        input.spectrum.size() * sizeof(double))) {
       return failed("plug-in " + ended(), count);
     }
-    Response resp{};
-    ReadStatus st = recv_all(sock_.get(), &resp, sizeof resp, deadline);
-    std::vector<double> got;
-    std::string message;
-    if (st == ReadStatus::ok) {
-      const std::size_t k = resp.status > 0 ? static_cast<std::size_t>(
-                                                  std::min<int>(resp.status, static_cast<int>(count)))
-                                            : 0;
-      got.resize(k);
-      st = recv_all(sock_.get(), got.data(), k * sizeof(double), deadline);
-      if (st == ReadStatus::ok && resp.message_length > 0) {
-        message.resize(std::min<std::uint32_t>(resp.message_length, kMessageSize));
-        st = recv_all(sock_.get(), message.data(), message.size(), deadline);
-      }
-    }
+    const auto deadline = Clock::now() + std::chrono::duration_cast<Clock::duration>(
+                                             std::chrono::duration<double>(spec_.timeout));
+    host::Message m{};
+    std::string payload;
+    const ReadStatus st = receive(m, payload, deadline);
+    if (st == ReadStatus::stopped) return stopped(count);
     if (st == ReadStatus::timeout) {
-      stop_helper(true);
+      host_.end(true);
+      take_output(true);
       return failed("plug-in did not answer within the timeout of " + seconds_text(spec_.timeout) +
                         " s; its helper process was stopped",
                     count);
     }
     if (st == ReadStatus::closed) return failed("plug-in " + ended(), count);
-    if (resp.status < 0) {
+    if (m.kind == host::kExited) {
+      host_.end(false);
+      take_output(true);
+      return failed("plug-in called exit(" + std::to_string(m.status) + ")", count);
+    }
+    if (m.kind != host::kAnswer) {
+      host_.end(true);
+      take_output(true);
+      return failed("plug-in's helper sent something other than an answer", count);
+    }
+    // What the plug-in printed for this trial was flushed before its answer, so the wait for
+    // the answer has already moved it to the log.
+    const std::size_t k =
+        m.status > 0 ? static_cast<std::size_t>(std::min<int>(m.status, static_cast<int>(count)))
+                     : 0;
+    if (payload.size() < k * sizeof(double)) {
+      host_.end(true);
+      return failed("plug-in's helper sent a short answer", count);
+    }
+    std::vector<double> got(k);
+    std::memcpy(got.data(), payload.data(), k * sizeof(double));
+    const std::string message = payload.substr(k * sizeof(double));
+    if (m.status < 0) {
       return failed("plug-in reported failure" + (message.empty() ? "" : ": " + message), count);
     }
-    if (static_cast<std::size_t>(resp.status) != count) {
-      return failed("plug-in returned " + std::to_string(resp.status) + " value(s), declared " +
+    if (static_cast<std::size_t>(m.status) != count) {
+      return failed("plug-in returned " + std::to_string(m.status) + " value(s), declared " +
                         std::to_string(count),
                     count);
     }
@@ -502,94 +559,314 @@ class LibraryEstimator final : public Estimator {
   }
 
  private:
-  bool start_helper() {
+  enum class Described { ok, cannot_load, refused, failed, stopped };
+
+  // Starts a host for this library: a fresh program (posix_spawn, which neither copies the
+  // rank's memory nor runs anything of the rank in the child), so nothing of an MPI rank — its
+  // threads, locks, exit handlers, open files — is in the process the plug-in runs in.
+  bool start_host(std::string& why) {
     int pair[2];
     if (::socketpair(AF_UNIX, SOCK_STREAM | SOCK_CLOEXEC, 0, pair) != 0) {
-      start_error_ = std::strerror(errno);
+      why = std::string("socketpair: ") + std::strerror(errno);
       return false;
     }
     Fd mine(pair[0]), theirs(pair[1]);
-    const pid_t parent = ::getpid();
-    const pid_t pid = ::fork();
-    if (pid < 0) {
-      start_error_ = std::strerror(errno);
+    int pipe_fds[2];
+    if (::pipe2(pipe_fds, O_CLOEXEC) != 0) {
+      why = std::string("pipe: ") + std::strerror(errno);
       return false;
     }
-    if (pid == 0) {
-      // The helper: dies with the rank, ignores the stop signals meant for the rank (the rank
-      // decides when to stop and closes the socket), and serves until end of file.
-      ::prctl(PR_SET_PDEATHSIG, SIGKILL);
-      if (::getppid() != parent) ::_exit(0);
-      ::signal(SIGINT, SIG_IGN);
-      ::signal(SIGTERM, SIG_IGN);
-      ::signal(SIGUSR1, SIG_IGN);
-      ::signal(SIGPIPE, SIG_IGN);
-      // The rank's crash handlers (MPI libraries print a backtrace) are not the helper's: a
-      // crashing plug-in dies quietly and the rank records the signal.
-      for (int s : {SIGSEGV, SIGBUS, SIGFPE, SIGILL, SIGABRT}) ::signal(s, SIG_DFL);
-      mine.reset();
-      // Hold none of the rank's descriptors (the run file and its lock, MPI's sockets): only
-      // standard input, output, error, the socket (moved to descriptor 3) and the shared matrix
-      // memory, read-only (descriptor 4). Both are first moved above 4 so neither dup2 clobbers
-      // the other.
-      const int sock = ::fcntl(theirs.get(), F_DUPFD, 10);
-      const int shared = matrix_memory_ ? matrix_memory_->read_only_in_child() : -1;
-      if (sock < 0 || (matrix_memory_ && shared < 0) || ::dup2(sock, 3) < 0 ||
-          (shared >= 0 && ::dup2(shared, 4) < 0)) {
-        ::_exit(4);
-      }
-      ::close_range(shared >= 0 ? 5 : 4, ~0U, 0);
-      serve(3, shared >= 0 ? 4 : -1, estimate_, static_cast<int>(spec_.estimates.size()),
-            parameters_);
+    Fd out_read(pipe_fds[0]), out_write(pipe_fds[1]);
+    // Standard error apart from standard output: a line of either is never split by the other
+    // (standard output is buffered in the plug-in, standard error is not).
+    if (::pipe2(pipe_fds, O_CLOEXEC) != 0) {
+      why = std::string("pipe: ") + std::strerror(errno);
+      return false;
     }
-    pid_ = pid;
-    sock_ = std::move(mine);
+    Fd err_read(pipe_fds[0]), err_write(pipe_fds[1]);
+    // Above the descriptors about to be set, so no dup2 clobbers another's source.
+    Fd sock_high(::fcntl(theirs.get(), F_DUPFD_CLOEXEC, 10));
+    Fd out_high(::fcntl(out_write.get(), F_DUPFD_CLOEXEC, 10));
+    Fd err_high(::fcntl(err_write.get(), F_DUPFD_CLOEXEC, 10));
+    if (sock_high.get() < 0 || out_high.get() < 0 || err_high.get() < 0) {
+      why = std::string("fcntl: ") + std::strerror(errno);
+      return false;
+    }
+    posix_spawn_file_actions_t actions;
+    posix_spawn_file_actions_init(&actions);
+    posix_spawn_file_actions_addopen(&actions, 0, "/dev/null", O_RDONLY, 0);
+    posix_spawn_file_actions_adddup2(&actions, out_high.get(), 1);
+    posix_spawn_file_actions_adddup2(&actions, err_high.get(), 2);
+    posix_spawn_file_actions_adddup2(&actions, sock_high.get(), 3);
+    // Nothing else of the rank's: not the run file, its lock, MPI's sockets or shared memory.
+    posix_spawn_file_actions_addclosefrom_np(&actions, 4);
+    posix_spawnattr_t attr;
+    posix_spawnattr_init(&attr);
+    sigset_t none, defaults;
+    sigemptyset(&none);
+    sigfillset(&defaults);
+    posix_spawnattr_setsigmask(&attr, &none);
+    posix_spawnattr_setsigdefault(&attr, &defaults);
+    posix_spawnattr_setflags(&attr, POSIX_SPAWN_SETSIGMASK | POSIX_SPAWN_SETSIGDEF);
+    const std::string parent = std::to_string(::getpid());
+    std::vector<char*> argv = {const_cast<char*>(host_path_.c_str()),
+                               const_cast<char*>(file_.c_str()), const_cast<char*>(parent.c_str())};
+    for (const auto& [key, value] : spec_.parameters) {
+      argv.push_back(const_cast<char*>(key.c_str()));
+      argv.push_back(const_cast<char*>(value.c_str()));
+    }
+    argv.push_back(nullptr);
+    pid_t pid = -1;
+    const int rc = ::posix_spawn(&pid, host_path_.c_str(), &actions, &attr, argv.data(), environ);
+    posix_spawn_file_actions_destroy(&actions);
+    posix_spawnattr_destroy(&attr);
+    if (rc != 0) {
+      why = host_path_ + ": " + std::strerror(rc);
+      return false;
+    }
+    ::fcntl(out_read.get(), F_SETFL, O_NONBLOCK);
+    ::fcntl(err_read.get(), F_SETFL, O_NONBLOCK);
+    // The last host's unfinished lines, under its own process id.
+    for (int stream = 0; stream < 2; ++stream) flush_lines(stream, true);
+    output_pid_ = pid;
+    host_.pid = pid;
+    host_.sock = std::move(mine);
+    host_.output[0] = std::move(out_read);
+    host_.output[1] = std::move(err_read);
+    host_.matrix_sent = false;
     return true;
   }
 
-  // How the helper ended (it closed the socket): waits for it and forgets it.
-  std::string ended() {
-    sock_.reset();
-    int status = 0;
-    pid_t got = -1;
+  // Waits for the new host to load the library and describe it. On failure `why` says what
+  // happened, for the job's refusal or the trial's record.
+  Described await_description(std::string& payload, std::string& why) {
+    const auto deadline = Clock::now() + std::chrono::duration_cast<Clock::duration>(
+                                             std::chrono::duration<double>(spec_.timeout));
+    bool loaded = false;
+    for (;;) {
+      host::Message m{};
+      const ReadStatus st = receive(m, payload, deadline);
+      const char* doing = loaded ? FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL : "loading it";
+      if (st == ReadStatus::stopped) {
+        host_.end(true);
+        why = "the run was asked to stop";
+        return Described::stopped;
+      }
+      if (st == ReadStatus::timeout) {
+        host_.end(true);
+        take_output(true);
+        why = std::string(doing) + " did not finish within the estimator's timeout of " +
+              seconds_text(spec_.timeout) + " s";
+        return Described::failed;
+      }
+      if (st == ReadStatus::closed) {
+        const int status = host_.end(false);
+        take_output(true);
+        if (!protocol_error_.empty()) {
+          why = protocol_error_;
+        } else if (WIFSIGNALED(status)) {
+          why = std::string(doing) + " crashed: " + signal_text(WTERMSIG(status));
+        } else {
+          why = std::string(doing) + " ended its process (" + exit_text(status) + ")";
+        }
+        return Described::failed;
+      }
+      switch (m.kind) {
+        case host::kLoaded:
+          loaded = true;
+          continue;
+        case host::kDescribed:
+          take_output(false);
+          return Described::ok;
+        case host::kExited:
+          host_.end(false);
+          take_output(true);
+          why = std::string(doing) + " called exit(" + std::to_string(m.status) + ")";
+          return Described::failed;
+        case host::kLoadFailed:
+          host_.end(false);
+          take_output(true);
+          if (m.status == host::kCannotLoad) {
+            why = payload.empty() ? "unknown" : payload;
+            return Described::cannot_load;
+          }
+          if (m.status == host::kDescribeNull) {
+            why = ": " FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL
+                  " returned NULL; return a pointer to static freegap_estimator_info";
+          } else {
+            why = std::string(" does not export ") +
+                  (m.status == host::kNoDescribe ? FREEGAP_ESTIMATOR_DESCRIBE_SYMBOL
+                                                 : FREEGAP_ESTIMATOR_ESTIMATE_SYMBOL) +
+                  "; define it with C linkage as declared in include/freegap/estimator_abi.h";
+          }
+          return Described::refused;
+        default:
+          host_.end(true);
+          why = "its host sent an unexpected message";
+          return Described::failed;
+      }
+    }
+  }
+
+  // The request header, with the read-only descriptor of the matrix memory the first time the
+  // host needs it.
+  bool send_request(const Request& req) {
+    if (!wants_matrix_ || host_.matrix_sent) return send_all(host_.sock.get(), &req, sizeof req);
+    Fd readonly(matrix_memory_->read_only_descriptor());
+    if (readonly.get() < 0) return false;
+    iovec iov{const_cast<Request*>(&req), sizeof req};
+    alignas(cmsghdr) char control[CMSG_SPACE(sizeof(int))] = {};
+    msghdr msg{};
+    msg.msg_iov = &iov;
+    msg.msg_iovlen = 1;
+    msg.msg_control = control;
+    msg.msg_controllen = sizeof control;
+    cmsghdr* c = CMSG_FIRSTHDR(&msg);
+    c->cmsg_level = SOL_SOCKET;
+    c->cmsg_type = SCM_RIGHTS;
+    c->cmsg_len = CMSG_LEN(sizeof(int));
+    const int fd = readonly.get();
+    std::memcpy(CMSG_DATA(c), &fd, sizeof fd);
+    ssize_t k = -1;
     do {
-      got = ::waitpid(pid_, &status, 0);
-    } while (got < 0 && errno == EINTR);
-    pid_ = -1;
-    if (got < 0) return "helper process vanished";
+      k = ::sendmsg(host_.sock.get(), &msg, MSG_NOSIGNAL);
+    } while (k < 0 && errno == EINTR);
+    if (k <= 0) return false;
+    host_.matrix_sent = true;
+    // The descriptor went with the first byte; the rest of the header follows plainly.
+    return send_all(host_.sock.get(), reinterpret_cast<const char*>(&req) + k,
+                    sizeof req - static_cast<std::size_t>(k));
+  }
+
+  enum class ReadStatus { ok, closed, timeout, stopped };
+
+  // Waits until the socket has something to read, moving the host's output to the log
+  // meanwhile; a stop request ends the wait within kStopLatency.
+  ReadStatus wait_readable(Clock::time_point deadline) {
+    constexpr long long kStopLatency = 100;  // ms
+    for (;;) {
+      if (stop_ && stop_()) return ReadStatus::stopped;
+      const auto left =
+          std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now()).count();
+      if (left <= 0) return ReadStatus::timeout;
+      // A closed pipe's descriptor is -1, which poll skips.
+      pollfd fds[3] = {{host_.sock.get(), POLLIN, 0},
+                       {host_.output[0].get(), POLLIN, 0},
+                       {host_.output[1].get(), POLLIN, 0}};
+      const int ready = ::poll(fds, 3, static_cast<int>(std::min<long long>(left, kStopLatency)));
+      if (ready < 0 && errno != EINTR) return ReadStatus::ok;  // recv reports the error
+      if (ready <= 0) continue;
+      if (fds[1].revents != 0 || fds[2].revents != 0) take_output(false);
+      if (fds[0].revents != 0) return ReadStatus::ok;
+    }
+  }
+
+  ReadStatus recv_all(void* data, std::size_t size, Clock::time_point deadline) {
+    char* p = static_cast<char*>(data);
+    while (size > 0) {
+      const ReadStatus w = wait_readable(deadline);
+      if (w != ReadStatus::ok) return w;
+      const ssize_t k = ::recv(host_.sock.get(), p, size, MSG_DONTWAIT);
+      if (k < 0 && (errno == EINTR || errno == EAGAIN)) continue;
+      if (k <= 0) return ReadStatus::closed;
+      p += k;
+      size -= static_cast<std::size_t>(k);
+    }
+    return ReadStatus::ok;
+  }
+
+  // One message from the host. A message that is not one (the plug-in wrote to descriptor 3)
+  // ends the host: it is reported as closed, with protocol_error_ saying why.
+  ReadStatus receive(host::Message& m, std::string& payload, Clock::time_point deadline) {
+    protocol_error_.clear();
+    ReadStatus st = recv_all(&m, sizeof m, deadline);
+    if (st != ReadStatus::ok) return st;
+    constexpr std::uint32_t kMost = 1u << 20;  // far above any message the host sends
+    if (m.magic != host::kHostMagic || m.length > kMost) {
+      protocol_error_ =
+          "its host sent something else than freegap's plug-in protocol (did the "
+          "plug-in write to descriptor 3, or is " +
+          host_path_ + " from another build?)";
+      host_.end(true);
+      return ReadStatus::closed;
+    }
+    payload.assign(m.length, '\0');
+    return recv_all(payload.data(), payload.size(), deadline);
+  }
+
+  Outcome stopped(std::size_t count) {
+    host_.end(true);
+    take_output(true);
+    return failed("stopped: the run was asked to stop", count);
+  }
+
+  // How the host ended (it closed the socket): waits for it.
+  std::string ended() {
+    const int status = host_.end(false);
+    take_output(true);
+    if (!protocol_error_.empty()) return "failed: " + protocol_error_;
     if (WIFSIGNALED(status)) return "crashed: " + signal_text(WTERMSIG(status));
     return "helper " + exit_text(status);
   }
 
-  void stop_helper(bool kill_now) {
-    if (pid_ <= 0) return;
-    sock_.reset();  // end of file: an idle helper exits at once
-    int status = 0;
-    if (!kill_now) {
-      for (int i = 0; i < 200; ++i) {
-        if (::waitpid(pid_, &status, WNOHANG) == pid_) {
-          pid_ = -1;
-          return;
+  // Moves what the host wrote to its standard output and error into the log, a line at a time,
+  // each line prefixed with the estimator's name, the host's process id and the stream. At
+  // `last` (the host is gone) a line without its end is written too.
+  void take_output(bool last) {
+    for (int stream = 0; stream < 2; ++stream) {
+      Fd& fd = host_.output[stream];
+      if (fd.get() >= 0) {
+        char buf[65536];
+        for (;;) {
+          const ssize_t k = ::read(fd.get(), buf, sizeof buf);
+          if (k > 0) {
+            partial_[stream].append(buf, static_cast<std::size_t>(k));
+            if (partial_[stream].size() > sizeof buf) flush_lines(stream, true);
+            continue;
+          }
+          if (k < 0 && errno == EINTR) continue;
+          // End of file, or nothing more now. A gone host's pipe may still be held open by a
+          // process the plug-in started: stop reading it rather than wait.
+          if (k == 0 || last || errno != EAGAIN) fd.reset();
+          break;
         }
-        ::usleep(5000);
       }
+      flush_lines(stream, last);
     }
-    ::kill(pid_, SIGKILL);
-    while (::waitpid(pid_, &status, 0) < 0 && errno == EINTR) {
+  }
+
+  void flush_lines(int stream, bool whole) {
+    std::string& partial = partial_[stream];
+    if (partial.empty()) return;
+    const std::string prefix =
+        spec_.name + "[" + std::to_string(output_pid_) + "]" + (stream == 0 ? " out: " : " err: ");
+    std::string text;
+    std::size_t start = 0;
+    for (std::size_t nl; (nl = partial.find('\n', start)) != std::string::npos; start = nl + 1) {
+      text += prefix;
+      text.append(partial, start, nl + 1 - start);
     }
-    pid_ = -1;
+    partial.erase(0, start);
+    if (whole && !partial.empty()) {
+      text += prefix + partial + "\n";
+      partial.clear();
+    }
+    log_->write(text);
   }
 
   job::EstimatorSpec spec_;
-  void* handle_ = nullptr;
-  freegap_estimator_estimate_fn estimate_ = nullptr;
+  std::shared_ptr<PluginLog> log_;
+  std::string file_;
+  std::string host_path_;
+  std::string description_;  // as the first host sent it
   std::vector<std::size_t> order_;
-  std::vector<freegap_parameter> parameters_;
-  pid_t pid_ = -1;
-  Fd sock_;
-  std::string start_error_;
   bool wants_matrix_ = false;
   std::shared_ptr<SharedMatrixMemory> matrix_memory_;
+  std::function<bool()> stop_;
+  std::string protocol_error_;
+  std::string partial_[2];  // the host's output and error not yet written to the log
+  pid_t output_pid_ = -1;
+  HostProcess host_;
 };
 
 // ---- external commands -------------------------------------------------------------------------
@@ -618,6 +895,8 @@ class CommandEstimator final : public Estimator {
                        "' (or it is not executable); give its path, or a program on PATH");
     }
   }
+
+  void set_stop_check(std::function<bool()> requested) override { stop_ = std::move(requested); }
 
   Outcome estimate(const TrialInput& input) override {
     const std::size_t count = spec_.estimates.size();
@@ -666,7 +945,7 @@ class CommandEstimator final : public Estimator {
     ::fcntl(in_write.get(), F_SETFL, O_NONBLOCK);
     std::string out, err;
     std::size_t sent = 0;
-    bool timed_out = false;
+    bool timed_out = false, stop = false;
     const auto deadline =
         Clock::now() + std::chrono::duration_cast<Clock::duration>(
                            std::chrono::duration<double>(spec_.timeout));
@@ -675,6 +954,10 @@ class CommandEstimator final : public Estimator {
           std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now()).count();
       if (left <= 0) {
         timed_out = true;
+        break;
+      }
+      if (stop_ && stop_()) {
+        stop = true;
         break;
       }
       pollfd fds[3];
@@ -692,7 +975,9 @@ class CommandEstimator final : public Estimator {
         err_slot = nfds;
         fds[nfds++] = {err_read.get(), POLLIN, 0};
       }
-      const int ready = ::poll(fds, static_cast<nfds_t>(nfds), static_cast<int>(std::min<long long>(left, 1 << 30)));
+      // In slices, so that a stop request ends the wait soon.
+      const int ready =
+          ::poll(fds, static_cast<nfds_t>(nfds), static_cast<int>(std::min<long long>(left, 100)));
       if (ready < 0 && errno == EINTR) continue;
       if (ready <= 0) continue;
       if (in_slot >= 0 && fds[in_slot].revents != 0) {
@@ -717,12 +1002,13 @@ class CommandEstimator final : public Estimator {
       }
     }
     int status = 0;
-    if (timed_out) {
+    if (timed_out || stop) {
       ::kill(-pid, SIGKILL);
       ::kill(pid, SIGKILL);
     }
     while (::waitpid(pid, &status, 0) < 0 && errno == EINTR) {
     }
+    if (stop) return failed("stopped: the run was asked to stop", count);
     if (timed_out) {
       return failed("command did not finish within the timeout of " + seconds_text(spec_.timeout) +
                         " s; it was killed",
@@ -742,6 +1028,7 @@ class CommandEstimator final : public Estimator {
 
  private:
   job::EstimatorSpec spec_;
+  std::function<bool()> stop_;
 };
 
 }  // namespace
@@ -750,21 +1037,26 @@ class CommandEstimator final : public Estimator {
 std::unique_ptr<Estimator> make_builtin(const job::Job& job, const job::EstimatorSpec& spec);
 
 std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index) {
+  return open_estimator(job, index, std::make_shared<PluginLog>());
+}
+
+std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index,
+                                          std::shared_ptr<PluginLog> log) {
   const auto& spec = job.estimators.at(index);
   switch (spec.source) {
     case job::EstimatorSpec::Source::builtin:
       return make_builtin(job, spec);
     case job::EstimatorSpec::Source::library:
-      return std::make_unique<LibraryEstimator>(job, spec);
+      return std::make_unique<LibraryEstimator>(job, spec, log);
     case job::EstimatorSpec::Source::command:
       return std::make_unique<CommandEstimator>(job, spec);
   }
   throw InputError("unknown estimator source");
 }
 
-EstimatorSet::EstimatorSet(const job::Job& job) {
+EstimatorSet::EstimatorSet(const job::Job& job) : log_(std::make_shared<PluginLog>()) {
   for (std::size_t i = 0; i < job.estimators.size(); ++i) {
-    estimators_.push_back(open_estimator(job, i));
+    estimators_.push_back(open_estimator(job, i, log_));
     widths_.push_back(job.estimators[i].estimates.size());
     columns_ += widths_.back();
     wants_matrix_ = wants_matrix_ || estimators_.back()->wants_matrix();
@@ -775,6 +1067,18 @@ EstimatorSet::EstimatorSet(const job::Job& job) {
     for (auto& e : estimators_) e->share_matrix_memory(matrix_memory_);
   }
 }
+
+EstimatorSet::~EstimatorSet() = default;
+
+void EstimatorSet::set_stop_check(std::function<bool()> requested) {
+  for (auto& e : estimators_) e->set_stop_check(requested);
+}
+
+void EstimatorSet::log_plugin_output_to(const std::string& path, std::size_t limit_bytes) {
+  if (log_) log_->open(path, limit_bytes);
+}
+
+std::string plugin_log_path(const std::string& run_file) { return run_file + ".estimators.log"; }
 
 double* EstimatorSet::matrix_buffer(std::size_t doubles) {
   if (!matrix_memory_) throw Error("no estimator of this job reads the matrix");

@@ -501,6 +501,9 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
         input.spectrum = {outcome.spectrum.data(), static_cast<std::size_t>(outcome.spectrum.size())};
         input.matrix = outcome.matrix;
         estimators.run(input, values, reasons);
+        // A stop request cuts a waiting plug-in short and fails its estimate: the unit must
+        // not be committed with that failure (a resume computes it again, bit for bit).
+        if (stop_requested()) return false;
       }
       done.estimates.insert(done.estimates.end(), values.begin(), values.end());
       done.estimate_failures.insert(done.estimate_failures.end(), reasons.begin(), reasons.end());
@@ -941,9 +944,11 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
                            options.confine ? job::Paths::confined : job::Paths::anywhere);
     if (!options.output.empty()) p.job.output = options.output;
     p.runners = make_runners(p.job);
-    // Loads and checks every estimator (library entry points, ABI version, declared names,
-    // commands on PATH) on every rank, before anything is written.
+    // Opens and checks every estimator (a library is loaded and described by its helper
+    // process, never here: entry points, ABI version, declared names; commands on PATH) on
+    // every rank, before anything is written.
     p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
+    p.estimators->set_stop_check([] { return stop_requested(); });
     if (options.threads > 1) {
       // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
       // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
@@ -962,6 +967,11 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     }
   } catch (const InputError& e) {
     code = kExitBadInput;
+    message = e.what();
+  } catch (const Error& e) {
+    // Not the input's fault (e.g. the plug-in helper program cannot be started): every rank
+    // stops the same way, before anything is written.
+    code = kExitFailure;
     message = e.what();
   }
   if (auto [c, m] = agree(code, message, comm); c != 0) {
@@ -1067,6 +1077,8 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     if (me == 0) err << "freegap: " << m << "\n";
     return c;
   }
+  // The run file is accepted: from now on plug-ins' output goes to the log beside it.
+  p.estimators->log_plugin_output_to(estimate::plugin_log_path(p.job.output));
   {
     long long ne = static_cast<long long>(edges.size());
     MPI_Bcast(&ne, 1, MPI_LONG_LONG, 0, comm);
