@@ -82,8 +82,9 @@ class Estimator {
 /// version, entry points and declared names against the job's truth table — a library whose
 /// loading or describe crashes, hangs past the estimator's timeout or exits is refused too — or
 /// checks the command's program can be found. Throws InputError "file:line: estimator.NAME...:
-/// rule and fix" (docs/design.md rule 6: before the run starts, nothing written), or Error if the helper program cannot
-/// be started. A library estimator opened alone discards its plug-in's output.
+/// rule and fix" (docs/design.md rule 6: before the run starts, nothing written), or Error if the
+/// helper program cannot be started. A library estimator opened alone discards its plug-in's
+/// output.
 std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index);
 /// The same, with the plug-in's output going to `log`.
 std::unique_ptr<Estimator> open_estimator(const job::Job& job, std::size_t index,

@@ -1,6 +1,6 @@
 # Installing freegap under the usual prefix layout, its CMake package, a Debian package (CPack) and
 # an environment module (docs/install.md):
-#   bin/freegap
+#   bin/freegap, bin/freegap-plugin-host       the executable and the program plug-ins run in
 #   include/freegap/estimator_abi.h            the plug-in ABI (target freegap::plugin_abi)
 #   lib/cmake/freegap/                         find_package(freegap): freegap::freegap, ::plugin_abi
 #   share/freegap/analysis/                    plotting scripts, found relative to bin/freegap
@@ -24,6 +24,8 @@ set_target_properties(freegap PROPERTIES EXPORT_NAME freegap)
 
 install(TARGETS freegap freegap_plugin_abi EXPORT freegapTargets
         RUNTIME DESTINATION ${CMAKE_INSTALL_BINDIR})
+# The helper program that loads and runs plug-ins; freegap finds it beside itself.
+install(TARGETS freegap_plugin_host RUNTIME DESTINATION ${CMAKE_INSTALL_BINDIR})
 install(FILES ${PROJECT_SOURCE_DIR}/include/freegap/estimator_abi.h
         DESTINATION ${CMAKE_INSTALL_INCLUDEDIR}/freegap)
 install(EXPORT freegapTargets NAMESPACE freegap:: DESTINATION ${FREEGAP_INSTALL_CMAKE})

@@ -29,6 +29,7 @@ import runhelp as rh  # noqa: E402
 
 LAYOUT = [
     "bin/freegap",
+    "bin/freegap-plugin-host",
     "include/freegap/estimator_abi.h",
     "lib/cmake/freegap/freegapConfig.cmake",
     "lib/cmake/freegap/freegapConfigVersion.cmake",
