@@ -13,6 +13,7 @@
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/model.hpp"
+#include "freegap/stop.hpp"
 
 #ifndef FREEGAP_ANALYSIS_DIR
 #define FREEGAP_ANALYSIS_DIR ""
@@ -42,9 +43,15 @@ std::string quoted(const std::string& s) {
   return out + "'";
 }
 
+// The most density points `limit` solves for. Each point is one operator-valued solve
+// (milliseconds for small pencils, more for large ones); 100,000 points resolve a density far
+// finer than any histogram of a finite-N run or any figure, and still finish in minutes.
+constexpr int kMaxPoints = 100000;
+
 int run_limit(const LimitOptions& opt) {
-  if (opt.points < 10) {
-    throw InputError("--points must be at least 10 (got " + std::to_string(opt.points) + ")");
+  if (opt.points < 10 || opt.points > kMaxPoints) {
+    throw InputError("--points must be between 10 and " + std::to_string(kMaxPoints) + " (got " +
+                     std::to_string(opt.points) + ")");
   }
   std::vector<ensembles::MatrixSpec> specs;
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));

@@ -52,6 +52,7 @@ Expression::Expression(std::string_view text, std::vector<ensembles::MatrixSpec>
     data->dim_names.push_back(name);
   }
   detail::parse(*data);
+  detail::check_degree(*data);
   detail::check_shapes(*data);
   data->self_adjoint = detail::decide_self_adjoint(*data, options.max_monomials);
   data->spectrum = data->self_adjoint && !options.force_singular_values ? Spectrum::eigenvalues
