@@ -411,7 +411,7 @@ std::string file_digest(const ensembles::Sampler& sampler) {
 }
 
 ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
-                                  const std::filesystem::path& base) {
+                                  const std::filesystem::path& base, bool read_files) {
   const std::string prefix = "matrices." + std::string(name);
   if (!is_identifier(name)) {
     r.fail(prefix, "matrix name '" + std::string(name) +
@@ -549,6 +549,7 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
         if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
         const std::filesystem::path resolved = base / std::filesystem::path(given);
         law.path = resolved.string();
+        if (!read_files) break;
         // Checked here, with the system's reason, before the sampler's more general message.
         std::FILE* f = std::fopen(law.path.c_str(), "r");
         if (f == nullptr) {
@@ -915,7 +916,8 @@ std::string Job::where(std::string_view key) const {
          ": ";
 }
 
-Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries) {
+Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries,
+              bool read_files) {
   Job job;
   job.path = path;
   job.text = std::string(text);
@@ -983,7 +985,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   if (matrix_table.empty()) r.fail("matrices", "declares no matrix; " + matrices_example);
   // toml::table keeps its keys sorted, so this is already the canonical (sorted by name) order.
   for (auto&& [key, node] : matrix_table) {
-    job.matrices.push_back(read_matrix(r, key.str(), node, base));
+    job.matrices.push_back(read_matrix(r, key.str(), node, base, read_files));
   }
   std::sort(job.matrices.begin(), job.matrices.end(),
             [](const auto& a, const auto& b) { return a.name < b.name; });
@@ -993,6 +995,10 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   for (const auto& spec : job.matrices) {
     const std::string key = "matrices." + spec.name;
     std::string digest;
+    if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
+      job.file_digests.push_back(digest);  // its sampler would read the file
+      continue;
+    }
     try {
       const ensembles::Sampler sampler(spec);
       if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
@@ -1022,7 +1028,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
     }
     for (std::size_t i = 0; i < list->size(); ++i) {
       auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
-                                 read_estimator_libraries);
+                                 read_estimator_libraries && read_files);
       for (const auto& other : job.estimators) {
         if (other.name == spec.name) {
           r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",
