@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cctype>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 #include <map>
 #include <set>
@@ -102,6 +103,14 @@ std::vector<Token> tokenize(const std::string& text) {
           token.kind = Token::Kind::close;
           break;
         default: {
+          const auto byte = static_cast<unsigned char>(c);
+          if (byte < 0x20 || byte == 0x7f || is_continuation_byte(c) || byte >= 0xf8) {
+            // A control character (a NUL would cut the message short where it is printed) or a
+            // byte that cannot start a UTF-8 character: named by its value.
+            char hex[8];
+            std::snprintf(hex, sizeof hex, "0x%02X", byte);
+            fail(std::string("unexpected byte ") + hex, column);
+          }
           while (i + length < text.size() && is_continuation_byte(text[i + length])) ++length;
           fail("unexpected character '" + text.substr(i, length) + "'", column);
         }
