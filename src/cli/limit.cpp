@@ -122,19 +122,26 @@ int run_limit(const LimitOptions& opt) {
     throw InputError("-o " + opt.output + ": cannot create the directory (" + ec.message() + ")");
   const fs::path csv = dir / "limit.csv";
   const fs::path partial = dir / "limit.csv.partial";
-  {
-    std::ofstream out(partial);
-    if (!out) throw InputError("-o " + opt.output + ": cannot write " + partial.string());
-    out << "x,density,cdf\n";
-    char line[128];
-    for (const auto& r : reports) {
-      std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", r.x,
-                    r.converged ? r.density : std::nan(""), law->cdf(r.x));
-      out << line;
+  try {
+    {
+      std::ofstream out(partial);
+      if (!out) throw InputError("-o " + opt.output + ": cannot write " + partial.string());
+      out << "x,density,cdf\n";
+      char line[128];
+      for (const auto& r : reports) {
+        check_stop();  // the CDF integrates the density: stop before the table is complete
+        std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", r.x,
+                      r.converged ? r.density : std::nan(""), law->cdf(r.x));
+        out << line;
+      }
+      if (!out) throw Error("writing " + partial.string() + " failed");
     }
-    if (!out) throw Error("writing " + partial.string() + " failed");
+    fs::rename(partial, csv);
+  } catch (...) {
+    // Nothing half-written: the table appears whole under its name, or not at all.
+    fs::remove(partial, ec);
+    throw;
   }
-  fs::rename(partial, csv);
   std::printf("wrote %s\n", csv.string().c_str());
 
   const char* env = std::getenv("FREEGAP_PLOT_LIMIT");
