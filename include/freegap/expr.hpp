@@ -118,6 +118,10 @@ struct CheckOptions {
   bool force_singular_values = false;
   /// Cap on the monomials of the symbolic expansion used to decide self-adjointness.
   std::size_t max_monomials = 100000;
+  /// Budgets of every symbolic expansion of the expression (this check and expansion()): letters
+  /// stored and word products formed. Lower only to keep instrumented builds (fuzzing) fast.
+  std::size_t max_expansion_letters = kMaxExpansionLetters;
+  std::size_t max_expansion_products = kMaxExpansionProducts;
 };
 
 /// One term c·w of an expression expanded as a noncommutative polynomial in the declared

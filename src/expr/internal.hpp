@@ -52,6 +52,8 @@ struct ExpressionData {
   bool real = false;
   Spectrum spectrum = Spectrum::singular_values;
   std::string note;
+  std::size_t max_letters = kMaxExpansionLetters;    ///< CheckOptions::max_expansion_letters
+  std::size_t max_products = kMaxExpansionProducts;  ///< CheckOptions::max_expansion_products
 };
 
 /// Parses the text into `data.nodes` / `data.root` (operands must be filled). Throws ExprError.

@@ -462,8 +462,8 @@ class Algebra {
     for (const auto& [wa, ca] : a) {
       for (const auto& [wb, cb] : b) {
         // Budgets (expr.hpp): products formed, and letters stored, besides the monomial cap.
-        if (++products_ > kMaxExpansionProducts) {
-          throw CapReached{"needs more than " + std::to_string(kMaxExpansionProducts) +
+        if (++products_ > data_.max_products) {
+          throw CapReached{"needs more than " + std::to_string(data_.max_products) +
                            " word products"};
         }
         if ((products_ & 1023) == 0) check_stop();
@@ -473,8 +473,8 @@ class Algebra {
         it->second += ca * cb;
         if (inserted) letters += it->first.size();
         if (out.size() > cap_) throw monomial_cap();
-        if (letters > kMaxExpansionLetters) {
-          throw CapReached{"exceeds " + std::to_string(kMaxExpansionLetters) + " letters"};
+        if (letters > data_.max_letters) {
+          throw CapReached{"exceeds " + std::to_string(data_.max_letters) + " letters"};
         }
       }
     }
