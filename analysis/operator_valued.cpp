@@ -254,7 +254,8 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
   };
   steps = 0;
   for (int it = 0; it < max_steps; ++it) {
-    check_stop();  // each step: the analytic Jacobian (semicircular letters only) polls nowhere else
+    // Each step polls: the analytic Jacobian (semicircular letters only) polls nowhere else.
+    check_stop();
     ++steps;
     if (!r.allFinite()) return false;
     if (!have) jacobian();
