@@ -14,6 +14,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/rng.hpp"
+#include "freegap/stop.hpp"
 
 namespace freegap::analysis {
 namespace {
@@ -216,6 +217,7 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
   std::vector<double> alphas;
   std::vector<std::size_t> draw;
   for (int b = 0; b < options.replicates; ++b) {
+    check_stop();  // a report's bootstraps can be long: a stop request ends them
     std::vector<ErrorPoint> pts;
     for (std::size_t j = 0; j < sizes; ++j) {
       const std::size_t r = replicates_per_size[j];

@@ -1,6 +1,7 @@
 // From an expression in declared matrices to a self-adjoint polynomial in free variables, and its
 // self-adjoint linear pencil (Anderson 2013; Belinschi et al. 2017; docs/check-values.md §4d).
 #include <algorithm>
+#include <limits>
 #include <map>
 #include <optional>
 #include <string>
@@ -245,12 +246,43 @@ std::vector<MonomialEntry> monomial_entries(const std::vector<int>& word) {
 
 bool palindrome(const std::vector<int>& w) { return std::equal(w.begin(), w.end(), w.rbegin()); }
 
-}  // namespace
-
-Pencil linearize(const FreePolynomial& polynomial) {
-  PencilBuilder b(static_cast<int>(polynomial.letters.size()));
+// The merged coefficient of every word, as linearize reads them.
+std::map<std::vector<int>, std::complex<double>> merged_terms(const FreePolynomial& polynomial) {
   std::map<std::vector<int>, std::complex<double>> coefficient;
   for (const auto& t : polynomial.terms) coefficient[t.word] += t.coefficient;
+  return coefficient;
+}
+
+}  // namespace
+
+long long pencil_size(const FreePolynomial& polynomial) {
+  // The rows linearize grows, word by word (same rules, nothing built).
+  const long long limit = std::numeric_limits<int>::max();
+  long long size = 1;
+  const auto coefficient = merged_terms(polynomial);
+  for (const auto& [word, c] : coefficient) {
+    const long long k = static_cast<long long>(word.size());
+    if (c == 0.0 || k < 2) continue;
+    if (palindrome(word)) {
+      size += k - 1;
+    } else if (!(std::vector<int>(word.rbegin(), word.rend()) < word)) {
+      size += 2 * (k - 1);
+    }
+    size = std::min(size, limit);
+  }
+  return size;
+}
+
+Pencil linearize(const FreePolynomial& polynomial) {
+  if (const long long n = pencil_size(polynomial); n > kMaxPencilSize) {
+    throw InputError("expression '" + polynomial.text + "': its linearization is a " +
+                     std::to_string(n) + "×" + std::to_string(n) + " pencil, larger than the " +
+                     std::to_string(kMaxPencilSize) +
+                     " the limit solver takes (its cost climbs steeply with the size); lower the "
+                     "degree or the number of distinct words");
+  }
+  PencilBuilder b(static_cast<int>(polynomial.letters.size()));
+  const auto coefficient = merged_terms(polynomial);
   for (const auto& [word, c] : coefficient) {
     if (c == 0.0) continue;
     const double real = c.real();  // a palindrome's coefficient is real (self-adjointness)

@@ -10,6 +10,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/rng.hpp"
+#include "freegap/stop.hpp"
 
 namespace freegap::analysis {
 namespace {
@@ -279,6 +280,7 @@ PooledDistances pooled_distances(std::span<const double> edges,
   std::vector<double> fn_sum(b, 0.0), fn_sq(b, 0.0), ks, w1;
   observe::Histogram draw = sum;
   for (int r = 0; r < options.bootstrap_replicates; ++r) {
+    check_stop();  // a report's bootstraps can be long: a stop request ends them
     std::fill(draw.counts.begin(), draw.counts.end(), 0);
     draw.below = draw.above = 0;
     for (std::size_t u = 0; u < units.size(); ++u) {

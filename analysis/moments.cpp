@@ -12,6 +12,7 @@
 #include <vector>
 
 #include "freegap/errors.hpp"
+#include "freegap/stop.hpp"
 
 namespace freegap::analysis {
 
@@ -283,6 +284,7 @@ Rational FreeMomentEngine::trace_normalised(const Word& w) {
   if (w.empty()) return Rational(1);
   const std::string key = word_key(w, 0, w.size());
   if (auto it = memo_.find(key); it != memo_.end()) return it->second;
+  check_stop();  // every new word's trace passes here: exact moments can take seconds
 
   const std::size_t n = w.size();
   const int var = w[0].variable;

@@ -7,6 +7,8 @@
 #include <algorithm>
 #include <cmath>
 
+#include "freegap/stop.hpp"
+
 namespace freegap::analysis {
 
 using cd = std::complex<double>;
@@ -129,6 +131,7 @@ bool OperatorValuedSolver::average(const Matrix& beta, State& state, int max_ste
   if (general_.empty()) {
     Matrix& G = state.unknowns[0];
     for (steps = 1; steps <= max_steps; ++steps) {
+      check_stop();  // the solver's loops are where `limit` and `report` spend their time
       // G ← ½[G + (β − η(G))^{−1}] (Helton, Rashidi Far & Speicher 2007).
       const Matrix next = 0.5 * (G + inverse(beta - eta(G)));
       if (!finite(next)) return false;
@@ -146,6 +149,7 @@ bool OperatorValuedSolver::average(const Matrix& beta, State& state, int max_ste
   }
   Matrix current = Gs[0];
   for (steps = 1; steps <= max_steps; ++steps) {
+    check_stop();
     const Matrix before = current;
     for (std::size_t j = 0; j < m; ++j) {
       // ω_j ← ½[ω_j + β − η(G) + Σ_{k≠j} h_k(ω_k)]: at the fixed point every G_{X_k}(ω_k) = G
@@ -238,6 +242,7 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
       return;
     }
     for (Eigen::Index k = 0; k < D; ++k) {
+      check_stop();
       const double h = 1e-7 * (1.0 + std::abs(y(k)));
       Eigen::VectorXcd yk = y;
       yk(k) += h;
@@ -249,6 +254,8 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
   };
   steps = 0;
   for (int it = 0; it < max_steps; ++it) {
+    // Each step polls: the analytic Jacobian (semicircular letters only) polls nowhere else.
+    check_stop();
     ++steps;
     if (!r.allFinite()) return false;
     if (!have) jacobian();

@@ -11,6 +11,7 @@
 
 #include "freegap/analysis/moments.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/stop.hpp"
 #include "laws_quadrature.hpp"
 #include "operator_valued.hpp"
 
@@ -243,6 +244,7 @@ std::vector<DensityReport> PolynomialLaw::evaluate(std::span<const double> xs) c
   double previous = 0.0;
   const double eps = options_.epsilon * scale_;
   for (double x : xs) {
+    check_stop();
     DensityReport d;
     d.x = x;
     if (!(x > support_.lo && x < support_.hi)) {
@@ -456,6 +458,7 @@ std::shared_ptr<const PolynomialLaw> polynomial_limit(const expr::Expression& e,
     throw InputError("expression '" + e.text() +
                      "' is a constant: its limit law is a single point mass, nothing to solve");
   }
+  (void)linearize(p);  // refuses an oversized pencil before the exact moments' work
   std::vector<double> exact;
   if (options.exact_moment_order > 0) {
     try {

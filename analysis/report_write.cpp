@@ -12,6 +12,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/install_paths.hpp"
 #include "freegap/output_dir.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/version.hpp"
 
 extern char** environ;
@@ -149,6 +150,7 @@ std::string write_report(const std::vector<std::string>& run_files, const Report
   for (const auto& [name, text] : report.files) write_text(tmp / name, text);
   write_hdf5(tmp / "report.h5", report.tables);
   if (options.figures) draw_figures(tmp, report, options);
+  check_stop();  // a stop request while the figures were drawn: nothing is put in place
   staged.commit();
   if (built) *built = report;
   return dir.string();

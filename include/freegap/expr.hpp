@@ -16,7 +16,9 @@
 //  - a number on its own in a sum is that multiple of the identity: "A^2 - 1" is A² − I;
 //  - postfix '^k' (k a non-negative integer, at most 1000) and '^*' (adjoint) apply to the name,
 //    number or parenthesised group just before them and chain left to right: "U^2^*" is (U²)^*,
-//    "U^*^2" is (U^*)²; '^' binds tighter than products and unary minus ("-X^2" is −(X²)).
+//    "U^*^2" is (U^*)²; '^' binds tighter than products and unary minus ("-X^2" is −(X²));
+//  - bounds (below, kMaxNesting …): parentheses nest at most 100 deep, at most 16 '^' in a row,
+//    and the degree (factors in a word once multiplied out) is at most 1000.
 //
 // Checks: every name is declared; shapes agree symbolically (N for square matrices, one symbol M,
 // M2, ... per distinct ratio c of rectangular Ginibre matrices, so "G G" with G N×M is refused even
@@ -85,11 +87,41 @@ enum class Spectrum {
   singular_values,  ///< singular values (operator norm = the largest)
 };
 
+/// Bounds on an expression, checked while parsing and right after it, before any expansion,
+/// planning or evaluation, so that no text can make freegap recurse without bound, run for hours
+/// or exhaust memory before saying no. Each refusal names the bound, the column and what to do.
+///
+/// Parentheses nested deeper than this are refused. Written studies nest a few levels; 100 keeps
+/// every recursive walk of the syntax tree a few thousand frames deep at most, far inside the
+/// 8 MiB default stack (and the smaller stacks of threads that validate jobs).
+inline constexpr int kMaxNesting = 100;
+/// '^' operators in a row on one factor ("U^2^*" is two). More than a handful is never needed
+/// ("X^2^3" is X^6, "X^*^*" is X); the bound keeps the tree shallow like kMaxNesting.
+inline constexpr int kMaxPowerChain = 16;
+/// Degree: the most matrix factors in one word of the expanded expression (powers multiplied
+/// out, e.g. "(A B)^3 C" has degree 7). Sampling costs one product per factor at most, and the
+/// symbolic checks copy words of this length, so the bound caps both. 1000 matches the largest
+/// single power ("U^1000": high powers of Haar unitaries are studied as such) and is far above
+/// the degrees of polynomial models (rarely past 10); "B^1000^1000" (degree 10^6) is refused.
+inline constexpr long long kMaxDegree = 1000;
+/// Letters held by all the words of one symbolic expansion at once (with max_monomials words);
+/// 10^7 letters are 40 MB of word storage, the expansion's memory bound. Past it the expansion
+/// stops as at the monomial cap.
+inline constexpr std::size_t kMaxExpansionLetters = 10000000;
+/// Word products formed in one symbolic expansion (merged words included): 2·10^7 take a few
+/// seconds at most; past them the expansion stops as at the monomial cap. Expansions that merge
+/// heavily ((U + U^*)^k with U unitary) stay far below this.
+inline constexpr std::size_t kMaxExpansionProducts = 20000000;
+
 struct CheckOptions {
   /// Singular values even when the expression is self-adjoint.
   bool force_singular_values = false;
   /// Cap on the monomials of the symbolic expansion used to decide self-adjointness.
   std::size_t max_monomials = 100000;
+  /// Budgets of every symbolic expansion of the expression (this check and expansion()): letters
+  /// stored and word products formed. Lower only to keep instrumented builds (fuzzing) fast.
+  std::size_t max_expansion_letters = kMaxExpansionLetters;
+  std::size_t max_expansion_products = kMaxExpansionProducts;
 };
 
 /// One term c·w of an expression expanded as a noncommutative polynomial in the declared

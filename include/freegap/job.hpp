@@ -170,9 +170,12 @@ enum class Paths { anywhere, confined };
 Job load_job(const std::string& path, Paths paths = Paths::anywhere);
 /// Parses job text; `path` names it in messages and anchors relative paths. Throws InputError.
 /// With `read_estimator_libraries` false, an estimator's library is not read (its digest stays
-/// empty): for readers of a finished run file's job text, where the library may be gone.
+/// empty): for readers of a finished run file's job text, where the library may be gone. With
+/// `read_files` false nothing but the text is read (no library, no eigenvalue file: a law =
+/// "file" diagonal is checked for its keys only and gets no digest): validation without touching
+/// the file system, as the job parser's fuzz target needs.
 Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries = true,
-              Paths paths = Paths::anywhere);
+              Paths paths = Paths::anywhere, bool read_files = true);
 
 /// Parses an amount of memory: "<number> <unit>" with unit B, kB, MB, GB, TB (powers of 1000)
 /// or KiB, MiB, GiB, TiB (powers of 1024), case-insensitive, space optional ("4GiB", "1.5 GB").

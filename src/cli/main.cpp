@@ -18,6 +18,7 @@
 #include "freegap/observe.hpp"
 #include "freegap/plan.hpp"
 #include "freegap/run.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/store.hpp"
 #include "freegap/version.hpp"
 
@@ -109,6 +110,7 @@ int run_sample(const SampleOptions& opt) {
     auto obs = freegap::observe::start_observations(config);
     const auto start = std::chrono::steady_clock::now();
     for (long long t = 0; t < opt.trials; ++t) {
+      freegap::check_stop();
       freegap::model::record(obs, runner.run(opt.seed, static_cast<std::uint64_t>(t)));
     }
     const double secs = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
@@ -356,6 +358,13 @@ int main(int argc, char** argv) {
     MPI_Finalize();
     return status;
   }
+  // A stop request (SIGINT, SIGTERM) ends the long phases of the other commands — validation,
+  // sampling, the limit solver, reports — at their next poll, before anything is written
+  // (freegap/stop.hpp); they exit with 128 + the signal's number. `inspect` only reads, and
+  // `plan` and `sweep` keep the default action of the signals.
+  if (*sample_cmd || app.got_subcommand("limit") || app.got_subcommand("report")) {
+    freegap::install_stop_handlers();
+  }
   try {
     if (*inspect_cmd && inspect_verify) return run_verify(inspect_path);
     if (*inspect_cmd) return run_inspect(inspect_path, inspect_job, inspect_moments);
@@ -366,6 +375,9 @@ int main(int argc, char** argv) {
   } catch (const freegap::InputError& e) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitBadInput;
+  } catch (const freegap::Stopped& e) {
+    std::cerr << "freegap: " << e.what() << "\n";
+    return freegap::stopped_exit_status(e.signal());
   } catch (const freegap::Error& e) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitFailure;

@@ -51,7 +51,10 @@ Expression::Expression(std::string_view text, std::vector<ensembles::MatrixSpec>
     if (data->dim_ratios.size() > 1) name += std::to_string(k + 1);
     data->dim_names.push_back(name);
   }
+  data->max_letters = options.max_expansion_letters;
+  data->max_products = options.max_expansion_products;
   detail::parse(*data);
+  detail::check_degree(*data);
   detail::check_shapes(*data);
   data->self_adjoint = detail::decide_self_adjoint(*data, options.max_monomials);
   data->spectrum = data->self_adjoint && !options.force_singular_values ? Spectrum::eigenvalues

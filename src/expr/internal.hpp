@@ -52,10 +52,14 @@ struct ExpressionData {
   bool real = false;
   Spectrum spectrum = Spectrum::singular_values;
   std::string note;
+  std::size_t max_letters = kMaxExpansionLetters;    ///< CheckOptions::max_expansion_letters
+  std::size_t max_products = kMaxExpansionProducts;  ///< CheckOptions::max_expansion_products
 };
 
 /// Parses the text into `data.nodes` / `data.root` (operands must be filled). Throws ExprError.
 void parse(ExpressionData& data);
+/// Refuses an expression whose degree exceeds kMaxDegree, naming the column. Throws ExprError.
+void check_degree(const ExpressionData& data);
 /// Symbolic shapes of every node; throws ExprError on a mismatch or a non-square result.
 void check_shapes(ExpressionData& data);
 /// Decides self-adjointness by expansion into words; returns false and sets `note` past the cap.

@@ -3,11 +3,13 @@
 #include <algorithm>
 #include <cctype>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 #include <map>
 #include <set>
 #include <string>
 
+#include "freegap/stop.hpp"
 #include "internal.hpp"
 
 namespace freegap::expr {
@@ -101,6 +103,14 @@ std::vector<Token> tokenize(const std::string& text) {
           token.kind = Token::Kind::close;
           break;
         default: {
+          const auto byte = static_cast<unsigned char>(c);
+          if (byte < 0x20 || byte == 0x7f || is_continuation_byte(c) || byte >= 0xf8) {
+            // A control character (a NUL would cut the message short where it is printed) or a
+            // byte that cannot start a UTF-8 character: named by its value.
+            char hex[8];
+            std::snprintf(hex, sizeof hex, "0x%02X", byte);
+            fail(std::string("unexpected byte ") + hex, column);
+          }
           while (i + length < text.size() && is_continuation_byte(text[i + length])) ++length;
           fail("unexpected character '" + text.substr(i, length) + "'", column);
         }
@@ -166,6 +176,7 @@ class Parser {
     sum.signs.push_back(sign);
     sum.op_columns.push_back(op_column);
     while (peek().kind == Token::Kind::plus || peek().kind == Token::Kind::minus) {
+      check_stop();
       const Token& op = take();
       if (!starts_operand()) expected_operand();
       sum.children.push_back(parse_term());
@@ -184,6 +195,7 @@ class Parser {
     product.children.push_back(parse_factor());
     product.op_columns.push_back(product.column);
     for (;;) {
+      check_stop();
       const Token& t = peek();
       if (t.kind == Token::Kind::star) {
         take();
@@ -237,8 +249,14 @@ class Parser {
   // factor := primary { '^' (integer | '*') }
   int parse_factor() {
     int result = parse_primary();
+    int chain = 0;
     while (peek().kind == Token::Kind::caret) {
       const Token& caret = take();
+      if (++chain > kMaxPowerChain) {
+        fail("more than " + std::to_string(kMaxPowerChain) +
+                 " '^' in a row; combine them (\"X^2^3\" is X^6, \"X^*^*\" is X)",
+             caret.column);
+      }
       AstNode node;
       node.column = data_.nodes[result].column;
       node.op_columns.push_back(caret.column);
@@ -296,7 +314,15 @@ class Parser {
       }
       case Token::Kind::open: {
         const int open_column = take().column;
+        // Every walk of the tree recurses through the groups: their depth is bounded here,
+        // before the parser itself recurses into one more.
+        if (++depth_ > kMaxNesting) {
+          fail("parentheses nested more than " + std::to_string(kMaxNesting) +
+                   " deep; expand or split the expression",
+               open_column);
+        }
         const int inner = parse_sum();
+        --depth_;
         if (peek().kind != Token::Kind::close) {
           fail("unbalanced parenthesis opened", open_column);
         }
@@ -311,6 +337,7 @@ class Parser {
   ExpressionData& data_;
   std::vector<Token> tokens_;
   std::size_t pos_ = 0;
+  int depth_ = 0;  // parentheses open around the current token
 };
 
 std::string shape_text(const ExpressionData& data, const SymShape& s) {
@@ -392,7 +419,10 @@ SymShape shape_of(ExpressionData& data, int index) {
 using Word = std::vector<int>;
 using Poly = std::map<Word, double>;
 
-struct CapReached {};
+// Thrown when an expansion passes a bound; `what` completes "the expansion ...".
+struct CapReached {
+  std::string what;
+};
 
 class Algebra {
  public:
@@ -428,15 +458,31 @@ class Algebra {
 
   Poly multiply(const Poly& a, const Poly& b) const {
     Poly out;
+    std::size_t letters = 0;
     for (const auto& [wa, ca] : a) {
       for (const auto& [wb, cb] : b) {
+        // Budgets (expr.hpp): products formed, and letters stored, besides the monomial cap.
+        if (++products_ > data_.max_products) {
+          throw CapReached{"needs more than " + std::to_string(data_.max_products) +
+                           " word products"};
+        }
+        if ((products_ & 1023) == 0) check_stop();
         Word w = wa;
         w.insert(w.end(), wb.begin(), wb.end());
-        out[normal(w)] += ca * cb;
-        if (out.size() > cap_) throw CapReached{};
+        const auto [it, inserted] = out.try_emplace(normal(w), 0.0);
+        it->second += ca * cb;
+        if (inserted) letters += it->first.size();
+        if (out.size() > cap_) throw monomial_cap();
+        if (letters > data_.max_letters) {
+          throw CapReached{"exceeds " + std::to_string(data_.max_letters) + " letters"};
+        }
       }
     }
     return out;
+  }
+
+  CapReached monomial_cap() const {
+    return CapReached{"exceeds " + std::to_string(cap_) + " monomials"};
   }
 
   Poly adjoint(const Poly& p) const {
@@ -460,7 +506,7 @@ class Algebra {
         Poly out;
         for (std::size_t i = 0; i < node.children.size(); ++i) {
           for (const auto& [w, c] : expand(node.children[i])) out[w] += node.signs[i] * c;
-          if (out.size() > cap_) throw CapReached{};
+          if (out.size() > cap_) throw monomial_cap();
         }
         return out;
       }
@@ -488,11 +534,54 @@ class Algebra {
  private:
   const ExpressionData& data_;
   std::size_t cap_;
+  mutable std::size_t products_ = 0;  // word products formed so far in this expansion
 };
 
 }  // namespace
 
 void parse(ExpressionData& data) { Parser(data).run(); }
+
+void check_degree(const ExpressionData& data) {
+  // Children precede their parents in `nodes` (the parser adds a node after its operands), so
+  // one pass in index order computes every degree without recursion. Degrees saturate just past
+  // the bound, so no product of exponents can overflow.
+  const long long over = kMaxDegree + 1;
+  std::vector<long long> degree(data.nodes.size(), 0);
+  auto refuse = [](int column) {
+    fail("degree above " + std::to_string(kMaxDegree) +
+             ": a word of the expanded expression would have more than " +
+             std::to_string(kMaxDegree) + " matrix factors; lower the powers or split the product",
+         column);
+  };
+  for (std::size_t i = 0; i < data.nodes.size(); ++i) {
+    const AstNode& node = data.nodes[i];
+    long long d = 0;
+    switch (node.kind) {
+      case AstNode::Kind::name:
+        d = 1;
+        break;
+      case AstNode::Kind::number:
+        break;
+      case AstNode::Kind::sum:
+        for (const int c : node.children) d = std::max(d, degree[c]);
+        break;
+      case AstNode::Kind::product:
+        for (std::size_t k = 0; k < node.children.size(); ++k) {
+          d += degree[node.children[k]];
+          if (d > kMaxDegree) refuse(node.op_columns[k]);
+        }
+        break;
+      case AstNode::Kind::power:
+        d = std::min(over, degree[node.children[0]] * node.exponent);
+        if (d > kMaxDegree) refuse(node.op_columns[0]);
+        break;
+      case AstNode::Kind::adjoint:
+        d = degree[node.children[0]];
+        break;
+    }
+    degree[i] = d;
+  }
+}
 
 void check_shapes(ExpressionData& data) {
   data.shapes.assign(data.nodes.size(), SymShape{});
@@ -524,9 +613,9 @@ bool decide_self_adjoint(ExpressionData& data, std::size_t max_monomials) {
       if (std::abs(c - coefficient(p, w)) > tolerance) return false;
     }
     return true;
-  } catch (const CapReached&) {
-    data.note = "self-adjointness not decided: the expansion exceeds " +
-                std::to_string(max_monomials) + " monomials; singular values are computed";
+  } catch (const CapReached& cap) {
+    data.note = "self-adjointness not decided: the expansion " + cap.what +
+                "; singular values are computed";
     return false;
   }
 }
@@ -536,8 +625,8 @@ std::vector<Monomial> expand_monomials(const ExpressionData& data, std::size_t m
   Poly p;
   try {
     p = algebra.expand(data.root);
-  } catch (const CapReached&) {
-    throw ExprError("the expansion exceeds " + std::to_string(max_monomials) + " monomials", 0);
+  } catch (const CapReached& cap) {
+    throw ExprError("the expansion " + cap.what, 0);
   }
   std::vector<Monomial> out;
   for (const auto& [w, c] : p) {

@@ -12,6 +12,7 @@
 #include <unordered_map>
 
 #include "freegap/linalg.hpp"
+#include "freegap/stop.hpp"
 #include "internal.hpp"
 
 namespace freegap::expr {
@@ -209,6 +210,7 @@ class Graph {
 
  private:
   int intern(Node n) {
+    check_stop();  // every node of the graph passes here: a stop request ends planning
     std::ostringstream key;
     key << static_cast<int>(n.kind) << ':' << n.leaf << ':' << n.rows << 'x' << n.cols << ':'
         << bits(n.identity);
@@ -463,7 +465,9 @@ class Planner {
     p_.buffer.assign(count, -1);
     step_of_.assign(count, -1);
     for (int v = 0; v < static_cast<int>(count); ++v) {
-      if (reachable_[v]) emit(v);
+      if (!reachable_[v]) continue;
+      check_stop();
+      emit(v);
     }
     finish();
     simulate_memory();

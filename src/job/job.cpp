@@ -465,7 +465,7 @@ std::string file_digest(const ensembles::Sampler& sampler) {
 }
 
 ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
-                                  const std::filesystem::path& base) {
+                                  const std::filesystem::path& base, bool read_files) {
   const std::string prefix = "matrices." + std::string(name);
   if (!is_identifier(name)) {
     r.fail(prefix, "matrix name '" + std::string(name) +
@@ -604,6 +604,7 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
         const std::filesystem::path resolved = base / std::filesystem::path(given);
         r.check_confined(key, given, resolved);
         law.path = resolved.string();
+        if (!read_files) break;
         // Checked here, with the system's reason, before the sampler's more general message.
         std::FILE* f = std::fopen(law.path.c_str(), "r");
         if (f == nullptr) {
@@ -978,7 +979,7 @@ std::string Job::where(std::string_view key) const {
 }
 
 Job parse_job(std::string_view text, const std::string& path, bool read_estimator_libraries,
-              Paths paths) {
+              Paths paths, bool read_files) {
   Job job;
   job.path = path;
   job.text = std::string(text);
@@ -1047,7 +1048,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   if (matrix_table.empty()) r.fail("matrices", "declares no matrix; " + matrices_example);
   // toml::table keeps its keys sorted, so this is already the canonical (sorted by name) order.
   for (auto&& [key, node] : matrix_table) {
-    job.matrices.push_back(read_matrix(r, key.str(), node, base));
+    job.matrices.push_back(read_matrix(r, key.str(), node, base, read_files));
   }
   std::sort(job.matrices.begin(), job.matrices.end(),
             [](const auto& a, const auto& b) { return a.name < b.name; });
@@ -1057,6 +1058,10 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   for (const auto& spec : job.matrices) {
     const std::string key = "matrices." + spec.name;
     std::string digest;
+    if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
+      job.file_digests.push_back(digest);  // its sampler would read the file
+      continue;
+    }
     try {
       const ensembles::Sampler sampler(spec);
       if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
@@ -1086,7 +1091,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
     }
     for (std::size_t i = 0; i < list->size(); ++i) {
       auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
-                                 read_estimator_libraries);
+                                 read_estimator_libraries && read_files);
       for (const auto& other : job.estimators) {
         if (other.name == spec.name) {
           r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",

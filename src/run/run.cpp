@@ -22,6 +22,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/estimate.hpp"
 #include "freegap/plan.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/store.hpp"
 
 extern "C" void openblas_set_num_threads(int);
@@ -31,8 +32,6 @@ namespace freegap::run {
 namespace {
 
 // ---- signals ---------------------------------------------------------------------------------
-
-volatile std::sig_atomic_t g_stop_signal = 0;
 
 extern "C" void on_stop_signal(int sig) { g_stop_signal = sig; }
 
@@ -967,6 +966,11 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     }
   } catch (const InputError& e) {
     code = kExitBadInput;
+    message = e.what();
+  } catch (const Stopped& e) {
+    // A signal during validation (freegap/stop.hpp): nothing is written yet, so running the
+    // same command again starts the run.
+    code = kExitResumable;
     message = e.what();
   } catch (const Error& e) {
     // Not the input's fault (e.g. the plug-in helper program cannot be started): every rank

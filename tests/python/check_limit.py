@@ -77,7 +77,7 @@ with tempfile.TemporaryDirectory() as tmp:
         (["-m", "X1=gue", "-m", "X2=gue", "-e", "X1 X2"],
          "freegap: expression 'X1 X2' is not proven self-adjoint: the polynomial limit needs a "
          "self-adjoint expression (add its adjoint, e.g. 'A B + B A')\n"),
-        (["-m", "X=gue", "-e", "X", "--points", "3"], "freegap: --points must be at least 10 (got 3)\n"),
+        (["-m", "X=gue", "-e", "X", "--points", "3"], "freegap: --points must be between 10 and 100000 (got 3)\n"),
     ):
         bad = os.path.join(tmp, "bad")
         r = subprocess.run([exe, "limit"] + args + ["-o", bad], capture_output=True, text=True)

@@ -83,7 +83,19 @@ struct Pencil {
   std::vector<Eigen::MatrixXcd> coefficients;  ///< b_i, one per letter
 };
 
-/// The pencil of a polynomial (see the header comment for its shape).
+/// The largest pencil the limit solver takes. Its Newton steps form finite-difference Jacobians
+/// in the n² entries of G, so the cost climbs steeply with n: `freegap limit -e "X^n - 1"`
+/// (pencil n, 10 points) took 2.2 s at n = 4, 14 s at n = 8, 82 s at n = 12 and over 120 s at
+/// n = 16 (tests/benchmarks/RESULTS-inputs.md). Polynomial models of studies (anticommutators,
+/// X B X + B, quartic potentials) need pencils of 2–10, so 12 leaves room; beyond it `freegap
+/// limit` and reports refuse before any solving instead of running for hours.
+inline constexpr int kMaxPencilSize = 12;
+
+/// The size n of the pencil linearize builds, without building it (saturating at INT_MAX).
+long long pencil_size(const FreePolynomial& polynomial);
+
+/// The pencil of a polynomial (see the header comment for its shape). Throws InputError when it
+/// would be larger than kMaxPencilSize.
 Pencil linearize(const FreePolynomial& polynomial);
 /// The pencil on matrices: the (n·N)×(n·N) matrix with blocks b_0(r,c)·I + Σ_i b_i(r,c)·X_i.
 Eigen::MatrixXcd pencil_matrix(const Pencil& pencil, const std::vector<Eigen::MatrixXcd>& xs);
