@@ -55,7 +55,7 @@ cmake -S "$root" -B "$build" -DCMAKE_BUILD_TYPE=Release -DFREEGAP_SANITIZE=ON \
 cmake --build "$build" -j "$jobs"
 cd "$build"
 if [ "$mode" = unit ]; then
-  ctest --output-on-failure -j "$jobs" -L sanitize "$@"
+  ctest --output-on-failure -j "$jobs" -L '^sanitize$' "$@"
 else
   # OpenMPI is built without frame pointers: the slow unwinder follows a leak's stack into it, so
   # that the suppressions can recognise OpenMPI's own leaks when the checks run freegap on ranks.
