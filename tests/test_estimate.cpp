@@ -462,9 +462,11 @@ TEST(EstimatorCommand, BridgeAnswersAndFailuresAreRecorded) {
   const auto ok = run("ok", 0);
   EXPECT_EQ(ok.first, (std::vector<double>{kMeanSquare, kTop}));
   EXPECT_EQ(ok.second, "");
-  EXPECT_EQ(run("sleep", 0, 0.5).second, "");
-  EXPECT_EQ(run("sleep", 1, 0.5).second,
-            "command did not finish within the timeout of 0.5 s; it was killed");
+  // 2 s: room for starting the command on a loaded machine or under the sanitizers (the helper
+  // program is then instrumented too), still far below the 30 s the sleeping trial takes.
+  EXPECT_EQ(run("sleep", 0, 2).second, "");
+  EXPECT_EQ(run("sleep", 1, 2).second,
+            "command did not finish within the timeout of 2 s; it was killed");
   EXPECT_EQ(run("nan", 1).second, "command returned NaN for 'mean_square'");
   EXPECT_EQ(run("garbage", 1).second,
             "malformed output, line 1: cannot read 'is large' as a number (expected 'name value')");

@@ -136,7 +136,8 @@ struct Reader {
     const auto n = get<std::uint64_t>();
     if (at + n * sizeof(double) > bytes.size()) throw Error("corrupt unit message between ranks");
     std::vector<double> v(n);
-    std::memcpy(v.data(), bytes.data() + at, n * sizeof(double));
+    // An empty vector's data() may be null, and memcpy from or to null is undefined even for 0.
+    if (n > 0) std::memcpy(v.data(), bytes.data() + at, n * sizeof(double));
     at += n * sizeof(double);
     return v;
   }
