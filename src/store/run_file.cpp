@@ -1336,6 +1336,25 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
   return RunFile(std::move(impl));
 }
 
+// Why a contained read of a run file did not finish ("" when it did).
+static std::string failure_of(const contained::Outcome& outcome) {
+  switch (outcome.kind) {
+    case contained::Outcome::Kind::signalled:
+      return "reading it killed the process that checks it: " +
+             contained::signal_text(outcome.signal);
+    case contained::Outcome::Kind::stalled: {
+      std::ostringstream seconds;
+      seconds << outcome.stall_seconds;
+      return "reading it made no progress for " + seconds.str() + " s";
+    }
+    case contained::Outcome::Kind::lost:
+      return "the process that checks it ended without an answer";
+    case contained::Outcome::Kind::finished:
+      break;
+  }
+  return "";
+}
+
 Integrity RunFile::check_contained(const std::string& path, bool resume, bool everything) {
   const Purpose purpose = resume ? Purpose::resume : Purpose::read;
   const contained::Outcome outcome = contained::run(
@@ -1373,24 +1392,7 @@ Integrity RunFile::check_contained(const std::string& path, bool resume, bool ev
         }
       },
       contained::stall_limit());
-  std::string why;
-  switch (outcome.kind) {
-    case contained::Outcome::Kind::signalled:
-      why =
-          "reading it killed the process that checks it: " + contained::signal_text(outcome.signal);
-      break;
-    case contained::Outcome::Kind::stalled: {
-      std::ostringstream seconds;
-      seconds << outcome.stall_seconds;
-      why = "reading it made no progress for " + seconds.str() + " s";
-      break;
-    }
-    case contained::Outcome::Kind::lost:
-      why = "the process that checks it ended without an answer";
-      break;
-    case contained::Outcome::Kind::finished:
-      break;
-  }
+  const std::string why = failure_of(outcome);
   if (!why.empty()) {
     throw InputError("run file '" + path + "' is damaged where HDF5 cannot read it (" + why +
                      "); " + damaged_fix(purpose));
@@ -1536,24 +1538,13 @@ void check_replaceable(const std::string& path) {
         }
       },
       contained::stall_limit());
-  std::string why;
-  switch (outcome.kind) {
-    case contained::Outcome::Kind::signalled:
-      why =
-          "reading it killed the process that checks it: " + contained::signal_text(outcome.signal);
-      break;
-    case contained::Outcome::Kind::stalled:
-      why = "reading it made no progress";
-      break;
-    case contained::Outcome::Kind::lost:
-      why = "the process that checks it ended without an answer";
-      break;
-    case contained::Outcome::Kind::finished:
-      for (const std::string& line : outcome.lines) {
-        if (line.starts_with("I ")) throw InputError(line.substr(2));
-        if (line.starts_with("F ")) throw Error(line.substr(2));
-      }
-      return;
+  const std::string why = failure_of(outcome);
+  if (why.empty()) {
+    for (const std::string& line : outcome.lines) {
+      if (line.starts_with("I ")) throw InputError(line.substr(2));
+      if (line.starts_with("F ")) throw Error(line.substr(2));
+    }
+    return;
   }
   // What cannot be read cannot be proved a run file, and --fresh deletes nothing else.
   throw InputError("'" + path + "' is damaged where HDF5 cannot read it (" + why +
