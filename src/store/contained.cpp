@@ -40,7 +40,9 @@ double stall_limit() {
     const double v = std::strtod(text, &rest);
     if (rest && *rest == '\0' && v > 0) return v;
   }
-  return 5.0;
+  // Generous: a large file on a slow shared file system, or a loaded node, must not be taken for
+  // a damaged one (5 s was seen to refuse good files under load and under the sanitizers).
+  return 60.0;
 }
 
 std::string signal_text(int signal) {
@@ -65,8 +67,11 @@ Outcome run(const std::function<void(const Emit&)>& body, double stall_seconds) 
   }
   if (pid == 0) {
     ::close(fds[0]);
-    // A crash here must end only this process, quietly: no core file for the parent's user.
+    // A crash here must end only this process, by its signal, so that the parent can name it:
+    // handlers another library installed (a sanitizer's, which would print and exit instead)
+    // are put back to the default.
     ::signal(SIGPIPE, SIG_DFL);
+    for (const int s : {SIGSEGV, SIGBUS, SIGFPE, SIGILL, SIGABRT}) ::signal(s, SIG_DFL);
     const Emit emit = [fd = fds[1]](const std::string& line) {
       std::string clean = line;
       for (char& c : clean) {

@@ -29,7 +29,7 @@ using Emit = std::function<void(const std::string&)>;
 /// lines. The child is killed when it emits nothing for `stall_seconds`.
 Outcome run(const std::function<void(const Emit&)>& body, double stall_seconds);
 
-/// The stall limit: FREEGAP_CHECK_STALL_SECONDS if set to a positive number, else 5 s.
+/// The stall limit: FREEGAP_CHECK_STALL_SECONDS if set to a positive number, else 60 s.
 double stall_limit();
 
 /// "signal 11 (SIGSEGV)".

@@ -72,7 +72,10 @@ CRASH_STATUSES = {134, 139}
 def run_timed(cmd, cwd):
     """(status or 'hang', stdout, stderr, seconds); a hang is killed with its process group."""
     start = time.monotonic()
-    p = subprocess.Popen(cmd, cwd=cwd, env=rh.child_env(), stdout=subprocess.PIPE,
+    # The checking child gives up after 5 s without progress (the default is 60 s, for slow file
+    # systems): a read HDF5 never finishes is then a refusal well inside HANG_SECONDS.
+    p = subprocess.Popen(cmd, cwd=cwd, env=rh.child_env(FREEGAP_CHECK_STALL_SECONDS="5"),
+                         stdout=subprocess.PIPE,
                          stderr=subprocess.PIPE, text=True, errors="replace",
                          start_new_session=True)
     try:
