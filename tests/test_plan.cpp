@@ -6,6 +6,7 @@
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
+#include <iterator>
 #include <sstream>
 
 #include "freegap/errors.hpp"
@@ -139,10 +140,24 @@ TEST(Plan, CalibrationFileIsReusedOnlyOnTheSameMachine) {
     EXPECT_EQ(cal.find("k1"), nullptr) << other.key();
   }
   {
-    std::ofstream(path) << "this is [not toml";
+    // A calibration file of ours that no longer parses: measured again and replaced.
+    std::ofstream(path) << "# freegap plan: seconds per trial\nthis is [not toml";
     const auto cal = fp::Calibration::load(path, m);
     EXPECT_TRUE(cal.stale());
     EXPECT_EQ(cal.find("k1"), nullptr);
+    EXPECT_NO_THROW(cal.save());
+  }
+  {
+    // A file plan did not write is read as nothing and never replaced (issue 20: freegap
+    // replaces only what it can prove it wrote).
+    std::ofstream(path) << "this is [not toml";
+    auto cal = fp::Calibration::load(path, m);
+    EXPECT_EQ(cal.find("k1"), nullptr);
+    cal.put("k1", "A + B (dense)", fit);
+    EXPECT_THROW(cal.save(), freegap::Error);
+    std::ifstream in(path);
+    const std::string kept((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+    EXPECT_EQ(kept, "this is [not toml");
   }
   fs::remove_all(dir);
 }

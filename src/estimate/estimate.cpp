@@ -543,7 +543,7 @@ class LibraryEstimator final : public Estimator {
       return failed("plug-in's helper sent a short answer", count);
     }
     std::vector<double> got(k);
-    std::memcpy(got.data(), payload.data(), k * sizeof(double));
+    if (k > 0) std::memcpy(got.data(), payload.data(), k * sizeof(double));  // no null pointer
     const std::string message = payload.substr(k * sizeof(double));
     if (m.status < 0) {
       return failed("plug-in reported failure" + (message.empty() ? "" : ": " + message), count);

@@ -18,6 +18,7 @@
 #include <cerrno>
 #include <cstdio>
 #include <cstring>
+#include <initializer_list>
 #include <limits>
 #include <string>
 #include <vector>
@@ -207,6 +208,9 @@ int main(int argc, char** argv) {
   // The rank decides when to stop (it closes the socket or kills this process): the stop
   // signals meant for it are not the host's. A plug-in writing to a closed pipe gets EPIPE.
   for (int s : {SIGINT, SIGTERM, SIGUSR1, SIGPIPE}) ::signal(s, SIG_IGN);
+  // A plug-in's crash ends this process by its own signal, which the rank records by name, even
+  // where a sanitizer installed handlers that would print and exit with a status instead.
+  for (int s : {SIGSEGV, SIGBUS, SIGFPE, SIGILL, SIGABRT}) ::signal(s, SIG_DFL);
   if (::on_exit(on_plugin_exit, nullptr) != 0) ::_exit(6);
 
   void* handle = ::dlopen(argv[1], RTLD_NOW | RTLD_LOCAL);
