@@ -35,8 +35,10 @@ using h5::Where;
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr hsize_t kUnlimited = H5S_UNLIMITED;
 // Room reserved before a unit is written, beyond its strings: the metadata one unit can add
-// (a provenance row and its chunk index, a global heap collection) is a few KiB.
-constexpr std::uint64_t kRoomPerUnit = 1 << 20;
+// (a provenance row and its chunk index, a global heap collection) is a few KiB; its rows go into
+// chunks allocated when the file was made. 16 KiB, not more: a reservation larger than what a unit
+// adds refused runs whose whole file fits the free space (1 MiB did, in a 256 KiB file system).
+constexpr std::uint64_t kRoomPerUnit = 16 << 10;
 // The fill value of unit_committed in 1.2 files: a marker that reads it was never written.
 constexpr std::int8_t kMarkerLost = 2;
 

@@ -298,6 +298,10 @@ Sweep expand(const std::string& sweep_path) {
     try {
       job::parse_job(task.text, task.job_path);
     } catch (const InputError& e) {
+      if (t["vary"].is_string()) {  // one key: name the value where it is written
+        throw InputError(where(sweep_path, axes[0].values->get(points[i][0]), "values") +
+                         "value " + task.point[0].second + " makes an invalid job: " + e.what());
+      }
       throw InputError(where(sweep_path, axes.front().node, "vary") + "point " + described +
                        " makes an invalid job: " + e.what());
     }
