@@ -20,5 +20,10 @@ echo "== the run file (limit: arcsine law, m2 = 2, m4 = 6, m6 = 20, m8 = 70, nor
 "$exe" inspect "$out" --moments
 echo
 echo "== against the limit: errors per size, rates and figures =="
+# freegap replaces a report directory only when it lists its own files (.freegap-output); the
+# demo's folder in build/ may hold a report of an earlier freegap without that list: the demo's own.
+if [ -f "$FREEGAP_BUILD_DIR/demo-report/report.md" ] && [ ! -f "$FREEGAP_BUILD_DIR/demo-report/.freegap-output" ]; then
+  rm -rf "$FREEGAP_BUILD_DIR/demo-report"
+fi
 "$exe" report "$out" -o "$FREEGAP_BUILD_DIR/demo-report"
 echo "open $FREEGAP_BUILD_DIR/demo-report/report.md and $FREEGAP_BUILD_DIR/demo-report/figures/"
