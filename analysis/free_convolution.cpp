@@ -71,7 +71,7 @@ bool newton(const Map& map, cd& w, double sign, int max_steps, int& steps) {
 // the axis when a law has atoms (f is then close to a real Möbius automorphism); averaging keeps
 // the fixed point and restores convergence (measured: docs/check-values.md §4a).
 template <class Map>
-SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, double sign,
+SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, bool cold, double sign,
                                const SubordinationOptions& options, const char* who, cd z) {
   SubordinationPoint out;
   out.z = z;
@@ -84,6 +84,7 @@ SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, double si
       return out;
     }
   }
+  if (!cold && start != nullptr) throw NumericalError(std::string(who) + ": warm start failed");
   cd w = w0;
   int k = 0;
   for (; k < options.max_averaged_steps; ++k) {
@@ -139,6 +140,40 @@ HValue h_additive(const Law& law, cd w) {
   const cd g = law.cauchy(w);
   const cd dg = law.cauchy_derivative(w);
   return {1.0 / g - w, -dg / (g * g) - 1.0};
+}
+
+// The expansion of h at infinity: G(w) = u M(u) with u = 1/w and M(u) = Σ m_k u^k, so
+// h(w) = 1/G − w = Σ_{k≥1} r_k u^{k−1} with Σ r_k u^k = 1/M(u) (standard series inversion).
+// far[0] is the radius beyond which the five terms are used: 10³ times the support's scale,
+// where the truncation (~(s/|w|)^5 s) and the cancellation in 1/G − w (~ε|w|) are both below
+// 1e-12 s.
+std::array<double, 6> far_field(const Law& law) {
+  std::array<double, 6> far{};
+  const Support s = law.support();
+  const double scale = std::max({1.0, std::abs(s.lo), std::abs(s.hi)});
+  const std::vector<double> m = law.moments(5);
+  std::array<double, 6> r{};
+  r[0] = 1.0;
+  for (int k = 1; k <= 5; ++k) {
+    double sum = 0.0;
+    for (int j = 1; j <= k; ++j) sum += m[j] * r[k - j];
+    r[k] = -sum;
+  }
+  far[0] = 1e3 * scale;
+  for (int k = 1; k <= 5; ++k) far[k] = r[k];
+  return far;
+}
+
+HValue h_additive(const Law& law, const std::array<double, 6>& far, cd w) {
+  if (!(std::abs(w) > far[0])) return h_additive(law, w);
+  const cd u = 1.0 / w;
+  cd h = 0.0, dh = 0.0, power = 1.0;  // power = u^{k−1}
+  for (int k = 1; k <= 5; ++k) {
+    h += far[k] * power;
+    dh -= static_cast<double>(k - 1) * far[k] * power * u;  // d/dw u^{k−1} = −(k−1) u^k
+    power *= u;
+  }
+  return {h, dh};
 }
 
 // Multiplicative h(w) = η(w)/w with η(w) = 1 − w/G(1/w) (η = ψ/(1+ψ), 1 + ψ(w) = G(1/w)/w), so
@@ -295,7 +330,7 @@ class Reciprocal final : public Law {
   }
   Support support() const override {
     const Support s = law_->support();
-    return {1.0 / s.hi, 1.0 / s.lo, {}};
+    return {1.0 / s.hi, 1.0 / s.lo, {}, {{1.0 / s.hi, 1.0 / s.lo}}};
   }
   std::string describe() const override { return "1/(" + law_->describe() + ")"; }
 
@@ -376,19 +411,79 @@ cd SubordinatedLaw::atom_cauchy(cd z) const {
   return sum;
 }
 
+SubordinationPoint SubordinatedLaw::solve_robust(cd z, const cd* start) const {
+  try {
+    return solve(z, start, start == nullptr);
+  } catch (const NumericalError&) {
+  }
+  if (z.imag() < 0.0) {
+    const cd conj_start = start ? std::conj(*start) : cd();
+    SubordinationPoint p = solve_robust(std::conj(z), start ? &conj_start : nullptr);
+    p.z = z;
+    p.omega1 = std::conj(p.omega1);
+    p.omega2 = std::conj(p.omega2);
+    p.cauchy = std::conj(p.cauchy);
+    return p;
+  }
+  // Far above the axis the fixed point is strongly attracting and a cold start finds it; each
+  // step down is warm-started from the last, with a shorter step after a failure and a longer
+  // one after a success.
+  const double target = z.imag();
+  const double scale = std::max({1.0, support_.hi - support_.lo, std::abs(z.real())});
+  double height = std::max(4.0 * scale, 2.0 * target);
+  SubordinationPoint p = solve(cd(z.real(), height));
+  double ratio = 0.25;
+  for (int failures = 0; height > target;) {
+    const double next = std::max(target, height * ratio);
+    try {
+      p = solve(cd(z.real(), next), &p.omega1, false);
+      height = next;
+      ratio = std::max(1e-3, 0.5 * ratio);
+    } catch (const NumericalError&) {
+      ratio = std::sqrt(ratio);
+      if (++failures > 40) {
+        // The continuation stalled: a cold start at z itself is the last resort.
+        if (start != nullptr) {
+          try {
+            return solve(z);
+          } catch (const NumericalError&) {
+          }
+        }
+        throw NumericalError(describe() + ": subordination did not converge at z = " +
+                             detail::format_number(z.real()) + "+" +
+                             detail::format_number(z.imag()) + "i (continuation stalled at " +
+                             detail::format_number(height) + "i)");
+      }
+    }
+  }
+  p.z = z;
+  return p;
+}
+
+const Interval* SubordinatedLaw::band_of(double x) const {
+  const auto& bands = support_.bands;
+  auto it = std::upper_bound(bands.begin(), bands.end(), x,
+                             [](double v, const Interval& b) { return v < b.lo; });
+  if (it == bands.begin()) return nullptr;
+  --it;
+  return x <= it->hi ? &*it : nullptr;
+}
+
 double SubordinatedLaw::density_at(double x, cd& warm, bool& have_warm) const {
-  if (!(x > continuous_lo_ && x < continuous_hi_)) return 0.0;
+  const Interval* band = band_of(x);
+  if (band == nullptr || !(x > band->lo && x < band->hi)) return 0.0;
   // Distance to the axis: ε·width in the bulk, shrinking in proportion to the distance to the
-  // nearest edge, so the Cauchy-kernel smoothing error (relative size ε/distance) stays ~ε
-  // up to the edges; for ⊠ with its support starting at 0 this is ε·x, the scale-invariant choice.
+  // nearest edge of the band, so the Cauchy-kernel smoothing error (relative size ε/distance)
+  // stays ~ε up to the edges; for ⊠ with its support starting at 0 this is ε·x, the
+  // scale-invariant choice.
   const double width = continuous_hi_ - continuous_lo_;
-  const double gap = std::min({x - continuous_lo_, continuous_hi_ - x, width});
+  const double gap = std::min({x - band->lo, band->hi - x, width});
   double distance = std::max(options_.epsilon * gap, 1e-300);
   cd z(x, distance);
   SubordinationPoint p;
   for (;;) {
     try {
-      p = solve(z, have_warm ? &warm : nullptr);
+      p = solve_robust(z, have_warm ? &warm : nullptr);
       break;
     } catch (const NumericalError&) {
       // Very close to an edge the fixed point is ill-conditioned (f' → 1 there); step back from
@@ -433,11 +528,270 @@ cd SubordinatedLaw::cauchy(cd z) const {
   if (z.imag() < 0.0) return std::conj(cauchy(std::conj(z)));
   if (z.imag() == 0.0) {
     // On the real axis outside the support G is real: take it from just above the axis.
-    const cd g = solve(cd(z.real(), 1e-3 * epsilon_abs_)).cauchy;
-    if (z.real() > support_.hi || z.real() < support_.lo) return g.real();
+    const cd g = solve_robust(cd(z.real(), 1e-3 * epsilon_abs_)).cauchy;
+    if (band_of(z.real()) == nullptr) return g.real();
     return g;
   }
-  return solve(z).cauchy;
+  return solve_robust(z).cauchy;
+}
+
+// -------------------------------------------------------------------------------------- bands
+//
+// A real x lies outside the support exactly when the subordination map f_x has a real fixed point
+// w with f_x'(w) < 1: inside the support the Denjoy–Wolff point of f_x lies off the axis, and then
+// every fixed point on the axis is repelling, f_x'(w) > 1 (Julia–Wolff–Carathéodory; the boundary
+// behaviour of subordination functions is Belinschi & Bercovici 2007). At an edge the attracting
+// real fixed point meets a repelling one (f_x' = 1) and leaves the axis, so near an edge on the
+// outside q(x) = (1 − f_x'(w))² vanishes linearly in the distance to the edge: the secant of q
+// through two outside points lands on the edge with an error of the order of the squared distance.
+bool SubordinatedLaw::other_form(int, double, double, double&) const { return false; }
+
+bool SubordinatedLaw::axis_fixed_point(int form, double x, double& w, double& slope) const {
+  // Newton on φ(v) = f_x(v) − v, to a tiny step or until the residual stops falling at the
+  // rounding level of the map (which can sit near 1e-11 where a law's G is a difference of logs).
+  double v = w;
+  double best = std::numeric_limits<double>::infinity();
+  int stalls = 0;
+  for (int i = 0; i < 100; ++i) {
+    double f = 0.0, df = 0.0;
+    if (!real_map(form, x, v, f, df)) return false;
+    const double phi = f - v;
+    const double dphi = df - 1.0;
+    if (dphi == 0.0 || !std::isfinite(phi) || !std::isfinite(dphi)) return false;
+    const double size = 1.0 + std::abs(v);
+    if (std::abs(phi) >= best && std::abs(phi) <= 1e-10 * size) ++stalls;
+    best = std::min(best, std::abs(phi));
+    const double step = phi / dphi;
+    if (std::abs(step) <= 1e-13 * size || stalls >= 2) {
+      if (!(df < 1.0) || std::abs(phi) > 1e-10 * size) return false;
+      w = v;
+      slope = 1.0 - df;
+      return true;
+    }
+    v -= step;
+    if (!std::isfinite(v)) return false;
+  }
+  return false;
+}
+
+bool SubordinatedLaw::outside(double x, AxisPoint& p) const {
+  double w = p.w;
+  if (axis_fixed_point(p.form, x, w, p.slope)) {
+    p.w = w;
+    return true;
+  }
+  for (int form = 0; form < real_forms(); ++form) {
+    if (form == p.form || !other_form(p.form, x, p.w, w)) continue;
+    if (axis_fixed_point(form, x, w, p.slope)) {
+      p.form = form;
+      p.w = w;
+      return true;
+    }
+  }
+  return false;
+}
+
+bool SubordinatedLaw::x_of_fixed_point(int form, double w, double x0, double& x,
+                                       double& slope) const {
+  // The secant method in x on φ(x) = f_x(w) − w: at an edge ∂φ/∂x stays away from 0 while
+  // ∂φ/∂w vanishes, so this is well conditioned exactly where Newton in w is not.
+  double f = 0.0, df = 0.0;
+  auto phi = [&](double at) {
+    if (!real_map(form, at, w, f, df)) return std::numeric_limits<double>::quiet_NaN();
+    return f - w;
+  };
+  double xa = x0;
+  double pa = phi(xa);
+  double xb = x0 + 1e-6 * (1.0 + std::abs(x0));
+  double pb = phi(xb);
+  for (int i = 0; i < 60; ++i) {
+    if (!std::isfinite(pa) || !std::isfinite(pb)) return false;
+    if (std::abs(pb) <= 1e-15 * (1.0 + std::abs(w)) || pb == pa) break;
+    const double next = xb - pb * (xb - xa) / (pb - pa);
+    xa = xb;
+    pa = pb;
+    xb = next;
+    pb = phi(xb);
+  }
+  if (!std::isfinite(pb) || std::abs(pb) > 1e-12 * (1.0 + std::abs(w))) return false;
+  x = xb;
+  slope = 1.0 - df;
+  return true;
+}
+
+double SubordinatedLaw::edge_between(double x_out, AxisPoint p, double x_in) const {
+  if (!outside(x_out, p)) return 0.5 * (x_out + x_in);
+  // 1. Bisection on "outside" down to a bracket of 1e-9 of the scale: reliable while the
+  //    distance to the edge is far above the rounding level of the map.
+  const double scale = std::max({1.0, std::abs(x_out), std::abs(x_in),
+                                 continuous_hi_ - continuous_lo_});
+  double xa = x_out, xb = x_in;
+  AxisPoint pa = p, pp = p;
+  bool have_previous = false;
+  while (std::abs(xb - xa) > 1e-9 * scale) {
+    const double mid = 0.5 * (xa + xb);
+    AxisPoint pc = pa;
+    if (outside(mid, pc)) {
+      pp = pa;
+      have_previous = true;
+      xa = mid;
+      pa = pc;
+    } else {
+      xb = mid;
+    }
+  }
+  const double fallback = 0.5 * (xa + xb);
+  if (!have_previous || pp.form != pa.form || pp.w == pa.w) return fallback;
+  // 2. Along the real fixed point: the edge is where it turns from attracting (1 − f' > 0) to
+  //    repelling, a simple sign change of 1 − f' in w; x(w) solves f_x(w) = w. March in w (the
+  //    direction the fixed point moved towards the edge) until the sign changes, then bisect.
+  const int form = pa.form;
+  const double direction = pa.w > pp.w ? 1.0 : -1.0;
+  double step = std::abs(pa.w - pp.w);
+  double w_lo = pa.w, x_lo = xa;
+  double w_hi = 0.0;
+  bool bracketed = false;
+  for (int k = 0; k < 80 && !bracketed; ++k) {
+    const double w = w_lo + direction * step;
+    double xw = 0.0, g = 0.0;
+    if (!x_of_fixed_point(form, w, x_lo, xw, g)) {
+      step *= 0.5;
+      continue;
+    }
+    if (g <= 0.0) {
+      w_hi = w;
+      bracketed = true;
+    } else {
+      w_lo = w;
+      x_lo = xw;
+      step *= 2.0;
+    }
+  }
+  if (!bracketed) return fallback;
+  double x_edge = x_lo;
+  for (int i = 0; i < 200; ++i) {
+    if (std::abs(w_hi - w_lo) <= 4.0 * std::numeric_limits<double>::epsilon() *
+                                      (1.0 + std::abs(w_lo))) {
+      break;
+    }
+    const double w = 0.5 * (w_lo + w_hi);
+    double xw = 0.0, g = 0.0;
+    if (!x_of_fixed_point(form, w, x_lo, xw, g)) break;
+    if (g > 0.0) {
+      w_lo = w;
+      x_lo = xw;
+      x_edge = xw;
+    } else {
+      w_hi = w;
+    }
+  }
+  // The edge must lie where the bisection on "outside" put it.
+  if (std::abs(x_edge - fallback) > 1e-6 * scale) return fallback;
+  return x_edge;
+}
+
+void SubordinatedLaw::find_bands() {
+  support_.bands.clear();
+  const double lo = continuous_lo_;
+  const double hi = continuous_hi_;
+  if (!(hi > lo)) return;
+  // A grid over the hull: each point is inside or outside; a run of outside points is a gap
+  // whose two edges are then located exactly. A gap narrower than the grid shows as a local
+  // minimum of the density, which a golden-section search takes down to its bottom.
+  // Laws with many atoms have many narrow bands: the grid grows with their number.
+  const int kGrid = static_cast<int>(std::clamp<std::size_t>(16 * atoms_in_inputs(), 512, 16384));
+  const double height = 1e-6 * (hi - lo);
+  std::vector<double> xs(kGrid), dens(kGrid);
+  std::vector<AxisPoint> ws(kGrid);
+  std::vector<char> out(static_cast<std::size_t>(kGrid), 0);
+  cd warm;
+  bool have_warm = false;
+  auto probe = [&](double x, double& density, AxisPoint& w) {
+    const cd z(x, height);
+    const SubordinationPoint p = solve_robust(z, have_warm ? &warm : nullptr);
+    warm = p.omega1;
+    have_warm = finite(warm);
+    density = -(p.cauchy - atom_cauchy(z)).imag() / kPi;
+    // Start from the subordination function that stayed finite (ω1 runs off to infinity where
+    // G vanishes in a gap).
+    w = AxisPoint{0, p.omega1.real(), 0.0};
+    if (real_forms() > 1 && !(std::abs(p.omega1) <= std::abs(p.omega2))) {
+      w = AxisPoint{1, p.omega2.real(), 0.0};
+    }
+    return outside(x, w);
+  };
+  for (int i = 0; i < kGrid; ++i) {
+    xs[i] = lo + (hi - lo) * (i + 0.5) / kGrid;
+    out[i] = probe(xs[i], dens[i], ws[i]) ? 1 : 0;
+  }
+  std::vector<Interval> gaps;
+  for (int i = 0; i < kGrid;) {
+    if (!out[i]) {
+      ++i;
+      continue;
+    }
+    int j = i;
+    while (j + 1 < kGrid && out[j + 1]) ++j;
+    const double left = edge_between(xs[i], ws[i], i > 0 ? xs[i - 1] : lo);
+    const double right = edge_between(xs[j], ws[j], j + 1 < kGrid ? xs[j + 1] : hi);
+    if (right > left) gaps.push_back({left, right});
+    i = j + 1;
+  }
+  int searches = 0;
+  for (int i = 1; i + 1 < kGrid && searches < 4 * kGrid; ++i) {
+    if (out[i - 1] || out[i] || out[i + 1]) continue;
+    if (!(dens[i] < dens[i - 1] && dens[i] <= dens[i + 1])) continue;
+    ++searches;
+    const double r = 0.5 * (std::sqrt(5.0) - 1.0);
+    double a = xs[i - 1], b = xs[i + 1];
+    double c = b - r * (b - a), d = a + r * (b - a);
+    double fc = 0.0, fd = 0.0;
+    AxisPoint wc, wd;
+    bool found = false;
+    double x_found = 0.0;
+    AxisPoint w_found;
+    auto look = [&](double x, double& f, AxisPoint& w) {
+      if (probe(x, f, w)) {
+        found = true;
+        x_found = x;
+        w_found = w;
+      }
+    };
+    look(c, fc, wc);
+    look(d, fd, wd);
+    for (int k = 0; k < 60 && !found; ++k) {
+      if (fc < fd) {
+        b = d;
+        d = c;
+        fd = fc;
+        c = b - r * (b - a);
+        look(c, fc, wc);
+      } else {
+        a = c;
+        c = d;
+        fc = fd;
+        d = a + r * (b - a);
+        look(d, fd, wd);
+      }
+      if (b - a <= 1e-15 * std::max(1.0, std::abs(a))) break;
+    }
+    if (!found) continue;
+    const double left = edge_between(x_found, w_found, xs[i - 1]);
+    const double right = edge_between(x_found, w_found, xs[i + 1]);
+    if (right > left) gaps.push_back({left, right});
+  }
+  std::sort(gaps.begin(), gaps.end(),
+            [](const Interval& l, const Interval& r) { return l.lo < r.lo; });
+  double start = lo;
+  for (const Interval& g : gaps) {
+    if (g.lo <= start) {  // overlapping or touching the previous gap: merge
+      start = std::max(start, g.hi);
+      continue;
+    }
+    support_.bands.push_back({start, std::min(g.lo, hi)});
+    start = g.hi;
+  }
+  if (hi > start) support_.bands.push_back({start, hi});
 }
 
 namespace {
@@ -458,12 +812,11 @@ double theta_of_x(double lo, double hi, double x) {
 
 }  // namespace
 
-void SubordinatedLaw::build_table() const {
-  const double lo = continuous_lo_;
-  const double hi = continuous_hi_;
-  table_theta_.clear();
-  table_cumulative_.clear();
-  if (!(hi > lo)) return;
+SubordinatedLaw::BandTable SubordinatedLaw::build_table(double lo, double hi) const {
+  BandTable t;
+  t.lo = lo;
+  t.hi = hi;
+  if (!(hi > lo)) return t;
   const double width = hi - lo;
   const double half = 0.5 * width;
   // The last layer next to an edge is not sampled (doubles cannot resolve it next to a nonzero
@@ -485,99 +838,125 @@ void SubordinatedLaw::build_table() const {
     if (!(f1 > 0.0) || !(beta > -1.0)) return 0.0;
     return f1 * d / (beta + 1.0);
   };
-  left_tail_ = tail(lo, d_left, 1.0, left_beta_);
-  const double right_tail = tail(hi, d_right, -1.0, right_beta_);
+  t.left_tail = tail(lo, d_left, 1.0, t.left_beta);
+  const double right_tail = tail(hi, d_right, -1.0, t.right_beta);
   const double theta_lo = theta_of_x(lo, hi, lo + d_left);
   const double theta_hi = theta_of_x(lo, hi, hi - d_right);
-  // Graded breakpoints in θ: geometric towards both edges, uniform in between.
+  // Graded breakpoints in θ: geometric (ratio 4) towards both edges, uniform in between; the
+  // adaptive refinement below adds what a band needs (a square-root edge is smooth in θ).
   std::vector<double> breaks{theta_lo};
-  for (int j = 60; j >= 3; --j) {
-    const double t = 0.5 * kPi * std::ldexp(1.0, -j);
-    if (t > theta_lo) breaks.push_back(t);
+  for (int j = 60; j >= 3; j -= 2) {
+    const double th = 0.5 * kPi * std::ldexp(1.0, -j);
+    if (th > theta_lo) breaks.push_back(th);
   }
-  for (int i = 0; i <= 32; ++i) breaks.push_back(0.125 * kPi + 0.75 * kPi * i / 32.0);
-  for (int j = 3; j <= 60; ++j) {
-    const double t = kPi - 0.5 * kPi * std::ldexp(1.0, -j);
-    if (t < theta_hi) breaks.push_back(t);
+  for (int i = 0; i <= 8; ++i) breaks.push_back(0.125 * kPi + 0.75 * kPi * i / 8.0);
+  for (int j = 3; j <= 60; j += 2) {
+    const double th = kPi - 0.5 * kPi * std::ldexp(1.0, -j);
+    if (th < theta_hi) breaks.push_back(th);
   }
   breaks.push_back(theta_hi);
   const detail::GaussRule& rule = detail::gauss_legendre(16);
   auto panel = [&](double a, double b) {
     double sum = 0.0;
     for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
-      const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[i];
+      const double th = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[i];
       sum +=
-          rule.weights[i] * density_at(x_of_theta(lo, hi, t), warm, have_warm) * half * std::sin(t);
+          rule.weights[i] * density_at(x_of_theta(lo, hi, th), warm, have_warm) * half * std::sin(th);
     }
     return 0.5 * (b - a) * sum;
   };
-  double cumulative = left_tail_;
-  table_theta_.push_back(theta_lo);
-  table_cumulative_.push_back(cumulative);
+  double cumulative = t.left_tail;
+  t.theta.push_back(theta_lo);
+  t.cumulative.push_back(cumulative);
   struct Piece {
     double a, b, whole;
     int depth;
   };
+  // The base panels first: their sum estimates the band's mass, and the adaptive refinement
+  // stops at 1e-13 of it (a band with a small share of the mass needs no more absolute
+  // precision than that; the density itself is accurate to ~1e-12 relative).
+  std::vector<double> wholes(breaks.size() - 1);
+  double band_mass = 0.0;
   for (std::size_t i = 0; i + 1 < breaks.size(); ++i) {
-    std::vector<Piece> stack{{breaks[i], breaks[i + 1], panel(breaks[i], breaks[i + 1]), 0}};
+    wholes[i] = panel(breaks[i], breaks[i + 1]);
+    band_mass += wholes[i];
+  }
+  const double tolerance = std::max(1e-13 * band_mass, 1e-300);
+  for (std::size_t i = 0; i + 1 < breaks.size(); ++i) {
+    std::vector<Piece> stack{{breaks[i], breaks[i + 1], wholes[i], 0}};
     while (!stack.empty()) {
       Piece p = stack.back();
       stack.pop_back();
       const double mid = 0.5 * (p.a + p.b);
       const double left = panel(p.a, mid);
       const double right = panel(mid, p.b);
-      if (p.depth >= 24 || std::abs(left + right - p.whole) <= 1e-14) {
+      if (p.depth >= 24 || std::abs(left + right - p.whole) <= tolerance) {
         cumulative += left + right;
-        table_theta_.push_back(p.b);
-        table_cumulative_.push_back(cumulative);
+        t.theta.push_back(p.b);
+        t.cumulative.push_back(cumulative);
       } else {
         stack.push_back({mid, p.b, right, p.depth + 1});  // right half after the left one
         stack.push_back({p.a, mid, left, p.depth + 1});
       }
     }
   }
-  table_theta_.push_back(kPi);
-  table_cumulative_.push_back(cumulative + right_tail);
+  t.theta.push_back(kPi);
+  t.cumulative.push_back(cumulative + right_tail);
+  return t;
 }
 
-double SubordinatedLaw::cdf(double x) const {
-  std::call_once(table_once_, [this] { build_table(); });
-  double atoms = 0.0;
-  for (const Atom& a : support_.atoms) {
-    if (a.value <= x) atoms += a.mass;
-  }
-  const double lo = continuous_lo_;
-  const double hi = continuous_hi_;
-  if (table_theta_.size() < 2 || x <= lo) return std::min(1.0, atoms);
-  if (x >= hi) return std::min(1.0, atoms + table_cumulative_.back());
+// The continuous mass of one band up to x, lo < x < hi.
+double SubordinatedLaw::band_cdf(const BandTable& t, double x) const {
+  const double lo = t.lo;
+  const double hi = t.hi;
+  if (t.theta.size() < 2) return 0.0;
   const double half = 0.5 * (hi - lo);
   const double theta = theta_of_x(lo, hi, x);
-  if (theta <= table_theta_.front()) {
+  if (theta <= t.theta.front()) {
     // Inside the unsampled edge layer: the fitted power law.
-    const double d_layer = x_of_theta(lo, hi, table_theta_.front()) - lo;
-    return std::min(1.0, atoms + left_tail_ * std::pow((x - lo) / d_layer, left_beta_ + 1.0));
+    const double d_layer = x_of_theta(lo, hi, t.theta.front()) - lo;
+    return t.left_tail * std::pow((x - lo) / d_layer, t.left_beta + 1.0);
   }
-  if (theta >= table_theta_[table_theta_.size() - 2]) {
-    const double d_layer = hi - x_of_theta(lo, hi, table_theta_[table_theta_.size() - 2]);
-    const double right_tail =
-        table_cumulative_.back() - table_cumulative_[table_cumulative_.size() - 2];
-    return std::clamp(atoms + table_cumulative_.back() -
-                          right_tail * std::pow((hi - x) / d_layer, right_beta_ + 1.0),
-                      0.0, 1.0);
+  if (theta >= t.theta[t.theta.size() - 2]) {
+    const double d_layer = hi - x_of_theta(lo, hi, t.theta[t.theta.size() - 2]);
+    const double right_tail = t.cumulative.back() - t.cumulative[t.cumulative.size() - 2];
+    return t.cumulative.back() - right_tail * std::pow((hi - x) / d_layer, t.right_beta + 1.0);
   }
-  const auto it = std::upper_bound(table_theta_.begin(), table_theta_.end(), theta);
-  const std::size_t leaf = static_cast<std::size_t>(std::distance(table_theta_.begin(), it)) - 1;
-  const double a = table_theta_[leaf];
+  const auto it = std::upper_bound(t.theta.begin(), t.theta.end(), theta);
+  const std::size_t leaf = static_cast<std::size_t>(std::distance(t.theta.begin(), it)) - 1;
+  const double a = t.theta[leaf];
   const detail::GaussRule& rule = detail::gauss_legendre(16);
   cd warm;
   bool have_warm = false;
   double sum = 0.0;
   for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
-    const double t = 0.5 * (a + theta) + 0.5 * (theta - a) * rule.nodes[i];
-    sum +=
-        rule.weights[i] * density_at(x_of_theta(lo, hi, t), warm, have_warm) * half * std::sin(t);
+    const double th = 0.5 * (a + theta) + 0.5 * (theta - a) * rule.nodes[i];
+    sum += rule.weights[i] * density_at(x_of_theta(lo, hi, th), warm, have_warm) * half *
+           std::sin(th);
   }
-  return std::clamp(atoms + table_cumulative_[leaf] + 0.5 * (theta - a) * sum, 0.0, 1.0);
+  return t.cumulative[leaf] + 0.5 * (theta - a) * sum;
+}
+
+double SubordinatedLaw::cdf(double x) const {
+  std::call_once(table_once_, [this] {
+    try {
+      std::vector<BandTable> tables;
+      for (const Interval& band : support_.bands) tables.push_back(build_table(band.lo, band.hi));
+      tables_ = std::move(tables);
+    } catch (const NumericalError& e) {
+      table_error_ = std::string("the CDF of ") + describe() + " could not be tabulated: " + e.what();
+    }
+  });
+  if (!table_error_.empty()) throw NumericalError(table_error_);
+  double total = 0.0;
+  for (const Atom& a : support_.atoms) {
+    if (a.value <= x) total += a.mass;
+  }
+  for (const BandTable& t : tables_) {
+    if (t.cumulative.empty() || x <= t.lo) continue;
+    total += x >= t.hi ? t.cumulative.back() : band_cdf(t, x);
+  }
+  return std::clamp(total, 0.0, 1.0);
 }
 
 // ------------------------------------------------------------------------------------- ⊞
@@ -594,9 +973,12 @@ FreeAdditiveConvolution::FreeAdditiveConvolution(LawPtr mu, LawPtr nu, Subordina
     }
   }
   epsilon_abs_ = options_.epsilon * std::max(1.0, (sm.hi - sm.lo) + (sn.hi - sn.lo));
+  far_mu_ = far_field(*mu_);
+  far_nu_ = far_field(*nu_);
   continuous_hi_ = additive_right_edge(*mu_, *nu_);
   continuous_lo_ = -additive_right_edge(*affine(mu_, -1.0, 0.0), *affine(nu_, -1.0, 0.0));
   finish_support();
+  find_bands();
 }
 
 void SubordinatedLaw::finish_support() {
@@ -613,9 +995,9 @@ void SubordinatedLaw::finish_support() {
   }
 }
 
-SubordinationPoint SubordinatedLaw::solve_below_axis(cd z, const cd* start) const {
+SubordinationPoint SubordinatedLaw::solve_below_axis(cd z, const cd* start, bool cold) const {
   const cd conj_start = start ? std::conj(*start) : cd();
-  SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr);
+  SubordinationPoint p = solve(std::conj(z), start ? &conj_start : nullptr, cold);
   p.z = z;
   p.omega1 = std::conj(p.omega1);
   p.omega2 = std::conj(p.omega2);
@@ -623,43 +1005,93 @@ SubordinationPoint SubordinatedLaw::solve_below_axis(cd z, const cd* start) cons
   return p;
 }
 
-SubordinationPoint FreeAdditiveConvolution::solve(cd z, const cd* start) const {
-  if (z.imag() < 0.0) return solve_below_axis(z, start);
+SubordinationPoint FreeAdditiveConvolution::solve(cd z, const cd* start, bool cold) const {
+  if (z.imag() < 0.0) return solve_below_axis(z, start, cold);
   if (z.imag() == 0.0) throw InputError("free_additive: solve needs z off the real axis");
   auto map = [&](cd w) {
-    const HValue hm = h_additive(*mu_, w);
-    const HValue hn = h_additive(*nu_, z + hm.h);
+    const HValue hm = h_additive(*mu_, far_mu_, w);
+    const HValue hn = h_additive(*nu_, far_nu_, z + hm.h);
     return MapValue{z + hn.h, hn.dh * hm.dh};
   };
+  try {
+    SubordinationPoint p =
+        fixed_point(map, z + cd(0.0, 2.0), start, cold, 1.0, options_, "free_additive", z);
+    p.omega2 = z + h_additive(*mu_, far_mu_, p.omega1).h;
+    p.cauchy = mu_->cauchy(p.omega1);
+    if (finite(p.cauchy) && finite(p.omega2)) return p;
+  } catch (const NumericalError&) {
+  }
+  // Where G(z) is near 0 (in a gap of the support), ω1 runs off to infinity while ω2 stays
+  // finite: solve for ω2 instead, from ω2 = z + h_μ(ω1) of the start.
+  cd start2;
+  if (start != nullptr) start2 = z + h_additive(*mu_, far_mu_, *start).h;
+  return solve_second(z, start != nullptr && finite(start2) ? &start2 : nullptr, cold);
+}
+
+SubordinationPoint FreeAdditiveConvolution::solve_second(cd z, const cd* start, bool cold) const {
+  auto map = [&](cd w) {
+    const HValue hn = h_additive(*nu_, far_nu_, w);
+    const HValue hm = h_additive(*mu_, far_mu_, z + hn.h);
+    return MapValue{z + hm.h, hm.dh * hn.dh};
+  };
   SubordinationPoint p =
-      fixed_point(map, z + cd(0.0, 2.0), start, 1.0, options_, "free_additive", z);
-  p.omega2 = z + h_additive(*mu_, p.omega1).h;
-  p.cauchy = mu_->cauchy(p.omega1);
+      fixed_point(map, z + cd(0.0, 2.0), start, cold, 1.0, options_, "free_additive", z);
+  p.omega2 = p.omega1;
+  p.omega1 = z + h_additive(*nu_, far_nu_, p.omega2).h;
+  p.cauchy = nu_->cauchy(p.omega2);
   return p;
 }
 
 bool FreeAdditiveConvolution::polish(double x, cd& omega1, cd& g) const {
   auto map = [&](cd w) {
-    const HValue hm = h_additive(*mu_, w);
-    const HValue hn = h_additive(*nu_, x + hm.h);
+    const HValue hm = h_additive(*mu_, far_mu_, w);
+    const HValue hn = h_additive(*nu_, far_nu_, x + hm.h);
     return MapValue{x + hn.h, hn.dh * hm.dh};
   };
   cd w = omega1;
   int steps = 0;
   if (!newton(map, w, 1.0, 40, steps)) return false;
-  if ((x + h_additive(*mu_, w).h).imag() <= 0.0) return false;
+  if ((x + h_additive(*mu_, far_mu_, w).h).imag() <= 0.0) return false;
   omega1 = w;
   g = mu_->cauchy(w);
   return finite(g);
+}
+
+namespace {
+bool real_enough(cd v) {
+  return finite(v) && std::abs(v.imag()) <= 1e-9 * (1.0 + std::abs(v.real()));
+}
+}  // namespace
+
+// Form 0: ω1 ↦ x + h_ν(x + h_μ(ω1)); form 1: ω2 ↦ x + h_μ(x + h_ν(ω2)).
+bool FreeAdditiveConvolution::real_map(int form, double x, double w, double& f, double& df) const {
+  const Law& first = form == 0 ? *mu_ : *nu_;
+  const Law& second = form == 0 ? *nu_ : *mu_;
+  const HValue hm = h_additive(first, form == 0 ? far_mu_ : far_nu_, cd(w, 0.0));
+  if (!real_enough(hm.h) || !real_enough(hm.dh)) return false;
+  const HValue hn = h_additive(second, form == 0 ? far_nu_ : far_mu_, cd(x + hm.h.real(), 0.0));
+  const cd value = x + hn.h;
+  const cd slope = hn.dh * hm.dh;
+  if (!real_enough(value) || !real_enough(slope)) return false;
+  f = value.real();
+  df = slope.real();
+  return true;
+}
+
+bool FreeAdditiveConvolution::other_form(int form, double x, double w, double& out) const {
+  const cd h = h_additive(form == 0 ? *mu_ : *nu_, form == 0 ? far_mu_ : far_nu_, cd(w, 0.0)).h;
+  if (!real_enough(h)) return false;
+  out = x + h.real();
+  return std::isfinite(out);
 }
 
 cd FreeAdditiveConvolution::cauchy_derivative(cd z) const {
   if (z.imag() < 0.0) return std::conj(cauchy_derivative(std::conj(z)));
   if (z.imag() == 0.0) return Law::cauchy_derivative(z);
   // G = G_μ(ω1), ω1 = f(z, ω1): ω1' = ∂_z f / (1 − ∂_w f), ∂_z f = 1 + h_ν'(ω2).
-  const SubordinationPoint p = solve(z);
-  const HValue hm = h_additive(*mu_, p.omega1);
-  const HValue hn = h_additive(*nu_, p.omega2);
+  const SubordinationPoint p = solve_robust(z);
+  const HValue hm = h_additive(*mu_, far_mu_, p.omega1);
+  const HValue hn = h_additive(*nu_, far_nu_, p.omega2);
   const cd d_omega = (1.0 + hn.dh) / (1.0 - hn.dh * hm.dh);
   return mu_->cauchy_derivative(p.omega1) * d_omega;
 }
@@ -672,6 +1104,10 @@ std::vector<double> FreeAdditiveConvolution::moments(int k) const {
   std::vector<double> kappa(k + 1, 0.0);
   for (int n = 1; n <= k; ++n) kappa[n] = a[n] + b[n];
   return moments_from_free_cumulants(kappa);
+}
+
+std::size_t FreeAdditiveConvolution::atoms_in_inputs() const {
+  return mu_->support().atoms.size() + nu_->support().atoms.size();
 }
 
 std::string FreeAdditiveConvolution::describe() const {
@@ -706,10 +1142,11 @@ FreeMultiplicativeConvolution::FreeMultiplicativeConvolution(LawPtr mu, LawPtr n
     continuous_lo_ = 0.0;
   }
   finish_support();
+  find_bands();
 }
 
-SubordinationPoint FreeMultiplicativeConvolution::solve(cd z, const cd* start) const {
-  if (z.imag() < 0.0) return solve_below_axis(z, start);
+SubordinationPoint FreeMultiplicativeConvolution::solve(cd z, const cd* start, bool cold) const {
+  if (z.imag() < 0.0) return solve_below_axis(z, start, cold);
   if (z.imag() == 0.0) throw InputError("free_multiplicative: solve needs z off the real axis");
   // ζ = 1/z lies in the lower half-plane, and so does ω1(ζ); G(z) = ζ/(1 − η_μ(ω1(ζ))).
   const cd zeta = 1.0 / z;
@@ -718,7 +1155,8 @@ SubordinationPoint FreeMultiplicativeConvolution::solve(cd z, const cd* start) c
     const HValue hn = h_multiplicative(*nu_, zeta * hm.h);
     return MapValue{zeta * hn.h, zeta * hn.dh * zeta * hm.dh};
   };
-  SubordinationPoint p = fixed_point(map, zeta, start, -1.0, options_, "free_multiplicative", z);
+  SubordinationPoint p =
+      fixed_point(map, zeta, start, cold, -1.0, options_, "free_multiplicative", z);
   const HValue hm = h_multiplicative(*mu_, p.omega1);
   p.omega2 = zeta * hm.h;
   p.cauchy = zeta / (1.0 - p.omega1 * hm.h);
@@ -743,12 +1181,27 @@ bool FreeMultiplicativeConvolution::polish(double x, cd& omega1, cd& g) const {
   return finite(g);
 }
 
+bool FreeMultiplicativeConvolution::real_map(int, double x, double w, double& f,
+                                             double& df) const {
+  if (!(x > 0.0)) return false;
+  const double zeta = 1.0 / x;
+  const HValue hm = h_multiplicative(*mu_, cd(w, 0.0));
+  if (!real_enough(hm.h) || !real_enough(hm.dh)) return false;
+  const HValue hn = h_multiplicative(*nu_, cd(zeta * hm.h.real(), 0.0));
+  const cd value = zeta * hn.h;
+  const cd slope = zeta * hn.dh * zeta * hm.dh;
+  if (!real_enough(value) || !real_enough(slope)) return false;
+  f = value.real();
+  df = slope.real();
+  return true;
+}
+
 cd FreeMultiplicativeConvolution::cauchy_derivative(cd z) const {
   if (z.imag() < 0.0) return std::conj(cauchy_derivative(std::conj(z)));
   if (z.imag() == 0.0) return Law::cauchy_derivative(z);
   // G = ζ/(1 − η), η = η_μ(ω1(ζ)), η_μ' = h + w h'; ω1' = ∂_ζ f/(1 − ∂_w f) with
   // ∂_ζ f = h_ν(ω2) + ζ h_ν'(ω2) h_μ(ω1); dG/dz = −(1/z²) dG/dζ.
-  const SubordinationPoint p = solve(z);
+  const SubordinationPoint p = solve_robust(z);
   const cd zeta = 1.0 / z;
   const HValue hm = h_multiplicative(*mu_, p.omega1);
   const HValue hn = h_multiplicative(*nu_, p.omega2);
@@ -789,6 +1242,10 @@ std::vector<double> FreeMultiplicativeConvolution::moments(int k) const {
   const std::vector<long double> psi = revert(chi, k);
   for (int n = 1; n <= k; ++n) out[n] = static_cast<double>(psi[n]);
   return out;
+}
+
+std::size_t FreeMultiplicativeConvolution::atoms_in_inputs() const {
+  return mu_->support().atoms.size() + nu_->support().atoms.size();
 }
 
 std::string FreeMultiplicativeConvolution::describe() const {

@@ -60,7 +60,7 @@ class Semicircle final : public Law {
     }
     return m;
   }
-  Support support() const override { return {-r_, r_, {}}; }
+  Support support() const override { return {-r_, r_, {}, {{-r_, r_}}}; }
   std::string describe() const override { return "semicircle(variance=" + detail::format_number(v_) + ")"; }
 
  private:
@@ -108,8 +108,8 @@ class MarchenkoPastur final : public Law {
     return m;
   }
   Support support() const override {
-    if (c_ > 1.0) return {0.0, b_, {{0.0, 1.0 - 1.0 / c_}}};
-    return {a_, b_, {}};
+    if (c_ > 1.0) return {0.0, b_, {{0.0, 1.0 - 1.0 / c_}}, {{a_, b_}}};
+    return {a_, b_, {}, {{a_, b_}}};
   }
   std::string describe() const override { return "marchenko_pastur(ratio=" + detail::format_number(c_) + ")"; }
 
@@ -143,7 +143,7 @@ class Arcsine final : public Law {
     for (int n = 0; n <= k; n += 2) m[n] = static_cast<double>(binomial(n, n / 2));
     return m;
   }
-  Support support() const override { return {-2.0, 2.0, {}}; }
+  Support support() const override { return {-2.0, 2.0, {}, {{-2.0, 2.0}}}; }
   double quantile(double p) const override {
     if (!(p >= 0.0 && p <= 1.0)) return Law::quantile(p);
     return 2.0 * std::sin(kPi * (p - 0.5));
@@ -193,7 +193,7 @@ class KestenMcKay final : public Law {
     }
     return m;
   }
-  Support support() const override { return {-r_, r_, {}}; }
+  Support support() const override { return {-r_, r_, {}, {{-r_, r_}}}; }
   std::string describe() const override { return "kesten_mckay(d=" + std::to_string(d_) + ")"; }
 
  private:
@@ -218,18 +218,31 @@ class Atoms final : public Law {
     if (it == points_.begin()) return 0.0;
     return std::min(1.0, cumulative_[std::distance(points_.begin(), it) - 1]);
   }
+  // 1/(z − a) = conj(z − a)/|z − a|² in real arithmetic: the library's complex division guards
+  // against overflow at several times the cost, and these sums dominate the solvers' time for
+  // laws of many atoms (z − a is never near overflow here). At an atom the sum is infinite, as
+  // the Cauchy transform is.
   cd cauchy(cd z) const override {
-    cd sum = 0.0;
-    for (const Atom& a : points_) sum += a.mass / (z - a.value);
-    return sum;
+    double re = 0.0, im = 0.0;
+    for (const Atom& a : points_) {
+      const double dr = z.real() - a.value, di = z.imag();
+      const double s = a.mass / (dr * dr + di * di);
+      re += dr * s;
+      im -= di * s;
+    }
+    return {re, im};
   }
   cd cauchy_derivative(cd z) const override {
-    cd sum = 0.0;
+    // −Σ w/(z − a)² = −Σ w conj(z − a)²/|z − a|⁴.
+    double re = 0.0, im = 0.0;
     for (const Atom& a : points_) {
-      const cd r = 1.0 / (z - a.value);
-      sum -= a.mass * r * r;
+      const double dr = z.real() - a.value, di = z.imag();
+      const double n = dr * dr + di * di;
+      const double s = a.mass / (n * n);
+      re -= (dr * dr - di * di) * s;
+      im += 2.0 * dr * di * s;
     }
-    return sum;
+    return {re, im};
   }
   std::vector<double> moments(int k) const override {
     check_moment_order(k);
@@ -241,7 +254,7 @@ class Atoms final : public Law {
     return m;
   }
   Support support() const override {
-    return {points_.front().value, points_.back().value, points_};
+    return {points_.front().value, points_.back().value, points_, {}};
   }
   double quantile(double p) const override {
     if (!(p >= 0.0 && p <= 1.0)) return Law::quantile(p);
@@ -280,7 +293,7 @@ class Uniform final : public Law {
     }
     return m;
   }
-  Support support() const override { return {a_, b_, {}}; }
+  Support support() const override { return {a_, b_, {}, {{a_, b_}}}; }
   double quantile(double p) const override {
     if (!(p >= 0.0 && p <= 1.0)) return Law::quantile(p);
     return a_ + p * (b_ - a_);
@@ -330,7 +343,7 @@ class QuarterCircle final : public Law {
     for (int n = 0; n <= k; n += 2) m[n] = static_cast<double>(binomial(n, n / 2) / (n / 2 + 1));
     return m;
   }
-  Support support() const override { return {0.0, 2.0, {}}; }
+  Support support() const override { return {0.0, 2.0, {}, {{0.0, 2.0}}}; }
   std::string describe() const override { return "quarter_circle"; }
 };
 
@@ -428,7 +441,7 @@ class FussCatalan final : public Law {
     }
     return m;
   }
-  Support support() const override { return {0.0, edge_, {}}; }
+  Support support() const override { return {0.0, edge_, {}, {{0.0, edge_}}}; }
   std::string describe() const override { return "fuss_catalan(s=" + std::to_string(s_) + ")"; }
 
  private:
@@ -475,7 +488,7 @@ class Circular final : public Law {
     for (int j = 0; j <= k; ++j) m[j] = 2.0 / (j + 2.0);
     return m;
   }
-  Support support() const override { return {0.0, 1.0, {}}; }
+  Support support() const override { return {0.0, 1.0, {}, {{0.0, 1.0}}}; }
   double quantile(double p) const override {
     if (!(p >= 0.0 && p <= 1.0)) return Law::quantile(p);
     return std::sqrt(p);
@@ -519,6 +532,12 @@ class Affine final : public Law {
     for (const Atom& atom : inner.atoms) out.atoms.push_back({a_ * atom.value + b_, atom.mass});
     std::sort(out.atoms.begin(), out.atoms.end(),
               [](const Atom& l, const Atom& r) { return l.value < r.value; });
+    for (const Interval& band : inner.bands) {
+      out.bands.push_back({std::min(a_ * band.lo, a_ * band.hi) + b_,
+                           std::max(a_ * band.lo, a_ * band.hi) + b_});
+    }
+    std::sort(out.bands.begin(), out.bands.end(),
+              [](const Interval& l, const Interval& r) { return l.lo < r.lo; });
     return out;
   }
   double quantile(double p) const override {
@@ -575,6 +594,9 @@ class SquareRoot final : public Law {
     out.lo = lo_;
     out.hi = hi_;
     for (const Atom& a : inner_.atoms) out.atoms.push_back({std::sqrt(std::max(a.value, 0.0)), a.mass});
+    for (const Interval& band : inner_.bands) {
+      out.bands.push_back({std::sqrt(std::max(band.lo, 0.0)), std::sqrt(std::max(band.hi, 0.0))});
+    }
     return out;
   }
   double quantile(double p) const override {

@@ -228,6 +228,10 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
       support_.atoms.push_back({c0, masses[1]});
     }
   }
+  // This solver finds the outer edges only: its continuous part is given as one band.
+  if (support_.atoms.empty() || support_.atoms.front().mass < 1.0 - 1e-12) {
+    support_.bands.push_back({support_.lo, support_.hi});
+  }
 }
 
 PolynomialLaw::~PolynomialLaw() = default;

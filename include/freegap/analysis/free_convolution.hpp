@@ -2,6 +2,7 @@
 // moment / free-cumulant conversions that give their exact moments.
 #pragma once
 
+#include <array>
 #include <complex>
 #include <memory>
 #include <mutex>
@@ -42,9 +43,16 @@ class SubordinatedLaw : public Law {
   double cdf(double x) const override;
   std::complex<double> cauchy(std::complex<double> z) const override;
   Support support() const override { return support_; }
-  /// Solve at z off the axis; `start` (in the right half-plane) warms Newton, else a cold start.
+  /// Solve at z off the axis; `start` (in the right half-plane) warms Newton, else (or when
+  /// Newton from it fails and `cold` is true) a cold start. NumericalError if that fails.
   virtual SubordinationPoint solve(std::complex<double> z,
-                                   const std::complex<double>* start = nullptr) const = 0;
+                                   const std::complex<double>* start = nullptr,
+                                   bool cold = true) const = 0;
+  /// solve(), and where it fails, continuation along the vertical line from far above the axis
+  /// down to z, each step warm-started from the last (the fixed point moves continuously with z;
+  /// common practice for Stieltjes inversion near the axis). Needed inside gaps of the support.
+  SubordinationPoint solve_robust(std::complex<double> z,
+                                  const std::complex<double>* start = nullptr) const;
   /// The absolute distance to the axis used for densities.
   double epsilon() const { return epsilon_abs_; }
 
@@ -54,12 +62,26 @@ class SubordinatedLaw : public Law {
   /// Atom contributions to G, subtracted before Stieltjes inversion.
   std::complex<double> atom_cauchy(std::complex<double> z) const;
   virtual bool polish(double x, std::complex<double>& omega1, std::complex<double>& g) const = 0;
+  /// The subordination map f_x(w) and f_x'(w) at real x and real w, where both are real (false
+  /// elsewhere: w on a law's support, or a pole). `form` 0 is the map of ω1; a law may offer a
+  /// second form (1: the map of ω2), used where ω1 runs off to infinity (a zero of G in a gap).
+  virtual bool real_map(int form, double x, double w, double& f, double& df) const = 0;
+  /// How many forms real_map has (1 or 2).
+  virtual int real_forms() const { return 1; }
+  /// The other form's variable from this form's fixed point w (false where it is not real).
+  virtual bool other_form(int form, double x, double w, double& out) const;
+  /// Finds the bands of the continuous part inside [continuous_lo_, continuous_hi_] and sets
+  /// support_.bands. Constructors call it after finish_support().
+  void find_bands();
+  /// How many atoms the two input laws have together (sets the resolution of find_bands).
+  virtual std::size_t atoms_in_inputs() const = 0;
   /// Sorts support_.atoms and sets support_.lo/hi from the continuous edges and the atoms (the
   /// continuous part collapses onto the first atom when the atoms carry all the mass).
   void finish_support();
   /// solve() at z below the real axis by conjugate symmetry: every quantity is conj of its value
   /// at conj(z).
-  SubordinationPoint solve_below_axis(std::complex<double> z, const std::complex<double>* start) const;
+  SubordinationPoint solve_below_axis(std::complex<double> z, const std::complex<double>* start,
+                                      bool cold) const;
 
   SubordinationOptions options_;
   Support support_;
@@ -68,13 +90,36 @@ class SubordinatedLaw : public Law {
   double epsilon_abs_ = 1e-10;
 
  private:
-  void build_table() const;
+  /// The band holding x, or nullptr.
+  const Interval* band_of(double x) const;
+  /// A real fixed point: its form, value and 1 − f_x'(w).
+  struct AxisPoint {
+    int form = 0;
+    double w = 0.0;
+    double slope = 0.0;
+  };
+  /// Is x outside the support (a real fixed point w of f_x with f_x'(w) < 1, found by Newton from
+  /// p.w in form p.form, then in the other form)? On success p is that fixed point.
+  bool outside(double x, AxisPoint& p) const;
+  bool axis_fixed_point(int form, double x, double& w, double& slope) const;
+  /// The x at which w is a fixed point of f_x (form `form`), from x0; slope = 1 − f_x'(w).
+  bool x_of_fixed_point(int form, double w, double x0, double& x, double& slope) const;
+  /// The edge between x_out (outside, fixed point p) and x_in (inside the support).
+  double edge_between(double x_out, AxisPoint p, double x_in) const;
+
+  // The CDF table of one band: leaf boundaries in θ (x = lo + w(1 − cos θ)/2) and the mass up to
+  // each; the unsampled layer at each edge has a fitted power law.
+  struct BandTable {
+    double lo = 0.0, hi = 0.0;
+    std::vector<double> theta;
+    std::vector<double> cumulative;
+    double left_tail = 0.0, left_beta = 0.0, right_beta = 0.0;
+  };
+  BandTable build_table(double lo, double hi) const;
+  double band_cdf(const BandTable& t, double x) const;
   mutable std::once_flag table_once_;
-  mutable std::vector<double> table_theta_;  // leaf boundaries in θ, x = lo + w(1 − cos θ)/2
-  mutable std::vector<double> table_cumulative_;
-  mutable double left_tail_ = 0.0;  // mass of the unsampled layer at each edge, and its exponent
-  mutable double left_beta_ = 0.0;
-  mutable double right_beta_ = 0.0;
+  mutable std::vector<BandTable> tables_;
+  mutable std::string table_error_;  // why the tables could not be built (then cdf() throws it)
 };
 
 /// μ ⊞ ν: the law of a + b for free a ~ μ, b ~ ν (Voiculescu 1986), computed by analytic
@@ -86,13 +131,24 @@ class FreeAdditiveConvolution final : public SubordinatedLaw {
   std::complex<double> cauchy_derivative(std::complex<double> z) const override;
   std::vector<double> moments(int k) const override;
   std::string describe() const override;
-  SubordinationPoint solve(std::complex<double> z,
-                           const std::complex<double>* start = nullptr) const override;
+  SubordinationPoint solve(std::complex<double> z, const std::complex<double>* start = nullptr,
+                           bool cold = true) const override;
 
  private:
   bool polish(double x, std::complex<double>& omega1, std::complex<double>& g) const override;
+  bool real_map(int form, double x, double w, double& f, double& df) const override;
+  std::size_t atoms_in_inputs() const override;
+  int real_forms() const override { return 2; }
+  bool other_form(int form, double x, double w, double& out) const override;
+  /// The fixed point of ω2 instead of ω1 (where ω1 is near infinity).
+  SubordinationPoint solve_second(std::complex<double> z, const std::complex<double>* start,
+                                  bool cold) const;
   LawPtr mu_;
   LawPtr nu_;
+  // Far from the support h = 1/G − id is a difference of two large numbers; there it comes from
+  // its expansion in 1/w instead: [0] the radius beyond which, [1..5] the coefficients.
+  std::array<double, 6> far_mu_{};
+  std::array<double, 6> far_nu_{};
 };
 
 /// μ ⊠ ν for μ, ν on [0, ∞): the law of √b a √b (Voiculescu 1987), by multiplicative
@@ -104,11 +160,13 @@ class FreeMultiplicativeConvolution final : public SubordinatedLaw {
   std::complex<double> cauchy_derivative(std::complex<double> z) const override;
   std::vector<double> moments(int k) const override;
   std::string describe() const override;
-  SubordinationPoint solve(std::complex<double> z,
-                           const std::complex<double>* start = nullptr) const override;
+  SubordinationPoint solve(std::complex<double> z, const std::complex<double>* start = nullptr,
+                           bool cold = true) const override;
 
  private:
   bool polish(double x, std::complex<double>& omega1, std::complex<double>& g) const override;
+  bool real_map(int form, double x, double w, double& f, double& df) const override;
+  std::size_t atoms_in_inputs() const override;
   LawPtr mu_;
   LawPtr nu_;
 };

@@ -17,11 +17,21 @@ struct Atom {
   double mass;
 };
 
-/// Where a law lives: the closed interval [lo, hi] holds every atom and the continuous part.
+/// An interval (lo, hi) of the real line.
+struct Interval {
+  double lo;
+  double hi;
+};
+
+/// Where a law lives: the closed interval [lo, hi] holds every atom and the continuous part, and
+/// the continuous part lives on its bands: closed, disjoint intervals, sorted, with no mass
+/// between them (a semicircle plus well separated atoms has one band around each atom; a law of
+/// atoms alone has no band). Every law fills `bands`.
 struct Support {
   double lo = 0.0;
   double hi = 0.0;
-  std::vector<Atom> atoms;  // sorted by value, masses > 0
+  std::vector<Atom> atoms;      // sorted by value, masses > 0
+  std::vector<Interval> bands;  // the continuous part's components; empty: no continuous part
 };
 
 /// A probability law on the real line (or, for a radial law, of |λ| for a non-normal model).
