@@ -627,12 +627,14 @@ double SubordinatedLaw::edge_between(double x_out, AxisPoint p, double x_in) con
                                  continuous_hi_ - continuous_lo_});
   double xa = x_out, xb = x_in;
   AxisPoint pa = p, pp = p;
+  double x_previous = x_out;
   bool have_previous = false;
   while (std::abs(xb - xa) > 1e-9 * scale) {
     const double mid = 0.5 * (xa + xb);
     AxisPoint pc = pa;
     if (outside(mid, pc)) {
       pp = pa;
+      x_previous = xa;
       have_previous = true;
       xa = mid;
       pa = pc;
@@ -641,14 +643,21 @@ double SubordinatedLaw::edge_between(double x_out, AxisPoint p, double x_in) con
     }
   }
   const double fallback = 0.5 * (xa + xb);
+  if (have_previous && pp.form != pa.form) {
+    // Newton fell back to the other form near the fold: carry the farther point over to it.
+    double w = 0.0;
+    if (other_form(pp.form, x_previous, pp.w, w)) pp = AxisPoint{pa.form, w, pp.slope};
+  }
   if (!have_previous || pp.form != pa.form || pp.w == pa.w) return fallback;
   // 2. Along the real fixed point: the edge is where it turns from attracting (1 − f' > 0) to
   //    repelling, a simple sign change of 1 − f' in w; x(w) solves f_x(w) = w. March in w (the
   //    direction the fixed point moved towards the edge) until the sign changes, then bisect.
+  // The march starts from the farther of the last two outside points: the nearer one may sit
+  // within the rounding level of the fold, where its w is inaccurate.
   const int form = pa.form;
   const double direction = pa.w > pp.w ? 1.0 : -1.0;
-  double step = std::abs(pa.w - pp.w);
-  double w_lo = pa.w, x_lo = xa;
+  double step = 0.25 * std::abs(pa.w - pp.w);
+  double w_lo = pp.w, x_lo = x_previous;
   double w_hi = 0.0;
   bool bracketed = false;
   for (int k = 0; k < 80 && !bracketed; ++k) {
@@ -692,6 +701,30 @@ double SubordinatedLaw::edge_between(double x_out, AxisPoint p, double x_in) con
 
 void SubordinatedLaw::find_bands() {
   support_.bands.clear();
+  if (!(continuous_hi_ > continuous_lo_)) return;
+  // The outer edges, first found by walking the real subordination functions in from infinity,
+  // are polished by the same criterion as the interior ones (1 − f' changing sign), which
+  // takes them from about 1e-8 to rounding level.
+  auto polish_edge = [&](double edge, double direction) {
+    const double h = 1e-6 * std::max(1.0, continuous_hi_ - continuous_lo_);
+    const double x_out = edge + direction * h;
+    const double x_in = edge - direction * h;
+    try {
+      const SubordinationPoint p = solve_robust(cd(x_out, 1e-3 * h));
+      AxisPoint a{0, p.omega1.real(), 0.0};
+      if (real_forms() > 1 && !(std::abs(p.omega1) <= std::abs(p.omega2))) {
+        a = AxisPoint{1, p.omega2.real(), 0.0};
+      }
+      AxisPoint inside = a;
+      if (!outside(x_out, a) || outside(x_in, inside)) return edge;
+      return edge_between(x_out, a, x_in);
+    } catch (const NumericalError&) {
+      return edge;
+    }
+  };
+  continuous_hi_ = polish_edge(continuous_hi_, 1.0);
+  if (continuous_lo_ != 0.0) continuous_lo_ = polish_edge(continuous_lo_, -1.0);
+  finish_support();
   const double lo = continuous_lo_;
   const double hi = continuous_hi_;
   if (!(hi > lo)) return;
@@ -1111,7 +1144,7 @@ std::size_t FreeAdditiveConvolution::atoms_in_inputs() const {
 }
 
 std::string FreeAdditiveConvolution::describe() const {
-  return "free_additive(" + mu_->describe() + ", " + nu_->describe() + ")";
+  return "(" + mu_->describe() + ") ⊞ (" + nu_->describe() + ")";
 }
 
 // ------------------------------------------------------------------------------------- ⊠
@@ -1249,7 +1282,7 @@ std::size_t FreeMultiplicativeConvolution::atoms_in_inputs() const {
 }
 
 std::string FreeMultiplicativeConvolution::describe() const {
-  return "free_multiplicative(" + mu_->describe() + ", " + nu_->describe() + ")";
+  return "(" + mu_->describe() + ") ⊠ (" + nu_->describe() + ")";
 }
 
 // ------------------------------------------------------------------------------- factories
