@@ -501,6 +501,9 @@ class Circular final : public Law {
 class Affine final : public Law {
  public:
   Affine(LawPtr law, double a, double b) : law_(std::move(law)), a_(a), b_(b) {}
+  const LawPtr& inner() const { return law_; }
+  double scale() const { return a_; }
+  double shift() const { return b_; }
   double density(double x) const override { return law_->density((x - b_) / a_) / std::abs(a_); }
   double cdf(double x) const override {
     const double y = (x - b_) / a_;
@@ -544,8 +547,17 @@ class Affine final : public Law {
     if (a_ > 0.0 && p >= 0.0 && p <= 1.0) return a_ * law_->quantile(p) + b_;
     return Law::quantile(p);
   }
+  // Plain notation: "2·(semicircle(variance=1)) + 1", with a factor 1 and a shift 0 left out.
   std::string describe() const override {
-    return detail::format_number(a_) + "*(" + law_->describe() + ")+" + detail::format_number(b_);
+    std::string out = law_->describe();
+    if (a_ == -1.0) {
+      out = "−(" + out + ")";
+    } else if (a_ != 1.0) {
+      out = detail::format_number(a_) + "·(" + out + ")";
+    }
+    if (b_ > 0.0) out += " + " + detail::format_number(b_);
+    if (b_ < 0.0) out += " − " + detail::format_number(-b_);
+    return out;
   }
   bool radial() const override { return law_->radial(); }
 
@@ -772,7 +784,9 @@ LawPtr circular() { return std::make_shared<Circular>(); }
 LawPtr square_root(LawPtr law) {
   if (!law) throw InputError("square_root: law is null");
   const Support s = law->support();
-  if (law->radial() || s.lo < 0.0) {
+  // A positive operator's law computed numerically may start a rounding error below 0 (the
+  // polynomial solver's edges): up to 1e-6 of the support's scale that is taken as 0.
+  if (law->radial() || s.lo < -1e-6 * std::max(1.0, std::abs(s.hi))) {
     throw InputError("square_root: needs a law on [0, inf) (got " + law->describe() + ")");
   }
   return std::make_shared<SquareRoot>(std::move(law));
@@ -787,6 +801,11 @@ LawPtr affine(LawPtr law, double a, double b) {
   if (law->radial() && (a <= 0.0 || b != 0.0)) {
     throw InputError("affine: a radial law (" + law->describe() +
                      ") only takes a scale a > 0 and b = 0");
+  }
+  if (a == 1.0 && b == 0.0) return law;
+  // a·(a′X + b′) + b = (a a′)X + (a b′ + b): one affine map, so that a law prints as one.
+  if (const auto* inner = dynamic_cast<const Affine*>(law.get())) {
+    return affine(inner->inner(), a * inner->scale(), a * inner->shift() + b);
   }
   return std::make_shared<Affine>(std::move(law), a, b);
 }

@@ -11,6 +11,7 @@
 #include "freegap/analysis/moments.hpp"
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/job.hpp"
 #include "laws_quadrature.hpp"
 
@@ -244,6 +245,8 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
         out.exact_moments.push_back(v.value);
         out.exact_moment_text.push_back(v.text);
       }
+    } catch (const Stopped&) {
+      throw;  // a stop request ends the command, it is not a reason
     } catch (const Error& e) {
       out.moments_note = e.what();
     }
@@ -254,6 +257,8 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
   std::vector<expr::Monomial> terms;
   try {
     terms = expression.expansion(10000);
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {
     out.reason = std::string("the expression's expansion is too large for the rules: ") + e.what();
     return out;
@@ -405,8 +410,37 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
   return out;
 }
 
+// Singular values of a non-self-adjoint P: the square roots of the eigenvalues of P^* P, whose
+// law the same derivation gives (rules, then the polynomial solver).
+static void singular_values_from_gram(const expr::Expression& expression, int max_moment,
+                                      DerivedLimit& out) {
+  try {
+    const std::string gram = "(" + expression.text() + ")^* (" + expression.text() + ")";
+    const expr::Expression q(gram, expression.declared());
+    if (q.spectrum() != expr::Spectrum::eigenvalues) return;
+    const DerivedLimit inner = derive_limit(q, max_moment);
+    if (!inner.law) {
+      out.reason += "; nor does the law of P^*P (" + inner.reason + ")";
+      return;
+    }
+    out.law = square_root(inner.law);
+    out.rule = "singular values of P = " + expression.text() +
+               ": the square roots of the eigenvalues of P^*P, whose limit is " + inner.rule;
+    out.reason.clear();
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
+  } catch (const Error& e) {
+    out.reason += "; nor does the law of P^*P (" + std::string(e.what()) + ")";
+  }
+}
+
 DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
   DerivedLimit out = derive_by_rules(expression, max_moment);
+  if (!out.law && expression.spectrum() == expr::Spectrum::singular_values &&
+      !expression.self_adjoint()) {
+    singular_values_from_gram(expression, max_moment, out);
+    return out;
+  }
   if (out.law || expression.spectrum() != expr::Spectrum::eigenvalues || !expression.self_adjoint()) {
     return out;
   }
@@ -421,6 +455,8 @@ DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
                out.reason.substr(out.reason.rfind("yet: ") == std::string::npos ? 0 : out.reason.rfind("yet: ") + 5) + ")";
     out.law = law;
     out.reason.clear();
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {
     out.reason += "; the polynomial solver does not cover it either: " + std::string(e.what());
   }

@@ -1,5 +1,6 @@
 // `freegap limit`: the N → ∞ law of an expression from the matrices' declarations alone (no
 // sampling) — support edges, operator-norm limit, moments, and a density/CDF table with plots.
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
@@ -10,6 +11,7 @@
 #include <vector>
 
 #include "commands.hpp"
+#include "freegap/analysis/limit.hpp"
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/install_paths.hpp"
@@ -56,23 +58,40 @@ int run_limit(const LimitOptions& opt) {
   std::vector<ensembles::MatrixSpec> specs;
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
   const expr::Expression expression(opt.expression, specs);
-  analysis::PolynomialLimitOptions options;
-  options.exact_moment_order = opt.max_moment;
-  const auto law = analysis::polynomial_limit(expression, options);
+  // The same derivation as `report` and the estimators' truths: closed-form rules, then free
+  // convolutions, then the polynomial solver; singular values from the law of P^*P.
+  const analysis::DerivedLimit derived = analysis::derive_limit(expression, opt.max_moment);
+  if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
+  const analysis::LawPtr law = derived.law;
+  const auto* polynomial = dynamic_cast<const analysis::PolynomialLaw*>(law.get());
   const auto support = law->support();
+  const bool singular = expression.spectrum() == expr::Spectrum::singular_values;
 
   std::printf("expression: %s\n", expression.text().c_str());
-  std::printf("free variables:\n");
-  for (const auto& l : law->polynomial().letters) {
-    std::printf("  %-14s %s\n", l.name.c_str(), l.law->describe().c_str());
+  std::printf("spectrum: %s\n", singular ? "singular values" : "eigenvalues");
+  std::printf("rule: %s\n", derived.rule.c_str());
+  std::printf("law: %s\n", law->describe().c_str());
+  if (polynomial != nullptr) {
+    std::printf("free variables:\n");
+    for (const auto& l : polynomial->polynomial().letters) {
+      std::printf("  %-14s %s\n", l.name.c_str(), l.law->describe().c_str());
+    }
+    std::printf("pencil size: %d (self-adjoint linearization)\n", polynomial->pencil_size());
   }
-  std::printf("pencil size: %d (self-adjoint linearization)\n", law->pencil_size());
   std::printf("support: [%.10f, %.10f]\n", support.lo, support.hi);
-  std::printf("operator-norm limit: %.10f\n", law->norm_limit());
+  if (support.bands.size() > 1) {
+    std::printf("bands of the continuous part: %zu\n", support.bands.size());
+    for (const auto& band : support.bands) std::printf("  [%.10f, %.10f]\n", band.lo, band.hi);
+  }
+  const double norm = polynomial != nullptr ? polynomial->norm_limit()
+                      : singular ? support.hi
+                                 : std::max(std::abs(support.lo), std::abs(support.hi));
+  std::printf("operator-norm limit: %.10f\n", norm);
 
-  const auto solver = law->solver_moments(opt.max_moment);
-  const auto& exact = law->exact_moments();
-  std::printf("moments     solver                exact\n");
+  const auto solver = polynomial != nullptr ? polynomial->solver_moments(opt.max_moment)
+                                            : law->moments(opt.max_moment);
+  const auto& exact = derived.exact_moments;
+  std::printf("moments     %-20s  exact\n", polynomial != nullptr ? "solver" : "law");
   for (int k = 1; k <= opt.max_moment; ++k) {
     if (k < static_cast<int>(exact.size())) {
       std::printf("  m%-3d %20.12g  %20.12g\n", k, solver[k], exact[k]);
@@ -87,30 +106,55 @@ int run_limit(const LimitOptions& opt) {
   for (int i = 0; i < opt.points; ++i) {
     xs.push_back(support.lo - 0.05 * width + 1.1 * width * (i + 0.5) / opt.points);
   }
-  const auto reports = law->evaluate(xs);
-  int converged = 0;
+  // Every point gets a density or is named as failed; a failure never ends the command.
+  std::vector<double> density(xs.size(), std::nan(""));
+  std::vector<bool> ok(xs.size(), false);
   long long steps = 0, worst = 0;
-  std::vector<double> failed;
-  for (const auto& r : reports) {
-    converged += r.converged ? 1 : 0;
-    steps += r.averaged_steps + r.newton_steps;
-    worst = std::max<long long>(worst, r.averaged_steps + r.newton_steps);
-    if (!r.converged) failed.push_back(r.x);
+  if (polynomial != nullptr) {
+    const auto reports = polynomial->evaluate(xs);
+    for (std::size_t i = 0; i < reports.size(); ++i) {
+      ok[i] = reports[i].converged;
+      if (ok[i]) density[i] = reports[i].density;
+      steps += reports[i].averaged_steps + reports[i].newton_steps;
+      worst = std::max<long long>(worst, reports[i].averaged_steps + reports[i].newton_steps);
+    }
+  } else {
+    try {
+      density = law->densities(xs);
+      ok.assign(xs.size(), true);
+    } catch (const NumericalError&) {
+      for (std::size_t i = 0; i < xs.size(); ++i) {
+        try {
+          density[i] = law->density(xs[i]);
+          ok[i] = true;
+        } catch (const NumericalError&) {
+        }
+      }
+    }
   }
-  std::printf("density grid: %d points, %d converged; iterations per point: mean %.1f, max %lld\n",
-              opt.points, converged, static_cast<double>(steps) / opt.points, worst);
-  for (double x : failed) std::printf("  not converged at x = %.10g (no value reported)\n", x);
-  double mass = law->continuous_mass();
-  for (const auto& a : support.atoms) {
-    std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
-    mass += a.mass;
+  const auto converged = std::count(ok.begin(), ok.end(), true);
+  if (polynomial != nullptr) {
+    std::printf("density grid: %d points, %lld converged; iterations per point: mean %.1f, max %lld\n",
+                opt.points, static_cast<long long>(converged), static_cast<double>(steps) / opt.points,
+                worst);
+  } else {
+    std::printf("density grid: %d points, %lld converged\n", opt.points,
+                static_cast<long long>(converged));
   }
-  if (std::abs(mass - 1.0) > 1e-4) {
-    std::printf(
-        "note: the density and the point masses found add up to %.6f; the remaining %.6f is "
-        "in point masses this solver does not locate or is lost near a singularity of the "
-        "density, and the CDF misses it\n",
-        mass, 1.0 - mass);
+  for (std::size_t i = 0; i < xs.size(); ++i) {
+    if (!ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
+  }
+  for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
+  if (polynomial != nullptr) {
+    double mass = polynomial->continuous_mass();
+    for (const auto& a : support.atoms) mass += a.mass;
+    if (std::abs(mass - 1.0) > 1e-4) {
+      std::printf(
+          "note: the density and the point masses found add up to %.6f; the remaining %.6f is "
+          "in point masses this solver does not locate or is lost near a singularity of the "
+          "density, and the CDF misses it\n",
+          mass, 1.0 - mass);
+    }
   }
 
   if (opt.output.empty()) return 0;
@@ -123,10 +167,14 @@ int run_limit(const LimitOptions& opt) {
     if (!out) throw InputError("-o " + opt.output + ": cannot write " + csv.string());
     out << "x,density,cdf\n";
     char line[128];
-    for (const auto& r : reports) {
+    for (std::size_t i = 0; i < xs.size(); ++i) {
       check_stop();  // the CDF integrates the density: stop before the table is complete
-      std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", r.x,
-                    r.converged ? r.density : std::nan(""), law->cdf(r.x));
+      double cdf = std::nan("");
+      try {
+        cdf = law->cdf(xs[i]);
+      } catch (const NumericalError&) {
+      }
+      std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", xs[i], density[i], cdf);
       out << line;
     }
     if (!out) throw Error("writing " + csv.string() + " failed");
@@ -171,7 +219,8 @@ Subcommand add_limit_command(CLI::App& app) {
   cmd->add_option("-m,--matrix", opt->declarations,
                   "Declare a matrix: NAME=ENSEMBLE[:key=value]... (repeatable)")
       ->required();
-  cmd->add_option("-e,--expression", opt->expression, "Self-adjoint expression in the matrices")
+  cmd->add_option("-e,--expression", opt->expression,
+                  "Expression in the matrices (eigenvalues if self-adjoint, else singular values)")
       ->required();
   cmd->add_option("-o,--output", opt->output,
                   "Directory for limit.csv (x, density, cdf) and limit.png / limit.svg");
