@@ -14,6 +14,7 @@
 #include "freegap/analysis/laws.hpp"
 #include "freegap/analysis/moments.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/expr.hpp"
 #include "freegap/job.hpp"
 #include "freegap/observe.hpp"
@@ -54,6 +55,8 @@ std::optional<std::pair<double, double>> limit_edges_of(const store::RunHeader& 
     const Support s = d.law->support();
     note = "support of the limit law " + d.law->describe();
     return std::make_pair(s.lo, s.hi);
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {
     note = e.what();
     return std::nullopt;

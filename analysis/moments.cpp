@@ -2,6 +2,7 @@
 #include "freegap/analysis/moments.hpp"
 
 #include <algorithm>
+#include <cstdio>
 #include <cctype>
 #include <climits>
 #include <functional>
@@ -393,7 +394,16 @@ std::vector<ExactValue> FreeMomentEngine::moments(const Polynomial& polynomial, 
   for (int k = 0; k <= max_order; ++k) {
     if (k > 0) power = multiply(power, polynomial);
     const Rational value = trace(power);
-    out.push_back({value, value.to_double(), value.to_string()});
+    // An exact rational is shown as such while it stays readable (inputs that are small
+    // rationals); one grown from decimal inputs (√3 written as 1.7320508…) has hundreds of digits
+    // and is shown as a decimal of 15 significant digits instead.
+    std::string text = value.to_string();
+    if (text.size() > 24) {
+      char buffer[40];
+      std::snprintf(buffer, sizeof buffer, "%.15g", value.to_double());
+      text = buffer;
+    }
+    out.push_back({value, value.to_double(), text});
   }
   return out;
 }

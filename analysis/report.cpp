@@ -11,6 +11,7 @@
 #include <numbers>
 #include <memory>
 #include <optional>
+#include <span>
 #include <sstream>
 #include <unordered_map>
 
@@ -21,6 +22,7 @@
 #include "freegap/analysis/metrics.hpp"
 #include "freegap/analysis/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/stop.hpp"
 #include "freegap/store.hpp"
 #include "freegap/sweep.hpp"
 #include "laws_quadrature.hpp"
@@ -147,6 +149,25 @@ class TabulatedCdf {
   double lo_ = 0.0, w_ = 0.0, theta_step_ = 0.0;
   std::vector<double> values_, slopes_;
 };
+
+// Densities on a grid; where the solver fails at a point that point is NaN (written as such in
+// the tables and left out of the figures) instead of the whole report failing.
+std::vector<double> densities_or_nan(const Law& law, std::span<const double> xs) {
+  try {
+    return law.densities(xs);
+  } catch (const NumericalError&) {
+  }
+  std::vector<double> out;
+  out.reserve(xs.size());
+  for (double x : xs) {
+    try {
+      out.push_back(law.density(x));
+    } catch (const NumericalError&) {
+      out.push_back(kNaN);
+    }
+  }
+  return out;
+}
 
 LimitReference reference_of(const DerivedLimit& d, observe::SpectrumKind kind) {
   LimitReference r;
@@ -306,10 +327,23 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   const int max_moment = run.header.sizes.empty() ? 0 : run.header.sizes.front().observe.max_moment;
   try {
     run.limit = derive_limit(run_expression(run.header), max_moment);
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {
     run.limit.reason = std::string("the job stored in the run file cannot be rebuilt here: ") + e.what();
   }
-  run.reference = reference_of(run.limit, run.header.spectrum);
+  try {
+    run.reference = reference_of(run.limit, run.header.spectrum);
+  } catch (const NumericalError& e) {
+    // Never abort the report: the finite-N data is reported without the distances that need the
+    // limit's CDF, and the note says why.
+    DerivedLimit without = run.limit;
+    without.law = nullptr;
+    run.reference = reference_of(without, run.header.spectrum);
+    run.notes.push_back(std::string("the limit's CDF could not be computed (") + e.what() +
+                        "), so the distances to the limit are not reported; its support, "
+                        "moments and density are");
+  }
   MetricsOptions metrics;
   metrics.bootstrap_replicates = options.bootstrap_replicates;
   for (std::size_t i = 0; i < run.header.sizes.size(); ++i) {
@@ -479,7 +513,7 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
       const int points = dynamic_cast<const PolynomialLaw*>(run.limit.law.get()) ? 401 : 801;
       std::vector<double> xs(points);
       for (int i = 0; i < points; ++i) xs[i] = lo + (hi - lo) * i / (points - 1);
-      const auto ds = run.limit.law->densities(xs);
+      const auto ds = densities_or_nan(*run.limit.law, xs);
       for (int i = 0; i < points; ++i) dens_t.rows.push_back({id, xs[i], ds[i]});
       for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.mass});
     }
@@ -607,11 +641,24 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
       md += "- law: " + run.limit.law->describe() + "\n- rule: " + run.limit.rule + "\n";
       md += "- support: [" + fmt("%.10g", s.lo) + ", " + fmt("%.10g", s.hi) + "]";
       if (!s.atoms.empty()) md += ", with " + std::to_string(s.atoms.size()) + " atom(s)";
+      if (s.bands.size() > 1) {
+        md += "; the continuous part lives on " + std::to_string(s.bands.size()) + " bands: ";
+        for (std::size_t b = 0; b < s.bands.size(); ++b) {
+          if (b == 8 && s.bands.size() > 10) {
+            md += " ∪ … (" + std::to_string(s.bands.size() - 9) + " more) ∪ ";
+            b = s.bands.size() - 1;
+          } else if (b > 0) {
+            md += " ∪ ";
+          }
+          md += "[" + fmt("%.10g", s.bands[b].lo) + ", " + fmt("%.10g", s.bands[b].hi) + "]";
+        }
+      }
       md += "; operator-norm limit " + fmt("%.10g", run.reference.norm) + "\n";
     } else {
       md += "- no predictor applies: " + run.limit.reason + ". The finite-N data is reported below "
             "without distances to a limit.\n";
     }
+    for (const std::string& note : run.notes) md += "- note: " + note + "\n";
     if (!run.limit.exact_moment_text.empty()) {
       md += "- exact limit moments m_1..m_" + std::to_string(run.limit.exact_moment_text.size() - 1) +
             " (free cumulants over non-crossing partitions): ";
@@ -713,15 +760,17 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     if (!run.fits.empty()) {
       md += "\n### Convergence rates: error ≈ C·N^(−α)\n\nWeighted least squares on log–log scales; "
             "t-interval (95%) and percentile bootstrap interval over trials (signed errors) or work "
-            "units (distances).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α |\n"
-            "|---|---|---|---|---|---|\n";
+            "units (distances).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
+            "source of the published α |\n|---|---|---|---|---|---|---|\n";
       std::vector<std::string> warnings;
       for (const auto& f : run.fits) {
         md += "| " + f.quantity + " | " + (f.fit.ok ? fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error) : "no fit") +
               " | " + (f.fit.ok ? fmt("%.3f – %.3f", f.fit.ci_low, f.fit.ci_high) : "–") + " | " +
               (f.bootstrap ? fmt("%.3f – %.3f", f.bootstrap->low, f.bootstrap->high) : "–") + " | " +
               std::to_string(f.fit.points) + " | " +
-              (f.published ? num(f.published->alpha) + " (" + std::string(f.published->source) + ")" : "–") + " |\n";
+              (f.published ? num(f.published->alpha) + " | " + std::string(f.published->source)
+                           : std::string("– | –")) +
+              " |\n";
         for (const auto& w : f.fit.warnings) warnings.push_back(f.quantity + ": " + w);
       }
       if (!warnings.empty()) {

@@ -89,7 +89,7 @@ def main():
         status = {int(float(s["n"])): s["status"] for s in sizes}
         want = {n: ("complete" if done == total else "no data" if done == 0 else "incomplete") for n, done, total in state}
         c.equal(status, want, "sizes.csv gives every size its status")
-        c.check("arcsine" in md or "free_additive" in md, "the limit (free sum of the two ±1 laws) is named")
+        c.check("arcsine" in md or " ⊞ " in md, "the limit (free sum of the two ±1 laws) is named")
         figures = os.path.join(d, "rep", "figures")
         names = sorted(os.listdir(figures)) if os.path.isdir(figures) else []
         with_data = [n for n, done, total in state if done > 0]

@@ -249,7 +249,7 @@ TEST(EstimatorScores, TruthsResolveAgainstTheJob) {
   // does): between √m₂ = √11.625 and ‖T‖²·(1 + √c)² = 4 (1 + √0.5)² (norm bounds, common practice).
   const auto edge = analysis::resolve_truth("limit_edge:upper", h);
   ASSERT_TRUE(edge.known) << edge.note;
-  EXPECT_NE(edge.note.find("free_multiplicative"), std::string::npos) << edge.note;
+  EXPECT_NE(edge.note.find(" ⊠ "), std::string::npos) << edge.note;
   EXPECT_GT(edge.value, std::sqrt(11.625));
   EXPECT_LT(edge.value, 4.0 * std::pow(1.0 + std::sqrt(0.5), 2));
   analysis::ScoreOptions given;

@@ -230,7 +230,7 @@ struct EngineOptions {
 struct ExactValue {
   Rational exact;
   double value = 0.0;
-  std::string text;  ///< exact.to_string()
+  std::string text;  ///< exact.to_string(), or a 15-digit decimal when that is over 24 characters
 };
 
 /// τ of words and polynomials in free variables (see the header comment for the method).
