@@ -34,6 +34,9 @@ export ASAN_OPTIONS
 export UBSAN_OPTIONS="halt_on_error=1:print_stacktrace=1:exitcode=23"
 export LSAN_OPTIONS="suppressions=$root/tests/sanitize/lsan.supp:print_suppressions=0:exitcode=23"
 export OPENBLAS_NUM_THREADS="${OPENBLAS_NUM_THREADS:-1}"
+# Checks that give a program a time limit (an estimator's timeout, a hang detector) scale it by
+# this factor: instrumented programs start and run several times slower.
+export FREEGAP_TEST_TIME_SCALE="${FREEGAP_TEST_TIME_SCALE:-10}"
 # Debian 12's OpenBLAS (0.3.21) complex matrix-vector kernels for AVX cores (zgemv_n_HASWELL,
 # zgemv_n_SANDYBRIDGE, reached from zgesdd in linalg::polar_factor) read past the end of a small
 # matrix; under the sanitizers' allocator that read can reach an unmapped page and the test dies

@@ -91,7 +91,7 @@ mean_square = "none"
 [[estimator]]
 name = "slow"
 command = ["{plugins}/estimate_command", "sleep"]
-timeout = 0.5
+timeout = {slow_timeout}
 [estimator.truth]
 top = "none"
 mean_square = "none"
@@ -119,7 +119,12 @@ PROBE = {name: 9 + k for k, name in enumerate(
      "frobenius_square", "is_complex", "rows", "trace"])}
 
 CRASH = "plug-in crashed: signal 11 (SIGSEGV)"
-SLOW = "command did not finish within the timeout of 0.5 s; it was killed"
+# The slow command sleeps 30 s on trials ≡ 1 (mod 3) and answers at once on the others; its
+# timeout is 0.5 s, times FREEGAP_TEST_TIME_SCALE when that is set (tests/run_sanitized.sh sets
+# 10: under the sanitizers an instrumented command takes longer than 0.5 s just to start).
+TIME_SCALE = float(os.environ.get("FREEGAP_TEST_TIME_SCALE", "1"))
+SLOW_TIMEOUT = "%g" % (0.5 * TIME_SCALE)
+SLOW = "command did not finish within the timeout of %s s; it was killed" % SLOW_TIMEOUT
 
 
 def read(path):
@@ -143,7 +148,8 @@ def main():
     plugins = os.path.join(os.path.abspath(sys.argv[1]), "tests", "estimate")
     c = rh.Checks("estimators ride along: ranks, resume, faults, refusals")
     with rh.WorkDir("estimators") as d:
-        job = rh.write(os.path.join(d, "job.toml"), JOB.format(plugins=plugins, crash="segfault"))
+        job = rh.write(os.path.join(d, "job.toml"), JOB.format(plugins=plugins, crash="segfault",
+                                                               slow_timeout=SLOW_TIMEOUT))
         files = {}
         for way, ranks in [("plain", None), ("np1", 1), ("np2", 2)]:
             out = os.path.join(d, way + ".h5")
@@ -264,7 +270,8 @@ def main():
         line = JOB.splitlines().index('library = "{plugins}/libtest_plugin_{crash}.so"') + 1
         for crash, message in cases:
             bad = rh.write(os.path.join(d, "bad-%s.toml" % crash), JOB.format(plugins=plugins,
-                                                                                crash=crash))
+                                                                                crash=crash,
+                                                                                slow_timeout=SLOW_TIMEOUT))
             out = os.path.join(d, "bad-%s.h5" % crash)
             for ranks in (None, 2):
                 r = rh.run(rh.command(exe, ["run", bad, "-q", "-o", out], ranks), d)
