@@ -574,6 +574,15 @@ bool SubordinatedLaw::axis_fixed_point(int form, double x, double& w, double& sl
   return false;
 }
 
+SubordinatedLaw::AxisPoint SubordinatedLaw::axis_start(const SubordinationPoint& p) const {
+  // The subordination function that stayed finite (ω1 runs off to infinity where G vanishes in
+  // a gap), real part only.
+  if (real_forms() > 1 && !(std::abs(p.omega1) <= std::abs(p.omega2))) {
+    return AxisPoint{1, p.omega2.real(), 0.0};
+  }
+  return AxisPoint{0, p.omega1.real(), 0.0};
+}
+
 bool SubordinatedLaw::outside(double x, AxisPoint& p) const {
   double w = p.w;
   if (axis_fixed_point(p.form, x, w, p.slope)) {
@@ -710,11 +719,7 @@ void SubordinatedLaw::find_bands() {
     const double x_out = edge + direction * h;
     const double x_in = edge - direction * h;
     try {
-      const SubordinationPoint p = solve_robust(cd(x_out, 1e-3 * h));
-      AxisPoint a{0, p.omega1.real(), 0.0};
-      if (real_forms() > 1 && !(std::abs(p.omega1) <= std::abs(p.omega2))) {
-        a = AxisPoint{1, p.omega2.real(), 0.0};
-      }
+      AxisPoint a = axis_start(solve_robust(cd(x_out, 1e-3 * h)));
       AxisPoint inside = a;
       if (!outside(x_out, a) || outside(x_in, inside)) return edge;
       return edge_between(x_out, a, x_in);
@@ -745,12 +750,7 @@ void SubordinatedLaw::find_bands() {
     warm = p.omega1;
     have_warm = finite(warm);
     density = -(p.cauchy - atom_cauchy(z)).imag() / kPi;
-    // Start from the subordination function that stayed finite (ω1 runs off to infinity where
-    // G vanishes in a gap).
-    w = AxisPoint{0, p.omega1.real(), 0.0};
-    if (real_forms() > 1 && !(std::abs(p.omega1) <= std::abs(p.omega2))) {
-      w = AxisPoint{1, p.omega2.real(), 0.0};
-    }
+    w = axis_start(p);
     return outside(x, w);
   };
   for (int i = 0; i < kGrid; ++i) {

@@ -101,6 +101,8 @@ class SubordinatedLaw : public Law {
   /// Is x outside the support (a real fixed point w of f_x with f_x'(w) < 1, found by Newton from
   /// p.w in form p.form, then in the other form)? On success p is that fixed point.
   bool outside(double x, AxisPoint& p) const;
+  /// Where Newton on the axis starts from a solve just above it: the finite one of ω1, ω2.
+  AxisPoint axis_start(const SubordinationPoint& p) const;
   bool axis_fixed_point(int form, double x, double& w, double& slope) const;
   /// The x at which w is a fixed point of f_x (form `form`), from x0; slope = 1 − f_x'(w).
   bool x_of_fixed_point(int form, double w, double x0, double& x, double& slope) const;
