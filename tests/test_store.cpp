@@ -655,6 +655,40 @@ TEST(Store, RefusesADamagedRunFile) {
   EXPECT_EQ(message.substr(message.size() - tail.size()), tail) << message;
 }
 
+// Two inputs of the run-file fuzz campaign (tests/fuzz/regressions/run_file/), each a copy of a
+// two-rank run file with a few bytes changed.
+std::string fuzz_regression(const char* name) {
+  return std::string(FREEGAP_SOURCE_DIR) + "/tests/fuzz/regressions/run_file/" + name;
+}
+
+TEST(Store, ADamagedTypeIsRefusedBeforeHdf5SizesABufferByIt) {
+  // The stored type of /sizes/0/kept_trials claims 1.4 GB per element: HDF5 allocated and filled
+  // that much (4 s) before it found the data past the end of the file. Now the type is compared
+  // with the one freegap writes first.
+  const auto path = fuzz_regression("type-of-an-element-1.4-GB-wide");
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_read(path); }),
+            "run file '" + path +
+                "' is damaged (dataset 'kept_trials' has the wrong type); restore a good copy");
+}
+
+TEST(Store, AReadHdf5NeverFinishesIsARefusalAfterTheStallLimit) {
+  // Reading the header's strings from this file's damaged global heap loops inside HDF5 for
+  // ever; the checking child is killed when it reports nothing for the stall limit.
+  const auto path = fuzz_regression("string-heap-read-never-ends");
+  const char* before = std::getenv("FREEGAP_CHECK_STALL_SECONDS");
+  const std::string saved = before ? before : "";
+  ::setenv("FREEGAP_CHECK_STALL_SECONDS", "1", 1);
+  const auto message = message_of_type<InputError>([&] { RunFile::open_read(path); });
+  if (before) {
+    ::setenv("FREEGAP_CHECK_STALL_SECONDS", saved.c_str(), 1);
+  } else {
+    ::unsetenv("FREEGAP_CHECK_STALL_SECONDS");
+  }
+  EXPECT_EQ(message, "run file '" + path +
+                         "' is damaged where HDF5 cannot read it (reading it made no progress "
+                         "for 1 s); restore a good copy");
+}
+
 TEST(Store, RefusesATextFileNamedH5) {
   TempDir dir;
   const auto path = dir.file("x.h5");

@@ -192,6 +192,26 @@ std::vector<hsize_t> extent(hid_t dataset, Where where) {
   return dims;
 }
 
+std::vector<hsize_t> extent_within_file(hid_t dataset, std::size_t bytes_each, Where where,
+                                        const std::string& name) {
+  const auto dims = extent(dataset, where);
+  Id file = own(H5Iget_file_id(dataset), H5Fclose, where, "find the file of '" + name + "'");
+  hsize_t file_size = 0;
+  check(H5Fget_filesize(file.get(), &file_size), where, "read the file's size");
+  // Element count times bytes_each, saturating: any overflow is more than any file holds.
+  hsize_t bytes = bytes_each;
+  for (const hsize_t d : dims) {
+    if (d != 0 && bytes > file_size / d) {
+      throw Error("dataset '" + name + "' claims more elements than the file holds");
+    }
+    bytes *= d;
+  }
+  if (bytes > file_size) {
+    throw Error("dataset '" + name + "' claims more elements than the file holds");
+  }
+  return dims;
+}
+
 namespace {
 
 bool empty_block(const std::vector<hsize_t>& count) {

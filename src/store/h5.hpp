@@ -101,6 +101,12 @@ Id open_dataset(hid_t group, const std::string& name, Where where);
 Id open_group(hid_t parent, const std::string& name, Where where);
 /// The current extent of a dataset.
 std::vector<hsize_t> extent(hid_t dataset, Where where);
+/// The extent of a dataset that is written whole and stored without compression, so that each of
+/// its elements takes at least `bytes_each` bytes of the file: a damaged shape that claims more
+/// elements than the file can hold is an Error before any buffer is sized by it (HDF5 itself
+/// finds the overflow only after the reader allocated the buffer, seconds and gigabytes later).
+std::vector<hsize_t> extent_within_file(hid_t dataset, std::size_t bytes_each, Where where,
+                                        const std::string& name);
 
 /// Writes/reads the block start..start+count of a dataset from/to a dense memory buffer of
 /// `mem_type`. A block with no elements does nothing.

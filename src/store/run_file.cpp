@@ -761,9 +761,22 @@ void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t sessi
 // ---------------------------------------------------------------------------------------------
 // Reading an existing file
 
+// A dataset's stored type must be the one freegap writes before anything is read: HDF5 sizes its
+// conversion buffers by the stored type, and a damaged type message (an element claimed to be
+// 1.4 GB wide, found by the run-file fuzz campaign) made it allocate and fill gigabytes before it
+// found that the data lie past the end of the file.
+void expect_stored_type(hid_t dataset, hid_t type, const char* name, Where where) {
+  Id stored = h5::own(H5Dget_type(dataset), H5Tclose, where,
+                      std::string("read the type of dataset '") + name + "'");
+  if (H5Tequal(stored.get(), type) <= 0) {
+    throw Error(std::string("dataset '") + name + "' has the wrong type");
+  }
+}
+
 std::vector<double> read_doubles_1d(hid_t group, const char* name, Where where) {
   Id dataset = h5::open_dataset(group, name, where);
-  const auto dims = h5::extent(dataset.get(), where);
+  expect_stored_type(dataset.get(), H5T_IEEE_F64LE, name, where);
+  const auto dims = h5::extent_within_file(dataset.get(), sizeof(double), where, name);
   if (dims.size() != 1) h5::fail(where, std::string("read dataset '") + name + "' (not 1-D)");
   std::vector<double> values(dims[0]);
   h5::read_block(dataset.get(), H5T_NATIVE_DOUBLE, {0}, {dims[0]}, values.data(), where,
@@ -773,7 +786,8 @@ std::vector<double> read_doubles_1d(hid_t group, const char* name, Where where) 
 
 std::vector<std::uint64_t> read_uint64_1d(hid_t group, const char* name, Where where) {
   Id dataset = h5::open_dataset(group, name, where);
-  const auto dims = h5::extent(dataset.get(), where);
+  expect_stored_type(dataset.get(), H5T_STD_U64LE, name, where);
+  const auto dims = h5::extent_within_file(dataset.get(), sizeof(std::uint64_t), where, name);
   if (dims.size() != 1) h5::fail(where, std::string("read dataset '") + name + "' (not 1-D)");
   std::vector<std::uint64_t> values(dims[0]);
   h5::read_block(dataset.get(), H5T_NATIVE_UINT64, {0}, {dims[0]}, values.data(), where,
@@ -832,7 +846,10 @@ RunHeader read_header(hid_t file, Where where) {
     std::vector<std::vector<std::string>> fields;
     for (const char* name : {"estimator", "estimate", "truth"}) {
       Id dataset = h5::open_dataset(group.get(), name, where);
-      const auto dims = h5::extent(dataset.get(), where);
+      // A variable-length string is stored as a reference into a heap, which holds an 8-byte
+      // address: at least 8 bytes of the file each.
+      const auto dims = h5::extent_within_file(dataset.get(), 8, where,
+                                               std::string("/estimators/") + name);
       if (dims.size() != 1) throw Error(std::string("dataset '/estimators/") + name + "' is not 1-D");
       fields.push_back(h5::read_strings(dataset.get(), 0, dims[0], where,
                                         std::string("read '/estimators/") + name + "'"));

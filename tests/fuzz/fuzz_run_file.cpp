@@ -1,9 +1,9 @@
 // libFuzzer target for the run-file reader: the input bytes are a run file. Whatever they are,
 // reading them must end in a refusal (InputError), an error, or data whose damaged units are
 // named; never a crash or a hang of this process. HDF5 itself may crash on such bytes: that
-// happens inside the checking child of store::verify / RunFile::open_read, which turns it into
-// a refusal, so what this target proves is that the containment holds and that everything the
-// parent reads afterwards is safe to read.
+// happens inside the checking child of RunFile::open_read (store::verify), which turns it into a
+// refusal, so what this target proves is that the containment holds, that everything the parent
+// reads afterwards is safe to read, and that every unit found damaged reads as not committed.
 //
 // Build: see tests/fuzz/run_file.cmake. Seed corpus: any small run file, e.g. one written by
 // `freegap run` of tests/python/check_damaged_run_files.py's job.
@@ -42,10 +42,16 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     std::abort();  // the fuzzer cannot work without its scratch file
   }
   try {
-    const store::Integrity integrity = store::verify(path);
+    // What a command does: open_read checks the whole file in a forked child (store::verify)
+    // before this process reads any of it.
     const store::RunFile file = store::RunFile::open_read(path);
-    // What open_read left in must agree with what verify found.
-    if (file.integrity().damaged.size() != integrity.damaged.size()) std::abort();
+    // Every unit the check named damaged must read as not committed.
+    for (const store::DamagedUnit& d : file.integrity().damaged) {
+      if (d.size_index >= file.header().sizes.size()) std::abort();
+      const auto committed = file.committed(d.size_index);
+      if (d.unit < 0 || static_cast<std::size_t>(d.unit) >= committed.size()) std::abort();
+      if (committed[static_cast<std::size_t>(d.unit)]) std::abort();
+    }
     for (std::size_t i = 0; i < file.header().sizes.size(); ++i) {
       const auto committed = file.committed(i);
       const auto observations = file.read_observations(i);

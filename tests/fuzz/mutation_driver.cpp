@@ -3,8 +3,10 @@
 //   1. every file of a regression directory, as it is, then
 //   2. RUNS mutants of the seed files made by a fixed-seed generator (std::mt19937_64), so that a
 //      campaign is the same campaign on every machine.
-// It is built in the sanitized build (gcc, AddressSanitizer and UndefinedBehaviorSanitizer), where
-// libFuzzer is not available; a finding ends the process through the sanitizer with its exit code.
+// It is built in the plain and the sanitized build (gcc, where libFuzzer is not available); in the
+// sanitized one a finding ends the process through the sanitizer with its exit code. An input
+// that takes over 10 s (FREEGAP_FUZZ_HANG_SECONDS, times FREEGAP_TEST_TIME_SCALE) is a hang and
+// fails the campaign; the end line gives the slowest input's time.
 // Before each input the bytes are written to WORK_DIR/current-input, so that the input of a
 // crash is left there: copy it into the regression directory together with the fix.
 //
@@ -16,6 +18,7 @@
 // to an extreme value (0, all ones, small and large integers), a block copied from one place to
 // another (a plausible header where it does not belong), and a block removed.
 #include <algorithm>
+#include <chrono>
 #include <cstddef>
 #include <cstdint>
 #include <cstdio>
@@ -52,9 +55,32 @@ void write_all(const std::filesystem::path& path, const Bytes& bytes) {
   }
 }
 
-void run_one(const std::filesystem::path& current, const Bytes& input) {
+// The slowest input so far, and the limit above which an input counts as a hang.
+struct Timing {
+  double limit_seconds = 10.0;
+  double slowest_seconds = 0.0;
+  long slowest_index = -1;
+  long over_one_second = 0;
+};
+
+void run_one(const std::filesystem::path& current, const Bytes& input, long index,
+             Timing& timing) {
   write_all(current, input);
+  const auto start = std::chrono::steady_clock::now();
   LLVMFuzzerTestOneInput(input.data(), input.size());
+  const double seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  if (seconds > 1.0) ++timing.over_one_second;
+  if (seconds > timing.slowest_seconds) {
+    timing.slowest_seconds = seconds;
+    timing.slowest_index = index;
+  }
+  if (seconds > timing.limit_seconds) {
+    std::cerr << "mutation_driver: input " << index << " took " << seconds << " s, over the "
+              << timing.limit_seconds << " s that counts as a hang; it is left in " << current
+              << "\n";
+    std::exit(1);
+  }
 }
 
 Bytes mutate(const Bytes& seed, std::mt19937_64& rng) {
@@ -133,7 +159,19 @@ int main(int argc, char** argv) {
     }
   }
   std::sort(regression_files.begin(), regression_files.end());
-  for (const auto& path : regression_files) run_one(current, read_all(path));
+  // A hang is an input over 10 s, or FREEGAP_FUZZ_HANG_SECONDS, times FREEGAP_TEST_TIME_SCALE
+  // (set for sanitized runs).
+  Timing timing;
+  if (const char* limit = std::getenv("FREEGAP_FUZZ_HANG_SECONDS"); limit && *limit) {
+    const double seconds = std::strtod(limit, nullptr);
+    if (seconds > 0) timing.limit_seconds = seconds;
+  }
+  if (const char* scale = std::getenv("FREEGAP_TEST_TIME_SCALE"); scale && *scale) {
+    const double factor = std::strtod(scale, nullptr);
+    if (factor > 0) timing.limit_seconds *= factor;
+  }
+  long index = 0;
+  for (const auto& path : regression_files) run_one(current, read_all(path), index++, timing);
   std::cout << "mutation_driver: " << regression_files.size() << " regression inputs passed\n";
 
   std::vector<Bytes> seeds;
@@ -144,9 +182,11 @@ int main(int argc, char** argv) {
     // Now and then a second mutation on top of the first, as libFuzzer stacks them.
     Bytes input = mutate(base, rng);
     if (rng() % 4 == 0) input = mutate(input, rng);
-    run_one(current, input);
+    run_one(current, input, index++, timing);
   }
   std::filesystem::remove(current);
-  std::cout << "mutation_driver: " << runs << " mutated inputs (seed " << seed << ") passed\n";
+  std::cout << "mutation_driver: " << runs << " mutated inputs (seed " << seed << ") passed; "
+            << timing.over_one_second << " took over 1 s, the slowest (input "
+            << timing.slowest_index << ") " << timing.slowest_seconds << " s\n";
   return 0;
 }

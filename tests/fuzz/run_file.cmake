@@ -10,7 +10,8 @@
 #   build-fuzz/tests/fuzz/fuzz_run_file -max_total_time=120 -timeout=20 -rss_limit_mb=4096 corpus
 #
 # Each input is checked in a forked child (store::verify), so one input costs a fork and a few
-# milliseconds; -timeout must exceed the child's stall limit (5 s, FREEGAP_CHECK_STALL_SECONDS).
+# milliseconds; -timeout must exceed the child's stall limit (60 s by default: run with
+# FREEGAP_CHECK_STALL_SECONDS=5).
 add_executable(fuzz_run_file ${CMAKE_CURRENT_LIST_DIR}/fuzz_run_file.cpp)
 target_link_libraries(fuzz_run_file PRIVATE freegap::core ${HDF5_LIBRARIES})
 target_include_directories(fuzz_run_file PRIVATE ${HDF5_INCLUDE_DIRS})
