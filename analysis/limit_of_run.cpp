@@ -1,6 +1,7 @@
 // The limit of a job's model by the rules listed in limit.hpp.
 #include <algorithm>
 #include <cmath>
+#include <filesystem>
 #include <map>
 #include <optional>
 #include <set>
@@ -58,16 +59,34 @@ LetterLaw law_of(const MatrixSpec& m) {
       return {semicircle(m.diagonal.variance), "semicircle", {}};
     case DL::marchenko_pastur_quantiles:
       return {marchenko_pastur(m.diagonal.ratio), "Marchenko-Pastur", {}};
-    case DL::file:
-      break;
+    case DL::file: {
+      // The empirical law of the file's K numbers: the law the diagonal's quantiles converge to.
+      // When the file holds exactly the N numbers of the sampled size, the limit is the finite-N
+      // free deterministic equivalent of the model (Speicher & Vargas 2012), not an N → ∞ law.
+      std::vector<ensembles::Atom> read;
+      try {
+        read = ensembles::file_law_atoms(m);
+      } catch (const InputError& e) {
+        return {nullptr, {}, e.what()};
+      }
+      std::vector<Atom> points;
+      for (const auto& a : read) points.push_back({a.value, a.weight});
+      return {atoms(std::move(points)),
+              "the empirical law of its file '" + m.diagonal.path + "' (" +
+                  std::to_string(read.size()) +
+                  " distinct values; with exactly N numbers in the file this is the free "
+                  "deterministic equivalent at that N, Speicher & Vargas 2012, not an N → ∞ law)",
+              {}};
+    }
   }
-  return {nullptr, {}, who + " is read from a file; its limit law is not known to the analysis"};
+  return {nullptr, {}, who + " has a diagonal law the analysis does not know"};
 }
 
 // The law of X² for a self-adjoint matrix X with a known law, when it has a closed form here.
 LawPtr square_law(const MatrixSpec& m, const LawPtr& law) {
   if (semicircular(m.kind)) return marchenko_pastur(1.0);  // X² of a standard semicircular
-  if (m.kind == Kind::diagonal && m.diagonal.kind == ensembles::DiagonalLawKind::atoms) {
+  if (m.kind == Kind::diagonal && (m.diagonal.kind == ensembles::DiagonalLawKind::atoms ||
+                                   m.diagonal.kind == ensembles::DiagonalLawKind::file)) {
     std::vector<Atom> squared;
     for (const Atom& a : law->support().atoms) squared.push_back({a.value * a.value, a.mass});
     return atoms(std::move(squared));
@@ -226,11 +245,42 @@ std::string ginibre_singular_values(const std::vector<expr::Monomial>& terms,
 
 }  // namespace
 
-expr::Expression run_expression(const store::RunHeader& header) {
-  const job::Job job = job::parse_job(header.job_text, "<job stored in the run file>");
-  expr::CheckOptions check;
-  check.force_singular_values = job.observe.singular_values;
-  return expr::Expression(job.expression, job.matrices, check);
+expr::Expression run_expression(const store::RunHeader& header, const std::string& run_file) {
+  // A relative path in the job (an eigenvalue file) was relative to the job file's directory,
+  // which the run file does not record: it is looked for beside the run file, then in the
+  // current directory. A file law is taken only from a file whose numbers are those the run used
+  // (the canonical text, which holds each file's SHA-256, equals the stored one).
+  std::vector<std::string> anchors;
+  if (!run_file.empty()) {
+    anchors.push_back((std::filesystem::path(run_file).parent_path() / "job.toml").string());
+  }
+  anchors.push_back("<job stored in the run file>");
+  std::string last_error;
+  bool other_numbers = false;
+  for (const std::string& anchor : anchors) {
+    try {
+      const job::Job job = job::parse_job(header.job_text, anchor);
+      const bool reads_files = std::any_of(job.file_digests.begin(), job.file_digests.end(),
+                                           [](const std::string& d) { return !d.empty(); });
+      if (reads_files && !header.job_canonical.empty() &&
+          job.canonical() != header.job_canonical) {
+        other_numbers = true;
+        continue;
+      }
+      expr::CheckOptions check;
+      check.force_singular_values = job.observe.singular_values;
+      return expr::Expression(job.expression, job.matrices, check);
+    } catch (const InputError& e) {
+      last_error = e.what();
+    }
+  }
+  if (other_numbers) {
+    throw InputError(
+        "an eigenvalue file the job names holds other numbers than the run used (its SHA-256 "
+        "differs from the one stored in the run file); put the run's own file beside the run "
+        "file or in the current directory");
+  }
+  throw InputError(last_error + (run_file.empty() ? "" : " (looked for beside the run file too)"));
 }
 
 static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_moment) {

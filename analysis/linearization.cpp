@@ -57,11 +57,14 @@ FreeLetter letter_for(const ensembles::MatrixSpec& spec, const std::string& name
         case DiagonalLawKind::marchenko_pastur_quantiles:
           letter.law = marchenko_pastur(spec.diagonal.ratio);
           return letter;
-        case DiagonalLawKind::file:
-          throw InputError("matrix '" + spec.name +
-                           "': a diagonal law read from a file is not covered by the polynomial "
-                           "limit (declare its law as atoms, uniform, semicircle or "
-                           "marchenko_pastur)");
+        case DiagonalLawKind::file: {
+          // The empirical law of the file's numbers (ensembles::file_law_atoms), ascending.
+          std::vector<Atom> points;
+          for (const auto& a : ensembles::file_law_atoms(spec)) points.push_back({a.value, a.weight});
+          letter.atoms = points;
+          letter.law = atoms(points);
+          return letter;
+        }
       }
       break;
     case Kind::ginibre_complex:

@@ -211,9 +211,20 @@ FreeVariable free_variable_for(const ensembles::MatrixSpec& spec) {
           return FreeVariable::semicircular(Rational::from_double(spec.diagonal.variance));
         case DiagonalLawKind::marchenko_pastur_quantiles:
           return FreeVariable::marchenko_pastur(Rational::from_double(spec.diagonal.ratio));
-        case DiagonalLawKind::file:
-          throw InputError("matrix '" + spec.name +
-                           "': no exact limit moments for a diagonal law read from a file");
+        case DiagonalLawKind::file: {
+          // The empirical law of the file's numbers; its weights count/K are exact rationals.
+          std::vector<std::size_t> counts;
+          const auto read = ensembles::file_law_atoms(spec, &counts);
+          std::size_t k = 0;
+          for (const std::size_t c : counts) k += c;
+          std::vector<std::pair<Rational, Rational>> atoms;
+          for (std::size_t i = 0; i < read.size(); ++i) {
+            atoms.emplace_back(Rational::from_double(read[i].value),
+                               Rational(static_cast<std::int64_t>(counts[i])) /
+                                   Rational(static_cast<std::int64_t>(k)));
+          }
+          return FreeVariable::atoms(std::move(atoms));
+        }
       }
   }
   throw InputError("matrix '" + spec.name + "': no free limit variable for this kind");

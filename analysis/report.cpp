@@ -326,7 +326,7 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   run.provenance = file.read_provenance();
   const int max_moment = run.header.sizes.empty() ? 0 : run.header.sizes.front().observe.max_moment;
   try {
-    run.limit = derive_limit(run_expression(run.header), max_moment);
+    run.limit = derive_limit(run_expression(run.header, path), max_moment);
   } catch (const Stopped&) {
     throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {

@@ -370,6 +370,30 @@ TEST(Diagonal, FileLawGivesTheNumbersOrTheirQuantiles) {
   std::remove(path.c_str());
 }
 
+TEST(Diagonal, FileLawAtomsAreTheEmpiricalLawWithRepeatsMerged) {
+  // The law the analysis gives a file diagonal: each distinct number once, ascending, weight
+  // count/K (here K = 6 numbers, 2 and 5 twice).
+  const std::string path = ::testing::TempDir() + "freegap_levels.txt";
+  {
+    std::ofstream out(path);
+    out << "5 2 # levels\n-1 2\n5 0.5\n";
+  }
+  DiagonalLaw law;
+  law.kind = DiagonalLawKind::file;
+  law.path = path;
+  std::vector<std::size_t> counts;
+  const auto atoms = freegap::ensembles::file_law_atoms(diagonal_spec(law), &counts);
+  ASSERT_EQ(atoms.size(), 4u);
+  const double values[] = {-1, 0.5, 2, 5};
+  const std::size_t expected[] = {1, 1, 2, 2};
+  for (std::size_t i = 0; i < 4; ++i) {
+    EXPECT_EQ(atoms[i].value, values[i]);
+    EXPECT_EQ(counts[i], expected[i]);
+    EXPECT_EQ(atoms[i].weight, static_cast<double>(expected[i]) / 6.0);
+  }
+  std::remove(path.c_str());
+}
+
 // ---- bad input: typed errors with exact messages ------------------------------------------------
 
 template <class F>

@@ -132,6 +132,13 @@ struct Sample {
   Index cols() const;
 };
 
+/// The empirical law of a `file` diagonal's numbers as atoms: each distinct number once, in
+/// ascending order, with weight (its count)/K for the K numbers in the file. Reads the file;
+/// throws InputError as the Sampler does when it cannot. `counts`, when given, receives each
+/// number's count (the weights are counts[i]/K exactly).
+std::vector<Atom> file_law_atoms(const MatrixSpec& spec,
+                                 std::vector<std::size_t>* counts = nullptr);
+
 /// Counts n_i for atoms at size N by the largest-remainder rule (see DiagonalLaw).
 std::vector<Index> atom_counts(const std::vector<Atom>& atoms, Index n);
 

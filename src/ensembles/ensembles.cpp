@@ -309,6 +309,21 @@ Sampler::Sampler(MatrixSpec spec) : spec_(std::move(spec)) {
   }
 }
 
+std::vector<Atom> file_law_atoms(const MatrixSpec& spec, std::vector<std::size_t>* counts) {
+  const std::vector<double> values = read_number_file(spec);  // sorted
+  const auto k = static_cast<double>(values.size());
+  std::vector<Atom> out;
+  if (counts != nullptr) counts->clear();
+  for (std::size_t i = 0; i < values.size();) {
+    std::size_t j = i;
+    while (j < values.size() && values[j] == values[i]) ++j;
+    out.push_back({values[i], static_cast<double>(j - i) / k});
+    if (counts != nullptr) counts->push_back(j - i);
+    i = j;
+  }
+  return out;
+}
+
 Eigen::VectorXd Sampler::diagonal_values(Index n) const {
   require_size(spec_, n);
   Eigen::VectorXd d(n);

@@ -52,7 +52,9 @@ struct DerivedLimit {
 DerivedLimit derive_limit(const expr::Expression& expression, int max_moment);
 
 /// The expression a run file's job defines (its matrices and checks, as the runner built it).
-/// Throws InputError if the stored job no longer parses.
-expr::Expression run_expression(const store::RunHeader& header);
+/// A relative path the job names (an eigenvalue file) is looked for beside `run_file` (when
+/// given), then in the current directory, and a file is used only when its numbers are those
+/// the run used. Throws InputError if the stored job no longer parses or no such file is found.
+expr::Expression run_expression(const store::RunHeader& header, const std::string& run_file = "");
 
 }  // namespace freegap::analysis
