@@ -25,7 +25,11 @@ import time
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import runhelp as rh  # noqa: E402
 
-STOP_DEADLINE = 10.0  # seconds after the signal; a liveness net, never a speed assertion
+# Time limits scale by FREEGAP_TEST_TIME_SCALE (tests/run_sanitized.sh: 10, for the sanitizers'
+# slowdown; limit -e "X^22 - 1" computes its exact moments, 4 s plain, before the refusal).
+SCALE = float(os.environ.get("FREEGAP_TEST_TIME_SCALE", "1"))
+STOP_DEADLINE = 10.0 * SCALE  # seconds after the signal; a liveness net, never a speed assertion
+COMMAND_LIMIT = 120 * SCALE  # a hang detector for the refusals
 
 # A scenario of our own: two coupled noise fields X, Y on a grid of sizes, a ±1 mask B and a
 # random rotation U. Every case below changes only the expression.
@@ -75,7 +79,8 @@ def refusals(c, exe):
         for name, expression, message in CASES:
             rh.write(os.path.join(wd, "fields.toml"), JOB.format(expression=expression))
             for extra in ([], ["--explain"]):
-                p = rh.run(rh.command(exe, ["run", "fields.toml"] + extra), cwd=wd, timeout=120)
+                p = rh.run(rh.command(exe, ["run", "fields.toml"] + extra), cwd=wd,
+                           timeout=COMMAND_LIMIT)
                 what = "run %s%s" % (name, " --explain" if extra else "")
                 c.equal(p.returncode, rh.EXIT_BAD_INPUT, what + ": exit 2")
                 c.equal(p.stderr, "freegap: fields.toml:5: expression: %s\n" % message,
@@ -85,11 +90,11 @@ def refusals(c, exe):
             if len(expression) < 100000:
                 for cmd in (["sample"] + DECLARATIONS + ["-e", expression, "-n", "8"],
                             ["limit"] + DECLARATIONS + ["-e", expression]):
-                    p = rh.run(rh.command(exe, cmd), cwd=wd, timeout=120)
+                    p = rh.run(rh.command(exe, cmd), cwd=wd, timeout=COMMAND_LIMIT)
                     c.equal((p.returncode, p.stderr), (rh.EXIT_BAD_INPUT, "freegap: %s\n" % message),
                             "%s %s: exit 2 and the message" % (cmd[0], name))
         p = rh.run(rh.command(exe, ["limit", "-m", "X=gue", "-e", "X^22 - 1"]), cwd=wd,
-                   timeout=120)
+                   timeout=COMMAND_LIMIT)
         # The closed-form rules say why they do not apply, then the solver's bound is named.
         c.check(p.returncode == rh.EXIT_BAD_INPUT and p.stderr.startswith(
                     "freegap: no limit is derived for 'X^22 - 1': ") and p.stderr.endswith(
@@ -98,7 +103,7 @@ def refusals(c, exe):
                     "lower the degree or the number of distinct words\n"),
                 "limit X^22 - 1: exit 2 and the message", p.stderr)
         p = rh.run(rh.command(exe, ["limit", "-m", "X=gue", "-e", "X", "--points", "100000000",
-                                    "-o", "out"]), cwd=wd, timeout=120)
+                                    "-o", "out"]), cwd=wd, timeout=COMMAND_LIMIT)
         c.equal((p.returncode, p.stderr),
                 (rh.EXIT_BAD_INPUT,
                  "freegap: --points must be between 10 and 100000 (got 100000000)\n"),
