@@ -210,6 +210,37 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
     }
     return t;
   }
+  // X Y Y X (the Gram matrix of Y X, e.g. the singular values of X1 X2): law(X²) ⊠ law(Y²), both
+  // on [0, inf). Its moments are those of X² Y² by cyclicity of the trace, and X², Y² are free
+  // and positive (Voiculescu 1987).
+  const bool sandwich4 = w.size() == 4 && w[0].first == w[3].first && w[1].first == w[2].first &&
+                         w[0].first != w[1].first && ensembles::is_self_adjoint(spec(0).kind) &&
+                         ensembles::is_self_adjoint(spec(1).kind);
+  if (sandwich4) {
+    const MatrixSpec& x = spec(0);
+    const MatrixSpec& y = spec(1);
+    if (!ensembles::is_random(x.kind) && !ensembles::is_random(y.kind)) {
+      why = "'" + text + "': two deterministic matrices are not free of each other";
+      return std::nullopt;
+    }
+    const LetterLaw lx = law_of(x);
+    const LetterLaw ly = law_of(y);
+    if (!lx.law || !ly.law) {
+      why = !lx.law ? lx.reason : ly.reason;
+      return std::nullopt;
+    }
+    const LawPtr x2 = square_law(x, lx.law);
+    const LawPtr y2 = square_law(y, ly.law);
+    if (!x2 || !y2) {
+      why = "'" + text + "': the law of " + (!x2 ? x.name : y.name) + "² has no closed form here";
+      return std::nullopt;
+    }
+    t.law = free_multiplicative(x2, y2);
+    t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + "²) (Voiculescu 1987)";
+    use(t, w[0].first);
+    use(t, w[1].first);
+    return t;
+  }
   why = "no rule covers the term '" + text + "'";
   return std::nullopt;
 }
