@@ -164,6 +164,22 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
     (spec(0).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
     return t;
   }
+  // The laws of the two letters of a sandwich, or false with `why` set: both deterministic (when
+  // `y_unrotated`: Y is not conjugated by a Haar unitary) are not free, and each needs a law.
+  const auto free_pair_laws = [&](const MatrixSpec& x, const MatrixSpec& y, bool y_unrotated,
+                                  LetterLaw& lx, LetterLaw& ly) {
+    if (!ensembles::is_random(x.kind) && !ensembles::is_random(y.kind) && y_unrotated) {
+      why = "'" + text + "': two deterministic matrices are not free of each other";
+      return false;
+    }
+    lx = law_of(x);
+    ly = law_of(y);
+    if (!lx.law || !ly.law) {
+      why = !lx.law ? lx.reason : ly.reason;
+      return false;
+    }
+    return true;
+  };
   // X Y X (or X U Y U^* X): law(X²) ⊠ law(Y) when Y ≥ 0.
   const bool sandwich3 = w.size() == 3 && w[0].first == w[2].first && w[0].first != w[1].first &&
                          ensembles::is_self_adjoint(spec(0).kind) &&
@@ -175,18 +191,8 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   if (sandwich3 || sandwich5) {
     const MatrixSpec& x = spec(0);
     const MatrixSpec& y = spec(sandwich3 ? 1 : 2);
-    const bool x_fixed = !ensembles::is_random(x.kind);
-    const bool y_fixed = !ensembles::is_random(y.kind) && sandwich3;
-    if (x_fixed && y_fixed) {
-      why = "'" + text + "': two deterministic matrices are not free of each other";
-      return std::nullopt;
-    }
-    const LetterLaw lx = law_of(x);
-    const LetterLaw ly = law_of(y);
-    if (!lx.law || !ly.law) {
-      why = !lx.law ? lx.reason : ly.reason;
-      return std::nullopt;
-    }
+    LetterLaw lx, ly;
+    if (!free_pair_laws(x, y, sandwich3, lx, ly)) return std::nullopt;
     const LawPtr x2 = square_law(x, lx.law);
     if (!x2) {
       why = "'" + text + "': the law of " + x.name + "² has no closed form here";
@@ -219,16 +225,8 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   if (sandwich4) {
     const MatrixSpec& x = spec(0);
     const MatrixSpec& y = spec(1);
-    if (!ensembles::is_random(x.kind) && !ensembles::is_random(y.kind)) {
-      why = "'" + text + "': two deterministic matrices are not free of each other";
-      return std::nullopt;
-    }
-    const LetterLaw lx = law_of(x);
-    const LetterLaw ly = law_of(y);
-    if (!lx.law || !ly.law) {
-      why = !lx.law ? lx.reason : ly.reason;
-      return std::nullopt;
-    }
+    LetterLaw lx, ly;
+    if (!free_pair_laws(x, y, true, lx, ly)) return std::nullopt;
     const LawPtr x2 = square_law(x, lx.law);
     const LawPtr y2 = square_law(y, ly.law);
     if (!x2 || !y2) {
