@@ -27,6 +27,48 @@ struct FreeVariable::Tables {
   std::vector<Rational> moments{Rational(1)};
   std::vector<Rational> cumulants{Rational(0)};  ///< κ_0 is a placeholder
 
+  /// powers[s][j] = [z^j] M(z)^s for s ≥ 1 and j < moments.size(); powers[0] is unused. Kept
+  /// between calls so that order n costs O(n²) products instead of O(n³): each new moment m_k
+  /// adds one coefficient to every row, and a new row s is built once.
+  std::vector<std::vector<Rational>> powers{{}};
+
+  /// Appends [z^k] M^s to every row s ≥ 1 after m_k has been appended (k = moments.size() − 1).
+  void append_coefficient() {
+    const std::size_t k = moments.size() - 1;
+    for (std::size_t s = 1; s < powers.size(); ++s) {
+      if (s == 1) {
+        powers[1].push_back(moments[k]);
+        continue;
+      }
+      Rational c(0);
+      for (std::size_t a = 0; a <= k; ++a) {
+        if (powers[s - 1][a].is_zero() || moments[k - a].is_zero()) continue;
+        c += powers[s - 1][a] * moments[k - a];
+      }
+      powers[s].push_back(std::move(c));
+    }
+  }
+
+  /// Adds row s = powers.size() with coefficients j = 0 … moments.size() − 1.
+  void add_row() {
+    const std::size_t s = powers.size();
+    std::vector<Rational> row;
+    row.reserve(moments.size());
+    for (std::size_t j = 0; j < moments.size(); ++j) {
+      if (s == 1) {
+        row.push_back(moments[j]);
+        continue;
+      }
+      Rational c(0);
+      for (std::size_t a = 0; a <= j; ++a) {
+        if (powers[s - 1][a].is_zero() || moments[j - a].is_zero()) continue;
+        c += powers[s - 1][a] * moments[j - a];
+      }
+      row.push_back(std::move(c));
+    }
+    powers.push_back(std::move(row));
+  }
+
   // Extends both tables to order n with the first-block recursion
   //   m_i = Σ_{s=1}^{i} κ_s [z^{i−s}] M(z)^s,   M(z) = Σ_{k≥0} m_k z^k
   // (Nica & Speicher 2006, from memory; docs/check-values.md §4e), solved for whichever is unknown.
@@ -36,21 +78,11 @@ struct FreeVariable::Tables {
                        "; order " + std::to_string(n) + " is needed");
     }
     for (int i = static_cast<int>(moments.size()); i <= n; ++i) {
-      // powers[s][j] = [z^j] M(z)^s for s = 1..i−1, j = 0..i−1, from m_0..m_{i−1}.
+      // Rows s = 1 … i−1 with coefficients j ≤ i−1 (they need m_0 … m_{i−1} only).
+      while (static_cast<int>(powers.size()) < i) add_row();
       Rational rest(0);
-      std::vector<Rational> power(static_cast<std::size_t>(i), Rational(0));
-      power[0] = Rational(1);  // M^0
       for (int s = 1; s < i; ++s) {
-        std::vector<Rational> next(static_cast<std::size_t>(i), Rational(0));
-        for (int a = 0; a < i; ++a) {
-          if (power[a].is_zero()) continue;
-          for (int b = 0; a + b < i; ++b) {
-            if (moments[b].is_zero()) continue;
-            next[a + b] += power[a] * moments[b];
-          }
-        }
-        power = std::move(next);
-        if (!cumulants[s].is_zero()) rest += cumulants[s] * power[i - s];
+        if (!cumulants[s].is_zero()) rest += cumulants[s] * powers[s][i - s];
       }
       const Rational given = generator(i);
       if (given_moments) {
@@ -60,6 +92,7 @@ struct FreeVariable::Tables {
         cumulants.push_back(given);
         moments.push_back(given + rest);
       }
+      append_coefficient();
     }
   }
 };
