@@ -82,6 +82,20 @@ LetterLaw law_of(const MatrixSpec& m) {
   return {nullptr, {}, who + " has a diagonal law the analysis does not know"};
 }
 
+// The variance of X when its law is a centred semicircle, else 0.
+double semicircle_variance(const MatrixSpec& m) {
+  if (semicircular(m.kind)) return 1.0;
+  if (m.kind == Kind::diagonal &&
+      m.diagonal.kind == ensembles::DiagonalLawKind::semicircle_quantiles) {
+    return m.diagonal.variance;
+  }
+  return 0.0;
+}
+
+// The free compound Poisson law is a ⊞ of one free Poisson law per atom, nested ⌈log₂ k⌉ deep;
+// past 16 atoms the nesting makes each point cost more than the polynomial solver's.
+constexpr std::size_t kMostCompoundPoissonJumps = 16;
+
 // The law of X² for a self-adjoint matrix X with a known law, when it has a closed form here.
 LawPtr square_law(const MatrixSpec& m, const LawPtr& law) {
   if (semicircular(m.kind)) return marchenko_pastur(1.0);  // X² of a standard semicircular
@@ -198,14 +212,33 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
       why = "'" + text + "': the law of " + x.name + "² has no closed form here";
       return std::nullopt;
     }
-    if (ly.law->support().lo < 0.0) {
+    const Support sy = ly.law->support();
+    const double variance = semicircle_variance(x);
+    if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
+        sy.atoms.size() <= kMostCompoundPoissonJumps) {
+      // X semicircular of variance v: X Y X has free cumulants κ_n = vⁿ φ(Yⁿ), the free compound
+      // Poisson law of rate 1 with jumps v·Y (Nica & Speicher 2006, Prop. 12.18, from memory;
+      // tests/analysis checks it against the exact moments). Y may take any sign here.
+      std::vector<Atom> jumps;
+      for (const Atom& a : sy.atoms) jumps.push_back({variance * a.value, a.mass});
+      t.law = free_compound_poisson(jumps);
+      t.text = text + " → free compound Poisson law with the jumps of " +
+               (variance == 1.0 ? "" : detail::format_number(variance) + "·") + y.name +
+               " (Nica & Speicher 2006)";
+    } else if (sy.lo < 0.0) {
       why = "'" + text + "': the middle factor " + y.name +
             " takes negative values, and the free multiplicative convolution needs a law on "
-            "[0, inf) (its exact moments are still reported)";
+            "[0, inf)" +
+            (variance > 0.0 ? " (with a semicircular " + x.name + ", " + y.name +
+                                  " needs at most " + std::to_string(kMostCompoundPoissonJumps) +
+                                  " atoms and no continuous part)"
+                            : "") +
+            " (its exact moments are still reported)";
       return std::nullopt;
+    } else {
+      t.law = free_multiplicative(x2, ly.law);
+      t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + ") (Voiculescu 1987)";
     }
-    t.law = free_multiplicative(x2, ly.law);
-    t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + ") (Voiculescu 1987)";
     use(t, w[0].first);
     if (sandwich3) {
       use(t, w[1].first);

@@ -204,6 +204,62 @@ TEST(FreeMultiplicative, FreePoissonTimesProjection) {
   EXPECT_NEAR(two_point->cdf(two_point->support().hi), 1.0, 1e-9);
 }
 
+TEST(FreeCompoundPoisson, SignSandwichLosesNoMassAtItsSingularPoint) {
+  // A B A with A semicircular and B = ±1 (ref §1.6): the free compound Poisson law with jumps ±1
+  // of weight ½. Its square is π ⊠ π (Fuss–Catalan, ref §1.5) and it is symmetric, so
+  // F(y) = ½ + ½ F_FC(y²) for y ≥ 0; its edge is 3√3/2 and f(1), f(0.5) are tabulated in §1.6.
+  // At 0 the density grows like |y|^(−1/3) (§1.6′): before the CDF table was split there, it lost
+  // 2e-8 of the mass on each side of 0.
+  const auto law = fa::free_compound_poisson({{-1.0, 0.5}, {1.0, 0.5}});
+  const fa::Support s = law->support();
+  EXPECT_TRUE(s.atoms.empty());
+  ASSERT_EQ(s.bands.size(), 1u);
+  EXPECT_NEAR(s.hi, 1.5 * std::sqrt(3.0), 1e-12);
+  EXPECT_NEAR(s.lo, -1.5 * std::sqrt(3.0), 1e-12);
+  EXPECT_NEAR(law->density(1.0), 0.178979127488028, 1e-12);
+  EXPECT_NEAR(law->density(-0.5), 0.273069656441587, 1e-12);
+  EXPECT_NEAR(law->cdf(0.0), 0.5, 1e-9);
+  EXPECT_NEAR(law->cdf(s.hi), 1.0, 1e-9);
+  const auto fc = fa::fuss_catalan(2);
+  for (double y : {1e-6, 1e-3, 0.1, 1.0, 2.0, 2.5}) {
+    EXPECT_NEAR(law->cdf(y), 0.5 + 0.5 * fc->cdf(y * y), 1e-9) << y;
+    EXPECT_NEAR(law->cdf(-y), 0.5 - 0.5 * fc->cdf(y * y), 1e-9) << y;
+  }
+  // The |y|^(−1/3) law near 0 is resolved down to 1e-12 (f·|y|^(1/3) settles to 4 digits).
+  const double c8 = law->density(1e-8) * std::cbrt(1e-8);
+  const double c12 = law->density(-1e-12) * std::cbrt(1e-12);
+  EXPECT_NEAR(c12 / c8, 1.0, 1e-4);
+}
+
+TEST(FreeCompoundPoisson, UnequalSignsHaveAGapEndingAtZero) {
+  // Jumps −1 (weight 0.3) and +1 (weight 0.7), i.e. A B A with that B (ref §1.6′): the support is
+  // [−1.96855774485826, −0.0102275267282972] ∪ [0, 3.17878527158672], with masses 0.3 and 0.7
+  // and an inverse-square-root edge at 0 (values computed for this test with numpy's polyroots
+  // and scipy's quad; the edge at 0 came out at −6.8e-9 and made the CDF hang before it was
+  // snapped to the singular point).
+  const auto law = fa::free_compound_poisson({{-1.0, 0.3}, {1.0, 0.7}});
+  const fa::Support s = law->support();
+  ASSERT_EQ(s.bands.size(), 2u);
+  EXPECT_NEAR(s.bands[0].lo, -1.96855774485826, 1e-10);
+  EXPECT_NEAR(s.bands[0].hi, -0.0102275267282972, 1e-10);
+  EXPECT_EQ(s.bands[1].lo, 0.0);
+  EXPECT_NEAR(s.bands[1].hi, 3.17878527158672, 1e-10);
+  EXPECT_NEAR(law->cdf(-0.005), 0.3, 1e-9);
+  EXPECT_NEAR(law->cdf(s.hi), 1.0, 1e-9);
+  EXPECT_NEAR(law->density(-0.5), 0.20666931630942983, 1e-11);
+  EXPECT_NEAR(law->density(0.5), 0.33272016916450575, 1e-11);
+  EXPECT_EQ(law->density(-1e-6), 0.0);
+  // f(x)·√x → 0.2013177763 as x → 0+ (scipy, same cubic).
+  EXPECT_NEAR(law->density(1e-6) * 1e-3, 0.20131777632969522, 1e-8);
+  // Free cumulants Σ p tⁿ: 0.4, 1, 0.4, 1 (Nica & Speicher 2006, from memory).
+  const std::vector<double> k = fa::free_cumulants(law->moments(4));
+  EXPECT_NEAR(k[1], 0.4, 1e-13);
+  EXPECT_NEAR(k[2], 1.0, 1e-13);
+  EXPECT_NEAR(k[3], 0.4, 1e-13);
+  EXPECT_NEAR(k[4], 1.0, 1e-13);
+  EXPECT_THROW(fa::free_compound_poisson({{1.0, 0.7}, {2.0, 0.7}}), freegap::InputError);
+}
+
 TEST(FreeCumulants, BernoulliAndRoundTrip) {
   // Source: free cumulants of the symmetric Bernoulli law 0, 1, 0, −1, 0, 2, 0, −5 (reference
   // §1.3).

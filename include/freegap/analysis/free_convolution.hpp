@@ -75,6 +75,10 @@ class SubordinatedLaw : public Law {
   void find_bands();
   /// How many atoms the two input laws have together (sets the resolution of find_bands).
   virtual std::size_t atoms_in_inputs() const = 0;
+  /// Points inside a band where the density may be infinite although no atom sits there; the CDF
+  /// table splits its band at each, so that the singularity is an edge of a table (graded
+  /// towards it, with a fitted power law in the last layer) instead of a point in its middle.
+  virtual std::vector<double> interior_singular_points() const { return {}; }
   /// Sorts support_.atoms and sets support_.lo/hi from the continuous edges and the atoms (the
   /// continuous part collapses onto the first atom when the atoms carry all the mass).
   void finish_support();
@@ -117,7 +121,10 @@ class SubordinatedLaw : public Law {
     std::vector<double> cumulative;
     double left_tail = 0.0, left_beta = 0.0, right_beta = 0.0;
   };
-  BandTable build_table(double lo, double hi) const;
+  /// The table of [lo, hi]; a side marked singular is a singular point of the density.
+  BandTable build_table(double lo, double hi, bool singular_lo, bool singular_hi) const;
+  /// Sets every band edge within 1e-6 of the hull's width of a singular point to that point.
+  void snap_edges_to_singular_points();
   double band_cdf(const BandTable& t, double x) const;
   mutable std::once_flag table_once_;
   mutable std::vector<BandTable> tables_;
@@ -140,6 +147,7 @@ class FreeAdditiveConvolution final : public SubordinatedLaw {
   bool polish(double x, std::complex<double>& omega1, std::complex<double>& g) const override;
   bool real_map(int form, double x, double w, double& f, double& df) const override;
   std::size_t atoms_in_inputs() const override;
+  std::vector<double> interior_singular_points() const override;
   int real_forms() const override { return 2; }
   bool other_form(int form, double x, double w, double& out) const override;
   /// The fixed point of ω2 instead of ω1 (where ω1 is near infinity).
@@ -179,6 +187,14 @@ std::shared_ptr<const FreeAdditiveConvolution> free_additive(LawPtr mu, LawPtr n
 /// μ ⊠ ν for μ and ν on [0, ∞); InputError otherwise.
 std::shared_ptr<const FreeMultiplicativeConvolution> free_multiplicative(
     LawPtr mu, LawPtr nu, SubordinationOptions options = {});
+
+/// The free compound Poisson law of rate 1 whose jumps take the value t with weight p (weights
+/// summing to at most 1; the rest is a jump 0): free cumulants κ_n = Σ p tⁿ (Nica & Speicher 2006,
+/// Prop. 12.11, from memory). It is the law of s b s for s standard semicircular free from b with
+/// b's law the jumps' (ibid. Prop. 12.18, from memory; checked against the exact moments in
+/// tests/analysis). Computed as the free additive convolution of one free Poisson law per jump
+/// value, each t p · MP(1/p), so its atoms' masses, bands and singular points come from ⊞.
+LawPtr free_compound_poisson(const std::vector<Atom>& jumps, SubordinationOptions options = {});
 
 /// Free cumulants κ_1..κ_n from moments m_0..m_n (index 0 of the result is unused, 0), by the
 /// first-block recursion m_n = Σ_s κ_s [z^{n−s}] M(z)^s (Nica & Speicher 2006).
