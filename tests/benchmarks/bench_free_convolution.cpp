@@ -78,6 +78,35 @@ void BM_FreeMultiplicativeCdf(benchmark::State& state) {
 }
 BENCHMARK(BM_FreeMultiplicativeCdf)->Arg(1000)->Unit(benchmark::kMillisecond);
 
+// The cost of one density value at a singular point against an ordinary one (issue: limit engine,
+// "points where the density is infinite cost no more than ordinary points"). Arg 0: A B A with B
+// = ±1 (free compound Poisson, density ~ |x|^(−1/3) at 0), at x = 1e-12; arg 1: the same law at
+// x = 1; arg 2: S W S (MP(1) ⊠ ½δ₁ + ½δ₄, density ~ x^(−1/2) at 0) at x = 1e-12; arg 3: at x = 1.
+// Each iteration is one uncached density value (no warm start from a neighbour).
+void BM_DensityAtSingularPoint(benchmark::State& state) {
+  const int which = static_cast<int>(state.range(0));
+  const fa::LawPtr law =
+      which < 2 ? fa::free_compound_poisson({{-1.0, 0.5}, {1.0, 0.5}})
+                : fa::LawPtr(fa::free_multiplicative(fa::marchenko_pastur(1.0),
+                                                     fa::atoms({{1.0, 0.5}, {4.0, 0.5}})));
+  const double x = which % 2 == 0 ? 1e-12 : 1.0;
+  for (auto _ : state) benchmark::DoNotOptimize(law->density(x));
+}
+BENCHMARK(BM_DensityAtSingularPoint)->DenseRange(0, 3)->Unit(benchmark::kMicrosecond);
+
+// The CDF table of the same two laws (built once per law; the mass near 0 included).
+void BM_CdfTableWithSingularPoint(benchmark::State& state) {
+  const int which = static_cast<int>(state.range(0));
+  for (auto _ : state) {
+    const fa::LawPtr law =
+        which == 0 ? fa::free_compound_poisson({{-1.0, 0.5}, {1.0, 0.5}})
+                   : fa::LawPtr(fa::free_multiplicative(fa::marchenko_pastur(1.0),
+                                                        fa::atoms({{1.0, 0.5}, {4.0, 0.5}})));
+    benchmark::DoNotOptimize(law->cdf(0.0));
+  }
+}
+BENCHMARK(BM_CdfTableWithSingularPoint)->DenseRange(0, 1)->Unit(benchmark::kMillisecond);
+
 }  // namespace
 
 BENCHMARK_MAIN();
