@@ -45,9 +45,11 @@ std::string fmt(const char* format, double x) {
 
 // Support edges of the model's limit law, by the same derivation the report uses (limit.hpp:
 // closed-form rules, else the polynomial solver).
-std::optional<std::pair<double, double>> limit_edges_of(const store::RunHeader& header, std::string& note) {
+std::optional<std::pair<double, double>> limit_edges_of(const store::RunHeader& header,
+                                                        const std::string& run_file,
+                                                        std::string& note) {
   try {
-    const DerivedLimit d = derive_limit(run_expression(header), 0);
+    const DerivedLimit d = derive_limit(run_expression(header, run_file), 0);
     if (!d.law) {
       note = d.reason;
       return std::nullopt;
@@ -149,12 +151,14 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
     return t;
   }
   try {
-    const job::Job job = job::parse_job(header.job_text, "<job in the run file>", false);
+    // The model as the report derives it: a file the job names (an eigenvalue file) is looked
+    // for beside the run file, then in the current directory, and only with the numbers the run
+    // used (run_expression); a truth never reads another file of the same name.
+    const expr::Expression e = run_expression(header, options.run_file);
     const auto parts = split(truth, ':');
     const auto& head = parts[0];
     if (head == "limit_moment" && parts.size() == 2) {
       const int k = std::stoi(parts[1]);
-      const expr::Expression e(job.expression, job.matrices);
       const auto m = limit_moments(e, k);
       t.known = true;
       t.value = m.at(static_cast<std::size_t>(k)).value;
@@ -164,7 +168,7 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
     if (head == "limit_edge" || head == "limit_norm") {
       std::optional<std::pair<double, double>> edges = options.limit_edges;
       std::string note = "support edges given by the caller";
-      if (!edges) edges = limit_edges_of(header, note);
+      if (!edges) edges = limit_edges_of(header, options.run_file, note);
       if (!edges) {
         t.note = note;
         return t;
@@ -180,9 +184,10 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
     }
     if ((head == "matrix_moment" && parts.size() == 3) ||
         (head == "matrix_ratio" && parts.size() == 2)) {
-      const auto it = std::find_if(job.matrices.begin(), job.matrices.end(),
+      const auto& declared = e.declared();
+      const auto it = std::find_if(declared.begin(), declared.end(),
                                    [&](const auto& m) { return m.name == parts[1]; });
-      if (it == job.matrices.end()) {
+      if (it == declared.end()) {
         t.note = "the job declares no matrix '" + parts[1] + "'";
         return t;
       }
@@ -210,6 +215,8 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
 std::vector<EstimateScore> score_estimators(const store::RunFile& file,
                                             const ScoreOptions& options) {
   const store::RunHeader& header = file.header();
+  ScoreOptions located = options;
+  if (located.run_file.empty()) located.run_file = file.path();
   std::vector<EstimateScore> scores;
   const std::size_t columns = header.estimates.size();
   if (columns == 0) return scores;
@@ -229,7 +236,7 @@ std::vector<EstimateScore> score_estimators(const store::RunFile& file,
     EstimateScore score;
     score.estimator = header.estimates[c].estimator;
     score.estimate = header.estimates[c].estimate;
-    score.truth = resolve_truth(header.estimates[c].truth, header, options);
+    score.truth = resolve_truth(header.estimates[c].truth, header, located);
     const bool known = score.truth.known;
     const double theta = score.truth.value;
     std::map<std::string, std::int64_t> reasons;

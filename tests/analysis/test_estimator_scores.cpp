@@ -262,4 +262,56 @@ TEST(EstimatorScores, TruthsResolveAgainstTheJob) {
               1e-12);
 }
 
+TEST(EstimatorScores, TruthsReadTheEigenvalueFileBesideTheRunFile) {
+  // A diagonal read from a file named by a relative path: the truths take it from beside the
+  // run file (where the report looks), not from the current directory, and only with the numbers
+  // the run used. Before, the truths parsed the job relative to the current directory: run from
+  // elsewhere, every truth of such a job was unknown (or read another file of the same name).
+  const fs::path dir = fs::path(::testing::TempDir()) /
+                       ("freegap_truths_" + std::to_string(::getpid()));
+  fs::create_directories(dir);
+  const auto write = [&](const std::string& numbers) {
+    std::FILE* f = std::fopen((dir / "levels.txt").c_str(), "w");
+    ASSERT_NE(f, nullptr);
+    std::fputs(numbers.c_str(), f);
+    std::fclose(f);
+  };
+  write("-1\n1\n2\n2\n");
+  const std::string text = R"(seed = 3
+sizes = [8]
+trials = 4
+expression = "X + D"
+[matrices.X]
+ensemble = "gue"
+[matrices.D]
+ensemble = "diagonal"
+law = "file"
+path = "levels.txt"
+)";
+  const job::Job j = job::parse_job(text, (dir / "job.toml").string());
+  store::RunHeader h;
+  h.job_text = j.text;
+  h.job_canonical = j.canonical();
+  analysis::ScoreOptions beside;
+  beside.run_file = (dir / "run.h5").string();
+  // D's law: δ₋₁/4 + δ₁/4 + δ₂/2, so m₂(D) = (1 + 1 + 8)/4 = 5/2 and, X semicircular free from D,
+  // m₂(X + D) = m₂(X) + m₂(D) + 2 m₁(X) m₁(D) = 1 + 5/2 (freeness, Voiculescu 1986).
+  const auto d2 = analysis::resolve_truth("matrix_moment:D:2", h, beside);
+  ASSERT_TRUE(d2.known) << d2.note;
+  EXPECT_DOUBLE_EQ(d2.value, 2.5);
+  const auto m2 = analysis::resolve_truth("limit_moment:2", h, beside);
+  ASSERT_TRUE(m2.known) << m2.note;
+  EXPECT_DOUBLE_EQ(m2.value, 3.5);
+  // Without the run file's place (the current directory holds no levels.txt): unknown, with why.
+  const auto nowhere = analysis::resolve_truth("limit_moment:2", h);
+  EXPECT_FALSE(nowhere.known);
+  EXPECT_NE(nowhere.note.find("levels.txt"), std::string::npos) << nowhere.note;
+  // Other numbers under the same name: refused, never read as the run's.
+  write("0\n");
+  const auto other = analysis::resolve_truth("limit_moment:2", h, beside);
+  EXPECT_FALSE(other.known);
+  EXPECT_NE(other.note.find("SHA-256"), std::string::npos) << other.note;
+  fs::remove_all(dir);
+}
+
 }  // namespace

@@ -65,6 +65,10 @@ struct ScoreOptions {
   /// else the polynomial solver), and "limit_edge"/"limit_norm" truths are unknown, with the
   /// reason, for a model neither covers.
   std::optional<std::pair<double, double>> limit_edges;
+  /// The run file's path: a file the job names by a relative path (an eigenvalue file) is looked
+  /// for beside it, then in the current directory (analysis::run_expression). score_estimators
+  /// sets it from the file it reads.
+  std::string run_file;
 };
 
 /// Resolves a truth text against the job stored in a run file (see include/freegap/job.hpp for
