@@ -792,6 +792,23 @@ LawPtr square_root(LawPtr law) {
   return std::make_shared<SquareRoot>(std::move(law));
 }
 
+std::vector<double> densities_or_nan(const Law& law, std::span<const double> xs) {
+  try {
+    return law.densities(xs);
+  } catch (const NumericalError&) {
+  }
+  std::vector<double> out;
+  out.reserve(xs.size());
+  for (double x : xs) {
+    try {
+      out.push_back(law.density(x));
+    } catch (const NumericalError&) {
+      out.push_back(std::numeric_limits<double>::quiet_NaN());
+    }
+  }
+  return out;
+}
+
 LawPtr affine(LawPtr law, double a, double b) {
   if (!law) throw InputError("affine: law is null");
   if (!std::isfinite(a) || !std::isfinite(b) || a == 0.0) {

@@ -150,25 +150,6 @@ class TabulatedCdf {
   std::vector<double> values_, slopes_;
 };
 
-// Densities on a grid; where the solver fails at a point that point is NaN (written as such in
-// the tables and left out of the figures) instead of the whole report failing.
-std::vector<double> densities_or_nan(const Law& law, std::span<const double> xs) {
-  try {
-    return law.densities(xs);
-  } catch (const NumericalError&) {
-  }
-  std::vector<double> out;
-  out.reserve(xs.size());
-  for (double x : xs) {
-    try {
-      out.push_back(law.density(x));
-    } catch (const NumericalError&) {
-      out.push_back(kNaN);
-    }
-  }
-  return out;
-}
-
 LimitReference reference_of(const DerivedLimit& d, observe::SpectrumKind kind) {
   LimitReference r;
   r.edge_low = r.edge_high = r.norm = kNaN;
@@ -513,6 +494,8 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
       const int points = dynamic_cast<const PolynomialLaw*>(run.limit.law.get()) ? 401 : 801;
       std::vector<double> xs(points);
       for (int i = 0; i < points; ++i) xs[i] = lo + (hi - lo) * i / (points - 1);
+      // Where the solver fails at a point that point is NaN (written as such in the tables and
+      // left out of the figures) instead of the whole report failing.
       const auto ds = densities_or_nan(*run.limit.law, xs);
       for (int i = 0; i < points; ++i) dens_t.rows.push_back({id, xs[i], ds[i]});
       for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.mass});

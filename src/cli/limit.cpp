@@ -119,18 +119,8 @@ int run_limit(const LimitOptions& opt) {
       worst = std::max<long long>(worst, reports[i].averaged_steps + reports[i].newton_steps);
     }
   } else {
-    try {
-      density = law->densities(xs);
-      ok.assign(xs.size(), true);
-    } catch (const NumericalError&) {
-      for (std::size_t i = 0; i < xs.size(); ++i) {
-        try {
-          density[i] = law->density(xs[i]);
-          ok[i] = true;
-        } catch (const NumericalError&) {
-        }
-      }
-    }
+    density = analysis::densities_or_nan(*law, xs);
+    for (std::size_t i = 0; i < xs.size(); ++i) ok[i] = !std::isnan(density[i]);
   }
   const auto converged = std::count(ok.begin(), ok.end(), true);
   if (polynomial != nullptr) {

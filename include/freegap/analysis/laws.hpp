@@ -94,4 +94,9 @@ LawPtr square_root(LawPtr law);
 /// The law of a·X + b for X ~ law (a ≠ 0; for a radial law only a > 0, b = 0).
 LawPtr affine(LawPtr law, double a, double b);
 
+/// The density at each x, NaN where its solver fails there (law.densities first, which continues
+/// along the grid; where that throws, point by point). `limit` and `report` both draw their
+/// density tables through it, so a point that fails is the same missing value in both.
+std::vector<double> densities_or_nan(const Law& law, std::span<const double> xs);
+
 }  // namespace freegap::analysis
