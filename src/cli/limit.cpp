@@ -29,6 +29,7 @@ struct LimitOptions {
   std::string output;
   int points = 400;
   int max_moment = 6;
+  std::vector<double> window;  ///< LO, HI: the table's first and last x (empty: the support ± 5 %)
 };
 
 std::string quoted(const std::string& s) {
@@ -52,6 +53,13 @@ int run_limit(const LimitOptions& opt) {
   if (opt.points < 10 || opt.points > kMaxPoints) {
     throw InputError("--points must be between 10 and " + std::to_string(kMaxPoints) + " (got " +
                      std::to_string(opt.points) + ")");
+  }
+  if (!opt.window.empty() &&
+      (opt.window.size() != 2 || !std::isfinite(opt.window[0]) ||
+       !std::isfinite(opt.window[1]) || !(opt.window[0] < opt.window[1]))) {
+    throw InputError(
+        "--window takes two finite numbers LO,HI with LO < HI (the first and last x of the "
+        "density table), for example --window -3,3");
   }
   // An output directory holding anything freegap did not write is refused before any work.
   if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
@@ -100,11 +108,14 @@ int run_limit(const LimitOptions& opt) {
     }
   }
 
-  // The grid covers the support with a 5% margin on each side.
+  // The grid covers the support with a 5% margin on each side, or the window given, ends
+  // included (the points x_i = LO + (HI − LO) i/(P − 1) of a report's density table).
   const double width = support.hi - support.lo;
   std::vector<double> xs;
   for (int i = 0; i < opt.points; ++i) {
-    xs.push_back(support.lo - 0.05 * width + 1.1 * width * (i + 0.5) / opt.points);
+    xs.push_back(opt.window.empty()
+                     ? support.lo - 0.05 * width + 1.1 * width * (i + 0.5) / opt.points
+                     : opt.window[0] + (opt.window[1] - opt.window[0]) * i / (opt.points - 1));
   }
   // Every point gets a density or is named as failed; a failure never ends the command.
   std::vector<double> density(xs.size(), std::nan(""));
@@ -215,6 +226,11 @@ Subcommand add_limit_command(CLI::App& app) {
   cmd->add_option("-o,--output", opt->output,
                   "Directory for limit.csv (x, density, cdf) and limit.png / limit.svg");
   cmd->add_option("--points", opt->points, "Grid points of the density table (default 400)");
+  cmd->add_option("--window", opt->window,
+                  "LO,HI: the density table runs from LO to HI, both included (default: the "
+                  "support with 5% on each side)")
+      ->delimiter(',')
+      ->expected(2);
   cmd->add_option("-k,--max-moment", opt->max_moment, "Highest moment shown (default 6)")
       ->check(CLI::Range(1, 10));
   return {cmd, [opt] { return run_limit(*opt); }};
