@@ -109,6 +109,16 @@ def refusals(c, exe):
                  "freegap: --points must be between 10 and 100000 (got 100000000)\n"),
                 "limit --points 100000000: exit 2 and the message")
         c.check(not os.path.exists(os.path.join(wd, "out")), "limit --points: no output")
+        for window in ("1,-1", "1,1", "0,nan", "0,inf"):
+            p = rh.run(rh.command(exe, ["limit", "-m", "X=gue", "-e", "X", "--window", window,
+                                        "-o", "out"]), cwd=wd, timeout=COMMAND_LIMIT)
+            c.equal((p.returncode, p.stderr),
+                    (rh.EXIT_BAD_INPUT,
+                     "freegap: --window takes two finite numbers LO,HI with LO < HI (the first "
+                     "and last x of the density table), for example --window -3,3\n"),
+                    "limit --window %s: exit 2 and the message" % window)
+            c.check(not os.path.exists(os.path.join(wd, "out")), "limit --window %s: no output"
+                    % window)
 
 
 def stop_during(c, what, cmd, cwd, expected_rc, wait=1.5):
