@@ -135,6 +135,35 @@ TEST(LimitOfRun, SandwichIsFreeMultiplicativeConvolution) {
   EXPECT_EQ(sign.exact_moment_text[8], "55");
 }
 
+TEST(LimitOfRun, PolynomialInOneAtomicMatrixIsTheImageOfItsAtoms) {
+  // p(U D U^*) with D atomic: the atoms p(a) with D's weights (spectral mapping, common practice),
+  // 1.5 a² + 0.5 a − 1 at −1, 0.5, 2 gives 0, −0.375, 6. Before, the polynomial solver took it and
+  // its law held 0.07 % of the mass (python.check_limit_catalogue).
+  const auto rotated = derive({"D=diagonal:atoms=-1@0.25,0.5@0.25,2@0.5", "U=haar_unitary"},
+                              "1.5 U D U^* U D U^* + 0.5 U D U^* - 1", 4);
+  ASSERT_TRUE(rotated.law) << rotated.reason;
+  EXPECT_NE(rotated.rule.find("image of its atoms"), std::string::npos) << rotated.rule;
+  const auto atoms = rotated.law->support().atoms;
+  ASSERT_EQ(atoms.size(), 3u);
+  EXPECT_DOUBLE_EQ(atoms[0].value, -0.375);
+  EXPECT_DOUBLE_EQ(atoms[1].value, 0.0);
+  EXPECT_DOUBLE_EQ(atoms[2].value, 6.0);
+  EXPECT_DOUBLE_EQ(atoms[2].mass, 0.5);
+  EXPECT_DOUBLE_EQ(rotated.law->cdf(0.0), 0.5);
+  expect_moments_agree(rotated, 1e-12);
+  // D² − D: equal images merge (−1 and 2 both go to 2).
+  const auto plain = derive({"D=diagonal:atoms=-1@0.25,0.5@0.25,2@0.5"}, "D D - D", 4);
+  ASSERT_TRUE(plain.law) << plain.reason;
+  ASSERT_EQ(plain.law->support().atoms.size(), 2u);
+  EXPECT_DOUBLE_EQ(plain.law->support().atoms[1].value, 2.0);
+  EXPECT_DOUBLE_EQ(plain.law->support().atoms[1].mass, 0.75);
+  expect_moments_agree(plain, 1e-12);
+  // Two matrices (a rotated and an unrotated copy) are not one: the rule does not apply.
+  const auto two = derive({"D=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"},
+                          "U D U^* U D U^* + D", 2);
+  EXPECT_EQ(two.rule.find("image of its atoms"), std::string::npos) << two.rule;
+}
+
 TEST(LimitOfRun, CovarianceSandwichLosesNoMassAtItsSingularEdge) {
   // S W S with W Wishart (ratio 1) and S = diag(1, 2) in equal parts: law(S²) ⊠ MP(1), the
   // sample-covariance limit whose Stieltjes transform m solves m = −(1/z) ∫ dν(t)/(1 + t m)
