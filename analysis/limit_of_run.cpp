@@ -701,6 +701,18 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
                out.reason.substr(out.reason.rfind("yet: ") == std::string::npos ? 0 : out.reason.rfind("yet: ") + 5) + ")";
     out.law = law;
     out.reason.clear();
+    double mass = law->continuous_mass();
+    for (const Atom& a : law->support().atoms) mass += a.mass;
+    if (std::abs(mass - 1.0) > 1e-4) {
+      char buffer[320];
+      std::snprintf(buffer, sizeof buffer,
+                    "the density and the point masses found add up to %.6f instead of 1 (point "
+                    "masses this solver does not locate, or its CDF table's error near a "
+                    "singularity of the density): the CDF is off by up to %.1e, and distances "
+                    "to this limit below that mean nothing",
+                    mass, std::abs(1.0 - mass));
+      out.law_note = buffer;
+    }
   } catch (const Stopped&) {
     throw;  // a stop request ends the command, it is not a reason
   } catch (const Error& e) {

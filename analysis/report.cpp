@@ -622,6 +622,7 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     if (run.limit.law) {
       const Support s = run.limit.law->support();
       md += "- law: " + run.limit.law->describe() + "\n- rule: " + run.limit.rule + "\n";
+      if (!run.limit.law_note.empty()) md += "- note: " + run.limit.law_note + "\n";
       md += "- support: [" + fmt("%.10g", s.lo) + ", " + fmt("%.10g", s.hi) + "]";
       if (!s.atoms.empty()) md += ", with " + std::to_string(s.atoms.size()) + " atom(s)";
       if (s.bands.size() > 1) {

@@ -146,17 +146,7 @@ int run_limit(const LimitOptions& opt) {
     if (!ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
   }
   for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
-  if (polynomial != nullptr) {
-    double mass = polynomial->continuous_mass();
-    for (const auto& a : support.atoms) mass += a.mass;
-    if (std::abs(mass - 1.0) > 1e-4) {
-      std::printf(
-          "note: the density and the point masses found add up to %.6f; the remaining %.6f is "
-          "in point masses this solver does not locate or is lost near a singularity of the "
-          "density, and the CDF misses it\n",
-          mass, 1.0 - mass);
-    }
-  }
+  if (!derived.law_note.empty()) std::printf("note: %s\n", derived.law_note.c_str());
 
   if (opt.output.empty()) return 0;
   namespace fs = std::filesystem;

@@ -45,6 +45,9 @@ struct DerivedLimit {
   std::vector<double> exact_moments;
   std::vector<std::string> exact_moment_text;  ///< the same as exact rationals
   std::string moments_note;
+  /// What the law is known to miss, when something (the polynomial solver's density and point
+  /// masses adding up to less or more than 1); shown beside the law by `limit` and `report`.
+  std::string law_note;
 };
 
 /// The limit of `expression` (as checked for the run) with its exact moments up to max_moment.
