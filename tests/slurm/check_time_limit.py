@@ -63,6 +63,22 @@ def submit(exe, d, tag, restart):
     return name, job_id, log
 
 
+def diagnose(job_id):
+    """What Slurm says of a chain that did not end: the job's state and reason, and the last lines
+    of the daemons' logs that name it (a held or failed launch shows only there)."""
+    info = sh.job_info(job_id)
+    print("  -- job %s: %s" % (job_id, " ".join("%s=%s" % (k, info.get(k, "?")) for k in
+                                                  ("JobState", "Reason", "Restarts", "StartTime",
+                                                   "EndTime", "ExitCode"))))
+    log_dir = os.path.join(os.environ.get("FREEGAP_SLURM_DIR", ""), "log")
+    for name in ("slurmctld.log", "slurmd.log"):
+        lines = [l for l in sh.read(os.path.join(log_dir, name)).splitlines()
+                 if "JobId=%s" % job_id in l or "job %s" % job_id in l or "StepId=%s." % job_id in l
+                 or "error" in l]
+        print("  -- %s (lines naming job %s, and errors):\n%s" %
+              (name, job_id, "\n".join("     | " + l for l in lines[-25:])))
+
+
 def main():
     exe = rh.freegap_exe(sys.argv)
     sh.require_cluster()
@@ -85,6 +101,8 @@ def main():
             print("  -- %s: chain from job %s done after %.0f s; log:\n%s" %
                   (tag, first, time.monotonic() - t0,
                    "\n".join("     | " + l for l in text.splitlines())))
+            if not ok:
+                diagnose(first)
             c.check(ok, "%s: the chain ended (last word written, queue empty) within 12 minutes" % tag)
             c.check("freegap long run: complete after" in text,
                     "%s: the last job reports the run complete" % tag, text)

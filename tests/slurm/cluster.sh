@@ -142,8 +142,10 @@ SlurmUser=root
 SlurmdUser=root
 AuthType=auth/munge
 CredType=cred/munge
-# cred_expire=10: a requeued job comes back after about 20 s instead of 150 s.
-AuthInfo=socket=$RUN/munge.sock,cred_expire=10
+# cred_expire=30: a requeued job comes back after about 30-60 s instead of 150 s. It is also how
+# long a launch credential stays valid: 10 s was too short on a loaded 2-core CI machine (a
+# requeued job did not come back in 11 minutes).
+AuthInfo=socket=$RUN/munge.sock,cred_expire=30
 StateSaveLocation=$RUN/state
 SlurmdSpoolDir=$RUN/spool
 SlurmctldPidFile=$DIR/slurmctld.pid
