@@ -195,6 +195,26 @@ std::vector<LocalSlope> local_slopes(std::span<const ErrorPoint> points) {
   return out;
 }
 
+namespace {
+// The percentile interval of sorted replicate exponents, linear between order statistics.
+void percentile_interval(std::vector<double>& alphas, BootstrapInterval& out) {
+  out.replicates = static_cast<int>(alphas.size());
+  if (alphas.empty()) {
+    out.low = out.high = kNaN;
+    return;
+  }
+  std::sort(alphas.begin(), alphas.end());
+  const auto quantile = [&](double q) {
+    const double pos = q * static_cast<double>(alphas.size() - 1);
+    const auto i = static_cast<std::size_t>(std::floor(pos));
+    const double frac = pos - static_cast<double>(i);
+    return i + 1 < alphas.size() ? alphas[i] * (1.0 - frac) + alphas[i + 1] * frac : alphas[i];
+  };
+  out.low = quantile(0.5 * (1.0 - out.level));
+  out.high = quantile(0.5 * (1.0 + out.level));
+}
+}  // namespace
+
 BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_size,
                                   const ResampledPoint& point, const BootstrapOptions& options) {
   const std::size_t sizes = replicates_per_size.size();
@@ -237,21 +257,38 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
       ++out.failed;
     }
   }
-  out.replicates = static_cast<int>(alphas.size());
-  if (alphas.empty()) {
-    out.low = out.high = kNaN;
-    return out;
+  percentile_interval(alphas, out);
+  return out;
+}
+
+BootstrapInterval bootstrap_alpha_from_replicates(std::span<const ErrorPoint> points,
+                                                  std::span<const std::vector<double>> replicates,
+                                                  const BootstrapOptions& options) {
+  if (replicates.size() != points.size()) {
+    throw InputError("bootstrap_alpha_from_replicates: " + std::to_string(replicates.size()) +
+                     " replicate sets for " + std::to_string(points.size()) + " sizes");
   }
-  std::sort(alphas.begin(), alphas.end());
-  // Percentile interval with linear interpolation between order statistics.
-  const auto quantile = [&](double q) {
-    const double pos = q * static_cast<double>(alphas.size() - 1);
-    const auto i = static_cast<std::size_t>(std::floor(pos));
-    const double frac = pos - static_cast<double>(i);
-    return i + 1 < alphas.size() ? alphas[i] * (1.0 - frac) + alphas[i + 1] * frac : alphas[i];
+  BootstrapInterval out;
+  out.level = options.level;
+  const auto fit_of = [&](const std::vector<ErrorPoint>& pts) {
+    return options.window > 0 ? fit_top_window(pts, options.window, options.fit)
+                              : fit_power_law(pts, options.fit);
   };
-  out.low = quantile(0.5 * (1.0 - options.level));
-  out.high = quantile(0.5 * (1.0 + options.level));
+  out.alpha = fit_of(std::vector<ErrorPoint>(points.begin(), points.end())).alpha;
+  std::size_t b_max = replicates.empty() ? 0 : replicates.front().size();
+  for (const auto& r : replicates) b_max = std::min(b_max, r.size());
+  std::vector<double> alphas;
+  for (std::size_t b = 0; b < b_max; ++b) {
+    std::vector<ErrorPoint> pts(points.begin(), points.end());
+    for (std::size_t j = 0; j < pts.size(); ++j) pts[j].error = replicates[j][b];
+    const PowerLawFit f = fit_of(pts);
+    if (f.ok && std::isfinite(f.alpha)) {
+      alphas.push_back(f.alpha);
+    } else {
+      ++out.failed;
+    }
+  }
+  percentile_interval(alphas, out);
   return out;
 }
 

@@ -5,6 +5,7 @@
 #include <array>
 #include <cmath>
 #include <limits>
+#include <numbers>
 #include <string>
 #include <vector>
 
@@ -318,6 +319,241 @@ PooledDistances pooled_distances(std::span<const double> edges,
   return out;
 }
 
+namespace {
+
+// ∫_a^b |c − L| for L linear from fa at a to fb at b (fa ≤ fb), h = b − a.
+inline double linear_piece(double c, double fa, double fb, double h) {
+  if (c <= fa) return h * (0.5 * (fa + fb) - c);
+  if (c >= fb) return h * (c - 0.5 * (fa + fb));
+  return h * ((c - fa) * (c - fa) + (fb - c) * (fb - c)) / (2.0 * (fb - fa));
+}
+
+// The grid of spectra_distances: nodes x_g with F(x_g), the running integral Φ_g of the linear
+// interpolant, and for each pooled value (sorted) its node.
+struct SpectraGrid {
+  std::vector<double> x, f, phi;
+  std::vector<std::size_t> below;  // cell g: number of pooled values ≤ x_g
+  std::vector<std::size_t> node_of_value;
+  double bound = 0.0;
+};
+
+// ∫_{x_a}^{x_b} |c − F_L| between two nodes: Φ where F_L is on one side of c, and the crossing
+// (binary search on the monotone F values, then inside its cell) where it changes side.
+double grid_piece(const SpectraGrid& g, double c, std::size_t a, std::size_t b) {
+  if (b <= a) return 0.0;
+  const double len = g.x[b] - g.x[a], area = g.phi[b] - g.phi[a];
+  if (g.f[a] >= c) return area - c * len;
+  if (g.f[b] <= c) return c * len - area;
+  // First node in (a, b] with F ≥ c; the crossing lies in the cell before it.
+  const auto it = std::lower_bound(g.f.begin() + static_cast<std::ptrdiff_t>(a) + 1,
+                                   g.f.begin() + static_cast<std::ptrdiff_t>(b) + 1, c);
+  const auto k = static_cast<std::size_t>(it - g.f.begin());
+  const double fa = g.f[k - 1], fb = g.f[k], h = g.x[k] - g.x[k - 1];
+  const double t = fb > fa ? (c - fa) / (fb - fa) : 0.0;
+  const double xs = g.x[k - 1] + t * h;
+  const double phis = g.phi[k - 1] + h * t * (fa + 0.5 * t * (fb - fa));
+  return (c * (xs - g.x[a]) - (phis - g.phi[a])) + ((g.phi[b] - phis) - c * (g.x[b] - xs));
+}
+
+}  // namespace
+
+SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
+                                   const LimitDistribution& limit, std::uint64_t stream_size,
+                                   const MetricsOptions& options) {
+  if (spectra.empty()) throw InputError("no kept spectra: no distances from spectra");
+  if (spectra.size() >= (std::size_t{1} << 32)) throw InputError("too many kept spectra (2^32 or more)");
+  if (!limit.cdf) throw InputError("no limit CDF: no distances");
+  const std::size_t r = spectra.size();
+  std::size_t m = 0;
+  for (const auto& s : spectra) {
+    if (s.empty()) throw InputError("an empty kept spectrum: no distances from spectra");
+    m += s.size();
+  }
+  if (m >= (std::size_t{1} << 32)) throw InputError("2^32 or more kept eigenvalues in one size: too many to pool");
+  // Pooled values with their trial, sorted by value (then trial: the order is reproducible).
+  std::vector<std::pair<double, std::uint32_t>> pooled;
+  pooled.reserve(m);
+  for (std::size_t t = 0; t < r; ++t) {
+    for (double v : spectra[t]) pooled.emplace_back(v, static_cast<std::uint32_t>(t));
+  }
+  std::sort(pooled.begin(), pooled.end());
+
+  // Breakpoints: the pooled values and the support's ends; each gap split into k equal cells.
+  std::vector<double> points;
+  points.reserve(m + 2);
+  for (const auto& p : pooled) points.push_back(p.first);
+  for (double e : {limit.support_low, limit.support_high}) {
+    points.insert(std::upper_bound(points.begin(), points.end(), e), e);
+  }
+  const std::size_t k =
+      std::clamp<std::size_t>((kSpectraGridCells + points.size() - 2) / (points.size() - 1), 1, 4096);
+  SpectraGrid g;
+  g.x.reserve((points.size() - 1) * k + 1);
+  g.node_of_value.resize(m);
+  {
+    std::size_t v = 0;  // pooled values placed so far
+    for (std::size_t i = 0; i < points.size(); ++i) {
+      // Each pooled value is a breakpoint; match them in order (ties share a node).
+      if (i > 0 && points[i] == points[i - 1]) {
+        // same node as before
+      } else {
+        if (i > 0) {
+          const double a = points[i - 1], b = points[i];
+          for (std::size_t j = 1; j < k; ++j) {
+            g.x.push_back(a + (b - a) * static_cast<double>(j) / static_cast<double>(k));
+          }
+        }
+        g.x.push_back(points[i]);
+      }
+      while (v < m && pooled[v].first == points[i]) g.node_of_value[v++] = g.x.size() - 1;
+    }
+  }
+  const std::size_t nodes = g.x.size();
+  g.f.resize(nodes);
+  for (std::size_t i = 0; i < nodes; ++i) {
+    if ((i & 4095) == 0) check_stop();
+    g.f[i] = std::clamp(limit.cdf(g.x[i]), 0.0, 1.0);
+    if (i > 0) g.f[i] = std::max(g.f[i], g.f[i - 1]);  // monotone against rounding
+  }
+  g.phi.assign(nodes, 0.0);
+  g.below.assign(nodes, 0);
+  {
+    std::size_t v = 0;
+    for (std::size_t i = 0; i < nodes; ++i) {
+      while (v < m && g.node_of_value[v] <= i) ++v;
+      g.below[i] = v;
+      if (i > 0) {
+        const double h = g.x[i] - g.x[i - 1];
+        g.phi[i] = g.phi[i - 1] + 0.5 * h * (g.f[i] + g.f[i - 1]);
+        g.bound += h * (g.f[i] - g.f[i - 1]);
+      }
+    }
+  }
+
+  // Distances of the pooled distribution with trial weights w (Σ w = 1): the value of each pooled
+  // value is w_t / n_t. cum[v] = weight of the first v pooled values.
+  // cum0: the data's own (all trials weigh 1/R). Each call also gives the distances of the
+  // reweighted distribution to the data's (ks0, w10): the distance noise alone produces.
+  std::vector<double> cum(m + 1), cum0;
+  // Flat arrays for the replicate loops (they run B times over every value and cell).
+  std::vector<std::uint32_t> value_trial(m);
+  std::vector<double> value_f(m), wt(r), dx(nodes > 0 ? nodes - 1 : 0);
+  std::vector<std::uint32_t> cell_below(dx.size());
+  for (std::size_t v = 0; v < m; ++v) {
+    value_trial[v] = pooled[v].second;
+    value_f[v] = g.f[g.node_of_value[v]];
+  }
+  for (std::size_t i = 0; i < dx.size(); ++i) {
+    dx[i] = g.x[i + 1] - g.x[i];
+    cell_below[i] = static_cast<std::uint32_t>(g.below[i]);
+  }
+  const auto distances = [&](std::span<const double> w, double& ks, double& w1, double& ks0,
+                             double& w10) {
+    for (std::size_t t = 0; t < r; ++t) wt[t] = w[t] / static_cast<double>(spectra[t].size());
+    const bool noise = !cum0.empty();
+    double c = 0.0, k1 = 0.0, k0 = 0.0;
+    cum[0] = 0.0;
+    for (std::size_t v = 0; v < m; ++v) {
+      const double prev = c, f = value_f[v];
+      c += wt[value_trial[v]];
+      cum[v + 1] = c;
+      k1 = std::max(k1, std::max(c - f, f - prev));
+      if (noise) k0 = std::max(k0, std::fabs(c - cum0[v + 1]));
+    }
+    ks = k1;
+    ks0 = k0;
+    double a1 = 0.0, a0 = 0.0;
+    for (std::size_t i = 0; i < dx.size(); ++i) {
+      const double cc = std::min(1.0, cum[cell_below[i]]);
+      a1 += linear_piece(cc, g.f[i], g.f[i + 1], dx[i]);
+      if (noise) a0 += std::fabs(cc - std::min(1.0, cum0[cell_below[i]])) * dx[i];
+    }
+    w1 = a1;
+    w10 = a0;
+  };
+
+  SpectraDistances out;
+  out.trials = static_cast<std::int64_t>(r);
+  out.values = static_cast<std::int64_t>(m);
+  out.wasserstein1_grid_bound = g.bound;
+  std::vector<double> w(r, 1.0 / static_cast<double>(r));
+  {
+    double unused0 = 0.0, unused1 = 0.0;
+    distances(w, out.kolmogorov_plugin, out.wasserstein1_plugin, unused0, unused1);
+    cum0 = cum;
+  }
+
+  std::vector<double> ks, w1, ks0, w10;
+  if (r >= 2 && options.bootstrap_replicates >= 2) {
+    rng::Stream stream(rng::StreamKey{options.seed, "metrics-bootstrap-trials", stream_size, 0});
+    for (int b = 0; b < options.bootstrap_replicates; ++b) {
+      check_stop();
+      std::fill(w.begin(), w.end(), 0.0);
+      for (std::size_t t = 0; t < r; ++t) {
+        auto pick = static_cast<std::size_t>(stream.uniform() * static_cast<double>(r));
+        w[std::min(pick, r - 1)] += 1.0 / static_cast<double>(r);
+      }
+      double a = 0.0, c = 0.0, a0 = 0.0, c0 = 0.0;
+      distances(w, a, c, a0, c0);
+      ks.push_back(a);
+      w1.push_back(c);
+      ks0.push_back(a0);
+      w10.push_back(c0);
+    }
+  }
+  const auto finish = [&](const std::vector<double>& reps, std::vector<double> noise,
+                          double plugin, MetricValue& mv, double& bias, double& zero_level,
+                          std::vector<double>& corrected) {
+    if (reps.size() < 2) {
+      mv.value = plugin;
+      mv.standard_error = mv.noise_floor = kNaN;
+      mv.resolved = false;
+      bias = zero_level = kNaN;
+      return;
+    }
+    const MeanSd ms = mean_sd(reps);
+    bias = ms.mean - plugin;
+    mv.value = plugin - bias;
+    mv.standard_error = ms.sd;
+    // The noise floor: where the corrected value of a zero distance lies, (2 − √2)·mean(D0*)
+    // (see metrics.hpp), plus kSignedResolutionFactor standard errors.
+    zero_level = (2.0 - std::numbers::sqrt2) * mean_sd(noise).mean;
+    mv.noise_floor = zero_level + kSignedResolutionFactor * ms.sd;
+    mv.resolved = std::isfinite(ms.sd) && mv.value > mv.noise_floor;
+    corrected.reserve(reps.size());
+    for (double x : reps) corrected.push_back(x - bias);
+  };
+  finish(ks, ks0, out.kolmogorov_plugin, out.kolmogorov, out.kolmogorov_bias,
+         out.kolmogorov_zero_level, out.kolmogorov_replicates);
+  finish(w1, w10, out.wasserstein1_plugin, out.wasserstein1, out.wasserstein1_bias,
+         out.wasserstein1_zero_level, out.wasserstein1_replicates);
+
+  // Per trial: its values' nodes in order; KS from F at them, W1 piecewise on the grid.
+  std::vector<std::vector<std::size_t>> trial_nodes(r);
+  for (std::size_t t = 0; t < r; ++t) trial_nodes[t].reserve(spectra[t].size());
+  for (std::size_t v = 0; v < m; ++v) trial_nodes[pooled[v].second].push_back(g.node_of_value[v]);
+  out.per_trial_kolmogorov.resize(r);
+  out.per_trial_wasserstein1.resize(r);
+  for (std::size_t t = 0; t < r; ++t) {
+    if ((t & 63) == 0) check_stop();
+    const auto& idx = trial_nodes[t];
+    const auto n = static_cast<double>(idx.size());
+    double d = 0.0, area = 0.0;
+    for (std::size_t i = 0; i < idx.size(); ++i) {
+      const double f = g.f[idx[i]];
+      d = std::max({d, static_cast<double>(i + 1) / n - f, f - static_cast<double>(i) / n});
+    }
+    area += grid_piece(g, 0.0, 0, idx.front());
+    for (std::size_t i = 0; i + 1 < idx.size(); ++i) {
+      area += grid_piece(g, static_cast<double>(i + 1) / n, idx[i], idx[i + 1]);
+    }
+    area += grid_piece(g, 1.0, idx.back(), nodes - 1);
+    out.per_trial_kolmogorov[t] = d;
+    out.per_trial_wasserstein1[t] = area;
+  }
+  return out;
+}
+
 SignedError signed_error(std::span<const double> values, double limit) {
   SignedError out;
   out.limit = limit;
@@ -345,7 +581,22 @@ SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& lim
   if (!limit.distribution.cdf) {
     out.notes.push_back("no limit CDF: no distances");
   } else {
-    if (data.unit_histograms.empty()) {
+    const bool all_kept =
+        ok.size() >= 2 && std::all_of(ok.begin(), ok.end(), [](const observe::TrialRecord* t) {
+          return !t->spectrum.empty();
+        });
+    if (all_kept) {
+      std::vector<std::vector<double>> spectra;
+      spectra.reserve(ok.size());
+      for (const auto* t : ok) spectra.push_back(t->spectrum);
+      out.spectra = spectra_distances(spectra, limit.distribution,
+                                      static_cast<std::uint64_t>(data.n), options);
+      out.has_pooled = true;
+      out.pooled_from_spectra = true;
+      out.pooled_kolmogorov = out.spectra.kolmogorov;
+      out.pooled_wasserstein1 = out.spectra.wasserstein1;
+      out.pooled_resolution = 0.0;
+    } else if (data.unit_histograms.empty()) {
       out.notes.push_back("no histograms: no pooled distances");
     } else {
       const PooledDistances p =
@@ -359,11 +610,16 @@ SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& lim
       }
     }
     std::vector<double> ks, w1;
-    for (const auto* t : ok) {
-      if (t->spectrum.empty()) continue;
-      const SampleDistances d = sample_distances(t->spectrum, limit.distribution);
-      ks.push_back(d.kolmogorov);
-      w1.push_back(d.wasserstein1);
+    if (out.pooled_from_spectra) {
+      ks = out.spectra.per_trial_kolmogorov;
+      w1 = out.spectra.per_trial_wasserstein1;
+    } else {
+      for (const auto* t : ok) {
+        if (t->spectrum.empty()) continue;
+        const SampleDistances d = sample_distances(t->spectrum, limit.distribution);
+        ks.push_back(d.kolmogorov);
+        w1.push_back(d.wasserstein1);
+      }
     }
     if (!ks.empty()) {
       out.has_per_trial = true;
@@ -375,6 +631,8 @@ SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& lim
       };
       fill(ks, out.per_trial.kolmogorov, out.per_trial.kolmogorov_sd);
       fill(w1, out.per_trial.wasserstein1, out.per_trial.wasserstein1_sd);
+      out.per_trial.kolmogorov_values = std::move(ks);
+      out.per_trial.wasserstein1_values = std::move(w1);
     } else {
       out.notes.push_back("no kept spectra: no per-trial distances");
     }

@@ -81,31 +81,51 @@ def spectrum_figures(d, runs, sizes, hist, dens, atoms):
 def errors_figure(d, run, sizes, moments, extremes, fits):
     r = run["run"]
     series = {}
+    # Each point: (N, |error|, standard error, resolved).
     for s in [s for s in sizes if s["run"] == r]:
         for key, col in (("kolmogorov", "kolmogorov"), ("wasserstein1", "wasserstein1")):
             if finite(s[col]) and s[col] > 0:
-                series.setdefault(key, []).append((s["n"], s[col], s[col + "_se"]))
+                series.setdefault(key, []).append((s["n"], s[col], s[col + "_se"], s[col + "_resolved"] == 1.0))
+        for key, col in (("kolmogorov_per_trial", "per_trial_kolmogorov"),
+                         ("wasserstein1_per_trial", "per_trial_wasserstein1")):
+            mean, se = s.get(col + "_mean"), s.get(col + "_se")
+            if finite(mean) and mean > 0:
+                series.setdefault(key, []).append((s["n"], mean, se, finite(se) and mean >= 2 * se))
     for m in [m for m in moments if m["run"] == r]:
         key = "moment_%d" % m["k"]
         if finite(m["error"]) and m["error"] != 0:
-            series.setdefault(key, []).append((m["n"], abs(m["error"]), m["standard_error"]))
+            series.setdefault(key, []).append((m["n"], abs(m["error"]), m["standard_error"], m["resolved"] == 1.0))
     for e in [e for e in extremes if e["run"] == r]:
         if finite(e["error"]) and e["error"] != 0:
-            series.setdefault(e["quantity"], []).append((e["n"], abs(e["error"]), e["standard_error"]))
+            series.setdefault(e["quantity"], []).append((e["n"], abs(e["error"]), e["standard_error"],
+                                                         e["resolved"] == 1.0))
     run_fits = {f["key"]: f for f in fits if f["run"] == r}
     keys = [k for k in series if k in run_fits and run_fits[k]["ok"] == 1.0]
     if not keys:
         return False
     fig, ax = plt.subplots(figsize=(6.8, 4.6))
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    markers = "osD^vP*Xh<>"
+    any_unresolved = False
     for i, key in enumerate(keys):
         pts = sorted(series[key])
         f = run_fits[key]
         c = colors[i % len(colors)]
+        mk = markers[i % len(markers)]
         ns = [p[0] for p in pts]
-        ax.errorbar(ns, [p[1] for p in pts], yerr=[p[2] if finite(p[2]) else 0 for p in pts], fmt="o",
-                    color=c, markersize=4, capsize=2,
-                    label="%s: α = %.2f [%.2f, %.2f]" % (f["quantity"], f["alpha"], f["ci_low"], f["ci_high"]))
+        # Resolved points filled, unresolved ones hollow (they are not in the fit); a marker of its
+        # own per quantity keeps coinciding series visible.
+        for resolved in (True, False):
+            sel = [p for p in pts if p[3] == resolved]
+            if not sel:
+                continue
+            any_unresolved |= not resolved
+            ax.errorbar([p[0] for p in sel], [p[1] for p in sel],
+                        yerr=[p[2] if finite(p[2]) else 0 for p in sel], fmt=mk, color=c,
+                        markersize=5 if resolved else 6, capsize=2,
+                        markerfacecolor=c if resolved else "none",
+                        label=("%s: α = %.2f [%.2f, %.2f]" % (f["quantity"], f["alpha"], f["ci_low"], f["ci_high"]))
+                        if resolved else None)
         lo, hi = min(ns), max(ns)
         grid = [lo * (hi / lo) ** (j / 40) for j in range(41)]
         ax.plot(grid, [f["constant"] * x ** (-f["alpha"]) for x in grid], color=c, linewidth=1.0)
@@ -118,7 +138,8 @@ def errors_figure(d, run, sizes, moments, extremes, fits):
                         color=c, alpha=0.15, linewidth=0)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_title("%s: errors against N (fits C·N^-α with 95%% bands)" % run["file"])
+    ax.set_title("%s: errors against N (fits C·N^-α with 95%% bands)%s" %
+                 (run["file"], "\nhollow: unresolved, left out of the fit" if any_unresolved else ""))
     ax.set_xlabel("matrix size N")
     ax.set_ylabel("|error| (units of the quantity)")
     ax.legend(fontsize=7)
@@ -155,17 +176,26 @@ def sweep_figure(d, runs, sizes):
     fig, ax = plt.subplots(figsize=(6.8, 4.6))
     drawn = False
     for run in runs:
-        pts = sorted((s["n"], s["kolmogorov"], s["kolmogorov_se"]) for s in sizes
+        pts = sorted((s["n"], s["kolmogorov"], s["kolmogorov_se"], s["kolmogorov_resolved"] == 1.0)
+                     for s in sizes
                      if s["run"] == run["run"] and finite(s["kolmogorov"]) and s["kolmogorov"] > 0)
         if not pts:
             continue
         drawn = True
-        ax.errorbar([p[0] for p in pts], [p[1] for p in pts], yerr=[p[2] if finite(p[2]) else 0 for p in pts],
-                    fmt="o-", markersize=4, capsize=2, label="%d: %s" % (run["run"], run["file"]))
+        line = ax.plot([p[0] for p in pts], [p[1] for p in pts], "-", linewidth=0.8,
+                       label="%d: %s" % (run["run"], run["file"]))[0]
+        for resolved in (True, False):
+            sel = [p for p in pts if p[3] == resolved]
+            if sel:
+                ax.errorbar([p[0] for p in sel], [p[1] for p in sel],
+                            yerr=[p[2] if finite(p[2]) else 0 for p in sel], fmt="o", markersize=5,
+                            capsize=2, color=line.get_color(),
+                            markerfacecolor=line.get_color() if resolved else "none")
     if drawn:
         ax.set_xscale("log")
         ax.set_yscale("log")
-        ax.set_title("Sweep: Kolmogorov distance of the mean spectrum to each limit")
+        ax.set_title("Sweep: Kolmogorov distance of the mean spectrum to each limit\n"
+                     "(hollow: unresolved)")
         ax.set_xlabel("matrix size N")
         ax.set_ylabel("Kolmogorov distance (probability)")
         ax.legend(fontsize=7)

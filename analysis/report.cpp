@@ -32,6 +32,9 @@ namespace freegap::analysis {
 namespace {
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+// A fitted exponent whose 95% interval is wider than ± this gets a note with the trials that
+// would narrow it.
+constexpr double kWideExponent = 0.1;
 
 std::string fmt(const char* f, ...) {
   char buf[256];
@@ -215,8 +218,37 @@ void fit_run(RunResult& run, const ReportOptions& options) {
     run.fits.push_back(std::move(f));
   };
 
-  // Pooled distances, bootstrapped over work units.
-  if (std::all_of(used.begin(), used.end(), [](const SizeResult* s) { return s->metrics.has_pooled; })) {
+  // Pooled distances from every trial's kept spectrum: bias-corrected values, and the exponent's
+  // interval from the per-size bootstrap replicates paired by index.
+  const bool from_spectra = std::all_of(used.begin(), used.end(), [](const SizeResult* s) {
+    return s->metrics.has_pooled && s->metrics.pooled_from_spectra;
+  });
+  if (from_spectra) {
+    for (int which = 0; which < 2; ++which) {
+      std::vector<ErrorPoint> points;
+      std::vector<std::vector<double>> reps;
+      for (const auto* s : used) {
+        const auto& m = s->metrics;
+        ErrorPoint p = point_of(static_cast<double>(s->n),
+                                which == 0 ? m.pooled_kolmogorov : m.pooled_wasserstein1);
+        // The residual bias the correction may leave counts as uncertainty (metrics.hpp).
+        p.standard_error = std::hypot(p.standard_error, which == 0 ? m.spectra.kolmogorov_zero_level
+                                                                   : m.spectra.wasserstein1_zero_level);
+        points.push_back(p);
+        reps.push_back(which == 0 ? m.spectra.kolmogorov_replicates : m.spectra.wasserstein1_replicates);
+      }
+      std::optional<BootstrapInterval> interval;
+      if (std::all_of(reps.begin(), reps.end(), [](const auto& r) { return r.size() >= 2; })) {
+        interval = bootstrap_alpha_from_replicates(points, reps, boot);
+      }
+      add(which == 0 ? "Kolmogorov distance of the mean spectral distribution"
+                     : "Wasserstein-1 distance of the mean spectral distribution",
+          which == 0 ? "kolmogorov" : "wasserstein1", std::move(points), interval);
+    }
+  }
+  // Pooled distances from histograms, bootstrapped over work units.
+  if (!from_spectra &&
+      std::all_of(used.begin(), used.end(), [](const SizeResult* s) { return s->metrics.has_pooled; })) {
     std::vector<std::size_t> replicates;
     for (const auto* s : used) replicates.push_back(s->units.size());
     const LimitDistribution& limit = run.reference.distribution;
@@ -267,6 +299,30 @@ void fit_run(RunResult& run, const ReportOptions& options) {
     }
     add(std::move(quantity), std::move(key), std::move(points), interval);
   };
+
+  // Per-trial distances (the mean over trials of each trial's own distance), where every size
+  // kept spectra.
+  if (std::all_of(used.begin(), used.end(), [](const SizeResult* s) { return s->metrics.has_per_trial; })) {
+    for (int which = 0; which < 2; ++which) {
+      std::vector<double> sizes;
+      std::vector<std::vector<double>> values;
+      std::vector<ErrorPoint> points;
+      for (const auto* s : used) {
+        const auto& p = s->metrics.per_trial;
+        const auto& v = which == 0 ? p.kolmogorov_values : p.wasserstein1_values;
+        sizes.push_back(static_cast<double>(s->n));
+        points.push_back(mean_error_point(static_cast<double>(s->n), v, 0.0));
+        values.push_back(v);
+      }
+      std::optional<BootstrapInterval> interval;
+      if (std::all_of(values.begin(), values.end(), [](const auto& v) { return v.size() >= 2; })) {
+        interval = bootstrap_alpha_of_means(sizes, values, 0.0, boot);
+      }
+      add(which == 0 ? "Kolmogorov distance per trial (mean over trials)"
+                     : "Wasserstein-1 distance per trial (mean over trials)",
+          which == 0 ? "kolmogorov_per_trial" : "wasserstein1_per_trial", std::move(points), interval);
+    }
+  }
 
   if (!run.reference.moments.empty()) {
     const int k_max = std::min<int>(options.max_moment_fitted,
@@ -405,7 +461,9 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
                  "wasserstein1_noise_floor", "wasserstein1_resolved", "per_trial_count",
                  "per_trial_kolmogorov_mean", "per_trial_kolmogorov_se", "per_trial_kolmogorov_sd",
                  "per_trial_wasserstein1_mean", "per_trial_wasserstein1_se",
-                 "per_trial_wasserstein1_sd"},
+                 "per_trial_wasserstein1_sd", "distances_from_spectra", "kolmogorov_plugin",
+                 "kolmogorov_bias", "wasserstein1_plugin", "wasserstein1_bias",
+                 "wasserstein1_grid_bound"},
                 {}};
   Table moments_t{"moments", {"run", "n", "k", "mean", "limit", "error", "standard_error", "resolved"}, {}};
   Table extremes_t{"extremes",
@@ -448,7 +506,12 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
            static_cast<double>(per ? m.per_trial.trials : 0), v(per, m.per_trial.kolmogorov.value),
            v(per, m.per_trial.kolmogorov.standard_error), v(per, m.per_trial.kolmogorov_sd),
            v(per, m.per_trial.wasserstein1.value), v(per, m.per_trial.wasserstein1.standard_error),
-           v(per, m.per_trial.wasserstein1_sd)});
+           v(per, m.per_trial.wasserstein1_sd), b(pooled && m.pooled_from_spectra),
+           v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_plugin),
+           v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_bias),
+           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_plugin),
+           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_bias),
+           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_grid_bound)});
       if (!s.has_data()) continue;
       for (std::size_t k = 1; k < m.moment_errors.size(); ++k) {
         const auto& e = m.moment_errors[k];
@@ -677,14 +740,46 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     const bool any_pooled = std::any_of(run.sizes.begin(), run.sizes.end(),
                                         [](const SizeResult& s) { return s.has_data() && s.metrics.has_pooled; });
     if (any_pooled) {
-      md += "\n### Distance of the mean spectral distribution to the limit\n\n"
-            "Pooled histogram of all trials against the limit CDF at the bin edges (a lower bound "
-            "of the Kolmogorov distance, short of it by at most the bin resolution).\n\n"
-            "| N | Kolmogorov | Wasserstein-1 | bin resolution |\n|---|---|---|---|\n";
-      for (const auto& s : run.sizes) {
-        if (!s.has_data()) continue;
-        md += "| " + std::to_string(s.n) + " | " + pm(s.metrics.pooled_kolmogorov) + " | " +
-              pm(s.metrics.pooled_wasserstein1) + " | " + num(s.metrics.pooled_resolution) + " |\n";
+      md += "\n### Distance of the mean spectral distribution to the limit\n\n";
+      const bool any_spectra = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
+        return s.has_data() && s.metrics.pooled_from_spectra;
+      });
+      const bool any_binned = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
+        return s.has_data() && s.metrics.has_pooled && !s.metrics.pooled_from_spectra;
+      });
+      if (any_spectra) {
+        md += "From every trial's kept eigenvalues (no bins): Kolmogorov exact over every jump of "
+              "the pooled empirical CDF, Wasserstein-1 against the limit CDF's linear interpolant "
+              "on a fine grid (its error at most the grid bound). Value = plug-in − bootstrap bias "
+              "(trials resampled), ± the bootstrap standard error. Unresolved when, after that "
+              "correction, it does not exceed the noise floor: where the corrected value of a "
+              "zero distance lies, plus 2 standard errors (a one-sided test of \"the distance "
+              "is 0\" at about the 2.5 % level: about one size in 40 of a model at its limit is "
+              "called resolved).\n\n"
+              "| N | trials | Kolmogorov | plug-in (bias) | noise floor | Wasserstein-1 | plug-in (bias) | noise floor | W1 grid bound |\n"
+              "|---|---|---|---|---|---|---|---|---|\n";
+        for (const auto& s : run.sizes) {
+          if (!s.has_data() || !s.metrics.pooled_from_spectra) continue;
+          const auto& d = s.metrics.spectra;
+          md += "| " + std::to_string(s.n) + " | " + std::to_string(d.trials) + " | " +
+                pm(s.metrics.pooled_kolmogorov) + " | " + num(d.kolmogorov_plugin) + " (" +
+                num(d.kolmogorov_bias) + ") | " + num(d.kolmogorov.noise_floor) + " | " +
+                pm(s.metrics.pooled_wasserstein1) + " | " + num(d.wasserstein1_plugin) + " (" +
+                num(d.wasserstein1_bias) + ") | " + num(d.wasserstein1.noise_floor) + " | " +
+                num(d.wasserstein1_grid_bound) + " |\n";
+        }
+      }
+      if (any_binned) {
+        md += std::string(any_spectra ? "\n" : "") +
+              "Pooled histogram of all trials against the limit CDF at the bin edges (a lower "
+              "bound of the Kolmogorov distance, short of it by at most the bin resolution); "
+              "sizes whose trials did not all keep their spectra.\n\n"
+              "| N | Kolmogorov | Wasserstein-1 | bin resolution |\n|---|---|---|---|\n";
+        for (const auto& s : run.sizes) {
+          if (!s.has_data() || !s.metrics.has_pooled || s.metrics.pooled_from_spectra) continue;
+          md += "| " + std::to_string(s.n) + " | " + pm(s.metrics.pooled_kolmogorov) + " | " +
+                pm(s.metrics.pooled_wasserstein1) + " | " + num(s.metrics.pooled_resolution) + " |\n";
+        }
       }
     }
     const bool any_per = std::any_of(run.sizes.begin(), run.sizes.end(),
@@ -760,6 +855,20 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
       if (!warnings.empty()) {
         md += "\nWarnings:\n\n";
         for (const auto& w : warnings) md += "- " + w + "\n";
+      }
+      // A fit too wide to say much: how many more trials would narrow it (its interval is
+      // noise-limited, so its width falls like 1/√R; docs/check-values.md §4i).
+      std::string wide;
+      for (const auto& f : run.fits) {
+        const double half = 0.5 * (f.fit.ci_high - f.fit.ci_low);
+        if (!f.fit.ok || !(half > kWideExponent)) continue;
+        wide += "- " + f.quantity + ": ± " + num(half) + "; about " +
+                num((half / kWideExponent) * (half / kWideExponent)) + " × the trials at every size for ± " +
+                num(kWideExponent) + " (`freegap plan JOB --rate-halfwidth " + num(kWideExponent) +
+                " --pilot " + run.label + " --rate-quantity " + f.key + "` prices it)\n";
+      }
+      if (!wide.empty()) {
+        md += "\nExponents whose 95% interval is wider than ± " + num(kWideExponent) + ":\n\n" + wide;
       }
     }
     if (!run.estimates.empty()) {

@@ -104,6 +104,14 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
                                   const ResampledPoint& point,
                                   const BootstrapOptions& options = {});
 
+/// Percentile interval of α from given replicates of each size's error: replicate b of every
+/// size makes one bootstrap data set (the sizes are independent, so pairing by index is a joint
+/// draw). Each data set keeps the points' n, standard errors and resolved flags, so it is fitted
+/// on the same sizes as the data. Used with spectra_distances' bias-corrected replicates.
+BootstrapInterval bootstrap_alpha_from_replicates(std::span<const ErrorPoint> points,
+                                                  std::span<const std::vector<double>> replicates,
+                                                  const BootstrapOptions& options = {});
+
 /// Convenience for the common case: per-trial values x_{j,r} of a quantity whose limit is
 /// `target`; e_j = mean_r x_{j,r} − target, s_j = sd/√R.
 BootstrapInterval bootstrap_alpha_of_means(std::span<const double> sizes,

@@ -96,6 +96,7 @@ struct PerTrialDistances {
   MetricValue wasserstein1;
   double kolmogorov_sd = 0.0;  ///< spread over trials
   double wasserstein1_sd = 0.0;
+  std::vector<double> kolmogorov_values, wasserstein1_values;  ///< one per trial (for the fits)
 };
 
 /// An error of a signed quantity (mean over trials minus its limit).
@@ -127,11 +128,65 @@ struct MetricsOptions {
   std::uint64_t seed = 20240611;  ///< bootstrap stream seed (fixed: reports are reproducible)
 };
 
+/// Distances of the mean spectral distribution computed from the kept spectra of every trial —
+/// no bins (docs/check-values.md §4i):
+///  - Kolmogorov: exact, the supremum of |F̄_n − F| over every jump of the pooled empirical CDF
+///    F̄_n = (1/R) Σ_t F_{n,t} (each trial weighs 1/R, each of its values 1/(R·n_t));
+///  - Wasserstein-1: ∫|F̄_n − F_L| with F_L the piecewise-linear interpolant of F on a grid made of
+///    every pooled value, the support's ends and equal subdivisions between them (at least
+///    kSpectraGridCells cells). Its distance to the true W1 is at most
+///    Σ_cells h·(F(b) − F(a)) (F and F_L are monotone between F(a) and F(b) in each cell), which
+///    is computed and returned as `wasserstein1_grid_bound`;
+///  - uncertainty: B bootstrap resamples of the trials (Efron & Tibshirani 1993 ch. 6 and 10,
+///    from memory), each a reweighting of the same pooled values (no F calls per replicate).
+///    standard error = sd of the replicates; bias = mean(D*) − D̂ (a distance measured on a noisy
+///    estimate of F̄ is biased upward); the reported value is D̂ − bias.
+///  - resolved: a test of "the true distance is 0". Then D̂ is a distance of noise alone, of mean
+///    μ0, and a replicate adds an independent noise of the same size, so E D* ≈ √2·μ0 (exact for
+///    W1 with Gaussian noise, close for the supremum) and the corrected value 2D̂ − mean(D*) sits
+///    near (2 − √2)·μ0 — not at 0: for W1, an integral of |noise| over the whole support, that
+///    level is many standard errors. μ0 is estimated by the mean over the replicates of the
+///    distance between the resampled and the data's own F̄_n. Noise floor = (2 − √2)·μ0 +
+///    kSignedResolutionFactor × standard error; resolved when the corrected value exceeds it.
+///    (Measured on samples drawn from the limit itself, see the unit test's comment.)
+///  - per trial: the same distances of each trial's own spectral distribution, on the same grid.
+inline constexpr std::size_t kSpectraGridCells = std::size_t{1} << 19;
+
+struct SpectraDistances {
+  std::int64_t trials = 0;   ///< trials pooled
+  std::int64_t values = 0;   ///< eigenvalues pooled
+  MetricValue kolmogorov;    ///< bias-corrected value, bootstrap SE, noise floor (see above)
+  MetricValue wasserstein1;
+  double kolmogorov_plugin = 0.0, wasserstein1_plugin = 0.0;  ///< D̂ before the correction
+  double kolmogorov_bias = 0.0, wasserstein1_bias = 0.0;      ///< mean(D*) − D̂
+  /// (2 − √2)·μ0: where the corrected value of a zero distance lies. It also bounds what bias
+  /// the correction leaves when the distance is small next to the noise (the bias of a distance
+  /// of noise falls quickly as the distance grows past it), so the fits add it to the standard
+  /// error in quadrature.
+  double kolmogorov_zero_level = 0.0, wasserstein1_zero_level = 0.0;
+  double wasserstein1_grid_bound = 0.0;  ///< bound on |computed − exact| W1 (see above)
+  /// Bias-corrected bootstrap replicates D*_b − bias (replicate b of every size can be paired
+  /// for a bootstrap of a rate's exponent).
+  std::vector<double> kolmogorov_replicates, wasserstein1_replicates;
+  /// Per-trial distances (trial order), on the same grid.
+  std::vector<double> per_trial_kolmogorov, per_trial_wasserstein1;
+};
+
+/// Throws InputError when there are no spectra, one is empty, or the limit has no CDF.
+/// `stream_size` keys the bootstrap stream (the N of the size).
+SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
+                                   const LimitDistribution& limit, std::uint64_t stream_size,
+                                   const MetricsOptions& options = {});
+
 /// All metrics of one size.
 struct SizeMetrics {
   std::int64_t n = 0;
   std::int64_t trials_used = 0;  ///< non-failed trials
   bool has_pooled = false;
+  /// The pooled distances come from every trial's kept spectrum (spectra_distances, no bins);
+  /// false: from the histograms (binned, bootstrap over units).
+  bool pooled_from_spectra = false;
+  SpectraDistances spectra;  ///< when pooled_from_spectra
   MetricValue pooled_kolmogorov;
   MetricValue pooled_wasserstein1;
   double pooled_resolution = 0.0;  ///< bin-limited KS resolution (see BinnedDistances)
