@@ -214,7 +214,10 @@ ensemble = "gue"
   EXPECT_TRUE(job.observe.auto_range);
   EXPECT_EQ(job.observe.margin, 0.1);
   EXPECT_EQ(job.observe.max_moment, 8);
-  EXPECT_EQ(job.observe.keep_spectra, 0);
+  // keep_spectra = "auto": 2 sizes × 3 trials are far within the budget, so every trial keeps
+  // its spectrum.
+  EXPECT_EQ(job.observe.keep_spectra_rule, "auto");
+  EXPECT_EQ(job.observe.keep_spectra, 3);
   EXPECT_FALSE(job.observe.singular_values);
   ASSERT_EQ(job.matrices.size(), 1u);
   EXPECT_EQ(job.matrices[0].kind, freegap::ensembles::Kind::gue);
@@ -509,6 +512,12 @@ TEST(JobErrors, ObserveSettings) {
             "study.toml:10: observe.max_moment: must be between 0 and 64 (got 65)");
   EXPECT_EQ(error_of(with_observe("keep_spectra = -1\n")),
             "study.toml:10: observe.keep_spectra: must be at least 0 (got -1)");
+  EXPECT_EQ(error_of(with_observe("keep_spectra = \"some\"\n")),
+            "study.toml:10: observe.keep_spectra: must be \"auto\", \"all\", \"none\" or a "
+            "number of trials ≥ 0 (got \"some\")");
+  EXPECT_EQ(error_of(with_observe("keep_spectra = 1.5\n")),
+            "study.toml:10: observe.keep_spectra: must be \"auto\", \"all\", \"none\" or an "
+            "integer ≥ 0 (got float 1.5)");
   EXPECT_EQ(error_of(with_observe("spectrum = \"eigen\"\n")),
             "study.toml:10: observe.spectrum: must be \"auto\" or \"singular_values\" (got "
             "\"eigen\")");
@@ -652,7 +661,7 @@ TEST(JobHash, IsSha256OfCanonicalText) {
             "matrix U: ensemble = haar_unitary; method = qr\n"
             "expression = 11:B + U B U^*\n"
             "observe: bins = 100; range = auto; margin = 0.10000000000000001; max_moment = 6; "
-            "keep_spectra = 0; spectrum = auto\n"
+            "keep_spectra = 10; spectrum = auto\n"
             "force_dense = false\n");
 }
 
@@ -666,7 +675,7 @@ max_moment   =   6     # moments
 bins = 100
 range = "auto"
 margin = 0.1
-keep_spectra = 0
+keep_spectra = "auto"
 
 [matrices]
 U = { ensemble = "haar_unitary", method = "qr" }
@@ -778,3 +787,35 @@ TEST(JobExamples, EveryExampleLoads) {
 }
 
 }  // namespace
+
+// keep_spectra's rules (job.hpp): "all" and "none" are every trial and no trial; "auto" keeps
+// every trial while the job's spectra take at most kKeptSpectraBudget (1 GiB) and otherwise the
+// first k trials of each size with the largest k that fits: sizes 8192 and 16384 with 2000
+// trials each would take 8·2000·24576 = 393 MB, within; with 20000 trials 3.9 GB, and
+// 8·k·24576 ≤ 2^30 gives k = 5461.
+TEST(ParseJob, KeepSpectraRules) {
+  const auto job_with = [](const std::string& sizes, const std::string& keep) {
+    return parse_job("seed = 1\nsizes = " + sizes + "\ntrials = [200, 200]\nexpression = \"X\"\n"
+                     "[matrices.X]\nensemble = \"gue\"\n" + keep, "keep.toml");
+  };
+  EXPECT_EQ(job_with("[100, 200]", "").observe.keep_spectra, 200);
+  EXPECT_EQ(job_with("[100, 200]", "[observe]\nkeep_spectra = \"none\"\n").observe.keep_spectra, 0);
+  EXPECT_EQ(job_with("[100, 200]", "[observe]\nkeep_spectra = \"all\"\n").observe.keep_spectra, 200);
+  const Job first = job_with("[100, 200]", "[observe]\nkeep_spectra = 7\n");
+  EXPECT_EQ(first.observe.keep_spectra, 7);
+  EXPECT_EQ(first.observe.keep_spectra_rule, "first k");
+  // Sizes above kKeptSpectraMaxN = 16384 keep none by default (the tridiagonal path's spectra).
+  EXPECT_EQ(job_with("[1000000, 2000000]", "").observe.keep_spectra, 0);
+  EXPECT_EQ(job_with("[1000, 16385]", "").observe.keep_spectra, 0);
+  EXPECT_EQ(job_with("[1000, 16384]", "").observe.keep_spectra, 200);
+  EXPECT_EQ(job_with("[1000000, 2000000]", "[observe]\nkeep_spectra = \"all\"\n").observe.keep_spectra, 200);
+  const auto with_trials = [](const std::string& trials) {
+    return parse_job("seed = 1\nsizes = [8192, 16384]\ntrials = " + trials +
+                     "\nexpression = \"X\"\n[matrices.X]\nensemble = \"gue\"\n", "keep.toml");
+  };
+  EXPECT_EQ(with_trials("2000").observe.keep_spectra, 2000);
+  EXPECT_EQ(with_trials("20000").observe.keep_spectra, 5461);
+  // "all" and an explicit count equal to the trials define the same numbers: the same hash.
+  EXPECT_EQ(job_with("[100, 200]", "[observe]\nkeep_spectra = \"all\"\n").hash(),
+            job_with("[100, 200]", "[observe]\nkeep_spectra = 200\n").hash());
+}

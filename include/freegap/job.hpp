@@ -21,7 +21,9 @@
 //   range = "auto"                          # or [low, high] with low < high
 //   margin = 0.1                            # only with range = "auto"; ≥ 0
 //   max_moment = 8                          # 0..64
-//   keep_spectra = 0                        # ≥ 0
+//   keep_spectra = "auto"                   # "all", "none", or k ≥ 0 (the first k trials);
+//                                           # "auto": all, while the kept spectra of the job
+//                                           # stay within kKeptSpectraBudget bytes
 //   spectrum = "auto"                       # or "singular_values"
 //
 //   [[estimator]]                           # optional, any number (src/estimate/PLUGINS.md)
@@ -79,6 +81,15 @@ inline constexpr std::int64_t kDefaultTrialsPerUnit = 8;
 /// Sizes must be below 2^31: LAPACK's default integer interface is 32-bit.
 inline constexpr std::int64_t kSizeLimit = std::int64_t{1} << 31;
 
+/// keep_spectra = "auto": every trial keeps its sorted spectrum (8N bytes, against O(N³) work
+/// for a dense trial) while the spectra of the whole job take at most this many bytes; beyond
+/// it, the first k trials of each size with the largest k that fits (at least 1). A job with a
+/// size above kKeptSpectraMaxN keeps none by default: such sizes run on the tridiagonal path,
+/// where a kept spectrum means computing every eigenvalue (O(N²)) instead of counting them per
+/// bin (O(N·bins)), and a spectrum of 10⁷ values is 80 MB.
+inline constexpr double kKeptSpectraBudget = 1024.0 * 1024.0 * 1024.0;
+inline constexpr std::int64_t kKeptSpectraMaxN = 16384;
+
 struct ObserveSettings {
   std::int64_t bins = 200;
   bool auto_range = true;    ///< range from a deterministic pilot trial (the runner does it)
@@ -86,7 +97,11 @@ struct ObserveSettings {
   /// Auto range: widen the pilot's [min, max] by margin × width on each side.
   double margin = 0.1;
   int max_moment = 8;             ///< 0..64
-  std::int64_t keep_spectra = 0;  ///< the first k trials of each size keep their full spectrum
+  /// The first k trials of each size keep their full spectrum (resolved at parse time from
+  /// keep_spectra = k, "all", "none" or "auto", see keep_spectra_rule).
+  std::int64_t keep_spectra = 0;
+  /// How keep_spectra was given: "auto" (the default), "all", "none" or "first k".
+  std::string keep_spectra_rule = "auto";
   bool singular_values = false;   ///< force singular values of a self-adjoint expression
 };
 
@@ -155,6 +170,11 @@ struct Job {
   /// a key that the runner checks (e.g. the expression).
   std::string where(std::string_view key) const;
 };
+
+/// Sets job.observe.keep_spectra from its rule and the job's sizes and trials ("auto", "all",
+/// "none"; "first k" is left as given). The parser calls it; call it again after changing the
+/// sizes or trials of a parsed job (freegap plan --rate-halfwidth does).
+void resolve_keep_spectra(Job& job);
 
 /// Where the paths a job names may lie. A job names paths in matrices.NAME.path (an eigenvalue
 /// file it reads), run.output (the run file it writes), estimator library (a shared library it

@@ -177,6 +177,7 @@ struct Estimate {
   std::size_t output_bytes = 0;
   std::string output_path;        ///< the job's run file
   std::int64_t output_free = -1;  ///< free bytes on its file system; -1 unknown
+  std::string kept_spectra;       ///< which trials keep their spectra, and what that costs
   std::size_t memory_limit = 0;  ///< per rank; 0 unknown
   std::string memory_source;
   double wall_seconds = 0.0;  ///< on options.ranks ranks

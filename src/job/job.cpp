@@ -688,10 +688,22 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
     s.max_moment = static_cast<int>(k);
   }
   if (const toml::node* v = t.get("keep_spectra")) {
-    s.keep_spectra = r.integer(*v, "observe.keep_spectra", "an integer ≥ 0");
-    if (s.keep_spectra < 0) {
-      r.fail("observe.keep_spectra",
-             "must be at least 0 (got " + std::to_string(s.keep_spectra) + ")");
+    if (const auto* text = v->as_string()) {
+      const std::string word = text->get();
+      if (word != "auto" && word != "all" && word != "none") {
+        r.fail_node(*v, "observe.keep_spectra",
+                    "must be \"auto\", \"all\", \"none\" or a number of trials ≥ 0 (got \"" +
+                        word + "\")");
+      }
+      s.keep_spectra_rule = word;
+    } else {
+      s.keep_spectra = r.integer(*v, "observe.keep_spectra",
+                                 "\"auto\", \"all\", \"none\" or an integer ≥ 0");
+      if (s.keep_spectra < 0) {
+        r.fail("observe.keep_spectra",
+               "must be at least 0 (got " + std::to_string(s.keep_spectra) + ")");
+      }
+      s.keep_spectra_rule = "first k";
     }
   }
   if (const toml::node* v = t.get("spectrum")) {
@@ -930,6 +942,37 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
 
 }  // namespace
 
+// keep_spectra's rule into the number of trials kept per size (job.hpp: kKeptSpectraBudget).
+void resolve_keep_spectra(Job& job) {
+  auto& o = job.observe;
+  const std::int64_t most = job.trials.empty() ? 0 : *std::max_element(job.trials.begin(), job.trials.end());
+  if (o.keep_spectra_rule == "all") o.keep_spectra = most;
+  if (o.keep_spectra_rule == "none") o.keep_spectra = 0;
+  if (o.keep_spectra_rule != "auto") return;
+  if (!job.sizes.empty() && *std::max_element(job.sizes.begin(), job.sizes.end()) > kKeptSpectraMaxN) {
+    o.keep_spectra = 0;
+    return;
+  }
+  const auto bytes = [&](std::int64_t k) {
+    double b = 0.0;
+    for (std::size_t i = 0; i < job.sizes.size() && i < job.trials.size(); ++i) {
+      b += 8.0 * static_cast<double>(std::min(k, job.trials[i])) * static_cast<double>(job.sizes[i]);
+    }
+    return b;
+  };
+  if (bytes(most) <= kKeptSpectraBudget) {
+    o.keep_spectra = most;
+    return;
+  }
+  std::int64_t lo = 1, hi = most;  // bytes(lo) may exceed the budget: at least one is kept
+  while (hi - lo > 1) {
+    const std::int64_t mid = lo + (hi - lo) / 2;
+    (bytes(mid) <= kKeptSpectraBudget ? lo : hi) = mid;
+  }
+  o.keep_spectra = lo;
+}
+
+
 // ---- public ------------------------------------------------------------------------------------
 
 std::int64_t parse_memory(std::string_view text) {
@@ -1081,6 +1124,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   if (const toml::node* v = doc.get("observe")) {
     job.observe = read_observe(r, r.table(*v, "observe", "write [observe] and its keys under it"));
   }
+  resolve_keep_spectra(job);
   if (const toml::node* v = doc.get("run")) {
     read_run(r, r.table(*v, "run", "write [run] and its keys under it"), base, job);
   }

@@ -525,6 +525,8 @@ std::string cost_key(const job::Job& job, int threads) {
   j.sizes = {1};
   j.trials = {1};
   j.trials_per_unit = 1;
+  // Whether spectra are kept changes a trial's work (tridiagonal path); how many does not.
+  j.observe.keep_spectra = job.observe.keep_spectra > 0 ? 1 : 0;
   return job::sha256_hex(j.canonical() + "\nblas_threads=" + std::to_string(threads));
 }
 
@@ -598,15 +600,17 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   // The parts of a trial and the powers of N each may grow with (dense: a Haar sample, a product
   // and the eigenvalues are N³, Gaussian entries N², observing the spectrum N).
   std::vector<CostTerm> terms;
+  // A kept spectrum makes a tridiagonal trial compute every eigenvalue (O(N²)).
+  const bool tri_spectra = tri && job.observe.keep_spectra > 0;
   if (tri) {
-    terms = {{"trial", {1, 0}, {}, {}}};
+    terms = {{"trial", tri_spectra ? std::vector<int>{2, 1, 0} : std::vector<int>{1, 0}, {}, {}}};
   } else {
     terms = {{"sample", {3, 2, 0}, {}, {}},
              {"form", {3, 2, 0}, {}, {}},
              {"spectrum", {3, 2, 0}, {}, {}},
              {"observe", {1, 0}, {}, {}}};
   }
-  const double growth = tri ? 1.0 : 3.0;
+  const double growth = tri ? (tri_spectra ? 2.0 : 1.0) : 3.0;
   // Ladder of sizes: geometric up to the largest size of the job, which is timed itself if the
   // budget allows.
   std::vector<std::int64_t> ladder;
@@ -645,6 +649,11 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
     config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
     config.max_moment = job.observe.max_moment;
     config.kind = runner.spectrum_kind();
+    // Timed as they will run: a kept spectrum changes the tridiagonal path's work (every
+    // eigenvalue instead of counts per bin).
+    if (job.observe.keep_spectra > 0) {
+      for (std::uint64_t i = 0; i < 64; ++i) config.keep_spectrum_trials.push_back(kTimingTrialBase + i);
+    }
     std::vector<std::vector<double>> times(terms.size());
     // One untimed trial first (first-touch page faults, lazy library set-up), then at least
     // kTimed timed ones and up to 0.15 s of them.
@@ -898,6 +907,29 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     e.sizes.push_back(s);
   }
   e.output_bytes = run_file_bytes(job);
+  {
+    double spectra = 0.0;
+    bool every = true;
+    for (std::size_t i = 0; i < job.sizes.size(); ++i) {
+      const std::int64_t kept = std::min(job.observe.keep_spectra, job.trials[i]);
+      every = every && kept == job.trials[i];
+      spectra += 8.0 * static_cast<double>(kept) * static_cast<double>(job.sizes[i]);
+    }
+    const auto& o = job.observe;
+    e.kept_spectra =
+        (every ? std::string("every trial")
+               : o.keep_spectra == 0 ? std::string("none")
+                                     : "the first " + std::to_string(o.keep_spectra) + " trial(s) of each size") +
+        " (keep_spectra = " + (o.keep_spectra_rule == "first k" ? std::to_string(o.keep_spectra) : "\"" + o.keep_spectra_rule + "\"") +
+        "; about " + human_bytes(spectra) + " of the run file" +
+        (o.keep_spectra_rule == "auto" ? ", within the " + human_bytes(job::kKeptSpectraBudget) + " the default allows" : std::string()) +
+        ")" + (every ? "; distances of the mean spectrum are computed from them, without bins"
+                     : "; distances of the mean spectrum come from the histograms (bin-limited)");
+    if (spectra > 0 && e.path == "tridiagonal") {
+      e.kept_spectra += "; on the tridiagonal path a kept spectrum costs every eigenvalue (O(N²)) "
+                        "instead of counts per bin (O(N·bins)); the timing above includes it";
+    }
+  }
   e.output_path = job.output;
   e.output_free = free_bytes_for(job.output);
   if (e.output_free >= 0 && e.output_bytes > static_cast<std::size_t>(e.output_free)) {
@@ -1005,6 +1037,7 @@ std::string format(const Estimate& e) {
       << (e.output_free >= 0 ? human_bytes(static_cast<double>(e.output_free)) + " free there"
                              : std::string("free space there unknown"))
       << "\n";
+  out << "spectra kept: " << e.kept_spectra << "\n";
   out << "wall time:    about " << format_duration(e.wall_seconds) << " on " << e.options.ranks
       << " rank(s) (units largest first, one rank per core)\n";
   if (e.options.deadline_seconds > 0) {
