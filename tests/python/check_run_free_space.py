@@ -42,6 +42,7 @@ ensemble = "gue"
 [observe]
 bins = 4
 max_moment = 2
+keep_spectra = "none"  # sized for the tmpfs below without spectra
 
 [run]
 trials_per_unit = 1

@@ -74,6 +74,7 @@ ensemble = "gue"
 [observe]
 bins = 4
 max_moment = 2
+keep_spectra = "none"  # the runner's deadline logic, not the spectra, is under test
 
 [run]
 trials_per_unit = 20
