@@ -287,6 +287,8 @@ TEST(SpectraDistances, PlugInEqualsTheExactDistancesOfThePooledSample) {
   EXPECT_EQ(d.kolmogorov.resolved, d.kolmogorov.value > d.kolmogorov.noise_floor);
   EXPECT_THROW(fa::spectra_distances(std::vector<std::vector<double>>{}, law, 1), freegap::InputError);
   EXPECT_THROW(fa::spectra_distances(std::vector<std::vector<double>>{{}}, law, 1), freegap::InputError);
+  EXPECT_THROW(fa::spectra_distances(std::vector<std::vector<double>>{{0.5, std::nan("")}}, law, 1),
+               freegap::InputError);
 }
 
 // The bias correction and noise floor do what they are for: samples drawn from the limit itself

@@ -151,6 +151,9 @@ struct MetricsOptions {
 ///    (Measured on samples drawn from the limit itself, see the unit test's comment.)
 ///  - per trial: the same distances of each trial's own spectral distribution, on the same grid.
 inline constexpr std::size_t kSpectraGridCells = std::size_t{1} << 19;
+/// The bootstrap replicates run on at most this many threads (and at most the hardware's); the
+/// numbers do not depend on how many.
+inline constexpr std::size_t kSpectraThreads = 4;
 
 struct SpectraDistances {
   std::int64_t trials = 0;   ///< trials pooled
