@@ -196,6 +196,21 @@ std::vector<LocalSlope> local_slopes(std::span<const ErrorPoint> points) {
 }
 
 namespace {
+// The fit a bootstrap replicate gets: the window's or all sizes'.
+PowerLawFit replicate_fit(const std::vector<ErrorPoint>& pts, const BootstrapOptions& options) {
+  return options.window > 0 ? fit_top_window(pts, options.window, options.fit)
+                            : fit_power_law(pts, options.fit);
+}
+
+// Keeps a replicate's exponent, or counts the replicate as failed.
+void keep_alpha(const PowerLawFit& f, std::vector<double>& alphas, BootstrapInterval& out) {
+  if (f.ok && std::isfinite(f.alpha)) {
+    alphas.push_back(f.alpha);
+  } else {
+    ++out.failed;
+  }
+}
+
 // The percentile interval of sorted replicate exponents, linear between order statistics.
 void percentile_interval(std::vector<double>& alphas, BootstrapInterval& out) {
   out.replicates = static_cast<int>(alphas.size());
@@ -220,10 +235,6 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
   const std::size_t sizes = replicates_per_size.size();
   BootstrapInterval out;
   out.level = options.level;
-  auto fit_of = [&](const std::vector<ErrorPoint>& pts) {
-    return options.window > 0 ? fit_top_window(pts, options.window, options.fit)
-                              : fit_power_law(pts, options.fit);
-  };
   {
     std::vector<ErrorPoint> pts;
     for (std::size_t j = 0; j < sizes; ++j) {
@@ -231,7 +242,7 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
       for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
       pts.push_back(point(j, all));
     }
-    out.alpha = fit_of(pts).alpha;
+    out.alpha = replicate_fit(pts, options).alpha;
   }
   rng::Stream stream(rng::StreamKey{options.seed, "fit-bootstrap", 0, 0});
   std::vector<double> alphas;
@@ -250,12 +261,7 @@ BootstrapInterval bootstrap_alpha(std::span<const std::size_t> replicates_per_si
       p.resolved = true;  // every replicate is fitted as it is; resolution is judged on the data
       pts.push_back(p);
     }
-    const PowerLawFit f = fit_of(pts);
-    if (f.ok && std::isfinite(f.alpha)) {
-      alphas.push_back(f.alpha);
-    } else {
-      ++out.failed;
-    }
+    keep_alpha(replicate_fit(pts, options), alphas, out);
   }
   percentile_interval(alphas, out);
   return out;
@@ -270,23 +276,14 @@ BootstrapInterval bootstrap_alpha_from_replicates(std::span<const ErrorPoint> po
   }
   BootstrapInterval out;
   out.level = options.level;
-  const auto fit_of = [&](const std::vector<ErrorPoint>& pts) {
-    return options.window > 0 ? fit_top_window(pts, options.window, options.fit)
-                              : fit_power_law(pts, options.fit);
-  };
-  out.alpha = fit_of(std::vector<ErrorPoint>(points.begin(), points.end())).alpha;
+  out.alpha = replicate_fit(std::vector<ErrorPoint>(points.begin(), points.end()), options).alpha;
   std::size_t b_max = replicates.empty() ? 0 : replicates.front().size();
   for (const auto& r : replicates) b_max = std::min(b_max, r.size());
   std::vector<double> alphas;
   for (std::size_t b = 0; b < b_max; ++b) {
     std::vector<ErrorPoint> pts(points.begin(), points.end());
     for (std::size_t j = 0; j < pts.size(); ++j) pts[j].error = replicates[j][b];
-    const PowerLawFit f = fit_of(pts);
-    if (f.ok && std::isfinite(f.alpha)) {
-      alphas.push_back(f.alpha);
-    } else {
-      ++out.failed;
-    }
+    keep_alpha(replicate_fit(pts, options), alphas, out);
   }
   percentile_interval(alphas, out);
   return out;
