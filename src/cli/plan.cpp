@@ -28,6 +28,9 @@ struct PlanArgs {
   std::string rate_quantity = "kolmogorov";
 };
 
+// More trials per size than any plan should recommend (and far below where a count overflows).
+constexpr double kMostRecommendedTrials = 1e12;
+
 const analysis::Table& table_named(const analysis::Report& r, const std::string& name) {
   for (const auto& t : r.tables) {
     if (t.name == name) return t;
@@ -85,7 +88,13 @@ double rate_factor(const std::string& pilot, const std::string& key, double targ
     // Not fitted: what it takes to resolve every size (only distances carry a noise floor).
     double factor = 0.0;
     bool known = true;
+    const bool has_floor = std::find(sizes.columns.begin(), sizes.columns.end(),
+                                     key + "_noise_floor") != sizes.columns.end();
     for (const auto& srow : sizes.rows) {
+      if (!has_floor) {
+        known = false;
+        break;
+      }
       const double value = cell_number(sizes, srow, key), floor = cell_number(sizes, srow, key + "_noise_floor");
       if (!std::isfinite(value) || !std::isfinite(floor)) {
         known = false;
@@ -139,7 +148,7 @@ Subcommand add_plan_command(CLI::App& app) {
   auto* halfwidth =
       cmd->add_option("--rate-halfwidth", args->rate_halfwidth,
                       "Target half-width of a fitted exponent's 95% interval (e.g. 0.05): with "
-                      "--pilot, the trials per size that need, and their cost")
+                      "--pilot, the trials per size it needs, and their cost")
           ->check(CLI::Range(1e-6, 100.0));
   auto* pilot = cmd->add_option("--pilot", args->pilot,
                                 "A run file of this model (finished or not) whose fit "
@@ -174,7 +183,14 @@ Subcommand add_plan_command(CLI::App& app) {
                   const double base = static_cast<double>(it != pilot_trials.end() && it->second > 0
                                                               ? it->second
                                                               : job.trials[i]);
-                  job.trials[i] = std::max<std::int64_t>(2, static_cast<std::int64_t>(std::ceil(base * factor)));
+                  const double want = std::ceil(base * factor);
+                  if (!(want <= kMostRecommendedTrials)) {
+                    throw InputError("--rate-halfwidth " + std::to_string(args->rate_halfwidth) +
+                                     ": the pilot's numbers ask for more than 10^12 trials at N = " +
+                                     std::to_string(job.sizes[i]) +
+                                     "; ask for a wider interval, or run a larger pilot first");
+                  }
+                  job.trials[i] = std::max<std::int64_t>(2, static_cast<std::int64_t>(want));
                   changed += (changed.empty() ? "" : ", ") + std::to_string(job.trials[i]);
                   if (it == pilot_trials.end()) changed += " (N = " + std::to_string(job.sizes[i]) + " not in the pilot: the job's own trials scaled)";
                 }

@@ -99,7 +99,11 @@ def main():
                              (["--rate-halfwidth", "0.1", "--pilot", "pilot.toml"], "pilot.toml"),
                              (["--rate-halfwidth", "0.1", "--pilot", "pilot.h5", "--rate-quantity", "moment_9"],
                               "moment_9"),
-                             (["--rate-halfwidth", "-1", "--pilot", "pilot.h5"], "--rate-halfwidth")):
+                             (["--rate-halfwidth", "-1", "--pilot", "pilot.h5"], "--rate-halfwidth"),
+                             # The pilot's moment errors carry no noise floor; a tiny target asks
+                             # for more trials than any plan should recommend.
+                             (["--rate-halfwidth", "1e-6", "--pilot", "pilot.h5", "--rate-quantity", "moment_2"],
+                              "10^12 trials")):
             p = rh.run([exe, "plan", "pilot.toml", "--calibration", os.path.join(d, "cal.toml")] + args, d)
             c.check(p.returncode == 2 and needle in p.stderr,
                     "plan %s: exit 2 naming %s" % (" ".join(args), needle), "exit %d\n%s" % (p.returncode, p.stderr))
