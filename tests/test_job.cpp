@@ -789,10 +789,10 @@ TEST(JobExamples, EveryExampleLoads) {
 }  // namespace
 
 // keep_spectra's rules (job.hpp): "all" and "none" are every trial and no trial; "auto" keeps
-// every trial while the job's spectra take at most kKeptSpectraBudget (1 GiB) and otherwise the
-// first k trials of each size with the largest k that fits: sizes 8192 and 16384 with 2000
-// trials each would take 8·2000·24576 = 393 MB, within; with 20000 trials 3.9 GB, and
-// 8·k·24576 ≤ 2^30 gives k = 5461.
+// every trial while the job's spectra take at most kKeptSpectraBudget (256 MiB) and otherwise the
+// first k trials of each size with the largest k that fits: sizes 8192 and 16384 with 1000
+// trials each would take 8·1000·24576 = 197 MB, within; with 20000 trials 3.9 GB, and
+// 8·k·24576 ≤ 2^28 gives k = 1365.
 TEST(ParseJob, KeepSpectraRules) {
   const auto job_with = [](const std::string& sizes, const std::string& keep) {
     return parse_job("seed = 1\nsizes = " + sizes + "\ntrials = [200, 200]\nexpression = \"X\"\n"
@@ -813,8 +813,8 @@ TEST(ParseJob, KeepSpectraRules) {
     return parse_job("seed = 1\nsizes = [8192, 16384]\ntrials = " + trials +
                      "\nexpression = \"X\"\n[matrices.X]\nensemble = \"gue\"\n", "keep.toml");
   };
-  EXPECT_EQ(with_trials("2000").observe.keep_spectra, 2000);
-  EXPECT_EQ(with_trials("20000").observe.keep_spectra, 5461);
+  EXPECT_EQ(with_trials("1000").observe.keep_spectra, 1000);
+  EXPECT_EQ(with_trials("20000").observe.keep_spectra, 1365);
   // "all" and an explicit count equal to the trials define the same numbers: the same hash.
   EXPECT_EQ(job_with("[100, 200]", "[observe]\nkeep_spectra = \"all\"\n").hash(),
             job_with("[100, 200]", "[observe]\nkeep_spectra = 200\n").hash());

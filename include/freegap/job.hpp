@@ -86,8 +86,10 @@ inline constexpr std::int64_t kSizeLimit = std::int64_t{1} << 31;
 /// it, the first k trials of each size with the largest k that fits (at least 1). A job with a
 /// size above kKeptSpectraMaxN keeps none by default: such sizes run on the tridiagonal path,
 /// where a kept spectrum means computing every eigenvalue (O(N²)) instead of counting them per
-/// bin (O(N·bins)), and a spectrum of 10⁷ values is 80 MB.
-inline constexpr double kKeptSpectraBudget = 1024.0 * 1024.0 * 1024.0;
+/// bin (O(N·bins)), and a spectrum of 10⁷ values is 80 MB. The budget also bounds the memory of
+/// `freegap report`, which holds about 100 bytes per kept eigenvalue of the size it analyses
+/// (analysis::spectra_distances): 256 MiB of spectra in one size is about 3.4 GB there.
+inline constexpr double kKeptSpectraBudget = 256.0 * 1024.0 * 1024.0;
 inline constexpr std::int64_t kKeptSpectraMaxN = 16384;
 
 struct ObserveSettings {

@@ -908,12 +908,13 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   }
   e.output_bytes = run_file_bytes(job);
   {
-    double spectra = 0.0;
+    double spectra = 0.0, largest = 0.0;
     bool every = true;
     for (std::size_t i = 0; i < job.sizes.size(); ++i) {
       const std::int64_t kept = std::min(job.observe.keep_spectra, job.trials[i]);
       every = every && kept == job.trials[i];
       spectra += 8.0 * static_cast<double>(kept) * static_cast<double>(job.sizes[i]);
+      largest = std::max(largest, static_cast<double>(kept) * static_cast<double>(job.sizes[i]));
     }
     const auto& o = job.observe;
     e.kept_spectra =
@@ -925,6 +926,11 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
         (o.keep_spectra_rule == "auto" ? ", within the " + human_bytes(job::kKeptSpectraBudget) + " the default allows" : std::string()) +
         ")" + (every ? "; distances of the mean spectrum are computed from them, without bins"
                      : "; distances of the mean spectrum come from the histograms (bin-limited)");
+    if (every && largest > 0) {
+      // analysis::spectra_distances holds about 100 bytes per eigenvalue of the size it analyses.
+      e.kept_spectra += "; freegap report will need about " + human_bytes(100.0 * largest) +
+                        " of memory for the largest size's";
+    }
     if (spectra > 0 && e.path == "tridiagonal") {
       e.kept_spectra += "; on the tridiagonal path a kept spectrum costs every eigenvalue (O(N²)) "
                         "instead of counts per bin (O(N·bins)); the timing above includes it";
