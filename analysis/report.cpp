@@ -847,8 +847,10 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     }
     if (!run.fits.empty()) {
       md += "\n### Convergence rates: error ≈ C·N^(−α)\n\nWeighted least squares on log–log scales; "
-            "t-interval (95%) and percentile bootstrap interval over trials (signed errors) or work "
-            "units (distances).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
+            "t-interval (95%) and percentile bootstrap interval over trials (signed errors, "
+            "per-trial distances and distances from kept spectra; these add the level a zero "
+            "distance would show to each point's error) or work units (distances from "
+            "histograms).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
             "source of the published α |\n|---|---|---|---|---|---|---|\n";
       std::vector<std::string> warnings;
       for (const auto& f : run.fits) {
