@@ -80,6 +80,18 @@ double student_t_quantile(double dof, double p) {
   return result;
 }
 
+double normal_quantile(double p) {
+  if (!(p > 0.0 && p < 1.0)) throw InputError("normal_quantile needs 0 < p < 1");
+  if (p == 0.5) return 0.0;
+  // Bisection on Φ(x) = erfc(−x/√2)/2 (std::erfc is accurate in both tails).
+  double lo = -40.0, hi = 40.0;
+  for (int it = 0; it < 200 && hi - lo > 1e-15 * std::max(1.0, std::fabs(hi)); ++it) {
+    const double mid = 0.5 * (lo + hi);
+    (0.5 * std::erfc(-mid / std::numbers::sqrt2) < p ? lo : hi) = mid;
+  }
+  return 0.5 * (lo + hi);
+}
+
 PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& options) {
   PowerLawFit fit;
   fit.level = options.level;
@@ -168,7 +180,10 @@ PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& 
     se = std::sqrt(chi2 / fit.dof / sxx);
   }
   fit.alpha_standard_error = se;
-  const double t = student_t_quantile(fit.dof, 0.5 * (1.0 + options.level));
+  // Known standard errors: a normal interval (scaled by the Birge ratio when inflated). Errors
+  // estimated from the residuals alone: Student t with m − 2 degrees of freedom.
+  const double t = fit.weighted ? normal_quantile(0.5 * (1.0 + options.level))
+                                : student_t_quantile(fit.dof, 0.5 * (1.0 + options.level));
   fit.ci_low = fit.alpha - t * se;
   fit.ci_high = fit.alpha + t * se;
   fit.ok = true;

@@ -540,12 +540,12 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
   }
   const auto finish = [&](const std::vector<double>& reps, std::vector<double> noise,
                           double plugin, MetricValue& mv, double& bias, double& zero_level,
-                          std::vector<double>& corrected) {
+                          double& residual_bound, std::vector<double>& corrected) {
     if (reps.size() < 2) {
       mv.value = plugin;
       mv.standard_error = mv.noise_floor = kNaN;
       mv.resolved = false;
-      bias = zero_level = kNaN;
+      bias = zero_level = residual_bound = kNaN;
       return;
     }
     const MeanSd ms = mean_sd(reps);
@@ -557,13 +557,17 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
     zero_level = (2.0 - std::numbers::sqrt2) * mean_sd(noise).mean;
     mv.noise_floor = zero_level + kSignedResolutionFactor * ms.sd;
     mv.resolved = std::isfinite(ms.sd) && mv.value > mv.noise_floor;
+    // What the correction may leave: at most √2 × the bias it removed, and never more than the
+    // level of a zero distance (metrics.hpp).
+    residual_bound = std::min(zero_level, std::numbers::sqrt2 * std::fabs(bias));
     corrected.reserve(reps.size());
     for (double x : reps) corrected.push_back(x - bias);
   };
   finish(ks, ks0, out.kolmogorov_plugin, out.kolmogorov, out.kolmogorov_bias,
-         out.kolmogorov_zero_level, out.kolmogorov_replicates);
+         out.kolmogorov_zero_level, out.kolmogorov_residual_bound, out.kolmogorov_replicates);
   finish(w1, w10, out.wasserstein1_plugin, out.wasserstein1, out.wasserstein1_bias,
-         out.wasserstein1_zero_level, out.wasserstein1_replicates);
+         out.wasserstein1_zero_level, out.wasserstein1_residual_bound,
+         out.wasserstein1_replicates);
 
   // Per trial: its values' nodes in order; KS from F at them, W1 piecewise on the grid.
   std::vector<std::vector<std::size_t>> trial_nodes(r);

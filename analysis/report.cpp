@@ -231,9 +231,9 @@ void fit_run(RunResult& run, const ReportOptions& options) {
         const auto& m = s->metrics;
         ErrorPoint p = point_of(static_cast<double>(s->n),
                                 which == 0 ? m.pooled_kolmogorov : m.pooled_wasserstein1);
-        // The residual bias the correction may leave counts as uncertainty (metrics.hpp).
-        p.standard_error = std::hypot(p.standard_error, which == 0 ? m.spectra.kolmogorov_zero_level
-                                                                   : m.spectra.wasserstein1_zero_level);
+        // The bias the correction may leave counts as uncertainty (metrics.hpp).
+        p.standard_error = std::hypot(p.standard_error, which == 0 ? m.spectra.kolmogorov_residual_bound
+                                                                   : m.spectra.wasserstein1_residual_bound);
         points.push_back(p);
         reps.push_back(which == 0 ? m.spectra.kolmogorov_replicates : m.spectra.wasserstein1_replicates);
       }
@@ -847,10 +847,11 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     }
     if (!run.fits.empty()) {
       md += "\n### Convergence rates: error ≈ C·N^(−α)\n\nWeighted least squares on log–log scales; "
-            "t-interval (95%) and percentile bootstrap interval over trials (signed errors, "
-            "per-trial distances and distances from kept spectra; these add the level a zero "
-            "distance would show to each point's error) or work units (distances from "
-            "histograms).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
+            "normal 95% interval from the points' standard errors (widened by √(χ²/dof) when the "
+            "points scatter more than their errors say; Student t when no errors are known) and "
+            "percentile bootstrap interval over trials (signed errors, per-trial distances and "
+            "distances from kept spectra; these add a bound on the bias the correction may leave "
+            "to each point's error) or work units (distances from histograms).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
             "source of the published α |\n|---|---|---|---|---|---|---|\n";
       std::vector<std::string> warnings;
       for (const auto& f : run.fits) {

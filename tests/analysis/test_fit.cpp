@@ -53,6 +53,13 @@ TEST(Fit, StudentTQuantiles) {
   EXPECT_NEAR(fa::student_t_quantile(30, 0.975), 2.04227246, 1e-6);
   EXPECT_NEAR(fa::student_t_quantile(5, 0.025), -2.57058184, 1e-6);
   EXPECT_THROW(fa::student_t_quantile(0.5, 0.9), freegap::InputError);
+  // Normal quantiles: scipy.stats.norm.ppf (Debian's scipy) gives 1.959963984540054 at 0.975 and
+  // −3.090232306167813 at 0.001; Φ(1) = 0.8413447460685429.
+  EXPECT_NEAR(fa::normal_quantile(0.975), 1.959963984540054, 1e-12);
+  EXPECT_NEAR(fa::normal_quantile(0.001), -3.090232306167813, 1e-12);
+  EXPECT_NEAR(fa::normal_quantile(0.8413447460685429), 1.0, 1e-12);
+  EXPECT_EQ(fa::normal_quantile(0.5), 0.0);
+  EXPECT_THROW(fa::normal_quantile(1.0), freegap::InputError);
 }
 
 TEST(Fit, WarningsAndDroppedPoints) {
@@ -165,9 +172,9 @@ TEST(Fit, ReferenceCalibration) {
 // x = N^{−1}(1 + 0.5 z), z standard normal; the error is the mean (target 0). 200 data sets, each
 // with a 200-replicate percentile bootstrap (fixed seeds). Nominal coverage 0.95: the expected
 // count is 190 with binomial sd √(200·0.95·0.05) ≈ 3.1; we require ≥ 180 (≈ 3 sd below, leaving
-// room for the known slight undercoverage of percentile intervals at R = 40). The t-interval of
-// §4h uses t_{m−2} = t_3 = 3.18 although the weights are nearly known, so it is conservative
-// (coverage near 100%); the width check below keeps the bootstrap interval from being vacuous.
+// room for the known slight undercoverage of percentile intervals at R = 40). The fit's own
+// interval is normal (the weights are known up to the noise of 40-trial standard errors) and must
+// meet the same bound; the width check below keeps the bootstrap interval from being vacuous.
 TEST(Fit, BootstrapCoverage) {
   const std::vector<double> sizes = {64, 128, 256, 512, 1024};
   int boot_hits = 0, t_hits = 0, datasets = 200;
@@ -195,7 +202,7 @@ TEST(Fit, BootstrapCoverage) {
     if (f.ci_low <= 1.0 && 1.0 <= f.ci_high) ++t_hits;
   }
   EXPECT_GE(boot_hits, 180) << "bootstrap coverage " << boot_hits << "/" << datasets;
-  EXPECT_GE(t_hits, 180) << "t-interval coverage " << t_hits << "/" << datasets;
+  EXPECT_GE(t_hits, 180) << "normal-interval coverage " << t_hits << "/" << datasets;
   // The intervals are informative: sd(log e_j) ≈ 0.5/√40 ≈ 0.079 per size, so se(α) ≈
   // 0.079/√(Σ(x−x̄)²) = 0.079/(log 2·√10) ≈ 0.036 and a 95% width of about 0.14.
   EXPECT_LT(width_sum / datasets, 0.25);

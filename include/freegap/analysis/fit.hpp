@@ -2,9 +2,11 @@
 //
 // Method (docs/check-values.md §4h):
 //  - weighted least squares of log e_j = log C − α log N_j, weights w_j = e_j²/s_j² (delta method:
-//    sd(log e) ≈ s/e). CI α̂ ± t_{m−2, (1+level)/2}·se(α̂), with se inflated by √(χ²/(m−2)) when the
-//    residual χ² exceeds m − 2 (the scatter is larger than the stated errors). Without standard
-//    errors (s_j ≤ 0 or NaN everywhere) the fit is unweighted and se comes from the residuals.
+//    sd(log e) ≈ s/e). The errors are known, so the CI is normal, α̂ ± z_{(1+level)/2}·se(α̂), with
+//    se inflated by the Birge ratio √(χ²/(m−2)) when the residual χ² exceeds m − 2 (the scatter is
+//    larger than the stated errors; Birge 1932, as the Particle Data Group's scale factor, from
+//    memory). Without standard errors (s_j ≤ 0 or NaN anywhere) the fit is unweighted, se comes
+//    from the residuals and the CI uses Student's t_{m−2}.
 //  - bootstrap over trials or units: resample within each N, recompute each e_j, refit, and take
 //    the percentile interval of α (Efron & Tibshirani 1993, from memory); fixed seed through
 //    rng::Stream, so the interval is reproducible.
@@ -38,7 +40,7 @@ struct PowerLawFit {
   int points = 0;      ///< sizes used
   double alpha = 0.0;  ///< fitted exponent (also the two-point slope when ok is false, if any)
   double alpha_standard_error = 0.0;
-  double ci_low = 0.0, ci_high = 0.0;  ///< t-interval at `level`
+  double ci_low = 0.0, ci_high = 0.0;  ///< normal (weighted) or t (unweighted) interval at `level`
   double level = 0.95;
   double constant = 0.0;  ///< C
   double chi2 = 0.0;      ///< Σ w r² (weighted) or Σ r² (unweighted)
@@ -73,6 +75,8 @@ std::vector<LocalSlope> local_slopes(std::span<const ErrorPoint> points);
 /// Student t quantile t_{ν, p} for ν ≥ 1 and p ∈ (0, 1), by bisection on the CDF, which is
 /// computed from the density by composite Simpson quadrature (accurate to ~1e−10).
 double student_t_quantile(double dof, double p);
+/// Standard normal quantile Φ^{−1}(p), 0 < p < 1, by bisection on std::erfc (to ~1e−15).
+double normal_quantile(double p);
 
 /// A bootstrap interval for α.
 struct BootstrapInterval {

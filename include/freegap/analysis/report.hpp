@@ -3,7 +3,7 @@
 //
 // For every run file: the limit (limit.hpp), then per size N the metrics of metrics.hpp (pooled
 // and per-trial distances, moment errors, extremes and norm, each with its standard error and
-// resolution verdict), then power-law fits of each error against N (fit.hpp) with a t-interval
+// resolution verdict), then power-law fits of each error against N (fit.hpp) with a 95% interval
 // and a percentile-bootstrap interval, beside the published exponent where the table knows one.
 // Incomplete sizes (a killed or running job) are analysed from their committed units and named as
 // incomplete; a size without any committed unit is listed as having no data.
