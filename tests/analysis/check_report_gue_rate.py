@@ -1,9 +1,12 @@
 #!/usr/bin/env python3
-"""End to end: a GUE size ladder, run under mpirun, reported by `freegap report`.
+"""End to end: a GUE size ladder whose trial count comes from `freegap plan --rate-halfwidth`.
 
 Usage: check_report_gue_rate.py BUILD_DIR
 
-What must hold (fixed seed, so the numbers never change between runs):
+The flow a user follows: a pilot run (8000 trials per size, seed 7), `freegap plan JOB
+--rate-halfwidth 0.15 --pilot PILOT --rate-quantity kolmogorov` for the number of trials that
+gives the Kolmogorov exponent a 95% interval of ± 0.15, then the run with that number (an
+independent seed) and its report. What must hold (fixed seeds, so the numbers never change):
 1. Every trial keeps its eigenvalues (keep_spectra's default) and the Kolmogorov distance of
    the mean spectral distribution is computed from them, without bins, and resolved at every
    size (above its noise floor after the bootstrap bias correction).
@@ -14,15 +17,18 @@ What must hold (fixed seed, so the numbers never change between runs):
    (The exact values are about 0.031/N: 6.2e-4 at N = 50.)
 3. The fitted exponent's 95% interval contains 1 (Götze & Tikhomirov 2005, rate 1/N for the
    GUE, from memory; docs/check-values.md §3.3), and so does the bootstrap interval.
-4. The mean largest eigenvalue approaches the edge 2 from below (E λ_max ≈ 2 + E[TW₂] N^{−2/3},
+4. The interval's half-width is within ± 30 % of the 0.15 asked of plan.
+5. The mean largest eigenvalue approaches the edge 2 from below (E λ_max ≈ 2 + E[TW₂] N^{−2/3},
    E[TW₂] ≈ −1.77, Tracy & Widom 1994, from memory): below 2 by more than 3 SE at every size, and
    closer to 2 at every larger size; its fitted exponent is consistent with 2/3.
-Sample: 8000 trials per size (about 30 s on 2 cores for the run and the report). At that size
-the noise floor is about 0.7 of the signal; fewer trials leave sizes unresolved.
+Sample and time: the pilot's 8000 trials leave the exponent at about ± 0.18; plan asks for about
+1.4 × as many. About 70 s on 2 cores for both runs, plan and both reports. Fewer pilot trials
+leave sizes unresolved, and a pilot with unresolved sizes only tells how many trials resolve them.
 """
 import csv
 import math
 import os
+import re
 import sys
 
 import numpy as np
@@ -33,11 +39,12 @@ import runhelp as rh  # noqa: E402
 
 SIZES = [50, 100, 200, 400]
 BINS, LOW, HIGH = 400, -2.5, 2.5
+HALFWIDTH = 0.15
 JOB = """\
 name = "GUE ladder for the rate of the mean spectrum"
-seed = 7
+seed = %d
 sizes = [%s]
-trials = 8000
+trials = %d
 expression = "X"
 
 [matrices.X]
@@ -50,7 +57,11 @@ max_moment = 4
 
 [run]
 trials_per_unit = 200
-""" % (", ".join(map(str, SIZES)), BINS, LOW, HIGH)
+"""
+
+
+def job(seed, trials):
+    return JOB % (seed, ", ".join(map(str, SIZES)), trials, BINS, LOW, HIGH)
 
 
 def exact_kolmogorov(n):
@@ -79,9 +90,26 @@ def main():
     exe = rh.freegap_exe(sys.argv)
     c = rh.Checks("report: GUE rates end to end")
     with rh.WorkDir("gue-rate") as d:
-        rh.write(os.path.join(d, "gue.toml"), JOB)
+        rh.write(os.path.join(d, "pilot.toml"), job(7, 8000))
+        r = rh.run(rh.command(exe, ["run", "pilot.toml", "-o", "pilot.h5", "--quiet"], ranks=2), d)
+        if not c.equal(r.returncode, 0, "the pilot run finishes"):
+            print(r.stderr)
+            c.finish()
+        r = rh.run([exe, "plan", "pilot.toml", "--rate-halfwidth", str(HALFWIDTH), "--pilot", "pilot.h5",
+                    "--rate-quantity", "kolmogorov"], d)
+        if not c.equal(r.returncode, 0, "plan --rate-halfwidth exits 0"):
+            print(r.stderr)
+            c.finish()
+        match = re.search(r"^recommended:\s+trials per size (\d+)", r.stdout, re.M)
+        if not c.check(match is not None, "plan recommends a number of trials"):
+            print(r.stdout)
+            c.finish()
+        trials = int(match.group(1))
+        print(r.stdout.splitlines()[0])
+        c.check(8000 < trials < 40000, "it asks for more than the pilot's 8000: %d" % trials)
+        rh.write(os.path.join(d, "gue.toml"), job(8, trials))
         r = rh.run(rh.command(exe, ["run", "gue.toml", "-o", "gue.h5", "--quiet"], ranks=2), d)
-        if not c.equal(r.returncode, 0, "the run finishes"):
+        if not c.equal(r.returncode, 0, "the run with plan's trials finishes"):
             print(r.stderr)
             c.finish()
         r = rh.run([exe, "report", "gue.h5", "-o", "rep", "--no-figures"], d)
@@ -98,6 +126,9 @@ def main():
         if ks is not None and ks["ok"] == "1":
             lo, hi, alpha = float(ks["ci_low"]), float(ks["ci_high"]), float(ks["alpha"])
             c.check(lo <= 1.0 <= hi, "α(Kolmogorov) = %.3f, 95%% CI [%.3f, %.3f] contains 1" % (alpha, lo, hi))
+            half = 0.5 * (hi - lo)
+            c.check(0.7 * HALFWIDTH <= half <= 1.3 * HALFWIDTH,
+                    "its half-width %.3f is within ± 30%% of the %.2f asked of plan" % (half, HALFWIDTH))
             blo, bhi = float(ks["bootstrap_low"]), float(ks["bootstrap_high"])
             c.check(blo <= 1.0 <= bhi, "its bootstrap interval [%.3f, %.3f] contains 1" % (blo, bhi))
             c.check(float(ks["published_alpha"]) == 1.0 and "Götze" in ks["published_source"],
