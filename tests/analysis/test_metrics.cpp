@@ -3,6 +3,7 @@
 // antiderivative are those of docs/check-values.md §1.1.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <numbers>
 #include <vector>
@@ -318,6 +319,10 @@ TEST(SpectraDistances, BiasCorrectionLeavesPureNoiseUnresolved) {
   const fa::SpectraDistances a = fa::spectra_distances(same, law, 50);
   EXPECT_FALSE(a.kolmogorov.resolved) << a.kolmogorov.value << " ± " << a.kolmogorov.standard_error;
   EXPECT_FALSE(a.wasserstein1.resolved) << a.wasserstein1.value << " ± " << a.wasserstein1.standard_error;
+  // Pure noise: the correction can leave the whole zero level, and the bound says so.
+  EXPECT_DOUBLE_EQ(a.kolmogorov_residual_bound,
+                   std::min(a.kolmogorov_zero_level, std::numbers::sqrt2 * std::fabs(a.kolmogorov_bias)));
+  EXPECT_GT(a.kolmogorov_residual_bound, 0.5 * a.kolmogorov_zero_level);
   const fa::SpectraDistances b = fa::spectra_distances(shifted, law, 50);
   double truth = 0.0;  // sup_x |F(x) − F(x − 0.3)| on a fine grid
   for (int i = 0; i <= 40000; ++i) {
@@ -329,6 +334,10 @@ TEST(SpectraDistances, BiasCorrectionLeavesPureNoiseUnresolved) {
   // W1 of a pure shift is the shift (the law is moved rigidly).
   EXPECT_TRUE(b.wasserstein1.resolved);
   EXPECT_NEAR(b.wasserstein1.value, 0.3, 4.0 * b.wasserstein1.standard_error + b.wasserstein1_grid_bound);
+  // Far above the noise a smooth functional keeps almost no bias (metrics.hpp): the W1 bound is
+  // √2 × a small bias, well below the zero level that the fits used to add in full.
+  EXPECT_DOUBLE_EQ(b.wasserstein1_residual_bound, std::numbers::sqrt2 * std::fabs(b.wasserstein1_bias));
+  EXPECT_LT(b.wasserstein1_residual_bound, 0.5 * b.wasserstein1_zero_level);
 }
 
 // When every trial kept its spectrum the size's pooled distances come from the spectra (no
