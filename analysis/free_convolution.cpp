@@ -137,8 +137,7 @@ struct HValue {
   cd dh;
 };
 HValue h_additive(const Law& law, cd w) {
-  const cd g = law.cauchy(w);
-  const cd dg = law.cauchy_derivative(w);
+  const auto [g, dg] = law.cauchy_with_derivative(w);
   return {1.0 / g - w, -dg / (g * g) - 1.0};
 }
 
@@ -180,8 +179,7 @@ HValue h_additive(const Law& law, const std::array<double, 6>& far, cd w) {
 // h(w) = 1/w − 1/G(1/w) and h'(w) = −1/w² − G'(1/w)/(G(1/w)² w²).
 HValue h_multiplicative(const Law& law, cd w) {
   const cd u = 1.0 / w;
-  const cd g = law.cauchy(u);
-  const cd dg = law.cauchy_derivative(u);
+  const auto [g, dg] = law.cauchy_with_derivative(u);
   return {u - 1.0 / g, -u * u - dg / (g * g) * u * u};
 }
 
@@ -572,6 +570,10 @@ bool SubordinatedLaw::axis_fixed_point(int form, double x, double& w, double& sl
     if (std::abs(phi) >= best && std::abs(phi) <= 1e-10 * size) ++stalls;
     best = std::min(best, std::abs(phi));
     const double step = phi / dphi;
+    // A residual that stalls at rounding level is a fixed point only if Newton's step there is
+    // small too. Where the map is nearly the identity (½δ₋₁ + ½δ₁ twice, near x = 0: f(v) − v =
+    // O(x) for every v) the residual is tiny everywhere while the step is of order 1.
+    if (stalls >= 2 && std::abs(step) > 1e-6 * size) return false;
     if (std::abs(step) <= 1e-13 * size || stalls >= 2) {
       if (!(df < 1.0) || std::abs(phi) > 1e-10 * size) return false;
       w = v;

@@ -47,6 +47,10 @@ class Law {
   virtual std::complex<double> cauchy(std::complex<double> z) const = 0;
   /// G'(z); the default is a complex central difference with a step well below Im z.
   virtual std::complex<double> cauchy_derivative(std::complex<double> z) const;
+  /// G(z) and G'(z) together; the default calls both. Laws whose two sums share their terms
+  /// (atoms) compute them in one pass: the subordination solvers always ask for both.
+  virtual std::pair<std::complex<double>, std::complex<double>> cauchy_with_derivative(
+      std::complex<double> z) const;
   /// m_0..m_k (m_0 = 1).
   virtual std::vector<double> moments(int k) const = 0;
   virtual Support support() const = 0;
