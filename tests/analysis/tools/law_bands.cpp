@@ -1,6 +1,8 @@
-// Prints the bands, atoms, densities and CDF of a free additive convolution for the independent
-// cross-check tests/analysis/check_law_bands.py. Reads from standard input:
-//   <first law>                 semicircle <variance> | uniform <a> <b>
+// Prints the bands, atoms, densities and CDF of a free additive convolution (or, for a first law
+// "mp", of the free multiplicative convolution MP(ratio) ⊠ atoms) for the independent cross-checks
+// tests/analysis/check_law_bands.py and check_law_bands_multiplicative.py. Reads from standard
+// input:
+//   <first law>                 semicircle <variance> | uniform <a> <b> | mp <ratio>
 //   <k>                         number of atoms of the second law, then k lines <value> <weight>
 //   <n>                         number of points, then n lines <x>
 // and prints, with %.17g:
@@ -23,7 +25,13 @@ int main() {
   std::string kind;
   std::cin >> kind;
   fa::LawPtr first;
-  if (kind == "semicircle") {
+  bool multiplicative = false;
+  if (kind == "mp") {
+    double c = 0.0;
+    std::cin >> c;
+    first = fa::marchenko_pastur(c);
+    multiplicative = true;
+  } else if (kind == "semicircle") {
     double v = 0.0;
     std::cin >> v;
     first = fa::semicircle(v);
@@ -48,7 +56,8 @@ int main() {
     return 2;
   }
   const auto start = std::chrono::steady_clock::now();
-  const auto law = fa::free_additive(first, fa::atoms(atoms));
+  const fa::LawPtr law = multiplicative ? fa::LawPtr(fa::free_multiplicative(first, fa::atoms(atoms)))
+                                        : fa::LawPtr(fa::free_additive(first, fa::atoms(atoms)));
   const fa::Support s = law->support();
   const auto built = std::chrono::steady_clock::now();
   const std::vector<double> densities = law->densities(xs);
