@@ -28,6 +28,7 @@
 #include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
 #include "freegap/run.hpp"
+#include "freegap/study.hpp"
 #include "freegap/version.hpp"
 
 extern "C" void openblas_set_num_threads(int);
@@ -73,23 +74,6 @@ std::size_t available_memory_bytes() {
 int online_cores() {
   const long n = sysconf(_SC_NPROCESSORS_ONLN);
   return n > 0 ? static_cast<int>(n) : 1;
-}
-
-model::Model model_of(const job::Job& job) {
-  model::Model m;
-  m.matrices = job.matrices;
-  m.expression = job.expression;
-  m.check.force_singular_values = job.observe.singular_values;
-  m.force_dense = job.force_dense;
-  return m;
-}
-
-model::SizeRunner runner_at(const job::Job& job, std::int64_t n) {
-  try {
-    return model::SizeRunner(model_of(job), n);
-  } catch (const InputError& e) {
-    throw InputError(job.where("expression") + e.what());
-  }
 }
 
 /// Trial indices the planner times: far from any real trial and from the runner's pilot trial
@@ -596,7 +580,7 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   const int saved_threads = openblas_get_num_threads();
   openblas_set_num_threads(std::max(1, threads));
   const std::int64_t largest = job.sizes.back();
-  const bool tri = runner_at(job, largest).path() == model::Path::tridiagonal;
+  const bool tri = study::runner_at(job, largest).path() == model::Path::tridiagonal;
   // The parts of a trial and the powers of N each may grow with (dense: a Haar sample, a product
   // and the eigenvalues are N³, Gaussian entries N², observing the spectrum N).
   std::vector<CostTerm> terms;
@@ -644,7 +628,7 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
           last * std::pow(static_cast<double>(n) / static_cast<double>(sizes.back()), growth);
       if (spent() + (kTimed + 1) * predicted > budget_seconds) break;
     }
-    const auto runner = runner_at(job, n);
+    const auto runner = study::runner_at(job, n);
     observe::ObserveConfig config;
     config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
     config.max_moment = job.observe.max_moment;
@@ -812,8 +796,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   e.expression = job.expression;
   e.options = options;
   // Build every size's runner first: a bad model fails before any measurement.
-  std::vector<model::SizeRunner> runners;
-  for (const auto n : job.sizes) runners.push_back(runner_at(job, n));
+  const std::vector<model::SizeRunner> runners = study::runners(job);
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
   // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();

@@ -24,6 +24,7 @@
 #include "freegap/plan.hpp"
 #include "freegap/stop.hpp"
 #include "freegap/store.hpp"
+#include "freegap/study.hpp"
 
 extern "C" void openblas_set_num_threads(int);
 
@@ -342,40 +343,6 @@ std::string prefix(const job::Job& job, const std::string& key) {
   const int line = job.line_of(key);
   return job.path + ":" + (line > 0 ? std::to_string(line) + ":" : std::string()) + " " + key +
          ": ";
-}
-
-model::Model model_of(const job::Job& job) {
-  model::Model m;
-  m.matrices = job.matrices;
-  m.expression = job.expression;
-  m.check.force_singular_values = job.observe.singular_values;
-  // Estimators read every trial's spectrum, which only the dense path computes.
-  m.force_dense = job.force_dense || !job.estimators.empty();
-  return m;
-}
-
-std::vector<model::SizeRunner> make_runners(const job::Job& job) {
-  if (!job.estimators.empty()) {
-    for (const auto& spec : job.matrices) {
-      if (spec.kind == ensembles::Kind::beta_hermite || spec.kind == ensembles::Kind::beta_laguerre) {
-        throw InputError(prefix(job, "estimator." + job.estimators.front().name) +
-                         "estimators need every trial's spectrum, and matrix '" + spec.name +
-                         "' (" + std::string(ensembles::kind_name(spec.kind)) +
-                         ") has only a tridiagonal model, which computes none; use gue, goe, "
-                         "wishart_complex or wishart_real, or remove the estimators");
-      }
-    }
-  }
-  std::vector<model::SizeRunner> runners;
-  const model::Model m = model_of(job);
-  try {
-    for (auto n : job.sizes) runners.emplace_back(m, n);
-  } catch (const InputError& e) {
-    // Expression errors and the model's refusals (a tridiagonal-only matrix in a product, ...);
-    // the matrices themselves were validated with the job.
-    throw InputError(prefix(job, "expression") + e.what());
-  }
-  return runners;
 }
 
 /// The deterministic pilot trial that fixes an automatic histogram range: trial index
@@ -943,7 +910,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     p.job = job::parse_job(text, job_path, true,
                            options.confine ? job::Paths::confined : job::Paths::anywhere);
     if (!options.output.empty()) p.job.output = options.output;
-    p.runners = make_runners(p.job);
+    p.runners = study::runners(p.job);
     // Opens and checks every estimator (a library is loaded and described by its helper
     // process, never here: entry points, ABI version, declared names; commands on PATH) on
     // every rank, before anything is written.
