@@ -20,12 +20,15 @@ Tolerances: edges to 1e-9 relative (critical values: both sides precise); densit
 the peak; the CDF in a gap to 1e-7 of the band masses.
 Run: /usr/bin/python3 check_law_bands_multiplicative.py <build_dir>.
 """
-import subprocess
+import os
 import sys
 from pathlib import Path
 
 import numpy as np
 from scipy.optimize import brentq
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import check_law_bands  # noqa: E402  (its runner of the law_bands tool)
 
 failures = []
 
@@ -37,17 +40,9 @@ def check(ok, what):
 
 
 def run_tool(build, c, atoms, xs):
-    text = f"mp {c!r}\n{len(atoms)}\n" + "".join(f"{t!r} {w!r}\n" for t, w in atoms)
-    text += f"{len(xs)}\n" + "".join(f"{x!r}\n" for x in xs)
-    out = subprocess.run([str(build / "tests/analysis/law_bands")], input=text, text=True,
-                         capture_output=True, timeout=300, check=True).stdout
-    bands, points = [], []
-    for line in out.splitlines():
-        f = line.split()
-        if f[0] == "band":
-            bands.append((float(f[1]), float(f[2])))
-        elif f[0] == "point":
-            points.append((float(f[1]), float(f[2]), float(f[3])))
+    """The law_bands tool on MP(c) ⊠ atoms: (bands, points)."""
+    atoms = [(float(t), float(w)) for t, w in atoms]  # plain floats print as plain numbers
+    bands, points, _ = check_law_bands.run_tool(build, ("mp", repr(float(c))), atoms, [float(x) for x in xs])
     return bands, points
 
 
