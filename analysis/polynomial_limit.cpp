@@ -206,6 +206,9 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
   const double from = bound * 1.05 + 0.05 * scale_;
   support_.hi = find_edge(*solver_, from, -1.0, scale_, options_);
   support_.lo = find_edge(*solver_, -from, 1.0, scale_, options_);
+  // A positive P has its spectrum in [0, ∞); the edge search stops within rounding of the edge
+  // (−8e-13 for X² before this), which must not read as negative eigenvalues.
+  if (proven_positive(polynomial_) && support_.lo < 0.0) support_.lo = 0.0;
   // A point mass sits, in the cases we meet (a factor with an atom at 0, e.g. X B X with B
   // singular), at the constant term c_0 of P. Its mass is lim_{ε↓0} Re[iε G(c_0 + iε)] (Stieltjes
   // inversion at an atom, standard); it is accepted when two distances to the axis agree, which a
@@ -453,6 +456,27 @@ std::string PolynomialLaw::describe() const {
          std::to_string(pencil_.size) + "×" + std::to_string(pencil_.size) +
          "; operator-valued subordination), support [" + detail::format_number(support_.lo) + ", " +
          detail::format_number(support_.hi) + "]";
+}
+
+bool proven_positive(const FreePolynomial& polynomial) {
+  for (const RealTerm& t : polynomial.terms) {
+    if (t.coefficient.imag() != 0.0) return false;
+    const double c = t.coefficient.real();
+    const std::size_t n = t.word.size();
+    if (n == 0) {
+      if (!(c >= 0.0)) return false;
+      continue;
+    }
+    if (!(c > 0.0)) return false;
+    for (std::size_t i = 0; i < n / 2; ++i) {
+      if (t.word[i] != t.word[n - 1 - i]) return false;
+    }
+    if (n % 2 == 1) {
+      const FreeLetter& middle = polynomial.letters[static_cast<std::size_t>(t.word[n / 2])];
+      if (!middle.law || !(middle.law->support().lo >= 0.0)) return false;
+    }
+  }
+  return true;
 }
 
 std::shared_ptr<const PolynomialLaw> polynomial_limit(const expr::Expression& e,

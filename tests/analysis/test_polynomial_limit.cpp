@@ -174,6 +174,29 @@ TEST(PolynomialLimit, SquareOfSemicircularIsFreePoisson) {
   for (double x : {0.1, 1.0, 2.0, 3.5}) EXPECT_NEAR(law->cdf(x), mp->cdf(x), 1e-6) << x;
 }
 
+// A positive expression never gets a negative lower edge: the edge search used to stop at
+// −8.3e-13 for X² (seen in `freegap limit`). Positivity is proven term by term.
+TEST(PolynomialLimit, PositiveExpressionsKeepTheirLowerEdgeAtZeroOrAbove) {
+  const auto square = law_of("X^2", {"X=gue"});
+  EXPECT_GE(square->support().lo, 0.0);
+  EXPECT_EQ(square->density(-1e-14), 0.0);
+  EXPECT_EQ(square->cdf(-1e-14), 0.0);
+  const auto sandwich = law_of("A B A", {"A=gue", "B=wishart_complex:ratio=0.5"});
+  EXPECT_GE(sandwich->support().lo, 0.0);
+  const auto proven = [](const std::string& text, const std::vector<std::string>& d) {
+    return fa::proven_positive(fa::free_polynomial_of(expression(text, d)));
+  };
+  EXPECT_TRUE(proven("X^2", {"X=gue"}));
+  EXPECT_TRUE(proven("X^4 + 2 X^2 + 1", {"X=gue"}));
+  EXPECT_TRUE(proven("A B A", {"A=gue", "B=wishart_complex:ratio=0.5"}));
+  EXPECT_TRUE(proven("X Y^2 X + Y^2", {"X=gue", "Y=gue"}));
+  EXPECT_TRUE(proven("S W S", {"S=diagonal:atoms=1@0.5,3@0.5", "W=wishart_complex:ratio=0.25"}));
+  EXPECT_FALSE(proven("X^3 - 2 X", {"X=gue"}));
+  EXPECT_FALSE(proven("X Y + Y X", {"X=gue", "Y=gue"}));
+  EXPECT_FALSE(proven("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}));  // B not ≥ 0
+  EXPECT_FALSE(proven("X^2 - 1", {"X=gue"}));
+}
+
 TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
   // For A semicircular free from B ≥ 0, A B A has the law of B^{1/2} A² B^{1/2}, i.e.
   // MP(1) ⊠ μ_B (Voiculescu 1987; A² is free Poisson(1), ref §1.6): compared with the

@@ -74,6 +74,13 @@ struct FreePolynomial {
 /// diagonal law read from a file, a β-ensemble (tridiagonal model only).
 FreePolynomial free_polynomial_of(const expr::Expression& expression);
 
+/// P ≥ 0 for every choice of self-adjoint values of its letters with the letters' laws, proven
+/// term by term (a sufficient test, common practice): a constant c ≥ 0; or c > 0 times a word
+/// that reads the same backwards, u u^* (even length) or u m u^* with the middle letter's law on
+/// [0, ∞) (odd length). X², A B A with B ≥ 0, S W S pass; X³ − 2X, X Y + Y X do not. The solver
+/// then never reports a lower edge below 0 (its edge search ends within rounding of 0 there).
+bool proven_positive(const FreePolynomial& polynomial);
+
 /// A self-adjoint linear pencil L = b_0 + Σ_i b_i x_i (Hermitian n×n coefficients, real for real
 /// polynomials) with
 /// P = a − u Q^{−1} v for L = [[a, u], [v, Q]], so that (z − P)^{−1} = [(Λ(z) − L)^{−1}]_{11}.
