@@ -245,6 +245,72 @@ TEST(Laws, AffineImage) {
   EXPECT_NEAR(flipped->cdf(-1e-9), 0.5, 1e-6);  // the atom at 0 sits at the top now
 }
 
+TEST(Laws, PolynomialImageOfASemicircleSquaredIsMarchenkoPastur) {
+  // X² for a standard semicircular X is the free Poisson law of rate 1, i.e. Marchenko–Pastur of
+  // ratio 1 (Nica & Speicher 2006, from memory; both density formulas give √(4 − y)/(2π√y)).
+  const auto y = fa::polynomial_image(fa::semicircle(), {0.0, 0.0, 1.0});
+  const auto mp = fa::marchenko_pastur(1.0);
+  EXPECT_EQ(y->support().lo, 0.0);
+  EXPECT_DOUBLE_EQ(y->support().hi, 4.0);
+  ASSERT_EQ(y->support().bands.size(), 1u);  // the images of [−2, 0] and [0, 2] coincide
+  for (double x : {1e-12, 1e-6, 0.01, 0.5, 1.0, 2.5, 3.9, 4.0 - 1e-9}) {
+    EXPECT_NEAR(y->density(x), mp->density(x), 1e-10 * std::max(1.0, mp->density(x))) << x;
+    EXPECT_NEAR(y->cdf(x), mp->cdf(x), 1e-12) << x;
+  }
+  EXPECT_EQ(y->cdf(4.0), 1.0);
+  // G off the axis, above and below it and close to the singular edge 0.
+  for (cd z : {cd(1.0, 0.5), cd(-0.5, 1e-3), cd(3.0, -0.2), cd(1e-4, 1e-6), cd(6.0, 0.0)}) {
+    EXPECT_LT(std::abs(y->cauchy(z) - mp->cauchy(z)), 1e-10 * std::abs(mp->cauchy(z))) << z;
+    const cd h(0.0, 1e-5 * std::max(std::abs(z.imag()), 1e-3));
+    const cd slope = (mp->cauchy(z + h) - mp->cauchy(z - h)) / (2.0 * h);
+    EXPECT_LT(std::abs(y->cauchy_derivative(z) - slope), 1e-5 * std::abs(slope)) << z;
+  }
+  expect_moments(*y, {1, 1, 2, 5, 14, 42}, 1e-12);  // Catalan numbers
+}
+
+TEST(Laws, PolynomialImageSplitsAtCriticalPointsAndMapsAtoms) {
+  // X³ − 2X for X uniform on [−2, 2]: p′ = 3x² − 2 vanishes at ±√(2/3), where p = ∓(4/3)√(2/3);
+  // the CDF is X's CDF at the three preimages (common practice: change of variables):
+  // P(p(X) ≤ 0) = P(X ≤ −√2) + P(0 ≤ X ≤ √2) = (2 − √2)/4 + √2/4 = 1/2.
+  const auto y = fa::polynomial_image(fa::uniform(-2.0, 2.0), {0.0, -2.0, 0.0, 1.0});
+  EXPECT_DOUBLE_EQ(y->support().lo, -4.0);
+  EXPECT_DOUBLE_EQ(y->support().hi, 4.0);
+  EXPECT_NEAR(y->cdf(0.0), 0.5, 1e-15);
+  const double v = 4.0 / 3.0 * std::sqrt(2.0 / 3.0);  // the critical value
+  // p(x) ≤ −v holds on [−2, −2√(2/3)] (x³ − 2x + v = (x − √(2/3))²(x + 2√(2/3))) and at √(2/3).
+  // At a critical value the CDF has a square-root step (infinite density): a rounding δ of y
+  // moves it by about √δ, so 1e-9 here.
+  EXPECT_NEAR(y->cdf(-v), (2.0 - 2.0 * std::sqrt(2.0 / 3.0)) / 4.0, 1e-9);
+  // Density at y = 1: three preimages, each contributing (1/4)/|3x² − 2|.
+  double expected = 0.0;
+  for (double x : {-1.6180339887498949, -0.6180339887498949, 1.0}) {  // roots of x³ − 2x − 1
+    expected += 0.25 / std::abs(3.0 * x * x - 2.0);
+  }
+  EXPECT_NEAR(y->density(-1.0), expected, 1e-12);  // p is odd: f(−1) = f(1)
+  EXPECT_NEAR(y->density(1.0), expected, 1e-12);
+  EXPECT_TRUE(std::isfinite(y->density(v)));  // a critical value: finite, large, never inf
+  EXPECT_GT(y->density(v), 1e3);
+  // Atoms map to atoms, equal images merged: x² on atoms −1, 1 (and a semicircle part).
+  const auto atoms = fa::polynomial_image(fa::atoms({{-1.0, 0.25}, {1.0, 0.25}, {2.0, 0.5}}),
+                                          {0.0, 0.0, 1.0});
+  ASSERT_EQ(atoms->support().atoms.size(), 2u);
+  EXPECT_DOUBLE_EQ(atoms->support().atoms[0].mass, 0.5);
+  EXPECT_DOUBLE_EQ(atoms->support().atoms[1].value, 4.0);
+  // MP(2) has an atom ½ at 0: W² − W keeps it at 0 and its continuous part sums to ½.
+  const auto w = fa::polynomial_image(fa::marchenko_pastur(2.0), {0.0, -1.0, 1.0});
+  ASSERT_EQ(w->support().atoms.size(), 1u);
+  EXPECT_DOUBLE_EQ(w->support().atoms[0].value, 0.0);
+  EXPECT_NEAR(w->support().atoms[0].mass, 0.5, 1e-15);
+  EXPECT_NEAR(w->cdf(w->support().hi), 1.0, 1e-15);
+  EXPECT_EQ(w->cdf(-0.25 - 1e-12), 0.0);  // nothing below the minimum −¼ of y² − y
+  // Below 0 (the atom excluded): the continuous part of X on (0, 1], where x² − x ≤ 0.
+  EXPECT_NEAR(w->cdf(-1e-300), fa::marchenko_pastur(2.0)->cdf(1.0) - 0.5, 1e-12);
+  // Degree 1 is the affine law; a radial law is refused.
+  EXPECT_DOUBLE_EQ(fa::polynomial_image(fa::semicircle(), {1.0, 2.0})->support().hi, 5.0);
+  expect_input_error([] { fa::polynomial_image(fa::circular(), {0.0, 0.0, 1.0}); },
+                     "polynomial_image: a radial law (circular (law of |λ|)) has no image here");
+}
+
 TEST(Laws, BadInputGetsClearErrors) {
   expect_input_error([] { fa::semicircle(0.0); },
                      "semicircle: variance must be a finite number > 0 (got 0)");

@@ -97,6 +97,11 @@ LawPtr empirical(std::span<const double> values);
 LawPtr square_root(LawPtr law);
 /// The law of a·X + b for X ~ law (a ≠ 0; for a radial law only a > 0, b = 0).
 LawPtr affine(LawPtr law, double a, double b);
+/// The law of p(X) for X ~ law and p(x) = Σ_k c[k] x^k: atoms map to atoms (equal images merged),
+/// the continuous part by the change of variables on each piece where p is monotone, so the CDF
+/// is X's CDF at the preimages (no quadrature: singular points of the density lose no mass), and
+/// G(z) = Σ_k G_X(r_k)/p′(r_k) over the roots of p(x) = z. Degree 1 is affine(); degree 0 an atom.
+LawPtr polynomial_image(LawPtr law, std::vector<double> coefficients);
 
 /// The density at each x, NaN where its solver fails there (law.densities first, which continues
 /// along the grid; where that throws, point by point). `limit` and `report` both draw their

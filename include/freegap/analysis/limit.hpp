@@ -8,6 +8,10 @@
 //     diagonal → its own law (atoms, uniform, semicircle or Marchenko–Pastur quantiles);
 //   - a Haar conjugation U D U^* (U Haar unitary or orthogonal, D self-adjoint) → a free copy of
 //     the law of D (Voiculescu 1991);
+//   - the powers of one self-adjoint matrix, p(X) or p(U X U^*) with p of degree ≥ 2, gathered
+//     into one term → the image of X's law under p (atoms to atoms; the continuous part by the
+//     change of variables on each piece where p is monotone, so no mass is lost where the
+//     density is infinite; common practice);
 //   - U + U^* → arcsine; a sum of d terms U_i + U_i^* → Kesten–McKay of degree 2d (Kesten 1959;
 //     McKay 1981);
 //   - X Y X with X and Y free, X semicircular or a deterministic diagonal, Y with a law on
