@@ -59,12 +59,6 @@ struct RunOptions {
 /// scheduler's own signals (which may come up to a minute early; docs/cluster-notes.md §3.5).
 inline constexpr double kSchedulerEndMarginSeconds = 60.0;
 
-/// Peak bytes one rank holds while running one trial of `runner`'s model at its size: the
-/// samples, the sampler's transient factorisation storage, the plan's temporaries and the
-/// spectrum, plus a fixed allowance for the process itself; `keeps_matrix` (an estimator reads
-/// the trial's matrix) adds the copy kept for it.
-std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix = false);
-
 /// Installs the SIGUSR1/SIGTERM/SIGINT handlers that turn a signal into a clean stop. run_job
 /// installs them too; main calls this before MPI_Init so a signal forwarded during start-up does
 /// not kill the process.

@@ -2,6 +2,7 @@
 // `plan` cannot disagree on the path or on what they refuse (the first piece of the compiled
 // study; DEVELOPERS.md, parts).
 #pragma once
+#include <cstddef>
 #include <cstdint>
 #include <vector>
 
@@ -25,5 +26,11 @@ std::vector<model::SizeRunner> runners(const job::Job& job);
 
 /// The runner of one size (after check_model).
 model::SizeRunner runner_at(const job::Job& job, std::int64_t n);
+
+/// Peak bytes one rank holds while running one trial of `runner`'s model at its size: the
+/// samples, the sampler's transient factorisation storage, the plan's temporaries and the
+/// spectrum, plus a fixed allowance for the process itself; `keeps_matrix` (an estimator reads
+/// the trial's matrix) adds the copy kept for it.
+std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix = false);
 
 }  // namespace freegap::study

@@ -27,7 +27,6 @@
 #include "freegap/estimate.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
-#include "freegap/run.hpp"
 #include "freegap/study.hpp"
 #include "freegap/version.hpp"
 
@@ -869,7 +868,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     s.trials = job.trials[i];
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
-    s.peak_bytes = run::estimate_peak_bytes(runners[i], keeps_matrix);
+    s.peak_bytes = study::estimate_peak_bytes(runners[i], keeps_matrix);
     s.working_bytes = expr::peak_working_bytes(runners[i].expression(), runners[i].size());
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;

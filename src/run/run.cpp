@@ -859,25 +859,6 @@ void work(const Prepared& p, MPI_Comm comm) {
 
 }  // namespace
 
-std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
-  const auto n = static_cast<double>(runner.size());
-  if (runner.path() == model::Path::tridiagonal) {
-    // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
-    // (measured 244 MiB at N = 10^7), plus the same 64 MiB allowance.
-    return static_cast<std::size_t>(48.0 * n + 64.0 * 1024 * 1024);
-  }
-  // Samplers hold at most one N×N complex factorisation input besides their output (QR works in
-  // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
-  // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
-  const double sampler_transient = 3.0 * 16.0 * n * n;
-  // Estimators that read the matrix: one whole N × N copy of it, in memory the rank shares with
-  // its plug-in helpers (they map it; they do not copy it).
-  const double matrix_copy =
-      keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
-  return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
-                                  sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
-}
-
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
             std::ostream& out, std::ostream& err) {
   const auto run_start = std::chrono::steady_clock::now();
@@ -963,7 +944,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     std::string msg;
     int c = 0;
     for (const auto& r : p.runners) {
-      const auto need = estimate_peak_bytes(r, p.estimators->wants_matrix());
+      const auto need = study::estimate_peak_bytes(r, p.estimators->wants_matrix());
       if (limit > 0 && need > limit) {
         c = kExitBadInput;
         msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
@@ -986,7 +967,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
         out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
             << "; estimated peak per rank: "
             << human_bytes(static_cast<double>(
-                   estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
+                   study::estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
             << "\n\n";
       }
       out << space_line(p.job) << "\n";

@@ -5,6 +5,7 @@
 
 #include "freegap/ensembles.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/expr.hpp"
 
 namespace freegap::study {
 
@@ -46,6 +47,25 @@ std::vector<model::SizeRunner> runners(const job::Job& job) {
   out.reserve(job.sizes.size());
   for (const auto n : job.sizes) out.push_back(runner_at(job, n));
   return out;
+}
+
+std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
+  const auto n = static_cast<double>(runner.size());
+  if (runner.path() == model::Path::tridiagonal) {
+    // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
+    // (measured 244 MiB at N = 10^7), plus the same 64 MiB allowance.
+    return static_cast<std::size_t>(48.0 * n + 64.0 * 1024 * 1024);
+  }
+  // Samplers hold at most one N×N complex factorisation input besides their output (QR works in
+  // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
+  // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
+  const double sampler_transient = 3.0 * 16.0 * n * n;
+  // Estimators that read the matrix: one whole N × N copy of it, in memory the rank shares with
+  // its plug-in helpers (they map it; they do not copy it).
+  const double matrix_copy =
+      keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
+  return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
+                                  sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
 }
 
 }  // namespace freegap::study

@@ -3,7 +3,10 @@ the repository and fails, naming the file, the line and the rule, on scratch cop
 forbidden include; a known crossing that the code no longer has fails it too, so the list of known
 crossings can only shrink.
 
-Usage: /usr/bin/python3 check_architecture.py <build_dir>   (the build dir is not used)
+The tests of the mathematics (rng, observe, ensembles, expr, tridiagonal, model, job) are linked
+with their parts only: their binaries in the build directory must load neither MPI nor HDF5.
+
+Usage: /usr/bin/python3 check_architecture.py <build_dir>
 """
 
 import os
@@ -64,13 +67,13 @@ with rh.WorkDir("architecture") as work:
 
     # 3. A known crossing removed from the code must leave the list.
     root = scratch_copy(work, "stale")
-    path = os.path.join(root, "src", "plan", "plan.cpp")
+    path = os.path.join(root, "src", "tridiagonal", "observe_trial.cpp")
     with open(path) as f:
         text = f.read()
-    rh.write(path, text.replace('#include "freegap/run.hpp"\n', ""))
+    rh.write(path, text.replace("#include <lapacke.h>\n", ""))
     r = run_checker(root)
-    check(r.returncode == 1 and "the known crossing src/plan/plan.cpp → freegap/run.hpp is gone from "
-          "the code; remove its [[known]] entry" in r.stdout,
+    check(r.returncode == 1 and "the known crossing src/tridiagonal/observe_trial.cpp → lapacke.h is "
+          "gone from the code; remove its [[known]] entry" in r.stdout,
           "a known crossing the code no longer has fails the check until its entry goes", r.stdout)
 
     # 4. A new part must be declared.
@@ -80,5 +83,20 @@ with rh.WorkDir("architecture") as work:
     r = run_checker(root)
     check(r.returncode == 1 and "src/newpart/a.cpp: its part 'newpart' is not in docs/parts.toml" in r.stdout,
           "a part not declared in docs/parts.toml fails the check", r.stdout)
+
+# The tests of the mathematics link neither MPI nor HDF5 (tests/CMakeLists.txt links them with
+# their parts only): their binaries, as the dynamic linker sees them.
+build = os.path.abspath(sys.argv[1]) if len(sys.argv) > 1 else None
+MATH_TESTS = ["test_rng", "test_observe", "test_ensembles", "test_expr", "test_tridiagonal",
+              "test_tridiagonal_law", "test_model", "test_job"]
+for name in MATH_TESTS:
+    binary = os.path.join(build or "", "tests", name)
+    if not check(build is not None and os.access(binary, os.X_OK), "%s is built" % name, binary):
+        continue
+    r = subprocess.run(["ldd", binary], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    linked = [line.split()[0] for line in r.stdout.splitlines()
+              if line.split() and ("libmpi" in line or "libhdf5" in line or "libopen-rte" in line)]
+    check(r.returncode == 0 and not linked, "%s links neither MPI nor HDF5" % name,
+          "ldd found: %s" % ", ".join(linked) if linked else r.stderr)
 
 checks.finish()
