@@ -193,7 +193,7 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
       }
       if (head == "matrix_ratio") {
         t.known = true;
-        t.value = it->kind == ensembles::Kind::diagonal ? it->diagonal.ratio : it->ratio;
+        t.value = it->kind == declarations::Kind::diagonal ? it->diagonal.ratio : it->ratio;
         t.note = "ratio of matrix " + it->name;
         return t;
       }

@@ -20,8 +20,8 @@ namespace freegap::analysis {
 
 namespace {
 
-using ensembles::Kind;
-using ensembles::MatrixSpec;
+using declarations::Kind;
+using declarations::MatrixSpec;
 using Letters = std::vector<std::pair<int, bool>>;
 
 bool semicircular(Kind k) {
@@ -40,8 +40,8 @@ struct LetterLaw {
 };
 
 LetterLaw law_of(const MatrixSpec& m) {
-  using DL = ensembles::DiagonalLawKind;
-  const std::string who = m.name + " (" + std::string(ensembles::kind_name(m.kind)) + ")";
+  using DL = declarations::DiagonalLawKind;
+  const std::string who = m.name + " (" + std::string(declarations::kind_name(m.kind)) + ")";
   if (semicircular(m.kind)) return {semicircle(1.0), "semicircle", {}};
   if (marchenko_pastur_kind(m.kind)) {
     return {marchenko_pastur(m.ratio), "Marchenko-Pastur(" + detail::format_number(m.ratio) + ")", {}};
@@ -63,9 +63,9 @@ LetterLaw law_of(const MatrixSpec& m) {
       // The empirical law of the file's K numbers: the law the diagonal's quantiles converge to.
       // When the file holds exactly the N numbers of the sampled size, the limit is the finite-N
       // free deterministic equivalent of the model (Speicher & Vargas 2012), not an N → ∞ law.
-      std::vector<ensembles::Atom> read;
+      std::vector<declarations::Atom> read;
       try {
-        read = ensembles::file_law_atoms(m);
+        read = declarations::file_law_atoms(m);
       } catch (const InputError& e) {
         return {nullptr, {}, e.what()};
       }
@@ -86,7 +86,7 @@ LetterLaw law_of(const MatrixSpec& m) {
 double semicircle_variance(const MatrixSpec& m) {
   if (semicircular(m.kind)) return 1.0;
   if (m.kind == Kind::diagonal &&
-      m.diagonal.kind == ensembles::DiagonalLawKind::semicircle_quantiles) {
+      m.diagonal.kind == declarations::DiagonalLawKind::semicircle_quantiles) {
     return m.diagonal.variance;
   }
   return 0.0;
@@ -99,13 +99,13 @@ constexpr std::size_t kMostCompoundPoissonJumps = 16;
 // The law of X² for a self-adjoint matrix X with a known law, when it has a closed form here.
 LawPtr square_law(const MatrixSpec& m, const LawPtr& law) {
   if (semicircular(m.kind)) return marchenko_pastur(1.0);  // X² of a standard semicircular
-  if (m.kind == Kind::diagonal && (m.diagonal.kind == ensembles::DiagonalLawKind::atoms ||
-                                   m.diagonal.kind == ensembles::DiagonalLawKind::file)) {
+  if (m.kind == Kind::diagonal && (m.diagonal.kind == declarations::DiagonalLawKind::atoms ||
+                                   m.diagonal.kind == declarations::DiagonalLawKind::file)) {
     std::vector<Atom> squared;
     for (const Atom& a : law->support().atoms) squared.push_back({a.value * a.value, a.mass});
     return atoms(std::move(squared));
   }
-  if (m.kind == Kind::diagonal && m.diagonal.kind == ensembles::DiagonalLawKind::semicircle_quantiles) {
+  if (m.kind == Kind::diagonal && m.diagonal.kind == declarations::DiagonalLawKind::semicircle_quantiles) {
     return affine(marchenko_pastur(1.0), m.diagonal.variance, 0.0);
   }
   return nullptr;
@@ -141,7 +141,7 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
                             std::string& why) {
   auto spec = [&](std::size_t k) -> const MatrixSpec& { return d[static_cast<std::size_t>(w[k].first)]; };
   auto use = [&](FreeTerm& t, int letter) {
-    if (ensembles::is_random(d[static_cast<std::size_t>(letter)].kind)) {
+    if (declarations::is_random(d[static_cast<std::size_t>(letter)].kind)) {
       t.random_letters.insert(letter);
     } else {
       t.deterministic_letters.insert(letter);
@@ -150,7 +150,7 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   const std::string text = word_text(w, d);
   FreeTerm t;
   t.coefficient = c;
-  if (w.size() == 1 && ensembles::is_self_adjoint(spec(0).kind)) {
+  if (w.size() == 1 && declarations::is_self_adjoint(spec(0).kind)) {
     const LetterLaw l = law_of(spec(0));
     if (!l.law) {
       why = l.reason;
@@ -165,8 +165,8 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
     return t;
   }
   // U X U^* or U^* X U: a free copy of X's law.
-  if (w.size() == 3 && ensembles::is_unitary(spec(0).kind) && w[2].first == w[0].first &&
-      w[0].second != w[2].second && ensembles::is_self_adjoint(spec(1).kind)) {
+  if (w.size() == 3 && declarations::is_unitary(spec(0).kind) && w[2].first == w[0].first &&
+      w[0].second != w[2].second && declarations::is_self_adjoint(spec(1).kind)) {
     const LetterLaw l = law_of(spec(1));
     if (!l.law) {
       why = l.reason;
@@ -175,7 +175,7 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
     t.law = l.law;
     t.text = text + " → free copy of " + spec(1).name + " (" + l.name + "; Voiculescu 1991)";
     t.random_letters.insert(w[0].first);
-    if (ensembles::is_random(spec(1).kind)) t.random_letters.insert(w[1].first);
+    if (declarations::is_random(spec(1).kind)) t.random_letters.insert(w[1].first);
     (spec(0).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
     return t;
   }
@@ -183,7 +183,7 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   // `y_unrotated`: Y is not conjugated by a Haar unitary) are not free, and each needs a law.
   const auto free_pair_laws = [&](const MatrixSpec& x, const MatrixSpec& y, bool y_unrotated,
                                   LetterLaw& lx, LetterLaw& ly) {
-    if (!ensembles::is_random(x.kind) && !ensembles::is_random(y.kind) && y_unrotated) {
+    if (!declarations::is_random(x.kind) && !declarations::is_random(y.kind) && y_unrotated) {
       why = "'" + text + "': two deterministic matrices are not free of each other";
       return false;
     }
@@ -197,12 +197,12 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   };
   // X Y X (or X U Y U^* X): law(X²) ⊠ law(Y) when Y ≥ 0.
   const bool sandwich3 = w.size() == 3 && w[0].first == w[2].first && w[0].first != w[1].first &&
-                         ensembles::is_self_adjoint(spec(0).kind) &&
-                         ensembles::is_self_adjoint(spec(1).kind);
+                         declarations::is_self_adjoint(spec(0).kind) &&
+                         declarations::is_self_adjoint(spec(1).kind);
   const bool sandwich5 = w.size() == 5 && w[0].first == w[4].first &&
-                         ensembles::is_self_adjoint(spec(0).kind) &&
-                         ensembles::is_unitary(spec(1).kind) && w[3].first == w[1].first &&
-                         w[1].second != w[3].second && ensembles::is_self_adjoint(spec(2).kind);
+                         declarations::is_self_adjoint(spec(0).kind) &&
+                         declarations::is_unitary(spec(1).kind) && w[3].first == w[1].first &&
+                         w[1].second != w[3].second && declarations::is_self_adjoint(spec(2).kind);
   if (sandwich3 || sandwich5) {
     const MatrixSpec& x = spec(0);
     const MatrixSpec& y = spec(sandwich3 ? 1 : 2);
@@ -245,7 +245,7 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
       use(t, w[1].first);
     } else {
       t.random_letters.insert(w[1].first);
-      if (ensembles::is_random(y.kind)) t.random_letters.insert(w[2].first);
+      if (declarations::is_random(y.kind)) t.random_letters.insert(w[2].first);
       (spec(1).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
     }
     return t;
@@ -254,8 +254,8 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
   // on [0, inf). Its moments are those of X² Y² by cyclicity of the trace, and X², Y² are free
   // and positive (Voiculescu 1987).
   const bool sandwich4 = w.size() == 4 && w[0].first == w[3].first && w[1].first == w[2].first &&
-                         w[0].first != w[1].first && ensembles::is_self_adjoint(spec(0).kind) &&
-                         ensembles::is_self_adjoint(spec(1).kind);
+                         w[0].first != w[1].first && declarations::is_self_adjoint(spec(0).kind) &&
+                         declarations::is_self_adjoint(spec(1).kind);
   if (sandwich4) {
     const MatrixSpec& x = spec(0);
     const MatrixSpec& y = spec(1);
@@ -367,7 +367,7 @@ static std::optional<std::pair<PowerOf, int>> power_of(const Letters& w,
   if (w.empty()) return std::nullopt;
   PowerOf key;
   std::size_t begin = 0, end = w.size();
-  if (ensembles::is_unitary(d[static_cast<std::size_t>(w[0].first)].kind)) {
+  if (declarations::is_unitary(d[static_cast<std::size_t>(w[0].first)].kind)) {
     if (w.size() < 3 || w.back().first != w[0].first || w.back().second == w[0].second) {
       return std::nullopt;
     }
@@ -378,7 +378,7 @@ static std::optional<std::pair<PowerOf, int>> power_of(const Letters& w,
   }
   key.letter = w[begin].first;
   const MatrixSpec& x = d[static_cast<std::size_t>(key.letter)];
-  if (!ensembles::is_self_adjoint(x.kind) || ensembles::is_unitary(x.kind)) return std::nullopt;
+  if (!declarations::is_self_adjoint(x.kind) || declarations::is_unitary(x.kind)) return std::nullopt;
   for (std::size_t k = begin; k < end; ++k) {
     if (w[k].first != key.letter) return std::nullopt;
   }
@@ -442,7 +442,7 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
       continue;
     }
     if (const auto p = power_of(m.letters, d); p && polynomial_terms.count(p->first)) continue;
-    if (m.letters.size() == 1 && ensembles::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind)) {
+    if (m.letters.size() == 1 && declarations::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind)) {
       single_unitary[m.letters[0].first].push_back(&m);
       continue;
     }
@@ -479,10 +479,10 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
                      : "the image of " + l.name + " under the polynomial (change of variables on "
                                                  "each piece where it is monotone)");
     if (key.unitary == -1) {
-      (ensembles::is_random(x.kind) ? t.random_letters : t.deterministic_letters).insert(key.letter);
+      (declarations::is_random(x.kind) ? t.random_letters : t.deterministic_letters).insert(key.letter);
     } else {
       t.random_letters.insert(key.unitary);
-      if (ensembles::is_random(x.kind)) t.random_letters.insert(key.letter);
+      if (declarations::is_random(x.kind)) t.random_letters.insert(key.letter);
       (d[static_cast<std::size_t>(key.unitary)].kind == Kind::haar_orthogonal ? t.haar_orthogonal
                                                                               : t.haar_unitary) = true;
     }
@@ -641,7 +641,7 @@ DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
   // the order of its -m options while a job file's tables come sorted by name; derived in
   // different orders, the same model's edges differed in the tenth digit, and the density at a
   // grid point next to an edge by 1e-6 (found by python.check_limit_catalogue).
-  std::vector<ensembles::MatrixSpec> specs = expression.declared();
+  std::vector<declarations::MatrixSpec> specs = expression.declared();
   const auto by_name = [](const MatrixSpec& a, const MatrixSpec& b) { return a.name < b.name; };
   if (std::is_sorted(specs.begin(), specs.end(), by_name)) {
     return derive_in_order(expression, max_moment);

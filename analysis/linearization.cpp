@@ -13,11 +13,11 @@ namespace freegap::analysis {
 
 namespace {
 
-using ensembles::DiagonalLawKind;
-using ensembles::Kind;
+using declarations::DiagonalLawKind;
+using declarations::Kind;
 
 // The free variable a self-adjoint declared matrix becomes (Voiculescu 1991).
-FreeLetter letter_for(const ensembles::MatrixSpec& spec, const std::string& name) {
+FreeLetter letter_for(const declarations::MatrixSpec& spec, const std::string& name) {
   FreeLetter letter;
   letter.name = name;
   const auto semicircular = [&](double variance) {
@@ -58,9 +58,9 @@ FreeLetter letter_for(const ensembles::MatrixSpec& spec, const std::string& name
           letter.law = marchenko_pastur(spec.diagonal.ratio);
           return letter;
         case DiagonalLawKind::file: {
-          // The empirical law of the file's numbers (ensembles::file_law_atoms), ascending.
+          // The empirical law of the file's numbers (declarations::file_law_atoms), ascending.
           std::vector<Atom> points;
-          for (const auto& a : ensembles::file_law_atoms(spec)) points.push_back({a.value, a.weight});
+          for (const auto& a : declarations::file_law_atoms(spec)) points.push_back({a.value, a.weight});
           letter.atoms = points;
           letter.law = atoms(points);
           return letter;
@@ -111,7 +111,7 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
     const auto& ls = m.letters;
     for (std::size_t p = 0; p < ls.size(); ++p) {
       const int v = ls[p].first;
-      if (!ensembles::is_unitary(declared[v].kind)) continue;
+      if (!declarations::is_unitary(declared[v].kind)) continue;
       const std::string& uname = declared[v].name;
       const auto refuse = [&](const std::string& why) {
         throw InputError("matrix '" + uname + "' in '" + expression.text() + "': " + why +
@@ -127,7 +127,7 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
       for (std::size_t r = p + 1; r < q; ++r) {
         if (ls[r].first != inner) refuse("it conjugates a product of several matrices");
       }
-      if (!ensembles::is_self_adjoint(declared[inner].kind)) {
+      if (!declarations::is_self_adjoint(declared[inner].kind)) {
         refuse("it conjugates a matrix that is not self-adjoint");
       }
       Conjugation c{ls[p].second, inner};
@@ -152,7 +152,7 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
     std::vector<int> word;
     for (std::size_t p = 0; p < ls.size(); ++p) {
       const int v = ls[p].first;
-      if (ensembles::is_unitary(declared[v].kind)) {
+      if (declarations::is_unitary(declared[v].kind)) {
         auto it = conjugated_index.find(v);
         if (it == conjugated_index.end()) {
           const auto& c = conjugations.at(v);

@@ -205,9 +205,9 @@ Rational FreeVariable::block_cumulant(const std::vector<bool>& adjoint) const {
   return Rational(0);
 }
 
-FreeVariable free_variable_for(const ensembles::MatrixSpec& spec) {
-  using ensembles::DiagonalLawKind;
-  using ensembles::Kind;
+FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
+  using declarations::DiagonalLawKind;
+  using declarations::Kind;
   switch (spec.kind) {
     case Kind::gue:
     case Kind::goe:
@@ -247,7 +247,7 @@ FreeVariable free_variable_for(const ensembles::MatrixSpec& spec) {
         case DiagonalLawKind::file: {
           // The empirical law of the file's numbers; its weights count/K are exact rationals.
           std::vector<std::size_t> counts;
-          const auto read = ensembles::file_law_atoms(spec, &counts);
+          const auto read = declarations::file_law_atoms(spec, &counts);
           std::size_t k = 0;
           for (const std::size_t c : counts) k += c;
           std::vector<std::pair<Rational, Rational>> atoms;

@@ -159,9 +159,9 @@ TEST(ParseJob, FullJobFillsEveryField) {
   EXPECT_EQ(job.observe.keep_spectra, 2);
   EXPECT_TRUE(job.observe.singular_values);
 
-  using freegap::ensembles::DiagonalLawKind;
-  using freegap::ensembles::HaarMethod;
-  using freegap::ensembles::Kind;
+  using freegap::declarations::DiagonalLawKind;
+  using freegap::declarations::HaarMethod;
+  using freegap::declarations::Kind;
   ASSERT_EQ(job.matrices.size(), 4u);  // sorted by name
   EXPECT_EQ(job.matrices[0].name, "B");
   EXPECT_EQ(job.matrices[0].kind, Kind::diagonal);
@@ -220,7 +220,7 @@ ensemble = "gue"
   EXPECT_EQ(job.observe.keep_spectra, 3);
   EXPECT_FALSE(job.observe.singular_values);
   ASSERT_EQ(job.matrices.size(), 1u);
-  EXPECT_EQ(job.matrices[0].kind, freegap::ensembles::Kind::gue);
+  EXPECT_EQ(job.matrices[0].kind, freegap::declarations::Kind::gue);
 }
 
 TEST(ParseJob, SingleSizeAndOtherLawsAndDefaults) {
@@ -257,7 +257,7 @@ memory_per_rank = 1000
   EXPECT_EQ(job.matrices[1].name, "G");
   EXPECT_EQ(job.matrices[1].ratio, 1.0);  // square by default
   EXPECT_EQ(job.matrices[2].name, "O");
-  EXPECT_EQ(job.matrices[2].haar, freegap::ensembles::HaarMethod::qr);
+  EXPECT_EQ(job.matrices[2].haar, freegap::declarations::HaarMethod::qr);
   EXPECT_EQ(job.matrices[3].name, "P");
   EXPECT_EQ(job.matrices[3].diagonal.ratio, 1.0);
   EXPECT_TRUE(job.observe.auto_range);

@@ -144,15 +144,15 @@ std::string declaration_error(const std::string& text) {
 
 TEST(Declarations, ParsesEveryForm) {
   const auto w = parse_declaration("W=wishart_complex:ratio=0.25");
-  EXPECT_EQ(w.kind, ensembles::Kind::wishart_complex);
+  EXPECT_EQ(w.kind, declarations::Kind::wishart_complex);
   EXPECT_EQ(w.ratio, 0.25);
-  EXPECT_EQ(parse_declaration("U=haar_unitary:method=polar").haar, ensembles::HaarMethod::polar);
+  EXPECT_EQ(parse_declaration("U=haar_unitary:method=polar").haar, declarations::HaarMethod::polar);
   const auto b = parse_declaration("B=diagonal:atoms=1@0.25,-1@0.75");
   ASSERT_EQ(b.diagonal.atoms.size(), 2u);
   EXPECT_EQ(b.diagonal.atoms[1].value, -1.0);
   EXPECT_EQ(b.diagonal.atoms[1].weight, 0.75);
   const auto d = parse_declaration("D=diagonal:law=uniform:low=-1:high=2");
-  EXPECT_EQ(d.diagonal.kind, ensembles::DiagonalLawKind::uniform);
+  EXPECT_EQ(d.diagonal.kind, declarations::DiagonalLawKind::uniform);
   EXPECT_EQ(d.diagonal.high, 2.0);
 }
 

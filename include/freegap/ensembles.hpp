@@ -27,6 +27,8 @@
 // rng::StreamKey{seed, name, N, t} and from nothing else.
 #pragma once
 
+#include "freegap/declarations.hpp"
+
 #include <Eigen/Core>
 #include <cstdint>
 #include <string>
@@ -35,90 +37,26 @@
 
 namespace freegap::ensembles {
 
-using Index = Eigen::Index;
-
-enum class Kind {
-  gue,
-  goe,
-  wigner_rademacher,
-  wishart_complex,
-  wishart_real,
-  ginibre_complex,
-  ginibre_real,
-  haar_unitary,
-  haar_orthogonal,
-  diagonal,
-  beta_hermite,   ///< β-Hermite eigenvalue law (any β > 0); tridiagonal model only
-  beta_laguerre,  ///< β-Laguerre eigenvalue law (any β > 0, ratio c); tridiagonal model only
-};
-
-/// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
-/// (docs/performance.md §3), so it is the default.
-enum class HaarMethod {
-  qr,     ///< Mezzadri (2007): QR of a Ginibre matrix with the phase (sign) correction
-  polar,  ///< polar factor Z (Z^*Z)^(-1/2) of a Ginibre matrix, through the SVD
-};
-
-/// A point mass `value` carrying probability `weight`.
-struct Atom {
-  double value = 0.0;
-  double weight = 0.0;
-};
-
-enum class DiagonalLawKind {
-  atoms,                       ///< finitely many atoms with weights
-  uniform,                     ///< uniform on [low, high]
-  semicircle_quantiles,        ///< semicircle of the given variance
-  marchenko_pastur_quantiles,  ///< Marchenko–Pastur of the given ratio c (atom at 0 when c > 1)
-  file,                        ///< the empirical law of the numbers in a text file
-};
-
-/// The law of a deterministic diagonal matrix. Its N diagonal entries are
-///  - atoms: atom i repeated n_i times, in the order given, with n_i = N·w_i rounded by the
-///    largest-remainder rule: floor(N·w_i) each, then one more to the atoms with the largest
-///    fractional parts (ties to the earlier atom) until the counts sum to N;
-///  - every other law: its quantiles F^(-1)((k + 1/2)/N), k = 0..N−1 (midpoint rule), ascending.
-///    For `file`, F is the empirical CDF of the K numbers in the file (equal weights, left-
-///    continuous inverse), so a file with exactly N numbers gives those numbers, sorted.
-struct DiagonalLaw {
-  DiagonalLawKind kind = DiagonalLawKind::atoms;
-  std::vector<Atom> atoms;
-  double low = 0.0, high = 1.0;  ///< uniform
-  double variance = 1.0;         ///< semicircle
-  double ratio = 1.0;            ///< Marchenko–Pastur c
-  std::string path;              ///< file: whitespace-separated numbers, '#' starts a comment
-};
-
-/// One declared matrix.
-struct MatrixSpec {
-  std::string name;
-  Kind kind = Kind::gue;
-  double ratio = 1.0;  ///< c = N/M for wishart_*, ginibre_* (ginibre: 1 = square), beta_laguerre
-  double beta = 2.0;   ///< β for beta_hermite and beta_laguerre
-  HaarMethod haar = HaarMethod::qr;
-  DiagonalLaw diagonal;
-};
-
-struct Shape {
-  Index rows = 0;
-  Index cols = 0;
-};
-
-/// Parse an ensemble name as written in job files ("gue", "haar_unitary", ...).
-Kind parse_kind(std::string_view text);
-std::string_view kind_name(Kind kind);
-/// Every ensemble name, in declaration order (for messages and help).
-std::string known_kinds();
-
-bool is_self_adjoint(Kind kind);  ///< gue, goe, wigner, wishart, diagonal
-bool is_unitary(Kind kind);       ///< haar_unitary, haar_orthogonal
-bool is_real(Kind kind);          ///< real entries
-bool is_random(Kind kind);        ///< draws random numbers (everything but diagonal)
-
-/// The second dimension M = round(N/c) used by Wishart and rectangular Ginibre matrices.
-Index companion_size(Index n, double ratio);
-/// The shape of the matrix at size N (N×N except rectangular Ginibre: N×M).
-Shape shape(const MatrixSpec& spec, Index n);
+// The declarations, under the names the samplers have always used.
+using declarations::Index;
+using declarations::Kind;
+using declarations::HaarMethod;
+using declarations::Atom;
+using declarations::DiagonalLawKind;
+using declarations::DiagonalLaw;
+using declarations::MatrixSpec;
+using declarations::Shape;
+using declarations::parse_kind;
+using declarations::kind_name;
+using declarations::known_kinds;
+using declarations::is_self_adjoint;
+using declarations::is_unitary;
+using declarations::is_real;
+using declarations::is_random;
+using declarations::companion_size;
+using declarations::shape;
+using declarations::file_law_atoms;
+using declarations::atom_counts;
 
 /// A sampled matrix: dense real, dense complex, or a real diagonal kept as a vector.
 struct Sample {
@@ -131,16 +69,6 @@ struct Sample {
   Index rows() const;
   Index cols() const;
 };
-
-/// The empirical law of a `file` diagonal's numbers as atoms: each distinct number once, in
-/// ascending order, with weight (its count)/K for the K numbers in the file. Reads the file;
-/// throws InputError as the Sampler does when it cannot. `counts`, when given, receives each
-/// number's count (the weights are counts[i]/K exactly).
-std::vector<Atom> file_law_atoms(const MatrixSpec& spec,
-                                 std::vector<std::size_t>* counts = nullptr);
-
-/// Counts n_i for atoms at size N by the largest-remainder rule (see DiagonalLaw).
-std::vector<Index> atom_counts(const std::vector<Atom>& atoms, Index n);
 
 /// Draws one declared matrix. Construction validates the spec (throws InputError naming the
 /// matrix, the parameter and the fix) and reads an eigenvalue file once.

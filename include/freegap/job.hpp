@@ -70,7 +70,7 @@
 #include <utility>
 #include <vector>
 
-#include "freegap/ensembles.hpp"
+#include "freegap/declarations.hpp"
 
 namespace freegap::job {
 
@@ -139,7 +139,7 @@ struct Job {
   std::int64_t trials_per_unit = kDefaultTrialsPerUnit;  ///< work-unit block size
   /// Sorted by name (canonical order). A law = "file" path is resolved against the job file's
   /// directory.
-  std::vector<ensembles::MatrixSpec> matrices;
+  std::vector<declarations::MatrixSpec> matrices;
   std::string expression;  ///< verbatim; not parsed here
   ObserveSettings observe;
   /// Run file path; default: the job file's stem + ".h5" next to the job file. A relative path

@@ -8,6 +8,7 @@
 
 #include <Eigen/Core>
 #include <complex>
+#include <span>
 #include <string>
 
 namespace freegap::linalg {
@@ -35,6 +36,11 @@ const char* driver_name(EigenDriver driver, bool is_complex);
 Vector eigenvalues(CMatrix& a, EigenDriver driver = EigenDriver::automatic);
 /// Eigenvalues of a real symmetric matrix, ascending. Only the lower triangle is read; `a` is destroyed.
 Vector eigenvalues(RMatrix& a, EigenDriver driver = EigenDriver::automatic);
+
+/// Eigenvalues of the symmetric tridiagonal matrix with diagonal `diag` and off-diagonal `off`
+/// (n − 1 entries), in place in `diag`, ascending (dsterf: Pal–Walker–Kahan QR, O(n²), no
+/// vectors); `off` is destroyed. Returns LAPACK's info (0: success) for the caller's message.
+int tridiagonal_eigenvalues(std::span<double> diag, std::span<double> off);
 
 /// Eigenvalues of a general square complex matrix (zgeev, no vectors), in LAPACK's order.
 /// `a` is destroyed. For non-normal models (circular law) and eigenangles of unitaries.

@@ -69,4 +69,11 @@ void install_signal_handlers();
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
             std::ostream& out, std::ostream& err);
 
+/// The `run` command's whole MPI life: starts MPI (a process without a launcher runs as one rank
+/// over shared memory only), runs the job on MPI_COMM_WORLD, ends every rank on an unexpected
+/// error (MPI_Abort with kExitFailure), finalizes, and returns the exit status. Only the runner
+/// knows MPI: main calls this and nothing else of it.
+int run_job_in_world(int& argc, char**& argv, const std::string& job_path,
+                     const RunOptions& options, std::ostream& out, std::ostream& err);
+
 }  // namespace freegap::run

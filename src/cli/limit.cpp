@@ -63,7 +63,7 @@ int run_limit(const LimitOptions& opt) {
   }
   // An output directory holding anything freegap did not write is refused before any work.
   if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
-  std::vector<ensembles::MatrixSpec> specs;
+  std::vector<declarations::MatrixSpec> specs;
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
   const expr::Expression expression(opt.expression, specs);
   // The same derivation as `report` and the estimators' truths: closed-form rules, then free

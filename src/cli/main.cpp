@@ -4,7 +4,6 @@
 #include <map>
 #include <chrono>
 #include <cmath>
-#include <mpi.h>
 #include <cstdio>
 #include <cstdlib>
 #include <iostream>
@@ -339,24 +338,7 @@ int main(int argc, char** argv) {
       std::cerr << "freegap: --stop-before " << e.what() << "\n";
       return kExitBadInput;
     }
-    // A plain process without a launcher is a singleton MPI job of one rank. Open MPI then
-    // spends ~0.2 s probing network transports it cannot use; the shared-memory layer is
-    // enough for one process (measured: MPI_Init 0.28 s → 0.08 s). Only when no launcher is
-    // present, and only if the user has not chosen.
-    const bool launched = std::getenv("OMPI_COMM_WORLD_SIZE") || std::getenv("PMIX_RANK") ||
-                          std::getenv("PMI_RANK") || std::getenv("SLURM_PROCID");
-    if (!launched) setenv("OMPI_MCA_pml", "ob1", 0);
-    int provided = 0;
-    MPI_Init_thread(&argc, &argv, MPI_THREAD_FUNNELED, &provided);
-    int status = freegap::run::kExitFailure;
-    try {
-      status = freegap::run::run_job(job_path, run_options, MPI_COMM_WORLD, std::cout, std::cerr);
-    } catch (const std::exception& e) {
-      std::cerr << "freegap: " << e.what() << "\n";
-      MPI_Abort(MPI_COMM_WORLD, freegap::run::kExitFailure);
-    }
-    MPI_Finalize();
-    return status;
+    return freegap::run::run_job_in_world(argc, argv, job_path, run_options, std::cout, std::cerr);
   }
   // A stop request (SIGINT, SIGTERM) ends the long phases of the other commands — validation,
   // sampling, the limit solver, reports — at their next poll, before anything is written

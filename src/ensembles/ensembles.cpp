@@ -19,25 +19,6 @@ namespace {
 
 constexpr double pi = 3.14159265358979323846;
 
-struct KindName {
-  Kind kind;
-  const char* name;
-};
-constexpr std::array<KindName, 12> kind_names{{
-    {Kind::gue, "gue"},
-    {Kind::goe, "goe"},
-    {Kind::wigner_rademacher, "wigner_rademacher"},
-    {Kind::wishart_complex, "wishart_complex"},
-    {Kind::wishart_real, "wishart_real"},
-    {Kind::ginibre_complex, "ginibre_complex"},
-    {Kind::ginibre_real, "ginibre_real"},
-    {Kind::haar_unitary, "haar_unitary"},
-    {Kind::haar_orthogonal, "haar_orthogonal"},
-    {Kind::diagonal, "diagonal"},
-    {Kind::beta_hermite, "beta_hermite"},
-    {Kind::beta_laguerre, "beta_laguerre"},
-}};
-
 std::string num(double x) {
   char buf[64];
   std::snprintf(buf, sizeof buf, "%.12g", x);
@@ -46,11 +27,6 @@ std::string num(double x) {
 
 [[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) {
   throw InputError("matrix '" + spec.name + "': " + what);
-}
-
-bool has_ratio(Kind k) {
-  return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
-         k == Kind::ginibre_real || k == Kind::beta_laguerre;
 }
 
 // ---- quantiles of the continuous laws -------------------------------------------------------
@@ -115,104 +91,11 @@ double invert_cdf(double p, double lo, double hi, Cdf cdf, Density density) {
   return x;
 }
 
-// A word of a file the job names, as a message may quote it: the file may be anyone's (a job
-// can name any readable file), so at most kQuotedChars printable ASCII characters, every other
-// byte (control characters, escape sequences, non-ASCII) shown as '?', and "..." when cut.
-constexpr std::size_t kQuotedChars = 24;
-std::string quoted_word(const std::string& word) {
-  std::string out;
-  for (std::size_t i = 0; i < word.size() && i < kQuotedChars; ++i) {
-    const auto c = static_cast<unsigned char>(word[i]);
-    out += (c >= 0x20 && c < 0x7f) ? static_cast<char>(c) : '?';
-  }
-  if (word.size() > kQuotedChars) out += "...";
-  return out;
-}
-
-std::vector<double> read_number_file(const MatrixSpec& spec) {
-  const std::string& path = spec.diagonal.path;
-  std::ifstream in(path);
-  if (!in) fail(spec, "cannot read eigenvalue file '" + path + "'; check the path");
-  std::vector<double> values;
-  std::string line;
-  int line_no = 0;
-  while (std::getline(in, line)) {
-    ++line_no;
-    if (const auto hash = line.find('#'); hash != std::string::npos) line.erase(hash);
-    std::istringstream words(line);
-    std::string word;
-    while (words >> word) {
-      std::size_t used = 0;
-      double v = 0;
-      try {
-        v = std::stod(word, &used);
-      } catch (const std::exception&) {
-        used = 0;
-      }
-      if (used != word.size() || !std::isfinite(v)) {
-        fail(spec, "eigenvalue file '" + path + "' line " + std::to_string(line_no) + ": '" +
-                       quoted_word(word) + "' is not a finite number");
-      }
-      values.push_back(v);
-    }
-  }
-  if (values.empty()) fail(spec, "eigenvalue file '" + path + "' holds no numbers");
-  std::sort(values.begin(), values.end());
-  return values;
-}
-
 void require_size(const MatrixSpec& spec, Index n) {
   if (n <= 0) fail(spec, "size N must be positive (got " + std::to_string(n) + ")");
 }
 
 }  // namespace
-
-Kind parse_kind(std::string_view text) {
-  for (const auto& kn : kind_names) {
-    if (text == kn.name) return kn.kind;
-  }
-  throw InputError("unknown ensemble '" + std::string(text) + "' (known: " + known_kinds() + ")");
-}
-
-std::string_view kind_name(Kind kind) {
-  for (const auto& kn : kind_names) {
-    if (kn.kind == kind) return kn.name;
-  }
-  return "?";
-}
-
-std::string known_kinds() {
-  std::string out;
-  for (const auto& kn : kind_names) {
-    if (!out.empty()) out += ", ";
-    out += kn.name;
-  }
-  return out;
-}
-
-bool is_self_adjoint(Kind k) {
-  return k == Kind::gue || k == Kind::goe || k == Kind::wigner_rademacher ||
-         k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre;
-}
-bool is_unitary(Kind k) { return k == Kind::haar_unitary || k == Kind::haar_orthogonal; }
-bool is_real(Kind k) {
-  return k == Kind::goe || k == Kind::wigner_rademacher || k == Kind::wishart_real ||
-         k == Kind::ginibre_real || k == Kind::haar_orthogonal || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre;
-}
-bool is_random(Kind k) { return k != Kind::diagonal; }
-
-Index companion_size(Index n, double ratio) {
-  return static_cast<Index>(std::llround(static_cast<double>(n) / ratio));
-}
-
-Shape shape(const MatrixSpec& spec, Index n) {
-  if (spec.kind == Kind::ginibre_complex || spec.kind == Kind::ginibre_real) {
-    return {n, companion_size(n, spec.ratio)};
-  }
-  return {n, n};
-}
 
 Index Sample::rows() const {
   switch (storage) {
@@ -238,90 +121,11 @@ Index Sample::cols() const {
   return 0;
 }
 
-std::vector<Index> atom_counts(const std::vector<Atom>& atoms, Index n) {
-  std::vector<Index> counts(atoms.size(), 0);
-  std::vector<double> remainder(atoms.size(), 0.0);
-  Index used = 0;
-  for (std::size_t i = 0; i < atoms.size(); ++i) {
-    double share = static_cast<double>(n) * atoms[i].weight;
-    // N·w that is an integer up to rounding (0.3·10 = 3.0000000000000004) counts as that integer.
-    const double nearest = std::round(share);
-    if (std::abs(share - nearest) <= 1e-9 * std::max(1.0, share)) share = nearest;
-    counts[i] = static_cast<Index>(std::floor(share));
-    remainder[i] = share - static_cast<double>(counts[i]);
-    used += counts[i];
-  }
-  std::vector<std::size_t> order(atoms.size());
-  std::iota(order.begin(), order.end(), 0);
-  std::stable_sort(order.begin(), order.end(),
-                   [&](std::size_t x, std::size_t y) { return remainder[x] > remainder[y]; });
-  for (std::size_t j = 0; used < n && j < order.size(); ++j, ++used) ++counts[order[j]];
-  return counts;
-}
-
 Sampler::Sampler(MatrixSpec spec) : spec_(std::move(spec)) {
-  if (spec_.name.empty()) throw InputError("a matrix has an empty name; give every matrix a name");
-  if (has_ratio(spec_.kind) && !(std::isfinite(spec_.ratio) && spec_.ratio > 0)) {
-    fail(spec_, "ratio c = N/M must be a positive finite number (got " + num(spec_.ratio) + ")");
+  declarations::validate(spec_);
+  if (spec_.kind == Kind::diagonal && spec_.diagonal.kind == DiagonalLawKind::file) {
+    file_values_ = declarations::file_values(spec_);
   }
-  if ((spec_.kind == Kind::beta_hermite || spec_.kind == Kind::beta_laguerre) &&
-      !(std::isfinite(spec_.beta) && spec_.beta > 0)) {
-    fail(spec_, "beta must be a positive finite number (got " + num(spec_.beta) + ")");
-  }
-  if (spec_.kind != Kind::diagonal) return;
-  const DiagonalLaw& law = spec_.diagonal;
-  switch (law.kind) {
-    case DiagonalLawKind::atoms: {
-      if (law.atoms.empty()) fail(spec_, "the atom list is empty; give at least one value and weight");
-      double total = 0;
-      for (const Atom& atom : law.atoms) {
-        if (!std::isfinite(atom.value)) fail(spec_, "atom value must be finite");
-        if (!(atom.weight >= 0) || !std::isfinite(atom.weight)) {
-          fail(spec_, "atom weight must be non-negative (got " + num(atom.weight) + " for value " +
-                          num(atom.value) + ")");
-        }
-        total += atom.weight;
-      }
-      if (std::abs(total - 1.0) > 1e-12) {
-        fail(spec_, "atom weights sum to " + num(total) + ", not 1; rescale them");
-      }
-      break;
-    }
-    case DiagonalLawKind::uniform:
-      if (!(std::isfinite(law.low) && std::isfinite(law.high) && law.low < law.high)) {
-        fail(spec_, "uniform law needs finite low < high (got low = " + num(law.low) +
-                        ", high = " + num(law.high) + ")");
-      }
-      break;
-    case DiagonalLawKind::semicircle_quantiles:
-      if (!(std::isfinite(law.variance) && law.variance > 0)) {
-        fail(spec_, "semicircle variance must be positive (got " + num(law.variance) + ")");
-      }
-      break;
-    case DiagonalLawKind::marchenko_pastur_quantiles:
-      if (!(std::isfinite(law.ratio) && law.ratio > 0)) {
-        fail(spec_, "Marchenko-Pastur ratio must be positive (got " + num(law.ratio) + ")");
-      }
-      break;
-    case DiagonalLawKind::file:
-      file_values_ = read_number_file(spec_);
-      break;
-  }
-}
-
-std::vector<Atom> file_law_atoms(const MatrixSpec& spec, std::vector<std::size_t>* counts) {
-  const std::vector<double> values = read_number_file(spec);  // sorted
-  const auto k = static_cast<double>(values.size());
-  std::vector<Atom> out;
-  if (counts != nullptr) counts->clear();
-  for (std::size_t i = 0; i < values.size();) {
-    std::size_t j = i;
-    while (j < values.size() && values[j] == values[i]) ++j;
-    out.push_back({values[i], static_cast<double>(j - i) / k});
-    if (counts != nullptr) counts->push_back(j - i);
-    i = j;
-  }
-  return out;
 }
 
 Eigen::VectorXd Sampler::diagonal_values(Index n) const {
@@ -384,7 +188,7 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
   rng::Stream stream({seed, spec_.name, static_cast<std::uint64_t>(n), trial});
   const double inv_sqrt_n = 1.0 / std::sqrt(static_cast<double>(n));
   Index m = n;
-  if (has_ratio(spec_.kind)) {
+  if (declarations::uses_ratio(spec_.kind)) {
     m = companion_size(n, spec_.ratio);
     if (m < 1) {
       fail(spec_, "N/ratio = " + num(static_cast<double>(n) / spec_.ratio) +

@@ -11,8 +11,8 @@ namespace freegap::job {
 
 namespace {
 
-using ensembles::DiagonalLawKind;
-using ensembles::Kind;
+using declarations::DiagonalLawKind;
+using declarations::Kind;
 
 // %.17g round-trips every double, so two different parameters never print alike. to_chars gives
 // exactly printf's %.17g in the C locale, whatever locale the process runs in.
@@ -27,7 +27,7 @@ std::string with_length(const std::string& text) {
   return std::to_string(text.size()) + ":" + text;
 }
 
-std::string law_words(const ensembles::DiagonalLaw& law) {
+std::string law_words(const declarations::DiagonalLaw& law) {
   switch (law.kind) {
     case DiagonalLawKind::atoms: {
       std::string out = "law = atoms; atoms =";
@@ -72,7 +72,7 @@ std::string Job::canonical() const {
     const auto& m = matrices[i];
     // Parameters that apply to the ensemble only: the others are unused defaults, and printing
     // them would tie the hash to defaults that do not affect the numbers.
-    out += "matrix " + m.name + ": ensemble = " + std::string(ensembles::kind_name(m.kind));
+    out += "matrix " + m.name + ": ensemble = " + std::string(declarations::kind_name(m.kind));
     switch (m.kind) {
       case Kind::wishart_complex:
       case Kind::wishart_real:
@@ -82,7 +82,7 @@ std::string Job::canonical() const {
         break;
       case Kind::haar_unitary:
       case Kind::haar_orthogonal:
-        out += m.haar == ensembles::HaarMethod::qr ? "; method = qr" : "; method = polar";
+        out += m.haar == declarations::HaarMethod::qr ? "; method = qr" : "; method = polar";
         break;
       case Kind::diagonal:
         out += "; " + law_words(m.diagonal);

@@ -28,8 +28,8 @@ namespace freegap::job {
 
 namespace {
 
-using ensembles::DiagonalLawKind;
-using ensembles::Kind;
+using declarations::DiagonalLawKind;
+using declarations::Kind;
 
 // Shortest text that reads back as the same double ("0.9", not "0.90000000000000002").
 std::string short_number(double x) {
@@ -371,7 +371,7 @@ std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
   if (kind == Kind::beta_hermite) return {"ensemble", "beta"};
   if (kind == Kind::beta_laguerre) return {"ensemble", "beta", "ratio"};
   if (has_ratio(kind)) return {"ensemble", "ratio"};
-  if (ensembles::is_unitary(kind)) return {"ensemble", "method"};
+  if (declarations::is_unitary(kind)) return {"ensemble", "method"};
   if (kind != Kind::diagonal) return {"ensemble"};
   switch (law) {
     case DiagonalLawKind::atoms:
@@ -395,7 +395,7 @@ std::string_view law_name(DiagonalLawKind kind) {
   return "?";
 }
 
-std::vector<ensembles::Atom> read_atoms(const Reader& r, const toml::node& node,
+std::vector<declarations::Atom> read_atoms(const Reader& r, const toml::node& node,
                                         const std::string& key) {
   const std::string example = "e.g. atoms = [[1.0, 0.5], [-1.0, 0.5]]";
   const auto* list = node.as_array();
@@ -404,7 +404,7 @@ std::vector<ensembles::Atom> read_atoms(const Reader& r, const toml::node& node,
            "must be a list of [value, weight] pairs, " + example + " (got " + describe(node) + ")");
   }
   if (list->empty()) r.fail(key, "is empty; give at least one [value, weight] pair, " + example);
-  std::vector<ensembles::Atom> atoms;
+  std::vector<declarations::Atom> atoms;
   double total = 0.0;
   for (const auto& item : *list) {
     const auto* pair = item.as_array();
@@ -423,48 +423,30 @@ std::vector<ensembles::Atom> read_atoms(const Reader& r, const toml::node& node,
     total += weight;
     atoms.push_back({value, weight});
   }
-  // The sampler's tolerance (ensembles.cpp): a sum that is 1 up to rounding of the decimals.
+  // The samplers' tolerance (declarations.cpp): a sum that is 1 up to rounding of the decimals.
   if (std::abs(total - 1.0) > 1e-12) {
     r.fail(key, "weights must sum to 1 (got " + short_number(total) + "); rescale them");
   }
   return atoms;
 }
 
-// Count of numbers in an eigenvalue file, by the sampler's rules (whitespace-separated, '#' starts
-// a comment). Called after the sampler has read and checked the file.
-std::size_t count_numbers(const std::string& path) {
-  std::ifstream in(path);
-  std::size_t count = 0;
-  std::string line;
-  while (std::getline(in, line)) {
-    if (const auto hash = line.find('#'); hash != std::string::npos) line.erase(hash);
-    std::istringstream words(line);
-    std::string word;
-    while (words >> word) ++count;
-  }
-  return count;
-}
-
 // "<K> <sha256 of the sorted values as %.17g lines>": the numbers the sampler will use, so that
 // editing the file changes the job hash while moving it does not.
-std::string file_digest(const ensembles::Sampler& sampler) {
-  const std::size_t count = count_numbers(sampler.spec().diagonal.path);
-  if (count == 0) return "0";
-  // A file of K numbers at size K gives exactly its sorted numbers (ensembles.hpp, DiagonalLaw).
-  const Eigen::VectorXd values = sampler.diagonal_values(static_cast<Eigen::Index>(count));
+std::string file_digest(const declarations::MatrixSpec& spec) {
+  // A file of K numbers at size K gives exactly its sorted numbers (declarations.hpp, DiagonalLaw).
+  const std::vector<double> values = declarations::file_values(spec);
   std::string text;
   char buf[40];
-  for (Eigen::Index i = 0; i < values.size(); ++i) {
+  for (const double v : values) {
     // %.17g, independent of the locale (as in canonical.cpp).
-    const auto result =
-        std::to_chars(buf, buf + sizeof buf, values(i), std::chars_format::general, 17);
+    const auto result = std::to_chars(buf, buf + sizeof buf, v, std::chars_format::general, 17);
     text.append(buf, result.ptr);
     text += '\n';
   }
-  return std::to_string(count) + " " + sha256_hex(text);
+  return std::to_string(values.size()) + " " + sha256_hex(text);
 }
 
-ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
+declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
                                   const std::filesystem::path& base, bool read_files) {
   const std::string prefix = "matrices." + std::string(name);
   if (!is_identifier(name)) {
@@ -474,19 +456,19 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
   const toml::table& t = r.table(
       node, prefix,
       "declare it as [matrices." + std::string(name) + "] with ensemble = \"...\" under it");
-  ensembles::MatrixSpec spec;
+  declarations::MatrixSpec spec;
   spec.name = std::string(name);
 
   const std::string ensemble_key = prefix + ".ensemble";
   const toml::node* ensemble = t.get("ensemble");
   if (ensemble == nullptr) {
     r.fail_at(r.line(prefix), ensemble_key,
-              "missing; add ensemble = \"...\" (known: " + ensembles::known_kinds() + ")");
+              "missing; add ensemble = \"...\" (known: " + declarations::known_kinds() + ")");
   }
   const std::string kind_text =
       r.string(*ensemble, ensemble_key, "the name of an ensemble in quotes");
   try {
-    spec.kind = ensembles::parse_kind(kind_text);
+    spec.kind = declarations::parse_kind(kind_text);
   } catch (const InputError& e) {
     r.fail(ensemble_key, e.what());
   }
@@ -538,14 +520,14 @@ ensembles::MatrixSpec read_matrix(const Reader& r, std::string_view name, const 
     }
   } else if (has_ratio(spec.kind)) {
     if (const toml::node* v = t.get("ratio")) spec.ratio = r.positive_number(*v, prefix + ".ratio");
-  } else if (ensembles::is_unitary(spec.kind)) {
+  } else if (declarations::is_unitary(spec.kind)) {
     if (const toml::node* v = t.get("method")) {
       const std::string key = prefix + ".method";
       const std::string text = r.string(*v, key, "\"qr\" or \"polar\"");
       if (text == "qr") {
-        spec.haar = ensembles::HaarMethod::qr;
+        spec.haar = declarations::HaarMethod::qr;
       } else if (text == "polar") {
-        spec.haar = ensembles::HaarMethod::polar;
+        spec.haar = declarations::HaarMethod::polar;
       } else {
         r.fail(key, "must be \"qr\" or \"polar\" (got \"" + text + "\")");
       }
@@ -758,7 +740,7 @@ void read_run(const Reader& r, const toml::table& t, const std::filesystem::path
 
 // Checks a truth written as text; returns it unchanged or fails at the node.
 std::string read_truth_text(const Reader& r, const toml::node& node, std::string_view key,
-                            const std::vector<ensembles::MatrixSpec>& matrices) {
+                            const std::vector<declarations::MatrixSpec>& matrices) {
   const std::string forms =
       "a number, \"none\", \"limit_moment:K\", \"limit_edge:lower\", \"limit_edge:upper\", "
       "\"limit_norm\", \"matrix_moment:NAME:K\" or \"matrix_ratio:NAME\"";
@@ -810,7 +792,7 @@ std::string read_truth_text(const Reader& r, const toml::node& node, std::string
 
 EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t index,
                              const std::filesystem::path& base,
-                             const std::vector<ensembles::MatrixSpec>& matrices,
+                             const std::vector<declarations::MatrixSpec>& matrices,
                              std::map<std::string, int, std::less<>>& lines, bool read_library) {
   EstimatorSpec e;
   std::string prefix = "estimator[" + std::to_string(index) + "]";
@@ -1096,19 +1078,19 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   std::sort(job.matrices.begin(), job.matrices.end(),
             [](const auto& a, const auto& b) { return a.name < b.name; });
 
-  // The sampler is the authority on a spec: constructing it validates everything (and reads an
-  // eigenvalue file); its message gets the place in the job file.
+  // declarations::validate is the authority on a spec (the samplers run the same check), and
+  // an eigenvalue file is read here once; its message gets the place in the job file.
   for (const auto& spec : job.matrices) {
     const std::string key = "matrices." + spec.name;
     std::string digest;
     if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
-      job.file_digests.push_back(digest);  // its sampler would read the file
+      job.file_digests.push_back(digest);  // the file is not read here
       continue;
     }
     try {
-      const ensembles::Sampler sampler(spec);
+      declarations::validate(spec);
       if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
-        digest = file_digest(sampler);
+        digest = file_digest(spec);
       }
     } catch (const InputError& e) {
       std::string what = e.what();

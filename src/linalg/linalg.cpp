@@ -99,6 +99,17 @@ Vector eigenvalues(RMatrix& a, EigenDriver driver) {
   return w;
 }
 
+int tridiagonal_eigenvalues(std::span<double> diag, std::span<double> off) {
+  if (diag.empty()) return 0;
+  if (off.size() + 1 < diag.size()) {
+    throw InputError("tridiagonal_eigenvalues: the off-diagonal needs n − 1 = " +
+                     std::to_string(diag.size() - 1) + " entries (got " + std::to_string(off.size()) + ")");
+  }
+  double none = 0.0;  // LAPACK wants a valid pointer for n = 1
+  return static_cast<int>(LAPACKE_dsterf(static_cast<lapack_int>(diag.size()), diag.data(),
+                                         off.empty() ? &none : off.data()));
+}
+
 Eigen::VectorXcd eigenvalues_general(CMatrix& a) {
   require_square(a.rows(), a.cols(), "eigenvalues_general");
   const Index n = a.rows();

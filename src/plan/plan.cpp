@@ -806,7 +806,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     bool complex_svd = false;
     for (const auto& m : job.matrices) {
       complex_svd |=
-          m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+          m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
     }
     const auto& x = runners.front().expression();
     complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();

@@ -902,7 +902,7 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
       // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
       bool complex_svd = false;
       for (const auto& m : p.job.matrices) {
-        complex_svd |= m.kind == ensembles::Kind::haar_unitary && m.haar == ensembles::HaarMethod::polar;
+        complex_svd |= m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
       }
       const auto& e = p.runners.front().expression();
       complex_svd |= e.spectrum() == expr::Spectrum::singular_values && !e.is_real();
@@ -1087,6 +1087,28 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
     work(p, comm);
   }
   MPI_Bcast(&status, 1, MPI_INT, 0, comm);
+  return status;
+}
+
+int run_job_in_world(int& argc, char**& argv, const std::string& job_path,
+                     const RunOptions& options, std::ostream& out, std::ostream& err) {
+  // A plain process without a launcher is a singleton MPI job of one rank. Open MPI then
+  // spends ~0.2 s probing network transports it cannot use; the shared-memory layer is
+  // enough for one process (measured: MPI_Init 0.28 s → 0.08 s). Only when no launcher is
+  // present, and only if the user has not chosen.
+  const bool launched = std::getenv("OMPI_COMM_WORLD_SIZE") || std::getenv("PMIX_RANK") ||
+                        std::getenv("PMI_RANK") || std::getenv("SLURM_PROCID");
+  if (!launched) setenv("OMPI_MCA_pml", "ob1", 0);
+  int provided = 0;
+  MPI_Init_thread(&argc, &argv, MPI_THREAD_FUNNELED, &provided);
+  int status = kExitFailure;
+  try {
+    status = run_job(job_path, options, MPI_COMM_WORLD, out, err);
+  } catch (const std::exception& e) {
+    err << "freegap: " << e.what() << "\n";
+    MPI_Abort(MPI_COMM_WORLD, kExitFailure);
+  }
+  MPI_Finalize();
   return status;
 }
 

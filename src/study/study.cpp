@@ -3,7 +3,7 @@
 
 #include <string>
 
-#include "freegap/ensembles.hpp"
+#include "freegap/declarations.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/expr.hpp"
 
@@ -21,10 +21,10 @@ model::Model model_of(const job::Job& job) {
 void check_model(const job::Job& job) {
   if (job.estimators.empty()) return;
   for (const auto& spec : job.matrices) {
-    if (spec.kind == ensembles::Kind::beta_hermite || spec.kind == ensembles::Kind::beta_laguerre) {
+    if (spec.kind == declarations::Kind::beta_hermite || spec.kind == declarations::Kind::beta_laguerre) {
       throw InputError(job.where("estimator." + job.estimators.front().name) +
                        "estimators need every trial's spectrum, and matrix '" + spec.name + "' (" +
-                       std::string(ensembles::kind_name(spec.kind)) +
+                       std::string(declarations::kind_name(spec.kind)) +
                        ") has only a tridiagonal model, which computes none; use gue, goe, "
                        "wishart_complex or wishart_real, or remove the estimators");
     }

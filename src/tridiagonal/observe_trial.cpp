@@ -1,13 +1,12 @@
 // One trial of a tridiagonal model observed without diagonalising, into the records and
 // histogram that observe::observe_trial produces from a dense spectrum.
-#include <lapacke.h>
-
 #include <algorithm>
 #include <cmath>
 #include <string>
 #include <vector>
 
 #include "freegap/errors.hpp"
+#include "freegap/linalg.hpp"
 #include "freegap/observe.hpp"
 #include "freegap/tridiagonal.hpp"
 #include "internal.hpp"
@@ -22,8 +21,7 @@ namespace {
 bool all_eigenvalues(const Tridiagonal& p, std::vector<double>& out, std::string& problem) {
   out.assign(p.diag.data(), p.diag.data() + p.diag.size());
   std::vector<double> e(p.off.data(), p.off.data() + p.off.size());
-  if (e.empty()) e.push_back(0.0);  // LAPACK wants a valid pointer for N = 1
-  const lapack_int info = LAPACKE_dsterf(static_cast<lapack_int>(out.size()), out.data(), e.data());
+  const int info = linalg::tridiagonal_eigenvalues(out, e);
   if (info != 0) {
     problem = "eigenvalue solver failed (dsterf info = " + std::to_string(info) + ")";
     return false;

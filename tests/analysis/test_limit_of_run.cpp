@@ -21,7 +21,7 @@ namespace {
 
 fa::DerivedLimit derive(const std::vector<std::string>& declarations, const std::string& text,
                         int k = 8, bool singular_values = false) {
-  std::vector<freegap::ensembles::MatrixSpec> specs;
+  std::vector<freegap::declarations::MatrixSpec> specs;
   for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
   freegap::expr::CheckOptions check;
   check.force_singular_values = singular_values;

@@ -348,29 +348,29 @@ TEST(LimitMoments, WordCapIsEnforced) {
 }
 
 TEST(LimitMoments, VariablesForDeclaredMatrices) {
-  freegap::ensembles::MatrixSpec w;
+  freegap::declarations::MatrixSpec w;
   w.name = "W";
-  w.kind = freegap::ensembles::Kind::wishart_complex;
+  w.kind = freegap::declarations::Kind::wishart_complex;
   w.ratio = 0.5;
   EXPECT_EQ(fa::free_variable_for(w).moment(2).to_string(), "3/2");  // ref §1.2
-  freegap::ensembles::MatrixSpec u;
-  u.kind = freegap::ensembles::Kind::haar_orthogonal;
+  freegap::declarations::MatrixSpec u;
+  u.kind = freegap::declarations::Kind::haar_orthogonal;
   EXPECT_EQ(fa::free_variable_for(u).kind(), fa::VariableKind::haar_unitary);
-  freegap::ensembles::MatrixSpec b;
-  b.kind = freegap::ensembles::Kind::diagonal;
+  freegap::declarations::MatrixSpec b;
+  b.kind = freegap::declarations::Kind::diagonal;
   b.diagonal.atoms = {{-1.0, 0.5}, {1.0, 0.5}};
   EXPECT_EQ(fa::free_variable_for(b).cumulant(4), Rational(-1));  // ref §1.3
-  freegap::ensembles::MatrixSpec g;
+  freegap::declarations::MatrixSpec g;
   g.name = "G";
-  g.kind = freegap::ensembles::Kind::ginibre_complex;
+  g.kind = freegap::declarations::Kind::ginibre_complex;
   g.ratio = 0.5;
   EXPECT_THROW(fa::free_variable_for(g), freegap::InputError);
 }
 
 namespace {
 
-freegap::ensembles::MatrixSpec declared(const std::string& name, freegap::ensembles::Kind kind) {
-  freegap::ensembles::MatrixSpec s;
+freegap::declarations::MatrixSpec declared(const std::string& name, freegap::declarations::Kind kind) {
+  freegap::declarations::MatrixSpec s;
   s.name = name;
   s.kind = kind;
   return s;
@@ -382,7 +382,7 @@ freegap::ensembles::MatrixSpec declared(const std::string& name, freegap::ensemb
 // 1, 3, 12, 55 (ref §1.6); U1 + U1^* + U2 + U2^*: Kesten–McKay d = 2, 4, 28, 232 (Kesten
 // 1959, McKay 1981, from memory; ref §1.4).
 TEST(LimitMomentsOfExpressions, FromExpressionText) {
-  using freegap::ensembles::Kind;
+  using freegap::declarations::Kind;
   auto even = [](const std::vector<fa::ExactValue>& m) {
     std::vector<std::string> out;
     for (std::size_t k = 2; k < m.size(); k += 2) out.push_back(m[k].text);

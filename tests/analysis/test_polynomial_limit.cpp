@@ -26,7 +26,7 @@ namespace {
 
 freegap::expr::Expression expression(const std::string& text,
                                      const std::vector<std::string>& declarations) {
-  std::vector<freegap::ensembles::MatrixSpec> specs;
+  std::vector<freegap::declarations::MatrixSpec> specs;
   for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
   return freegap::expr::Expression(text, specs);
 }

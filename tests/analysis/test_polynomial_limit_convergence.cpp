@@ -94,7 +94,7 @@ void expect_convergence(const std::vector<SizeResult>& r, const fa::PolynomialLa
 TEST(PolynomialLimitEndToEnd, AnticommutatorOfGUEMatrices) {
   const std::vector<std::string> declarations = {"X1=gue", "X2=gue"};
   const std::string text = "X1 X2 + X2 X1";
-  std::vector<freegap::ensembles::MatrixSpec> specs;
+  std::vector<freegap::declarations::MatrixSpec> specs;
   for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
   fa::PolynomialLimitOptions options;
   options.exact_moment_order = 0;
@@ -105,7 +105,7 @@ TEST(PolynomialLimitEndToEnd, AnticommutatorOfGUEMatrices) {
 TEST(PolynomialLimitEndToEnd, GUESandwichOfASignMatrixPlusIt) {
   const std::vector<std::string> declarations = {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"};
   const std::string text = "X1 B X1 + B";
-  std::vector<freegap::ensembles::MatrixSpec> specs;
+  std::vector<freegap::declarations::MatrixSpec> specs;
   for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
   fa::PolynomialLimitOptions options;
   options.exact_moment_order = 0;

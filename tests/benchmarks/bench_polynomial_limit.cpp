@@ -32,7 +32,7 @@ const Model kModels[] = {
 };
 
 std::shared_ptr<const fa::PolynomialLaw> build(const Model& m) {
-  std::vector<freegap::ensembles::MatrixSpec> specs;
+  std::vector<freegap::declarations::MatrixSpec> specs;
   for (const auto& d : m.declarations) specs.push_back(freegap::model::parse_declaration(d));
   fa::PolynomialLimitOptions options;
   options.exact_moment_order = 0;  // the exact engine is timed elsewhere

@@ -44,7 +44,7 @@
 #include <unordered_map>
 #include <vector>
 
-#include "freegap/ensembles.hpp"
+#include "freegap/declarations.hpp"
 #include "freegap/expr.hpp"
 
 namespace freegap::analysis {
@@ -203,7 +203,7 @@ class FreeVariable {
 /// Collins & Śniady 2006, from memory); diagonal → its law (atoms, uniform, semicircle, MP).
 /// Ratios and atoms are read with Rational::from_double. Throws InputError for rectangular
 /// Ginibre and for diagonal laws read from a file (no exact moments).
-FreeVariable free_variable_for(const ensembles::MatrixSpec& spec);
+FreeVariable free_variable_for(const declarations::MatrixSpec& spec);
 
 /// One letter of a word: variable index and whether it is the adjoint.
 struct Letter {
