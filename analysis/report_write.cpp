@@ -1,5 +1,4 @@
 // Writing a report directory: CSV tables, the HDF5 copy of the tables, the figures, all or nothing.
-#include <hdf5.h>
 #include <spawn.h>
 #include <sys/wait.h>
 
@@ -13,6 +12,7 @@
 #include "freegap/install_paths.hpp"
 #include "freegap/output_dir.hpp"
 #include "freegap/stop.hpp"
+#include "freegap/store.hpp"
 #include "freegap/version.hpp"
 
 extern char** environ;
@@ -30,57 +30,36 @@ void write_text(const fs::path& path, const std::string& text) {
   if (!out) throw Error("report: cannot write '" + path.string() + "': " + std::strerror(errno));
 }
 
-// Every table as /tables/<name>/<column>: a float64 dataset for numeric columns, a
-// variable-length UTF-8 string dataset for text columns; attributes say what wrote the file.
+// The HDF5 copy of the tables, through the store: /tables/<name>/<column>, numbers as float64,
+// text as UTF-8 strings; the attributes say what wrote the file.
 void write_hdf5(const fs::path& path, const std::vector<Table>& tables) {
-  H5Eset_auto2(H5E_DEFAULT, nullptr, nullptr);
-  const hid_t file = H5Fcreate(path.c_str(), H5F_ACC_EXCL, H5P_DEFAULT, H5P_DEFAULT);
-  if (file < 0) throw Error("report: cannot create '" + path.string() + "'");
-  bool ok = true;
-  const hid_t str = H5Tcopy(H5T_C_S1);
-  H5Tset_size(str, H5T_VARIABLE);
-  H5Tset_cset(str, H5T_CSET_UTF8);
-  const auto attribute = [&](hid_t where, const char* name, const std::string& value) {
-    const hid_t space = H5Screate(H5S_SCALAR);
-    const hid_t a = H5Acreate2(where, name, str, space, H5P_DEFAULT, H5P_DEFAULT);
-    const char* p = value.c_str();
-    ok &= a >= 0 && H5Awrite(a, str, &p) >= 0;
-    H5Aclose(a);
-    H5Sclose(space);
-  };
-  attribute(file, "kind", "freegap report");
-  attribute(file, "tool_version", tool_version);
-  attribute(file, "git_revision", git_revision);
-  const hid_t group = H5Gcreate2(file, "tables", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-  ok &= group >= 0;
+  std::vector<store::TableData> data;
   for (const Table& t : tables) {
-    const hid_t g = H5Gcreate2(group, t.name.c_str(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-    ok &= g >= 0;
-    const hsize_t rows = t.rows.size();
+    store::TableData d{t.name, {}};
     for (std::size_t c = 0; c < t.columns.size(); ++c) {
-      const bool text = !t.rows.empty() && std::holds_alternative<std::string>(t.rows.front()[c]);
-      const hid_t space = H5Screate_simple(1, &rows, nullptr);
-      const hid_t type = text ? str : H5T_IEEE_F64LE;
-      const hid_t d = H5Dcreate2(g, t.columns[c].c_str(), type, space, H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
-      ok &= d >= 0;
-      if (text) {
-        std::vector<const char*> values;
-        for (const auto& row : t.rows) values.push_back(std::get<std::string>(row[c]).c_str());
-        if (rows > 0) ok &= H5Dwrite(d, str, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()) >= 0;
-      } else {
-        std::vector<double> values;
-        for (const auto& row : t.rows) values.push_back(std::get<double>(row[c]));
-        if (rows > 0) ok &= H5Dwrite(d, H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()) >= 0;
+      store::TableColumn column;
+      column.name = t.columns[c];
+      column.text = !t.rows.empty() && std::holds_alternative<std::string>(t.rows.front()[c]);
+      for (const auto& row : t.rows) {
+        if (column.text) {
+          column.texts.push_back(std::get<std::string>(row[c]));
+        } else {
+          column.numbers.push_back(std::get<double>(row[c]));
+        }
       }
-      H5Dclose(d);
-      H5Sclose(space);
+      d.columns.push_back(std::move(column));
     }
-    H5Gclose(g);
+    data.push_back(std::move(d));
   }
-  H5Gclose(group);
-  H5Tclose(str);
-  ok &= H5Fclose(file) >= 0;
-  if (!ok) throw Error("report: writing '" + path.string() + "' failed");
+  try {
+    store::write_tables(path.string(),
+                        {{"kind", "freegap report"},
+                         {"tool_version", tool_version},
+                         {"git_revision", git_revision}},
+                        data);
+  } catch (const Error& e) {
+    throw Error(std::string("report: ") + e.what());
+  }
 }
 
 // Runs argv, waits; returns its exit status, or throws when it cannot start.

@@ -13,6 +13,7 @@
 #include <map>
 #include <memory>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "freegap/observe.hpp"
@@ -249,6 +250,28 @@ Integrity verify(const std::string& path, bool resume = false);
 /// that no other process holds open. A directory, a foreign HDF5 file or any other file is
 /// refused.
 void check_replaceable(const std::string& path);
+
+/// One column of a table in an HDF5 file of tables: float64 numbers, or UTF-8 text.
+struct TableColumn {
+  std::string name;
+  bool text = false;
+  std::vector<double> numbers;     ///< when !text
+  std::vector<std::string> texts;  ///< when text
+};
+
+/// A named table of equally long columns.
+struct TableData {
+  std::string name;
+  std::vector<TableColumn> columns;
+};
+
+/// Creates the HDF5 file `path` (refused when it exists) holding the string `attributes` on its
+/// root, in the order given, and every table as the datasets /tables/<table>/<column>. The
+/// report's copy of its tables goes through here, so that only this part writes HDF5. Throws
+/// Error ("cannot create '<path>'" or "writing '<path>' failed").
+void write_tables(const std::string& path,
+                  const std::vector<std::pair<std::string, std::string>>& attributes,
+                  const std::vector<TableData>& tables);
 
 /// "eigenvalues" or "singular_values", as stored in the file.
 std::string spectrum_name(observe::SpectrumKind kind);
