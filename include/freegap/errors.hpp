@@ -24,4 +24,12 @@ class NumericalError : public Error {
   using Error::Error;
 };
 
+/// Exit statuses of every freegap command, defined here once (the README lists them): main
+/// returns them, and `run` hands its status back to main through run_job.
+inline constexpr int kExitFinished = 0;
+inline constexpr int kExitFailure = 1;    ///< an unexpected error (I/O, MPI)
+inline constexpr int kExitBadInput = 2;   ///< job file, command line, expression or run file refused
+inline constexpr int kExitResumable = 3;  ///< stopped by a signal or a deadline; run again to resume
+inline constexpr int kExitDamaged = 4;    ///< `inspect --verify` found damaged units (the rest is usable)
+
 }  // namespace freegap

@@ -217,6 +217,10 @@ std::int64_t free_bytes_for(const std::string& path);
 /// "521.6 GiB": bytes in binary units with one decimal, as plan and run print them.
 std::string human_bytes(double bytes);
 
+/// This node's available memory (MemAvailable in /proc/meminfo), 0 when unknown. The planner's
+/// and the runner's per-rank budgets both start from it.
+std::size_t available_memory_bytes();
+
 /// The whole estimate; measures (and stores) the cost if the calibration file lacks it. Progress
 /// notes (e.g. "measuring…") go to `log`.
 Estimate estimate(const job::Job& job, const Options& options, std::ostream& log);

@@ -24,16 +24,13 @@
 #include <iosfwd>
 #include <string>
 
+#include "freegap/errors.hpp"
 #include "freegap/job.hpp"
 #include "freegap/model.hpp"
 
 namespace freegap::run {
 
-/// Exit statuses of `freegap run` (also documented in the README).
-inline constexpr int kExitFinished = 0;
-inline constexpr int kExitFailure = 1;    ///< an unexpected error (I/O, MPI)
-inline constexpr int kExitBadInput = 2;   ///< job file, command line or run file refused
-inline constexpr int kExitResumable = 3;  ///< stopped by a signal or a deadline; run again to resume
+// Exit statuses: freegap::kExit* (errors.hpp), returned by run_job.
 
 struct RunOptions {
   std::string output;     ///< run file; empty: the job's output

@@ -23,11 +23,9 @@
 
 namespace {
 
-// Exit statuses (documented in the README).
-constexpr int kExitBadInput = 2;
-constexpr int kExitFailure = 1;
-// `inspect --verify` found damaged units (the rest of the file is usable).
-constexpr int kExitDamaged = 4;
+using freegap::kExitBadInput;
+using freegap::kExitDamaged;
+using freegap::kExitFailure;
 
 // What the checks found: whether the file has checksums, and each damaged unit, left out.
 void print_integrity(const freegap::store::Integrity& integrity) {

@@ -60,16 +60,6 @@ std::string utc_now() {
   return buf;
 }
 
-std::size_t available_memory_bytes() {
-  std::ifstream in("/proc/meminfo");
-  std::string key, unit;
-  std::size_t value = 0;
-  while (in >> key >> value >> unit) {
-    if (key == "MemAvailable:") return value * 1024;
-  }
-  return 0;
-}
-
 int online_cores() {
   const long n = sysconf(_SC_NPROCESSORS_ONLN);
   return n > 0 ? static_cast<int>(n) : 1;
@@ -83,6 +73,17 @@ constexpr std::uint64_t kTimingTrialBase = 4000000000ULL;
 constexpr const char* kCalibrationHeader = "# freegap plan:";
 
 }  // namespace
+
+// MemAvailable from /proc/meminfo (Linux), 0 if unknown.
+std::size_t available_memory_bytes() {
+  std::ifstream in("/proc/meminfo");
+  std::string key, unit;
+  std::size_t value = 0;
+  while (in >> key >> value >> unit) {
+    if (key == "MemAvailable:") return value * 1024;
+  }
+  return 0;
+}
 
 std::string human_bytes(double b) {
   const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB", "PiB"};

@@ -231,17 +231,7 @@ struct Unit {
   double cost = 0.0;
 };
 
-std::string human_bytes(double b) {
-  const char* units[] = {"B", "KiB", "MiB", "GiB", "TiB"};
-  int i = 0;
-  while (b >= 1024.0 && i < 4) {
-    b /= 1024.0;
-    ++i;
-  }
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.1f %s", b, units[i]);
-  return buf;
-}
+using plan::human_bytes;
 
 std::string human_seconds(double s) {
   char buf[32];
@@ -256,17 +246,7 @@ std::string human_seconds(double s) {
   return buf;
 }
 
-// MemAvailable from /proc/meminfo (Linux), 0 if unknown.
-std::size_t available_memory_bytes() {
-  std::ifstream in("/proc/meminfo");
-  std::string key;
-  std::size_t value = 0;
-  std::string unit;
-  while (in >> key >> value >> unit) {
-    if (key == "MemAvailable:") return value * 1024;
-  }
-  return 0;
-}
+using plan::available_memory_bytes;
 
 // How many ranks share this node (for the default per-rank memory budget).
 int ranks_on_this_node(MPI_Comm comm) {
