@@ -34,15 +34,8 @@ constexpr std::array<KindName, 12> kind_names{{
     {Kind::beta_laguerre, "beta_laguerre"},
 }};
 
-std::string num(double x) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, "%.12g", x);
-  return buf;
-}
-
-[[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) {
-  throw InputError("matrix '" + spec.name + "': " + what);
-}
+std::string num(double x) { return number_text(x); }
+[[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) { refuse(spec, what); }
 
 // A word of a file the job names, as a message may quote it: the file may be anyone's (a job
 // can name any readable file), so at most kQuotedChars printable ASCII characters, every other
@@ -91,6 +84,16 @@ std::vector<double> read_number_file(const MatrixSpec& spec) {
 }
 
 }  // namespace
+
+std::string number_text(double x) {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, "%.12g", x);
+  return buf;
+}
+
+void refuse(const MatrixSpec& spec, const std::string& what) {
+  throw InputError("matrix '" + spec.name + "': " + what);
+}
 
 bool uses_ratio(Kind k) {
 

@@ -19,14 +19,9 @@ namespace {
 
 constexpr double pi = 3.14159265358979323846;
 
-std::string num(double x) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, "%.12g", x);
-  return buf;
-}
-
+std::string num(double x) { return declarations::number_text(x); }
 [[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) {
-  throw InputError("matrix '" + spec.name + "': " + what);
+  declarations::refuse(spec, what);
 }
 
 // ---- quantiles of the continuous laws -------------------------------------------------------

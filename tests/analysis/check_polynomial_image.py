@@ -97,6 +97,17 @@ def reference(coefficients, y, lo, hi, density, continuous_cdf):
     return f, total
 
 
+def worst_errors(rows, expected):
+    """Largest density error (relative to max(1, f)) and CDF error of `limit`'s rows against
+    expected(x) = (density, cdf)."""
+    worst_f = worst_cdf = 0.0
+    for x, f, F in rows:
+        g, G = expected(x)
+        worst_f = max(worst_f, abs(f - g) / max(1.0, g))
+        worst_cdf = max(worst_cdf, abs(F - G))
+    return worst_f, worst_cdf
+
+
 def limit_table(workdir, tag, declarations, expression, window, points):
     out = os.path.join(workdir, tag)
     args = ["limit", "-e", expression, "-o", out, "--window", "%r,%r" % window, "--points", str(points)]
@@ -126,11 +137,8 @@ with rh.WorkDir("polyimage") as work:
     check(re.search(r"^support: \[-4\.0000000000, 4\.0000000000\]$", stdout, re.M) is not None,
           "X^3 - 2 X: the support is p([−2, 2]) = [−4, 4]", stdout)
     moments_agree(stdout, "X^3 - 2 X")
-    worst_f = worst_cdf = 0.0
-    for x, f, F in rows:
-        g, G = reference(cubic, x, -2.0, 2.0, semicircle_density, semicircle_cdf)
-        worst_f = max(worst_f, abs(f - g) / max(1.0, g))
-        worst_cdf = max(worst_cdf, abs(F - G))
+    worst_f, worst_cdf = worst_errors(rows, lambda x: reference(cubic, x, -2.0, 2.0, semicircle_density,
+                                                                 semicircle_cdf))
     check(len(rows) == 841 and worst_f <= 1e-9,
           "X^3 - 2 X: density equals the change of variables over numpy's roots to 1e-9 (worst %.2e)" % worst_f)
     check(len(rows) == 841 and worst_cdf <= 1e-10,
@@ -153,12 +161,11 @@ with rh.WorkDir("polyimage") as work:
     check(re.search(r"^point mass: 0\.500000 at x = 0$", stdout, re.M) is not None,
           "W W - W: the atom ½ of MP(2) at 0 stays at p(0) = 0", stdout)
     moments_agree(stdout, "W W - W")
-    worst_f = worst_cdf = 0.0
-    for x, f, F in rows:
+    def with_atom(x):
         g, G = reference(quadratic, x, MP_A, MP_B, mp_density, mp_continuous_cdf)
-        G += 0.5 if x >= 0.0 else 0.0
-        worst_f = max(worst_f, abs(f - g) / max(1.0, g))
-        worst_cdf = max(worst_cdf, abs(F - G))
+        return g, G + (0.5 if x >= 0.0 else 0.0)
+
+    worst_f, worst_cdf = worst_errors(rows, with_atom)
     check(len(rows) == 600 and worst_f <= 1e-9,
           "W W - W: density equals the change of variables over numpy's roots to 1e-9 (worst %.2e)" % worst_f)
     check(len(rows) == 600 and worst_cdf <= 1e-10,
