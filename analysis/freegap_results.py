@@ -3,7 +3,7 @@
 Needs only numpy and h5py (Debian: python3-numpy, python3-h5py); nothing to build. Installed with
 freegap under ``<prefix>/share/freegap/python`` (the environment module puts that folder on
 ``PYTHONPATH``). The formats themselves are documented for readers in any language in
-``src/store/SCHEMA.md`` (run file) and ``docs/install.md`` (this module).
+``docs/run-file.md`` (run file) and ``docs/install.md`` (this module).
 
 Example::
 
@@ -27,7 +27,7 @@ import numpy as np
 
 __all__ = ["RunFile", "Size", "open_run", "read_report_tables", "FORMAT_MAJOR"]
 
-FORMAT_MAJOR = 1  # the run-file major version this module reads (SCHEMA.md)
+FORMAT_MAJOR = 1  # the run-file major version this module reads (docs/run-file.md)
 RUN_FILE_KIND = "freegap run"
 REPORT_FILE_KIND = "freegap report"
 

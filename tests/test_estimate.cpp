@@ -1,5 +1,5 @@
 // Estimators: the [[estimator]] job tables, the plug-in ABI through the forked helper, the command
-// bridge and its text format, the built-ins, and every documented failure (src/estimate/PLUGINS.md).
+// bridge and its text format, the built-ins, and every documented failure (docs/plugins.md).
 #include <fcntl.h>
 #include <gtest/gtest.h>
 #include <unistd.h>

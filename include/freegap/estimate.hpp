@@ -2,7 +2,7 @@
 // include/freegap/estimator_abi.h) and external commands, each called on every trial's spectrum
 // (plug-ins that ask for it: and its matrix) and returning named scalar estimates. A failure of
 // one estimator on one trial — a crash, a hang past its timeout, a NaN, a wrong count, malformed
-// output — is that trial's recorded failure, never the run's (src/estimate/PLUGINS.md).
+// output — is that trial's recorded failure, never the run's (docs/plugins.md).
 //
 // Containment: a plug-in library is loaded, described and run only in a helper process, the
 // program freegap-plugin-host that the rank starts per library estimator (again after a
@@ -157,7 +157,7 @@ std::vector<BuiltinInfo> builtins();
 std::pair<double, double> population_second_moment(std::span<const double> eigenvalues,
                                                    std::int64_t m, bool real_entries);
 
-// ---- the command bridge's text format (src/estimate/PLUGINS.md) --------------------------------
+// ---- the command bridge's text format (docs/plugins.md) --------------------------------
 
 /// The text a command reads on standard input for one trial.
 std::string command_input(const TrialInput& input,

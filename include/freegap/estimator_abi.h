@@ -20,7 +20,7 @@
  *       (capacity is the declared count; k must equal it). On failure returns a negative number
  *       and may write a short NUL-terminated reason into message (at most message_size bytes).
  *
- * Rules (enforced by freegap; see src/estimate/PLUGINS.md):
+ * Rules (enforced by freegap; see docs/plugins.md):
  *   - abi_version must be one this freegap loads, FREEGAP_ESTIMATOR_ABI_OLDEST to
  *     FREEGAP_ESTIMATOR_ABI_VERSION, else the job is refused. A plug-in built against an older
  *     version keeps working: freegap reads only the fields its version has, and passes a

@@ -26,7 +26,7 @@
 //                                           # stay within kKeptSpectraBudget bytes
 //   spectrum = "auto"                       # or "singular_values"
 //
-//   [[estimator]]                           # optional, any number (src/estimate/PLUGINS.md)
+//   [[estimator]]                           # optional, any number (docs/plugins.md)
 //   name = "second"                         # required, unique identifier
 //   builtin = "population_second_moment"    # exactly one of builtin, library, command
 //   library = "libmine.so"                  #   (relative to the job file)

@@ -5,7 +5,7 @@
 // file that opens and resumes: a resume trusts only committed units. Every unit's rows sit at
 // fixed positions (trial index), so the file's content outside /provenance does not depend on
 // how many ranks ran, in what order units finished or how often the run was resumed.
-// The layout is documented in src/store/SCHEMA.md. Only this part knows HDF5 exists.
+// The layout is documented in docs/run-file.md. Only this part knows HDF5 exists.
 #pragma once
 
 #include <cstddef>
@@ -25,7 +25,7 @@ inline constexpr const char* kFileKind = "freegap run";
 /// Format version [major, minor]. A reader refuses another major version; a minor version only
 /// adds things an older reader may ignore.
 inline constexpr int kFormatMajor = 1;
-/// The minor version written: 1.1 added the estimates, 1.2 the checksums (SCHEMA.md). Files of
+/// The minor version written: 1.1 added the estimates, 1.2 the checksums (docs/run-file.md). Files of
 /// 1.0 and 1.1 stay readable and resumable; they are reported as unverified.
 inline constexpr int kFormatMinor = 2;
 

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""An estimator for freegap's command bridge (src/estimate/PLUGINS.md), in plain Python.
+"""An estimator for freegap's command bridge (docs/plugins.md), in plain Python.
 
 Reads one trial (the eigenvalues of a sample covariance S) on standard input and writes the
 moment estimate of the population's second moment, sigma2_hat = m2 - c*m1^2 with

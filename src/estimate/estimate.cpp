@@ -299,7 +299,7 @@ struct HostProcess {
 }  // namespace
 
 // The log beside the run file that plug-ins' standard output and error go to
-// (src/estimate/PLUGINS.md): appended by every rank, created at the first line, bounded.
+// (docs/plugins.md): appended by every rank, created at the first line, bounded.
 class PluginLog {
  public:
   // Output before the log has a place (the plug-ins' loading and describe, before the run file

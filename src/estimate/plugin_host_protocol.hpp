@@ -11,7 +11,7 @@ namespace freegap::estimate::host {
 /// "FGH" and the protocol's revision in the low byte.
 constexpr std::uint32_t kHostMagic = 0x46474801u;
 
-/// The program's file name, looked for beside the running executable (src/estimate/PLUGINS.md).
+/// The program's file name, looked for beside the running executable (docs/plugins.md).
 constexpr const char* kHostProgram = "freegap-plugin-host";
 
 /// The host's command line: kHostProgram LIBRARY PARENT_PID [KEY VALUE]... (the estimator's

@@ -710,7 +710,7 @@ double simulate_wall(std::vector<double> unit_seconds, int ranks) {
 }
 
 std::size_t output_bytes(const job::Job& job, std::size_t i) {
-  // SCHEMA.md: per trial a row of K+1 moments, min, max, norm (float64), failed (int8) and a
+  // docs/run-file.md: per trial a row of K+1 moments, min, max, norm (float64), failed (int8) and a
   // variable-length failure reason (a 16-byte heap reference); per unit a histogram row of b
   // counts, below, above, the commit marker and a provenance record (~120 bytes with its
   // strings); per kept spectrum N float64 and its length. Every chunk costs HDF5 an index entry

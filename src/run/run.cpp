@@ -763,7 +763,7 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
 
   // Rank 0 computes too — taking units from the same queue and coordinating between its trials —
   // as long as there are few ranks; with many, answering promptly matters more than its share of
-  // the work (src/run/SCALING.md).
+  // the work (docs/scaling.md).
   const bool rank0_computes = ranks <= kRankZeroComputesUpTo;
   // What rank 0 spends besides its units' own work (coordinating between its trials, writing),
   // the most of any of its units so far: its next unit takes that long on top of the prediction.

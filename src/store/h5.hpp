@@ -87,7 +87,7 @@ struct Shape {
   std::vector<hsize_t> max_dims;  ///< empty: same as dims
   std::vector<hsize_t> chunk;     ///< empty: contiguous
   /// Allocate (and fill) every chunk when the dataset is created, so later writes change only
-  /// raw data, never the chunk index (see SCHEMA.md, "Why the file survives a kill").
+  /// raw data, never the chunk index (see docs/run-file.md, "Why the file survives a kill").
   bool allocate_now = false;
   /// Store a Fletcher-32 checksum with every chunk (chunked datasets only): a read of a chunk
   /// whose bytes changed fails instead of returning them.

@@ -1,4 +1,4 @@
-// The run file: create, resume, stream committed units, read back. Layout: src/store/SCHEMA.md.
+// The run file: create, resume, stream committed units, read back. Layout: docs/run-file.md.
 #include <fcntl.h>
 #include <sys/resource.h>
 #include <sys/stat.h>
@@ -418,7 +418,7 @@ Id packed(hid_t type, Where where) {
 
 // Reads every row of a 1-D compound dataset and hands each to `convert` (or its index to
 // `unreadable`) before HDF5's strings are freed. The provenance tables grow by metadata
-// changes, which a kill can tear (SCHEMA.md): a row whose strings cannot be read is reported
+// changes, which a kill can tear (docs/run-file.md): a row whose strings cannot be read is reported
 // instead of making the whole table, and with it every resume, fail.
 template <typename Row, typename Convert, typename Unreadable>
 void read_all_rows(hid_t dataset, hid_t type, Where where, const std::string& what, Convert convert,
@@ -914,7 +914,7 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
       const bool filtered =
           filters == 1 && H5Pget_filter2(create.get(), 0, &flags, &count, nullptr, 0, nullptr,
                                          nullptr) == H5Z_FILTER_FLETCHER32;
-      // Variable-length strings cannot be filtered (SCHEMA.md).
+      // Variable-length strings cannot be filtered (docs/run-file.md).
       if (type < 0 ? filters != 0 : !filtered) {
         throw Error("dataset '" + path + "' has the wrong filters");
       }
@@ -1645,7 +1645,7 @@ void RunFile::begin_session(int ranks, const std::vector<std::string>& hosts) {
     }
   }
   // Rows of earlier sessions are never rewritten: one a kill tore may point at file space that
-  // HDF5 has since given to another object (SCHEMA.md), so writing it could damage that object.
+  // HDF5 has since given to another object (docs/run-file.md), so writing it could damage that object.
   // Whether an earlier session was killed is decided when reading instead.
   const hsize_t row = h5::extent(f.sessions.get(), f.where())[0];
   f.current = SessionRecord{

@@ -1,4 +1,4 @@
-// Cost of the run file's checksums (SCHEMA.md, "Checksums"): the SHA-256 of a unit's content,
+// Cost of the run file's checksums (docs/run-file.md, "Checksums"): the SHA-256 of a unit's content,
 // per byte, and the commit of one unit at N = 200 with everything it hashes and checks. The
 // comparison with a run's time is in RESULTS-integrity.md.
 #include <benchmark/benchmark.h>

@@ -1,5 +1,5 @@
 // Cost of committing one work unit to the run file (data, flush, commit marker, flush): the
-// number behind the rank-0-as-only-writer estimate in src/run/SCALING.md.
+// number behind the rank-0-as-only-writer estimate in docs/scaling.md.
 #include <benchmark/benchmark.h>
 
 #include <filesystem>

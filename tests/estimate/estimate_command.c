@@ -1,4 +1,4 @@
-/* A test command for the estimator bridge (src/estimate/PLUGINS.md): reads a trial on standard
+/* A test command for the estimator bridge (docs/plugins.md): reads a trial on standard
  * input, writes "top X" and "mean_square Y" on standard output — the same estimates as plugin.c.
  * argv[1] selects a behaviour: ok, sleep (30 s on trials ≡ 1 mod 3), nan, garbage, fail (exit 3
  * with a message on standard error), missing (leaves out mean_square). Other trials behave. */

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Damaged run files never crash, hang or pass off changed numbers (SCHEMA.md, "Checksums").
+"""Damaged run files never crash, hang or pass off changed numbers (docs/run-file.md, "Checksums").
 
 Usage: check_damaged_run_files.py BUILD_DIR [COPIES]
 

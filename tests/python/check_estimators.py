@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Estimators ride along with a run (src/estimate/PLUGINS.md).
+"""Estimators ride along with a run (docs/plugins.md).
 
 Usage: check_estimators.py BUILD_DIR
 

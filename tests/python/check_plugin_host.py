@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""A plug-in library is loaded, described and run only in its helper process (src/estimate/PLUGINS.md).
+"""A plug-in library is loaded, described and run only in its helper process (docs/plugins.md).
 
 Usage: check_plugin_host.py BUILD_DIR
 

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Reads run files made by freegap with Debian's h5py, by the names src/store/SCHEMA.md documents.
+"""Reads run files made by freegap with Debian's h5py, by the names docs/run-file.md documents.
 
 Usage: check_run_file.py BUILD_DIR
 
@@ -13,7 +13,7 @@ Exit status 0 when every check passes.
 import os
 
 # Must be set before h5py loads HDF5: the library reads it once. It lets this process read the
-# live file of check 2 (SCHEMA.md, "Reading a file while it is written").
+# live file of check 2 (docs/run-file.md, "Reading a file while it is written").
 os.environ["HDF5_USE_FILE_LOCKING"] = "FALSE"
 
 import subprocess  # noqa: E402
@@ -56,7 +56,7 @@ def fails_without_spectrum(t):
 
 
 def unit_sha256(g, u, B, T, keep):
-    """SHA-256 of unit u's content, built from SCHEMA.md ("Checksums") alone."""
+    """SHA-256 of unit u's content, built from docs/run-file.md ("Checksums") alone."""
     begin, end = u * B, min((u + 1) * B, T)
     out = bytearray()
 
@@ -112,7 +112,7 @@ def check_size(f, index, size, units_expected_committed):
     for name, shape in shapes.items():
         check(name in g and g[name].shape == shape,
               "%s/%s has shape %s" % (where, name, g[name].shape if name in g else None))
-    # Chunks never straddle two units (SCHEMA.md, "Why the file survives a kill").
+    # Chunks never straddle two units (docs/run-file.md, "Why the file survives a kill").
     check(g["moments"].chunks == (min(B, T), K + 1), "%s/moments chunks" % where)
     check(g["unit_histograms"].chunks == (1, b), "%s/unit_histograms chunks" % where)
     # Format 1.2: Fletcher-32 on every chunked dataset except the variable-length strings (and
@@ -133,7 +133,7 @@ def check_size(f, index, size, units_expected_committed):
     trials = min(done * B, T)  # committed units are a prefix here (written in order)
     for u in range(done):
         check(bytes(g["unit_sha256"][u]) == unit_sha256(g, u, B, T, size["keep"]),
-              "%s unit %d: unit_sha256 is the SHA-256 SCHEMA.md describes" % (where, u))
+              "%s unit %d: unit_sha256 is the SHA-256 docs/run-file.md describes" % (where, u))
 
     moments = g["moments"][:trials]
     mins, maxs, norms = g["min"][:trials], g["max"][:trials], g["norm"][:trials]

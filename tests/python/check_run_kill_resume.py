@@ -10,11 +10,11 @@ Usage: check_run_kill_resume.py BUILD_DIR
    3 under mpirun -np 2 — and SIGKILLs its whole process group at the delay. Then:
    - if the run file exists, `freegap inspect` opens it (and says "incomplete" when units are
      missing); if it does not, no temporary file of the store is left in the directory (except
-     the one SCHEMA.md documents for a kill during creation: the name of a killed process);
+     the one docs/run-file.md documents for a kill during creation: the name of a killed process);
    - the same command resumes it: exit 0, and the file equals the reference outside
      /provenance (h5diff);
    - /provenance/sessions keeps the killed session's row "running" with the resume's row
-     ("finished") after it, which SCHEMA.md defines as killed, and `freegap inspect` reports
+     ("finished") after it, which docs/run-file.md defines as killed, and `freegap inspect` reports
      that session as "killed".
 3. At least 3 kill points must have hit mid-run (the file existed and was incomplete). When the
    machine is so loaded that fewer did, up to 5 extra points (same RNG, middle of the run) are
@@ -123,7 +123,7 @@ def main():
                             "%s: inspect says incomplete" % label, p.stdout)
                     mid_run += 1
             else:
-                # SCHEMA.md: "only a kill during creation can leave one behind (the final path
+                # docs/run-file.md: "only a kill during creation can leave one behind (the final path
                 # then does not exist, and the next run creates anew)". The creation window is
                 # a few ms, so a kill point can land in it; such a leftover must be the
                 # documented temporary name of a process we killed, and the resume below must
@@ -146,7 +146,7 @@ def main():
             statuses = [s["status"] for s in rows]
             c.equal(statuses[-1:], ["finished"], "%s: last session is finished" % label)
             c.equal(rows[-1]["ranks"] if rows else None, ranks or 1, "%s: the resuming session records %d rank(s)" % (label, ranks or 1))
-            # SCHEMA.md: a killed session leaves its row "running"; "a running row followed by
+            # docs/run-file.md: a killed session leaves its row "running"; "a running row followed by
             # a later row was killed", and freegap (inspect) reports it as "killed".
             p = rh.run([exe, "inspect", out], d)
             shown = rh.inspect_sessions(p.stdout)

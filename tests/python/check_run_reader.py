@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""A run file can be read while `freegap run` writes it (SCHEMA.md, "Reading a file while it is written").
+"""A run file can be read while `freegap run` writes it (docs/run-file.md, "Reading a file while it is written").
 
 Usage: check_run_reader.py BUILD_DIR
 
@@ -62,7 +62,7 @@ def read_live(c, path):
     seen = {}
     with h5py.File(path, "r") as f:
         c.equal(f.attrs["file_kind"], "freegap run", "root file_kind")
-        c.equal(list(f.attrs["format_version"]), [1, 2], "root format_version [1, 2] (SCHEMA.md)")
+        c.equal(list(f.attrs["format_version"]), [1, 2], "root format_version [1, 2] (docs/run-file.md)")
         for name in ("tool_version", "git_revision", "job_text", "job_canonical"):
             c.check(isinstance(f.attrs[name], str) and f.attrs[name] != "", "root %s is a non-empty string" % name)
         c.check(re.fullmatch(r"[0-9a-f]{64}", f.attrs["job_hash"]) is not None, "root job_hash is 64 hex digits")
@@ -145,7 +145,7 @@ def attempt(c, exe, d, trials):
         os.kill(proc.pid, signal.SIGCONT)
         rh.reap(proc)
         return None
-    # SCHEMA.md: a reader of a live file sees it "as of some earlier flush; that is consistent
+    # docs/run-file.md: a reader of a live file sees it "as of some earlier flush; that is consistent
     # for committed units but not guaranteed in general". An HDF5 error from a read that raced a
     # flush is therefore retried (and printed); the checks themselves are never retried.
     seen = None

@@ -2,7 +2,7 @@
 
 Not a test itself (CTest runs only check_*.py). Importing it sets the MPI and OpenBLAS
 environment the runner's tests need and disables HDF5 file locking *in this Python process
-only* (so h5py can read a file a live run is writing, SCHEMA.md "Reading a file while it is
+only* (so h5py can read a file a live run is writing, docs/run-file.md "Reading a file while it is
 written"); child processes get the default locking unless a test asks otherwise.
 """
 import os
@@ -202,7 +202,7 @@ def committed_state(path):
 
 
 def sessions(path):
-    """Rows of /provenance/sessions as dicts of str/int, read row by row as SCHEMA.md advises.
+    """Rows of /provenance/sessions as dicts of str/int, read row by row as docs/run-file.md advises.
 
     A row a kill tore (unreadable) comes back as {"status": None}.
     """
@@ -233,7 +233,7 @@ def inspect_sessions(text):
 
 
 def temp_files(directory, name):
-    """Leftover temporary files of RunFile::create for run file `name` (SCHEMA.md)."""
+    """Leftover temporary files of RunFile::create for run file `name` (docs/run-file.md)."""
     pattern = re.compile(r"^\." + re.escape(name) + r"\.creating\.\d+\.\d+$")
     return sorted(n for n in os.listdir(directory) if pattern.match(n))
 
