@@ -104,6 +104,7 @@ class Pushforward final : public Law {
         if (r > cuts.back() + 1e-15 * scale && r < band.hi - 1e-15 * scale) cuts.push_back(r);
       }
       cuts.push_back(band.hi);
+      for (std::size_t i = 1; i + 1 < cuts.size(); ++i) critical_values_.push_back(evaluate(c_, cuts[i]));
       for (std::size_t i = 0; i + 1 < cuts.size(); ++i) {
         Segment s;
         s.a = cuts[i];
@@ -142,12 +143,18 @@ class Pushforward final : public Law {
     for (const Atom& a : support_.atoms) cover(a.value, a.value);
   }
 
+  // At a critical value p(c) (p′(c) = 0 inside a band of X) the density is infinite; there, and
+  // within rounding of it, the mean of the values δ to either side is reported (large and finite,
+  // as the subordination laws report a singular point), so the value does not depend on which
+  // side of p(c) a rounded y falls.
   double density(double y) const override {
+    const double scale = std::max(1.0, support_.hi - support_.lo);
+    const double delta = 1e-12 * scale;
+    for (const double v : critical_values_) {
+      if (std::abs(y - v) <= 1e-14 * scale) return 0.5 * (raw_density(v - delta) + raw_density(v + delta));
+    }
     const double f = raw_density(y);
     if (std::isfinite(f)) return f;
-    // y is a critical value hit exactly (p′ = 0 at the preimage): the density is infinite there;
-    // like the subordination laws, report the finite value just beside it.
-    const double delta = 1e-12 * std::max(1.0, support_.hi - support_.lo);
     return 0.5 * (raw_density(y - delta) + raw_density(y + delta));
   }
 
@@ -284,6 +291,7 @@ class Pushforward final : public Law {
   Support inner_;
   Support support_;
   std::vector<Segment> segments_;
+  std::vector<double> critical_values_;  // p at the critical points inside X's bands
 };
 
 }  // namespace

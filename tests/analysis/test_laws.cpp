@@ -288,8 +288,13 @@ TEST(Laws, PolynomialImageSplitsAtCriticalPointsAndMapsAtoms) {
   }
   EXPECT_NEAR(y->density(-1.0), expected, 1e-12);  // p is odd: f(−1) = f(1)
   EXPECT_NEAR(y->density(1.0), expected, 1e-12);
-  EXPECT_TRUE(std::isfinite(y->density(v)));  // a critical value: finite, large, never inf
+  // A critical value: finite, large, never inf, and the same whichever side of it the rounding of
+  // v fell (its neighbours 1e-15 away give the same value).
+  EXPECT_TRUE(std::isfinite(y->density(v)));
   EXPECT_GT(y->density(v), 1e3);
+  EXPECT_EQ(y->density(v), y->density(std::nextafter(v, 0.0)));
+  EXPECT_EQ(y->density(v), y->density(std::nextafter(v, 10.0)));
+  EXPECT_EQ(y->density(-v), y->density(std::nextafter(-v, 0.0)));
   // Atoms map to atoms, equal images merged: x² on atoms −1, 1 (and a semicircle part).
   const auto atoms = fa::polynomial_image(fa::atoms({{-1.0, 0.25}, {1.0, 0.25}, {2.0, 0.5}}),
                                           {0.0, 0.0, 1.0});
