@@ -4,7 +4,7 @@
 Usage: /usr/bin/python3 plot_estimators.py SCORES.csv OUTPUT_STEM
 
 SCORES.csv is what freegap::analysis::write_estimator_scores_csv writes
-(include/freegap/analysis/estimator_scores.hpp). Writes OUTPUT_STEM.png and OUTPUT_STEM.svg.
+(include/freegap/analysis/reporting/estimator_scores.hpp). Writes OUTPUT_STEM.png and OUTPUT_STEM.svg.
 Each panel shows, on log-log axes, |bias| (filled markers, solid lines) and RMSE (open markers,
 dashed lines) of every estimate of that truth against the matrix size N, with the bootstrap
 intervals as error bars, so estimators of the same truth are compared side by side. Estimates

@@ -1,15 +1,62 @@
-// The one step that turns a job into the model every command computes with, so that `run` and
-// `plan` cannot disagree on the path or on what they refuse (the first piece of the compiled
-// study; DEVELOPERS.md, parts).
+// The compiled study: the one step that turns a job into what every command needs — its
+// declarations and checked expression, the evaluation path of each size and what it computes, the
+// work units, the memory a rank needs, and the limit — so that `run`, `plan`, `limit`, `report`,
+// `inspect` and the estimators' truths cannot disagree (docs/design.md, parts).
 #pragma once
 #include <cstddef>
 #include <cstdint>
+#include <string>
 #include <vector>
 
+#include "freegap/analysis/limits/limit.hpp"
+#include "freegap/declarations.hpp"
+#include "freegap/expr.hpp"
 #include "freegap/job.hpp"
 #include "freegap/model.hpp"
 
 namespace freegap::study {
+
+/// A job compiled once. Every command builds its view of a job from one of these.
+class Study {
+ public:
+  /// The job's study: check_model, the checked expression and one runner per size (InputError
+  /// with the job's place for every refusal, as `run` gives it).
+  explicit Study(job::Job job);
+
+  /// The study of declarations and an expression alone, without sizes (`freegap limit`): the same
+  /// checks of the expression as a job's.
+  static Study of_expression(std::vector<declarations::MatrixSpec> matrices,
+                             const std::string& expression, bool singular_values = false);
+
+  /// The study of the job a run file stores (its text and canonical text). A relative path the
+  /// job names (an eigenvalue file) is looked for beside `run_file` (when given), then in the
+  /// current directory, and a file is used only when its numbers are those the run used (the
+  /// canonical text, which holds each file's SHA-256, equals the stored one). InputError when the
+  /// stored job no longer parses or no such file is found.
+  static Study of_stored_job(const std::string& job_text, const std::string& job_canonical,
+                             const std::string& run_file = "");
+
+  const job::Job& job() const { return job_; }
+  /// The expression as the runner computes it (its spectrum choice included).
+  const expr::Expression& expression() const { return expression_; }
+  /// One runner per size, in the job's order: its path (`path()`) and what it computes
+  /// (`explain()`). Empty for a study of an expression alone.
+  const std::vector<model::SizeRunner>& runners() const { return runners_; }
+  /// The work units of size `i`: trials in blocks of the job's trials_per_unit, the last one
+  /// shorter (unit u holds trials [u·B, min((u+1)·B, T))).
+  std::int64_t unit_count(std::size_t i) const;
+  std::int64_t trials_in_unit(std::size_t i, std::int64_t unit) const;
+  /// The limit of the expression with its exact moments up to max_moment: closed-form rules,
+  /// free convolutions, then the polynomial solver (limit.hpp). Never throws for a model it
+  /// cannot predict: `reason` says why.
+  analysis::DerivedLimit limit(int max_moment) const;
+
+ private:
+  Study(job::Job job, expr::Expression expression);
+  job::Job job_;
+  expr::Expression expression_;
+  std::vector<model::SizeRunner> runners_;
+};
 
 /// The trial model of a job: its declarations, expression and spectrum choice, and the path.
 /// The dense path is forced by `force_dense`, and by estimators, which read every trial's

@@ -11,13 +11,14 @@
 #include <vector>
 
 #include "commands.hpp"
-#include "freegap/analysis/limit.hpp"
-#include "freegap/analysis/polynomial_limit.hpp"
+#include "freegap/analysis/limits/limit.hpp"
+#include "freegap/analysis/limits/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/install_paths.hpp"
 #include "freegap/model.hpp"
 #include "freegap/output_dir.hpp"
 #include "freegap/stop.hpp"
+#include "freegap/study.hpp"
 
 namespace freegap::cli {
 
@@ -65,10 +66,12 @@ int run_limit(const LimitOptions& opt) {
   if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
   std::vector<declarations::MatrixSpec> specs;
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
-  const expr::Expression expression(opt.expression, specs);
-  // The same derivation as `report` and the estimators' truths: closed-form rules, then free
-  // convolutions, then the polynomial solver; singular values from the law of P^*P.
-  const analysis::DerivedLimit derived = analysis::derive_limit(expression, opt.max_moment);
+  // The compiled study of the expression: the same checks and the same derivation as `report`,
+  // `plan` and the estimators' truths (closed-form rules, then free convolutions, then the
+  // polynomial solver; singular values from the law of P^*P).
+  const study::Study study = study::Study::of_expression(specs, opt.expression);
+  const expr::Expression& expression = study.expression();
+  const analysis::DerivedLimit derived = study.limit(opt.max_moment);
   if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
   const analysis::LawPtr law = derived.law;
   const auto* polynomial = dynamic_cast<const analysis::PolynomialLaw*>(law.get());

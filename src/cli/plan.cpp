@@ -10,7 +10,7 @@
 #include <variant>
 
 #include "commands.hpp"
-#include "freegap/analysis/report.hpp"
+#include "freegap/analysis/reporting/report.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
 

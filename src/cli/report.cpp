@@ -6,7 +6,7 @@
 #include <vector>
 
 #include "commands.hpp"
-#include "freegap/analysis/report.hpp"
+#include "freegap/analysis/reporting/report.hpp"
 
 namespace freegap::cli {
 

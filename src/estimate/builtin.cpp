@@ -1,6 +1,6 @@
 // Built-in estimators: freegap's own examples of the estimator interface, selected in a job file
 // by `builtin = "NAME"`. They double as documentation of what an estimator sees and returns, and
-// as the reference cases of the rate tests (tests/analysis/test_estimator_scores.cpp).
+// as the reference cases of the rate tests (tests/reporting/test_estimator_scores.cpp).
 #include <algorithm>
 #include <charconv>
 #include <cmath>

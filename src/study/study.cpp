@@ -1,7 +1,10 @@
 // The model of a job, shared by every command (see study.hpp).
 #include "freegap/study.hpp"
 
+#include <algorithm>
+#include <filesystem>
 #include <string>
+#include <utility>
 
 #include "freegap/declarations.hpp"
 #include "freegap/errors.hpp"
@@ -66,6 +69,87 @@ std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matr
       keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
   return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
                                   sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
+}
+
+namespace {
+
+expr::Expression checked_expression(const job::Job& job) {
+  check_model(job);  // its refusals first, as `run` gives them
+  const model::Model m = model_of(job);
+  try {
+    return expr::Expression(m.expression, m.matrices, m.check);
+  } catch (const InputError& e) {
+    throw InputError(job.where("expression") + e.what());
+  }
+}
+
+}  // namespace
+
+Study::Study(job::Job job, expr::Expression expression)
+    : job_(std::move(job)), expression_(std::move(expression)) {}
+
+Study::Study(job::Job job) : job_(std::move(job)), expression_(checked_expression(job_)) {
+  runners_ = study::runners(job_);
+}
+
+Study Study::of_expression(std::vector<declarations::MatrixSpec> matrices,
+                           const std::string& expression, bool singular_values) {
+  job::Job job;
+  job.matrices = std::move(matrices);
+  job.expression = expression;
+  job.observe.singular_values = singular_values;
+  const model::Model m = model_of(job);
+  expr::Expression checked(m.expression, m.matrices, m.check);
+  return Study(std::move(job), std::move(checked));
+}
+
+Study Study::of_stored_job(const std::string& job_text, const std::string& job_canonical,
+                           const std::string& run_file) {
+  // A relative path in the job (an eigenvalue file) was relative to the job file's directory,
+  // which the run file does not record: it is looked for beside the run file, then in the
+  // current directory.
+  std::vector<std::string> anchors;
+  if (!run_file.empty()) {
+    anchors.push_back((std::filesystem::path(run_file).parent_path() / "job.toml").string());
+  }
+  anchors.push_back("<job stored in the run file>");
+  std::string last_error;
+  bool other_numbers = false;
+  for (const std::string& anchor : anchors) {
+    try {
+      job::Job job = job::parse_job(job_text, anchor);
+      const bool reads_files = std::any_of(job.file_digests.begin(), job.file_digests.end(),
+                                           [](const std::string& d) { return !d.empty(); });
+      if (reads_files && !job_canonical.empty() && job.canonical() != job_canonical) {
+        other_numbers = true;
+        continue;
+      }
+      return Study(std::move(job));
+    } catch (const InputError& e) {
+      last_error = e.what();
+    }
+  }
+  if (other_numbers) {
+    throw InputError(
+        "an eigenvalue file the job names holds other numbers than the run used (its SHA-256 "
+        "differs from the one stored in the run file); put the run's own file beside the run "
+        "file or in the current directory");
+  }
+  throw InputError(last_error + (run_file.empty() ? "" : " (looked for beside the run file too)"));
+}
+
+std::int64_t Study::unit_count(std::size_t i) const {
+  const std::int64_t b = job_.trials_per_unit;
+  return b <= 0 ? 0 : (job_.trials.at(i) + b - 1) / b;
+}
+
+std::int64_t Study::trials_in_unit(std::size_t i, std::int64_t unit) const {
+  const std::int64_t b = job_.trials_per_unit;
+  return std::max<std::int64_t>(0, std::min(b, job_.trials.at(i) - unit * b));
+}
+
+analysis::DerivedLimit Study::limit(int max_moment) const {
+  return analysis::derive_limit(expression_, max_moment);
 }
 
 }  // namespace freegap::study

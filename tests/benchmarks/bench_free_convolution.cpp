@@ -10,8 +10,8 @@
 #include <cmath>
 #include <vector>
 
-#include "freegap/analysis/free_convolution.hpp"
-#include "freegap/analysis/laws.hpp"
+#include "freegap/analysis/limits/free_convolution.hpp"
+#include "freegap/analysis/limits/laws.hpp"
 
 namespace fa = freegap::analysis;
 

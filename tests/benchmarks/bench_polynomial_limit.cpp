@@ -11,7 +11,7 @@
 #include <string>
 #include <vector>
 
-#include "freegap/analysis/polynomial_limit.hpp"
+#include "freegap/analysis/limits/polynomial_limit.hpp"
 #include "freegap/model.hpp"
 
 namespace fa = freegap::analysis;

@@ -1,6 +1,6 @@
 /* A test plug-in of ABI version 2 that asks for the trial's matrix (FREEGAP_WANTS_MATRIX) and
  * returns what lets a test check the matrix arrived whole and bit for bit
- * (tests/test_estimate.cpp, tests/python/check_estimators.py):
+ * (tests/estimate/test_estimate.cpp, tests/estimate/check_estimators.py):
  *   rows, cols, is_complex      the shape and kind it received;
  *   abi_seen                    the trial struct's abi_version;
  *   checksum                    matrix_checksum below over every double of the matrix, in order;
@@ -42,7 +42,7 @@ const freegap_estimator_info* freegap_estimator_describe(void) {
 }
 
 /* FNV-1a over the 64-bit patterns of the doubles, folded to 52 bits so that the result is an
- * integer a double holds exactly. tests/test_estimate.cpp computes the same. */
+ * integer a double holds exactly. tests/estimate/test_estimate.cpp computes the same. */
 static double matrix_checksum(const double* x, int64_t count) {
   uint64_t h = 14695981039346656037ull;
   for (int64_t i = 0; i < count; ++i) {

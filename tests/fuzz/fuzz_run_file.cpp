@@ -6,7 +6,7 @@
 // reads afterwards is safe to read, and that every unit found damaged reads as not committed.
 //
 // Build: see tests/fuzz/run_file.cmake. Seed corpus: any small run file, e.g. one written by
-// `freegap run` of tests/python/check_damaged_run_files.py's job.
+// `freegap run` of tests/store/check_damaged_run_files.py's job.
 #include <unistd.h>
 
 #include <cstddef>

@@ -12,7 +12,7 @@ import time
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 SOURCE = os.path.dirname(os.path.dirname(HERE))
-sys.path.insert(0, os.path.join(SOURCE, "tests", "python"))
+sys.path.insert(0, os.path.join(SOURCE, "tests", "support"))
 import runhelp as rh  # noqa: E402,F401
 
 SCRIPTS = os.path.join(SOURCE, "jobs", "slurm")

@@ -1,5 +1,5 @@
 // Test helper: prints everything a command reads from a run file, exactly, after the checks
-// every reader goes through (RunFile::open_read), so tests/python/check_damaged_run_files.py can
+// every reader goes through (RunFile::open_read), so tests/store/check_damaged_run_files.py can
 // compare a damaged copy with the original unit by unit and prove that no changed number gets
 // through unnamed.
 //

@@ -1,5 +1,5 @@
-// Test helper: writes the sample run of tests/store_sample.hpp to a run file, so that
-// tests/python/check_run_file.py can read a file freegap made, finished or still being written.
+// Test helper: writes the sample run of tests/support/store_sample.hpp to a run file, so that
+// tests/store/check_run_file.py can read a file freegap made, finished or still being written.
 //
 // Usage:
 //   write_sample_run --out PATH [--stop-after K]
@@ -15,7 +15,7 @@
 #include <iostream>
 #include <string>
 
-#include "../store_sample.hpp"
+#include "store_sample.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/store.hpp"
 

@@ -1,0 +1,60 @@
+// The deterministic limit of a job's model: which law its spectrum converges to, by which rule,
+// and the exact limit moments beside it.
+//
+// Rules, tried on the expression's expansion into monomials (expr::Expression::expansion), with
+// each monomial read as one free term:
+//   - one self-adjoint matrix a·X + b: GUE, GOE, Wigner and β-Hermite → semicircle (Wigner 1955);
+//     Wishart and β-Laguerre → Marchenko–Pastur(c) (Marchenko & Pastur 1967); a deterministic
+//     diagonal → its own law (atoms, uniform, semicircle or Marchenko–Pastur quantiles);
+//   - a Haar conjugation U D U^* (U Haar unitary or orthogonal, D self-adjoint) → a free copy of
+//     the law of D (Voiculescu 1991);
+//   - the powers of one self-adjoint matrix, p(X) or p(U X U^*) with p of degree ≥ 2, gathered
+//     into one term → the image of X's law under p (atoms to atoms; the continuous part by the
+//     change of variables on each piece where p is monotone, so no mass is lost where the
+//     density is infinite; common practice);
+//   - U + U^* → arcsine; a sum of d terms U_i + U_i^* → Kesten–McKay of degree 2d (Kesten 1959;
+//     McKay 1981);
+//   - X Y X with X and Y free, X semicircular or a deterministic diagonal, Y with a law on
+//     [0, ∞) → law(X²) ⊠ law(Y) (Voiculescu 1987; law(X²) = free Poisson for a semicircular X);
+//   - a sum of such terms that are free of each other (every random matrix and every Haar
+//     unitary in one term only; deterministic matrices unconjugated in one term only) → the free
+//     additive convolution of their laws (Voiculescu 1986; Belinschi & Bercovici 2007);
+//   - singular values of a product G_1 ⋯ G_s of distinct square Ginibre matrices → √ of the
+//     Fuss–Catalan law π^{⊠s} (Banica, Belinschi, Capitaine & Collins 2011; s = 1: the
+//     quarter-circle law).
+// Any other self-adjoint expression (eigenvalues) goes to the general solver for polynomials in
+// free variables (polynomial_limit.hpp: linearization and operator-valued subordination). What
+// neither covers gets a plain sentence saying why no predictor applies, and the finite-N data is
+// still reported.
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "freegap/analysis/limits/laws.hpp"
+#include "freegap/expr.hpp"
+
+namespace freegap::analysis {
+
+struct DerivedLimit {
+  LawPtr law;          ///< the limit law of the computed spectrum; null when no rule applies
+  std::string rule;    ///< the rule and its source, when law is set
+  std::string reason;  ///< why no predictor applies, when law is null
+  /// Key of the model in the published-rate table ("gue", "goe", "wigner", "wishart_complex",
+  /// "wishart_real", "haar_unitary_sum", "haar_orthogonal_sum"), or empty.
+  std::string rate_key;
+  /// Exact limit moments m_0..m_K (free cumulants over non-crossing partitions), when every
+  /// matrix has them and the spectrum is the eigenvalues; else empty and moments_note says why.
+  std::vector<double> exact_moments;
+  std::vector<std::string> exact_moment_text;  ///< the same as exact rationals
+  std::string moments_note;
+  /// What the law is known to miss, when something (the polynomial solver's density and point
+  /// masses adding up to less or more than 1); shown beside the law by `limit` and `report`.
+  std::string law_note;
+};
+
+/// The limit of `expression` (as checked for the run) with its exact moments up to max_moment.
+/// Never throws for a model it cannot predict: it says so in `reason`.
+DerivedLimit derive_limit(const expr::Expression& expression, int max_moment);
+
+}  // namespace freegap::analysis

@@ -1,0 +1,203 @@
+// Limit laws of self-adjoint polynomials in free variables: linearization and operator-valued
+// subordination.
+//
+// What it computes: for a self-adjoint expression P in declared matrices (GUE/GOE/Wigner,
+// Wishart, deterministic diagonals, Haar-conjugated U D U^*), the N → ∞ law of P: density,
+// CDF, Cauchy transform, support edges (hence the operator-norm limit, by strong convergence:
+// Haagerup & Thorbjørnsen 2005; Collins & Male 2014) and moments.
+//
+// How:
+//  1. Reduction (free_polynomial_of): each matrix becomes a free self-adjoint variable (Voiculescu
+//     1991). A Haar unitary U that appears only as U D^k U^* (or only as U^* D^k U) with one
+//     self-adjoint matrix D is replaced by a new variable with D's law, free from everything else
+//     including D itself (U is Haar and independent of the rest).
+//  2. Linearization (linearize): a self-adjoint pencil L = b_0 + Σ_i b_i x_i with real symmetric
+//     n×n coefficients such that (z − P)^{−1} = [(Λ(z) − L)^{−1}]_{11}, Λ(z) = diag(z, 0, …, 0)
+//     (Anderson 2013; Belinschi, Mai & Speicher 2017; docs/check-values.md §4d). A palindromic word
+//     (w = w^*) of length k adds k − 1 rows, a pair w, w^* adds 2(k − 1) rows, letters and
+//     constants go to the corner.
+//  3. Operator-valued Cauchy transform G(β) = E[(β − Σ_i b_i x_i)^{−1}], β = Λ_ε(z) − b_0 with
+//     Λ_ε(z) = diag(z, iε, …, iε) (Belinschi, Mai & Speicher 2017). The semicircular variables
+//     enter through their covariance η(B) = Σ σ_i² b_i B b_i (Helton, Rashidi Far & Speicher
+//     2007: G = (β − η(G))^{−1}); every other variable x_j through its subordination function ω_j,
+//     with G = G_{b_j x_j}(ω_j) for each j and Σ_j ω_j = β − η(G) + (m − 1) G^{−1}
+//     (the M_n(ℂ)-valued form of Belinschi & Bercovici 2007 for m summands plus a semicircular
+//     one). G_{b x}(ω) = ∫ (ω − t b)^{−1} dμ(t) is a finite sum for atoms and, otherwise, exact
+//     through a low-rank (Woodbury) reduction to the scalar Cauchy transform of μ.
+//     Solve: the averaged fixed-point iteration (HRS) at a distance to the axis where it contracts
+//     well, then Newton (finite-difference Jacobian) continued down to the final ε; a point where
+//     neither converges is reported as not converged, never as a number.
+//  4. Edges: the real-axis solution (ε = 0) is continued from beyond a norm bound towards the
+//     support with Newton and step halving; the edge is where the real branch ends (to 1e−9).
+//     Solver moments: (1/2πi)∮ z^k G_P(z) dz on a circle around the support (trapezoid rule).
+#pragma once
+
+#include <Eigen/Core>
+#include <complex>
+#include <memory>
+#include <mutex>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "freegap/analysis/limits/laws.hpp"
+#include "freegap/expr.hpp"
+
+namespace freegap::analysis {
+
+/// One free self-adjoint variable of a reduced polynomial.
+struct FreeLetter {
+  std::string name;           ///< "X1", or "U B U^*" for a Haar-conjugated copy of B
+  bool semicircular = false;  ///< enters through the covariance map (HRS)
+  double variance = 1.0;      ///< semicircular only
+  LawPtr law;                 ///< its law (semicircle too: used for bounds)
+  std::vector<Atom> atoms;    ///< non-empty when the law is a finite sum of atoms
+};
+
+/// c · x_{i_1} ⋯ x_{i_k} over FreeLetter indices (the empty word is the identity).
+struct RealTerm {
+  std::complex<double> coefficient = 0.0;  ///< real for expressions; complex allowed in pairs
+  std::vector<int> word;
+};
+
+/// A self-adjoint polynomial in free self-adjoint variables (each word once; c_{w^*} = conj c_w).
+struct FreePolynomial {
+  std::vector<FreeLetter> letters;
+  std::vector<RealTerm> terms;
+  std::string text;  ///< the expression it came from
+};
+
+/// The free variables and polynomial of a self-adjoint expression. Throws InputError naming the
+/// matrix and the reason when something is not covered: a non-self-adjoint expression, a Ginibre
+/// matrix, a Haar unitary that is not only U D^k U^* with one self-adjoint D (or only U^* D^k U),
+/// two deterministic diagonals in one product structure (they commute, so they are not free), a
+/// diagonal law read from a file, a β-ensemble (tridiagonal model only).
+FreePolynomial free_polynomial_of(const expr::Expression& expression);
+
+/// P ≥ 0 for every choice of self-adjoint values of its letters with the letters' laws, proven
+/// term by term (a sufficient test, common practice): a constant c ≥ 0; or c > 0 times a word
+/// that reads the same backwards, u u^* (even length) or u m u^* with the middle letter's law on
+/// [0, ∞) (odd length). X², A B A with B ≥ 0, S W S pass; X³ − 2X, X Y + Y X do not. The solver
+/// then never reports a lower edge below 0 (its edge search ends within rounding of 0 there).
+bool proven_positive(const FreePolynomial& polynomial);
+
+/// A self-adjoint linear pencil L = b_0 + Σ_i b_i x_i (Hermitian n×n coefficients, real for real
+/// polynomials) with
+/// P = a − u Q^{−1} v for L = [[a, u], [v, Q]], so that (z − P)^{−1} = [(Λ(z) − L)^{−1}]_{11}.
+struct Pencil {
+  int size = 0;
+  Eigen::MatrixXcd constant;                   ///< b_0
+  std::vector<Eigen::MatrixXcd> coefficients;  ///< b_i, one per letter
+};
+
+/// The largest pencil the limit solver takes. Its Newton steps form finite-difference Jacobians
+/// in the n² entries of G, so the cost climbs steeply with n: `freegap limit -e "X^n - 1"`
+/// (pencil n, 10 points) took 2.2 s at n = 4, 14 s at n = 8, 82 s at n = 12 and over 120 s at
+/// n = 16 (tests/benchmarks/RESULTS-inputs.md). Polynomial models of studies (anticommutators,
+/// X B X + B, quartic potentials) need pencils of 2–10, so 12 leaves room; beyond it `freegap
+/// limit` and reports refuse before any solving instead of running for hours.
+inline constexpr int kMaxPencilSize = 12;
+
+/// The size n of the pencil linearize builds, without building it (saturating at INT_MAX).
+long long pencil_size(const FreePolynomial& polynomial);
+
+/// The pencil of a polynomial (see the header comment for its shape). Throws InputError when it
+/// would be larger than kMaxPencilSize.
+Pencil linearize(const FreePolynomial& polynomial);
+/// The pencil on matrices: the (n·N)×(n·N) matrix with blocks b_0(r,c)·I + Σ_i b_i(r,c)·X_i.
+Eigen::MatrixXcd pencil_matrix(const Pencil& pencil, const std::vector<Eigen::MatrixXcd>& xs);
+/// The polynomial on matrices (one N×N matrix per letter).
+Eigen::MatrixXcd evaluate_polynomial(const FreePolynomial& polynomial,
+                                     const std::vector<Eigen::MatrixXcd>& xs);
+
+struct PolynomialLimitOptions {
+  /// Distance to the real axis for densities, relative to the norm bound of P.
+  double epsilon = 1e-10;
+  int max_averaged_steps = 20000;
+  int max_newton_steps = 40;
+  /// Highest order of exact moments (free-cumulant engine) computed at construction; 0: none.
+  int exact_moment_order = 6;
+  /// Gauss–Legendre panels (8 nodes each) of the density table behind the CDF.
+  int table_panels = 48;
+};
+
+/// What one solve of the operator-valued equation did.
+struct SolveReport {
+  std::complex<double> z;
+  std::complex<double> cauchy;  ///< G_P(z) = [G(Λ(z) − b_0)]_{11}
+  int averaged_steps = 0;
+  int newton_steps = 0;
+  bool converged = false;
+  std::string reason;  ///< why not, when not converged
+};
+
+/// A density value with how it was obtained.
+struct DensityReport {
+  double x = 0.0;
+  double density = 0.0;  ///< NaN when not converged
+  int averaged_steps = 0;
+  int newton_steps = 0;
+  bool converged = false;
+  std::string reason;
+};
+
+class OperatorValuedSolver;
+
+/// The limit law of a self-adjoint polynomial in free variables.
+class PolynomialLaw final : public Law {
+ public:
+  PolynomialLaw(FreePolynomial polynomial, std::vector<double> exact_moments,
+                PolynomialLimitOptions options);
+  ~PolynomialLaw() override;
+
+  /// Density of the continuous part at x; NaN where the solver did not converge.
+  double density(double x) const override;
+  std::vector<double> densities(std::span<const double> xs) const override;
+  /// Densities on a grid (continued along it) with iteration counts and convergence per point.
+  std::vector<DensityReport> evaluate(std::span<const double> xs) const;
+  double cdf(double x) const override;
+  std::complex<double> cauchy(std::complex<double> z) const override;
+  /// The solve behind cauchy(z), with its iteration counts (z off the real axis).
+  SolveReport solve(std::complex<double> z) const;
+  /// Exact moments when known to that order, otherwise the solver's.
+  std::vector<double> moments(int k) const override;
+  /// m_0..m_k from the exact free-cumulant engine (empty when not available).
+  const std::vector<double>& exact_moments() const { return exact_moments_; }
+  /// m_0..m_k by the contour integral of the solver's Cauchy transform.
+  std::vector<double> solver_moments(int k) const;
+  Support support() const override { return support_; }
+  std::string describe() const override;
+
+  /// lim ‖P(X_1, …, X_r)‖ = max(|lo|, |hi|) of the support (strong convergence).
+  double norm_limit() const;
+  int pencil_size() const { return pencil_.size; }
+  const Pencil& pencil() const { return pencil_; }
+  const FreePolynomial& polynomial() const { return polynomial_; }
+  /// Mass of the continuous part found by integrating the density (1 when there are no atoms).
+  /// The atom found (support().atoms) is a point mass at the constant term of P, if any; other
+  /// point masses are not located, and then continuous_mass() + Σ atoms < 1 says so.
+  double continuous_mass() const;
+
+ private:
+  void build_table() const;
+  FreePolynomial polynomial_;
+  Pencil pencil_;
+  std::vector<double> exact_moments_;
+  PolynomialLimitOptions options_;
+  std::unique_ptr<OperatorValuedSolver> solver_;
+  Support support_;
+  double scale_ = 1.0;
+  mutable std::once_flag table_once_;
+  mutable std::vector<double> panel_theta_;  // panel boundaries in θ, x = lo + w(1 − cos θ)/2
+  mutable std::vector<double> panel_integrand_;  // density·dx/dθ at the 8 nodes of each panel
+  mutable std::vector<double> panel_cumulative_;
+  mutable double mass_ = 1.0;
+};
+
+/// The limit law of a self-adjoint expression in declared matrices by linearization and
+/// operator-valued subordination. Throws InputError with a plain reason when the expression or
+/// one of its matrices is not covered (which and why).
+std::shared_ptr<const PolynomialLaw> polynomial_limit(const expr::Expression& e,
+                                                      PolynomialLimitOptions options = {});
+
+}  // namespace freegap::analysis

@@ -1,0 +1,318 @@
+// Tests of the limit law of self-adjoint polynomials in free variables: the pencil's algebra,
+// densities, edges and CDFs against published laws, and the solver's moments against the exact
+// free-cumulant engine.
+// Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
+#include <gtest/gtest.h>
+
+#include <Eigen/Dense>
+#include <cmath>
+#include <complex>
+#include <numbers>
+#include <random>
+#include <string>
+#include <vector>
+
+#include "freegap/analysis/limits/free_convolution.hpp"
+#include "freegap/analysis/limits/laws.hpp"
+#include "freegap/analysis/limits/polynomial_limit.hpp"
+#include "freegap/errors.hpp"
+#include "freegap/model.hpp"
+
+namespace fa = freegap::analysis;
+using cd = std::complex<double>;
+constexpr double kPi = std::numbers::pi;
+
+namespace {
+
+freegap::expr::Expression expression(const std::string& text,
+                                     const std::vector<std::string>& declarations) {
+  std::vector<freegap::declarations::MatrixSpec> specs;
+  for (const auto& d : declarations) specs.push_back(freegap::model::parse_declaration(d));
+  return freegap::expr::Expression(text, specs);
+}
+
+std::shared_ptr<const fa::PolynomialLaw> law_of(const std::string& text,
+                                                const std::vector<std::string>& declarations,
+                                                int exact_order = 0) {
+  fa::PolynomialLimitOptions options;
+  options.exact_moment_order = exact_order;
+  return fa::polynomial_limit(expression(text, declarations), options);
+}
+
+Eigen::MatrixXcd random_hermitian(std::mt19937_64& gen, int n) {
+  std::normal_distribution<double> g;
+  Eigen::MatrixXcd a(n, n);
+  for (int i = 0; i < n; ++i) {
+    for (int j = 0; j < n; ++j) a(i, j) = cd(g(gen), g(gen));
+  }
+  return 0.5 * (a + a.adjoint());
+}
+
+// The commutator i(s1 s2 − s2 s1), which the (real) expression syntax cannot write.
+fa::FreePolynomial commutator() {
+  fa::FreePolynomial p;
+  for (const char* name : {"X1", "X2"}) {
+    fa::FreeLetter l;
+    l.name = name;
+    l.semicircular = true;
+    l.law = fa::semicircle();
+    p.letters.push_back(l);
+  }
+  p.terms = {{cd(0.0, 1.0), {0, 1}}, {cd(0.0, -1.0), {1, 0}}};
+  p.text = "i(X1 X2 - X2 X1)";
+  return p;
+}
+
+// Anticommutator density values of ref §1.8 [computed independently there from the cubic
+// z G³ + G² − z G + 1 = 0; law of Nica & Speicher 1998].
+const std::vector<std::pair<double, double>> kAnticommutator = {
+    {0.0, 1.0 / kPi},         {0.5, 0.255365556906527}, {1.0, 0.192988333008231},
+    {2.0, 0.113905759864852}, {3.0, 0.048137434405276}, {3.3, 0.0139806844807352}};
+constexpr double kAnticommutatorEdge = 3.33019067678556;  // φ^{5/2}, ref §1.8
+
+}  // namespace
+
+// ---------------------------------------------------------------------------------------------
+// The pencil: (z − P)^{−1} is the corner of (Λ(z) − L)^{−1} (Schur complement; Anderson 2013,
+// ref §4d), checked on random Hermitian matrices.
+
+TEST(Pencil, CornerOfTheInverseIsTheResolvent) {
+  struct Case {
+    std::string text;
+    std::vector<std::string> declarations;
+    int size;  // the pencil size we expect from the construction
+  };
+  const std::vector<Case> cases = {
+      {"X^2", {"X=gue"}, 2},  // ref §4d: [[0, x], [x, −1]]
+      {"X1 X2 + X2 X1", {"X1=gue", "X2=gue"}, 3},
+      {"X1^2 + X2", {"X1=gue", "X2=gue"}, 2},
+      {"X1 B X1 + B", {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}, 3},
+      {"2 X1 X2 X3 X2 + 2 X2 X3 X2 X1 - X1^4 + 0.5 X3 X1 X3 - X2 + 3",
+       {"X1=gue", "X2=gue", "X3=gue"},
+       1 + 6 + 3 + 2},
+      {"B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"}, 1},
+  };
+  std::mt19937_64 gen(20240611);
+  const int N = 5;
+  const cd z(0.3, 0.7);
+  for (const auto& c : cases) {
+    const auto p = fa::free_polynomial_of(expression(c.text, c.declarations));
+    const auto pencil = fa::linearize(p);
+    EXPECT_EQ(pencil.size, c.size) << c.text;
+    std::vector<Eigen::MatrixXcd> xs;
+    for (std::size_t i = 0; i < p.letters.size(); ++i) xs.push_back(random_hermitian(gen, N));
+    const Eigen::MatrixXcd P = fa::evaluate_polynomial(p, xs);
+    const Eigen::MatrixXcd L = fa::pencil_matrix(pencil, xs);
+    Eigen::MatrixXcd lambda = Eigen::MatrixXcd::Zero(L.rows(), L.cols());
+    lambda.topLeftCorner(N, N).diagonal().setConstant(z);
+    const Eigen::MatrixXcd corner = (lambda - L).inverse().topLeftCorner(N, N);
+    const Eigen::MatrixXcd resolvent = (z * Eigen::MatrixXcd::Identity(N, N) - P).inverse();
+    EXPECT_LT((corner - resolvent).cwiseAbs().maxCoeff(), 1e-11) << c.text;
+    EXPECT_TRUE(L.isApprox(L.adjoint(), 1e-14)) << c.text << ": the pencil is self-adjoint";
+  }
+  // Complex coefficients (the commutator) keep the pencil Hermitian and the identity exact.
+  const auto p = commutator();
+  const auto pencil = fa::linearize(p);
+  EXPECT_EQ(pencil.size, 3);
+  std::vector<Eigen::MatrixXcd> xs = {random_hermitian(gen, N), random_hermitian(gen, N)};
+  const Eigen::MatrixXcd L = fa::pencil_matrix(pencil, xs);
+  Eigen::MatrixXcd lambda = Eigen::MatrixXcd::Zero(L.rows(), L.cols());
+  lambda.topLeftCorner(N, N).diagonal().setConstant(z);
+  const Eigen::MatrixXcd P = fa::evaluate_polynomial(p, xs);
+  EXPECT_TRUE(P.isApprox(P.adjoint(), 1e-14));
+  EXPECT_LT(((lambda - L).inverse().topLeftCorner(N, N) -
+             (z * Eigen::MatrixXcd::Identity(N, N) - P).inverse())
+                .cwiseAbs()
+                .maxCoeff(),
+            1e-11);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Laws with published values
+
+TEST(PolynomialLimit, AnticommutatorOfFreeSemicirculars) {
+  // Nica & Speicher 1998 (law), ref §1.8 (values): density 1/π at 0, edge φ^{5/2}.
+  const auto law = law_of("X1 X2 + X2 X1", {"X1=gue", "X2=gue"});
+  EXPECT_EQ(law->pencil_size(), 3);
+  EXPECT_NEAR(law->support().hi, kAnticommutatorEdge, 1e-6);
+  EXPECT_NEAR(law->support().lo, -kAnticommutatorEdge, 1e-6);
+  EXPECT_NEAR(law->norm_limit(), kAnticommutatorEdge, 1e-6);
+  std::vector<double> xs;
+  for (const auto& [x, f] : kAnticommutator) xs.push_back(x);
+  const auto reports = law->evaluate(xs);
+  for (std::size_t i = 0; i < xs.size(); ++i) {
+    ASSERT_TRUE(reports[i].converged) << reports[i].reason;
+    EXPECT_NEAR(reports[i].density, kAnticommutator[i].second, 1e-6) << "x = " << xs[i];
+    EXPECT_GT(reports[i].averaged_steps + reports[i].newton_steps, 0);
+  }
+  // Symmetric law: F(0) = 1/2; the density table integrates to 1.
+  EXPECT_NEAR(law->cdf(0.0), 0.5, 1e-6);
+  EXPECT_NEAR(law->continuous_mass(), 1.0, 1e-6);
+}
+
+TEST(PolynomialLimit, CommutatorHasTheAnticommutatorLaw) {
+  // Nica & Speicher 1998; ref §1.8: i(s1 s2 − s2 s1) has the same law as s1 s2 + s2 s1.
+  const fa::PolynomialLaw law(commutator(), {}, {});
+  EXPECT_NEAR(law.support().hi, kAnticommutatorEdge, 1e-6);
+  EXPECT_NEAR(law.support().lo, -kAnticommutatorEdge, 1e-6);
+  for (const auto& [x, f] : kAnticommutator) EXPECT_NEAR(law.density(x), f, 1e-6) << x;
+}
+
+TEST(PolynomialLimit, SquareOfSemicircularIsFreePoisson) {
+  // x² of a standard semicircular is free Poisson(1) = Marchenko–Pastur(1) (Nica & Speicher 2006,
+  // from memory; ref §1.2 and §4d): density √((4 − x) x)/(2πx) on [0, 4].
+  const auto law = law_of("X^2", {"X=gue"});
+  const auto mp = fa::marchenko_pastur(1.0);
+  EXPECT_EQ(law->pencil_size(), 2);
+  EXPECT_NEAR(law->support().hi, 4.0, 1e-6);
+  EXPECT_NEAR(law->support().lo, 0.0, 1e-6);
+  for (double x : {0.05, 0.5, 1.0, 2.0, 3.0, 3.9}) {
+    EXPECT_NEAR(law->density(x), mp->density(x), 1e-6) << x;
+  }
+  // ref §1.2: f(1) = 0.275664447710896 for c = 1.
+  EXPECT_NEAR(law->density(1.0), 0.275664447710896, 1e-6);
+  for (double x : {0.1, 1.0, 2.0, 3.5}) EXPECT_NEAR(law->cdf(x), mp->cdf(x), 1e-6) << x;
+}
+
+// A positive expression never gets a negative lower edge: the edge search used to stop at
+// −8.3e-13 for X² (seen in `freegap limit`). Positivity is proven term by term.
+TEST(PolynomialLimit, PositiveExpressionsKeepTheirLowerEdgeAtZeroOrAbove) {
+  const auto square = law_of("X^2", {"X=gue"});
+  EXPECT_GE(square->support().lo, 0.0);
+  EXPECT_EQ(square->density(-1e-14), 0.0);
+  EXPECT_EQ(square->cdf(-1e-14), 0.0);
+  const auto sandwich = law_of("A B A", {"A=gue", "B=wishart_complex:ratio=0.5"});
+  EXPECT_GE(sandwich->support().lo, 0.0);
+  const auto proven = [](const std::string& text, const std::vector<std::string>& d) {
+    return fa::proven_positive(fa::free_polynomial_of(expression(text, d)));
+  };
+  EXPECT_TRUE(proven("X^2", {"X=gue"}));
+  EXPECT_TRUE(proven("X^4 + 2 X^2 + 1", {"X=gue"}));
+  EXPECT_TRUE(proven("A B A", {"A=gue", "B=wishart_complex:ratio=0.5"}));
+  EXPECT_TRUE(proven("X Y^2 X + Y^2", {"X=gue", "Y=gue"}));
+  EXPECT_TRUE(proven("S W S", {"S=diagonal:atoms=1@0.5,3@0.5", "W=wishart_complex:ratio=0.25"}));
+  EXPECT_FALSE(proven("X^3 - 2 X", {"X=gue"}));
+  EXPECT_FALSE(proven("X Y + Y X", {"X=gue", "Y=gue"}));
+  EXPECT_FALSE(proven("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}));  // B not ≥ 0
+  EXPECT_FALSE(proven("X^2 - 1", {"X=gue"}));
+}
+
+TEST(PolynomialLimit, ABAIsTheFreeMultiplicativeConvolution) {
+  // For A semicircular free from B ≥ 0, A B A has the law of B^{1/2} A² B^{1/2}, i.e.
+  // MP(1) ⊠ μ_B (Voiculescu 1987; A² is free Poisson(1), ref §1.6): compared with the
+  // analysis issue's ⊠ by multiplicative subordination (Belinschi & Bercovici 2007).
+  const auto law = law_of("A B A", {"A=gue", "B=diagonal:atoms=1@0.5,3@0.5"});
+  const auto product =
+      fa::free_multiplicative(fa::marchenko_pastur(1.0), fa::atoms({{1.0, 0.5}, {3.0, 0.5}}));
+  EXPECT_NEAR(law->support().hi, product->support().hi, 1e-6);
+  for (double x : {0.2, 1.0, 2.0, 4.0, 7.0}) {
+    EXPECT_NEAR(law->density(x), product->density(x), 1e-6) << x;
+  }
+  // With B = ±1 (ref §1.6, ternary numbers; derived there): f(0.5), f(1) and the edge
+  // 3√3/2.
+  const auto bernoulli = law_of("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"});
+  EXPECT_NEAR(bernoulli->support().hi, 2.59807621135332, 1e-6);
+  EXPECT_NEAR(bernoulli->density(0.5), 0.273069656441587, 1e-6);
+  EXPECT_NEAR(bernoulli->density(1.0), 0.178979127488028, 1e-6);
+}
+
+TEST(PolynomialLimit, HaarRotationOfBernoulliIsArcsine) {
+  // B + U B U^* → (½δ₋₁+½δ₁)^{⊞2} = arcsine on [−2, 2] (ref §1.3; Nica & Speicher 2006).
+  const auto law = law_of("B + U B U^*", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary"});
+  EXPECT_EQ(law->polynomial().letters.size(), 2u);
+  EXPECT_EQ(law->polynomial().letters[1].name, "U B U^*");
+  EXPECT_NEAR(law->support().hi, 2.0, 1e-6);
+  EXPECT_NEAR(law->support().lo, -2.0, 1e-6);
+  const std::vector<std::pair<double, double>> values = {{0.0, 0.159154943091895},
+                                                         {1.0, 0.183776298473931},
+                                                         {std::sqrt(2.0), 0.225079079039277},
+                                                         {std::sqrt(3.0), 0.318309886183791},
+                                                         {1.9, 0.509703744125178}};
+  for (const auto& [x, f] : values) EXPECT_NEAR(law->density(x), f, 1e-6) << x;
+  EXPECT_NEAR(law->cdf(1.0), 2.0 / 3.0, 1e-6);
+  EXPECT_NEAR(law->cdf(std::sqrt(2.0)), 0.75, 1e-6);
+  EXPECT_NEAR(law->cdf(std::sqrt(3.0)), 5.0 / 6.0, 1e-6);
+}
+
+TEST(PolynomialLimit, PointMassAtTheConstantTerm) {
+  // X B X with B = diag(0 × N/2, 1 × N/2) has rank N/2, so its law has the atom ½δ_0 (elementary);
+  // the rest is continuous, and the CDF jumps by ½ at 0.
+  const auto law = law_of("X B X", {"X=gue", "B=diagonal:atoms=0@0.5,1@0.5"});
+  ASSERT_EQ(law->support().atoms.size(), 1u);
+  EXPECT_EQ(law->support().atoms[0].value, 0.0);
+  EXPECT_NEAR(law->support().atoms[0].mass, 0.5, 1e-6);
+  // The density table next to an atom at the support's edge is accurate to a few 1e−4 only (the
+  // atom's Lorentzian tail at the final distance to the axis and the singular density there).
+  EXPECT_NEAR(law->continuous_mass(), 0.5, 1e-3);
+  EXPECT_NEAR(law->cdf(1e-9), 0.5, 1e-3);
+  // No atom where the density is merely singular: A B A with B = ±1, f ~ |x|^{−1/3} at 0; the
+  // table graded towards 0 still integrates it to 1 within 1e−3.
+  const auto aba = law_of("A B A", {"A=gue", "B=diagonal:atoms=-1@0.5,1@0.5"});
+  EXPECT_TRUE(aba->support().atoms.empty());
+  EXPECT_NEAR(aba->continuous_mass(), 1.0, 1e-3);
+}
+
+// ---------------------------------------------------------------------------------------------
+// The solver's moments against the exact free-cumulant engine (Nica & Speicher 2006, ref §4e)
+
+TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {
+  struct Case {
+    std::string text;
+    std::vector<std::string> declarations;
+  };
+  const std::vector<Case> cases = {
+      {"X1 X2 + X2 X1", {"X1=gue", "X2=gue"}},
+      {"X1^2 + X2", {"X1=gue", "X2=goe"}},
+      {"X1 B X1 + B", {"X1=gue", "B=diagonal:atoms=-1@0.5,1@0.5"}},
+      {"X1^2 + X1 X2 + X2 X1", {"X1=gue", "X2=gue"}},  // ref §1.8: 1, 1, 4, 14, 60, ...
+      {"X1 X2 X1 + X2 X1 X2", {"X1=gue", "X2=gue"}},
+      {"X1 X2 X3 + X3 X2 X1 + X2", {"X1=gue", "X2=gue", "X3=gue"}},
+      {"X1^4 - X2^2 + X3", {"X1=gue", "X2=gue", "X3=gue"}},
+      {"X1 X2 X3 X2 + X2 X3 X2 X1 + X3^2", {"X1=gue", "X2=gue", "X3=gue"}},
+      {"W + X W X", {"W=wishart_complex:ratio=0.5", "X=gue"}},
+      {"X D X + D", {"X=gue", "D=diagonal:law=uniform:low=0:high=1"}},
+      {"B + U B U^* + X", {"B=diagonal:atoms=-1@0.5,1@0.5", "U=haar_unitary", "X=gue"}},
+      {"X1 X2^2 X1 + X2", {"X1=gue", "X2=gue"}},
+  };
+  for (const auto& c : cases) {
+    const auto law = law_of(c.text, c.declarations, 6);
+    ASSERT_EQ(law->exact_moments().size(), 7u) << c.text;
+    const auto solver = law->solver_moments(6);
+    for (int k = 0; k <= 6; ++k) {
+      const double exact = law->exact_moments()[k];
+      EXPECT_NEAR(solver[k], exact, 1e-8 * std::max(1.0, std::abs(exact))) << c.text << ": m_" << k;
+    }
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// What is not covered is refused with the reason.
+
+TEST(PolynomialLimit, RefusesWhatIsNotCovered) {
+  const auto message = [](const std::string& text, const std::vector<std::string>& declarations) {
+    try {
+      (void)law_of(text, declarations);
+    } catch (const freegap::InputError& e) {
+      return std::string(e.what());
+    }
+    return std::string("no error");
+  };
+  EXPECT_EQ(message("G G^*", {"G=ginibre_complex"}),
+            "matrix 'G': Ginibre matrices are not covered by the polynomial limit (it needs "
+            "self-adjoint variables; for G G^* declare a Wishart matrix instead)");
+  EXPECT_EQ(message("U + U^*", {"U=haar_unitary"}),
+            "matrix 'U' in 'U + U^*': it appears unpaired; the polynomial limit covers a Haar "
+            "unitary only in conjugations U D U^* (powers of one self-adjoint matrix D, the same D "
+            "everywhere), which give a free copy of D");
+  EXPECT_EQ(message("A + B", {"A=diagonal:atoms=1@1", "B=diagonal:atoms=2@1"}),
+            "matrices 'A' and 'B' in 'A + B': two deterministic diagonal matrices commute, so "
+            "they are not free and the polynomial limit does not cover them together (conjugate "
+            "one by a Haar unitary, U D U^*, to make it free)");
+  EXPECT_EQ(message("X1 X2", {"X1=gue", "X2=gue"}),
+            "expression 'X1 X2' is not proven self-adjoint: the polynomial limit needs a "
+            "self-adjoint expression (add its adjoint, e.g. 'A B + B A')");
+  EXPECT_EQ(message("U A B U^* + U B A U^*", {"U=haar_unitary", "A=gue", "B=gue"}),
+            "matrix 'U' in 'U A B U^* + U B A U^*': it conjugates a product of several matrices; "
+            "the polynomial limit covers a Haar unitary only in conjugations U D U^* (powers of "
+            "one self-adjoint matrix D, the same D everywhere), which give a free copy of D");
+}
