@@ -24,15 +24,12 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 import runhelp as rh  # noqa: E402
 
 # A scenario of our own: background noise of a small antenna array, one GUE matrix.
-JOB = """\
+JOB = rh.fixture_job("gue", """\
 name = "antenna background"
 seed = 11
 sizes = [16, 32]
 trials = 8
-expression = "X"
-
-[matrices.X]
-ensemble = "gue"
+""", """\
 
 [observe]
 bins = 16
@@ -40,7 +37,7 @@ range = [-3.0, 3.0]
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 MANIFEST = ".freegap-output"
 

@@ -31,19 +31,12 @@ import h5py  # noqa: E402
 import numpy as np  # noqa: E402
 
 # A scenario of our own: a two-level ±1 signal seen through a random rotation.
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "plan check"
 seed = 4242
 sizes = [120, 240, 360]
 trials = [24, 24, 16]
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 50
@@ -52,7 +45,7 @@ keep_spectra = 2
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 UNITS = {"B": 1, "KiB": 1024, "MiB": 1024 ** 2, "GiB": 1024 ** 3, "TiB": 1024 ** 4}
 

@@ -19,15 +19,12 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 import runhelp as rh  # noqa: E402
 
 GOLDEN = os.path.join(os.path.dirname(os.path.abspath(__file__)), "golden", "report-gue-small.md")
-JOB = """\
+JOB = rh.fixture_job("gue", """\
 name = "golden GUE ladder"
 seed = 2718
 sizes = [50, 100, 200]
 trials = 64
-expression = "X"
-
-[matrices.X]
-ensemble = "gue"
+""", """\
 
 [observe]
 bins = 40
@@ -36,7 +33,7 @@ max_moment = 4
 
 [run]
 trials_per_unit = 8
-"""
+""")
 
 
 def main():

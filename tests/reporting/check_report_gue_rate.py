@@ -40,15 +40,12 @@ import runhelp as rh  # noqa: E402
 SIZES = [50, 100, 200, 400]
 BINS, LOW, HIGH = 400, -2.5, 2.5
 HALFWIDTH = 0.15
-JOB = """\
+JOB = rh.fixture_job("gue", """\
 name = "GUE ladder for the rate of the mean spectrum"
 seed = %d
 sizes = [%s]
 trials = %d
-expression = "X"
-
-[matrices.X]
-ensemble = "gue"
+""", """\
 
 [observe]
 bins = %d
@@ -57,7 +54,7 @@ max_moment = 4
 
 [run]
 trials_per_unit = 200
-"""
+""")
 
 
 def job(seed, trials):

@@ -25,19 +25,12 @@ import h5py
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
 
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "two rotated two-level spectra"
 seed = 31
 sizes = [40, 80, 320]
 trials = 64
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 60
@@ -46,7 +39,7 @@ max_moment = 4
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 
 def rows(path):

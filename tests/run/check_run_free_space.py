@@ -29,15 +29,12 @@ INSIDE = "FREEGAP_FREE_SPACE_NAMESPACE"
 TMPFS_BYTES = 256 * 1024
 
 # A scenario of our own: a level-spacing study with many small trials.
-JOB = """\
+JOB = rh.fixture_job("gue", """\
 name = "spacing study"
 seed = 3
 sizes = [8]
 trials = %d
-expression = "X"
-
-[matrices.X]
-ensemble = "gue"
+""", """\
 
 [observe]
 bins = 4
@@ -46,7 +43,7 @@ keep_spectra = "none"  # sized for the tmpfs below without spectra
 
 [run]
 trials_per_unit = 1
-"""
+""")
 
 
 def human_bytes(b):

@@ -23,19 +23,12 @@ import sys
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
 
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "read-only resonators"
 seed = 31
 sizes = [10]
 trials = 8
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 8
@@ -44,7 +37,7 @@ max_moment = 4
 
 [run]
 trials_per_unit = 2
-"""
+""")
 
 
 def digest(path):

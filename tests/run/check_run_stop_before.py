@@ -34,19 +34,12 @@ import runhelp as rh  # noqa: E402
 import h5py  # noqa: E402
 
 # A scenario of our own: a ±1 signal mixed with a rotated copy, many small units.
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "deadline test"
 seed = 99
 sizes = [150, 300]
 trials = [32, 160]
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 40
@@ -54,22 +47,19 @@ max_moment = 4
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 MESSAGE = ("freegap: stopped before the deadline: the next unit would not finish in time; "
            "committed units are in '%s'; run the same command again to resume")
 
 
 # Many units of almost no work each: the deadline is decided again every few milliseconds.
-TINY_JOB = """\
+TINY_JOB = rh.fixture_job("gue", """\
 name = "many tiny units"
 seed = 7
 sizes = [8]
 trials = 40000
-expression = "X"
-
-[matrices.X]
-ensemble = "gue"
+""", """\
 
 [observe]
 bins = 4
@@ -78,7 +68,7 @@ keep_spectra = "none"  # the runner's deadline logic, not the spectra, is under 
 
 [run]
 trials_per_unit = 20
-"""
+""")
 TINY_BUDGET = 6.0
 
 

@@ -22,19 +22,12 @@ import slurmhelp as sh  # noqa: E402
 from slurmhelp import rh  # noqa: E402
 
 # A scenario of our own: a ±1 signal mixed with a Haar-rotated copy of itself.
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "rotated signal"
 seed = 808
 sizes = [60, 120, 240]
 trials = [16, 16, 128]
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 40
@@ -43,7 +36,7 @@ keep_spectra = 1
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 
 def batch(c, exe, d, label, out, extra_env=None, signal_after=None):

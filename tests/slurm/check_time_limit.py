@@ -25,19 +25,12 @@ import slurmhelp as sh  # noqa: E402
 from slurmhelp import rh  # noqa: E402
 
 # A scenario of our own: a two-level ±1 signal seen through a random rotation, many trials.
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "long rotated signal"
 seed = 31337
 sizes = [200, 400]
 trials = [32, 320]
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 50
@@ -45,7 +38,7 @@ max_moment = 4
 
 [run]
 trials_per_unit = 8
-"""
+""")
 
 SIGNAL = "B:USR1@30"
 # The last line of a chain (jobs/slurm/long-run.sbatch).

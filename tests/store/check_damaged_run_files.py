@@ -38,19 +38,12 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 import runhelp as rh  # noqa: E402
 
 # A scenario of our own: two coupled resonator banks with levels ±1, mixed by a random basis.
-JOB = """\
+JOB = rh.fixture_job("rotated-two-level", """\
 name = "coupled resonator banks"
 seed = 4242
 sizes = [12, 20]
 trials = 24
-expression = "B + U B U^*"
-
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 
 [observe]
 bins = 16
@@ -60,7 +53,7 @@ keep_spectra = 2
 
 [run]
 trials_per_unit = 4
-"""
+""")
 
 SEED = 20261203
 # 10 s, times FREEGAP_TEST_TIME_SCALE when set (tests/run_sanitized.sh: 10, for the sanitizers'

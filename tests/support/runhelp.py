@@ -109,6 +109,17 @@ class WorkDir:
         shutil.rmtree(self.path, ignore_errors=True)
 
 
+FIXTURES = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "fixtures")
+
+
+def fixture_job(model, head, tail=""):
+    """A job file's text: `head` (the test's own top-level keys: name, seed, sizes, trials), the
+    model tests/fixtures/<model>.toml shares between tests (the expression and its matrices),
+    then `tail` (the test's [observe] and [run] tables). One copy of each model, not pasted text."""
+    with open(os.path.join(FIXTURES, model + ".toml"), encoding="utf-8") as f:
+        return head + f.read() + tail
+
+
 def write(path, text):
     with open(path, "w") as f:
         f.write(text)
