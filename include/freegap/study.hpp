@@ -42,6 +42,8 @@ class Study {
   /// One runner per size, in the job's order: its path (`path()`) and what it computes
   /// (`explain()`). Empty for a study of an expression alone.
   const std::vector<model::SizeRunner>& runners() const { return runners_; }
+  /// Why size `i` takes its path, in one sentence for `plan` and `run --explain`.
+  std::string path_reason(std::size_t i) const;
   /// The work units of size `i`: trials in blocks of the job's trials_per_unit, the last one
   /// shorter (unit u holds trials [u·B, min((u+1)·B, T))).
   std::int64_t unit_count(std::size_t i) const;

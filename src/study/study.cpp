@@ -138,6 +138,25 @@ Study Study::of_stored_job(const std::string& job_text, const std::string& job_c
   throw InputError(last_error + (run_file.empty() ? "" : " (looked for beside the run file too)"));
 }
 
+std::string Study::path_reason(std::size_t i) const {
+  const model::SizeRunner& runner = runners_.at(i);
+  if (runner.path() == model::Path::tridiagonal) {
+    return "tridiagonal: the expression is a·X + b of one matrix with an exact tridiagonal model "
+           "(Dumitriu & Edelman 2002) and its eigenvalues are observed, so a trial costs O(N) "
+           "memory and no dense matrix";
+  }
+  model::Model unforced = model_of(job_);
+  unforced.force_dense = false;
+  if (model::SizeRunner(unforced, runner.size()).path() == model::Path::tridiagonal) {
+    return job_.force_dense
+               ? "dense: forced by force_dense in [run] (the tridiagonal path would apply)"
+               : "dense: the estimators read every trial's spectrum, which only the dense path "
+                 "computes (the tridiagonal path would apply otherwise)";
+  }
+  return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
+         "β-ensemble matrix with its eigenvalues observed";
+}
+
 std::int64_t Study::unit_count(std::size_t i) const {
   const std::int64_t b = job_.trials_per_unit;
   return b <= 0 ? 0 : (job_.trials.at(i) + b - 1) / b;
