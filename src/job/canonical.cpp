@@ -51,6 +51,71 @@ std::string law_words(const declarations::DiagonalLaw& law) {
   return "law = ?";
 }
 
+// Appends the line of matrix `m`, the i-th of the job (`file_digests` holds the digests of
+// eigenvalue files, by matrix).
+void append_matrix(std::string& out, const declarations::MatrixSpec& m, std::size_t i,
+                   const std::vector<std::string>& file_digests) {
+  // Parameters that apply to the ensemble only: the others are unused defaults, and printing
+  // them would tie the hash to defaults that do not affect the numbers.
+  out += "matrix " + m.name + ": ensemble = " + std::string(declarations::kind_name(m.kind));
+  switch (m.kind) {
+    case Kind::wishart_complex:
+    case Kind::wishart_real:
+    case Kind::ginibre_complex:
+    case Kind::ginibre_real:
+      out += "; ratio = " + exact(m.ratio);
+      break;
+    case Kind::haar_unitary:
+    case Kind::haar_orthogonal:
+      out += m.haar == declarations::HaarMethod::qr ? "; method = qr" : "; method = polar";
+      break;
+    case Kind::diagonal:
+      out += "; " + law_words(m.diagonal);
+      if (m.diagonal.kind == DiagonalLawKind::file) {
+        out += "; values = " + (i < file_digests.size() ? file_digests[i] : std::string("?"));
+      }
+      break;
+    case Kind::gue:
+    case Kind::goe:
+    case Kind::wigner_rademacher:
+      break;
+    case Kind::beta_hermite:
+      out += "; beta = " + exact(m.beta);
+      break;
+    case Kind::beta_laguerre:
+      out += "; beta = " + exact(m.beta) + "; ratio = " + exact(m.ratio);
+      break;
+  }
+  out += "\n";
+}
+
+// Appends the lines of estimator `e`: its source, timeout, parameters and truths.
+void append_estimator(std::string& out, const EstimatorSpec& e) {
+  out += "estimator " + e.name + ":";
+  switch (e.source) {
+    case EstimatorSpec::Source::builtin:
+      out += " builtin = " + with_length(e.builtin);
+      break;
+    case EstimatorSpec::Source::library:
+      out += " library sha256 = " + e.library_digest;
+      break;
+    case EstimatorSpec::Source::command:
+      out += " command =";
+      for (const auto& word : e.command) {
+        out += ' ';
+        out += with_length(word);
+      }
+      break;
+  }
+  out += "; timeout = " + exact(e.timeout) + "\n";
+  for (const auto& [key, value] : e.parameters) {
+    out += "  parameter " + key + " = " + with_length(value) + "\n";
+  }
+  for (std::size_t i = 0; i < e.estimates.size(); ++i) {
+    out += "  estimate " + e.estimates[i] + ": truth = " + with_length(e.truths[i]) + "\n";
+  }
+}
+
 }  // namespace
 
 std::string Job::canonical() const {
@@ -69,39 +134,7 @@ std::string Job::canonical() const {
   }
   out += "\ntrials_per_unit = " + std::to_string(trials_per_unit) + "\n";
   for (std::size_t i = 0; i < matrices.size(); ++i) {
-    const auto& m = matrices[i];
-    // Parameters that apply to the ensemble only: the others are unused defaults, and printing
-    // them would tie the hash to defaults that do not affect the numbers.
-    out += "matrix " + m.name + ": ensemble = " + std::string(declarations::kind_name(m.kind));
-    switch (m.kind) {
-      case Kind::wishart_complex:
-      case Kind::wishart_real:
-      case Kind::ginibre_complex:
-      case Kind::ginibre_real:
-        out += "; ratio = " + exact(m.ratio);
-        break;
-      case Kind::haar_unitary:
-      case Kind::haar_orthogonal:
-        out += m.haar == declarations::HaarMethod::qr ? "; method = qr" : "; method = polar";
-        break;
-      case Kind::diagonal:
-        out += "; " + law_words(m.diagonal);
-        if (m.diagonal.kind == DiagonalLawKind::file) {
-          out += "; values = " + (i < file_digests.size() ? file_digests[i] : std::string("?"));
-        }
-        break;
-      case Kind::gue:
-      case Kind::goe:
-      case Kind::wigner_rademacher:
-        break;
-      case Kind::beta_hermite:
-        out += "; beta = " + exact(m.beta);
-        break;
-      case Kind::beta_laguerre:
-        out += "; beta = " + exact(m.beta) + "; ratio = " + exact(m.ratio);
-        break;
-    }
-    out += "\n";
+    append_matrix(out, matrices[i], i, file_digests);
   }
   out += "expression = " + with_length(expression) + "\n";
   out += "observe: bins = " + std::to_string(observe.bins);
@@ -117,31 +150,7 @@ std::string Job::canonical() const {
   // Estimators define numbers in the file too (their estimates). Nothing is printed for a job
   // without them, so such jobs keep their hash. A library is identified by its bytes (the path is
   // where, not what); a command by its argv only — freegap cannot see what a program reads.
-  for (const auto& e : estimators) {
-    out += "estimator " + e.name + ":";
-    switch (e.source) {
-      case EstimatorSpec::Source::builtin:
-        out += " builtin = " + with_length(e.builtin);
-        break;
-      case EstimatorSpec::Source::library:
-        out += " library sha256 = " + e.library_digest;
-        break;
-      case EstimatorSpec::Source::command:
-        out += " command =";
-        for (const auto& word : e.command) {
-          out += ' ';
-          out += with_length(word);
-        }
-        break;
-    }
-    out += "; timeout = " + exact(e.timeout) + "\n";
-    for (const auto& [key, value] : e.parameters) {
-      out += "  parameter " + key + " = " + with_length(value) + "\n";
-    }
-    for (std::size_t i = 0; i < e.estimates.size(); ++i) {
-      out += "  estimate " + e.estimates[i] + ": truth = " + with_length(e.truths[i]) + "\n";
-    }
-  }
+  for (const auto& e : estimators) append_estimator(out, e);
   return out;
 }
 

@@ -446,19 +446,9 @@ std::string file_digest(const declarations::MatrixSpec& spec) {
   return std::to_string(values.size()) + " " + sha256_hex(text);
 }
 
-declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
-                                  const std::filesystem::path& base, bool read_files) {
-  const std::string prefix = "matrices." + std::string(name);
-  if (!is_identifier(name)) {
-    r.fail(prefix, "matrix name '" + std::string(name) +
-                       "' must be a letter followed by letters, digits or '_'; rename the table");
-  }
-  const toml::table& t = r.table(
-      node, prefix,
-      "declare it as [matrices." + std::string(name) + "] with ensemble = \"...\" under it");
-  declarations::MatrixSpec spec;
-  spec.name = std::string(name);
-
+// Reads matrix `prefix`'s ensemble into spec.kind; returns the ensemble's name as written.
+std::string read_ensemble(const Reader& r, const toml::table& t, const std::string& prefix,
+                          declarations::MatrixSpec& spec) {
   const std::string ensemble_key = prefix + ".ensemble";
   const toml::node* ensemble = t.get("ensemble");
   if (ensemble == nullptr) {
@@ -472,7 +462,12 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
   } catch (const InputError& e) {
     r.fail(ensemble_key, e.what());
   }
+  return kind_text;
+}
 
+// Reads a diagonal's law name into spec.diagonal.kind; returns whether law was given.
+bool read_law_name(const Reader& r, const toml::table& t, const std::string& prefix,
+                   declarations::MatrixSpec& spec) {
   const std::string law_key = prefix + ".law";
   bool law_given = false;
   if (spec.kind == Kind::diagonal) {
@@ -490,7 +485,12 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
       spec.diagonal.kind = it->kind;
     }
   }
+  return law_given;
+}
 
+// Refuses the earliest key of the matrix table that does not apply to its ensemble (or law).
+void check_matrix_keys(const Reader& r, const toml::table& t, const std::string& prefix,
+                       const declarations::MatrixSpec& spec, const std::string& kind_text) {
   // A key that does not apply here: a word of the matrix vocabulary gets its own message (the
   // user wrote a meaningful key in the wrong place), anything else is unknown. The earliest such
   // key in the file is reported.
@@ -512,6 +512,103 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
     r.fail(prefix + "." + std::string(offending),
            "does not apply to " + owner + " (its keys: " + join(keys) + "); remove it");
   }
+}
+
+// Reads law "file"'s path and, with `read_files`, checks that the file can be read.
+void read_law_file(const Reader& r, const toml::table& t, const std::string& prefix,
+                   const std::filesystem::path& base, bool read_files,
+                   declarations::DiagonalLaw& law) {
+  const std::string key = prefix + ".path";
+  const toml::node* v = t.get("path");
+  if (v == nullptr) {
+    r.fail_at(r.line(prefix), key,
+              "missing; law \"file\" needs path = \"...\" (a text file of numbers, relative "
+              "to the job file's directory)");
+  }
+  const std::string given = r.string(*v, key, "a file path in quotes");
+  if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
+  const std::filesystem::path resolved = base / std::filesystem::path(given);
+  r.check_confined(key, given, resolved);
+  law.path = resolved.string();
+  if (!read_files) return;
+  // Checked here, with the system's reason, before the sampler's more general message.
+  std::FILE* f = std::fopen(law.path.c_str(), "r");
+  if (f == nullptr) {
+    r.fail(key, "cannot read eigenvalue file '" + law.path + "': " + std::strerror(errno) +
+                    "; a relative path is relative to the job file's directory");
+  }
+  std::fclose(f);
+  std::error_code ignored;
+  if (std::filesystem::is_directory(resolved, ignored)) {
+    r.fail(key, "'" + law.path + "' is a directory; give the eigenvalue file's path");
+  }
+}
+
+// Reads the parameters of a diagonal's law (law.kind already read).
+void read_diagonal_law(const Reader& r, const toml::table& t, const std::string& prefix,
+                       bool law_given, const std::filesystem::path& base, bool read_files,
+                       declarations::DiagonalLaw& law) {
+  switch (law.kind) {
+    case DiagonalLawKind::atoms: {
+      const toml::node* v = t.get("atoms");
+      if (v == nullptr) {
+        if (law_given) {
+          r.fail_at(r.line(prefix), prefix + ".atoms",
+                    "missing; add atoms = [[value, weight], ...] with weights summing to 1");
+        }
+        r.fail(prefix,
+               "a diagonal needs atoms = [[value, weight], ...] or a law = \"...\" "
+               "(uniform, semicircle, marchenko_pastur, file); add one");
+      }
+      law.atoms = read_atoms(r, *v, prefix + ".atoms");
+      break;
+    }
+    case DiagonalLawKind::uniform: {
+      const toml::node* low = t.get("low");
+      const toml::node* high = t.get("high");
+      if (low == nullptr || high == nullptr) {
+        r.fail_at(r.line(prefix), prefix + (low == nullptr ? ".low" : ".high"),
+                  "missing; law \"uniform\" needs both low and high, e.g. low = 0 and high = 1");
+      }
+      law.low = r.finite_number(*low, prefix + ".low");
+      law.high = r.finite_number(*high, prefix + ".high");
+      if (!(law.low < law.high)) {
+        r.fail(prefix + ".high", "must be greater than low (got low = " + short_number(law.low) +
+                                     ", high = " + short_number(law.high) + ")");
+      }
+      break;
+    }
+    case DiagonalLawKind::semicircle_quantiles:
+      if (const toml::node* v = t.get("variance")) {
+        law.variance = r.positive_number(*v, prefix + ".variance");
+      }
+      break;
+    case DiagonalLawKind::marchenko_pastur_quantiles:
+      if (const toml::node* v = t.get("ratio"))
+        law.ratio = r.positive_number(*v, prefix + ".ratio");
+      break;
+    case DiagonalLawKind::file:
+      read_law_file(r, t, prefix, base, read_files, law);
+      break;
+  }
+}
+
+declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
+                                  const std::filesystem::path& base, bool read_files) {
+  const std::string prefix = "matrices." + std::string(name);
+  if (!is_identifier(name)) {
+    r.fail(prefix, "matrix name '" + std::string(name) +
+                       "' must be a letter followed by letters, digits or '_'; rename the table");
+  }
+  const toml::table& t = r.table(
+      node, prefix,
+      "declare it as [matrices." + std::string(name) + "] with ensemble = \"...\" under it");
+  declarations::MatrixSpec spec;
+  spec.name = std::string(name);
+
+  const std::string kind_text = read_ensemble(r, t, prefix, spec);
+  const bool law_given = read_law_name(r, t, prefix, spec);
+  check_matrix_keys(r, t, prefix, spec, kind_text);
 
   if (spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre) {
     if (const toml::node* v = t.get("beta")) spec.beta = r.positive_number(*v, prefix + ".beta");
@@ -533,79 +630,65 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
       }
     }
   } else if (spec.kind == Kind::diagonal) {
-    auto& law = spec.diagonal;
-    switch (law.kind) {
-      case DiagonalLawKind::atoms: {
-        const toml::node* v = t.get("atoms");
-        if (v == nullptr) {
-          if (law_given) {
-            r.fail_at(r.line(prefix), prefix + ".atoms",
-                      "missing; add atoms = [[value, weight], ...] with weights summing to 1");
-          }
-          r.fail(prefix,
-                 "a diagonal needs atoms = [[value, weight], ...] or a law = \"...\" "
-                 "(uniform, semicircle, marchenko_pastur, file); add one");
-        }
-        law.atoms = read_atoms(r, *v, prefix + ".atoms");
-        break;
-      }
-      case DiagonalLawKind::uniform: {
-        const toml::node* low = t.get("low");
-        const toml::node* high = t.get("high");
-        if (low == nullptr || high == nullptr) {
-          r.fail_at(r.line(prefix), prefix + (low == nullptr ? ".low" : ".high"),
-                    "missing; law \"uniform\" needs both low and high, e.g. low = 0 and high = 1");
-        }
-        law.low = r.finite_number(*low, prefix + ".low");
-        law.high = r.finite_number(*high, prefix + ".high");
-        if (!(law.low < law.high)) {
-          r.fail(prefix + ".high", "must be greater than low (got low = " + short_number(law.low) +
-                                       ", high = " + short_number(law.high) + ")");
-        }
-        break;
-      }
-      case DiagonalLawKind::semicircle_quantiles:
-        if (const toml::node* v = t.get("variance")) {
-          law.variance = r.positive_number(*v, prefix + ".variance");
-        }
-        break;
-      case DiagonalLawKind::marchenko_pastur_quantiles:
-        if (const toml::node* v = t.get("ratio"))
-          law.ratio = r.positive_number(*v, prefix + ".ratio");
-        break;
-      case DiagonalLawKind::file: {
-        const std::string key = prefix + ".path";
-        const toml::node* v = t.get("path");
-        if (v == nullptr) {
-          r.fail_at(r.line(prefix), key,
-                    "missing; law \"file\" needs path = \"...\" (a text file of numbers, relative "
-                    "to the job file's directory)");
-        }
-        const std::string given = r.string(*v, key, "a file path in quotes");
-        if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
-        const std::filesystem::path resolved = base / std::filesystem::path(given);
-        r.check_confined(key, given, resolved);
-        law.path = resolved.string();
-        if (!read_files) break;
-        // Checked here, with the system's reason, before the sampler's more general message.
-        std::FILE* f = std::fopen(law.path.c_str(), "r");
-        if (f == nullptr) {
-          r.fail(key, "cannot read eigenvalue file '" + law.path + "': " + std::strerror(errno) +
-                          "; a relative path is relative to the job file's directory");
-        }
-        std::fclose(f);
-        std::error_code ignored;
-        if (std::filesystem::is_directory(resolved, ignored)) {
-          r.fail(key, "'" + law.path + "' is a directory; give the eigenvalue file's path");
-        }
-        break;
-      }
-    }
+    read_diagonal_law(r, t, prefix, law_given, base, read_files, spec.diagonal);
   }
   return spec;
 }
 
 // ---- observe and run ---------------------------------------------------------------------------
+
+// Reads observe.range ("auto" or [low, high]) into `s`; s.bins is already read.
+void read_observe_range(const Reader& r, const toml::node& v, ObserveSettings& s) {
+  const std::string rule = "\"auto\" or a list [low, high]";
+  if (const auto* text = v.as_string()) {
+    if (text->get() != "auto") {
+      r.fail("observe.range", "must be " + rule + " (got \"" + text->get() + "\")");
+    }
+  } else if (const auto* list = v.as_array()) {
+    if (list->size() != 2) {
+      r.fail("observe.range",
+             "must be " + rule + " (got a list of " + std::to_string(list->size()) + ")");
+    }
+    s.auto_range = false;
+    s.low = r.finite_number((*list)[0], "observe.range");
+    s.high = r.finite_number((*list)[1], "observe.range");
+    if (!(s.low < s.high)) {
+      r.fail("observe.range", "low must be less than high (got [" + short_number(s.low) + ", " +
+                                  short_number(s.high) + "]); write [low, high] with low < high");
+    }
+    // The histogram's own rule (edges finite and strictly increasing after rounding).
+    try {
+      (void)observe::uniform_edges(s.low, s.high, s.bins);
+    } catch (const InputError& e) {
+      std::string what = e.what();
+      if (what.rfind("observe: ", 0) == 0) what.erase(0, 9);  // the key names the place already
+      r.fail("observe.range", what);
+    }
+  } else {
+    r.fail("observe.range", "must be " + rule + " (got " + describe(v) + ")");
+  }
+}
+
+// Reads observe.keep_spectra (a rule word or a number of trials) into `s`.
+void read_keep_spectra(const Reader& r, const toml::node& v, ObserveSettings& s) {
+  if (const auto* text = v.as_string()) {
+    const std::string word = text->get();
+    if (word != "auto" && word != "all" && word != "none") {
+      r.fail_node(
+          v, "observe.keep_spectra",
+          "must be \"auto\", \"all\", \"none\" or a number of trials ≥ 0 (got \"" + word + "\")");
+    }
+    s.keep_spectra_rule = word;
+  } else {
+    s.keep_spectra =
+        r.integer(v, "observe.keep_spectra", "\"auto\", \"all\", \"none\" or an integer ≥ 0");
+    if (s.keep_spectra < 0) {
+      r.fail("observe.keep_spectra",
+             "must be at least 0 (got " + std::to_string(s.keep_spectra) + ")");
+    }
+    s.keep_spectra_rule = "first k";
+  }
+}
 
 ObserveSettings read_observe(const Reader& r, const toml::table& t) {
   r.check_keys(t, "observe", {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum"},
@@ -620,36 +703,7 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
                                  std::to_string(s.bins) + ")");
     }
   }
-  if (const toml::node* v = t.get("range")) {
-    const std::string rule = "\"auto\" or a list [low, high]";
-    if (const auto* text = v->as_string()) {
-      if (text->get() != "auto") {
-        r.fail("observe.range", "must be " + rule + " (got \"" + text->get() + "\")");
-      }
-    } else if (const auto* list = v->as_array()) {
-      if (list->size() != 2) {
-        r.fail("observe.range",
-               "must be " + rule + " (got a list of " + std::to_string(list->size()) + ")");
-      }
-      s.auto_range = false;
-      s.low = r.finite_number((*list)[0], "observe.range");
-      s.high = r.finite_number((*list)[1], "observe.range");
-      if (!(s.low < s.high)) {
-        r.fail("observe.range", "low must be less than high (got [" + short_number(s.low) + ", " +
-                                    short_number(s.high) + "]); write [low, high] with low < high");
-      }
-      // The histogram's own rule (edges finite and strictly increasing after rounding).
-      try {
-        (void)observe::uniform_edges(s.low, s.high, s.bins);
-      } catch (const InputError& e) {
-        std::string what = e.what();
-        if (what.rfind("observe: ", 0) == 0) what.erase(0, 9);  // the key names the place already
-        r.fail("observe.range", what);
-      }
-    } else {
-      r.fail("observe.range", "must be " + rule + " (got " + describe(*v) + ")");
-    }
-  }
+  if (const toml::node* v = t.get("range")) read_observe_range(r, *v, s);
   if (const toml::node* v = t.get("margin")) {
     if (!s.auto_range) {
       r.fail("observe.margin",
@@ -669,25 +723,7 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
     }
     s.max_moment = static_cast<int>(k);
   }
-  if (const toml::node* v = t.get("keep_spectra")) {
-    if (const auto* text = v->as_string()) {
-      const std::string word = text->get();
-      if (word != "auto" && word != "all" && word != "none") {
-        r.fail_node(*v, "observe.keep_spectra",
-                    "must be \"auto\", \"all\", \"none\" or a number of trials ≥ 0 (got \"" +
-                        word + "\")");
-      }
-      s.keep_spectra_rule = word;
-    } else {
-      s.keep_spectra = r.integer(*v, "observe.keep_spectra",
-                                 "\"auto\", \"all\", \"none\" or an integer ≥ 0");
-      if (s.keep_spectra < 0) {
-        r.fail("observe.keep_spectra",
-               "must be at least 0 (got " + std::to_string(s.keep_spectra) + ")");
-      }
-      s.keep_spectra_rule = "first k";
-    }
-  }
+  if (const toml::node* v = t.get("keep_spectra")) read_keep_spectra(r, *v, s);
   if (const toml::node* v = t.get("spectrum")) {
     const std::string text = r.string(*v, "observe.spectrum", "\"auto\" or \"singular_values\"");
     if (text == "singular_values") {
@@ -790,44 +826,35 @@ std::string read_truth_text(const Reader& r, const toml::node& node, std::string
   r.fail_node(node, key, "must be " + forms + " (got \"" + text + "\")");
 }
 
-EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t index,
-                             const std::filesystem::path& base,
-                             const std::vector<declarations::MatrixSpec>& matrices,
-                             std::map<std::string, int, std::less<>>& lines, bool read_library) {
-  EstimatorSpec e;
-  std::string prefix = "estimator[" + std::to_string(index) + "]";
-  const int table_line = static_cast<int>(t.source().begin.line);
-  const auto note_lines = [&](const toml::table& table, const std::string& at) {
-    for (auto&& [key, node] : table) {
-      lines.emplace(at + "." + std::string(key.str()), static_cast<int>(key.source().begin.line));
-    }
-  };
+// Records the line of every key of `table`, under the dotted prefix `at`.
+void note_lines(std::map<std::string, int, std::less<>>& lines, const toml::table& table,
+                const std::string& at) {
+  for (auto&& [key, node] : table) {
+    lines.emplace(at + "." + std::string(key.str()), static_cast<int>(key.source().begin.line));
+  }
+}
+
+// Reads and checks the name of the index-th [[estimator]], which starts on `table_line`.
+std::string read_estimator_name(const Reader& r, const toml::table& t, std::size_t index,
+                                int table_line) {
+  const std::string prefix = "estimator[" + std::to_string(index) + "]";
   const toml::node* name = t.get("name");
   if (name == nullptr) {
     r.fail_at(table_line, prefix, "has no name; add name = \"...\" (letters, digits, '_')");
   }
-  e.name = r.string(*name, prefix + ".name", "a name in quotes");
-  if (!is_identifier(e.name) || e.name.size() > 64) {
+  std::string text = r.string(*name, prefix + ".name", "a name in quotes");
+  if (!is_identifier(text) || text.size() > 64) {
     r.fail_node(*name, prefix + ".name",
                 "must start with a letter and hold only letters, digits and '_', at most 64 "
-                "characters (got \"" + e.name + "\")");
+                "characters (got \"" + text + "\")");
   }
-  prefix = "estimator." + e.name;
-  note_lines(t, prefix);
-  lines.emplace(prefix, table_line);
-  r.check_keys(t, prefix, {"name", "builtin", "library", "command", "timeout", "parameters", "truth"},
-               " in an [[estimator]]");
-  const int sources = (t.get("builtin") ? 1 : 0) + (t.get("library") ? 1 : 0) +
-                      (t.get("command") ? 1 : 0);
-  if (sources != 1) {
-    r.fail(prefix, sources == 0 ? "says nowhere to get estimates from; add builtin = \"...\", "
-                                  "library = \"path.so\" or command = [\"program\", ...]"
-                                : "gives more than one of builtin, library and command; keep one");
-  }
-  if (const toml::node* v = t.get("builtin")) {
-    e.source = EstimatorSpec::Source::builtin;
-    e.builtin = r.string(*v, prefix + ".builtin", "the name of a built-in estimator in quotes");
-  }
+  return text;
+}
+
+// Reads an estimator's library path and, with `read_library`, the digest of its bytes.
+void read_estimator_library(const Reader& r, const toml::table& t, const std::string& prefix,
+                            const std::filesystem::path& base, bool read_library,
+                            EstimatorSpec& e) {
   if (const toml::node* v = t.get("library")) {
     e.source = EstimatorSpec::Source::library;
     const std::string given = r.string(*v, prefix + ".library", "a file path in quotes");
@@ -849,57 +876,66 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
     bytes << in.rdbuf();
     e.library_digest = sha256_hex(bytes.str());
   }
-  if (const toml::node* v = t.get("command")) {
-    e.source = EstimatorSpec::Source::command;
-    const auto* list = v->as_array();
-    const std::string rule = "a list of strings: the program and its arguments, e.g. "
-                             "[\"python3\", \"estimate.py\"]";
-    if (list == nullptr || list->empty()) {
-      r.fail_node(*v, prefix + ".command", "must be " + rule);
-    }
-    for (const auto& item : *list) e.command.push_back(r.string(item, prefix + ".command", rule));
-    if (e.command[0].empty()) r.fail_node(*v, prefix + ".command", "names an empty program");
-    r.check_confined_program(prefix + ".command", e.command[0]);
-    if (e.command[0].find('/') != std::string::npos) {
-      r.check_confined(prefix + ".command", e.command[0],
-                       base / std::filesystem::path(e.command[0]));
-    }
-    if (e.command[0].find('/') != std::string::npos && e.command[0][0] != '/') {
-      e.command[0] = (base / std::filesystem::path(e.command[0])).string();
-    }
+}
+
+// Reads an estimator's command (program and arguments); a program path with a '/' is made
+// relative to the job file's directory.
+void read_estimator_command(const Reader& r, const toml::node& v, const std::string& prefix,
+                            const std::filesystem::path& base, EstimatorSpec& e) {
+  e.source = EstimatorSpec::Source::command;
+  const auto* list = v.as_array();
+  const std::string rule = "a list of strings: the program and its arguments, e.g. "
+                           "[\"python3\", \"estimate.py\"]";
+  if (list == nullptr || list->empty()) {
+    r.fail_node(v, prefix + ".command", "must be " + rule);
   }
-  if (const toml::node* v = t.get("timeout")) {
-    e.timeout = r.positive_number(*v, prefix + ".timeout");
+  for (const auto& item : *list) e.command.push_back(r.string(item, prefix + ".command", rule));
+  if (e.command[0].empty()) r.fail_node(v, prefix + ".command", "names an empty program");
+  r.check_confined_program(prefix + ".command", e.command[0]);
+  if (e.command[0].find('/') != std::string::npos) {
+    r.check_confined(prefix + ".command", e.command[0], base / std::filesystem::path(e.command[0]));
   }
-  if (const toml::node* v = t.get("parameters")) {
-    const auto& params = r.table(*v, prefix + ".parameters",
-                                 "write [estimator.parameters] and key = value under it");
-    note_lines(params, prefix + ".parameters");
-    for (auto&& [key, node] : params) {
-      const std::string at = prefix + ".parameters." + std::string(key.str());
-      std::string value;
-      if (const auto* s = node.as_string()) {
-        value = s->get();
-      } else if (const auto* i = node.as_integer()) {
-        value = std::to_string(i->get());
-      } else if (const auto* f = node.as_floating_point()) {
-        value = short_number(f->get());
-      } else if (const auto* b = node.as_boolean()) {
-        value = b->get() ? "true" : "false";
-      } else {
-        r.fail_node(node, at, "must be a string, a number or a boolean (got " + describe(node) + ")");
-      }
-      e.parameters.emplace_back(std::string(key.str()), value);
+  if (e.command[0].find('/') != std::string::npos && e.command[0][0] != '/') {
+    e.command[0] = (base / std::filesystem::path(e.command[0])).string();
+  }
+}
+
+// Reads an estimator's [estimator.parameters] table, every value as text.
+void read_estimator_parameters(const Reader& r, const toml::node& v, const std::string& prefix,
+                               std::map<std::string, int, std::less<>>& lines, EstimatorSpec& e) {
+  const auto& params =
+      r.table(v, prefix + ".parameters", "write [estimator.parameters] and key = value under it");
+  note_lines(lines, params, prefix + ".parameters");
+  for (auto&& [key, node] : params) {
+    const std::string at = prefix + ".parameters." + std::string(key.str());
+    std::string value;
+    if (const auto* s = node.as_string()) {
+      value = s->get();
+    } else if (const auto* i = node.as_integer()) {
+      value = std::to_string(i->get());
+    } else if (const auto* f = node.as_floating_point()) {
+      value = short_number(f->get());
+    } else if (const auto* b = node.as_boolean()) {
+      value = b->get() ? "true" : "false";
+    } else {
+      r.fail_node(node, at, "must be a string, a number or a boolean (got " + describe(node) + ")");
     }
+    e.parameters.emplace_back(std::string(key.str()), value);
   }
+}
+
+// Reads an estimator's [estimator.truth] table: its estimates' names and their truths.
+void read_estimator_truths(const Reader& r, const toml::table& t, const std::string& prefix,
+                           const std::vector<declarations::MatrixSpec>& matrices,
+                           std::map<std::string, int, std::less<>>& lines, EstimatorSpec& e) {
   const toml::node* truth = t.get("truth");
   if (truth == nullptr) {
     r.fail(prefix, "has no [estimator.truth]; name each estimate's truth, e.g. "
                    "second_moment = \"matrix_moment:T:4\" or a number");
   }
-  const auto& truths = r.table(*truth, prefix + ".truth",
-                               "write [estimator.truth] and estimate = truth under it");
-  note_lines(truths, prefix + ".truth");
+  const auto& truths =
+      r.table(*truth, prefix + ".truth", "write [estimator.truth] and estimate = truth under it");
+  note_lines(lines, truths, prefix + ".truth");
   if (truths.empty()) r.fail(prefix + ".truth", "names no estimate; add estimate = truth");
   for (auto&& [key, node] : truths) {
     const std::string at = prefix + ".truth." + std::string(key.str());
@@ -919,7 +955,144 @@ EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t 
     e.estimates.emplace_back(key.str());
     e.truths.push_back(text);
   }
+}
+
+EstimatorSpec read_estimator(const Reader& r, const toml::table& t, std::size_t index,
+                             const std::filesystem::path& base,
+                             const std::vector<declarations::MatrixSpec>& matrices,
+                             std::map<std::string, int, std::less<>>& lines, bool read_library) {
+  EstimatorSpec e;
+  const int table_line = static_cast<int>(t.source().begin.line);
+  e.name = read_estimator_name(r, t, index, table_line);
+  const std::string prefix = "estimator." + e.name;
+  note_lines(lines, t, prefix);
+  lines.emplace(prefix, table_line);
+  r.check_keys(t, prefix, {"name", "builtin", "library", "command", "timeout", "parameters", "truth"},
+               " in an [[estimator]]");
+  const int sources = (t.get("builtin") ? 1 : 0) + (t.get("library") ? 1 : 0) +
+                      (t.get("command") ? 1 : 0);
+  if (sources != 1) {
+    r.fail(prefix, sources == 0 ? "says nowhere to get estimates from; add builtin = \"...\", "
+                                  "library = \"path.so\" or command = [\"program\", ...]"
+                                : "gives more than one of builtin, library and command; keep one");
+  }
+  if (const toml::node* v = t.get("builtin")) {
+    e.source = EstimatorSpec::Source::builtin;
+    e.builtin = r.string(*v, prefix + ".builtin", "the name of a built-in estimator in quotes");
+  }
+  read_estimator_library(r, t, prefix, base, read_library, e);
+  if (const toml::node* v = t.get("command")) read_estimator_command(r, *v, prefix, base, e);
+  if (const toml::node* v = t.get("timeout")) {
+    e.timeout = r.positive_number(*v, prefix + ".timeout");
+  }
+  if (const toml::node* v = t.get("parameters")) {
+    read_estimator_parameters(r, *v, prefix, lines, e);
+  }
+  read_estimator_truths(r, t, prefix, matrices, lines, e);
   return e;
+}
+
+// Parses the job's TOML text; a syntax error is reported at its line and column.
+toml::table parse_document(std::string_view text, const std::string& path) {
+  toml::table doc;
+  try {
+    doc = toml::parse(text, std::string_view(path));
+  } catch (const toml::parse_error& e) {
+    throw InputError(path + ":" + std::to_string(e.source().begin.line) + ":" +
+                     std::to_string(e.source().begin.column) +
+                     ": TOML syntax: " + std::string(e.description()));
+  }
+  return doc;
+}
+
+// Reads the required seed (an integer ≥ 0).
+std::uint64_t read_seed(const Reader& r, const toml::table& doc) {
+  const toml::node* seed = doc.get("seed");
+  if (seed == nullptr) r.fail_at(0, "seed", "missing; add seed = <integer ≥ 0>, e.g. seed = 1");
+  const std::int64_t seed_value = r.integer(*seed, "seed", "an integer ≥ 0");
+  if (seed_value < 0) {
+    r.fail("seed", "must be an integer ≥ 0 (got " + std::to_string(seed_value) + ")");
+  }
+  return static_cast<std::uint64_t>(seed_value);
+}
+
+// Reads the required expression (not blank).
+std::string read_expression(const Reader& r, const toml::table& doc) {
+  const toml::node* expression = doc.get("expression");
+  if (expression == nullptr) {
+    r.fail_at(0, "expression", "missing; add the expression to study, e.g. expression = \"X + Y\"");
+  }
+  std::string text = r.string(*expression, "expression", "a string in quotes, e.g. \"X + Y\"");
+  if (text.find_first_not_of(" \t\r\n") == std::string::npos) {
+    r.fail("expression", "is empty; write the expression to study, e.g. expression = \"X + Y\"");
+  }
+  return text;
+}
+
+// Reads the [matrices.NAME] tables into job.matrices, sorted by name.
+void read_matrices(const Reader& r, const toml::table& doc, const std::filesystem::path& base,
+                   bool read_files, Job& job) {
+  const std::string matrices_example =
+      "declare each matrix as [matrices.NAME] with ensemble = \"...\"";
+  const toml::node* matrices = doc.get("matrices");
+  if (matrices == nullptr) r.fail_at(0, "matrices", "missing; " + matrices_example);
+  const toml::table& matrix_table = r.table(*matrices, "matrices", matrices_example);
+  if (matrix_table.empty()) r.fail("matrices", "declares no matrix; " + matrices_example);
+  // toml::table keeps its keys sorted, so this is already the canonical (sorted by name) order.
+  for (auto&& [key, node] : matrix_table) {
+    job.matrices.push_back(read_matrix(r, key.str(), node, base, read_files));
+  }
+  std::sort(job.matrices.begin(), job.matrices.end(),
+            [](const auto& a, const auto& b) { return a.name < b.name; });
+}
+
+// Validates every matrix of the job and reads the digests of eigenvalue files (with
+// `read_files`) into job.file_digests.
+void validate_matrices(const Reader& r, bool read_files, Job& job) {
+  // declarations::validate is the authority on a spec (the samplers run the same check), and
+  // an eigenvalue file is read here once; its message gets the place in the job file.
+  for (const auto& spec : job.matrices) {
+    const std::string key = "matrices." + spec.name;
+    std::string digest;
+    if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
+      job.file_digests.push_back(digest);  // the file is not read here
+      continue;
+    }
+    try {
+      declarations::validate(spec);
+      if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
+        digest = file_digest(spec);
+      }
+    } catch (const InputError& e) {
+      std::string what = e.what();
+      const std::string redundant = "matrix '" + spec.name + "': ";
+      if (what.rfind(redundant, 0) == 0) what.erase(0, redundant.size());
+      const bool about_file =
+          spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file;
+      r.fail(about_file ? key + ".path" : key, what);
+    }
+    job.file_digests.push_back(std::move(digest));
+  }
+}
+
+// Reads the [[estimator]] tables into job.estimators, refusing a name given twice.
+void read_estimators(const Reader& r, const toml::node& v, const std::filesystem::path& base,
+                     bool read_libraries, Job& job) {
+  const auto* list = v.as_array();
+  if (list == nullptr || !list->is_array_of_tables()) {
+    r.fail_node(v, "estimator", "must be a list of tables; write each as [[estimator]]");
+  }
+  for (std::size_t i = 0; i < list->size(); ++i) {
+    auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
+                               read_libraries);
+    for (const auto& other : job.estimators) {
+      if (other.name == spec.name) {
+        r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",
+                    "\"" + spec.name + "\" names two estimators; give each a name of its own");
+      }
+    }
+    job.estimators.push_back(std::move(spec));
+  }
 }
 
 }  // namespace
@@ -1010,14 +1183,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   job.text = std::string(text);
   Reader r(path, job.key_lines);
 
-  toml::table doc;
-  try {
-    doc = toml::parse(text, std::string_view(path));
-  } catch (const toml::parse_error& e) {
-    throw InputError(path + ":" + std::to_string(e.source().begin.line) + ":" +
-                     std::to_string(e.source().begin.column) +
-                     ": TOML syntax: " + std::string(e.description()));
-  }
+  const toml::table doc = parse_document(text, path);
   r.record_lines(doc, "");
 
   r.check_keys(doc, "",
@@ -1036,13 +1202,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
     if (job.name.empty()) r.fail("name", "is empty; name the study or remove the key");
   }
 
-  const toml::node* seed = doc.get("seed");
-  if (seed == nullptr) r.fail_at(0, "seed", "missing; add seed = <integer ≥ 0>, e.g. seed = 1");
-  const std::int64_t seed_value = r.integer(*seed, "seed", "an integer ≥ 0");
-  if (seed_value < 0) {
-    r.fail("seed", "must be an integer ≥ 0 (got " + std::to_string(seed_value) + ")");
-  }
-  job.seed = static_cast<std::uint64_t>(seed_value);
+  job.seed = read_seed(r, doc);
 
   const toml::node* sizes = doc.get("sizes");
   if (sizes == nullptr) {
@@ -1056,52 +1216,10 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
   }
   job.trials = read_trials(r, *trials, job.sizes);
 
-  const toml::node* expression = doc.get("expression");
-  if (expression == nullptr) {
-    r.fail_at(0, "expression", "missing; add the expression to study, e.g. expression = \"X + Y\"");
-  }
-  job.expression = r.string(*expression, "expression", "a string in quotes, e.g. \"X + Y\"");
-  if (job.expression.find_first_not_of(" \t\r\n") == std::string::npos) {
-    r.fail("expression", "is empty; write the expression to study, e.g. expression = \"X + Y\"");
-  }
+  job.expression = read_expression(r, doc);
 
-  const std::string matrices_example =
-      "declare each matrix as [matrices.NAME] with ensemble = \"...\"";
-  const toml::node* matrices = doc.get("matrices");
-  if (matrices == nullptr) r.fail_at(0, "matrices", "missing; " + matrices_example);
-  const toml::table& matrix_table = r.table(*matrices, "matrices", matrices_example);
-  if (matrix_table.empty()) r.fail("matrices", "declares no matrix; " + matrices_example);
-  // toml::table keeps its keys sorted, so this is already the canonical (sorted by name) order.
-  for (auto&& [key, node] : matrix_table) {
-    job.matrices.push_back(read_matrix(r, key.str(), node, base, read_files));
-  }
-  std::sort(job.matrices.begin(), job.matrices.end(),
-            [](const auto& a, const auto& b) { return a.name < b.name; });
-
-  // declarations::validate is the authority on a spec (the samplers run the same check), and
-  // an eigenvalue file is read here once; its message gets the place in the job file.
-  for (const auto& spec : job.matrices) {
-    const std::string key = "matrices." + spec.name;
-    std::string digest;
-    if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
-      job.file_digests.push_back(digest);  // the file is not read here
-      continue;
-    }
-    try {
-      declarations::validate(spec);
-      if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
-        digest = file_digest(spec);
-      }
-    } catch (const InputError& e) {
-      std::string what = e.what();
-      const std::string redundant = "matrix '" + spec.name + "': ";
-      if (what.rfind(redundant, 0) == 0) what.erase(0, redundant.size());
-      const bool about_file =
-          spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file;
-      r.fail(about_file ? key + ".path" : key, what);
-    }
-    job.file_digests.push_back(std::move(digest));
-  }
+  read_matrices(r, doc, base, read_files, job);
+  validate_matrices(r, read_files, job);
 
   if (const toml::node* v = doc.get("observe")) {
     job.observe = read_observe(r, r.table(*v, "observe", "write [observe] and its keys under it"));
@@ -1111,21 +1229,7 @@ Job parse_job(std::string_view text, const std::string& path, bool read_estimato
     read_run(r, r.table(*v, "run", "write [run] and its keys under it"), base, job);
   }
   if (const toml::node* v = doc.get("estimator")) {
-    const auto* list = v->as_array();
-    if (list == nullptr || !list->is_array_of_tables()) {
-      r.fail_node(*v, "estimator", "must be a list of tables; write each as [[estimator]]");
-    }
-    for (std::size_t i = 0; i < list->size(); ++i) {
-      auto spec = read_estimator(r, *list->get(i)->as_table(), i, base, job.matrices, job.key_lines,
-                                 read_estimator_libraries && read_files);
-      for (const auto& other : job.estimators) {
-        if (other.name == spec.name) {
-          r.fail_node(*list->get(i)->as_table()->get("name"), "estimator." + spec.name + ".name",
-                 "\"" + spec.name + "\" names two estimators; give each a name of its own");
-        }
-      }
-      job.estimators.push_back(std::move(spec));
-    }
+    read_estimators(r, *v, base, read_estimator_libraries && read_files, job);
   }
   return job;
 }

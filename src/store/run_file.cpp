@@ -1248,6 +1248,32 @@ std::string temp_name_for(const std::string& path) {
                    "or --fresh to start over");
 }
 
+// Moves the finished file `temp` to `path` (by rename, else by hard link, leaving `temp` to the
+// guard to remove), refusing when `path` exists.
+void move_into_place(const std::string& temp, const std::string& path, TempFile& guard) {
+  // Into place only now, and never over a file that appeared meanwhile. The open HDF5 handle
+  // follows the inode, so the file stays open under its new name.
+  if (::renameat2(AT_FDCWD, temp.c_str(), AT_FDCWD, path.c_str(), RENAME_NOREPLACE) != 0) {
+    const int error = errno;
+    if (error == EEXIST) refuse_existing(path);
+    bool moved = false;
+    if (error == EINVAL || error == ENOSYS) {
+      // A file system without RENAME_NOREPLACE: a hard link also refuses an existing target.
+      if (::link(temp.c_str(), path.c_str()) == 0) {
+        moved = true;
+      } else if (errno == EEXIST) {
+        refuse_existing(path);
+      }
+    }
+    if (!moved) {
+      throw InputError("cannot create run file '" + path + "' (" + std::strerror(error) +
+                       "); choose an output path in a directory you can write to");
+    }
+  } else {
+    guard.release();
+  }
+}
+
 }  // namespace
 
 // ---------------------------------------------------------------------------------------------
@@ -1331,27 +1357,7 @@ RunFile RunFile::create(const std::string& path, const RunHeader& header_in) {
     throw Error("cannot create run file '" + path + "': " + why);
   }
 
-  // Into place only now, and never over a file that appeared meanwhile. The open HDF5 handle
-  // follows the inode, so the file stays open under its new name.
-  if (::renameat2(AT_FDCWD, temp.c_str(), AT_FDCWD, path.c_str(), RENAME_NOREPLACE) != 0) {
-    const int error = errno;
-    if (error == EEXIST) refuse_existing(path);
-    bool moved = false;
-    if (error == EINVAL || error == ENOSYS) {
-      // A file system without RENAME_NOREPLACE: a hard link also refuses an existing target.
-      if (::link(temp.c_str(), path.c_str()) == 0) {
-        moved = true;
-      } else if (errno == EEXIST) {
-        refuse_existing(path);
-      }
-    }
-    if (!moved) {
-      throw InputError("cannot create run file '" + path + "' (" + std::strerror(error) +
-                       "); choose an output path in a directory you can write to");
-    }
-  } else {
-    guard.release();
-  }
+  move_into_place(temp, path, guard);
   return RunFile(std::move(impl));
 }
 
@@ -1671,13 +1677,22 @@ void RunFile::end_session(const std::string& status) {
   f.flush("flush the session record");
 }
 
-void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run) {
-  h5::quiet();
-  Impl& f = *impl_;
-  const auto refuse = [&](const std::string& why) {
-    throw Error("cannot write unit " + std::to_string(unit.unit) + " of size " +
-                std::to_string(unit.size_index) + " to run file '" + f.path + "': " + why);
-  };
+namespace {
+
+// ---------------------------------------------------------------------------------------------
+// Writing a unit
+
+// Refuses to write `unit` to the run file at `path`, saying why.
+[[noreturn]] void refuse_unit(const UnitResult& unit, const std::string& path,
+                              const std::string& why) {
+  throw Error("cannot write unit " + std::to_string(unit.unit) + " of size " +
+              std::to_string(unit.size_index) + " to run file '" + path + "': " + why);
+}
+
+// Refuses a unit the open file cannot take now: a read-only file, no open session, no such size
+// or unit, a committed unit, or an observe configuration, row count or histogram that differs.
+void check_unit_writable(const RunFile::Impl& f, const UnitResult& unit) {
+  const auto refuse = [&](const std::string& why) { refuse_unit(unit, f.path, why); };
   if (!f.writable) refuse("the file is open read-only");
   if (f.session < 0) refuse("no session is open (call begin_session first)");
   if (unit.size_index >= f.header.sizes.size()) refuse("no such size");
@@ -1696,6 +1711,28 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
   }
   const std::size_t bins = layout.observe.bins();
   if (obs.histogram.counts.size() != bins) refuse("its histogram has the wrong number of bins");
+}
+
+// One unit's content in the datasets' dense layout, and where it goes.
+struct UnitBlock {
+  std::size_t u = 0;  // the unit's row in the per-unit datasets
+  std::int64_t begin = 0;
+  std::size_t rows = 0, columns = 0, bins = 0, n = 0;
+  std::vector<double> moments, mins, maxs, norms;
+  std::vector<std::int8_t> failed;
+  std::vector<const char*> reasons;
+  std::size_t kept_begin = 0, kept_end = 0;  // the unit's rows among the kept spectra
+  std::vector<double> spectra;
+  std::vector<std::int64_t> lengths;
+};
+
+// Lays out the trial rows of a unit that check_unit_writable accepted, checking each row.
+UnitBlock unit_block(const UnitResult& unit, const SizeLayout& layout, const std::string& path) {
+  const auto refuse = [&](const std::string& why) { refuse_unit(unit, path, why); };
+  const observe::Observations& obs = unit.obs;
+  const std::int64_t begin = layout.unit_begin(unit.unit);
+  const std::int64_t end = layout.unit_end(unit.unit);
+  const auto rows = static_cast<std::size_t>(end - begin);
   const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
   const auto n = static_cast<std::size_t>(layout.n);
 
@@ -1741,29 +1778,46 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
       lengths[j] = static_cast<std::int64_t>(row.spectrum.size());
     }
   }
+  return UnitBlock{static_cast<std::size_t>(unit.unit),
+                   begin,
+                   rows,
+                   columns,
+                   layout.observe.bins(),
+                   n,
+                   std::move(moments),
+                   std::move(mins),
+                   std::move(maxs),
+                   std::move(norms),
+                   std::move(failed),
+                   std::move(reasons),
+                   kept_begin,
+                   kept_end,
+                   std::move(spectra),
+                   std::move(lengths)};
+}
 
-  const std::size_t columns_e = f.header.estimates.size();
-  const std::size_t estimators = f.header.estimators().size();
+// Refuses a unit whose estimates or estimate failure reasons do not fill its `rows` rows.
+void check_unit_estimates(const UnitResult& unit, const RunHeader& header, std::size_t rows,
+                          const std::string& path) {
+  const std::size_t columns_e = header.estimates.size();
+  const std::size_t estimators = header.estimators().size();
   if (unit.estimates.size() != rows * columns_e ||
       unit.estimate_failures.size() != rows * estimators) {
-    refuse("it holds " + std::to_string(unit.estimates.size()) + " estimates and " +
-           std::to_string(unit.estimate_failures.size()) + " estimate failure reasons, expected " +
-           std::to_string(rows * columns_e) + " and " + std::to_string(rows * estimators));
+    refuse_unit(unit, path,
+                "it holds " + std::to_string(unit.estimates.size()) + " estimates and " +
+                    std::to_string(unit.estimate_failures.size()) +
+                    " estimate failure reasons, expected " + std::to_string(rows * columns_e) +
+                    " and " + std::to_string(rows * estimators));
   }
-  std::vector<const char*> estimate_reasons;
-  for (const auto& reason : unit.estimate_failures) estimate_reasons.push_back(reason.c_str());
+}
 
-  const SizeHandles& s = f.sizes[unit.size_index];
-  const Where w = f.where();
-  const std::string what =
-      "write unit " + std::to_string(unit.unit) + " of size " + std::to_string(unit.size_index);
-  const hsize_t b = as_hsize(begin);
-  const hsize_t r = rows;
+// Reserves the room the unit needs past the file's end, or throws saying there is none.
+void reserve_unit_room(const RunFile::Impl& f, const UnitResult& unit) {
   // Room first. HDF5 records the grown end of the file in its superblock while it writes there,
   // so a write that fails for lack of room leaves a file that HDF5 then calls truncated. With the
   // room reserved beforehand, a full disk stops the run before any byte of the unit is written.
   std::size_t string_bytes = 0;
-  for (const auto& row : obs.trials) string_bytes += row.reason.size() + 16;
+  for (const auto& row : unit.obs.trials) string_bytes += row.reason.size() + 16;
   for (const auto& reason : unit.estimate_failures) string_bytes += reason.size() + 16;
   if (const int error = f.reserve_room(kRoomPerUnit + 2 * string_bytes); error != 0) {
     throw Error("run file '" + f.path + "': no room to write unit " + std::to_string(unit.unit) +
@@ -1771,6 +1825,110 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
                 "); the committed units are safe and the file is resumable: free space and run "
                 "the same command again");
   }
+}
+
+// Writes the unit's SHA-256 (of its content as laid out in `k`) to its row of unit_sha256.
+void write_unit_digest(const RunFile::Impl& f, const SizeHandles& s, const UnitResult& unit,
+                       const UnitBlock& k, const std::string& what) {
+  const observe::Observations& obs = unit.obs;
+  const Where w = f.where();
+  const std::size_t u = k.u;
+  UnitView view{k.moments,
+                k.mins,
+                k.maxs,
+                k.norms,
+                k.failed,
+                {},
+                obs.histogram.counts,
+                obs.histogram.below,
+                obs.histogram.above,
+                k.spectra,
+                k.lengths,
+                unit.estimates,
+                {}};
+  for (const char* reason : k.reasons) view.reasons.emplace_back(reason);
+  for (const auto& reason : unit.estimate_failures) view.estimate_failures.emplace_back(reason);
+  const Digest digest = unit_digest(view);
+  h5::overwrite_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes},
+                      digest.data(), w, what);
+}
+
+// Phase 1 of writing a unit: its rows at their fixed positions and its SHA-256, then flush.
+void write_unit_content(RunFile::Impl& f, const SizeHandles& s, const UnitResult& unit,
+                        const UnitBlock& k, const std::string& what) {
+  const observe::Observations& obs = unit.obs;
+  const Where w = f.where();
+  const std::size_t u = k.u;
+  const hsize_t b = as_hsize(k.begin);
+  const hsize_t r = k.rows;
+  const std::size_t columns = k.columns, bins = k.bins, n = k.n;
+  const std::size_t kept_begin = k.kept_begin, kept_end = k.kept_end;
+  const std::size_t columns_e = f.header.estimates.size();
+  const std::size_t estimators = f.header.estimators().size();
+  std::vector<const char*> estimate_reasons;
+  for (const auto& reason : unit.estimate_failures) estimate_reasons.push_back(reason.c_str());
+
+  h5::overwrite_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns}, k.moments.data(), w,
+                      what);
+  h5::overwrite_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {r}, k.mins.data(), w, what);
+  h5::overwrite_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {r}, k.maxs.data(), w, what);
+  h5::overwrite_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {r}, k.norms.data(), w, what);
+  h5::overwrite_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {r}, k.failed.data(), w, what);
+  h5::overwrite_block(s.failure_reason.get(), f.string_type.get(), {b}, {r}, k.reasons.data(), w,
+                      what);
+  h5::overwrite_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins},
+                      obs.histogram.counts.data(), w, what);
+  h5::overwrite_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.below, w,
+                      what);
+  h5::overwrite_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.above, w,
+                      what);
+  h5::overwrite_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0},
+                      {kept_end - kept_begin, n}, k.spectra.data(), w, what);
+  h5::overwrite_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
+                      {kept_end - kept_begin}, k.lengths.data(), w, what);
+  if (columns_e > 0) {
+    h5::overwrite_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns_e},
+                        unit.estimates.data(), w, what);
+    h5::overwrite_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
+                        estimate_reasons.data(), w, what);
+  }
+  if (f.checksummed) write_unit_digest(f, s, unit, k, what);
+  f.flush(what);
+}
+
+// Phase 2 of writing a unit: the commit marker (and the provenance record), then flush.
+void commit_unit(RunFile::Impl& f, const SizeHandles& s, const UnitResult& unit,
+                 const UnitProvenance& where_run, std::size_t u, const std::string& what) {
+  const Where w = f.where();
+  const std::int8_t one = 1;
+  h5::overwrite_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
+  const std::string committed_at = now_utc();
+  const UnitRow record{static_cast<std::int64_t>(unit.size_index),
+                       unit.unit,
+                       where_run.rank,
+                       where_run.host.c_str(),
+                       where_run.seconds,
+                       f.session,
+                       committed_at.c_str()};
+  append_row(f.unit_records.get(), f.unit_type.get(), &record, w, "append a unit record");
+  f.flush(what);
+}
+
+}  // namespace
+
+void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run) {
+  h5::quiet();
+  Impl& f = *impl_;
+  check_unit_writable(f, unit);
+  const UnitBlock k = unit_block(unit, f.header.sizes[unit.size_index], f.path);
+  check_unit_estimates(unit, f.header, k.rows, f.path);
+  const std::size_t u = k.u;
+
+  const SizeHandles& s = f.sizes[unit.size_index];
+  const Where w = f.where();
+  const std::string what =
+      "write unit " + std::to_string(unit.unit) + " of size " + std::to_string(unit.size_index);
+  reserve_unit_room(f, unit);
   try {
     // A unit found damaged is still marked committed in the file: unmark it first, so a kill
     // while it is rewritten leaves it uncommitted, never committed with half-written rows.
@@ -1783,66 +1941,11 @@ void RunFile::write_unit(const UnitResult& unit, const UnitProvenance& where_run
       f.marked[unit.size_index][u] = false;
     }
     // Phase 1: the unit's rows at their fixed positions and its SHA-256, then flush.
-    h5::overwrite_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns}, moments.data(), w,
-                        what);
-    h5::overwrite_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {r}, mins.data(), w, what);
-    h5::overwrite_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {r}, maxs.data(), w, what);
-    h5::overwrite_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {r}, norms.data(), w, what);
-    h5::overwrite_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {r}, failed.data(), w, what);
-    h5::overwrite_block(s.failure_reason.get(), f.string_type.get(), {b}, {r}, reasons.data(), w,
-                        what);
-    h5::overwrite_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u, 0}, {1, bins},
-                        obs.histogram.counts.data(), w, what);
-    h5::overwrite_block(s.unit_below.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.below, w,
-                        what);
-    h5::overwrite_block(s.unit_above.get(), H5T_NATIVE_INT64, {u}, {1}, &obs.histogram.above, w,
-                        what);
-    h5::overwrite_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0},
-                        {kept_end - kept_begin, n}, spectra.data(), w, what);
-    h5::overwrite_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin},
-                        {kept_end - kept_begin}, lengths.data(), w, what);
-    if (columns_e > 0) {
-      h5::overwrite_block(s.estimates.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, columns_e},
-                          unit.estimates.data(), w, what);
-      h5::overwrite_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
-                          estimate_reasons.data(), w, what);
-    }
-    if (f.checksummed) {
-      UnitView view{moments,
-                    mins,
-                    maxs,
-                    norms,
-                    failed,
-                    {},
-                    obs.histogram.counts,
-                    obs.histogram.below,
-                    obs.histogram.above,
-                    spectra,
-                    lengths,
-                    unit.estimates,
-                    {}};
-      for (const char* reason : reasons) view.reasons.emplace_back(reason);
-      for (const auto& reason : unit.estimate_failures) view.estimate_failures.emplace_back(reason);
-      const Digest digest = unit_digest(view);
-      h5::overwrite_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes},
-                          digest.data(), w, what);
-    }
-    f.flush(what);
+    write_unit_content(f, s, unit, k, what);
 
     // Phase 2: the commit marker (and the provenance record), then flush. A kill before this
     // flush completes leaves the marker unset, and the unit is redone on resume.
-    const std::int8_t one = 1;
-    h5::overwrite_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
-    const std::string committed_at = now_utc();
-    const UnitRow record{static_cast<std::int64_t>(unit.size_index),
-                         unit.unit,
-                         where_run.rank,
-                         where_run.host.c_str(),
-                         where_run.seconds,
-                         f.session,
-                         committed_at.c_str()};
-    append_row(f.unit_records.get(), f.unit_type.get(), &record, w, "append a unit record");
-    f.flush(what);
+    commit_unit(f, s, unit, where_run, u, what);
   } catch (const Error& e) {
     throw Error(std::string(e.what()) + "; the unit is not committed and will be redone on resume");
   }
@@ -1875,6 +1978,82 @@ std::vector<observe::Histogram> RunFile::read_unit_histograms(std::size_t size_i
   return out;
 }
 
+namespace {
+
+// Adds the histograms of the `units` consecutive units from `u0` to `histogram`.
+void add_unit_histograms(const SizeHandles& s, std::size_t u0, std::size_t units, std::size_t bins,
+                         Where w, const std::string& what, observe::Histogram& histogram) {
+  std::vector<std::int64_t> counts(units * bins), below(units), above(units);
+  h5::read_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u0, 0}, {units, bins}, counts.data(),
+                 w, what);
+  h5::read_block(s.unit_below.get(), H5T_NATIVE_INT64, {u0}, {units}, below.data(), w, what);
+  h5::read_block(s.unit_above.get(), H5T_NATIVE_INT64, {u0}, {units}, above.data(), w, what);
+  for (std::size_t i = 0; i < units; ++i) {
+    for (std::size_t k = 0; k < bins; ++k) histogram.counts[k] += counts[i * bins + k];
+    histogram.below += below[i];
+    histogram.above += above[i];
+  }
+}
+
+// Appends the trial rows of trials [begin, end) (whole committed units) to `trials`.
+void read_trial_rows(const SizeLayout& layout, const SizeHandles& s, std::int64_t begin,
+                     std::int64_t end, Where w, const std::string& what,
+                     std::vector<observe::TrialRecord>& trials) {
+  const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
+  const auto n = static_cast<std::size_t>(layout.n);
+  const auto& kept = layout.observe.keep_spectrum_trials;
+  const auto rows = static_cast<std::size_t>(end - begin);
+  const hsize_t b = as_hsize(begin);
+
+  std::vector<double> moments(rows * columns), mins(rows), maxs(rows), norms(rows);
+  std::vector<std::int8_t> failed(rows);
+  h5::read_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns}, moments.data(), w,
+                 what);
+  h5::read_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, mins.data(), w, what);
+  h5::read_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, maxs.data(), w, what);
+  h5::read_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, norms.data(), w, what);
+  h5::read_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {rows}, failed.data(), w, what);
+  const auto reasons = h5::read_strings(s.failure_reason.get(), b, rows, w, what);
+
+  const auto kept_begin = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(begin)) - kept.begin());
+  const auto kept_end = static_cast<std::size_t>(
+      std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) - kept.begin());
+  const std::size_t kept_rows = kept_end - kept_begin;
+  std::vector<double> spectra(kept_rows * n);
+  std::vector<std::int64_t> lengths(kept_rows);
+  h5::read_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_rows, n},
+                 spectra.data(), w, what);
+  h5::read_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin}, {kept_rows},
+                 lengths.data(), w, what);
+
+  for (std::size_t i = 0; i < rows; ++i) {
+    observe::TrialRecord row;
+    row.trial = static_cast<std::uint64_t>(begin) + i;
+    row.failed = failed[i] != 0;
+    row.reason = reasons[i];
+    if (!row.failed) {
+      row.moments.assign(moments.begin() + i * columns, moments.begin() + (i + 1) * columns);
+    }
+    row.min = mins[i];
+    row.max = maxs[i];
+    row.norm = norms[i];
+    const auto slot = std::lower_bound(kept.begin(), kept.end(), row.trial);
+    if (slot != kept.end() && *slot == row.trial) {
+      const auto j = static_cast<std::size_t>(slot - kept.begin()) - kept_begin;
+      if (lengths[j] < 0 || static_cast<std::size_t>(lengths[j]) > n) {
+        throw Error("spectrum_length of trial " + std::to_string(row.trial) + " is " +
+                    std::to_string(lengths[j]));
+      }
+      const auto first = spectra.begin() + static_cast<std::ptrdiff_t>(j * n);
+      row.spectrum.assign(first, first + lengths[j]);
+    }
+    trials.push_back(std::move(row));
+  }
+}
+
+}  // namespace
+
 observe::Observations RunFile::read_observations(std::size_t size_index) const {
   h5::quiet();
   const Impl& f = *impl_;
@@ -1887,9 +2066,6 @@ observe::Observations RunFile::read_observations(std::size_t size_index) const {
   const Where w = f.where();
   const std::string what = "read the rows of size " + std::to_string(size_index);
   const std::size_t bins = layout.observe.bins();
-  const auto columns = static_cast<std::size_t>(layout.observe.max_moment) + 1;
-  const auto n = static_cast<std::size_t>(layout.n);
-  const auto& kept = layout.observe.keep_spectrum_trials;
 
   observe::Observations obs = observe::start_observations(layout.observe);
   try {
@@ -1904,68 +2080,10 @@ observe::Observations RunFile::read_observations(std::size_t size_index) const {
       while (u1 < flags.size() && flags[u1]) ++u1;
       const std::int64_t begin = layout.unit_begin(static_cast<std::int64_t>(u0));
       const std::int64_t end = layout.unit_end(static_cast<std::int64_t>(u1) - 1);
-      const auto rows = static_cast<std::size_t>(end - begin);
-      const hsize_t b = as_hsize(begin);
       const std::size_t units = u1 - u0;
 
-      std::vector<std::int64_t> counts(units * bins), below(units), above(units);
-      h5::read_block(s.unit_histograms.get(), H5T_NATIVE_INT64, {u0, 0}, {units, bins},
-                     counts.data(), w, what);
-      h5::read_block(s.unit_below.get(), H5T_NATIVE_INT64, {u0}, {units}, below.data(), w, what);
-      h5::read_block(s.unit_above.get(), H5T_NATIVE_INT64, {u0}, {units}, above.data(), w, what);
-      for (std::size_t i = 0; i < units; ++i) {
-        for (std::size_t k = 0; k < bins; ++k) obs.histogram.counts[k] += counts[i * bins + k];
-        obs.histogram.below += below[i];
-        obs.histogram.above += above[i];
-      }
-
-      std::vector<double> moments(rows * columns), mins(rows), maxs(rows), norms(rows);
-      std::vector<std::int8_t> failed(rows);
-      h5::read_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns}, moments.data(), w,
-                     what);
-      h5::read_block(s.min.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, mins.data(), w, what);
-      h5::read_block(s.max.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, maxs.data(), w, what);
-      h5::read_block(s.norm.get(), H5T_NATIVE_DOUBLE, {b}, {rows}, norms.data(), w, what);
-      h5::read_block(s.failed.get(), H5T_NATIVE_INT8, {b}, {rows}, failed.data(), w, what);
-      const auto reasons = h5::read_strings(s.failure_reason.get(), b, rows, w, what);
-
-      const auto kept_begin = static_cast<std::size_t>(
-          std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(begin)) -
-          kept.begin());
-      const auto kept_end = static_cast<std::size_t>(
-          std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) -
-          kept.begin());
-      const std::size_t kept_rows = kept_end - kept_begin;
-      std::vector<double> spectra(kept_rows * n);
-      std::vector<std::int64_t> lengths(kept_rows);
-      h5::read_block(s.spectra.get(), H5T_NATIVE_DOUBLE, {kept_begin, 0}, {kept_rows, n},
-                     spectra.data(), w, what);
-      h5::read_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin}, {kept_rows},
-                     lengths.data(), w, what);
-
-      for (std::size_t i = 0; i < rows; ++i) {
-        observe::TrialRecord row;
-        row.trial = static_cast<std::uint64_t>(begin) + i;
-        row.failed = failed[i] != 0;
-        row.reason = reasons[i];
-        if (!row.failed) {
-          row.moments.assign(moments.begin() + i * columns, moments.begin() + (i + 1) * columns);
-        }
-        row.min = mins[i];
-        row.max = maxs[i];
-        row.norm = norms[i];
-        const auto slot = std::lower_bound(kept.begin(), kept.end(), row.trial);
-        if (slot != kept.end() && *slot == row.trial) {
-          const auto j = static_cast<std::size_t>(slot - kept.begin()) - kept_begin;
-          if (lengths[j] < 0 || static_cast<std::size_t>(lengths[j]) > n) {
-            throw Error("spectrum_length of trial " + std::to_string(row.trial) + " is " +
-                        std::to_string(lengths[j]));
-          }
-          const auto first = spectra.begin() + static_cast<std::ptrdiff_t>(j * n);
-          row.spectrum.assign(first, first + lengths[j]);
-        }
-        obs.trials.push_back(std::move(row));
-      }
+      add_unit_histograms(s, u0, units, bins, w, what, obs.histogram);
+      read_trial_rows(layout, s, begin, end, w, what, obs.trials);
       u0 = u1;
     }
   } catch (const Error& e) {

@@ -223,9 +223,8 @@ void anchor_paths(toml::table& job, const fs::path& base_dir) {
   }
 }
 
-}  // namespace
-
-Sweep expand(const std::string& sweep_path) {
+// Parses the sweep file, refusing a key a sweep file does not have.
+toml::table parse_sweep_file(const std::string& sweep_path) {
   toml::table t;
   try {
     t = toml::parse_file(sweep_path);
@@ -243,6 +242,13 @@ Sweep expand(const std::string& sweep_path) {
                        "unknown key; a sweep file has base, vary, values, combine and directory");
     }
   }
+  return t;
+}
+
+}  // namespace
+
+Sweep expand(const std::string& sweep_path) {
+  const toml::table t = parse_sweep_file(sweep_path);
   const auto base_rel = t["base"].value<std::string>();
   if (!base_rel || base_rel->empty()) {
     throw InputError(where(sweep_path, t.get("base"), "base") +
