@@ -216,6 +216,136 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
   return t;
 }
 
+namespace {
+
+// Where one estimate's column sits in the stored rows of a size.
+struct EstimateColumn {
+  std::size_t columns = 0;  // estimates per trial
+  std::size_t c = 0;        // this estimate's column
+  std::size_t p = 0;        // estimators per trial
+  std::size_t owner = 0;    // this estimate's estimator
+};
+
+// The column's finite values at one size; the trials without one are counted as failed, with
+// their reasons.
+std::vector<double> values_of_column(const store::EstimateRows& r, const EstimateColumn& col,
+                                     EstimateSizeScore& s,
+                                     std::map<std::string, std::int64_t>& reasons) {
+  std::vector<double> x;
+  for (std::size_t t = 0; t < r.trials.size(); ++t) {
+    const double v = r.values[t * col.columns + col.c];
+    const std::string& why = r.failures[t * col.p + col.owner];
+    if (!why.empty() || !std::isfinite(v)) {
+      ++s.failed;
+      ++reasons[why.empty() ? "non-finite value" : why];
+      continue;
+    }
+    x.push_back(v);
+  }
+  return x;
+}
+
+// Bootstrap replicates of the bias, sd and RMSE of one estimate at one size.
+struct Replicates {
+  std::vector<double> bias, sd, rmse;
+};
+
+Replicates bootstrap_over_trials(const std::vector<double>& x, const EstimateScore& score,
+                                 const EstimateSizeScore& s, const ScoreOptions& options) {
+  const bool known = score.truth.known;
+  const double theta = score.truth.value;
+  // Percentile bootstrap over trials, one stream per (estimate, size).
+  std::vector<double> bb, bs, br;
+  if (x.size() > 1 && options.bootstrap_replicates > 0) {
+    rng::Stream stream(rng::StreamKey{options.seed, "estimates:" + score.estimator + "." +
+                                                        score.estimate,
+                                      static_cast<std::uint64_t>(s.n) & 0xffffffffULL, 0});
+    std::vector<double> resample(x.size());
+    for (int b = 0; b < options.bootstrap_replicates; ++b) {
+      for (auto& v : resample) {
+        const auto j = std::min<std::size_t>(
+            x.size() - 1, static_cast<std::size_t>(stream.uniform() * static_cast<double>(x.size())));
+        v = x[j];
+      }
+      const Stats rs = stats_of(resample, theta, known);
+      bb.push_back(rs.bias);
+      bs.push_back(rs.sd);
+      br.push_back(rs.rmse);
+    }
+  }
+  return {std::move(bb), std::move(bs), std::move(br)};
+}
+
+// One estimate at one size: its statistics over trials with their bootstrap intervals.
+EstimateSizeScore score_size(const store::EstimateRows& r, std::int64_t n,
+                             const EstimateColumn& col, const EstimateScore& score,
+                             const ScoreOptions& options,
+                             std::map<std::string, std::int64_t>& reasons) {
+  const bool known = score.truth.known;
+  const double theta = score.truth.value;
+  EstimateSizeScore s;
+  s.n = n;
+  const std::vector<double> x = values_of_column(r, col, s, reasons);
+  s.trials = static_cast<std::int64_t>(x.size());
+  const Stats st = stats_of(x, theta, known);
+  s.mean = st.mean;
+  s.bias = st.bias;
+  s.sd = st.sd;
+  s.rmse = st.rmse;
+  s.rmse_se = st.rmse_se;
+  s.bias_se = x.size() > 1 ? st.sd / std::sqrt(static_cast<double>(x.size())) : kNaN;
+  const Replicates reps = bootstrap_over_trials(x, score, s, options);
+  std::tie(s.sd_low, s.sd_high) = percentile(reps.sd, options.level);
+  if (known) {
+    std::tie(s.bias_low, s.bias_high) = percentile(reps.bias, options.level);
+    std::tie(s.rmse_low, s.rmse_high) = percentile(reps.rmse, options.level);
+  } else {
+    s.bias_low = s.bias_high = s.rmse_low = s.rmse_high = kNaN;
+  }
+  return s;
+}
+
+// One estimate over every size: the sizes' scores, the rates of |bias| and RMSE when its truth
+// is known, and its estimator's most frequent failure reasons.
+EstimateScore score_column(const store::RunHeader& header,
+                           const std::vector<store::EstimateRows>& rows, const EstimateColumn& col,
+                           const ScoreOptions& options, const ScoreOptions& located) {
+  const std::size_t c = col.c;
+  EstimateScore score;
+  score.estimator = header.estimates[c].estimator;
+  score.estimate = header.estimates[c].estimate;
+  score.truth = resolve_truth(header.estimates[c].truth, header, located);
+  const bool known = score.truth.known;
+  std::map<std::string, std::int64_t> reasons;
+  std::vector<ErrorPoint> bias_points, rmse_points;
+  for (std::size_t i = 0; i < header.sizes.size(); ++i) {
+    const EstimateSizeScore s =
+        score_size(rows[i], header.sizes[i].n, col, score, options, reasons);
+    if (known) {
+      ErrorPoint bp{static_cast<double>(s.n), std::abs(s.bias), s.bias_se,
+                    std::abs(s.bias) > 2.0 * s.bias_se};
+      ErrorPoint rp{static_cast<double>(s.n), s.rmse, s.rmse_se, s.trials > 1};
+      bias_points.push_back(bp);
+      rmse_points.push_back(rp);
+    }
+    score.sizes.push_back(s);
+  }
+  FitOptions fit;
+  fit.level = options.level;
+  if (known) {
+    score.bias_rate = fit_power_law(bias_points, fit);
+    score.rmse_rate = fit_power_law(rmse_points, fit);
+  }
+  std::vector<std::pair<std::string, std::int64_t>> sorted(reasons.begin(), reasons.end());
+  std::stable_sort(sorted.begin(), sorted.end(),
+                   [](const auto& a, const auto& b) { return a.second > b.second; });
+  if (sorted.size() > 5) sorted.resize(5);
+  score.failure_reasons = std::move(sorted);
+  return score;
+}
+
+}  // namespace
+
 std::vector<EstimateScore> score_estimators(const store::RunFile& file,
                                             const ScoreOptions& options) {
   const store::RunHeader& header = file.header();
@@ -237,82 +367,8 @@ std::vector<EstimateScore> score_estimators(const store::RunFile& file,
   for (std::size_t i = 0; i < header.sizes.size(); ++i) rows.push_back(file.read_estimates(i));
 
   for (std::size_t c = 0; c < columns; ++c) {
-    EstimateScore score;
-    score.estimator = header.estimates[c].estimator;
-    score.estimate = header.estimates[c].estimate;
-    score.truth = resolve_truth(header.estimates[c].truth, header, located);
-    const bool known = score.truth.known;
-    const double theta = score.truth.value;
-    std::map<std::string, std::int64_t> reasons;
-    std::vector<ErrorPoint> bias_points, rmse_points;
-    for (std::size_t i = 0; i < header.sizes.size(); ++i) {
-      const auto& r = rows[i];
-      EstimateSizeScore s;
-      s.n = header.sizes[i].n;
-      std::vector<double> x;
-      for (std::size_t t = 0; t < r.trials.size(); ++t) {
-        const double v = r.values[t * columns + c];
-        const std::string& why = r.failures[t * p + owner[c]];
-        if (!why.empty() || !std::isfinite(v)) {
-          ++s.failed;
-          ++reasons[why.empty() ? "non-finite value" : why];
-          continue;
-        }
-        x.push_back(v);
-      }
-      s.trials = static_cast<std::int64_t>(x.size());
-      const Stats st = stats_of(x, theta, known);
-      s.mean = st.mean;
-      s.bias = st.bias;
-      s.sd = st.sd;
-      s.rmse = st.rmse;
-      s.rmse_se = st.rmse_se;
-      s.bias_se = x.size() > 1 ? st.sd / std::sqrt(static_cast<double>(x.size())) : kNaN;
-      // Percentile bootstrap over trials, one stream per (estimate, size).
-      std::vector<double> bb, bs, br;
-      if (x.size() > 1 && options.bootstrap_replicates > 0) {
-        rng::Stream stream(rng::StreamKey{options.seed, "estimates:" + score.estimator + "." +
-                                                            score.estimate,
-                                          static_cast<std::uint64_t>(s.n) & 0xffffffffULL, 0});
-        std::vector<double> resample(x.size());
-        for (int b = 0; b < options.bootstrap_replicates; ++b) {
-          for (auto& v : resample) {
-            const auto j = std::min<std::size_t>(
-                x.size() - 1, static_cast<std::size_t>(stream.uniform() * static_cast<double>(x.size())));
-            v = x[j];
-          }
-          const Stats rs = stats_of(resample, theta, known);
-          bb.push_back(rs.bias);
-          bs.push_back(rs.sd);
-          br.push_back(rs.rmse);
-        }
-      }
-      std::tie(s.sd_low, s.sd_high) = percentile(bs, options.level);
-      if (known) {
-        std::tie(s.bias_low, s.bias_high) = percentile(bb, options.level);
-        std::tie(s.rmse_low, s.rmse_high) = percentile(br, options.level);
-        ErrorPoint bp{static_cast<double>(s.n), std::abs(s.bias), s.bias_se,
-                      std::abs(s.bias) > 2.0 * s.bias_se};
-        ErrorPoint rp{static_cast<double>(s.n), s.rmse, s.rmse_se, s.trials > 1};
-        bias_points.push_back(bp);
-        rmse_points.push_back(rp);
-      } else {
-        s.bias_low = s.bias_high = s.rmse_low = s.rmse_high = kNaN;
-      }
-      score.sizes.push_back(s);
-    }
-    FitOptions fit;
-    fit.level = options.level;
-    if (known) {
-      score.bias_rate = fit_power_law(bias_points, fit);
-      score.rmse_rate = fit_power_law(rmse_points, fit);
-    }
-    std::vector<std::pair<std::string, std::int64_t>> sorted(reasons.begin(), reasons.end());
-    std::stable_sort(sorted.begin(), sorted.end(),
-                     [](const auto& a, const auto& b) { return a.second > b.second; });
-    if (sorted.size() > 5) sorted.resize(5);
-    score.failure_reasons = std::move(sorted);
-    scores.push_back(std::move(score));
+    scores.push_back(score_column(header, rows, EstimateColumn{columns, c, p, owner[c]}, options,
+                                  located));
   }
   return scores;
 }

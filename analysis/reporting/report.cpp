@@ -196,6 +196,156 @@ ErrorPoint point_of(double n, const MetricValue& m) {
   return {n, m.value, m.standard_error, m.resolved};
 }
 
+// What the fits of one run share: the run, its sizes with data and the bootstrap's options.
+struct RunFits {
+  RunResult& run;
+  std::vector<const SizeResult*> used;
+  BootstrapOptions boot;
+};
+
+// Adds the fit of one quantity to the run, with its bootstrap interval and published exponent.
+void add_fit(RunFits& fits, std::string quantity, std::string key, std::vector<ErrorPoint> points,
+             std::optional<BootstrapInterval> interval) {
+  const std::string& model = fits.run.limit.rate_key;
+  FitResult f;
+  f.quantity = std::move(quantity);
+  f.key = key;
+  f.fit = fit_power_law(points);
+  if (f.fit.ok && interval) f.bootstrap = interval;
+  f.published = published_for(key, model);
+  fits.run.fits.push_back(std::move(f));
+}
+
+// Pooled distances from every trial's kept spectrum: bias-corrected values, and the exponent's
+// interval from the per-size bootstrap replicates paired by index.
+void fit_pooled_from_spectra(RunFits& fits) {
+  for (int which = 0; which < 2; ++which) {
+    std::vector<ErrorPoint> points;
+    std::vector<std::vector<double>> reps;
+    for (const auto* s : fits.used) {
+      const auto& m = s->metrics;
+      ErrorPoint p = point_of(static_cast<double>(s->n),
+                              which == 0 ? m.pooled_kolmogorov : m.pooled_wasserstein1);
+      // The bias the correction may leave counts as uncertainty (metrics.hpp).
+      p.standard_error = std::hypot(p.standard_error, which == 0 ? m.spectra.kolmogorov_residual_bound
+                                                                 : m.spectra.wasserstein1_residual_bound);
+      points.push_back(p);
+      reps.push_back(which == 0 ? m.spectra.kolmogorov_replicates : m.spectra.wasserstein1_replicates);
+    }
+    std::optional<BootstrapInterval> interval;
+    if (std::all_of(reps.begin(), reps.end(), [](const auto& r) { return r.size() >= 2; })) {
+      interval = bootstrap_alpha_from_replicates(points, reps, fits.boot);
+    }
+    add_fit(fits, which == 0 ? "Kolmogorov distance of the mean spectral distribution"
+                             : "Wasserstein-1 distance of the mean spectral distribution",
+            which == 0 ? "kolmogorov" : "wasserstein1", std::move(points), interval);
+  }
+}
+
+// Pooled distances from histograms, bootstrapped over work units.
+void fit_pooled_from_histograms(RunFits& fits) {
+  const std::vector<const SizeResult*>& used = fits.used;
+  std::vector<std::size_t> replicates;
+  for (const auto* s : used) replicates.push_back(s->units.size());
+  const LimitDistribution& limit = fits.run.reference.distribution;
+  for (int which = 0; which < 2; ++which) {
+    std::vector<ErrorPoint> points;
+    for (const auto* s : used) {
+      points.push_back(point_of(static_cast<double>(s->n),
+                                which == 0 ? s->metrics.pooled_kolmogorov : s->metrics.pooled_wasserstein1));
+    }
+    const auto resample = [&](std::size_t j, std::span<const std::size_t> draw) {
+      const SizeResult& s = *used[j];
+      observe::Histogram h = s.units.front();
+      std::fill(h.counts.begin(), h.counts.end(), 0);
+      h.below = h.above = 0;
+      for (std::size_t i : draw) observe::merge_into(h, s.units[i]);
+      const BinnedDistances d = binned_distances(s.edges, h, limit);
+      ErrorPoint p = points[j];
+      p.error = which == 0 ? d.kolmogorov : d.wasserstein1;
+      return p;
+    };
+    std::optional<BootstrapInterval> interval;
+    if (std::all_of(replicates.begin(), replicates.end(), [](std::size_t r) { return r >= 2; })) {
+      interval = bootstrap_alpha(replicates, resample, fits.boot);
+    }
+    add_fit(fits, which == 0 ? "Kolmogorov distance of the mean spectral distribution"
+                             : "Wasserstein-1 distance of the mean spectral distribution",
+            which == 0 ? "kolmogorov" : "wasserstein1", std::move(points), interval);
+  }
+}
+
+// Signed quantities: per-trial values against a target.
+void fit_per_trial_values(RunFits& fits, std::string quantity, std::string key, double target,
+                          const std::function<double(const observe::TrialRecord&)>& value) {
+  if (!std::isfinite(target)) return;
+  std::vector<double> sizes;
+  std::vector<std::vector<double>> values;
+  std::vector<ErrorPoint> points;
+  for (const auto* s : fits.used) {
+    std::vector<double> v;
+    for (const auto& t : s->trials) v.push_back(value(t));
+    sizes.push_back(static_cast<double>(s->n));
+    points.push_back(mean_error_point(static_cast<double>(s->n), v, target));
+    values.push_back(std::move(v));
+  }
+  std::optional<BootstrapInterval> interval;
+  if (std::all_of(values.begin(), values.end(), [](const auto& v) { return v.size() >= 2; })) {
+    interval = bootstrap_alpha_of_means(sizes, values, target, fits.boot);
+  }
+  add_fit(fits, std::move(quantity), std::move(key), std::move(points), interval);
+}
+
+// Per-trial distances (the mean over trials of each trial's own distance), where every size
+// kept spectra.
+void fit_per_trial_distances(RunFits& fits) {
+  for (int which = 0; which < 2; ++which) {
+    std::vector<double> sizes;
+    std::vector<std::vector<double>> values;
+    std::vector<ErrorPoint> points;
+    for (const auto* s : fits.used) {
+      const auto& p = s->metrics.per_trial;
+      const auto& v = which == 0 ? p.kolmogorov_values : p.wasserstein1_values;
+      sizes.push_back(static_cast<double>(s->n));
+      points.push_back(mean_error_point(static_cast<double>(s->n), v, 0.0));
+      values.push_back(v);
+    }
+    std::optional<BootstrapInterval> interval;
+    if (std::all_of(values.begin(), values.end(), [](const auto& v) { return v.size() >= 2; })) {
+      interval = bootstrap_alpha_of_means(sizes, values, 0.0, fits.boot);
+    }
+    add_fit(fits, which == 0 ? "Kolmogorov distance per trial (mean over trials)"
+                             : "Wasserstein-1 distance per trial (mean over trials)",
+            which == 0 ? "kolmogorov_per_trial" : "wasserstein1_per_trial", std::move(points),
+            interval);
+  }
+}
+
+// The moments' errors against the exact limit moments, up to the options' highest moment.
+void fit_moments(RunFits& fits, const ReportOptions& options) {
+  const RunResult& run = fits.run;
+  const int k_max = std::min<int>(options.max_moment_fitted,
+                                  static_cast<int>(run.reference.moments.size()) - 1);
+  const int stored = static_cast<int>(fits.used.front()->trials.front().moments.size()) - 1;
+  for (int k = 1; k <= std::min(k_max, stored); ++k) {
+    // A moment whose finite-N value equals the limit for every N (odd moments of a symmetric
+    // model) has nothing to fit; it would only add warnings.
+    bool any_resolved = false;
+    for (const auto* s : fits.used) {
+      if (static_cast<std::size_t>(k) < s->metrics.moment_errors.size()) {
+        any_resolved |= s->metrics.moment_errors[static_cast<std::size_t>(k)].error.resolved;
+      }
+    }
+    if (!any_resolved) continue;
+    fit_per_trial_values(fits, "moment m_" + std::to_string(k) + " − limit",
+                         "moment_" + std::to_string(k),
+                         run.reference.moments[static_cast<std::size_t>(k)],
+                         [k](const observe::TrialRecord& t) {
+                           return t.moments[static_cast<std::size_t>(k)];
+                         });
+  }
+}
+
 // Fits of every error against N, with bootstrap intervals.
 void fit_run(RunResult& run, const ReportOptions& options) {
   std::vector<const SizeResult*> used;
@@ -205,152 +355,32 @@ void fit_run(RunResult& run, const ReportOptions& options) {
   if (used.empty()) return;
   BootstrapOptions boot;
   boot.replicates = options.fit_bootstrap_replicates;
-  const std::string& model = run.limit.rate_key;
+  RunFits fits{run, std::move(used), boot};
 
-  auto add = [&](std::string quantity, std::string key, std::vector<ErrorPoint> points,
-                 std::optional<BootstrapInterval> interval) {
-    FitResult f;
-    f.quantity = std::move(quantity);
-    f.key = key;
-    f.fit = fit_power_law(points);
-    if (f.fit.ok && interval) f.bootstrap = interval;
-    f.published = published_for(key, model);
-    run.fits.push_back(std::move(f));
-  };
-
-  // Pooled distances from every trial's kept spectrum: bias-corrected values, and the exponent's
-  // interval from the per-size bootstrap replicates paired by index.
-  const bool from_spectra = std::all_of(used.begin(), used.end(), [](const SizeResult* s) {
-    return s->metrics.has_pooled && s->metrics.pooled_from_spectra;
-  });
-  if (from_spectra) {
-    for (int which = 0; which < 2; ++which) {
-      std::vector<ErrorPoint> points;
-      std::vector<std::vector<double>> reps;
-      for (const auto* s : used) {
-        const auto& m = s->metrics;
-        ErrorPoint p = point_of(static_cast<double>(s->n),
-                                which == 0 ? m.pooled_kolmogorov : m.pooled_wasserstein1);
-        // The bias the correction may leave counts as uncertainty (metrics.hpp).
-        p.standard_error = std::hypot(p.standard_error, which == 0 ? m.spectra.kolmogorov_residual_bound
-                                                                   : m.spectra.wasserstein1_residual_bound);
-        points.push_back(p);
-        reps.push_back(which == 0 ? m.spectra.kolmogorov_replicates : m.spectra.wasserstein1_replicates);
-      }
-      std::optional<BootstrapInterval> interval;
-      if (std::all_of(reps.begin(), reps.end(), [](const auto& r) { return r.size() >= 2; })) {
-        interval = bootstrap_alpha_from_replicates(points, reps, boot);
-      }
-      add(which == 0 ? "Kolmogorov distance of the mean spectral distribution"
-                     : "Wasserstein-1 distance of the mean spectral distribution",
-          which == 0 ? "kolmogorov" : "wasserstein1", std::move(points), interval);
-    }
-  }
-  // Pooled distances from histograms, bootstrapped over work units.
-  if (!from_spectra &&
-      std::all_of(used.begin(), used.end(), [](const SizeResult* s) { return s->metrics.has_pooled; })) {
-    std::vector<std::size_t> replicates;
-    for (const auto* s : used) replicates.push_back(s->units.size());
-    const LimitDistribution& limit = run.reference.distribution;
-    for (int which = 0; which < 2; ++which) {
-      std::vector<ErrorPoint> points;
-      for (const auto* s : used) {
-        points.push_back(point_of(static_cast<double>(s->n),
-                                  which == 0 ? s->metrics.pooled_kolmogorov : s->metrics.pooled_wasserstein1));
-      }
-      const auto resample = [&](std::size_t j, std::span<const std::size_t> draw) {
-        const SizeResult& s = *used[j];
-        observe::Histogram h = s.units.front();
-        std::fill(h.counts.begin(), h.counts.end(), 0);
-        h.below = h.above = 0;
-        for (std::size_t i : draw) observe::merge_into(h, s.units[i]);
-        const BinnedDistances d = binned_distances(s.edges, h, limit);
-        ErrorPoint p = points[j];
-        p.error = which == 0 ? d.kolmogorov : d.wasserstein1;
-        return p;
-      };
-      std::optional<BootstrapInterval> interval;
-      if (std::all_of(replicates.begin(), replicates.end(), [](std::size_t r) { return r >= 2; })) {
-        interval = bootstrap_alpha(replicates, resample, boot);
-      }
-      add(which == 0 ? "Kolmogorov distance of the mean spectral distribution"
-                     : "Wasserstein-1 distance of the mean spectral distribution",
-          which == 0 ? "kolmogorov" : "wasserstein1", std::move(points), interval);
-    }
+  const bool from_spectra =
+      std::all_of(fits.used.begin(), fits.used.end(), [](const SizeResult* s) {
+        return s->metrics.has_pooled && s->metrics.pooled_from_spectra;
+      });
+  if (from_spectra) fit_pooled_from_spectra(fits);
+  if (!from_spectra && std::all_of(fits.used.begin(), fits.used.end(),
+                                   [](const SizeResult* s) { return s->metrics.has_pooled; })) {
+    fit_pooled_from_histograms(fits);
   }
 
-  // Signed quantities: per-trial values against a target.
-  const auto per_trial = [&](std::string quantity, std::string key, double target,
-                             const std::function<double(const observe::TrialRecord&)>& value) {
-    if (!std::isfinite(target)) return;
-    std::vector<double> sizes;
-    std::vector<std::vector<double>> values;
-    std::vector<ErrorPoint> points;
-    for (const auto* s : used) {
-      std::vector<double> v;
-      for (const auto& t : s->trials) v.push_back(value(t));
-      sizes.push_back(static_cast<double>(s->n));
-      points.push_back(mean_error_point(static_cast<double>(s->n), v, target));
-      values.push_back(std::move(v));
-    }
-    std::optional<BootstrapInterval> interval;
-    if (std::all_of(values.begin(), values.end(), [](const auto& v) { return v.size() >= 2; })) {
-      interval = bootstrap_alpha_of_means(sizes, values, target, boot);
-    }
-    add(std::move(quantity), std::move(key), std::move(points), interval);
-  };
-
-  // Per-trial distances (the mean over trials of each trial's own distance), where every size
-  // kept spectra.
-  if (std::all_of(used.begin(), used.end(), [](const SizeResult* s) { return s->metrics.has_per_trial; })) {
-    for (int which = 0; which < 2; ++which) {
-      std::vector<double> sizes;
-      std::vector<std::vector<double>> values;
-      std::vector<ErrorPoint> points;
-      for (const auto* s : used) {
-        const auto& p = s->metrics.per_trial;
-        const auto& v = which == 0 ? p.kolmogorov_values : p.wasserstein1_values;
-        sizes.push_back(static_cast<double>(s->n));
-        points.push_back(mean_error_point(static_cast<double>(s->n), v, 0.0));
-        values.push_back(v);
-      }
-      std::optional<BootstrapInterval> interval;
-      if (std::all_of(values.begin(), values.end(), [](const auto& v) { return v.size() >= 2; })) {
-        interval = bootstrap_alpha_of_means(sizes, values, 0.0, boot);
-      }
-      add(which == 0 ? "Kolmogorov distance per trial (mean over trials)"
-                     : "Wasserstein-1 distance per trial (mean over trials)",
-          which == 0 ? "kolmogorov_per_trial" : "wasserstein1_per_trial", std::move(points), interval);
-    }
+  if (std::all_of(fits.used.begin(), fits.used.end(),
+                  [](const SizeResult* s) { return s->metrics.has_per_trial; })) {
+    fit_per_trial_distances(fits);
   }
 
-  if (!run.reference.moments.empty()) {
-    const int k_max = std::min<int>(options.max_moment_fitted,
-                                    static_cast<int>(run.reference.moments.size()) - 1);
-    const int stored = static_cast<int>(used.front()->trials.front().moments.size()) - 1;
-    for (int k = 1; k <= std::min(k_max, stored); ++k) {
-      // A moment whose finite-N value equals the limit for every N (odd moments of a symmetric
-      // model) has nothing to fit; it would only add warnings.
-      bool any_resolved = false;
-      for (const auto* s : used) {
-        if (static_cast<std::size_t>(k) < s->metrics.moment_errors.size()) {
-          any_resolved |= s->metrics.moment_errors[static_cast<std::size_t>(k)].error.resolved;
-        }
-      }
-      if (!any_resolved) continue;
-      per_trial("moment m_" + std::to_string(k) + " − limit", "moment_" + std::to_string(k),
-                run.reference.moments[static_cast<std::size_t>(k)],
-                [k](const observe::TrialRecord& t) { return t.moments[static_cast<std::size_t>(k)]; });
-    }
-  }
-  per_trial("largest value − limit edge", "largest", run.reference.edge_high,
-            [](const observe::TrialRecord& t) { return t.max; });
+  if (!run.reference.moments.empty()) fit_moments(fits, options);
+  fit_per_trial_values(fits, "largest value − limit edge", "largest", run.reference.edge_high,
+                       [](const observe::TrialRecord& t) { return t.max; });
   if (run.header.spectrum == observe::SpectrumKind::eigenvalues) {
-    per_trial("smallest value − limit edge", "smallest", run.reference.edge_low,
-              [](const observe::TrialRecord& t) { return t.min; });
+    fit_per_trial_values(fits, "smallest value − limit edge", "smallest", run.reference.edge_low,
+                         [](const observe::TrialRecord& t) { return t.min; });
   }
-  per_trial("operator norm − limit norm", "norm", run.reference.norm,
-            [](const observe::TrialRecord& t) { return t.norm; });
+  fit_per_trial_values(fits, "operator norm − limit norm", "norm", run.reference.norm,
+                       [](const observe::TrialRecord& t) { return t.norm; });
 }
 
 RunResult analyse_run(const std::string& path, const ReportOptions& options) {
@@ -449,11 +479,15 @@ std::string status_of(const SizeResult& s) {
 }
 
 // ---------------------------------------------------------------------------------- tables
-void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
+// The report's tables, in the order they are written.
+struct ReportTables {
+  Table runs_t, sizes_t, moments_t, extremes_t, fits_t, hist_t, dens_t, atoms_t;
+};
+
+// The tables with their columns and no rows; the runs table gets a column per sweep key.
+ReportTables empty_tables(const std::vector<std::string>& keys) {
   Table runs_t{"runs", {"run", "file", "job_name", "expression", "spectrum", "limit", "rule_or_reason",
                         "sizes", "complete"}, {}};
-  // Runs of a sweep get one column per varied key ("sweep.<key>"), their point's value.
-  const std::vector<std::string> keys = sweep_keys(runs);
   for (const auto& key : keys) runs_t.columns.push_back("sweep." + key);
   Table sizes_t{"sizes",
                 {"run", "n", "status", "units_committed", "units_total", "trials_planned", "trials_used",
@@ -477,99 +511,135 @@ void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
   Table hist_t{"histograms", {"run", "n", "bin_low", "bin_high", "count", "density"}, {}};
   Table dens_t{"limit_density", {"run", "x", "density"}, {}};
   Table atoms_t{"limit_atoms", {"run", "value", "mass"}, {}};
+  return {runs_t, sizes_t, moments_t, extremes_t, fits_t, hist_t, dens_t, atoms_t};
+}
+
+// The row of one run in the runs table.
+void add_run_row(const RunResult& run, double id, const std::vector<std::string>& keys,
+                 Table& runs_t) {
   const auto b = [](bool v) { return v ? 1.0 : 0.0; };
+  bool complete = true;
+  for (const auto& s : run.sizes) complete &= s.units_done == s.units_total;
+  runs_t.rows.push_back({id, run.label,
+                         run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "",
+                         run.header.expression, store::spectrum_name(run.header.spectrum),
+                         run.limit.law ? run.limit.law->describe() : std::string("none"),
+                         run.limit.law ? run.limit.rule : run.limit.reason,
+                         static_cast<double>(run.sizes.size()), b(complete)});
+  for (const auto& key : keys) runs_t.rows.back().push_back(point_value(run, key));
+}
+
+// The row of one size in the sizes table (NaN where the size has no such distance).
+std::vector<Table::Cell> size_row(const SizeResult& s, double id) {
+  const auto b = [](bool v) { return v ? 1.0 : 0.0; };
+  const auto& m = s.metrics;
+  const double n = static_cast<double>(s.n);
+  const bool pooled = s.has_data() && m.has_pooled;
+  const bool per = s.has_data() && m.has_per_trial;
+  const auto v = [](bool have, double x) { return have ? x : kNaN; };
+  return {id, n, status_of(s), static_cast<double>(s.units_done), static_cast<double>(s.units_total),
+          static_cast<double>(s.trials_planned), static_cast<double>(s.trials.size()),
+          static_cast<double>(s.failed), v(pooled, m.pooled_kolmogorov.value),
+          v(pooled, m.pooled_kolmogorov.standard_error), v(pooled, m.pooled_kolmogorov.noise_floor),
+          v(pooled, b(m.pooled_kolmogorov.resolved)), v(pooled, m.pooled_resolution),
+          v(pooled, m.pooled_wasserstein1.value), v(pooled, m.pooled_wasserstein1.standard_error),
+          v(pooled, m.pooled_wasserstein1.noise_floor), v(pooled, b(m.pooled_wasserstein1.resolved)),
+          static_cast<double>(per ? m.per_trial.trials : 0), v(per, m.per_trial.kolmogorov.value),
+          v(per, m.per_trial.kolmogorov.standard_error), v(per, m.per_trial.kolmogorov_sd),
+          v(per, m.per_trial.wasserstein1.value), v(per, m.per_trial.wasserstein1.standard_error),
+          v(per, m.per_trial.wasserstein1_sd), b(pooled && m.pooled_from_spectra),
+          v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_plugin),
+          v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_bias),
+          v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_plugin),
+          v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_bias),
+          v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_grid_bound)};
+}
+
+// The rows of one size with data in the moments, extremes and histograms tables.
+void add_size_detail_rows(const SizeResult& s, double id, ReportTables& t) {
+  const auto b = [](bool v) { return v ? 1.0 : 0.0; };
+  const auto& m = s.metrics;
+  const double n = static_cast<double>(s.n);
+  for (std::size_t k = 1; k < m.moment_errors.size(); ++k) {
+    const auto& e = m.moment_errors[k];
+    t.moments_t.rows.push_back({id, n, static_cast<double>(k), e.mean, e.limit, e.error.value,
+                                e.error.standard_error, b(e.error.resolved)});
+  }
+  const std::pair<const char*, const SignedError*> ext[] = {
+      {"largest", &m.max_edge}, {"smallest", &m.min_edge}, {"norm", &m.norm}};
+  for (const auto& [name, e] : ext) {
+    t.extremes_t.rows.push_back({id, n, std::string(name), e->mean, e->limit, e->error.value,
+                                 e->error.standard_error, b(e->error.resolved)});
+  }
+  observe::Histogram h = s.units.front();
+  for (std::size_t u = 1; u < s.units.size(); ++u) observe::merge_into(h, s.units[u]);
+  const double total = static_cast<double>(h.total());
+  for (std::size_t i = 0; i + 1 < s.edges.size(); ++i) {
+    const double c = static_cast<double>(h.counts[i]);
+    t.hist_t.rows.push_back({id, n, s.edges[i], s.edges[i + 1], c,
+                             total > 0 ? c / (total * (s.edges[i + 1] - s.edges[i])) : kNaN});
+  }
+}
+
+// The rows of one run's fits in the fits table.
+void add_fit_rows(const RunResult& run, double id, Table& fits_t) {
+  const auto b = [](bool v) { return v ? 1.0 : 0.0; };
+  for (const auto& f : run.fits) {
+    std::string warnings;
+    for (const auto& w : f.fit.warnings) warnings += (warnings.empty() ? "" : "; ") + w;
+    fits_t.rows.push_back(
+        {id, f.quantity, f.key, b(f.fit.ok), static_cast<double>(f.fit.points), f.fit.alpha,
+         f.fit.alpha_standard_error, f.fit.ok ? f.fit.ci_low : kNaN, f.fit.ok ? f.fit.ci_high : kNaN,
+         f.bootstrap ? f.bootstrap->low : kNaN, f.bootstrap ? f.bootstrap->high : kNaN,
+         f.fit.constant, f.published ? f.published->alpha : kNaN,
+         f.published ? std::string(f.published->source) : std::string(), warnings});
+  }
+}
+
+// The rows of a run's limit law (the run has one) in the limit density and atoms tables.
+void add_limit_rows(const RunResult& run, double id, Table& dens_t, Table& atoms_t) {
+  // The limit density on a grid covering the histogram range and the support.
+  const Support sup = run.limit.law->support();
+  double lo = sup.lo, hi = sup.hi;
+  for (const auto& s : run.sizes) {
+    if (!s.edges.empty()) {
+      lo = std::min(lo, s.edges.front());
+      hi = std::max(hi, s.edges.back());
+    }
+  }
+  // A law solved point by point at the cost of an operator-valued solve gets fewer points.
+  const int points = dynamic_cast<const PolynomialLaw*>(run.limit.law.get()) ? 401 : 801;
+  std::vector<double> xs(points);
+  for (int i = 0; i < points; ++i) xs[i] = lo + (hi - lo) * i / (points - 1);
+  // Where the solver fails at a point that point is NaN (written as such in the tables and
+  // left out of the figures) instead of the whole report failing.
+  const auto ds = densities_or_nan(*run.limit.law, xs);
+  for (int i = 0; i < points; ++i) dens_t.rows.push_back({id, xs[i], ds[i]});
+  for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.mass});
+}
+
+void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {
+  // Runs of a sweep get one column per varied key ("sweep.<key>"), their point's value.
+  const std::vector<std::string> keys = sweep_keys(runs);
+  ReportTables t = empty_tables(keys);
   for (std::size_t r = 0; r < runs.size(); ++r) {
     const RunResult& run = runs[r];
     const double id = static_cast<double>(r + 1);
-    bool complete = true;
-    for (const auto& s : run.sizes) complete &= s.units_done == s.units_total;
-    runs_t.rows.push_back({id, run.label,
-                           run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "",
-                           run.header.expression, store::spectrum_name(run.header.spectrum),
-                           run.limit.law ? run.limit.law->describe() : std::string("none"),
-                           run.limit.law ? run.limit.rule : run.limit.reason,
-                           static_cast<double>(run.sizes.size()), b(complete)});
-    for (const auto& key : keys) runs_t.rows.back().push_back(point_value(run, key));
+    add_run_row(run, id, keys, t.runs_t);
     for (const auto& s : run.sizes) {
-      const auto& m = s.metrics;
-      const double n = static_cast<double>(s.n);
-      const bool pooled = s.has_data() && m.has_pooled;
-      const bool per = s.has_data() && m.has_per_trial;
-      const auto v = [](bool have, double x) { return have ? x : kNaN; };
-      sizes_t.rows.push_back(
-          {id, n, status_of(s), static_cast<double>(s.units_done), static_cast<double>(s.units_total),
-           static_cast<double>(s.trials_planned), static_cast<double>(s.trials.size()),
-           static_cast<double>(s.failed), v(pooled, m.pooled_kolmogorov.value),
-           v(pooled, m.pooled_kolmogorov.standard_error), v(pooled, m.pooled_kolmogorov.noise_floor),
-           v(pooled, b(m.pooled_kolmogorov.resolved)), v(pooled, m.pooled_resolution),
-           v(pooled, m.pooled_wasserstein1.value), v(pooled, m.pooled_wasserstein1.standard_error),
-           v(pooled, m.pooled_wasserstein1.noise_floor), v(pooled, b(m.pooled_wasserstein1.resolved)),
-           static_cast<double>(per ? m.per_trial.trials : 0), v(per, m.per_trial.kolmogorov.value),
-           v(per, m.per_trial.kolmogorov.standard_error), v(per, m.per_trial.kolmogorov_sd),
-           v(per, m.per_trial.wasserstein1.value), v(per, m.per_trial.wasserstein1.standard_error),
-           v(per, m.per_trial.wasserstein1_sd), b(pooled && m.pooled_from_spectra),
-           v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_plugin),
-           v(pooled && m.pooled_from_spectra, m.spectra.kolmogorov_bias),
-           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_plugin),
-           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_bias),
-           v(pooled && m.pooled_from_spectra, m.spectra.wasserstein1_grid_bound)});
+      t.sizes_t.rows.push_back(size_row(s, id));
       if (!s.has_data()) continue;
-      for (std::size_t k = 1; k < m.moment_errors.size(); ++k) {
-        const auto& e = m.moment_errors[k];
-        moments_t.rows.push_back({id, n, static_cast<double>(k), e.mean, e.limit, e.error.value,
-                                  e.error.standard_error, b(e.error.resolved)});
-      }
-      const std::pair<const char*, const SignedError*> ext[] = {
-          {"largest", &m.max_edge}, {"smallest", &m.min_edge}, {"norm", &m.norm}};
-      for (const auto& [name, e] : ext) {
-        extremes_t.rows.push_back({id, n, std::string(name), e->mean, e->limit, e->error.value,
-                                   e->error.standard_error, b(e->error.resolved)});
-      }
-      observe::Histogram h = s.units.front();
-      for (std::size_t u = 1; u < s.units.size(); ++u) observe::merge_into(h, s.units[u]);
-      const double total = static_cast<double>(h.total());
-      for (std::size_t i = 0; i + 1 < s.edges.size(); ++i) {
-        const double c = static_cast<double>(h.counts[i]);
-        hist_t.rows.push_back({id, n, s.edges[i], s.edges[i + 1], c,
-                               total > 0 ? c / (total * (s.edges[i + 1] - s.edges[i])) : kNaN});
-      }
+      add_size_detail_rows(s, id, t);
     }
-    for (const auto& f : run.fits) {
-      std::string warnings;
-      for (const auto& w : f.fit.warnings) warnings += (warnings.empty() ? "" : "; ") + w;
-      fits_t.rows.push_back(
-          {id, f.quantity, f.key, b(f.fit.ok), static_cast<double>(f.fit.points), f.fit.alpha,
-           f.fit.alpha_standard_error, f.fit.ok ? f.fit.ci_low : kNaN, f.fit.ok ? f.fit.ci_high : kNaN,
-           f.bootstrap ? f.bootstrap->low : kNaN, f.bootstrap ? f.bootstrap->high : kNaN,
-           f.fit.constant, f.published ? f.published->alpha : kNaN,
-           f.published ? std::string(f.published->source) : std::string(), warnings});
-    }
-    if (run.limit.law) {
-      // The limit density on a grid covering the histogram range and the support.
-      const Support sup = run.limit.law->support();
-      double lo = sup.lo, hi = sup.hi;
-      for (const auto& s : run.sizes) {
-        if (!s.edges.empty()) {
-          lo = std::min(lo, s.edges.front());
-          hi = std::max(hi, s.edges.back());
-        }
-      }
-      // A law solved point by point at the cost of an operator-valued solve gets fewer points.
-      const int points = dynamic_cast<const PolynomialLaw*>(run.limit.law.get()) ? 401 : 801;
-      std::vector<double> xs(points);
-      for (int i = 0; i < points; ++i) xs[i] = lo + (hi - lo) * i / (points - 1);
-      // Where the solver fails at a point that point is NaN (written as such in the tables and
-      // left out of the figures) instead of the whole report failing.
-      const auto ds = densities_or_nan(*run.limit.law, xs);
-      for (int i = 0; i < points; ++i) dens_t.rows.push_back({id, xs[i], ds[i]});
-      for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.mass});
-    }
+    add_fit_rows(run, id, t.fits_t);
+    if (run.limit.law) add_limit_rows(run, id, t.dens_t, t.atoms_t);
   }
-  out = {runs_t, sizes_t, moments_t, extremes_t, fits_t, hist_t, dens_t, atoms_t};
+  out = {t.runs_t, t.sizes_t, t.moments_t, t.extremes_t, t.fits_t, t.hist_t, t.dens_t, t.atoms_t};
 }
 
 // --------------------------------------------------------------------------------- Markdown
-std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions& options) {
+// The report's title, and how to read its errors.
+std::string markdown_introduction(const ReportOptions& options) {
   std::string md = "# freegap report\n\n";
   md += "How far each size N is from its limit, and how fast the gap closes. Every error is "
         "given with its Monte Carlo standard error (± one SE); a value marked *unresolved* is "
@@ -579,311 +649,396 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
         " SE) and says only that the error is smaller than the noise. Bootstrap: " +
         std::to_string(options.bootstrap_replicates) + " replicates per size, " +
         std::to_string(options.fit_bootstrap_replicates) + " for the exponents, fixed seeds.\n\n";
-  if (runs.size() > 1) {
-    // What sets each run apart: the settings of its canonical job (one per line, or per "; "
-    // field with the line's prefix) that not every run shares.
-    std::vector<std::vector<std::string>> fields(runs.size());
-    std::map<std::string, std::size_t> count;
-    for (std::size_t r = 0; r < runs.size(); ++r) {
-      std::istringstream lines(runs[r].header.job_canonical);
-      std::string line;
-      while (std::getline(lines, line)) {
-        const auto colon = line.find(": ");
-        const std::string prefix = colon == std::string::npos ? std::string() : line.substr(0, colon + 2);
-        std::string rest = colon == std::string::npos ? line : line.substr(colon + 2);
-        std::size_t start = 0;
-        while (start <= rest.size()) {
-          const auto end = rest.find("; ", start);
-          fields[r].push_back(prefix + rest.substr(start, end == std::string::npos ? std::string::npos : end - start));
-          if (end == std::string::npos) break;
-          start = end + 2;
-        }
+  return md;
+}
+
+// What sets each run apart: the settings of its canonical job (one per line, or per "; "
+// field with the line's prefix) that not every run shares.
+struct RunFields {
+  std::vector<std::vector<std::string>> fields;  // each run's settings, sorted, each once
+  std::map<std::string, std::size_t> count;      // how many runs have each setting
+};
+
+RunFields run_fields(const std::vector<RunResult>& runs) {
+  std::vector<std::vector<std::string>> fields(runs.size());
+  std::map<std::string, std::size_t> count;
+  for (std::size_t r = 0; r < runs.size(); ++r) {
+    std::istringstream lines(runs[r].header.job_canonical);
+    std::string line;
+    while (std::getline(lines, line)) {
+      const auto colon = line.find(": ");
+      const std::string prefix = colon == std::string::npos ? std::string() : line.substr(0, colon + 2);
+      std::string rest = colon == std::string::npos ? line : line.substr(colon + 2);
+      std::size_t start = 0;
+      while (start <= rest.size()) {
+        const auto end = rest.find("; ", start);
+        fields[r].push_back(prefix + rest.substr(start, end == std::string::npos ? std::string::npos : end - start));
+        if (end == std::string::npos) break;
+        start = end + 2;
       }
-      std::sort(fields[r].begin(), fields[r].end());
-      fields[r].erase(std::unique(fields[r].begin(), fields[r].end()), fields[r].end());
-      for (const auto& f : fields[r]) ++count[f];
     }
-    // A sweep's runs get one column per varied key, their point's value (sweep.hpp).
-    const std::vector<std::string> keys = sweep_keys(runs);
-    std::string key_head, key_rule;
-    for (const auto& key : keys) {
-      key_head += " " + key + " |";
-      key_rule += "---|";
+    std::sort(fields[r].begin(), fields[r].end());
+    fields[r].erase(std::unique(fields[r].begin(), fields[r].end()), fields[r].end());
+    for (const auto& f : fields[r]) ++count[f];
+  }
+  return {std::move(fields), std::move(count)};
+}
+
+// One run's row of the collated table: what differs from the other runs and its main numbers.
+std::string collated_row(const std::vector<RunResult>& runs, std::size_t r, const RunFields& apart,
+                         const std::vector<std::string>& keys) {
+  const auto& fields = apart.fields;
+  const auto& count = apart.count;
+  std::string md;
+  const auto& run = runs[r];
+  bool complete = true;
+  const SizeResult* last = nullptr;
+  for (const auto& s : run.sizes) {
+    complete &= s.units_done == s.units_total;
+    if (s.has_data()) last = &s;
+  }
+  std::string differs;
+  for (const auto& f : fields[r]) {
+    if (count.at(f) < runs.size()) differs += (differs.empty() ? "" : "; ") + f;
+  }
+  if (differs.empty()) differs = "–";
+  if (differs.size() > 160) differs = differs.substr(0, 157) + "...";
+  // The mean spectrum's distance is often unresolved (it needs many trials); the per-trial
+  // distance resolves with few, so the runs stay comparable by a resolved quantity.
+  std::string alpha = "–", alpha_per_trial = "–";
+  for (const auto& f : run.fits) {
+    if (f.key == "kolmogorov" && f.fit.ok) alpha = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
+    if (f.key == "kolmogorov_per_trial" && f.fit.ok) {
+      alpha_per_trial = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
     }
-    md += "## Runs collated\n\n| # | file | job |" + key_head +
-          " what differs | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) | "
-          "per-trial Kolmogorov at largest N | α (per-trial Kolmogorov) |\n"
-          "|---|---|---|" + key_rule + "---|---|---|---|---|---|---|---|---|\n";
-    for (std::size_t r = 0; r < runs.size(); ++r) {
-      const auto& run = runs[r];
-      bool complete = true;
-      const SizeResult* last = nullptr;
-      for (const auto& s : run.sizes) {
-        complete &= s.units_done == s.units_total;
-        if (s.has_data()) last = &s;
-      }
-      std::string differs;
-      for (const auto& f : fields[r]) {
-        if (count[f] < runs.size()) differs += (differs.empty() ? "" : "; ") + f;
-      }
-      if (differs.empty()) differs = "–";
-      if (differs.size() > 160) differs = differs.substr(0, 157) + "...";
-      // The mean spectrum's distance is often unresolved (it needs many trials); the per-trial
-      // distance resolves with few, so the runs stay comparable by a resolved quantity.
-      std::string alpha = "–", alpha_per_trial = "–";
-      for (const auto& f : run.fits) {
-        if (f.key == "kolmogorov" && f.fit.ok) alpha = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
-        if (f.key == "kolmogorov_per_trial" && f.fit.ok) {
-          alpha_per_trial = fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error);
-        }
-      }
-      std::string key_cells;
-      for (const auto& key : keys) key_cells += " " + point_value(run, key) + " |";
-      md += "| " + std::to_string(r + 1) + " | " + run.label + " | " +
-            (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " |" +
-            key_cells + " " + differs + " | `" + run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
-            std::to_string(run.sizes.size()) + " | " + (complete ? "complete" : "incomplete") + " | " +
-            (last && last->metrics.has_pooled ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.pooled_kolmogorov) : "–") +
-            " | " + alpha + " | " +
-            (last && last->metrics.has_per_trial ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.per_trial.kolmogorov) : "–") +
-            " | " + alpha_per_trial + " |\n";
+  }
+  std::string key_cells;
+  for (const auto& key : keys) key_cells += " " + point_value(run, key) + " |";
+  md += "| " + std::to_string(r + 1) + " | " + run.label + " | " +
+        (run.header.metadata.count("job_name") ? run.header.metadata.at("job_name") : "") + " |" +
+        key_cells + " " + differs + " | `" + run.header.expression + "` | " + (run.limit.law ? run.limit.law->describe() : "none") + " | " +
+        std::to_string(run.sizes.size()) + " | " + (complete ? "complete" : "incomplete") + " | " +
+        (last && last->metrics.has_pooled ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.pooled_kolmogorov) : "–") +
+        " | " + alpha + " | " +
+        (last && last->metrics.has_per_trial ? "N = " + std::to_string(last->n) + ": " + pm(last->metrics.per_trial.kolmogorov) : "–") +
+        " | " + alpha_per_trial + " |\n";
+  return md;
+}
+
+// The runs side by side (a report of more than one run).
+std::string markdown_collated_runs(const std::vector<RunResult>& runs) {
+  const RunFields apart = run_fields(runs);
+  std::string md;
+  // A sweep's runs get one column per varied key, their point's value (sweep.hpp).
+  const std::vector<std::string> keys = sweep_keys(runs);
+  std::string key_head, key_rule;
+  for (const auto& key : keys) {
+    key_head += " " + key + " |";
+    key_rule += "---|";
+  }
+  md += "## Runs collated\n\n| # | file | job |" + key_head +
+        " what differs | expression | limit | sizes | status | Kolmogorov at largest N | α (Kolmogorov) | "
+        "per-trial Kolmogorov at largest N | α (per-trial Kolmogorov) |\n"
+        "|---|---|---|" + key_rule + "---|---|---|---|---|---|---|---|---|\n";
+  for (std::size_t r = 0; r < runs.size(); ++r) md += collated_row(runs, r, apart, keys);
+  md += "\n";
+  return md;
+}
+
+// A run's heading: its job, expression, version, status and damaged units.
+std::string markdown_run_summary(const RunResult& run, std::size_t r, std::size_t run_count) {
+  std::string md;
+  const auto& h = run.header;
+  md += "## " + (run_count > 1 ? std::to_string(r + 1) + ". " : std::string()) + run.label + "\n\n";
+  md += "- job: " + (h.metadata.count("job_name") ? h.metadata.at("job_name") : std::string("(unnamed)")) +
+        ", seed " + (h.metadata.count("seed") ? h.metadata.at("seed") : std::string("?")) +
+        ", job hash `" + h.job_hash.substr(0, 16) + "`\n";
+  md += "- expression: `" + h.expression + "` (" + (h.self_adjoint ? "self-adjoint" : "not self-adjoint") +
+        "; spectrum: " + store::spectrum_name(h.spectrum) + ")\n";
+  md += "- written by freegap " + h.tool_version + "; evaluation path: " +
+        (h.metadata.count("path") ? h.metadata.at("path") : std::string("dense")) + "\n";
+  std::vector<std::string> incomplete;
+  for (const auto& s : run.sizes) {
+    if (s.units_done != s.units_total) {
+      incomplete.push_back("N = " + std::to_string(s.n) + " (" + std::to_string(s.units_done) + " of " +
+                           std::to_string(s.units_total) + " units" +
+                           (s.units_done == 0 ? ", no data" : "") + ")");
+    }
+  }
+  if (incomplete.empty()) {
+    md += "- status: complete\n";
+  } else {
+    md += "- status: **incomplete** — the run was stopped or is still running; resume it with the "
+          "same command. Incomplete sizes: ";
+    for (std::size_t i = 0; i < incomplete.size(); ++i) md += (i ? ", " : "") + incomplete[i];
+    md += ". Their numbers below use the committed units only.\n";
+  }
+  if (!run.integrity.checksummed) {
+    md += "- checksums: none (unverified: written before checksums)\n";
+  }
+  if (!run.integrity.damaged.empty()) {
+    md +=
+        "- **damaged units, left out** (their bytes do not match the checksums written with "
+        "them; resuming the run computes them again): ";
+    for (std::size_t i = 0; i < run.integrity.damaged.size(); ++i) {
+      const auto& d = run.integrity.damaged[i];
+      md += (i ? "; " : "") + std::string("N = ") + std::to_string(d.n) + " unit " +
+            std::to_string(d.unit) + " (" + d.reason + ")";
     }
     md += "\n";
   }
+  return md;
+}
+
+// The limit law of a run: its rule, support and exact moments, or why there is none.
+std::string markdown_limit(const RunResult& run) {
+  std::string md;
+  md += "\n### Limit\n\n";
+  if (run.limit.law) {
+    const Support s = run.limit.law->support();
+    md += "- law: " + run.limit.law->describe() + "\n- rule: " + run.limit.rule + "\n";
+    if (!run.limit.law_note.empty()) md += "- note: " + run.limit.law_note + "\n";
+    md += "- support: [" + fmt("%.10g", s.lo) + ", " + fmt("%.10g", s.hi) + "]";
+    if (!s.atoms.empty()) md += ", with " + std::to_string(s.atoms.size()) + " atom(s)";
+    if (s.bands.size() > 1) {
+      md += "; the continuous part lives on " + std::to_string(s.bands.size()) + " bands: ";
+      for (std::size_t b = 0; b < s.bands.size(); ++b) {
+        if (b == 8 && s.bands.size() > 10) {
+          md += " ∪ … (" + std::to_string(s.bands.size() - 9) + " more) ∪ ";
+          b = s.bands.size() - 1;
+        } else if (b > 0) {
+          md += " ∪ ";
+        }
+        md += "[" + fmt("%.10g", s.bands[b].lo) + ", " + fmt("%.10g", s.bands[b].hi) + "]";
+      }
+    }
+    md += "; operator-norm limit " + fmt("%.10g", run.reference.norm) + "\n";
+  } else {
+    md += "- no predictor applies: " + run.limit.reason + ". The finite-N data is reported below "
+          "without distances to a limit.\n";
+  }
+  for (const std::string& note : run.notes) md += "- note: " + note + "\n";
+  if (!run.limit.exact_moment_text.empty()) {
+    md += "- exact limit moments m_1..m_" + std::to_string(run.limit.exact_moment_text.size() - 1) +
+          " (free cumulants over non-crossing partitions): ";
+    for (std::size_t k = 1; k < run.limit.exact_moment_text.size(); ++k) {
+      md += (k > 1 ? ", " : "") + run.limit.exact_moment_text[k];
+    }
+    md += "\n";
+    if (run.limit.law) {
+      const auto lm = run.limit.law->moments(static_cast<int>(run.limit.exact_moments.size()) - 1);
+      double worst = 0.0;
+      for (std::size_t k = 1; k < lm.size(); ++k) {
+        worst = std::max(worst, std::abs(lm[k] - run.limit.exact_moments[k]) /
+                                    std::max(1.0, std::abs(run.limit.exact_moments[k])));
+      }
+      md += "- check: the law's own moments agree with the exact ones to " + fmt("%.1e", worst) +
+            " (relative)\n";
+    }
+  } else if (!run.limit.moments_note.empty()) {
+    md += "- no exact limit moments: " + run.limit.moments_note + "\n";
+  }
+  return md;
+}
+
+// The sizes of a run: their status, and their failed trials' reasons.
+std::string markdown_sizes(const RunResult& run) {
+  std::string md;
+  md += "\n### Sizes\n\n| N | status | units | trials used | failed |\n|---|---|---|---|---|\n";
+  for (const auto& s : run.sizes) {
+    md += "| " + std::to_string(s.n) + " | " + status_of(s) + " | " + std::to_string(s.units_done) + "/" +
+          std::to_string(s.units_total) + " | " + std::to_string(s.trials.size()) + "/" +
+          std::to_string(s.trials_planned) + " | " + std::to_string(s.failed) + " |\n";
+  }
+  for (const auto& s : run.sizes) {
+    for (const auto& [reason, count] : s.failure_reasons) {
+      md += "\nN = " + std::to_string(s.n) + ": " + std::to_string(count) + " failed trial(s): " + reason + "\n";
+    }
+  }
+  return md;
+}
+
+// The distances of the mean spectral distribution to the limit, from kept spectra or from
+// histograms.
+std::string markdown_pooled_distances(const RunResult& run) {
+  std::string md;
+  const bool any_pooled = std::any_of(run.sizes.begin(), run.sizes.end(),
+                                      [](const SizeResult& s) { return s.has_data() && s.metrics.has_pooled; });
+  if (any_pooled) {
+    md += "\n### Distance of the mean spectral distribution to the limit\n\n";
+    const bool any_spectra = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
+      return s.has_data() && s.metrics.pooled_from_spectra;
+    });
+    const bool any_binned = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
+      return s.has_data() && s.metrics.has_pooled && !s.metrics.pooled_from_spectra;
+    });
+    if (any_spectra) {
+      md += "From every trial's kept eigenvalues (no bins): Kolmogorov exact over every jump of "
+            "the pooled empirical CDF, Wasserstein-1 against the limit CDF's linear interpolant "
+            "on a fine grid (its error at most the grid bound). Value = plug-in − bootstrap bias "
+            "(trials resampled), ± the bootstrap standard error. Unresolved when, after that "
+            "correction, it does not exceed the noise floor: where the corrected value of a "
+            "zero distance lies, plus 2 standard errors (a one-sided test of \"the distance "
+            "is 0\" at about the 2.5 % level: about one size in 40 of a model at its limit is "
+            "called resolved).\n\n"
+            "| N | trials | Kolmogorov | plug-in (bias) | noise floor | Wasserstein-1 | plug-in (bias) | noise floor | W1 grid bound |\n"
+            "|---|---|---|---|---|---|---|---|---|\n";
+      for (const auto& s : run.sizes) {
+        if (!s.has_data() || !s.metrics.pooled_from_spectra) continue;
+        const auto& d = s.metrics.spectra;
+        md += "| " + std::to_string(s.n) + " | " + std::to_string(d.trials) + " | " +
+              pm(s.metrics.pooled_kolmogorov) + " | " + num(d.kolmogorov_plugin) + " (" +
+              num(d.kolmogorov_bias) + ") | " + num(d.kolmogorov.noise_floor) + " | " +
+              pm(s.metrics.pooled_wasserstein1) + " | " + num(d.wasserstein1_plugin) + " (" +
+              num(d.wasserstein1_bias) + ") | " + num(d.wasserstein1.noise_floor) + " | " +
+              num(d.wasserstein1_grid_bound) + " |\n";
+      }
+    }
+    if (any_binned) {
+      md += std::string(any_spectra ? "\n" : "") +
+            "Pooled histogram of all trials against the limit CDF at the bin edges (a lower "
+            "bound of the Kolmogorov distance, short of it by at most the bin resolution); "
+            "sizes whose trials did not all keep their spectra.\n\n"
+            "| N | Kolmogorov | Wasserstein-1 | bin resolution |\n|---|---|---|---|\n";
+      for (const auto& s : run.sizes) {
+        if (!s.has_data() || !s.metrics.has_pooled || s.metrics.pooled_from_spectra) continue;
+        md += "| " + std::to_string(s.n) + " | " + pm(s.metrics.pooled_kolmogorov) + " | " +
+              pm(s.metrics.pooled_wasserstein1) + " | " + num(s.metrics.pooled_resolution) + " |\n";
+      }
+    }
+  }
+  return md;
+}
+
+// The per-trial distances, where sizes kept their spectra.
+std::string markdown_per_trial_distances(const RunResult& run) {
+  std::string md;
+  const bool any_per = std::any_of(run.sizes.begin(), run.sizes.end(),
+                                   [](const SizeResult& s) { return s.has_data() && s.metrics.has_per_trial; });
+  if (any_per) {
+    md += "\n### Per-trial distances (kept spectra)\n\n| N | trials | Kolmogorov mean (sd) | "
+          "Wasserstein-1 mean (sd) |\n|---|---|---|---|\n";
+    for (const auto& s : run.sizes) {
+      if (!s.has_data() || !s.metrics.has_per_trial) continue;
+      const auto& p = s.metrics.per_trial;
+      md += "| " + std::to_string(s.n) + " | " + std::to_string(p.trials) + " | " + pm(p.kolmogorov) + " (" +
+            num(p.kolmogorov_sd) + ") | " + pm(p.wasserstein1) + " (" + num(p.wasserstein1_sd) + ") |\n";
+    }
+  }
+  return md;
+}
+
+// The moment errors of every size with data.
+std::string markdown_moment_errors(const RunResult& run) {
+  std::string md;
+  const bool any_moments = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
+    return s.has_data() && s.metrics.moment_errors.size() > 1;
+  });
+  if (any_moments) {
+    std::size_t k_max = 0;
+    for (const auto& s : run.sizes) {
+      if (s.has_data()) k_max = std::max(k_max, s.metrics.moment_errors.size());
+    }
+    md += "\n### Moment errors: mean of tr X^k over trials − exact limit\n\n| N |";
+    for (std::size_t k = 1; k < k_max; ++k) md += " k = " + std::to_string(k) + " |";
+    md += "\n|---|";
+    for (std::size_t k = 1; k < k_max; ++k) md += "---|";
+    md += "\n";
+    for (const auto& s : run.sizes) {
+      if (!s.has_data()) continue;
+      md += "| " + std::to_string(s.n) + " |";
+      for (std::size_t k = 1; k < k_max; ++k) {
+        md += ' ';
+        md += k < s.metrics.moment_errors.size() ? pm(s.metrics.moment_errors[k].error) : "–";
+        md += " |";
+      }
+      md += "\n";
+    }
+  }
+  return md;
+}
+
+// The extreme values and the operator norm against their limits.
+std::string markdown_extremes(const RunResult& run) {
+  std::string md;
+  const bool have_data = std::any_of(run.sizes.begin(), run.sizes.end(),
+                                     [](const SizeResult& s) { return s.has_data(); });
+  if (have_data) {
+    md += "\n### Extremes and operator norm (means over trials)\n\n| N | largest | − edge " +
+          (std::isfinite(run.reference.edge_high) ? fmt("%.6g", run.reference.edge_high) : std::string("(unknown)")) +
+          " | smallest | − edge " +
+          (std::isfinite(run.reference.edge_low) ? fmt("%.6g", run.reference.edge_low) : std::string("(unknown)")) +
+          " | norm | − limit " +
+          (std::isfinite(run.reference.norm) ? fmt("%.6g", run.reference.norm) : std::string("(unknown)")) +
+          " |\n|---|---|---|---|---|---|---|\n";
+    for (const auto& s : run.sizes) {
+      if (!s.has_data()) continue;
+      const auto& m = s.metrics;
+      md += "| " + std::to_string(s.n) + " | " + fmt("%.6g", m.max_edge.mean) + " | " + pm(m.max_edge.error) +
+            " | " + fmt("%.6g", m.min_edge.mean) + " | " + pm(m.min_edge.error) + " | " +
+            fmt("%.6g", m.norm.mean) + " | " + pm(m.norm.error) + " |\n";
+    }
+  }
+  return md;
+}
+
+// The convergence rates, their warnings, and the trials that would narrow the wide ones.
+std::string markdown_fits(const RunResult& run) {
+  std::string md;
+  if (!run.fits.empty()) {
+    md += "\n### Convergence rates: error ≈ C·N^(−α)\n\nWeighted least squares on log–log scales; "
+          "normal 95% interval from the points' standard errors (widened by √(χ²/dof) when the "
+          "points scatter more than their errors say; Student t when no errors are known) and "
+          "percentile bootstrap interval over trials (signed errors, per-trial distances and "
+          "distances from kept spectra; these add a bound on the bias the correction may leave "
+          "to each point's error) or work units (distances from histograms).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
+          "source of the published α |\n|---|---|---|---|---|---|---|\n";
+    std::vector<std::string> warnings;
+    for (const auto& f : run.fits) {
+      md += "| " + f.quantity + " | " + (f.fit.ok ? fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error) : "no fit") +
+            " | " + (f.fit.ok ? fmt("%.3f – %.3f", f.fit.ci_low, f.fit.ci_high) : "–") + " | " +
+            (f.bootstrap ? fmt("%.3f – %.3f", f.bootstrap->low, f.bootstrap->high) : "–") + " | " +
+            std::to_string(f.fit.points) + " | " +
+            (f.published ? num(f.published->alpha) + " | " + std::string(f.published->source)
+                         : std::string("– | –")) +
+            " |\n";
+      for (const auto& w : f.fit.warnings) warnings.push_back(f.quantity + ": " + w);
+    }
+    if (!warnings.empty()) {
+      md += "\nWarnings:\n\n";
+      for (const auto& w : warnings) md += "- " + w + "\n";
+    }
+    // A fit too wide to say much: how many more trials would narrow it (its interval is
+    // noise-limited, so its width falls like 1/√R; docs/check-values.md §4i).
+    std::string wide;
+    for (const auto& f : run.fits) {
+      const double half = 0.5 * (f.fit.ci_high - f.fit.ci_low);
+      if (!f.fit.ok || !(half > kWideExponent)) continue;
+      wide += "- " + f.quantity + ": ± " + num(half) + "; about " +
+              num((half / kWideExponent) * (half / kWideExponent)) + " × the trials at every size for ± " +
+              num(kWideExponent) + " (`freegap plan JOB --rate-halfwidth " + num(kWideExponent) +
+              " --pilot " + run.label + " --rate-quantity " + f.key + "` prices it)\n";
+    }
+    if (!wide.empty()) {
+      md += "\nExponents whose 95% interval is wider than ± " + num(kWideExponent) + ":\n\n" + wide;
+    }
+  }
+  return md;
+}
+
+std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions& options) {
+  std::string md = markdown_introduction(options);
+  if (runs.size() > 1) md += markdown_collated_runs(runs);
   for (std::size_t r = 0; r < runs.size(); ++r) {
     const RunResult& run = runs[r];
-    const auto& h = run.header;
-    md += "## " + (runs.size() > 1 ? std::to_string(r + 1) + ". " : std::string()) + run.label + "\n\n";
-    md += "- job: " + (h.metadata.count("job_name") ? h.metadata.at("job_name") : std::string("(unnamed)")) +
-          ", seed " + (h.metadata.count("seed") ? h.metadata.at("seed") : std::string("?")) +
-          ", job hash `" + h.job_hash.substr(0, 16) + "`\n";
-    md += "- expression: `" + h.expression + "` (" + (h.self_adjoint ? "self-adjoint" : "not self-adjoint") +
-          "; spectrum: " + store::spectrum_name(h.spectrum) + ")\n";
-    md += "- written by freegap " + h.tool_version + "; evaluation path: " +
-          (h.metadata.count("path") ? h.metadata.at("path") : std::string("dense")) + "\n";
-    std::vector<std::string> incomplete;
-    for (const auto& s : run.sizes) {
-      if (s.units_done != s.units_total) {
-        incomplete.push_back("N = " + std::to_string(s.n) + " (" + std::to_string(s.units_done) + " of " +
-                             std::to_string(s.units_total) + " units" +
-                             (s.units_done == 0 ? ", no data" : "") + ")");
-      }
-    }
-    if (incomplete.empty()) {
-      md += "- status: complete\n";
-    } else {
-      md += "- status: **incomplete** — the run was stopped or is still running; resume it with the "
-            "same command. Incomplete sizes: ";
-      for (std::size_t i = 0; i < incomplete.size(); ++i) md += (i ? ", " : "") + incomplete[i];
-      md += ". Their numbers below use the committed units only.\n";
-    }
-    if (!run.integrity.checksummed) {
-      md += "- checksums: none (unverified: written before checksums)\n";
-    }
-    if (!run.integrity.damaged.empty()) {
-      md +=
-          "- **damaged units, left out** (their bytes do not match the checksums written with "
-          "them; resuming the run computes them again): ";
-      for (std::size_t i = 0; i < run.integrity.damaged.size(); ++i) {
-        const auto& d = run.integrity.damaged[i];
-        md += (i ? "; " : "") + std::string("N = ") + std::to_string(d.n) + " unit " +
-              std::to_string(d.unit) + " (" + d.reason + ")";
-      }
-      md += "\n";
-    }
-    md += "\n### Limit\n\n";
-    if (run.limit.law) {
-      const Support s = run.limit.law->support();
-      md += "- law: " + run.limit.law->describe() + "\n- rule: " + run.limit.rule + "\n";
-      if (!run.limit.law_note.empty()) md += "- note: " + run.limit.law_note + "\n";
-      md += "- support: [" + fmt("%.10g", s.lo) + ", " + fmt("%.10g", s.hi) + "]";
-      if (!s.atoms.empty()) md += ", with " + std::to_string(s.atoms.size()) + " atom(s)";
-      if (s.bands.size() > 1) {
-        md += "; the continuous part lives on " + std::to_string(s.bands.size()) + " bands: ";
-        for (std::size_t b = 0; b < s.bands.size(); ++b) {
-          if (b == 8 && s.bands.size() > 10) {
-            md += " ∪ … (" + std::to_string(s.bands.size() - 9) + " more) ∪ ";
-            b = s.bands.size() - 1;
-          } else if (b > 0) {
-            md += " ∪ ";
-          }
-          md += "[" + fmt("%.10g", s.bands[b].lo) + ", " + fmt("%.10g", s.bands[b].hi) + "]";
-        }
-      }
-      md += "; operator-norm limit " + fmt("%.10g", run.reference.norm) + "\n";
-    } else {
-      md += "- no predictor applies: " + run.limit.reason + ". The finite-N data is reported below "
-            "without distances to a limit.\n";
-    }
-    for (const std::string& note : run.notes) md += "- note: " + note + "\n";
-    if (!run.limit.exact_moment_text.empty()) {
-      md += "- exact limit moments m_1..m_" + std::to_string(run.limit.exact_moment_text.size() - 1) +
-            " (free cumulants over non-crossing partitions): ";
-      for (std::size_t k = 1; k < run.limit.exact_moment_text.size(); ++k) {
-        md += (k > 1 ? ", " : "") + run.limit.exact_moment_text[k];
-      }
-      md += "\n";
-      if (run.limit.law) {
-        const auto lm = run.limit.law->moments(static_cast<int>(run.limit.exact_moments.size()) - 1);
-        double worst = 0.0;
-        for (std::size_t k = 1; k < lm.size(); ++k) {
-          worst = std::max(worst, std::abs(lm[k] - run.limit.exact_moments[k]) /
-                                      std::max(1.0, std::abs(run.limit.exact_moments[k])));
-        }
-        md += "- check: the law's own moments agree with the exact ones to " + fmt("%.1e", worst) +
-              " (relative)\n";
-      }
-    } else if (!run.limit.moments_note.empty()) {
-      md += "- no exact limit moments: " + run.limit.moments_note + "\n";
-    }
-    md += "\n### Sizes\n\n| N | status | units | trials used | failed |\n|---|---|---|---|---|\n";
-    for (const auto& s : run.sizes) {
-      md += "| " + std::to_string(s.n) + " | " + status_of(s) + " | " + std::to_string(s.units_done) + "/" +
-            std::to_string(s.units_total) + " | " + std::to_string(s.trials.size()) + "/" +
-            std::to_string(s.trials_planned) + " | " + std::to_string(s.failed) + " |\n";
-    }
-    for (const auto& s : run.sizes) {
-      for (const auto& [reason, count] : s.failure_reasons) {
-        md += "\nN = " + std::to_string(s.n) + ": " + std::to_string(count) + " failed trial(s): " + reason + "\n";
-      }
-    }
-    const bool any_pooled = std::any_of(run.sizes.begin(), run.sizes.end(),
-                                        [](const SizeResult& s) { return s.has_data() && s.metrics.has_pooled; });
-    if (any_pooled) {
-      md += "\n### Distance of the mean spectral distribution to the limit\n\n";
-      const bool any_spectra = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
-        return s.has_data() && s.metrics.pooled_from_spectra;
-      });
-      const bool any_binned = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
-        return s.has_data() && s.metrics.has_pooled && !s.metrics.pooled_from_spectra;
-      });
-      if (any_spectra) {
-        md += "From every trial's kept eigenvalues (no bins): Kolmogorov exact over every jump of "
-              "the pooled empirical CDF, Wasserstein-1 against the limit CDF's linear interpolant "
-              "on a fine grid (its error at most the grid bound). Value = plug-in − bootstrap bias "
-              "(trials resampled), ± the bootstrap standard error. Unresolved when, after that "
-              "correction, it does not exceed the noise floor: where the corrected value of a "
-              "zero distance lies, plus 2 standard errors (a one-sided test of \"the distance "
-              "is 0\" at about the 2.5 % level: about one size in 40 of a model at its limit is "
-              "called resolved).\n\n"
-              "| N | trials | Kolmogorov | plug-in (bias) | noise floor | Wasserstein-1 | plug-in (bias) | noise floor | W1 grid bound |\n"
-              "|---|---|---|---|---|---|---|---|---|\n";
-        for (const auto& s : run.sizes) {
-          if (!s.has_data() || !s.metrics.pooled_from_spectra) continue;
-          const auto& d = s.metrics.spectra;
-          md += "| " + std::to_string(s.n) + " | " + std::to_string(d.trials) + " | " +
-                pm(s.metrics.pooled_kolmogorov) + " | " + num(d.kolmogorov_plugin) + " (" +
-                num(d.kolmogorov_bias) + ") | " + num(d.kolmogorov.noise_floor) + " | " +
-                pm(s.metrics.pooled_wasserstein1) + " | " + num(d.wasserstein1_plugin) + " (" +
-                num(d.wasserstein1_bias) + ") | " + num(d.wasserstein1.noise_floor) + " | " +
-                num(d.wasserstein1_grid_bound) + " |\n";
-        }
-      }
-      if (any_binned) {
-        md += std::string(any_spectra ? "\n" : "") +
-              "Pooled histogram of all trials against the limit CDF at the bin edges (a lower "
-              "bound of the Kolmogorov distance, short of it by at most the bin resolution); "
-              "sizes whose trials did not all keep their spectra.\n\n"
-              "| N | Kolmogorov | Wasserstein-1 | bin resolution |\n|---|---|---|---|\n";
-        for (const auto& s : run.sizes) {
-          if (!s.has_data() || !s.metrics.has_pooled || s.metrics.pooled_from_spectra) continue;
-          md += "| " + std::to_string(s.n) + " | " + pm(s.metrics.pooled_kolmogorov) + " | " +
-                pm(s.metrics.pooled_wasserstein1) + " | " + num(s.metrics.pooled_resolution) + " |\n";
-        }
-      }
-    }
-    const bool any_per = std::any_of(run.sizes.begin(), run.sizes.end(),
-                                     [](const SizeResult& s) { return s.has_data() && s.metrics.has_per_trial; });
-    if (any_per) {
-      md += "\n### Per-trial distances (kept spectra)\n\n| N | trials | Kolmogorov mean (sd) | "
-            "Wasserstein-1 mean (sd) |\n|---|---|---|---|\n";
-      for (const auto& s : run.sizes) {
-        if (!s.has_data() || !s.metrics.has_per_trial) continue;
-        const auto& p = s.metrics.per_trial;
-        md += "| " + std::to_string(s.n) + " | " + std::to_string(p.trials) + " | " + pm(p.kolmogorov) + " (" +
-              num(p.kolmogorov_sd) + ") | " + pm(p.wasserstein1) + " (" + num(p.wasserstein1_sd) + ") |\n";
-      }
-    }
-    const bool any_moments = std::any_of(run.sizes.begin(), run.sizes.end(), [](const SizeResult& s) {
-      return s.has_data() && s.metrics.moment_errors.size() > 1;
-    });
-    if (any_moments) {
-      std::size_t k_max = 0;
-      for (const auto& s : run.sizes) {
-        if (s.has_data()) k_max = std::max(k_max, s.metrics.moment_errors.size());
-      }
-      md += "\n### Moment errors: mean of tr X^k over trials − exact limit\n\n| N |";
-      for (std::size_t k = 1; k < k_max; ++k) md += " k = " + std::to_string(k) + " |";
-      md += "\n|---|";
-      for (std::size_t k = 1; k < k_max; ++k) md += "---|";
-      md += "\n";
-      for (const auto& s : run.sizes) {
-        if (!s.has_data()) continue;
-        md += "| " + std::to_string(s.n) + " |";
-        for (std::size_t k = 1; k < k_max; ++k) {
-          md += ' ';
-          md += k < s.metrics.moment_errors.size() ? pm(s.metrics.moment_errors[k].error) : "–";
-          md += " |";
-        }
-        md += "\n";
-      }
-    }
-    const bool have_data = std::any_of(run.sizes.begin(), run.sizes.end(),
-                                       [](const SizeResult& s) { return s.has_data(); });
-    if (have_data) {
-      md += "\n### Extremes and operator norm (means over trials)\n\n| N | largest | − edge " +
-            (std::isfinite(run.reference.edge_high) ? fmt("%.6g", run.reference.edge_high) : std::string("(unknown)")) +
-            " | smallest | − edge " +
-            (std::isfinite(run.reference.edge_low) ? fmt("%.6g", run.reference.edge_low) : std::string("(unknown)")) +
-            " | norm | − limit " +
-            (std::isfinite(run.reference.norm) ? fmt("%.6g", run.reference.norm) : std::string("(unknown)")) +
-            " |\n|---|---|---|---|---|---|---|\n";
-      for (const auto& s : run.sizes) {
-        if (!s.has_data()) continue;
-        const auto& m = s.metrics;
-        md += "| " + std::to_string(s.n) + " | " + fmt("%.6g", m.max_edge.mean) + " | " + pm(m.max_edge.error) +
-              " | " + fmt("%.6g", m.min_edge.mean) + " | " + pm(m.min_edge.error) + " | " +
-              fmt("%.6g", m.norm.mean) + " | " + pm(m.norm.error) + " |\n";
-      }
-    }
-    if (!run.fits.empty()) {
-      md += "\n### Convergence rates: error ≈ C·N^(−α)\n\nWeighted least squares on log–log scales; "
-            "normal 95% interval from the points' standard errors (widened by √(χ²/dof) when the "
-            "points scatter more than their errors say; Student t when no errors are known) and "
-            "percentile bootstrap interval over trials (signed errors, per-trial distances and "
-            "distances from kept spectra; these add a bound on the bias the correction may leave "
-            "to each point's error) or work units (distances from histograms).\n\n| quantity | α | 95% CI | bootstrap 95% CI | sizes | published α | "
-            "source of the published α |\n|---|---|---|---|---|---|---|\n";
-      std::vector<std::string> warnings;
-      for (const auto& f : run.fits) {
-        md += "| " + f.quantity + " | " + (f.fit.ok ? fmt("%.3f ± %.3f", f.fit.alpha, f.fit.alpha_standard_error) : "no fit") +
-              " | " + (f.fit.ok ? fmt("%.3f – %.3f", f.fit.ci_low, f.fit.ci_high) : "–") + " | " +
-              (f.bootstrap ? fmt("%.3f – %.3f", f.bootstrap->low, f.bootstrap->high) : "–") + " | " +
-              std::to_string(f.fit.points) + " | " +
-              (f.published ? num(f.published->alpha) + " | " + std::string(f.published->source)
-                           : std::string("– | –")) +
-              " |\n";
-        for (const auto& w : f.fit.warnings) warnings.push_back(f.quantity + ": " + w);
-      }
-      if (!warnings.empty()) {
-        md += "\nWarnings:\n\n";
-        for (const auto& w : warnings) md += "- " + w + "\n";
-      }
-      // A fit too wide to say much: how many more trials would narrow it (its interval is
-      // noise-limited, so its width falls like 1/√R; docs/check-values.md §4i).
-      std::string wide;
-      for (const auto& f : run.fits) {
-        const double half = 0.5 * (f.fit.ci_high - f.fit.ci_low);
-        if (!f.fit.ok || !(half > kWideExponent)) continue;
-        wide += "- " + f.quantity + ": ± " + num(half) + "; about " +
-                num((half / kWideExponent) * (half / kWideExponent)) + " × the trials at every size for ± " +
-                num(kWideExponent) + " (`freegap plan JOB --rate-halfwidth " + num(kWideExponent) +
-                " --pilot " + run.label + " --rate-quantity " + f.key + "` prices it)\n";
-      }
-      if (!wide.empty()) {
-        md += "\nExponents whose 95% interval is wider than ± " + num(kWideExponent) + ":\n\n" + wide;
-      }
-    }
+    md += markdown_run_summary(run, r, runs.size());
+    md += markdown_limit(run);
+    md += markdown_sizes(run);
+    md += markdown_pooled_distances(run);
+    md += markdown_per_trial_distances(run);
+    md += markdown_moment_errors(run);
+    md += markdown_extremes(run);
+    md += markdown_fits(run);
     if (!run.estimates.empty()) {
       std::string section = estimator_scores_markdown(run.estimates);
       if (section.rfind("## ", 0) == 0) section = "\n#" + section;  // a subsection of this run

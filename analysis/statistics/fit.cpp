@@ -92,9 +92,11 @@ double normal_quantile(double p) {
   return 0.5 * (lo + hi);
 }
 
-PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& options) {
-  PowerLawFit fit;
-  fit.level = options.level;
+namespace {
+
+// The points a fit uses, sorted by N: resolved, with a finite nonzero error at a positive N. The
+// points left out are counted in the fit's warnings.
+std::vector<ErrorPoint> points_to_fit(std::span<const ErrorPoint> points, PowerLawFit& fit) {
   std::vector<ErrorPoint> used;
   int dropped_zero = 0, dropped_unresolved = 0;
   for (const ErrorPoint& p : sorted_by_n(points)) {
@@ -113,30 +115,25 @@ PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& 
   if (dropped_zero > 0) {
     fit.warnings.push_back(std::to_string(dropped_zero) + " size(s) with zero error: left out");
   }
-  fit.points = static_cast<int>(used.size());
-  if (used.size() < 3) {
-    fit.warnings.push_back("only " + std::to_string(used.size()) + " size(s): no fit");
-    if (used.size() == 2) {
-      fit.alpha =
-          -std::log(std::fabs(used[1].error / used[0].error)) / std::log(used[1].n / used[0].n);
-    } else {
-      fit.alpha = kNaN;
-    }
-    fit.alpha_standard_error = fit.ci_low = fit.ci_high = kNaN;
-    return fit;
+  return used;
+}
+
+// Fewer than 3 points: no fit, only the slope through two points when there are two.
+PowerLawFit too_few_points(const std::vector<ErrorPoint>& used, PowerLawFit fit) {
+  fit.warnings.push_back("only " + std::to_string(used.size()) + " size(s): no fit");
+  if (used.size() == 2) {
+    fit.alpha =
+        -std::log(std::fabs(used[1].error / used[0].error)) / std::log(used[1].n / used[0].n);
+  } else {
+    fit.alpha = kNaN;
   }
-  if (used.back().n / used.front().n < options.min_span) {
-    fit.warnings.push_back("sizes span less than a factor " + format("%g", options.min_span) +
-                           ": the exponent is poorly determined");
-  }
-  if (used.front().n < options.small_n) {
-    fit.warnings.push_back("smallest N below " + format("%g", options.small_n) +
-                           ": pre-asymptotic curvature likely");
-  }
-  // Weights from the delta method: var(log e) ≈ s²/e².
-  fit.weighted = std::all_of(used.begin(), used.end(), [](const ErrorPoint& p) {
-    return std::isfinite(p.standard_error) && p.standard_error > 0.0;
-  });
+  fit.alpha_standard_error = fit.ci_low = fit.ci_high = kNaN;
+  return fit;
+}
+
+// The least-squares line through (log N, log |error|) with the fit's weights: sets the exponent,
+// the constant, the degrees of freedom and χ², and returns the exponent's standard error.
+double fit_log_log_line(const std::vector<ErrorPoint>& used, PowerLawFit& fit) {
   const std::size_t m = used.size();
   std::vector<double> x(m), y(m), w(m);
   for (std::size_t j = 0; j < m; ++j) {
@@ -179,6 +176,30 @@ PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& 
   } else {
     se = std::sqrt(chi2 / fit.dof / sxx);
   }
+  return se;
+}
+
+}  // namespace
+
+PowerLawFit fit_power_law(std::span<const ErrorPoint> points, const FitOptions& options) {
+  PowerLawFit fit;
+  fit.level = options.level;
+  const std::vector<ErrorPoint> used = points_to_fit(points, fit);
+  fit.points = static_cast<int>(used.size());
+  if (used.size() < 3) return too_few_points(used, std::move(fit));
+  if (used.back().n / used.front().n < options.min_span) {
+    fit.warnings.push_back("sizes span less than a factor " + format("%g", options.min_span) +
+                           ": the exponent is poorly determined");
+  }
+  if (used.front().n < options.small_n) {
+    fit.warnings.push_back("smallest N below " + format("%g", options.small_n) +
+                           ": pre-asymptotic curvature likely");
+  }
+  // Weights from the delta method: var(log e) ≈ s²/e².
+  fit.weighted = std::all_of(used.begin(), used.end(), [](const ErrorPoint& p) {
+    return std::isfinite(p.standard_error) && p.standard_error > 0.0;
+  });
+  const double se = fit_log_log_line(used, fit);
   fit.alpha_standard_error = se;
   // Known standard errors: a normal interval (scaled by the Birge ratio when inflated). Errors
   // estimated from the residuals alone: Student t with m − 2 degrees of freedom.

@@ -357,15 +357,12 @@ double grid_piece(const SpectraGrid& g, double c, std::size_t a, std::size_t b) 
   return (c * (xs - g.x[a]) - (phis - g.phi[a])) + ((g.phi[b] - phis) - c * (g.x[b] - xs));
 }
 
-}  // namespace
-
-SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
-                                   const LimitDistribution& limit, std::uint64_t stream_size,
-                                   const MetricsOptions& options) {
+// The number of kept eigenvalues to pool, after the checks that the spectra can be pooled.
+std::size_t checked_value_count(std::span<const std::vector<double>> spectra,
+                                const LimitDistribution& limit) {
   if (spectra.empty()) throw InputError("no kept spectra: no distances from spectra");
   if (spectra.size() >= (std::size_t{1} << 32)) throw InputError("too many kept spectra (2^32 or more)");
   if (!limit.cdf) throw InputError("no limit CDF: no distances");
-  const std::size_t r = spectra.size();
   std::size_t m = 0;
   for (const auto& s : spectra) {
     if (s.empty()) throw InputError("an empty kept spectrum: no distances from spectra");
@@ -375,14 +372,26 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
     m += s.size();
   }
   if (m >= (std::size_t{1} << 32)) throw InputError("2^32 or more kept eigenvalues in one size: too many to pool");
-  // Pooled values with their trial, sorted by value (then trial: the order is reproducible).
-  std::vector<std::pair<double, std::uint32_t>> pooled;
+  return m;
+}
+
+using PooledValues = std::vector<std::pair<double, std::uint32_t>>;
+
+// Pooled values with their trial, sorted by value (then trial: the order is reproducible).
+PooledValues pooled_values(std::span<const std::vector<double>> spectra, std::size_t m) {
+  const std::size_t r = spectra.size();
+  PooledValues pooled;
   pooled.reserve(m);
   for (std::size_t t = 0; t < r; ++t) {
     for (double v : spectra[t]) pooled.emplace_back(v, static_cast<std::uint32_t>(t));
   }
   std::sort(pooled.begin(), pooled.end());
+  return pooled;
+}
 
+// The nodes x_g of the grid, and each pooled value's node.
+void place_grid_nodes(const PooledValues& pooled, const LimitDistribution& limit, SpectraGrid& g) {
+  const std::size_t m = pooled.size();
   // Breakpoints: the pooled values and the support's ends; each gap split into k equal cells.
   std::vector<double> points;
   points.reserve(m + 2);
@@ -392,7 +401,6 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
   }
   const std::size_t k =
       std::clamp<std::size_t>((kSpectraGridCells + points.size() - 2) / (points.size() - 1), 1, 4096);
-  SpectraGrid g;
   g.x.reserve((points.size() - 1) * k + 1);
   g.node_of_value.resize(m);
   {
@@ -413,6 +421,11 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
       while (v < m && pooled[v].first == points[i]) g.node_of_value[v++] = g.x.size() - 1;
     }
   }
+}
+
+// F at the grid's nodes, the running integral Φ of its linear interpolant, the pooled values up
+// to each node and the bound of the grid's W1 error; m is the number of pooled values.
+void fill_grid_values(const LimitDistribution& limit, std::size_t m, SpectraGrid& g) {
   const std::size_t nodes = g.x.size();
   g.f.resize(nodes);
   for (std::size_t i = 0; i < nodes; ++i) {
@@ -434,30 +447,34 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
       }
     }
   }
+}
 
-  // Distances of the pooled distribution with trial weights w (Σ w = 1): the value of each pooled
-  // value is w_t / n_t. cum[v] = weight of the first v pooled values.
-  // cum0: the data's own (all trials weigh 1/R). Each call also gives the distances of the
-  // reweighted distribution to the data's (ks0, w10): the distance noise alone produces.
-  std::vector<double> cum_data(m + 1), cum0;
-  // Flat arrays for the replicate loops (they run B times over every value and cell).
-  std::vector<std::uint32_t> value_trial(m);
-  std::vector<double> value_f(m), wt_data(r), dx(nodes > 0 ? nodes - 1 : 0);
-  std::vector<std::uint32_t> cell_below(dx.size());
-  for (std::size_t v = 0; v < m; ++v) {
-    value_trial[v] = pooled[v].second;
-    value_f[v] = g.f[g.node_of_value[v]];
+// Distances of the pooled distribution with trial weights w (Σ w = 1): the value of each pooled
+// value is w_t / n_t. cum[v] = weight of the first v pooled values.
+// cum0: the data's own (all trials weigh 1/R). Each call also gives the distances of the
+// reweighted distribution to the data's (ks0, w10): the distance noise alone produces.
+struct WeightedDistances {
+  WeightedDistances(std::span<const std::vector<double>> spectra_of_trials, const SpectraGrid& grid,
+                    const PooledValues& pooled)
+      : spectra(spectra_of_trials), g(grid), r(spectra_of_trials.size()), m(pooled.size()) {
+    const std::size_t nodes = g.x.size();
+    // Flat arrays for the replicate loops (they run B times over every value and cell).
+    value_trial.resize(m);
+    value_f.resize(m);
+    dx.resize(nodes > 0 ? nodes - 1 : 0);
+    cell_below.resize(dx.size());
+    for (std::size_t v = 0; v < m; ++v) {
+      value_trial[v] = pooled[v].second;
+      value_f[v] = g.f[g.node_of_value[v]];
+    }
+    for (std::size_t i = 0; i < dx.size(); ++i) {
+      dx[i] = g.x[i + 1] - g.x[i];
+      cell_below[i] = static_cast<std::uint32_t>(g.below[i]);
+    }
   }
-  for (std::size_t i = 0; i < dx.size(); ++i) {
-    dx[i] = g.x[i + 1] - g.x[i];
-    cell_below[i] = static_cast<std::uint32_t>(g.below[i]);
-  }
-  // What the loops below do not need (about 40 % of the memory at 10^7 values).
-  std::vector<std::pair<double, std::uint32_t>>().swap(pooled);
-  std::vector<double>().swap(points);
-  std::vector<std::size_t>().swap(g.below);
-  const auto distances = [&](std::span<const double> w, double& ks, double& w1, double& ks0,
-                             double& w10, std::vector<double>& cum, std::vector<double>& wt) {
+
+  void operator()(std::span<const double> w, double& ks, double& w1, double& ks0, double& w10,
+                  std::vector<double>& cum, std::vector<double>& wt) const {
     for (std::size_t t = 0; t < r; ++t) wt[t] = w[t] / static_cast<double>(spectra[t].size());
     const bool noise = !cum0.empty();
     double c = 0.0, k1 = 0.0, k0 = 0.0;
@@ -479,97 +496,112 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
     }
     w1 = a1;
     w10 = a0;
-  };
-
-  SpectraDistances out;
-  out.trials = static_cast<std::int64_t>(r);
-  out.values = static_cast<std::int64_t>(m);
-  out.wasserstein1_grid_bound = g.bound;
-  std::vector<double> w(r, 1.0 / static_cast<double>(r));
-  {
-    double unused0 = 0.0, unused1 = 0.0;
-    distances(w, out.kolmogorov_plugin, out.wasserstein1_plugin, unused0, unused1, cum_data, wt_data);
-    cum0 = std::move(cum_data);
   }
 
-  // The replicates: every resample drawn first, in order, from one stream; then computed on up to
-  // kSpectraThreads threads, each replicate by itself into its own slot, so the numbers do not
-  // depend on the thread count.
+  std::span<const std::vector<double>> spectra;
+  const SpectraGrid& g;
+  std::size_t r = 0, m = 0;  // trials, pooled values
+  std::vector<std::uint32_t> value_trial;
+  std::vector<double> value_f, dx;
+  std::vector<std::uint32_t> cell_below;
+  std::vector<double> cum0;  // empty until the data's own distances are computed
+};
+
+// The bootstrap replicates of the distances (ks, w1) and of the noise alone (ks0, w10).
+struct ReplicateDistances {
   std::vector<double> ks, w1, ks0, w10;
-  if (r >= 2 && options.bootstrap_replicates >= 2) {
-    const auto b_count = static_cast<std::size_t>(options.bootstrap_replicates);
-    std::vector<double> weights(b_count * r, 0.0);
-    rng::Stream stream(rng::StreamKey{options.seed, "metrics-bootstrap-trials", stream_size, 0});
-    for (std::size_t b = 0; b < b_count; ++b) {
-      for (std::size_t t = 0; t < r; ++t) {
-        auto pick = static_cast<std::size_t>(stream.uniform() * static_cast<double>(r));
-        weights[b * r + std::min(pick, r - 1)] += 1.0 / static_cast<double>(r);
-      }
-    }
-    ks.assign(b_count, 0.0);
-    w1.assign(b_count, 0.0);
-    ks0.assign(b_count, 0.0);
-    w10.assign(b_count, 0.0);
-    const std::size_t threads = std::clamp<std::size_t>(std::thread::hardware_concurrency(), 1,
-                                                        std::min(kSpectraThreads, b_count));
-    std::atomic<std::size_t> next{0};
-    std::atomic<bool> stop{false};
-    const auto work = [&] {
-      std::vector<double> my_cum(m + 1), my_wt(r);
-      for (std::size_t b = next++; b < b_count && !stop; b = next++) {
-        distances(std::span<const double>(weights).subspan(b * r, r), ks[b], w1[b], ks0[b], w10[b],
-                  my_cum, my_wt);
-      }
-    };
-    std::vector<std::thread> pool;
-    for (std::size_t i = 1; i < threads; ++i) pool.emplace_back(work);
-    try {
-      // This thread works too, and answers a stop request between its replicates.
-      std::vector<double> my_cum(m + 1), my_wt(r);
-      for (std::size_t b = next++; b < b_count; b = next++) {
-        check_stop();
-        distances(std::span<const double>(weights).subspan(b * r, r), ks[b], w1[b], ks0[b], w10[b],
-                  my_cum, my_wt);
-      }
-    } catch (...) {
-      stop = true;
-      for (auto& th : pool) th.join();
-      throw;
-    }
-    for (auto& th : pool) th.join();
-  }
-  const auto finish = [&](const std::vector<double>& reps, std::vector<double> noise,
-                          double plugin, MetricValue& mv, double& bias, double& zero_level,
-                          double& residual_bound, std::vector<double>& corrected) {
-    if (reps.size() < 2) {
-      mv.value = plugin;
-      mv.standard_error = mv.noise_floor = kNaN;
-      mv.resolved = false;
-      bias = zero_level = residual_bound = kNaN;
-      return;
-    }
-    const MeanSd ms = mean_sd(reps);
-    bias = ms.mean - plugin;
-    mv.value = plugin - bias;
-    mv.standard_error = ms.sd;
-    // The noise floor: where the corrected value of a zero distance lies, (2 − √2)·mean(D0*)
-    // (see metrics.hpp), plus kSignedResolutionFactor standard errors.
-    zero_level = (2.0 - std::numbers::sqrt2) * mean_sd(noise).mean;
-    mv.noise_floor = zero_level + kSignedResolutionFactor * ms.sd;
-    mv.resolved = std::isfinite(ms.sd) && mv.value > mv.noise_floor;
-    // What the correction may leave: at most √2 × the bias it removed, and never more than the
-    // level of a zero distance (metrics.hpp).
-    residual_bound = std::min(zero_level, std::numbers::sqrt2 * std::fabs(bias));
-    corrected.reserve(reps.size());
-    for (double x : reps) corrected.push_back(x - bias);
-  };
-  finish(ks, ks0, out.kolmogorov_plugin, out.kolmogorov, out.kolmogorov_bias,
-         out.kolmogorov_zero_level, out.kolmogorov_residual_bound, out.kolmogorov_replicates);
-  finish(w1, w10, out.wasserstein1_plugin, out.wasserstein1, out.wasserstein1_bias,
-         out.wasserstein1_zero_level, out.wasserstein1_residual_bound,
-         out.wasserstein1_replicates);
+};
 
-  // Per trial: its values' nodes in order; KS from F at them, W1 piecewise on the grid.
+// The trial weights of every resample, drawn first, in order, from one stream.
+std::vector<double> resample_weights(std::size_t r, std::size_t b_count, std::uint64_t stream_size,
+                                     const MetricsOptions& options) {
+  std::vector<double> weights(b_count * r, 0.0);
+  rng::Stream stream(rng::StreamKey{options.seed, "metrics-bootstrap-trials", stream_size, 0});
+  for (std::size_t b = 0; b < b_count; ++b) {
+    for (std::size_t t = 0; t < r; ++t) {
+      auto pick = static_cast<std::size_t>(stream.uniform() * static_cast<double>(r));
+      weights[b * r + std::min(pick, r - 1)] += 1.0 / static_cast<double>(r);
+    }
+  }
+  return weights;
+}
+
+// The distances of every resample, on up to kSpectraThreads threads, each replicate by itself
+// into its own slot.
+ReplicateDistances replicate_distances(const WeightedDistances& distances,
+                                       const std::vector<double>& weights, std::size_t b_count) {
+  const std::size_t r = distances.r, m = distances.m;
+  ReplicateDistances out;
+  std::vector<double>& ks = out.ks;
+  std::vector<double>& w1 = out.w1;
+  std::vector<double>& ks0 = out.ks0;
+  std::vector<double>& w10 = out.w10;
+  ks.assign(b_count, 0.0);
+  w1.assign(b_count, 0.0);
+  ks0.assign(b_count, 0.0);
+  w10.assign(b_count, 0.0);
+  const std::size_t threads = std::clamp<std::size_t>(std::thread::hardware_concurrency(), 1,
+                                                      std::min(kSpectraThreads, b_count));
+  std::atomic<std::size_t> next{0};
+  std::atomic<bool> stop{false};
+  const auto work = [&] {
+    std::vector<double> my_cum(m + 1), my_wt(r);
+    for (std::size_t b = next++; b < b_count && !stop; b = next++) {
+      distances(std::span<const double>(weights).subspan(b * r, r), ks[b], w1[b], ks0[b], w10[b],
+                my_cum, my_wt);
+    }
+  };
+  std::vector<std::thread> pool;
+  for (std::size_t i = 1; i < threads; ++i) pool.emplace_back(work);
+  try {
+    // This thread works too, and answers a stop request between its replicates.
+    std::vector<double> my_cum(m + 1), my_wt(r);
+    for (std::size_t b = next++; b < b_count; b = next++) {
+      check_stop();
+      distances(std::span<const double>(weights).subspan(b * r, r), ks[b], w1[b], ks0[b], w10[b],
+                my_cum, my_wt);
+    }
+  } catch (...) {
+    stop = true;
+    for (auto& th : pool) th.join();
+    throw;
+  }
+  for (auto& th : pool) th.join();
+  return out;
+}
+
+// A distance from its plug-in value and its replicates: bias-corrected value, standard error,
+// noise floor, the bound of the bias the correction may leave, and the corrected replicates.
+void finish_distance(const std::vector<double>& reps, const std::vector<double>& noise,
+                     double plugin, MetricValue& mv, double& bias, double& zero_level,
+                     double& residual_bound, std::vector<double>& corrected) {
+  if (reps.size() < 2) {
+    mv.value = plugin;
+    mv.standard_error = mv.noise_floor = kNaN;
+    mv.resolved = false;
+    bias = zero_level = residual_bound = kNaN;
+    return;
+  }
+  const MeanSd ms = mean_sd(reps);
+  bias = ms.mean - plugin;
+  mv.value = plugin - bias;
+  mv.standard_error = ms.sd;
+  // The noise floor: where the corrected value of a zero distance lies, (2 − √2)·mean(D0*)
+  // (see metrics.hpp), plus kSignedResolutionFactor standard errors.
+  zero_level = (2.0 - std::numbers::sqrt2) * mean_sd(noise).mean;
+  mv.noise_floor = zero_level + kSignedResolutionFactor * ms.sd;
+  mv.resolved = std::isfinite(ms.sd) && mv.value > mv.noise_floor;
+  // What the correction may leave: at most √2 × the bias it removed, and never more than the
+  // level of a zero distance (metrics.hpp).
+  residual_bound = std::min(zero_level, std::numbers::sqrt2 * std::fabs(bias));
+  corrected.reserve(reps.size());
+  for (double x : reps) corrected.push_back(x - bias);
+}
+
+// Per trial: its values' nodes in order; KS from F at them, W1 piecewise on the grid.
+void per_trial_distances(std::span<const std::vector<double>> spectra, const SpectraGrid& g,
+                         const std::vector<std::uint32_t>& value_trial, SpectraDistances& out) {
+  const std::size_t r = spectra.size(), m = value_trial.size(), nodes = g.x.size();
   std::vector<std::vector<std::size_t>> trial_nodes(r);
   for (std::size_t t = 0; t < r; ++t) trial_nodes[t].reserve(spectra[t].size());
   for (std::size_t v = 0; v < m; ++v) trial_nodes[value_trial[v]].push_back(g.node_of_value[v]);
@@ -592,6 +624,54 @@ SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
     out.per_trial_kolmogorov[t] = d;
     out.per_trial_wasserstein1[t] = area;
   }
+}
+
+}  // namespace
+
+SpectraDistances spectra_distances(std::span<const std::vector<double>> spectra,
+                                   const LimitDistribution& limit, std::uint64_t stream_size,
+                                   const MetricsOptions& options) {
+  const std::size_t m = checked_value_count(spectra, limit);
+  const std::size_t r = spectra.size();
+  PooledValues pooled = pooled_values(spectra, m);
+  SpectraGrid g;
+  place_grid_nodes(pooled, limit, g);
+  fill_grid_values(limit, m, g);
+
+  WeightedDistances distances(spectra, g, pooled);
+  std::vector<double> cum_data(m + 1), wt_data(r);
+  // What the loops below do not need (about 40 % of the memory at 10^7 values).
+  PooledValues().swap(pooled);
+  std::vector<std::size_t>().swap(g.below);
+
+  SpectraDistances out;
+  out.trials = static_cast<std::int64_t>(r);
+  out.values = static_cast<std::int64_t>(m);
+  out.wasserstein1_grid_bound = g.bound;
+  std::vector<double> w(r, 1.0 / static_cast<double>(r));
+  {
+    double unused0 = 0.0, unused1 = 0.0;
+    distances(w, out.kolmogorov_plugin, out.wasserstein1_plugin, unused0, unused1, cum_data, wt_data);
+    distances.cum0 = std::move(cum_data);
+  }
+
+  // The replicates: every resample drawn first, in order, from one stream; then computed on up to
+  // kSpectraThreads threads, each replicate by itself into its own slot, so the numbers do not
+  // depend on the thread count.
+  ReplicateDistances reps;
+  if (r >= 2 && options.bootstrap_replicates >= 2) {
+    const auto b_count = static_cast<std::size_t>(options.bootstrap_replicates);
+    const std::vector<double> weights = resample_weights(r, b_count, stream_size, options);
+    reps = replicate_distances(distances, weights, b_count);
+  }
+  finish_distance(reps.ks, reps.ks0, out.kolmogorov_plugin, out.kolmogorov, out.kolmogorov_bias,
+                  out.kolmogorov_zero_level, out.kolmogorov_residual_bound,
+                  out.kolmogorov_replicates);
+  finish_distance(reps.w1, reps.w10, out.wasserstein1_plugin, out.wasserstein1,
+                  out.wasserstein1_bias, out.wasserstein1_zero_level,
+                  out.wasserstein1_residual_bound, out.wasserstein1_replicates);
+
+  per_trial_distances(spectra, g, distances.value_trial, out);
   return out;
 }
 
@@ -609,11 +689,104 @@ SignedError signed_error(std::span<const double> values, double limit) {
   return out;
 }
 
+namespace {
+
+using TrialPointers = std::vector<const observe::TrialRecord*>;
+
+// The distances of the mean spectral distribution: from every trial's kept spectrum when all of
+// at least 2 trials kept one, else from the work units' histograms.
+void pooled_distances_of_size(const SizeData& data, const TrialPointers& ok,
+                              const LimitReference& limit, const MetricsOptions& options,
+                              SizeMetrics& out) {
+  const bool all_kept =
+      ok.size() >= 2 && std::all_of(ok.begin(), ok.end(), [](const observe::TrialRecord* t) {
+        return !t->spectrum.empty();
+      });
+  if (all_kept) {
+    std::vector<std::vector<double>> spectra;
+    spectra.reserve(ok.size());
+    for (const auto* t : ok) spectra.push_back(t->spectrum);
+    out.spectra = spectra_distances(spectra, limit.distribution,
+                                    static_cast<std::uint64_t>(data.n), options);
+    out.has_pooled = true;
+    out.pooled_from_spectra = true;
+    out.pooled_kolmogorov = out.spectra.kolmogorov;
+    out.pooled_wasserstein1 = out.spectra.wasserstein1;
+    out.pooled_resolution = 0.0;
+  } else if (data.unit_histograms.empty()) {
+    out.notes.push_back("no histograms: no pooled distances");
+  } else {
+    const PooledDistances p =
+        pooled_distances(data.edges, data.unit_histograms, limit.distribution, options);
+    out.has_pooled = true;
+    out.pooled_kolmogorov = p.kolmogorov;
+    out.pooled_wasserstein1 = p.wasserstein1;
+    out.pooled_resolution = p.resolution;
+    if (data.unit_histograms.size() < 2) {
+      out.notes.push_back("one work unit: no bootstrap, pooled distances unresolved");
+    }
+  }
+}
+
+// Each trial's own distances to the limit, where it kept its spectrum, and their means.
+void per_trial_distances_of_size(const TrialPointers& ok, const LimitReference& limit,
+                                 SizeMetrics& out) {
+  std::vector<double> ks, w1;
+  if (out.pooled_from_spectra) {
+    ks = out.spectra.per_trial_kolmogorov;
+    w1 = out.spectra.per_trial_wasserstein1;
+  } else {
+    for (const auto* t : ok) {
+      if (t->spectrum.empty()) continue;
+      const SampleDistances d = sample_distances(t->spectrum, limit.distribution);
+      ks.push_back(d.kolmogorov);
+      w1.push_back(d.wasserstein1);
+    }
+  }
+  if (!ks.empty()) {
+    out.has_per_trial = true;
+    out.per_trial.trials = static_cast<std::int64_t>(ks.size());
+    const auto fill = [](std::span<const double> x, MetricValue& m, double& sd) {
+      const SignedError e = signed_error(x, 0.0);
+      m = e.error;
+      sd = mean_sd(x).sd;
+    };
+    fill(ks, out.per_trial.kolmogorov, out.per_trial.kolmogorov_sd);
+    fill(w1, out.per_trial.wasserstein1, out.per_trial.wasserstein1_sd);
+    out.per_trial.kolmogorov_values = std::move(ks);
+    out.per_trial.wasserstein1_values = std::move(w1);
+  } else {
+    out.notes.push_back("no kept spectra: no per-trial distances");
+  }
+}
+
+// The error of every moment both the trials and the limit know (at least one trial is given).
+void moment_errors_of_size(const TrialPointers& ok, const LimitReference& limit,
+                           SizeMetrics& out) {
+  const std::size_t k_max = std::min(limit.moments.size(), ok.front()->moments.size());
+  for (std::size_t k = 0; k < k_max; ++k) {
+    std::vector<double> v;
+    v.reserve(ok.size());
+    double scale = 1.0;  // the size of the terms of (1/N) Σ x^k: max |x|^k over trials
+    for (const auto* t : ok) {
+      v.push_back(t->moments[k]);
+      scale = std::max(scale, std::pow(std::max(std::fabs(t->min), std::fabs(t->max)), static_cast<double>(k)));
+    }
+    SignedError e = signed_error(v, limit.moments[k]);
+    // An error at the level of rounding (odd moments of a symmetric model are 0 up to the last
+    // bits of the sum) is not a finite-N effect: never resolved.
+    if (std::fabs(e.error.value) <= kRoundingResolution * scale) e.error.resolved = false;
+    out.moment_errors.push_back(e);
+  }
+}
+
+}  // namespace
+
 SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& limit,
                                  const MetricsOptions& options) {
   SizeMetrics out;
   out.n = data.n;
-  std::vector<const observe::TrialRecord*> ok;
+  TrialPointers ok;
   for (const auto& t : data.trials) {
     if (!t.failed) ok.push_back(&t);
   }
@@ -622,79 +795,12 @@ SizeMetrics compute_size_metrics(const SizeData& data, const LimitReference& lim
   if (!limit.distribution.cdf) {
     out.notes.push_back("no limit CDF: no distances");
   } else {
-    const bool all_kept =
-        ok.size() >= 2 && std::all_of(ok.begin(), ok.end(), [](const observe::TrialRecord* t) {
-          return !t->spectrum.empty();
-        });
-    if (all_kept) {
-      std::vector<std::vector<double>> spectra;
-      spectra.reserve(ok.size());
-      for (const auto* t : ok) spectra.push_back(t->spectrum);
-      out.spectra = spectra_distances(spectra, limit.distribution,
-                                      static_cast<std::uint64_t>(data.n), options);
-      out.has_pooled = true;
-      out.pooled_from_spectra = true;
-      out.pooled_kolmogorov = out.spectra.kolmogorov;
-      out.pooled_wasserstein1 = out.spectra.wasserstein1;
-      out.pooled_resolution = 0.0;
-    } else if (data.unit_histograms.empty()) {
-      out.notes.push_back("no histograms: no pooled distances");
-    } else {
-      const PooledDistances p =
-          pooled_distances(data.edges, data.unit_histograms, limit.distribution, options);
-      out.has_pooled = true;
-      out.pooled_kolmogorov = p.kolmogorov;
-      out.pooled_wasserstein1 = p.wasserstein1;
-      out.pooled_resolution = p.resolution;
-      if (data.unit_histograms.size() < 2) {
-        out.notes.push_back("one work unit: no bootstrap, pooled distances unresolved");
-      }
-    }
-    std::vector<double> ks, w1;
-    if (out.pooled_from_spectra) {
-      ks = out.spectra.per_trial_kolmogorov;
-      w1 = out.spectra.per_trial_wasserstein1;
-    } else {
-      for (const auto* t : ok) {
-        if (t->spectrum.empty()) continue;
-        const SampleDistances d = sample_distances(t->spectrum, limit.distribution);
-        ks.push_back(d.kolmogorov);
-        w1.push_back(d.wasserstein1);
-      }
-    }
-    if (!ks.empty()) {
-      out.has_per_trial = true;
-      out.per_trial.trials = static_cast<std::int64_t>(ks.size());
-      const auto fill = [](std::span<const double> x, MetricValue& m, double& sd) {
-        const SignedError e = signed_error(x, 0.0);
-        m = e.error;
-        sd = mean_sd(x).sd;
-      };
-      fill(ks, out.per_trial.kolmogorov, out.per_trial.kolmogorov_sd);
-      fill(w1, out.per_trial.wasserstein1, out.per_trial.wasserstein1_sd);
-      out.per_trial.kolmogorov_values = std::move(ks);
-      out.per_trial.wasserstein1_values = std::move(w1);
-    } else {
-      out.notes.push_back("no kept spectra: no per-trial distances");
-    }
+    pooled_distances_of_size(data, ok, limit, options, out);
+    per_trial_distances_of_size(ok, limit, out);
   }
 
   if (!limit.moments.empty() && !ok.empty()) {
-    const std::size_t k_max = std::min(limit.moments.size(), ok.front()->moments.size());
-    for (std::size_t k = 0; k < k_max; ++k) {
-      std::vector<double> v;
-      v.reserve(ok.size());
-      double scale = 1.0;  // the size of the terms of (1/N) Σ x^k: max |x|^k over trials
-      for (const auto* t : ok) {
-        v.push_back(t->moments[k]);
-        scale = std::max(scale, std::pow(std::max(std::fabs(t->min), std::fabs(t->max)), static_cast<double>(k)));
-      }
-      SignedError e = signed_error(v, limit.moments[k]);
-      // An error at the level of rounding (odd moments of a symmetric model are 0 up to the last
-      // bits of the sum) is not a finite-N effect: never resolved.
-      if (std::fabs(e.error.value) <= kRoundingResolution * scale) e.error.resolved = false;
-      out.moment_errors.push_back(e);
-    }
+    moment_errors_of_size(ok, limit, out);
   } else if (limit.moments.empty()) {
     out.notes.push_back("no exact limit moments: no moment errors");
   }
