@@ -363,7 +363,6 @@ std::vector<EstimateScore> score_estimators(const store::RunFile& file,
         estimators.begin());
   }
   std::vector<store::EstimateRows> rows;
-  std::vector<observe::Observations> obs;
   for (std::size_t i = 0; i < header.sizes.size(); ++i) rows.push_back(file.read_estimates(i));
 
   for (std::size_t c = 0; c < columns; ++c) {

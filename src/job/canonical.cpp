@@ -6,6 +6,7 @@
 #include <string>
 
 #include "freegap/job.hpp"
+#include "freegap/text.hpp"
 
 namespace freegap::job {
 
@@ -14,13 +15,8 @@ namespace {
 using declarations::DiagonalLawKind;
 using declarations::Kind;
 
-// %.17g round-trips every double, so two different parameters never print alike. to_chars gives
-// exactly printf's %.17g in the C locale, whatever locale the process runs in.
-std::string exact(double x) {
-  char buf[40];
-  const auto result = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
-  return std::string(buf, result.ptr);
-}
+// %.17g round-trips every double, so two different parameters never print alike (text.hpp).
+using text::exact;
 
 // Free text carries its length so that no content (newlines, '=' signs) can imitate a field.
 std::string with_length(const std::string& text) {

@@ -2,6 +2,7 @@
 // file, line and dotted key, the rule and the fix (docs/building.md habits 10–11), so a user with
 // a typo on line 40 of a long study does not have to guess.
 #include "freegap/job.hpp"
+#include "freegap/text.hpp"
 
 #include <toml++/toml.h>
 
@@ -32,11 +33,7 @@ using declarations::DiagonalLawKind;
 using declarations::Kind;
 
 // Shortest text that reads back as the same double ("0.9", not "0.90000000000000002").
-std::string short_number(double x) {
-  char buf[64];
-  const auto result = std::to_chars(buf, buf + sizeof buf, x);
-  return std::string(buf, result.ptr);
-}
+using text::shortest;
 
 // What a node holds, for "(got ...)": the type and, for scalars, the value.
 std::string describe(const toml::node& node) {
@@ -46,7 +43,7 @@ std::string describe(const toml::node& node) {
     case toml::node_type::integer:
       return "integer " + std::to_string(node.as_integer()->get());
     case toml::node_type::floating_point:
-      return "float " + short_number(node.as_floating_point()->get());
+      return "float " + shortest(node.as_floating_point()->get());
     case toml::node_type::boolean:
       return node.as_boolean()->get() ? "boolean true" : "boolean false";
     case toml::node_type::array:
@@ -189,14 +186,14 @@ class Reader {
   double finite_number(const toml::node& node, std::string_view key) const {
     const double v = number(node, key, "a finite number");
     if (!std::isfinite(v))
-      fail_node(node, key, "must be a finite number (got " + short_number(v) + ")");
+      fail_node(node, key, "must be a finite number (got " + shortest(v) + ")");
     return v;
   }
 
   double positive_number(const toml::node& node, std::string_view key) const {
     const double v = number(node, key, "a positive number");
     if (!(std::isfinite(v) && v > 0)) {
-      fail_node(node, key, "must be a positive number (got " + short_number(v) + ")");
+      fail_node(node, key, "must be a positive number (got " + shortest(v) + ")");
     }
     return v;
   }
@@ -417,15 +414,15 @@ std::vector<declarations::Atom> read_atoms(const Reader& r, const toml::node& no
     const double weight = r.number((*pair)[1], key, "a number");
     if (!(std::isfinite(weight) && weight >= 0)) {
       r.fail_node(item, key,
-                  "every weight must be a finite number ≥ 0 (got " + short_number(weight) +
-                      " for value " + short_number(value) + ")");
+                  "every weight must be a finite number ≥ 0 (got " + shortest(weight) +
+                      " for value " + shortest(value) + ")");
     }
     total += weight;
     atoms.push_back({value, weight});
   }
   // The samplers' tolerance (declarations.cpp): a sum that is 1 up to rounding of the decimals.
   if (std::abs(total - 1.0) > 1e-12) {
-    r.fail(key, "weights must sum to 1 (got " + short_number(total) + "); rescale them");
+    r.fail(key, "weights must sum to 1 (got " + shortest(total) + "); rescale them");
   }
   return atoms;
 }
@@ -436,11 +433,8 @@ std::string file_digest(const declarations::MatrixSpec& spec) {
   // A file of K numbers at size K gives exactly its sorted numbers (declarations.hpp, DiagonalLaw).
   const std::vector<double> values = declarations::file_values(spec);
   std::string text;
-  char buf[40];
   for (const double v : values) {
-    // %.17g, independent of the locale (as in canonical.cpp).
-    const auto result = std::to_chars(buf, buf + sizeof buf, v, std::chars_format::general, 17);
-    text.append(buf, result.ptr);
+    text += text::exact(v);  // %.17g, independent of the locale (as in canonical.cpp)
     text += '\n';
   }
   return std::to_string(values.size()) + " " + sha256_hex(text);
@@ -573,8 +567,8 @@ void read_diagonal_law(const Reader& r, const toml::table& t, const std::string&
       law.low = r.finite_number(*low, prefix + ".low");
       law.high = r.finite_number(*high, prefix + ".high");
       if (!(law.low < law.high)) {
-        r.fail(prefix + ".high", "must be greater than low (got low = " + short_number(law.low) +
-                                     ", high = " + short_number(law.high) + ")");
+        r.fail(prefix + ".high", "must be greater than low (got low = " + shortest(law.low) +
+                                     ", high = " + shortest(law.high) + ")");
       }
       break;
     }
@@ -653,8 +647,8 @@ void read_observe_range(const Reader& r, const toml::node& v, ObserveSettings& s
     s.low = r.finite_number((*list)[0], "observe.range");
     s.high = r.finite_number((*list)[1], "observe.range");
     if (!(s.low < s.high)) {
-      r.fail("observe.range", "low must be less than high (got [" + short_number(s.low) + ", " +
-                                  short_number(s.high) + "]); write [low, high] with low < high");
+      r.fail("observe.range", "low must be less than high (got [" + shortest(s.low) + ", " +
+                                  shortest(s.high) + "]); write [low, high] with low < high");
     }
     // The histogram's own rule (edges finite and strictly increasing after rounding).
     try {
@@ -711,7 +705,7 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
     }
     s.margin = r.number(*v, "observe.margin", "a number ≥ 0");
     if (!(std::isfinite(s.margin) && s.margin >= 0)) {
-      r.fail("observe.margin", "must be a finite number ≥ 0 (got " + short_number(s.margin) + ")");
+      r.fail("observe.margin", "must be a finite number ≥ 0 (got " + shortest(s.margin) + ")");
     }
   }
   if (const toml::node* v = t.get("max_moment")) {
@@ -914,7 +908,7 @@ void read_estimator_parameters(const Reader& r, const toml::node& v, const std::
     } else if (const auto* i = node.as_integer()) {
       value = std::to_string(i->get());
     } else if (const auto* f = node.as_floating_point()) {
-      value = short_number(f->get());
+      value = shortest(f->get());
     } else if (const auto* b = node.as_boolean()) {
       value = b->get() ? "true" : "false";
     } else {
@@ -945,10 +939,7 @@ void read_estimator_truths(const Reader& r, const toml::table& t, const std::str
     }
     std::string text;
     if (node.is_integer() || node.is_floating_point()) {
-      const double x = r.finite_number(node, at);
-      char buf[40];
-      const auto result = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
-      text.assign(buf, result.ptr);
+      text = text::exact(r.finite_number(node, at));
     } else {
       text = read_truth_text(r, node, at, matrices);
     }

@@ -23,6 +23,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
 #include "freegap/store.hpp"
+#include "freegap/text.hpp"
 #include "freegap/version.hpp"
 #include "h5.hpp"
 
@@ -45,14 +46,7 @@ constexpr std::int8_t kMarkerLost = 2;
 // ---------------------------------------------------------------------------------------------
 // Small helpers
 
-std::string now_utc() {
-  const std::time_t now = std::time(nullptr);
-  std::tm parts{};
-  gmtime_r(&now, &parts);
-  std::array<char, 32> text{};
-  std::strftime(text.data(), text.size(), "%Y-%m-%dT%H:%M:%SZ", &parts);
-  return text.data();
-}
+using text::utc_now;
 
 // Hashes are 64 hex digits; a 12-digit prefix is enough to tell two jobs apart in a message.
 std::string short_hash(const std::string& hash) {
@@ -750,7 +744,7 @@ void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t sessi
 
   Id provenance = h5::own(H5Gcreate2(file, "provenance", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
                           H5Gclose, where, "create group '/provenance'");
-  h5::write_string_attribute(provenance.get(), "created", now_utc(), where);
+  h5::write_string_attribute(provenance.get(), "created", utc_now(), where);
   // One row per chunk: an append then writes a new chunk and never rewrites earlier rows.
   h5::create_dataset(provenance.get(), "sessions", session_file_type,
                      {{0}, {kUnlimited}, {1}, false}, nullptr, where);
@@ -1655,7 +1649,7 @@ void RunFile::begin_session(int ranks, const std::vector<std::string>& hosts) {
   // Whether an earlier session was killed is decided when reading instead.
   const hsize_t row = h5::extent(f.sessions.get(), f.where())[0];
   f.current = SessionRecord{
-      now_utc(), "", ranks, hosts, "running", freegap::tool_version, freegap::git_revision};
+      utc_now(), "", ranks, hosts, "running", freegap::tool_version, freegap::git_revision};
   f.write_session_row(0, true);
   f.session = static_cast<std::int64_t>(row);
   f.flush("flush the session record");
@@ -1669,7 +1663,7 @@ void RunFile::end_session(const std::string& status) {
     throw Error("run file '" + f.path + "': session status must be finished or interrupted (got '" +
                 status + "')");
   }
-  f.current.ended = now_utc();
+  f.current.ended = utc_now();
   f.current.status = status;
   const auto row = static_cast<hsize_t>(f.session);
   f.session = -1;
@@ -1902,7 +1896,7 @@ void commit_unit(RunFile::Impl& f, const SizeHandles& s, const UnitResult& unit,
   const Where w = f.where();
   const std::int8_t one = 1;
   h5::overwrite_block(s.unit_committed.get(), H5T_NATIVE_INT8, {u}, {1}, &one, w, what);
-  const std::string committed_at = now_utc();
+  const std::string committed_at = utc_now();
   const UnitRow record{static_cast<std::int64_t>(unit.size_index),
                        unit.unit,
                        where_run.rank,
