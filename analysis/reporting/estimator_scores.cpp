@@ -20,6 +20,7 @@
 #include "freegap/observe.hpp"
 #include "freegap/rng.hpp"
 #include "freegap/study.hpp"
+#include "freegap/text.hpp"
 
 namespace freegap::analysis {
 
@@ -117,12 +118,8 @@ Stats stats_of(const std::vector<double>& x, double truth, bool known) {
   return s;
 }
 
-std::string number(double x) {
-  if (!std::isfinite(x)) return "";
-  char buf[40];
-  const auto r = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
-  return std::string(buf, r.ptr);
-}
+// A CSV cell: %.17g (text.hpp), empty when unknown.
+std::string number(double x) { return std::isfinite(x) ? text::exact(x) : ""; }
 
 std::string csv_field(const std::string& s) {
   if (s.find_first_of(",\"\n") == std::string::npos) return s;

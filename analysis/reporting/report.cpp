@@ -25,6 +25,7 @@
 #include "freegap/stop.hpp"
 #include "freegap/store.hpp"
 #include "freegap/study.hpp"
+#include "freegap/text.hpp"
 #include "freegap/sweep.hpp"
 
 namespace freegap::analysis {
@@ -1101,7 +1102,7 @@ std::string to_csv(const Table& table) {
         if (std::isnan(*d)) {
           out += "nan";
         } else {
-          out += fmt("%.17g", *d);
+          out += text::exact(*d);
         }
       } else {
         const std::string& s = std::get<std::string>(row[i]);
