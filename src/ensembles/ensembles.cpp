@@ -86,6 +86,62 @@ double invert_cdf(double p, double lo, double hi, Cdf cdf, Density density) {
   return x;
 }
 
+// ---- dense draws --------------------------------------------------------------------------------
+
+// A GUE matrix scaled by inv_sqrt_n.
+void draw_gue(Index n, double inv_sqrt_n, rng::Stream& stream, Sample& out) {
+  // Lower triangle column by column: H_jj ~ N(0,1), H_ij (i > j) complex normal, E|H_ij|^2 = 1.
+  out.storage = Sample::Storage::complex_dense;
+  auto& h = out.complex;
+  h.resize(n, n);
+  for (Index j = 0; j < n; ++j) {
+    h(j, j) = stream.normal();
+    for (Index i = j + 1; i < n; ++i) h(i, j) = stream.complex_normal();
+  }
+  linalg::mirror_lower(h);
+  h *= inv_sqrt_n;
+}
+
+// A real symmetric Wigner matrix scaled by inv_sqrt_n: GOE when gauss, otherwise Rademacher
+// entries off a zero diagonal.
+void draw_real_wigner(bool gauss, Index n, double inv_sqrt_n, rng::Stream& stream, Sample& out) {
+  out.storage = Sample::Storage::real_dense;
+  auto& h = out.real;
+  h.resize(n, n);
+  for (Index j = 0; j < n; ++j) {
+    h(j, j) = gauss ? std::sqrt(2.0) * stream.normal() : 0.0;  // GOE diagonal variance 2
+    for (Index i = j + 1; i < n; ++i) h(i, j) = gauss ? stream.normal() : stream.rademacher();
+  }
+  linalg::mirror_lower(h);
+  h *= inv_sqrt_n;
+}
+
+// A Haar unitary matrix from a complex Ginibre one, by `method`.
+void draw_haar_unitary(HaarMethod method, Index n, rng::Stream& stream, Sample& out) {
+  out.storage = Sample::Storage::complex_dense;
+  Eigen::MatrixXcd z(n, n);
+  stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
+  if (method == HaarMethod::qr) {
+    linalg::haar_from_qr(z);
+    out.complex = std::move(z);
+  } else {
+    out.complex = linalg::polar_factor(std::move(z));
+  }
+}
+
+// A Haar orthogonal matrix from a real Ginibre one, by `method`.
+void draw_haar_orthogonal(HaarMethod method, Index n, rng::Stream& stream, Sample& out) {
+  out.storage = Sample::Storage::real_dense;
+  Eigen::MatrixXd z(n, n);
+  stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
+  if (method == HaarMethod::qr) {
+    linalg::haar_from_qr(z);
+    out.real = std::move(z);
+  } else {
+    out.real = linalg::polar_factor(std::move(z));
+  }
+}
+
 void require_size(const MatrixSpec& spec, Index n) {
   if (n <= 0) fail(spec, "size N must be positive (got " + std::to_string(n) + ")");
 }
@@ -191,33 +247,13 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
     }
   }
   switch (spec_.kind) {
-    case Kind::gue: {
-      // Lower triangle column by column: H_jj ~ N(0,1), H_ij (i > j) complex normal, E|H_ij|^2 = 1.
-      out.storage = Sample::Storage::complex_dense;
-      auto& h = out.complex;
-      h.resize(n, n);
-      for (Index j = 0; j < n; ++j) {
-        h(j, j) = stream.normal();
-        for (Index i = j + 1; i < n; ++i) h(i, j) = stream.complex_normal();
-      }
-      linalg::mirror_lower(h);
-      h *= inv_sqrt_n;
+    case Kind::gue:
+      draw_gue(n, inv_sqrt_n, stream, out);
       break;
-    }
     case Kind::goe:
-    case Kind::wigner_rademacher: {
-      out.storage = Sample::Storage::real_dense;
-      auto& h = out.real;
-      h.resize(n, n);
-      const bool gauss = spec_.kind == Kind::goe;
-      for (Index j = 0; j < n; ++j) {
-        h(j, j) = gauss ? std::sqrt(2.0) * stream.normal() : 0.0;  // GOE diagonal variance 2
-        for (Index i = j + 1; i < n; ++i) h(i, j) = gauss ? stream.normal() : stream.rademacher();
-      }
-      linalg::mirror_lower(h);
-      h *= inv_sqrt_n;
+    case Kind::wigner_rademacher:
+      draw_real_wigner(spec_.kind == Kind::goe, n, inv_sqrt_n, stream, out);
       break;
-    }
     case Kind::wishart_complex: {
       Eigen::MatrixXcd x(n, m);
       stream.fill_complex_normal({x.data(), static_cast<std::size_t>(x.size())});
@@ -248,30 +284,12 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
       out.real *= 1.0 / std::sqrt(static_cast<double>(m));
       break;
     }
-    case Kind::haar_unitary: {
-      out.storage = Sample::Storage::complex_dense;
-      Eigen::MatrixXcd z(n, n);
-      stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
-      if (spec_.haar == HaarMethod::qr) {
-        linalg::haar_from_qr(z);
-        out.complex = std::move(z);
-      } else {
-        out.complex = linalg::polar_factor(std::move(z));
-      }
+    case Kind::haar_unitary:
+      draw_haar_unitary(spec_.haar, n, stream, out);
       break;
-    }
-    case Kind::haar_orthogonal: {
-      out.storage = Sample::Storage::real_dense;
-      Eigen::MatrixXd z(n, n);
-      stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
-      if (spec_.haar == HaarMethod::qr) {
-        linalg::haar_from_qr(z);
-        out.real = std::move(z);
-      } else {
-        out.real = linalg::polar_factor(std::move(z));
-      }
+    case Kind::haar_orthogonal:
+      draw_haar_orthogonal(spec_.haar, n, stream, out);
       break;
-    }
     case Kind::diagonal:
       break;
     case Kind::beta_hermite:

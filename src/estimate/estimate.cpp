@@ -493,6 +493,19 @@ class LibraryEstimator final : public Estimator {
             count);
       }
     }
+    const Request req = request_for(input);
+    if (!send_request(req) || !send_all(host_.sock.get(), input.spectrum.data(),
+                                        input.spectrum.size() * sizeof(double))) {
+      return failed("plug-in " + ended(), count);
+    }
+    return await_answer(count);
+  }
+
+ private:
+  enum class Described { ok, cannot_load, refused, failed, stopped };
+
+  // The request for one trial, without the spectrum that follows it.
+  Request request_for(const TrialInput& input) const {
     Request req{};
     req.trial = input.trial;
     req.seed = input.seed;
@@ -505,10 +518,11 @@ class LibraryEstimator final : public Estimator {
       req.matrix_cols = input.matrix.cols;
       req.matrix_is_complex = input.matrix.is_complex ? 1 : 0;
     }
-    if (!send_request(req) || !send_all(host_.sock.get(), input.spectrum.data(),
-                                        input.spectrum.size() * sizeof(double))) {
-      return failed("plug-in " + ended(), count);
-    }
+    return req;
+  }
+
+  // Waits for the host's answer to the request just sent and checks its `count` values.
+  Outcome await_answer(std::size_t count) {
     const auto deadline = Clock::now() + std::chrono::duration_cast<Clock::duration>(
                                              std::chrono::duration<double>(spec_.timeout));
     host::Message m{};
@@ -557,9 +571,6 @@ class LibraryEstimator final : public Estimator {
     for (std::size_t i = 0; i < count; ++i) values[order_[i]] = got[i];
     return checked(std::move(values), spec_.estimates, "plug-in");
   }
-
- private:
-  enum class Described { ok, cannot_load, refused, failed, stopped };
 
   // Starts a host for this library: a fresh program (posix_spawn, which neither copies the
   // rank's memory nor runs anything of the rank in the child), so nothing of an MPI rank — its
@@ -886,6 +897,119 @@ bool find_program(const std::string& program) {
   }
 }
 
+// Starts `command` with its standard input, output and error on the given pipe ends, in a process
+// group of its own; posix_spawnp's result, and the child's id in `pid`.
+int spawn_command(const std::vector<std::string>& command, const Fd& in_read, const Fd& out_write,
+                  const Fd& err_write, pid_t& pid) {
+  posix_spawn_file_actions_t actions;
+  posix_spawn_file_actions_init(&actions);
+  posix_spawn_file_actions_adddup2(&actions, in_read.get(), 0);
+  posix_spawn_file_actions_adddup2(&actions, out_write.get(), 1);
+  posix_spawn_file_actions_adddup2(&actions, err_write.get(), 2);
+  // The command gets none of the rank's other descriptors (the run file, MPI's sockets).
+  posix_spawn_file_actions_addclosefrom_np(&actions, 3);
+  posix_spawnattr_t attr;
+  posix_spawnattr_init(&attr);
+  // A process group of its own: a timeout kills the command and anything it started, and a
+  // terminal's Ctrl-C (meant for the run, which stops cleanly) does not reach it.
+  posix_spawnattr_setpgroup(&attr, 0);
+  sigset_t defaults;
+  sigemptyset(&defaults);
+  for (int s : {SIGINT, SIGTERM, SIGUSR1, SIGPIPE}) sigaddset(&defaults, s);
+  posix_spawnattr_setsigdefault(&attr, &defaults);
+  posix_spawnattr_setflags(&attr, POSIX_SPAWN_SETPGROUP | POSIX_SPAWN_SETSIGDEF);
+  std::vector<char*> argv;
+  for (const auto& word : command) argv.push_back(const_cast<char*>(word.c_str()));
+  argv.push_back(nullptr);
+  const int rc = ::posix_spawnp(&pid, argv[0], &actions, &attr, argv.data(), environ);
+  posix_spawn_file_actions_destroy(&actions);
+  posix_spawnattr_destroy(&attr);
+  return rc;
+}
+
+// What a command wrote, and whether the exchange with it ended on the timeout or a stop request.
+struct CommandOutput {
+  std::string out, err;
+  bool timed_out = false, stop = false;
+};
+
+// Feeds `text` to a command's input while draining its output and error, until both close, the
+// timeout passes or `stop` asks to stop.
+CommandOutput exchange(const std::string& text, double timeout, const std::function<bool()>& stop,
+                       Fd& in_write, Fd& out_read, Fd& err_read) {
+  // Feed stdin while draining stdout and stderr (a command may answer before reading all).
+  ::fcntl(in_write.get(), F_SETFL, O_NONBLOCK);
+  CommandOutput got;
+  std::size_t sent = 0;
+  const auto deadline = Clock::now() + std::chrono::duration_cast<Clock::duration>(
+                                           std::chrono::duration<double>(timeout));
+  while (out_read.get() >= 0 || err_read.get() >= 0) {
+    const auto left =
+        std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now()).count();
+    if (left <= 0) {
+      got.timed_out = true;
+      break;
+    }
+    if (stop && stop()) {
+      got.stop = true;
+      break;
+    }
+    pollfd fds[3];
+    int nfds = 0;
+    int in_slot = -1, out_slot = -1, err_slot = -1;
+    if (in_write.get() >= 0) {
+      in_slot = nfds;
+      fds[nfds++] = {in_write.get(), POLLOUT, 0};
+    }
+    if (out_read.get() >= 0) {
+      out_slot = nfds;
+      fds[nfds++] = {out_read.get(), POLLIN, 0};
+    }
+    if (err_read.get() >= 0) {
+      err_slot = nfds;
+      fds[nfds++] = {err_read.get(), POLLIN, 0};
+    }
+    // In slices, so that a stop request ends the wait soon.
+    const int ready =
+        ::poll(fds, static_cast<nfds_t>(nfds), static_cast<int>(std::min<long long>(left, 100)));
+    if (ready < 0 && errno == EINTR) continue;
+    if (ready <= 0) continue;
+    if (in_slot >= 0 && fds[in_slot].revents != 0) {
+      if (fds[in_slot].revents & (POLLERR | POLLHUP)) {
+        in_write.reset();  // the command closed its input: it read what it wanted
+      } else {
+        const ssize_t k = ::write(in_write.get(), text.data() + sent, text.size() - sent);
+        if (k > 0) sent += static_cast<std::size_t>(k);
+        if ((k < 0 && errno != EAGAIN && errno != EINTR) || sent == text.size()) in_write.reset();
+      }
+    }
+    char buf[65536];
+    for (auto [slot, fd, sink] : {std::tuple<int, Fd*, std::string*>{out_slot, &out_read, &got.out},
+                                  {err_slot, &err_read, &got.err}}) {
+      if (slot < 0 || fds[slot].revents == 0) continue;
+      const ssize_t k = ::read(fd->get(), buf, sizeof buf);
+      if (k > 0) {
+        if (sink->size() < (std::size_t{1} << 26)) sink->append(buf, static_cast<std::size_t>(k));
+      } else if (k == 0 || (errno != EINTR && errno != EAGAIN)) {
+        fd->reset();
+      }
+    }
+  }
+  return got;
+}
+
+// The last line of a command's error output that is not blank ("" if there is none).
+std::string last_line(const std::string& err) {
+  std::string last;
+  std::size_t end = err.find_last_not_of(" \n\r\t");
+  if (end != std::string::npos) {
+    const std::size_t begin = err.rfind('\n', end);
+    last = err.substr(begin == std::string::npos ? 0 : begin + 1,
+                      end + 1 - (begin == std::string::npos ? 0 : begin + 1));
+  }
+  return last;
+}
+
 class CommandEstimator final : public Estimator {
  public:
   CommandEstimator(const job::Job& job, const job::EstimatorSpec& spec) : spec_(spec) {
@@ -910,30 +1034,8 @@ class CommandEstimator final : public Estimator {
     if (::pipe2(err_pipe, O_CLOEXEC) != 0) return failed(std::string("pipe: ") + std::strerror(errno), count);
     Fd err_read(err_pipe[0]), err_write(err_pipe[1]);
 
-    posix_spawn_file_actions_t actions;
-    posix_spawn_file_actions_init(&actions);
-    posix_spawn_file_actions_adddup2(&actions, in_read.get(), 0);
-    posix_spawn_file_actions_adddup2(&actions, out_write.get(), 1);
-    posix_spawn_file_actions_adddup2(&actions, err_write.get(), 2);
-    // The command gets none of the rank's other descriptors (the run file, MPI's sockets).
-    posix_spawn_file_actions_addclosefrom_np(&actions, 3);
-    posix_spawnattr_t attr;
-    posix_spawnattr_init(&attr);
-    // A process group of its own: a timeout kills the command and anything it started, and a
-    // terminal's Ctrl-C (meant for the run, which stops cleanly) does not reach it.
-    posix_spawnattr_setpgroup(&attr, 0);
-    sigset_t defaults;
-    sigemptyset(&defaults);
-    for (int s : {SIGINT, SIGTERM, SIGUSR1, SIGPIPE}) sigaddset(&defaults, s);
-    posix_spawnattr_setsigdefault(&attr, &defaults);
-    posix_spawnattr_setflags(&attr, POSIX_SPAWN_SETPGROUP | POSIX_SPAWN_SETSIGDEF);
-    std::vector<char*> argv;
-    for (const auto& word : spec_.command) argv.push_back(const_cast<char*>(word.c_str()));
-    argv.push_back(nullptr);
     pid_t pid = -1;
-    const int rc = ::posix_spawnp(&pid, argv[0], &actions, &attr, argv.data(), environ);
-    posix_spawn_file_actions_destroy(&actions);
-    posix_spawnattr_destroy(&attr);
+    const int rc = spawn_command(spec_.command, in_read, out_write, err_write, pid);
     in_read.reset();
     out_write.reset();
     err_write.reset();
@@ -941,89 +1043,25 @@ class CommandEstimator final : public Estimator {
       return failed("cannot start '" + spec_.command[0] + "': " + std::strerror(rc), count);
     }
 
-    // Feed stdin while draining stdout and stderr (a command may answer before reading all).
-    ::fcntl(in_write.get(), F_SETFL, O_NONBLOCK);
-    std::string out, err;
-    std::size_t sent = 0;
-    bool timed_out = false, stop = false;
-    const auto deadline =
-        Clock::now() + std::chrono::duration_cast<Clock::duration>(
-                           std::chrono::duration<double>(spec_.timeout));
-    while (out_read.get() >= 0 || err_read.get() >= 0) {
-      const auto left =
-          std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now()).count();
-      if (left <= 0) {
-        timed_out = true;
-        break;
-      }
-      if (stop_ && stop_()) {
-        stop = true;
-        break;
-      }
-      pollfd fds[3];
-      int nfds = 0;
-      int in_slot = -1, out_slot = -1, err_slot = -1;
-      if (in_write.get() >= 0) {
-        in_slot = nfds;
-        fds[nfds++] = {in_write.get(), POLLOUT, 0};
-      }
-      if (out_read.get() >= 0) {
-        out_slot = nfds;
-        fds[nfds++] = {out_read.get(), POLLIN, 0};
-      }
-      if (err_read.get() >= 0) {
-        err_slot = nfds;
-        fds[nfds++] = {err_read.get(), POLLIN, 0};
-      }
-      // In slices, so that a stop request ends the wait soon.
-      const int ready =
-          ::poll(fds, static_cast<nfds_t>(nfds), static_cast<int>(std::min<long long>(left, 100)));
-      if (ready < 0 && errno == EINTR) continue;
-      if (ready <= 0) continue;
-      if (in_slot >= 0 && fds[in_slot].revents != 0) {
-        if (fds[in_slot].revents & (POLLERR | POLLHUP)) {
-          in_write.reset();  // the command closed its input: it read what it wanted
-        } else {
-          const ssize_t k = ::write(in_write.get(), text.data() + sent, text.size() - sent);
-          if (k > 0) sent += static_cast<std::size_t>(k);
-          if ((k < 0 && errno != EAGAIN && errno != EINTR) || sent == text.size()) in_write.reset();
-        }
-      }
-      char buf[65536];
-      for (auto [slot, fd, sink] : {std::tuple<int, Fd*, std::string*>{out_slot, &out_read, &out},
-                                    {err_slot, &err_read, &err}}) {
-        if (slot < 0 || fds[slot].revents == 0) continue;
-        const ssize_t k = ::read(fd->get(), buf, sizeof buf);
-        if (k > 0) {
-          if (sink->size() < (std::size_t{1} << 26)) sink->append(buf, static_cast<std::size_t>(k));
-        } else if (k == 0 || (errno != EINTR && errno != EAGAIN)) {
-          fd->reset();
-        }
-      }
-    }
+    const CommandOutput got = exchange(text, spec_.timeout, stop_, in_write, out_read, err_read);
     int status = 0;
-    if (timed_out || stop) {
+    if (got.timed_out || got.stop) {
       ::kill(-pid, SIGKILL);
       ::kill(pid, SIGKILL);
     }
     while (::waitpid(pid, &status, 0) < 0 && errno == EINTR) {
     }
-    if (stop) return failed("stopped: the run was asked to stop", count);
-    if (timed_out) {
+    if (got.stop) return failed("stopped: the run was asked to stop", count);
+    if (got.timed_out) {
       return failed("command did not finish within the timeout of " + seconds_text(spec_.timeout) +
                         " s; it was killed",
                     count);
     }
     if (!(WIFEXITED(status) && WEXITSTATUS(status) == 0)) {
-      std::string last;
-      std::size_t end = err.find_last_not_of(" \n\r\t");
-      if (end != std::string::npos) {
-        const std::size_t begin = err.rfind('\n', end);
-        last = err.substr(begin == std::string::npos ? 0 : begin + 1, end + 1 - (begin == std::string::npos ? 0 : begin + 1));
-      }
+      const std::string last = last_line(got.err);
       return failed("command " + exit_text(status) + (last.empty() ? "" : ": " + last), count);
     }
-    return parse_command_output(out, spec_.estimates);
+    return parse_command_output(got.out, spec_.estimates);
   }
 
  private:

@@ -33,6 +33,74 @@ struct Token {
 
 bool is_continuation_byte(char c) { return (static_cast<unsigned char>(c) & 0xC0) == 0x80; }
 
+// The length of the name starting at text[i] (a letter, then letters, digits and '_').
+std::size_t name_length(const std::string& text, std::size_t i) {
+  std::size_t length = 1;
+  while (i + length < text.size() &&
+         (std::isalnum(static_cast<unsigned char>(text[i + length])) || text[i + length] == '_')) {
+    ++length;
+  }
+  return length;
+}
+
+// The length of the number starting at text[i] (digits, a fraction, an exponent).
+std::size_t number_length(const std::string& text, std::size_t i) {
+  std::size_t length = 1;
+  auto digits = [&] {
+    while (i + length < text.size() && std::isdigit(static_cast<unsigned char>(text[i + length])))
+      ++length;
+  };
+  digits();
+  if (i + length < text.size() && text[i + length] == '.') {
+    ++length;
+    digits();
+  }
+  if (i + length < text.size() && (text[i + length] == 'e' || text[i + length] == 'E')) {
+    std::size_t save = length;
+    ++length;
+    if (i + length < text.size() && (text[i + length] == '+' || text[i + length] == '-'))
+      ++length;
+    const std::size_t before = length;
+    digits();
+    if (length == before) length = save;  // "2e" is 2 followed by a name
+  }
+  return length;
+}
+
+// The kind of the one-byte symbol text[i]; anything else is refused, at `column`.
+Token::Kind symbol_kind(const std::string& text, std::size_t i, int column) {
+  const char c = text[i];
+  switch (c) {
+    case '+':
+      return Token::Kind::plus;
+    case '-':
+      return Token::Kind::minus;
+    case '*':
+      return Token::Kind::star;
+    case '/':
+      return Token::Kind::slash;
+    case '^':
+      return Token::Kind::caret;
+    case '(':
+      return Token::Kind::open;
+    case ')':
+      return Token::Kind::close;
+    default: {
+      const auto byte = static_cast<unsigned char>(c);
+      if (byte < 0x20 || byte == 0x7f || is_continuation_byte(c) || byte >= 0xf8) {
+        // A control character (a NUL would cut the message short where it is printed) or a
+        // byte that cannot start a UTF-8 character: named by its value.
+        char hex[8];
+        std::snprintf(hex, sizeof hex, "0x%02X", byte);
+        fail(std::string("unexpected byte ") + hex, column);
+      }
+      std::size_t length = 1;
+      while (i + length < text.size() && is_continuation_byte(text[i + length])) ++length;
+      fail("unexpected character '" + text.substr(i, length) + "'", column);
+    }
+  }
+}
+
 std::vector<Token> tokenize(const std::string& text) {
   std::vector<Token> tokens;
   std::size_t i = 0;
@@ -52,69 +120,13 @@ std::vector<Token> tokenize(const std::string& text) {
     token.column = column;
     std::size_t length = 1;
     if (std::isalpha(static_cast<unsigned char>(c))) {
-      while (
-          i + length < text.size() &&
-          (std::isalnum(static_cast<unsigned char>(text[i + length])) || text[i + length] == '_')) {
-        ++length;
-      }
+      length = name_length(text, i);
       token.kind = Token::Kind::name;
     } else if (std::isdigit(static_cast<unsigned char>(c))) {
-      auto digits = [&] {
-        while (i + length < text.size() &&
-               std::isdigit(static_cast<unsigned char>(text[i + length])))
-          ++length;
-      };
-      digits();
-      if (i + length < text.size() && text[i + length] == '.') {
-        ++length;
-        digits();
-      }
-      if (i + length < text.size() && (text[i + length] == 'e' || text[i + length] == 'E')) {
-        std::size_t save = length;
-        ++length;
-        if (i + length < text.size() && (text[i + length] == '+' || text[i + length] == '-'))
-          ++length;
-        const std::size_t before = length;
-        digits();
-        if (length == before) length = save;  // "2e" is 2 followed by a name
-      }
+      length = number_length(text, i);
       token.kind = Token::Kind::number;
     } else {
-      switch (c) {
-        case '+':
-          token.kind = Token::Kind::plus;
-          break;
-        case '-':
-          token.kind = Token::Kind::minus;
-          break;
-        case '*':
-          token.kind = Token::Kind::star;
-          break;
-        case '/':
-          token.kind = Token::Kind::slash;
-          break;
-        case '^':
-          token.kind = Token::Kind::caret;
-          break;
-        case '(':
-          token.kind = Token::Kind::open;
-          break;
-        case ')':
-          token.kind = Token::Kind::close;
-          break;
-        default: {
-          const auto byte = static_cast<unsigned char>(c);
-          if (byte < 0x20 || byte == 0x7f || is_continuation_byte(c) || byte >= 0xf8) {
-            // A control character (a NUL would cut the message short where it is printed) or a
-            // byte that cannot start a UTF-8 character: named by its value.
-            char hex[8];
-            std::snprintf(hex, sizeof hex, "0x%02X", byte);
-            fail(std::string("unexpected byte ") + hex, column);
-          }
-          while (i + length < text.size() && is_continuation_byte(text[i + length])) ++length;
-          fail("unexpected character '" + text.substr(i, length) + "'", column);
-        }
-      }
+      token.kind = symbol_kind(text, i, column);
     }
     token.text = text.substr(i, length);
     advance(length);

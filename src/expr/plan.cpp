@@ -520,140 +520,161 @@ class Planner {
   void emit(int v) {
     const Node& node = p_.nodes[v];
     const bool complex = !node.real;
-    const double entry_flops = complex ? 4.0 : 2.0;  // add a scaled term
     Step step;
     step.node = v;
     step.complex = complex;
     switch (node.kind) {
       case NodeKind::leaf:
         return;
-      case NodeKind::product: {
-        const Ref a = node.args[0], b = node.args[1];
-        const bool da = p_.nodes[a.node].diag, db = p_.nodes[b.node].diag;
-        if (da && db) {
-          step.kind = StepKind::diagonal;
-          step.in = {a, b};
-          step.out = new_buffer(true);
-          step.info = {StepKind::diagonal, "", name(a) + "·" + name(b), "diagonal product",
-                       static_cast<double>(rows(a))};
-        } else if (da || db) {
-          const Ref x = da ? b : a, d = da ? a : b;
-          step.kind = da ? StepKind::scale_rows : StepKind::scale_columns;
-          step.in = {x, d};
-          step.in_place = owned_once(x);
-          step.out = step.in_place ? p_.buffer[x.node] : new_buffer(false);
-          step.info = {step.kind, "", name(a) + "·" + name(b),
-                       da ? "row scaling" : "column scaling",
-                       (complex ? 2.0 : 1.0) * rows(x) * cols(x)};
-        } else {
-          step.kind = StepKind::gemm;
-          step.in = {a, b};
-          step.out = new_buffer(false);
-          const double m = rows(a), k = cols(a), nn = cols(b);
-          step.info = {StepKind::gemm, "", name(a) + "·" + name(b), complex ? "zgemm" : "dgemm",
-                       (complex ? 8.0 : 2.0) * m * nn * k};
-          for (const Ref r : {a, b}) {
-            if (complex && p_.nodes[r.node].real) step.scratch += 16 * rows(r) * cols(r);
-          }
-        }
+      case NodeKind::product:
+        emit_product(node, step);
         break;
-      }
-      case NodeKind::gram: {
-        const Ref y = node.args[0];
-        step.kind = StepKind::herk;
-        step.in = {y};
-        step.out = new_buffer(false);
-        step.mirror = !lower_[v];
-        const double n = rows(y), k = cols(y);
-        step.info = {StepKind::herk, "", name(y) + "·" + name(p_nodes_adjoint(y)),
-                     complex ? "zherk" : "dsyrk", (complex ? 4.0 : 1.0) * n * n * k};
+      case NodeKind::gram:
+        emit_gram(v, node, step);
         break;
-      }
-      case NodeKind::conjugate: {
-        const Ref y = node.args[0], d = node.args[1];
-        step.kind = StepKind::conjugate;
-        step.in = {y, d};
-        step.out = new_buffer(false);
-        step.mirror = !lower_[v];
-        step.unitary = p_.nodes[y.node].unitary;
-        const auto [plus, minus] = conjugate_columns(p_, p_.nodes[d.node], step.unitary);
-        const double n = rows(y);
-        const double k = static_cast<double>(plus + minus);
-        step.scratch = entry_bytes(complex) * rows(y) * std::max(plus, minus);
-        std::string routine = std::string(complex ? "zherk" : "dsyrk") + " on " +
-                              std::to_string(plus + minus) + " scaled columns";
-        if (plus > 0 && minus > 0) routine += " (two updates)";
-        if (step.unitary) routine += ", shift by the most frequent value of " + name(d);
-        step.info = {StepKind::conjugate, "",
-                     name(y) + "·" + name(d) + "·" + name(p_nodes_adjoint(y)), routine,
-                     (complex ? 4.0 : 1.0) * n * n * k + (complex ? 2.0 : 1.0) * n * k};
+      case NodeKind::conjugate:
+        emit_conjugate(v, node, step);
         break;
-      }
-      case NodeKind::sum: {
-        step.kind = node.diag ? StepKind::diagonal : StepKind::sum;
-        step.identity = node.identity;
-        const Index n = p_.dims[node.rows];
-        int acc = -1;
-        if (!node.diag) {
-          for (std::size_t i = 0; i < node.args.size(); ++i) {
-            const Ref r = node.args[i];
-            const Node& t = p_.nodes[r.node];
-            if (owned_once(r) && !t.diag && t.real == node.real && step_of_[r.node] >= 0) {
-              acc = static_cast<int>(i);
-              break;
-            }
-          }
-        }
-        std::string text;
-        double flops = 0.0;
-        std::vector<std::size_t> order;  // the accumulator first, as it reads in explain()
-        if (acc >= 0) order.push_back(static_cast<std::size_t>(acc));
-        for (std::size_t i = 0; i < node.args.size(); ++i) {
-          if (static_cast<int>(i) != acc) order.push_back(i);
-        }
-        for (const std::size_t i : order) {
-          const Ref r = node.args[i];
-          const double c = node.coefs[i];
-          if (static_cast<int>(i) != acc) {
-            step.in.push_back(r);
-            step.coefs.push_back(c);
-            flops +=
-                p_.nodes[r.node].diag ? static_cast<double>(n) : entry_flops * rows(r) * cols(r);
-          }
-          std::string term =
-              (c == 1.0    ? ""
-               : c == -1.0 ? "-"
-                           : format_number(c) + "·") +
-              (p_.nodes[r.node].diag && !node.diag && is_leaf(r.node) ? "diag(" + name(r) + ")"
-                                                                      : name(r));
-          text += text.empty() ? term : (term[0] == '-' ? " - " + term.substr(1) : " + " + term);
-        }
-        if (node.identity != 0.0) {
-          text += (text.empty() ? "" : " + ") + format_number(node.identity) + "·I";
-          flops += static_cast<double>(n);
-        }
-        if (text.empty()) text = "0";
-        if (acc >= 0) {
-          const Ref a = node.args[acc];
-          step.in_place = true;
-          step.out = p_.buffer[a.node];
-          step.acc_step = step_of_[a.node];
-          fold(step.acc_step, node.coefs[acc]);
-          if (step.in.empty() && node.identity == 0.0) {
-            // Only a scalar multiple, folded into the producer: no step.
-            p_.buffer[v] = step.out;
-            step_of_[v] = step.acc_step;
-            return;
-          }
-        } else {
-          step.out = new_buffer(node.diag);
-        }
-        step.info = {step.kind, "", text, node.diag ? "diagonal arithmetic" : "sum", flops};
+      case NodeKind::sum:
+        if (!emit_sum(v, node, step)) return;
         break;
-      }
     }
     p_.buffer[v] = step.out;
     step_of_[v] = add_step(std::move(step));
+  }
+
+  // Fills `step` for a product: a diagonal product, a row or column scaling, or a gemm.
+  void emit_product(const Node& node, Step& step) {
+    const bool complex = step.complex;
+    const Ref a = node.args[0], b = node.args[1];
+    const bool da = p_.nodes[a.node].diag, db = p_.nodes[b.node].diag;
+    if (da && db) {
+      step.kind = StepKind::diagonal;
+      step.in = {a, b};
+      step.out = new_buffer(true);
+      step.info = {StepKind::diagonal, "", name(a) + "·" + name(b), "diagonal product",
+                   static_cast<double>(rows(a))};
+    } else if (da || db) {
+      const Ref x = da ? b : a, d = da ? a : b;
+      step.kind = da ? StepKind::scale_rows : StepKind::scale_columns;
+      step.in = {x, d};
+      step.in_place = owned_once(x);
+      step.out = step.in_place ? p_.buffer[x.node] : new_buffer(false);
+      step.info = {step.kind, "", name(a) + "·" + name(b),
+                   da ? "row scaling" : "column scaling",
+                   (complex ? 2.0 : 1.0) * rows(x) * cols(x)};
+    } else {
+      step.kind = StepKind::gemm;
+      step.in = {a, b};
+      step.out = new_buffer(false);
+      const double m = rows(a), k = cols(a), nn = cols(b);
+      step.info = {StepKind::gemm, "", name(a) + "·" + name(b), complex ? "zgemm" : "dgemm",
+                   (complex ? 8.0 : 2.0) * m * nn * k};
+      for (const Ref r : {a, b}) {
+        if (complex && p_.nodes[r.node].real) step.scratch += 16 * rows(r) * cols(r);
+      }
+    }
+  }
+
+  // Fills `step` for a Gram product Y Y^* (herk or syrk).
+  void emit_gram(int v, const Node& node, Step& step) {
+    const bool complex = step.complex;
+    const Ref y = node.args[0];
+    step.kind = StepKind::herk;
+    step.in = {y};
+    step.out = new_buffer(false);
+    step.mirror = !lower_[v];
+    const double n = rows(y), k = cols(y);
+    step.info = {StepKind::herk, "", name(y) + "·" + name(p_nodes_adjoint(y)),
+                 complex ? "zherk" : "dsyrk", (complex ? 4.0 : 1.0) * n * n * k};
+  }
+
+  // Fills `step` for a conjugation Y D Y^* (one or two rank-k updates).
+  void emit_conjugate(int v, const Node& node, Step& step) {
+    const bool complex = step.complex;
+    const Ref y = node.args[0], d = node.args[1];
+    step.kind = StepKind::conjugate;
+    step.in = {y, d};
+    step.out = new_buffer(false);
+    step.mirror = !lower_[v];
+    step.unitary = p_.nodes[y.node].unitary;
+    const auto [plus, minus] = conjugate_columns(p_, p_.nodes[d.node], step.unitary);
+    const double n = rows(y);
+    const double k = static_cast<double>(plus + minus);
+    step.scratch = entry_bytes(complex) * rows(y) * std::max(plus, minus);
+    std::string routine = std::string(complex ? "zherk" : "dsyrk") + " on " +
+                          std::to_string(plus + minus) + " scaled columns";
+    if (plus > 0 && minus > 0) routine += " (two updates)";
+    if (step.unitary) routine += ", shift by the most frequent value of " + name(d);
+    step.info = {StepKind::conjugate, "",
+                 name(y) + "·" + name(d) + "·" + name(p_nodes_adjoint(y)), routine,
+                 (complex ? 4.0 : 1.0) * n * n * k + (complex ? 2.0 : 1.0) * n * k};
+  }
+
+  // Fills `step` for a linear combination; false when it is only a scalar multiple folded into
+  // the producer of its accumulator, so that no step is added.
+  bool emit_sum(int v, const Node& node, Step& step) {
+    const double entry_flops = step.complex ? 4.0 : 2.0;  // add a scaled term
+    step.kind = node.diag ? StepKind::diagonal : StepKind::sum;
+    step.identity = node.identity;
+    const Index n = p_.dims[node.rows];
+    int acc = -1;
+    if (!node.diag) {
+      for (std::size_t i = 0; i < node.args.size(); ++i) {
+        const Ref r = node.args[i];
+        const Node& t = p_.nodes[r.node];
+        if (owned_once(r) && !t.diag && t.real == node.real && step_of_[r.node] >= 0) {
+          acc = static_cast<int>(i);
+          break;
+        }
+      }
+    }
+    std::string text;
+    double flops = 0.0;
+    std::vector<std::size_t> order;  // the accumulator first, as it reads in explain()
+    if (acc >= 0) order.push_back(static_cast<std::size_t>(acc));
+    for (std::size_t i = 0; i < node.args.size(); ++i) {
+      if (static_cast<int>(i) != acc) order.push_back(i);
+    }
+    for (const std::size_t i : order) {
+      const Ref r = node.args[i];
+      const double c = node.coefs[i];
+      if (static_cast<int>(i) != acc) {
+        step.in.push_back(r);
+        step.coefs.push_back(c);
+        flops +=
+            p_.nodes[r.node].diag ? static_cast<double>(n) : entry_flops * rows(r) * cols(r);
+      }
+      std::string term =
+          (c == 1.0    ? ""
+           : c == -1.0 ? "-"
+                       : format_number(c) + "·") +
+          (p_.nodes[r.node].diag && !node.diag && is_leaf(r.node) ? "diag(" + name(r) + ")"
+                                                                  : name(r));
+      text += text.empty() ? term : (term[0] == '-' ? " - " + term.substr(1) : " + " + term);
+    }
+    if (node.identity != 0.0) {
+      text += (text.empty() ? "" : " + ") + format_number(node.identity) + "·I";
+      flops += static_cast<double>(n);
+    }
+    if (text.empty()) text = "0";
+    if (acc >= 0) {
+      const Ref a = node.args[acc];
+      step.in_place = true;
+      step.out = p_.buffer[a.node];
+      step.acc_step = step_of_[a.node];
+      fold(step.acc_step, node.coefs[acc]);
+      if (step.in.empty() && node.identity == 0.0) {
+        // Only a scalar multiple, folded into the producer: no step.
+        p_.buffer[v] = step.out;
+        step_of_[v] = step.acc_step;
+        return false;
+      }
+    } else {
+      step.out = new_buffer(node.diag);
+    }
+    step.info = {step.kind, "", text, node.diag ? "diagonal arithmetic" : "sum", flops};
+    return true;
   }
 
   Ref p_nodes_adjoint(Ref r) const {
@@ -949,19 +970,9 @@ class Evaluator {
       case StepKind::sum:
         sum(step, out);
         break;
-      case StepKind::diagonal: {
-        const Node& n = p_.nodes[step.node];
-        if (n.kind == NodeKind::product) {
-          out.diagonal = step.alpha * diagonal(step.in[0]).cwiseProduct(diagonal(step.in[1]));
-        } else {
-          out.diagonal = Vector::Constant(p_.dims[n.rows], step.identity);
-          for (std::size_t i = 0; i < step.in.size(); ++i) {
-            out.diagonal += step.coefs[i] * diagonal(step.in[i]);
-          }
-          out.diagonal *= step.alpha;
-        }
+      case StepKind::diagonal:
+        diagonal_arithmetic(step, out);
         break;
-      }
       case StepKind::to_dense: {
         const Vector& d = diagonal(step.in[0]);
         out.real = d.asDiagonal();
@@ -976,21 +987,9 @@ class Evaluator {
         }
         break;
       }
-      case StepKind::adjoint: {
-        const Ref r = step.in[0];
-        if (step.in_place) {
-          if (step.complex) {
-            out.complex.adjointInPlace();
-          } else {
-            out.real.transposeInPlace();
-          }
-        } else if (step.complex) {
-          out.complex = complex({r.node, false}).adjoint();
-        } else {
-          out.real = real({r.node, false}).transpose();
-        }
+      case StepKind::adjoint:
+        take_adjoint(step, out);
         break;
-      }
     }
     if (step.mirror) {
       if (step.complex) {
@@ -998,6 +997,36 @@ class Evaluator {
       } else {
         linalg::mirror_lower(out.real);
       }
+    }
+  }
+
+  // A product or linear combination of diagonal matrices, kept as a vector.
+  void diagonal_arithmetic(const Step& step, Buffer& out) const {
+    const Node& n = p_.nodes[step.node];
+    if (n.kind == NodeKind::product) {
+      out.diagonal = step.alpha * diagonal(step.in[0]).cwiseProduct(diagonal(step.in[1]));
+    } else {
+      out.diagonal = Vector::Constant(p_.dims[n.rows], step.identity);
+      for (std::size_t i = 0; i < step.in.size(); ++i) {
+        out.diagonal += step.coefs[i] * diagonal(step.in[i]);
+      }
+      out.diagonal *= step.alpha;
+    }
+  }
+
+  // The adjoint (transpose, for a real matrix) of a result, in place when the step owns it.
+  void take_adjoint(const Step& step, Buffer& out) const {
+    const Ref r = step.in[0];
+    if (step.in_place) {
+      if (step.complex) {
+        out.complex.adjointInPlace();
+      } else {
+        out.real.transposeInPlace();
+      }
+    } else if (step.complex) {
+      out.complex = complex({r.node, false}).adjoint();
+    } else {
+      out.real = real({r.node, false}).transpose();
     }
   }
 

@@ -31,6 +31,65 @@ using NeumaierSum = observe::CompensatedSum;
 
 constexpr Index kBlock = 2048;
 
+using Diagonals = std::vector<std::vector<double>>;
+
+// The scaled entries of T on the window of rows w0..w1 (zero on the padding), and U_0 = I there
+// with every other diagonal of U and V zero.
+void load_window(const Tridiagonal& t, int e, Index w0, Index w1, Index pad, Index len,
+                 std::vector<double>& d, std::vector<double>& off, Diagonals& U, Diagonals& V) {
+  std::fill(d.begin(), d.begin() + len, 0.0);
+  std::fill(off.begin(), off.begin() + len, 0.0);
+  for (Index i = w0; i < w1; ++i) {
+    const auto L = static_cast<std::size_t>(i - w0 + pad);
+    d[L] = std::ldexp(t.diag[i], -e);
+    if (i + 1 < w1) off[L] = std::ldexp(t.off[i], -e);  // T_{i,i+1}
+  }
+  // U_0 = I on the window's rows, zero on the padding.
+  // Both buffers start at zero: a diagonal above the current power's bandwidth must read 0.
+  for (auto& diagonal : U) std::fill(diagonal.begin(), diagonal.begin() + len, 0.0);
+  for (auto& diagonal : V) std::fill(diagonal.begin(), diagonal.begin() + len, 0.0);
+  for (Index L = pad; L < pad + (w1 - w0); ++L) U[0][static_cast<std::size_t>(L)] = 1.0;
+}
+
+// One step of the recurrence at the top of this file, on the local rows lo..hi − 1.
+void next_power(const Diagonals& U, Diagonals& V, const std::vector<double>& d,
+                const std::vector<double>& off, int j, Index lo, Index hi) {
+  // V = U_{j+1} from U = U_j (diagonals 0..j of U are meaningful, j+1 of V).
+  for (int s = 0; s <= j + 1; ++s) {
+    double* v = V[static_cast<std::size_t>(s)].data();
+    const double* us = U[static_cast<std::size_t>(s)].data();      // zero when s > j
+    const double* up = U[static_cast<std::size_t>(s + 1)].data();  // zero when s + 1 > j
+    const double* dd = d.data() + s;
+    const double* ee = off.data() + s;
+    if (s == 0) {
+      const double* u1 = U[1].data();  // U_j(i−1, 1), zero for j = 0
+      for (Index L = lo; L < hi; ++L) {
+        v[L] = u1[L - 1] * off[static_cast<std::size_t>(L - 1)] + us[L] * dd[L] + up[L] * ee[L];
+      }
+    } else {
+      const double* um = U[static_cast<std::size_t>(s - 1)].data();
+      const double* em = off.data() + (s - 1);
+      for (Index L = lo; L < hi; ++L) v[L] = um[L] * em[L] + us[L] * dd[L] + up[L] * ee[L];
+    }
+  }
+}
+
+// Adds the block's rows b0..b1 − 1 of the Frobenius product ⟨A, B⟩ (diagonals 0..top) to `sum`.
+void accumulate_rows(const Diagonals& A, const Diagonals& B, int top, Index b0, Index b1,
+                     std::vector<double>& row_terms, NeumaierSum& sum) {
+  // Row terms Σ_s w_s·A(i,s)·B(i,s), w_0 = 1, w_s = 2; then compensated over the rows.
+  double* terms = row_terms.data();
+  const double* a0 = A[0].data();
+  const double* c0 = B[0].data();
+  for (Index L = b0; L < b1; ++L) terms[L - b0] = a0[L] * c0[L];
+  for (int s = 1; s <= top; ++s) {
+    const double* a = A[static_cast<std::size_t>(s)].data();
+    const double* c = B[static_cast<std::size_t>(s)].data();
+    for (Index L = b0; L < b1; ++L) terms[L - b0] += 2.0 * a[L] * c[L];
+  }
+  for (Index L = b0; L < b1; ++L) sum.add(terms[L - b0]);
+}
+
 }  // namespace
 
 std::vector<double> moments(const Tridiagonal& t, int max_moment) {
@@ -78,35 +137,12 @@ std::vector<double> moments(const Tridiagonal& t, int max_moment) {
     const Index w0 = std::max<Index>(0, r0 - margin);
     const Index w1 = std::min(n, r1 + margin);
     const Index len = (w1 - w0) + 2 * pad + h + 2;  // local indices used in this block
-    std::fill(d.begin(), d.begin() + len, 0.0);
-    std::fill(off.begin(), off.begin() + len, 0.0);
-    for (Index i = w0; i < w1; ++i) {
-      const auto L = static_cast<std::size_t>(i - w0 + pad);
-      d[L] = std::ldexp(t.diag[i], -e);
-      if (i + 1 < w1) off[L] = std::ldexp(t.off[i], -e);  // T_{i,i+1}
-    }
-    // U_0 = I on the window's rows, zero on the padding.
-    // Both buffers start at zero: a diagonal above the current power's bandwidth must read 0.
-    for (auto& diagonal : U) std::fill(diagonal.begin(), diagonal.begin() + len, 0.0);
-    for (auto& diagonal : V) std::fill(diagonal.begin(), diagonal.begin() + len, 0.0);
-    for (Index L = pad; L < pad + (w1 - w0); ++L) U[0][static_cast<std::size_t>(L)] = 1.0;
+    load_window(t, e, w0, w1, pad, len, d, off, U, V);
 
     const Index b0 = r0 - w0 + pad;  // the block's rows, local
     const Index b1 = r1 - w0 + pad;
-    const auto accumulate = [&](int k, const std::vector<std::vector<double>>& A,
-                                const std::vector<std::vector<double>>& B, int top) {
-      // Row terms Σ_s w_s·A(i,s)·B(i,s), w_0 = 1, w_s = 2; then compensated over the rows.
-      double* terms = row_terms.data();
-      const double* a0 = A[0].data();
-      const double* c0 = B[0].data();
-      for (Index L = b0; L < b1; ++L) terms[L - b0] = a0[L] * c0[L];
-      for (int s = 1; s <= top; ++s) {
-        const double* a = A[static_cast<std::size_t>(s)].data();
-        const double* c = B[static_cast<std::size_t>(s)].data();
-        for (Index L = b0; L < b1; ++L) terms[L - b0] += 2.0 * a[L] * c[L];
-      }
-      auto& sum = sums[static_cast<std::size_t>(k)];
-      for (Index L = b0; L < b1; ++L) sum.add(terms[L - b0]);
+    const auto accumulate = [&](int k, const Diagonals& A, const Diagonals& B, int top) {
+      accumulate_rows(A, B, top, b0, b1, row_terms, sums[static_cast<std::size_t>(k)]);
     };
 
     // Rows that can still matter: those of the block and h + 1 before it (a row depends on lower
@@ -116,24 +152,7 @@ std::vector<double> moments(const Tridiagonal& t, int max_moment) {
     const Index lo = std::max<Index>(1, b0 - (h + 1));
     const Index hi = b1;
     for (int j = 0; j < h; ++j) {
-      // V = U_{j+1} from U = U_j (diagonals 0..j of U are meaningful, j+1 of V).
-      for (int s = 0; s <= j + 1; ++s) {
-        double* v = V[static_cast<std::size_t>(s)].data();
-        const double* us = U[static_cast<std::size_t>(s)].data();      // zero when s > j
-        const double* up = U[static_cast<std::size_t>(s + 1)].data();  // zero when s + 1 > j
-        const double* dd = d.data() + s;
-        const double* ee = off.data() + s;
-        if (s == 0) {
-          const double* u1 = U[1].data();  // U_j(i−1, 1), zero for j = 0
-          for (Index L = lo; L < hi; ++L) {
-            v[L] = u1[L - 1] * off[static_cast<std::size_t>(L - 1)] + us[L] * dd[L] + up[L] * ee[L];
-          }
-        } else {
-          const double* um = U[static_cast<std::size_t>(s - 1)].data();
-          const double* em = off.data() + (s - 1);
-          for (Index L = lo; L < hi; ++L) v[L] = um[L] * em[L] + us[L] * dd[L] + up[L] * ee[L];
-        }
-      }
+      next_power(U, V, d, off, j, lo, hi);
       const int k_odd = 2 * j + 1;
       if (k_odd <= K) accumulate(k_odd, U, V, j);
       const int k_even = 2 * j + 2;

@@ -29,6 +29,35 @@ bool all_eigenvalues(const Tridiagonal& p, std::vector<double>& out, std::string
   return true;
 }
 
+// Whether the counts C_j lie in 0..n and never decrease.
+bool counts_monotone(const std::vector<std::int64_t>& c, Index n) {
+  for (std::size_t j = 0; j < c.size(); ++j) {
+    if (c[j] < 0 || c[j] > n || (j > 0 && c[j] < c[j - 1])) return false;
+  }
+  return true;
+}
+
+// Narrows the extremes' brackets to the bins the counts C_j at the edges put them in.
+void narrow_by_counts(detail::GershgorinStart& start, const std::vector<std::int64_t>& c,
+                      const std::vector<double>& edges, Index n) {
+  const auto first_nonzero = std::find_if(c.begin(), c.end(), [](std::int64_t v) { return v > 0; });
+  if (first_nonzero != c.end()) {
+    const auto j = static_cast<std::size_t>(first_nonzero - c.begin());
+    start.lower.hi = std::min(start.lower.hi, edges[j]);                 // λ_min < e_j
+    if (j > 0) start.lower.lo = std::max(start.lower.lo, edges[j - 1]);  // λ_min ≥ e_{j−1}
+  } else {
+    start.lower.lo = std::max(start.lower.lo, edges.back());
+  }
+  const auto first_full = std::find(c.begin(), c.end(), static_cast<std::int64_t>(n));
+  if (first_full != c.end()) {
+    const auto j = static_cast<std::size_t>(first_full - c.begin());
+    start.upper.hi = std::min(start.upper.hi, edges[j]);                 // λ_max < e_j
+    if (j > 0) start.upper.lo = std::max(start.upper.lo, edges[j - 1]);  // λ_max ≥ e_{j−1}
+  } else {
+    start.upper.lo = std::max(start.upper.lo, edges.back());
+  }
+}
+
 }  // namespace
 
 observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
@@ -66,10 +95,8 @@ observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
   const auto& edges = config.bin_edges;
   std::vector<std::int64_t> c(edges.size());
   detail::counts_with(prepared, edges.data(), edges.size(), c.data());
-  for (std::size_t j = 0; j < c.size(); ++j) {
-    if (c[j] < 0 || c[j] > n || (j > 0 && c[j] < c[j - 1])) {
-      return observe::failed_trial(trial, "Sturm counts are not monotone in x");
-    }
+  if (!counts_monotone(c, n)) {
+    return observe::failed_trial(trial, "Sturm counts are not monotone in x");
   }
 
   // Extremes: the histogram already brackets them to one bin when they fall inside the range.
@@ -78,22 +105,7 @@ observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
     return observe::failed_trial(trial, "Gershgorin bound overflows double");
   }
   auto start = detail::start_brackets(p, extreme_tolerance);
-  const auto first_nonzero = std::find_if(c.begin(), c.end(), [](std::int64_t v) { return v > 0; });
-  if (first_nonzero != c.end()) {
-    const auto j = static_cast<std::size_t>(first_nonzero - c.begin());
-    start.lower.hi = std::min(start.lower.hi, edges[j]);                 // λ_min < e_j
-    if (j > 0) start.lower.lo = std::max(start.lower.lo, edges[j - 1]);  // λ_min ≥ e_{j−1}
-  } else {
-    start.lower.lo = std::max(start.lower.lo, edges.back());
-  }
-  const auto first_full = std::find(c.begin(), c.end(), static_cast<std::int64_t>(n));
-  if (first_full != c.end()) {
-    const auto j = static_cast<std::size_t>(first_full - c.begin());
-    start.upper.hi = std::min(start.upper.hi, edges[j]);                 // λ_max < e_j
-    if (j > 0) start.upper.lo = std::max(start.upper.lo, edges[j - 1]);  // λ_max ≥ e_{j−1}
-  } else {
-    start.upper.lo = std::max(start.upper.lo, edges.back());
-  }
+  narrow_by_counts(start, c, edges, n);
   if (!(start.lower.lo < start.lower.hi) || !(start.upper.lo < start.upper.hi)) {
     // The counts contradict the Gershgorin bounds: only possible through rounding at an edge
     // that lies within a few ulps of a bound; bisect from Gershgorin alone.
