@@ -1,5 +1,6 @@
 // Numbers and times as text, one copy of each rule for every part: the exact text a hash or a
-// file stores, the shortest text that reads back, the 12-digit text of messages, and UTC time.
+// file stores, the shortest text that reads back, the 12- and 6-digit texts of messages and explanations,
+// and UTC time.
 #pragma once
 
 #include <string>
@@ -15,6 +16,9 @@ std::string shortest(double x);
 
 /// 12 significant digits (%.12g): numbers in messages and descriptions.
 std::string readable(double x);
+
+/// 6 significant digits (%g): numbers in explanations and durations ("0.5", "1e+06").
+std::string compact(double x);
 
 /// The current time in UTC as ISO 8601, "2026-12-04T08:23:20Z".
 std::string utc_now();

@@ -1,6 +1,7 @@
 // Estimators that ride along with a run (include/freegap/estimate.hpp): plug-in libraries in a
 // helper program (src/estimate/host/), external commands, and the set that runs them on a trial.
 #include "freegap/estimate.hpp"
+#include "freegap/text.hpp"
 
 #include <dlfcn.h>
 #include <fcntl.h>
@@ -96,17 +97,6 @@ using host::Request;
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 using Clock = std::chrono::steady_clock;
 
-std::string number_text(double x) {
-  char buf[40];
-  const auto r = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::general, 17);
-  return std::string(buf, r.ptr);
-}
-
-std::string seconds_text(double s) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%g", s);
-  return buf;
-}
 
 std::string join_names(const std::vector<std::string>& names) {
   std::string out;
@@ -532,7 +522,7 @@ class LibraryEstimator final : public Estimator {
     if (st == ReadStatus::timeout) {
       host_.end(true);
       take_output(true);
-      return failed("plug-in did not answer within the timeout of " + seconds_text(spec_.timeout) +
+      return failed("plug-in did not answer within the timeout of " + text::compact(spec_.timeout) +
                         " s; its helper process was stopped",
                     count);
     }
@@ -667,7 +657,7 @@ class LibraryEstimator final : public Estimator {
         host_.end(true);
         take_output(true);
         why = std::string(doing) + " did not finish within the estimator's timeout of " +
-              seconds_text(spec_.timeout) + " s";
+              text::compact(spec_.timeout) + " s";
         return Described::failed;
       }
       if (st == ReadStatus::closed) {
@@ -1053,7 +1043,7 @@ class CommandEstimator final : public Estimator {
     }
     if (got.stop) return failed("stopped: the run was asked to stop", count);
     if (got.timed_out) {
-      return failed("command did not finish within the timeout of " + seconds_text(spec_.timeout) +
+      return failed("command did not finish within the timeout of " + text::compact(spec_.timeout) +
                         " s; it was killed",
                     count);
     }
@@ -1160,7 +1150,7 @@ std::string command_input(const TrialInput& input,
   text += "values " + std::to_string(input.spectrum.size()) + "\n";
   text.reserve(text.size() + 25 * input.spectrum.size() + 8);
   for (const double x : input.spectrum) {
-    text += number_text(x);
+    text += text::exact(x);
     text += '\n';
   }
   text += "end\n";

@@ -13,6 +13,7 @@
 
 #include "freegap/linalg.hpp"
 #include "freegap/stop.hpp"
+#include "freegap/text.hpp"
 #include "internal.hpp"
 
 namespace freegap::expr {
@@ -329,12 +330,6 @@ struct Step {
   StepInfo info;
 };
 
-std::string format_number(double x) {
-  char buffer[32];
-  std::snprintf(buffer, sizeof buffer, "%g", x);
-  return buffer;
-}
-
 std::string format_flops(double x) {
   char buffer[32];
   std::snprintf(buffer, sizeof buffer, "%.2e", x);
@@ -374,7 +369,6 @@ struct PlanData {
 using detail::Complex;
 using detail::format_bytes;
 using detail::format_flops;
-using detail::format_number;
 using detail::Node;
 using detail::NodeKind;
 using detail::PlanData;
@@ -648,13 +642,13 @@ class Planner {
       std::string term =
           (c == 1.0    ? ""
            : c == -1.0 ? "-"
-                       : format_number(c) + "·") +
+                       : text::compact(c) + "·") +
           (p_.nodes[r.node].diag && !node.diag && is_leaf(r.node) ? "diag(" + name(r) + ")"
                                                                   : name(r));
       text += text.empty() ? term : (term[0] == '-' ? " - " + term.substr(1) : " + " + term);
     }
     if (node.identity != 0.0) {
-      text += (text.empty() ? "" : " + ") + format_number(node.identity) + "·I";
+      text += (text.empty() ? "" : " + ") + text::compact(node.identity) + "·I";
       flops += static_cast<double>(n);
     }
     if (text.empty()) text = "0";
@@ -807,7 +801,7 @@ std::string Plan::explain() const {
   out << "size: N = " << p.n;
   for (std::size_t k = 1; k < p.dims.size(); ++k) {
     out << ", " << e.dim_names[k] << " = " << p.dims[k]
-        << " (c = " << format_number(e.dim_ratios[k - 1]) << ")";
+        << " (c = " << text::compact(e.dim_ratios[k - 1]) << ")";
   }
   out << "\n";
   out << "arithmetic: " << (p.result_complex ? "complex" : "real") << "\n";
@@ -829,7 +823,7 @@ std::string Plan::explain() const {
   const double nn = static_cast<double>(p.n) * static_cast<double>(p.n);
   out << "total: " << format_flops(p.flops) << " flops\n";
   out << "memory: inputs " << format_bytes(static_cast<double>(p.inputs)) << ", peak temporaries "
-      << format_bytes(static_cast<double>(p.peak)) << " (" << format_number(p.peak / (16.0 * nn))
+      << format_bytes(static_cast<double>(p.peak)) << " (" << text::compact(p.peak / (16.0 * nn))
       << " N×N complex matrices)\n";
   return out.str();
 }

@@ -26,6 +26,12 @@ std::string readable(double x) {
   return buf;
 }
 
+std::string compact(double x) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%g", x);
+  return buf;
+}
+
 std::string utc_now() {
   const std::time_t now = std::time(nullptr);
   std::tm parts{};
