@@ -50,7 +50,8 @@ std::string quoted(const std::string& s) {
 // finer than any histogram of a finite-N run or any figure, and still finish in minutes.
 constexpr int kMaxPoints = 100000;
 
-int run_limit(const LimitOptions& opt) {
+// Refuses a --points or --window that `limit` does not take.
+void check_limit_options(const LimitOptions& opt) {
   if (opt.points < 10 || opt.points > kMaxPoints) {
     throw InputError("--points must be between 10 and " + std::to_string(kMaxPoints) + " (got " +
                      std::to_string(opt.points) + ")");
@@ -62,26 +63,17 @@ int run_limit(const LimitOptions& opt) {
         "--window takes two finite numbers LO,HI with LO < HI (the first and last x of the "
         "density table), for example --window -3,3");
   }
-  // An output directory holding anything freegap did not write is refused before any work.
-  if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
-  std::vector<declarations::MatrixSpec> specs;
-  for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
-  // The compiled study of the expression: the same checks and the same derivation as `report`,
-  // `plan` and the estimators' truths (closed-form rules, then free convolutions, then the
-  // polynomial solver; singular values from the law of P^*P).
-  const study::Study study = study::Study::of_expression(specs, opt.expression);
-  const expr::Expression& expression = study.expression();
-  const analysis::DerivedLimit derived = study.limit(opt.max_moment);
-  if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
-  const analysis::LawPtr law = derived.law;
-  const auto* polynomial = dynamic_cast<const analysis::PolynomialLaw*>(law.get());
-  const auto support = law->support();
-  const bool singular = expression.spectrum() == expr::Spectrum::singular_values;
+}
 
+// The law found: the expression, its spectrum, the rule and the law (a polynomial's free
+// variables and pencil), the support and its bands, and the operator-norm limit.
+void print_law(const expr::Expression& expression, const analysis::DerivedLimit& derived,
+               const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
+               const analysis::Support& support, bool singular) {
   std::printf("expression: %s\n", expression.text().c_str());
   std::printf("spectrum: %s\n", singular ? "singular values" : "eigenvalues");
   std::printf("rule: %s\n", derived.rule.c_str());
-  std::printf("law: %s\n", law->describe().c_str());
+  std::printf("law: %s\n", law.describe().c_str());
   if (polynomial != nullptr) {
     std::printf("free variables:\n");
     for (const auto& l : polynomial->polynomial().letters) {
@@ -98,21 +90,27 @@ int run_limit(const LimitOptions& opt) {
                       : singular ? support.hi
                                  : std::max(std::abs(support.lo), std::abs(support.hi));
   std::printf("operator-norm limit: %.10f\n", norm);
+}
 
-  const auto solver = polynomial != nullptr ? polynomial->solver_moments(opt.max_moment)
-                                            : law->moments(opt.max_moment);
+// The moments from the solver (or the law) beside the exact ones where they are known.
+void print_moments(const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
+                   const analysis::DerivedLimit& derived, int max_moment) {
+  const auto solver = polynomial != nullptr ? polynomial->solver_moments(max_moment)
+                                            : law.moments(max_moment);
   const auto& exact = derived.exact_moments;
   std::printf("moments     %-20s  exact\n", polynomial != nullptr ? "solver" : "law");
-  for (int k = 1; k <= opt.max_moment; ++k) {
+  for (int k = 1; k <= max_moment; ++k) {
     if (k < static_cast<int>(exact.size())) {
       std::printf("  m%-3d %20.12g  %20.12g\n", k, solver[k], exact[k]);
     } else {
       std::printf("  m%-3d %20.12g  %20s\n", k, solver[k], "(not available)");
     }
   }
+}
 
-  // The grid covers the support with a 5% margin on each side, or the window given, ends
-  // included (the points x_i = LO + (HI − LO) i/(P − 1) of a report's density table).
+// The grid covers the support with a 5% margin on each side, or the window given, ends
+// included (the points x_i = LO + (HI − LO) i/(P − 1) of a report's density table).
+std::vector<double> density_grid(const LimitOptions& opt, const analysis::Support& support) {
   const double width = support.hi - support.lo;
   std::vector<double> xs;
   for (int i = 0; i < opt.points; ++i) {
@@ -120,70 +118,126 @@ int run_limit(const LimitOptions& opt) {
                      ? support.lo - 0.05 * width + 1.1 * width * (i + 0.5) / opt.points
                      : opt.window[0] + (opt.window[1] - opt.window[0]) * i / (opt.points - 1));
   }
-  // Every point gets a density or is named as failed; a failure never ends the command.
-  std::vector<double> density(xs.size(), std::nan(""));
-  std::vector<bool> ok(xs.size(), false);
+  return xs;
+}
+
+/// The density at every point of the grid (NaN where it failed), which points converged, and the
+/// polynomial solver's iterations (all points together, and the most at one point).
+struct Densities {
+  std::vector<double> density;
+  std::vector<bool> ok;
   long long steps = 0, worst = 0;
+};
+
+// Every point gets a density or is named as failed; a failure never ends the command.
+Densities evaluate_densities(const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
+                             const std::vector<double>& xs) {
+  Densities d;
+  d.density.assign(xs.size(), std::nan(""));
+  d.ok.assign(xs.size(), false);
   if (polynomial != nullptr) {
     const auto reports = polynomial->evaluate(xs);
     for (std::size_t i = 0; i < reports.size(); ++i) {
-      ok[i] = reports[i].converged;
-      if (ok[i]) density[i] = reports[i].density;
-      steps += reports[i].averaged_steps + reports[i].newton_steps;
-      worst = std::max<long long>(worst, reports[i].averaged_steps + reports[i].newton_steps);
+      d.ok[i] = reports[i].converged;
+      if (d.ok[i]) d.density[i] = reports[i].density;
+      d.steps += reports[i].averaged_steps + reports[i].newton_steps;
+      d.worst = std::max<long long>(d.worst, reports[i].averaged_steps + reports[i].newton_steps);
     }
   } else {
-    density = analysis::densities_or_nan(*law, xs);
-    for (std::size_t i = 0; i < xs.size(); ++i) ok[i] = !std::isnan(density[i]);
+    d.density = analysis::densities_or_nan(law, xs);
+    for (std::size_t i = 0; i < xs.size(); ++i) d.ok[i] = !std::isnan(d.density[i]);
   }
-  const auto converged = std::count(ok.begin(), ok.end(), true);
+  return d;
+}
+
+// How many points converged (with the solver's iterations), each point that did not, the point
+// masses and the law's note.
+void print_density_summary(const Densities& d, const std::vector<double>& xs, int points,
+                           const analysis::PolynomialLaw* polynomial,
+                           const analysis::Support& support,
+                           const analysis::DerivedLimit& derived) {
+  const auto converged = std::count(d.ok.begin(), d.ok.end(), true);
   if (polynomial != nullptr) {
     std::printf("density grid: %d points, %lld converged; iterations per point: mean %.1f, max %lld\n",
-                opt.points, static_cast<long long>(converged), static_cast<double>(steps) / opt.points,
-                worst);
+                points, static_cast<long long>(converged), static_cast<double>(d.steps) / points,
+                d.worst);
   } else {
-    std::printf("density grid: %d points, %lld converged\n", opt.points,
+    std::printf("density grid: %d points, %lld converged\n", points,
                 static_cast<long long>(converged));
   }
   for (std::size_t i = 0; i < xs.size(); ++i) {
-    if (!ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
+    if (!d.ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
   }
   for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
   if (!derived.law_note.empty()) std::printf("note: %s\n", derived.law_note.c_str());
+}
+
+// Writes the table x, density, cdf to `csv` (`output`: the -o directory, for the messages).
+void write_limit_csv(const std::filesystem::path& csv, const std::string& output,
+                     const std::vector<double>& xs, const std::vector<double>& density,
+                     const analysis::Law& law) {
+  std::ofstream out(csv);
+  if (!out) throw InputError("-o " + output + ": cannot write " + csv.string());
+  out << "x,density,cdf\n";
+  char line[128];
+  for (std::size_t i = 0; i < xs.size(); ++i) {
+    check_stop();  // the CDF integrates the density: stop before the table is complete
+    double cdf = std::nan("");
+    try {
+      cdf = law.cdf(xs[i]);
+    } catch (const NumericalError&) {
+    }
+    std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", xs[i], density[i], cdf);
+    out << line;
+  }
+  if (!out) throw Error("writing " + csv.string() + " failed");
+}
+
+// The plot script: FREEGAP_PLOT_LIMIT if set, else plot_limit.py where freegap finds its scripts.
+std::string plot_script() {
+  const char* env = std::getenv("FREEGAP_PLOT_LIMIT");
+  if (env && *env) return env;
+  try {
+    return install_paths::analysis_script("plot_limit.py");
+  } catch (const Error&) {
+    return "plot_limit.py (not found beside freegap)";
+  }
+}
+
+int run_limit(const LimitOptions& opt) {
+  check_limit_options(opt);
+  // An output directory holding anything freegap did not write is refused before any work.
+  if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
+  std::vector<declarations::MatrixSpec> specs;
+  for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
+  // The compiled study of the expression: the same checks and the same derivation as `report`,
+  // `plan` and the estimators' truths (closed-form rules, then free convolutions, then the
+  // polynomial solver; singular values from the law of P^*P).
+  const study::Study study = study::Study::of_expression(specs, opt.expression);
+  const expr::Expression& expression = study.expression();
+  const analysis::DerivedLimit derived = study.limit(opt.max_moment);
+  if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
+  const analysis::LawPtr law = derived.law;
+  const auto* polynomial = dynamic_cast<const analysis::PolynomialLaw*>(law.get());
+  const auto support = law->support();
+  const bool singular = expression.spectrum() == expr::Spectrum::singular_values;
+
+  print_law(expression, derived, *law, polynomial, support, singular);
+  print_moments(*law, polynomial, derived, opt.max_moment);
+
+  const std::vector<double> xs = density_grid(opt, support);
+  const Densities densities = evaluate_densities(*law, polynomial, xs);
+  print_density_summary(densities, xs, opt.points, polynomial, support, derived);
 
   if (opt.output.empty()) return 0;
   namespace fs = std::filesystem;
   const fs::path dir(opt.output);
   output_dir::Staged staged(dir, "limit", "-o");
   const fs::path csv = staged.path() / "limit.csv";
-  {
-    std::ofstream out(csv);
-    if (!out) throw InputError("-o " + opt.output + ": cannot write " + csv.string());
-    out << "x,density,cdf\n";
-    char line[128];
-    for (std::size_t i = 0; i < xs.size(); ++i) {
-      check_stop();  // the CDF integrates the density: stop before the table is complete
-      double cdf = std::nan("");
-      try {
-        cdf = law->cdf(xs[i]);
-      } catch (const NumericalError&) {
-      }
-      std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", xs[i], density[i], cdf);
-      out << line;
-    }
-    if (!out) throw Error("writing " + csv.string() + " failed");
-  }
+  write_limit_csv(csv, opt.output, xs, densities.density, *law);
 
-  const char* env = std::getenv("FREEGAP_PLOT_LIMIT");
   // const: a non-const std::string would pick std::quoted (found by ADL) over ours below.
-  const std::string script = [&]() -> std::string {
-    if (env && *env) return env;
-    try {
-      return install_paths::analysis_script("plot_limit.py");
-    } catch (const Error&) {
-      return "plot_limit.py (not found beside freegap)";
-    }
-  }();
+  const std::string script = plot_script();
   const std::string title = "N → ∞ law of " + expression.text();
   const std::string command = "/usr/bin/python3 " + quoted(script) + " " + quoted(csv.string()) +
                               " " + quoted((staged.path() / "limit").string()) + " " +

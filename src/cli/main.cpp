@@ -122,8 +122,8 @@ int run_sample(const SampleOptions& opt) {
   return 0;
 }
 
-int run_inspect(const std::string& path, bool show_job, bool show_moments) {
-  const auto file = freegap::store::RunFile::open_read(path);
+// `inspect`: the run file's header — who wrote it, its metadata, expression, job hash and checks.
+void print_inspect_header(const freegap::store::RunFile& file, const std::string& path) {
   const auto& h = file.header();
   std::printf("run file:   %s\n", path.c_str());
   std::printf("written by: freegap %s (%s), format %d.x\n", h.tool_version.c_str(),
@@ -134,7 +134,12 @@ int run_inspect(const std::string& path, bool show_job, bool show_moments) {
               freegap::store::spectrum_name(h.spectrum).c_str());
   std::printf("job hash:   %s\n", h.job_hash.c_str());
   print_integrity(file.integrity());
-  std::printf("\n");
+}
+
+// `inspect`: a row per size (units, trials, failures, kept spectra), then the run's status and its
+// trials' failure reasons.
+void print_size_table(const freegap::store::RunFile& file) {
+  const auto& h = file.header();
   std::printf("%10s %12s %14s %10s %8s\n", "N", "units", "trials", "failed", "spectra");
   bool complete = true;
   std::vector<std::string> failures;
@@ -157,31 +162,59 @@ int run_inspect(const std::string& path, bool show_job, bool show_moments) {
   }
   std::printf("\nstatus:     %s\n", complete ? "complete" : "incomplete (run the job again to resume)");
   for (const auto& f : failures) std::printf("failure:    %s\n", f.c_str());
-  if (!h.estimates.empty()) {
-    // The estimators' columns, and per size how many committed trials each failed, and why.
-    std::string columns;
-    for (const auto& c : h.estimates) {
-      columns += (columns.empty() ? "" : ", ") + c.estimator + "." + c.estimate + " (truth " +
-                 c.truth + ")";
-    }
-    std::printf("estimates:  %s\n", columns.c_str());
-    const auto names = h.estimators();
-    for (std::size_t i = 0; i < h.sizes.size(); ++i) {
-      const auto rows = file.read_estimates(i);
-      for (std::size_t e = 0; e < names.size(); ++e) {
-        std::map<std::string, std::int64_t> reasons;
-        for (std::size_t t = 0; t < rows.trials.size(); ++t) {
-          const auto& reason = rows.failures[t * names.size() + e];
-          if (!reason.empty()) ++reasons[reason];
-        }
-        for (const auto& [reason, count] : reasons) {
-          std::printf("estimate failure: N = %lld: %s: %lld trial(s): %s\n",
-                      static_cast<long long>(h.sizes[i].n), names[e].c_str(),
-                      static_cast<long long>(count), reason.c_str());
-        }
+}
+
+// `inspect`: the estimators' columns, and per size how many committed trials each failed, and why.
+void print_estimates(const freegap::store::RunFile& file) {
+  const auto& h = file.header();
+  std::string columns;
+  for (const auto& c : h.estimates) {
+    columns += (columns.empty() ? "" : ", ") + c.estimator + "." + c.estimate + " (truth " +
+               c.truth + ")";
+  }
+  std::printf("estimates:  %s\n", columns.c_str());
+  const auto names = h.estimators();
+  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
+    const auto rows = file.read_estimates(i);
+    for (std::size_t e = 0; e < names.size(); ++e) {
+      std::map<std::string, std::int64_t> reasons;
+      for (std::size_t t = 0; t < rows.trials.size(); ++t) {
+        const auto& reason = rows.failures[t * names.size() + e];
+        if (!reason.empty()) ++reasons[reason];
+      }
+      for (const auto& [reason, count] : reasons) {
+        std::printf("estimate failure: N = %lld: %s: %lld trial(s): %s\n",
+                    static_cast<long long>(h.sizes[i].n), names[e].c_str(),
+                    static_cast<long long>(count), reason.c_str());
       }
     }
   }
+}
+
+// `inspect --moments`: per-size means over committed, non-failed trials, with standard errors
+// (derived when read).
+void print_moments(const freegap::store::RunFile& file) {
+  const auto& h = file.header();
+  std::printf("\nmoments m_k = (1/N) sum x^k over committed trials, mean +- standard error\n");
+  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
+    const auto s = freegap::observe::summarize(file.read_observations(i));
+    std::printf("N = %lld (%lld trials):\n", static_cast<long long>(h.sizes[i].n),
+                static_cast<long long>(s.trials - s.failed));
+    for (std::size_t k = 1; k < s.moments.size(); ++k) {
+      std::printf("  m_%-2zu %14.6f +- %.6f\n", k, s.moments[k].mean, s.moments[k].standard_error);
+    }
+    std::printf("  smallest %9.6f, largest %9.6f, operator norm %.6f +- %.6f (mean over trials)\n",
+                s.min.mean, s.max.mean, s.norm.mean, s.norm.standard_error);
+  }
+}
+
+int run_inspect(const std::string& path, bool show_job, bool show_moments) {
+  const auto file = freegap::store::RunFile::open_read(path);
+  const auto& h = file.header();
+  print_inspect_header(file, path);
+  std::printf("\n");
+  print_size_table(file);
+  if (!h.estimates.empty()) print_estimates(file);
   const auto prov = file.read_provenance();
   std::printf("created:    %s\n", prov.created.c_str());
   for (std::size_t i = 0; i < prov.sessions.size(); ++i) {
@@ -189,33 +222,13 @@ int run_inspect(const std::string& path, bool show_job, bool show_moments) {
     std::printf("session %zu:  %s .. %s, %d rank(s), %s\n", i, s.started.c_str(),
                 s.ended.empty() ? "?" : s.ended.c_str(), s.ranks, s.status.c_str());
   }
-  if (show_moments) {
-    // Per-size means over committed, non-failed trials, with standard errors (derived when read).
-    std::printf("\nmoments m_k = (1/N) sum x^k over committed trials, mean +- standard error\n");
-    for (std::size_t i = 0; i < h.sizes.size(); ++i) {
-      const auto s = freegap::observe::summarize(file.read_observations(i));
-      std::printf("N = %lld (%lld trials):\n", static_cast<long long>(h.sizes[i].n),
-                  static_cast<long long>(s.trials - s.failed));
-      for (std::size_t k = 1; k < s.moments.size(); ++k) {
-        std::printf("  m_%-2zu %14.6f +- %.6f\n", k, s.moments[k].mean, s.moments[k].standard_error);
-      }
-      std::printf("  smallest %9.6f, largest %9.6f, operator norm %.6f +- %.6f (mean over trials)\n",
-                  s.min.mean, s.max.mean, s.norm.mean, s.norm.standard_error);
-    }
-  }
+  if (show_moments) print_moments(file);
   if (show_job) std::printf("\n--- job file ---\n%s", h.job_text.c_str());
   return 0;
 }
 
-}  // namespace
-
-int main(int argc, char** argv) {
-  CLI::App app{"freegap: finite-N random matrices against their free-probability limits"};
-  app.set_version_flag("--version", std::string(freegap::tool_version) + " (" +
-                                        freegap::git_revision + ")");
-  app.require_subcommand(1);
-
-  SampleOptions sample;
+// `sample`: its options, bound to `sample`.
+CLI::App* add_sample_command(CLI::App& app, SampleOptions& sample) {
   auto* sample_cmd = app.add_subcommand(
       "sample", "Sample a model in this process and print its moments per size");
   sample_cmd->add_option("-m,--matrix", sample.declarations,
@@ -231,14 +244,18 @@ int main(int argc, char** argv) {
   sample_cmd->add_flag("--explain", sample.explain, "Print the evaluation plan and stop");
   sample_cmd->add_flag("--singular-values", sample.singular_values,
                        "Singular values even for a self-adjoint expression");
+  return sample_cmd;
+}
 
-  std::string job_path;
-  freegap::run::RunOptions run_options;
+// `run`: its options, bound to the arguments; `run_output` is set to its -o option.
+CLI::App* add_run_command(CLI::App& app, std::string& job_path,
+                          freegap::run::RunOptions& run_options, std::string& stop_before,
+                          CLI::Option*& run_output) {
   auto* run_cmd = app.add_subcommand(
       "run", "Run (or resume) a job file; under mpirun/srun with any number of ranks");
   run_cmd->add_option("job", job_path, "Job file (TOML)")->required();
-  auto* run_output = run_cmd->add_option("-o,--output", run_options.output,
-                                         "Run file (default: the job's output)");
+  run_output = run_cmd->add_option("-o,--output", run_options.output,
+                                   "Run file (default: the job's output)");
   run_cmd->add_flag("--confine", run_options.confine,
                     "Refuse a job file that names any path outside its own directory (eigenvalue "
                     "files, run.output, plug-in libraries, commands)");
@@ -264,33 +281,29 @@ int main(int argc, char** argv) {
           },
           "SECONDS>0"));
   run_cmd->add_flag("-q,--quiet", run_options.quiet, "No progress output");
-  std::string stop_before;
   run_cmd->add_option("--stop-before", stop_before,
                       "Start no unit that would not finish within this time (e.g. 90s, 10m, "
                       "1h30m), then commit and exit 3; SLURM_JOB_END_TIME is also obeyed");
+  return run_cmd;
+}
 
-  std::string inspect_path;
-  bool inspect_job = false;
+// `inspect`: its options, bound to the arguments.
+CLI::App* add_inspect_command(CLI::App& app, std::string& inspect_path, bool& inspect_job,
+                              bool& inspect_moments, bool& inspect_verify) {
   auto* inspect_cmd = app.add_subcommand("inspect", "Describe a run file: contents, completeness, failures");
   inspect_cmd->add_option("run_file", inspect_path, "Run file (HDF5)")->required();
   inspect_cmd->add_flag("--job", inspect_job, "Also print the job file stored in the run file");
-  bool inspect_moments = false;
   inspect_cmd->add_flag("--moments", inspect_moments,
                         "Also print each size's moments, extremes and norm with standard errors");
-  bool inspect_verify = false;
   inspect_cmd->add_flag("--verify", inspect_verify,
                         "Check every committed unit against its checksums and list damaged units "
                         "(exit 4 if any)");
+  return inspect_cmd;
+}
 
-  // Subcommands in files of their own (commands.hpp).
-  std::vector<freegap::cli::Subcommand> extra;
-  extra.push_back(freegap::cli::add_report_command(app));
-  extra.push_back(freegap::cli::add_limit_command(app));
-  extra.push_back(freegap::cli::add_plan_command(app));
-  extra.push_back(freegap::cli::add_sweep_command(app));
-
-  // An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
-  // subcommand is required).
+// An unknown first word is a mistyped command: say so plainly (CLI11 would report only that a
+// subcommand is required). Returns whether it refused the command line.
+bool refuse_unknown_command(CLI::App& app, int argc, char** argv) {
   if (argc > 1 && argv[1][0] != '-') {
     const std::string first = argv[1];
     bool known = false;
@@ -304,54 +317,46 @@ int main(int argc, char** argv) {
       }
       std::cerr << "freegap: unknown command '" << first << "'; the commands are " << names
                 << " (see freegap --help)\n";
-      return kExitBadInput;
+      return true;
     }
   }
+  return false;
+}
+
+// `run`: checks -o, reads --stop-before and the scheduler's end time, then runs the job under MPI.
+int start_run(int& argc, char**& argv, const std::string& job_path,
+              freegap::run::RunOptions& run_options, const std::string& stop_before,
+              const CLI::Option* run_output) {
+  if (run_output->count() > 0 && run_options.output.empty()) {
+    // An empty -o would silently mean "the job's output"; say so instead.
+    std::cerr << "freegap: -o/--output: the run file's path is empty; give a path, or leave "
+                 "out -o to write the job's output\n";
+    return kExitBadInput;
+  }
+  freegap::run::install_signal_handlers();
   try {
-    app.parse(argc, argv);
-  } catch (const CLI::ParseError& e) {
-    const int rc = app.exit(e);
-    return rc == 0 ? 0 : kExitBadInput;
-  }
-  if (*run_cmd) {
-    if (run_output->count() > 0 && run_options.output.empty()) {
-      // An empty -o would silently mean "the job's output"; say so instead.
-      std::cerr << "freegap: -o/--output: the run file's path is empty; give a path, or leave "
-                   "out -o to write the job's output\n";
-      return kExitBadInput;
+    if (!stop_before.empty()) {
+      run_options.stop_before_seconds = freegap::plan::parse_duration(stop_before);
     }
-    freegap::run::install_signal_handlers();
-    try {
-      if (!stop_before.empty()) {
-        run_options.stop_before_seconds = freegap::plan::parse_duration(stop_before);
-      }
-      // Slurm sets the job's end time (Unix seconds) in newer versions; older ones do not, and
-      // the batch scripts in jobs/slurm/ pass --stop-before instead.
-      if (const char* end = std::getenv("SLURM_JOB_END_TIME"); end && *end) {
-        char* rest = nullptr;
-        const long long t = std::strtoll(end, &rest, 10);
-        if (rest && *rest == '\0' && t > 0) run_options.scheduler_end_time = t;
-      }
-    } catch (const freegap::InputError& e) {
-      std::cerr << "freegap: --stop-before " << e.what() << "\n";
-      return kExitBadInput;
+    // Slurm sets the job's end time (Unix seconds) in newer versions; older ones do not, and
+    // the batch scripts in jobs/slurm/ pass --stop-before instead.
+    if (const char* end = std::getenv("SLURM_JOB_END_TIME"); end && *end) {
+      char* rest = nullptr;
+      const long long t = std::strtoll(end, &rest, 10);
+      if (rest && *rest == '\0' && t > 0) run_options.scheduler_end_time = t;
     }
-    return freegap::run::run_job_in_world(argc, argv, job_path, run_options, std::cout, std::cerr);
+  } catch (const freegap::InputError& e) {
+    std::cerr << "freegap: --stop-before " << e.what() << "\n";
+    return kExitBadInput;
   }
-  // A stop request (SIGINT, SIGTERM) ends the long phases of the other commands — validation,
-  // sampling, the limit solver, reports — at their next poll, before anything is written
-  // (freegap/stop.hpp); they exit with 128 + the signal's number. `inspect` only reads, and
-  // `plan` and `sweep` keep the default action of the signals.
-  if (*sample_cmd || app.got_subcommand("limit") || app.got_subcommand("report")) {
-    freegap::install_stop_handlers();
-  }
+  return freegap::run::run_job_in_world(argc, argv, job_path, run_options, std::cout, std::cerr);
+}
+
+// Runs a command (other than `run`); every error it throws becomes a message and an exit code.
+template <class Command>
+int run_reporting_errors(Command&& command) {
   try {
-    if (*inspect_cmd && inspect_verify) return run_verify(inspect_path);
-    if (*inspect_cmd) return run_inspect(inspect_path, inspect_job, inspect_moments);
-    if (*sample_cmd) return run_sample(sample);
-    for (const auto& sub : extra) {
-      if (*sub.command) return sub.action();
-    }
+    return command();
   } catch (const freegap::InputError& e) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitBadInput;
@@ -367,5 +372,61 @@ int main(int argc, char** argv) {
     std::cerr << "freegap: " << e.what() << "\n";
     return kExitFailure;
   }
-  return 0;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  CLI::App app{"freegap: finite-N random matrices against their free-probability limits"};
+  app.set_version_flag("--version", std::string(freegap::tool_version) + " (" +
+                                        freegap::git_revision + ")");
+  app.require_subcommand(1);
+
+  SampleOptions sample;
+  auto* sample_cmd = add_sample_command(app, sample);
+
+  std::string job_path;
+  freegap::run::RunOptions run_options;
+  std::string stop_before;
+  CLI::Option* run_output = nullptr;
+  auto* run_cmd = add_run_command(app, job_path, run_options, stop_before, run_output);
+
+  std::string inspect_path;
+  bool inspect_job = false;
+  bool inspect_moments = false;
+  bool inspect_verify = false;
+  auto* inspect_cmd =
+      add_inspect_command(app, inspect_path, inspect_job, inspect_moments, inspect_verify);
+
+  // Subcommands in files of their own (commands.hpp).
+  std::vector<freegap::cli::Subcommand> extra;
+  extra.push_back(freegap::cli::add_report_command(app));
+  extra.push_back(freegap::cli::add_limit_command(app));
+  extra.push_back(freegap::cli::add_plan_command(app));
+  extra.push_back(freegap::cli::add_sweep_command(app));
+
+  if (refuse_unknown_command(app, argc, argv)) return kExitBadInput;
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    const int rc = app.exit(e);
+    return rc == 0 ? 0 : kExitBadInput;
+  }
+  if (*run_cmd) return start_run(argc, argv, job_path, run_options, stop_before, run_output);
+  // A stop request (SIGINT, SIGTERM) ends the long phases of the other commands — validation,
+  // sampling, the limit solver, reports — at their next poll, before anything is written
+  // (freegap/stop.hpp); they exit with 128 + the signal's number. `inspect` only reads, and
+  // `plan` and `sweep` keep the default action of the signals.
+  if (*sample_cmd || app.got_subcommand("limit") || app.got_subcommand("report")) {
+    freegap::install_stop_handlers();
+  }
+  return run_reporting_errors([&] {
+    if (*inspect_cmd && inspect_verify) return run_verify(inspect_path);
+    if (*inspect_cmd) return run_inspect(inspect_path, inspect_job, inspect_moments);
+    if (*sample_cmd) return run_sample(sample);
+    for (const auto& sub : extra) {
+      if (*sub.command) return sub.action();
+    }
+    return 0;
+  });
 }

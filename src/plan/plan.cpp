@@ -573,30 +573,21 @@ double trial_peak_bytes(const model::SizeRunner& runner, const observe::ObserveC
   return extra;
 }
 
-}  // namespace
-
-CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
-  if (job.sizes.empty()) throw InputError(job.where("sizes") + "the job has no sizes");
-  const int saved_threads = openblas_get_num_threads();
-  openblas_set_num_threads(std::max(1, threads));
-  const std::int64_t largest = job.sizes.back();
-  const bool tri = study::runner_at(job, largest).path() == model::Path::tridiagonal;
-  // The parts of a trial and the powers of N each may grow with (dense: a Haar sample, a product
-  // and the eigenvalues are N³, Gaussian entries N², observing the spectrum N).
-  std::vector<CostTerm> terms;
-  // A kept spectrum makes a tridiagonal trial compute every eigenvalue (O(N²)).
-  const bool tri_spectra = tri && job.observe.keep_spectra > 0;
+// The parts of a trial and the powers of N each may grow with (dense: a Haar sample, a product
+// and the eigenvalues are N³, Gaussian entries N², observing the spectrum N).
+std::vector<CostTerm> trial_parts(bool tri, bool tri_spectra) {
   if (tri) {
-    terms = {{"trial", tri_spectra ? std::vector<int>{2, 1, 0} : std::vector<int>{1, 0}, {}, {}}};
-  } else {
-    terms = {{"sample", {3, 2, 0}, {}, {}},
-             {"form", {3, 2, 0}, {}, {}},
-             {"spectrum", {3, 2, 0}, {}, {}},
-             {"observe", {1, 0}, {}, {}}};
+    return {{"trial", tri_spectra ? std::vector<int>{2, 1, 0} : std::vector<int>{1, 0}, {}, {}}};
   }
-  const double growth = tri ? (tri_spectra ? 2.0 : 1.0) : 3.0;
-  // Ladder of sizes: geometric up to the largest size of the job, which is timed itself if the
-  // budget allows.
+  return {{"sample", {3, 2, 0}, {}, {}},
+          {"form", {3, 2, 0}, {}, {}},
+          {"spectrum", {3, 2, 0}, {}, {}},
+          {"observe", {1, 0}, {}, {}}};
+}
+
+// Ladder of sizes: geometric up to the largest size of the job, which is timed itself if the
+// budget allows.
+std::vector<std::int64_t> size_ladder(bool tri, std::int64_t largest) {
   std::vector<std::int64_t> ladder;
   // Not powers of two: a leading dimension of 2^k slows BLAS down by cache-set conflicts
   // (N = 256 measured 2× slower per N³ than 240 and 360 here), which real sizes rarely share.
@@ -610,6 +601,89 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   while (ladder.size() < 4 && ladder.front() > 4) {
     ladder.insert(ladder.begin(), std::max<std::int64_t>(2, ladder.front() / 2));
   }
+  return ladder;
+}
+
+// The observation settings a size is timed with.
+observe::ObserveConfig timing_config(const job::Job& job, const model::SizeRunner& runner) {
+  observe::ObserveConfig config;
+  config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
+  config.max_moment = job.observe.max_moment;
+  config.kind = runner.spectrum_kind();
+  // Timed as they will run: a kept spectrum changes the tridiagonal path's work (every
+  // eigenvalue instead of counts per bin).
+  if (job.observe.keep_spectra > 0) {
+    for (std::uint64_t i = 0; i < 64; ++i) {
+      config.keep_spectrum_trials.push_back(kTimingTrialBase + i);
+    }
+  }
+  return config;
+}
+
+constexpr int kTimed = 3;  // timed trials at least, after one untimed
+
+// The seconds of each part (one list per part, one entry per timed trial) of a size's trials,
+// numbered from `trial` on (which is advanced past them).
+std::vector<std::vector<double>> time_trials(const model::SizeRunner& runner,
+                                             const observe::ObserveConfig& config,
+                                             std::uint64_t seed, bool tri, std::size_t parts,
+                                             std::uint64_t& trial) {
+  std::vector<std::vector<double>> times(parts);
+  // One untimed trial first (first-touch page faults, lazy library set-up), then at least
+  // kTimed timed ones and up to 0.15 s of them.
+  {
+    auto obs = observe::start_observations(config);
+    runner.observe_trial(obs, seed, trial++);
+  }
+  double here = 0.0;
+  while (static_cast<int>(times[0].size()) < kTimed || (here < 0.15 && times[0].size() < 25)) {
+    auto obs = observe::start_observations(config);
+    const auto t0 = std::chrono::steady_clock::now();
+    if (tri) {
+      runner.observe_trial(obs, seed, trial++);
+      times[0].push_back(seconds_since(t0));
+    } else {
+      const auto outcome = runner.run(seed, trial++);
+      const auto t1 = std::chrono::steady_clock::now();
+      model::record(obs, outcome);
+      times[0].push_back(outcome.seconds.sample);
+      times[1].push_back(outcome.seconds.evaluate);
+      times[2].push_back(outcome.seconds.spectrum);
+      times[3].push_back(seconds_since(t1));
+    }
+    here += seconds_since(t0);
+  }
+  return times;
+}
+
+// The index of the fastest timed trial (the least sum of its parts).
+std::size_t fastest_trial(const std::vector<std::vector<double>>& times) {
+  std::size_t fastest = 0;
+  double best = INFINITY;
+  for (std::size_t j = 0; j < times[0].size(); ++j) {
+    double total = 0.0;
+    for (const auto& part : times) total += part[j];
+    if (total < best) {
+      best = total;
+      fastest = j;
+    }
+  }
+  return fastest;
+}
+
+}  // namespace
+
+CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
+  if (job.sizes.empty()) throw InputError(job.where("sizes") + "the job has no sizes");
+  const int saved_threads = openblas_get_num_threads();
+  openblas_set_num_threads(std::max(1, threads));
+  const std::int64_t largest = job.sizes.back();
+  const bool tri = study::runner_at(job, largest).path() == model::Path::tridiagonal;
+  // A kept spectrum makes a tridiagonal trial compute every eigenvalue (O(N²)).
+  const bool tri_spectra = tri && job.observe.keep_spectra > 0;
+  std::vector<CostTerm> terms = trial_parts(tri, tri_spectra);
+  const double growth = tri ? (tri_spectra ? 2.0 : 1.0) : 3.0;
+  const std::vector<std::int64_t> ladder = size_ladder(tri, largest);
 
   std::vector<std::int64_t> sizes;
   std::vector<double> trial_bytes;
@@ -617,7 +691,6 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   auto spent = [&] {
     return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   };
-  constexpr int kTimed = 3;  // timed trials at least, after one untimed
   for (const auto n : ladder) {
     if (!sizes.empty()) {
       // Climb only while this size's measurement (one untimed and kTimed timed trials, scaled
@@ -629,56 +702,15 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
       if (spent() + (kTimed + 1) * predicted > budget_seconds) break;
     }
     const auto runner = study::runner_at(job, n);
-    observe::ObserveConfig config;
-    config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
-    config.max_moment = job.observe.max_moment;
-    config.kind = runner.spectrum_kind();
-    // Timed as they will run: a kept spectrum changes the tridiagonal path's work (every
-    // eigenvalue instead of counts per bin).
-    if (job.observe.keep_spectra > 0) {
-      for (std::uint64_t i = 0; i < 64; ++i) config.keep_spectrum_trials.push_back(kTimingTrialBase + i);
-    }
-    std::vector<std::vector<double>> times(terms.size());
-    // One untimed trial first (first-touch page faults, lazy library set-up), then at least
-    // kTimed timed ones and up to 0.15 s of them.
+    const observe::ObserveConfig config = timing_config(job, runner);
     std::uint64_t trial = kTimingTrialBase;
-    {
-      auto obs = observe::start_observations(config);
-      runner.observe_trial(obs, job.seed, trial++);
-    }
-    double here = 0.0;
-    while (static_cast<int>(times[0].size()) < kTimed || (here < 0.15 && times[0].size() < 25)) {
-      auto obs = observe::start_observations(config);
-      const auto t0 = std::chrono::steady_clock::now();
-      if (tri) {
-        runner.observe_trial(obs, job.seed, trial++);
-        times[0].push_back(seconds_since(t0));
-      } else {
-        const auto outcome = runner.run(job.seed, trial++);
-        const auto t1 = std::chrono::steady_clock::now();
-        model::record(obs, outcome);
-        times[0].push_back(outcome.seconds.sample);
-        times[1].push_back(outcome.seconds.evaluate);
-        times[2].push_back(outcome.seconds.spectrum);
-        times[3].push_back(seconds_since(t1));
-      }
-      here += seconds_since(t0);
-    }
+    const auto times = time_trials(runner, config, job.seed, tri, terms.size(), trial);
     sizes.push_back(n);
     trial_bytes.push_back(trial_peak_bytes(runner, config, job.seed, trial++));
     // The parts of the fastest timed trial: its time on an unshared core. Other processes on the
     // machine only ever add to a trial's time, so the minimum is the measurement they disturb
     // least; the parts of one trial (not each part's own minimum) add up to that trial.
-    std::size_t fastest = 0;
-    double best = INFINITY;
-    for (std::size_t j = 0; j < times[0].size(); ++j) {
-      double total = 0.0;
-      for (const auto& part : times) total += part[j];
-      if (total < best) {
-        best = total;
-        fastest = j;
-      }
-    }
+    const std::size_t fastest = fastest_trial(times);
     for (std::size_t k = 0; k < terms.size(); ++k) {
       terms[k].seconds.push_back(std::max(times[k][fastest], 1e-9));
     }
@@ -784,41 +816,27 @@ void slurm_request(Estimate& e, const job::Job& job) {
   e.slurm_command = command;
 }
 
-}  // namespace
-
-Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
-  if (options.ranks < 1)
-    throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
-  if (options.threads < 1)
-    throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
-  Estimate e;
-  e.job_path = job.path;
-  e.expression = job.expression;
-  e.options = options;
-  // Build every size's runner first: a bad model fails before any measurement.
-  const std::vector<model::SizeRunner> runners = study::runners(job);
-  // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
-  // and one that reads the matrix adds the copy kept for it to the memory estimate.
-  const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
-  e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
-  if (options.threads > 1) {
-    // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
-    // 12's OpenBLAS 0.3.21; see run.cpp).
-    bool complex_svd = false;
-    for (const auto& m : job.matrices) {
-      complex_svd |=
-          m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
-    }
-    const auto& x = runners.front().expression();
-    complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
-    if (complex_svd) {
-      throw InputError("--threads " + std::to_string(options.threads) +
-                       ": this job needs complex singular value decompositions, which crash with "
-                       "more than one OpenBLAS thread in the OpenBLAS shipped with Debian 12; plan "
-                       "with --threads 1 and more ranks instead");
-    }
+// Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
+// 12's OpenBLAS 0.3.21; see run.cpp).
+void refuse_threaded_complex_svd(const job::Job& job, const model::SizeRunner& runner,
+                                 int threads) {
+  bool complex_svd = false;
+  for (const auto& m : job.matrices) {
+    complex_svd |=
+        m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
   }
+  const auto& x = runner.expression();
+  complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
+  if (complex_svd) {
+    throw InputError("--threads " + std::to_string(threads) +
+                     ": this job needs complex singular value decompositions, which crash with "
+                     "more than one OpenBLAS thread in the OpenBLAS shipped with Debian 12; plan "
+                     "with --threads 1 and more ranks instead");
+  }
+}
 
+// The cost of a trial: from the calibration file, or measured now and stored there.
+void find_cost(Estimate& e, const job::Job& job, const Options& options, std::ostream& log) {
   const std::string cal_path =
       options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
   auto cal = Calibration::load(cal_path, this_machine());
@@ -849,9 +867,11 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
       e.warnings.push_back(std::string(err.what()) + "; the measurement is not kept");
     }
   }
+}
 
-  // Memory per rank: the job's memory_per_rank, else this node's available memory shared by the
-  // ranks that would run on it (at most one per core).
+// Memory per rank: the job's memory_per_rank, else this node's available memory shared by the
+// ranks that would run on it (at most one per core).
+void find_memory_limit(Estimate& e, const job::Job& job, const Options& options) {
   if (job.memory_per_rank_bytes > 0) {
     e.memory_limit = static_cast<std::size_t>(job.memory_per_rank_bytes);
     e.memory_source = "memory_per_rank in the job";
@@ -861,7 +881,13 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     e.memory_source =
         "this node's available memory shared by " + std::to_string(local) + " rank(s)";
   }
+}
 
+// Every size's estimate (appended to e.sizes, its core-hours added to e.core_hours); returns the
+// predicted seconds of every unit of the job.
+std::vector<double> estimate_sizes(Estimate& e, const job::Job& job, const Options& options,
+                                   const std::vector<model::SizeRunner>& runners,
+                                   bool keeps_matrix) {
   std::vector<double> unit_seconds;
   for (std::size_t i = 0; i < job.sizes.size(); ++i) {
     SizeEstimate s;
@@ -889,36 +915,108 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
     }
     e.sizes.push_back(s);
   }
-  e.output_bytes = run_file_bytes(job);
-  {
-    double spectra = 0.0, largest = 0.0;
-    bool every = true;
-    for (std::size_t i = 0; i < job.sizes.size(); ++i) {
-      const std::int64_t kept = std::min(job.observe.keep_spectra, job.trials[i]);
-      every = every && kept == job.trials[i];
-      spectra += 8.0 * static_cast<double>(kept) * static_cast<double>(job.sizes[i]);
-      largest = std::max(largest, static_cast<double>(kept) * static_cast<double>(job.sizes[i]));
-    }
-    const auto& o = job.observe;
-    e.kept_spectra =
-        (every ? std::string("every trial")
-               : o.keep_spectra == 0 ? std::string("none")
-                                     : "the first " + std::to_string(o.keep_spectra) + " trial(s) of each size") +
-        " (keep_spectra = " + (o.keep_spectra_rule == "first k" ? std::to_string(o.keep_spectra) : "\"" + o.keep_spectra_rule + "\"") +
-        "; about " + human_bytes(spectra) + " of the run file" +
-        (o.keep_spectra_rule == "auto" ? ", within the " + human_bytes(job::kKeptSpectraBudget) + " the default allows" : std::string()) +
-        ")" + (every ? "; distances of the mean spectrum are computed from them, without bins"
-                     : "; distances of the mean spectrum come from the histograms (bin-limited)");
-    if (every && largest > 0) {
-      // analysis::spectra_distances holds about 100 bytes per eigenvalue of the size it analyses.
-      e.kept_spectra += "; freegap report will need about " + human_bytes(100.0 * largest) +
-                        " of memory for the largest size's";
-    }
-    if (spectra > 0 && e.path == "tridiagonal") {
-      e.kept_spectra += "; on the tridiagonal path a kept spectrum costs every eigenvalue (O(N²)) "
-                        "instead of counts per bin (O(N·bins)); the timing above includes it";
-    }
+  return unit_seconds;
+}
+
+// Which spectra the run file keeps, their size, and what they are used for (e.kept_spectra).
+void describe_kept_spectra(Estimate& e, const job::Job& job) {
+  double spectra = 0.0, largest = 0.0;
+  bool every = true;
+  for (std::size_t i = 0; i < job.sizes.size(); ++i) {
+    const std::int64_t kept = std::min(job.observe.keep_spectra, job.trials[i]);
+    every = every && kept == job.trials[i];
+    spectra += 8.0 * static_cast<double>(kept) * static_cast<double>(job.sizes[i]);
+    largest = std::max(largest, static_cast<double>(kept) * static_cast<double>(job.sizes[i]));
   }
+  const auto& o = job.observe;
+  e.kept_spectra =
+      (every ? std::string("every trial")
+             : o.keep_spectra == 0 ? std::string("none")
+                                   : "the first " + std::to_string(o.keep_spectra) + " trial(s) of each size") +
+      " (keep_spectra = " + (o.keep_spectra_rule == "first k" ? std::to_string(o.keep_spectra) : "\"" + o.keep_spectra_rule + "\"") +
+      "; about " + human_bytes(spectra) + " of the run file" +
+      (o.keep_spectra_rule == "auto" ? ", within the " + human_bytes(job::kKeptSpectraBudget) + " the default allows" : std::string()) +
+      ")" + (every ? "; distances of the mean spectrum are computed from them, without bins"
+                   : "; distances of the mean spectrum come from the histograms (bin-limited)");
+  if (every && largest > 0) {
+    // analysis::spectra_distances holds about 100 bytes per eigenvalue of the size it analyses.
+    e.kept_spectra += "; freegap report will need about " + human_bytes(100.0 * largest) +
+                      " of memory for the largest size's";
+  }
+  if (spectra > 0 && e.path == "tridiagonal") {
+    e.kept_spectra += "; on the tridiagonal path a kept spectrum costs every eigenvalue (O(N²)) "
+                      "instead of counts per bin (O(N·bins)); the timing above includes it";
+  }
+}
+
+// A warning when the largest size lies far beyond the sizes whose trials were timed.
+void warn_if_extrapolated(Estimate& e, const job::Job& job) {
+  const std::int64_t calibrated = e.cost.largest_calibrated();
+  if (calibrated > 0 && static_cast<double>(job.sizes.back()) >
+                            kExtrapolationWarning * static_cast<double>(calibrated)) {
+    e.warnings.push_back(
+        "the cost of N = " + std::to_string(job.sizes.back()) + " is extrapolated from trials " +
+        "timed at N ≤ " + std::to_string(calibrated) + " (" +
+        number(static_cast<double>(job.sizes.back()) / static_cast<double>(calibrated), "%.3g") +
+        "× beyond): the times may be off by more than the stated error; measure larger sizes "
+        "with --remeasure --calibration-budget SECONDS, or time a short run of the largest size");
+  }
+}
+
+// The fewest ranks whose wall time with a 25 % margin fits the deadline. Beyond one rank per
+// unit nothing gets faster.
+void suggest_ranks(Estimate& e, const std::vector<double>& unit_seconds, const Options& options) {
+  constexpr double kMargin = 1.25;
+  const int most = static_cast<int>(std::max<std::size_t>(1, unit_seconds.size()));
+  int lo = 1, hi = most;
+  if (simulate_wall(unit_seconds, hi) * kMargin <= options.deadline_seconds) {
+    while (lo < hi) {  // wall time does not increase with ranks (largest-first list scheduling)
+      const int mid = lo + (hi - lo) / 2;
+      if (simulate_wall(unit_seconds, mid) * kMargin <= options.deadline_seconds)
+        hi = mid;
+      else
+        lo = mid + 1;
+    }
+    e.suggested_ranks = lo;
+    e.suggested_run_seconds = simulate_wall(unit_seconds, lo);
+    e.suggested_wall_seconds =
+        std::min(options.deadline_seconds, e.suggested_run_seconds * kMargin + 60.0);
+  } else {
+    const double longest = *std::max_element(unit_seconds.begin(), unit_seconds.end());
+    e.warnings.push_back("the job cannot finish within " +
+                         format_duration(options.deadline_seconds) +
+                         " on any number of ranks: its longest unit alone takes about " +
+                         format_duration(longest) +
+                         "; run it in several jobs that resume (freegap run --stop-before, "
+                         "jobs/slurm/long-run.sbatch) or "
+                         "lower trials_per_unit");
+  }
+}
+
+}  // namespace
+
+Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
+  if (options.ranks < 1)
+    throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
+  if (options.threads < 1)
+    throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
+  Estimate e;
+  e.job_path = job.path;
+  e.expression = job.expression;
+  e.options = options;
+  // Build every size's runner first: a bad model fails before any measurement.
+  const std::vector<model::SizeRunner> runners = study::runners(job);
+  // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
+  // and one that reads the matrix adds the copy kept for it to the memory estimate.
+  const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
+  e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  if (options.threads > 1) refuse_threaded_complex_svd(job, runners.front(), options.threads);
+
+  find_cost(e, job, options, log);
+  find_memory_limit(e, job, options);
+  const std::vector<double> unit_seconds = estimate_sizes(e, job, options, runners, keeps_matrix);
+  e.output_bytes = run_file_bytes(job);
+  describe_kept_spectra(e, job);
   e.output_path = job.output;
   e.output_free = free_bytes_for(job.output);
   if (e.output_free >= 0 && e.output_bytes > static_cast<std::size_t>(e.output_free)) {
@@ -931,45 +1029,8 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   }
   e.units = unit_seconds.size();
   e.wall_seconds = simulate_wall(unit_seconds, options.ranks);
-  const std::int64_t calibrated = e.cost.largest_calibrated();
-  if (calibrated > 0 && static_cast<double>(job.sizes.back()) >
-                            kExtrapolationWarning * static_cast<double>(calibrated)) {
-    e.warnings.push_back(
-        "the cost of N = " + std::to_string(job.sizes.back()) + " is extrapolated from trials " +
-        "timed at N ≤ " + std::to_string(calibrated) + " (" +
-        number(static_cast<double>(job.sizes.back()) / static_cast<double>(calibrated), "%.3g") +
-        "× beyond): the times may be off by more than the stated error; measure larger sizes "
-        "with --remeasure --calibration-budget SECONDS, or time a short run of the largest size");
-  }
-  if (options.deadline_seconds > 0) {
-    // The fewest ranks whose wall time with a 25 % margin fits the deadline. Beyond one rank per
-    // unit nothing gets faster.
-    constexpr double kMargin = 1.25;
-    const int most = static_cast<int>(std::max<std::size_t>(1, unit_seconds.size()));
-    int lo = 1, hi = most;
-    if (simulate_wall(unit_seconds, hi) * kMargin <= options.deadline_seconds) {
-      while (lo < hi) {  // wall time does not increase with ranks (largest-first list scheduling)
-        const int mid = lo + (hi - lo) / 2;
-        if (simulate_wall(unit_seconds, mid) * kMargin <= options.deadline_seconds)
-          hi = mid;
-        else
-          lo = mid + 1;
-      }
-      e.suggested_ranks = lo;
-      e.suggested_run_seconds = simulate_wall(unit_seconds, lo);
-      e.suggested_wall_seconds =
-          std::min(options.deadline_seconds, e.suggested_run_seconds * kMargin + 60.0);
-    } else {
-      const double longest = *std::max_element(unit_seconds.begin(), unit_seconds.end());
-      e.warnings.push_back("the job cannot finish within " +
-                           format_duration(options.deadline_seconds) +
-                           " on any number of ranks: its longest unit alone takes about " +
-                           format_duration(longest) +
-                           "; run it in several jobs that resume (freegap run --stop-before, "
-                           "jobs/slurm/long-run.sbatch) or "
-                           "lower trials_per_unit");
-    }
-  }
+  warn_if_extrapolated(e, job);
+  if (options.deadline_seconds > 0) suggest_ranks(e, unit_seconds, options);
   slurm_request(e, job);
   return e;
 }

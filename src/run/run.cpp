@@ -655,35 +655,104 @@ class Deadline {
   bool reached_ = false;
 };
 
-int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
-               const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts,
-               std::chrono::steady_clock::time_point run_start, bool& stopped_for_deadline) {
-  const int ranks = comm_size(comm);
-  std::vector<WorkerState> workers(static_cast<std::size_t>(ranks));
-  workers[0].finished = true;  // rank 0 itself
-  std::size_t next = 0;
-  bool stopping = false;
-  Deadline deadline(options, p.job, file, ranks, run_start);
+/// How many units and trials the job has in all, and how many of them are already committed.
+struct Totals {
+  std::size_t units = 0, done_units = 0;
+  std::int64_t trials = 0, done_trials = 0;
+};
 
-  std::size_t total_units = 0;
-  std::int64_t total_trials = 0, done_trials = 0;
-  std::size_t done_units = 0;
+Totals count_totals(const Prepared& p, const store::RunFile& file) {
+  Totals t;
   for (std::size_t i = 0; i < p.job.sizes.size(); ++i) {
     const auto committed = file.committed(i);
-    total_units += committed.size();
-    total_trials += p.job.trials[i];
+    t.units += committed.size();
+    t.trials += p.job.trials[i];
     for (std::size_t u = 0; u < committed.size(); ++u) {
       if (committed[u]) {
-        ++done_units;
+        ++t.done_units;
         const std::int64_t b = p.job.trials_per_unit;
-        done_trials += std::min<std::int64_t>(b, p.job.trials[i] - static_cast<std::int64_t>(u) * b);
+        t.done_trials +=
+            std::min<std::int64_t>(b, p.job.trials[i] - static_cast<std::int64_t>(u) * b);
       }
     }
   }
-  Progress progress(err, total_units, total_trials, done_units, done_trials,
-                    options.progress_seconds, options.quiet);
+  return t;
+}
 
-  auto write = [&](const UnitDone& d) {
+// The progress report of a run, starting from the units the run file already holds.
+Progress progress_for(const Prepared& p, const store::RunFile& file, const RunOptions& options,
+                      std::ostream& err) {
+  const Totals t = count_totals(p, file);
+  return Progress(err, t.units, t.trials, t.done_units, t.done_trials, options.progress_seconds,
+                  options.quiet);
+}
+
+/// Rank 0's side of a run: hands the pending units out to the ranks that ask, services their
+/// messages, writes every finished unit to the run file, and computes units itself if it may.
+class Coordinator {
+ public:
+  Coordinator(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
+              const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts,
+              std::chrono::steady_clock::time_point run_start)
+      : p_(p),
+        file_(file),
+        pending_(std::move(pending)),
+        comm_(comm),
+        hosts_(hosts),
+        ranks_(comm_size(comm)),
+        workers_(static_cast<std::size_t>(ranks_)),
+        deadline_(options, p.job, file, ranks_, run_start),
+        progress_(progress_for(p, file, options, err)) {
+    workers_[0].finished = true;  // rank 0 itself
+  }
+
+  int ranks() const { return ranks_; }
+
+  /// Rank 0 computes units from the same queue, servicing the other ranks between its trials,
+  /// until the queue is empty or the run stops.
+  void compute_on_rank_zero() {
+    // What rank 0 spends besides its units' own work (coordinating between its trials, writing),
+    // the most of any of its units so far: its next unit takes that long on top of the prediction.
+    double rank0_extra = 0.0;
+    for (;;) {
+      service(false);
+      if (stopping_ || next_ >= pending_.size()) break;
+      if (!deadline_.take(0, pending_[next_], false, rank0_extra)) {
+        stopping_ = true;  // the next unit would not finish before the deadline
+        break;
+      }
+      const Unit unit = pending_[next_++];
+      UnitDone d;
+      const auto began = std::chrono::steady_clock::now();
+      if (!compute_unit(p_, unit, 0, d, [&] { service(false); })) {
+        stopping_ = true;
+        break;
+      }
+      write(d);
+      const double wall =
+          std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
+      rank0_extra = std::max(rank0_extra, wall - d.seconds);
+    }
+  }
+
+  /// Services messages until every other rank will send nothing more.
+  void wait_for_workers() {
+    while (!std::all_of(workers_.begin(), workers_.end(),
+                        [](const WorkerState& w) { return w.finished; })) {
+      service(true);
+    }
+  }
+
+  /// Ends the progress report; the run's exit status.
+  int finish(bool& stopped_for_deadline) {
+    progress_.finish();
+    stopped_for_deadline = deadline_.reached();
+    return (stopping_ && !file_.complete()) ? kExitResumable : kExitFinished;
+  }
+
+ private:
+  // Writes a finished unit to the run file and counts it for the deadline and the progress.
+  void write(const UnitDone& d) {
     store::UnitResult r;
     r.size_index = d.size_index;
     r.unit = d.unit;
@@ -692,108 +761,100 @@ int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI
     r.estimate_failures = d.estimate_failures;
     store::UnitProvenance where;
     where.rank = d.rank;
-    where.host = hosts[static_cast<std::size_t>(d.rank)];
+    where.host = hosts_[static_cast<std::size_t>(d.rank)];
     where.seconds = d.seconds;
-    file.write_unit(r, where);
-    deadline.measured(d.size_index, static_cast<std::int64_t>(d.obs.trials.size()), d.seconds);
-    deadline.finished(d.rank);
-    progress.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
-  };
+    file_.write_unit(r, where);
+    deadline_.measured(d.size_index, static_cast<std::int64_t>(d.obs.trials.size()), d.seconds);
+    deadline_.finished(d.rank);
+    progress_.unit_done(static_cast<std::int64_t>(d.obs.trials.size()));
+  }
 
-  auto answer = [&](int worker) {
+  // Answers a rank's request for work: its next unit, or {-1, -1} for "no more".
+  void answer(int worker) {
     std::int64_t msg[2] = {-1, -1};
-    auto& w = workers[static_cast<std::size_t>(worker)];
-    if (!stopping && next < pending.size() &&
-        !deadline.take(worker, pending[next], w.outstanding > 0)) {
-      stopping = true;  // the next unit would not finish before the deadline
+    auto& w = workers_[static_cast<std::size_t>(worker)];
+    if (!stopping_ && next_ < pending_.size() &&
+        !deadline_.take(worker, pending_[next_], w.outstanding > 0)) {
+      stopping_ = true;  // the next unit would not finish before the deadline
     }
-    if (!stopping && next < pending.size()) {
-      msg[0] = static_cast<std::int64_t>(pending[next].size_index);
-      msg[1] = pending[next].unit;
-      ++next;
+    if (!stopping_ && next_ < pending_.size()) {
+      msg[0] = static_cast<std::int64_t>(pending_[next_].size_index);
+      msg[1] = pending_[next_].unit;
+      ++next_;
       ++w.outstanding;
     } else {
       w.told_to_stop = true;
     }
-    MPI_Send(msg, 2, MPI_INT64_T, worker, kTagAssign, comm);
+    MPI_Send(msg, 2, MPI_INT64_T, worker, kTagAssign, comm_);
     if (w.told_to_stop && w.outstanding == 0) w.finished = true;
-  };
+  }
 
   // Handles every message that has arrived; with `block`, waits (polling) for at least one.
-  auto service = [&](bool block) {
+  void service(bool block) {
     for (;;) {
-      if (stop_requested()) stopping = true;
+      if (stop_requested()) stopping_ = true;
       int flag = 0;
       MPI_Status st;
-      MPI_Iprobe(MPI_ANY_SOURCE, MPI_ANY_TAG, comm, &flag, &st);
+      MPI_Iprobe(MPI_ANY_SOURCE, MPI_ANY_TAG, comm_, &flag, &st);
       if (!flag) {
         if (!block) return;
-        progress.tick();
+        progress_.tick();
         std::this_thread::sleep_for(std::chrono::milliseconds(2));
         continue;
       }
       block = false;
       const int src = st.MPI_SOURCE;
-      auto& w = workers[static_cast<std::size_t>(src)];
+      auto& w = workers_[static_cast<std::size_t>(src)];
       if (st.MPI_TAG == kTagRequest) {
         std::int32_t dummy = 0;
-        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagRequest, comm, MPI_STATUS_IGNORE);
+        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagRequest, comm_, MPI_STATUS_IGNORE);
         answer(src);
       } else if (st.MPI_TAG == kTagResult) {
         int count = 0;
         MPI_Get_count(&st, MPI_CHAR, &count);
         std::vector<char> bytes(static_cast<std::size_t>(count));
-        MPI_Recv(bytes.data(), count, MPI_CHAR, src, kTagResult, comm, MPI_STATUS_IGNORE);
-        const UnitDone d = unpack(bytes, p.configs.at(
+        MPI_Recv(bytes.data(), count, MPI_CHAR, src, kTagResult, comm_, MPI_STATUS_IGNORE);
+        const UnitDone d = unpack(bytes, p_.configs.at(
             static_cast<std::size_t>(*reinterpret_cast<const std::uint64_t*>(bytes.data()))));
         write(d);
         --w.outstanding;
         if (w.told_to_stop && w.outstanding == 0) w.finished = true;
       } else if (st.MPI_TAG == kTagStopped) {
         std::int32_t dummy = 0;
-        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagStopped, comm, MPI_STATUS_IGNORE);
-        stopping = true;
+        MPI_Recv(&dummy, 1, MPI_INT32_T, src, kTagStopped, comm_, MPI_STATUS_IGNORE);
+        stopping_ = true;
         w.finished = true;
       } else {
         throw Error("unexpected message tag " + std::to_string(st.MPI_TAG) + " from rank " +
                     std::to_string(src));
       }
     }
-  };
+  }
 
+  Prepared& p_;
+  store::RunFile& file_;
+  const std::vector<Unit> pending_;
+  MPI_Comm comm_;
+  const std::vector<std::string>& hosts_;
+  const int ranks_;
+  std::vector<WorkerState> workers_;
+  std::size_t next_ = 0;
+  bool stopping_ = false;
+  Deadline deadline_;
+  Progress progress_;
+};
+
+int coordinate(Prepared& p, store::RunFile& file, std::vector<Unit> pending, MPI_Comm comm,
+               const RunOptions& options, std::ostream& err, const std::vector<std::string>& hosts,
+               std::chrono::steady_clock::time_point run_start, bool& stopped_for_deadline) {
+  Coordinator coordinator(p, file, std::move(pending), comm, options, err, hosts, run_start);
   // Rank 0 computes too — taking units from the same queue and coordinating between its trials —
   // as long as there are few ranks; with many, answering promptly matters more than its share of
   // the work (docs/scaling.md).
-  const bool rank0_computes = ranks <= kRankZeroComputesUpTo;
-  // What rank 0 spends besides its units' own work (coordinating between its trials, writing),
-  // the most of any of its units so far: its next unit takes that long on top of the prediction.
-  double rank0_extra = 0.0;
-  for (;;) {
-    if (!rank0_computes) break;
-    service(false);
-    if (stopping || next >= pending.size()) break;
-    if (!deadline.take(0, pending[next], false, rank0_extra)) {
-      stopping = true;  // the next unit would not finish before the deadline
-      break;
-    }
-    const Unit unit = pending[next++];
-    UnitDone d;
-    const auto began = std::chrono::steady_clock::now();
-    if (!compute_unit(p, unit, 0, d, [&] { service(false); })) {
-      stopping = true;
-      break;
-    }
-    write(d);
-    const double wall =
-        std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
-    rank0_extra = std::max(rank0_extra, wall - d.seconds);
-  }
-  while (!std::all_of(workers.begin(), workers.end(), [](const WorkerState& w) { return w.finished; })) {
-    service(true);
-  }
-  progress.finish();
-  stopped_for_deadline = deadline.reached();
-  return (stopping && !file.complete()) ? kExitResumable : kExitFinished;
+  const bool rank0_computes = coordinator.ranks() <= kRankZeroComputesUpTo;
+  if (rank0_computes) coordinator.compute_on_rank_zero();
+  coordinator.wait_for_workers();
+  return coordinator.finish(stopped_for_deadline);
 }
 
 // ---- other ranks: compute ------------------------------------------------------------------------
@@ -837,6 +898,234 @@ void work(const Prepared& p, MPI_Comm comm) {
   }
 }
 
+// ---- run_job's steps ---------------------------------------------------------------------------
+
+/// The code every rank agrees on (agree()), its message printed once by rank 0; 0 if none failed.
+int agreed_failure(int code, const std::string& message, int me, MPI_Comm comm,
+                   std::ostream& err) {
+  auto [c, m] = agree(code, message, comm);
+  if (c != 0 && me == 0) err << "freegap: " << m << "\n";
+  return c;
+}
+
+/// Rank 0 reads the job file's text; a failure sets `code` and `message` for agree().
+void read_job_text(const std::string& job_path, std::string& text, int& code,
+                   std::string& message) {
+  std::ifstream in(job_path);
+  if (!in) {
+    code = kExitBadInput;
+    message = "cannot read job file '" + job_path + "': " + std::strerror(errno);
+  } else {
+    std::ostringstream ss;
+    ss << in.rdbuf();
+    text = ss.str();
+  }
+}
+
+/// Refuses more than one BLAS thread for a job that needs complex singular value decompositions.
+void refuse_threaded_complex_svd(const Prepared& p, int threads) {
+  // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
+  // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
+  bool complex_svd = false;
+  for (const auto& m : p.job.matrices) {
+    complex_svd |=
+        m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
+  }
+  const auto& e = p.runners.front().expression();
+  complex_svd |= e.spectrum() == expr::Spectrum::singular_values && !e.is_real();
+  if (complex_svd) {
+    throw InputError("--threads " + std::to_string(threads) +
+                     ": this job needs complex singular value decompositions, which crash "
+                     "with more than one OpenBLAS thread in the OpenBLAS shipped with "
+                     "Debian 12; use --threads 1 and more ranks instead");
+  }
+}
+
+/// Parses the job text and builds its runners and estimators in this rank.
+void prepare_job(Prepared& p, const std::string& text, const std::string& job_path,
+                 const RunOptions& options) {
+  p.job = job::parse_job(text, job_path, true,
+                         options.confine ? job::Paths::confined : job::Paths::anywhere);
+  if (!options.output.empty()) p.job.output = options.output;
+  p.runners = study::runners(p.job);
+  // Opens and checks every estimator (a library is loaded and described by its helper
+  // process, never here: entry points, ABI version, declared names; commands on PATH) on
+  // every rank, before anything is written.
+  p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
+  p.estimators->set_stop_check([] { return stop_requested(); });
+  if (options.threads > 1) refuse_threaded_complex_svd(p, options.threads);
+}
+
+/// prepare_job, its failure as a code and message for agree() ({0, ""} if it succeeds).
+std::pair<int, std::string> prepare_job_or_fail(Prepared& p, const std::string& text,
+                                                const std::string& job_path,
+                                                const RunOptions& options) {
+  try {
+    prepare_job(p, text, job_path, options);
+  } catch (const InputError& e) {
+    return {kExitBadInput, e.what()};
+  } catch (const Stopped& e) {
+    // A signal during validation (freegap/stop.hpp): nothing is written yet, so running the
+    // same command again starts the run.
+    return {kExitResumable, e.what()};
+  } catch (const Error& e) {
+    // Not the input's fault (e.g. the plug-in helper program cannot be started): every rank
+    // stops the same way, before anything is written.
+    return {kExitFailure, e.what()};
+  }
+  return {0, {}};
+}
+
+/// The refusal of the first size whose estimated peak memory does not fit a rank, as a code and
+/// message for agree() ({0, ""} if every size fits).
+std::pair<int, std::string> check_memory(const Prepared& p, MPI_Comm comm) {
+  std::size_t limit = static_cast<std::size_t>(p.job.memory_per_rank_bytes);
+  std::string source = "memory_per_rank in the job";
+  if (limit == 0) {
+    const int local = ranks_on_this_node(comm);
+    limit = available_memory_bytes() / static_cast<std::size_t>(std::max(1, local));
+    source = "this node's available memory shared by " + std::to_string(local) + " rank(s)";
+  }
+  std::string msg;
+  int c = 0;
+  for (const auto& r : p.runners) {
+    const auto need = study::estimate_peak_bytes(r, p.estimators->wants_matrix());
+    if (limit > 0 && need > limit) {
+      c = kExitBadInput;
+      msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
+            human_bytes(static_cast<double>(need)) + " per rank (estimate), more than the " +
+            human_bytes(static_cast<double>(limit)) + " from " + source +
+            "; remove the size, run fewer ranks per node, or raise memory_per_rank";
+      break;
+    }
+  }
+  return {c, msg};
+}
+
+/// --explain: each size's evaluation plan, trials and peak memory, then the run file's size.
+void print_explanation(const Prepared& p, std::ostream& out) {
+  for (std::size_t i = 0; i < p.runners.size(); ++i) {
+    out << p.runners[i].explain();
+    out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
+        << "; estimated peak per rank: "
+        << human_bytes(static_cast<double>(
+               study::estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
+        << "\n\n";
+  }
+  out << space_line(p.job) << "\n";
+}
+
+/// Rank 0: the bin edges of the run file at `path` that this run resumes, once the BLAS thread
+/// count it was written with is checked against this run's.
+std::vector<double> resumed_edges(const Prepared& p, const std::string& path,
+                                  const std::string& threads) {
+  // Read-only first: the bin edges of a resumed run are the file's (an automatic range was
+  // fixed by the first session's pilot trial), and the BLAS thread count must match before
+  // the file is opened for writing.
+  const store::RunHeader found = store::read_header_for_resume(path);
+  const auto it = found.metadata.find("blas_threads");
+  if (found.job_hash == p.job.hash() && it != found.metadata.end() &&
+      it->second != threads) {
+    throw InputError("run file '" + path + "' was written with " + it->second +
+                     " BLAS thread(s) per rank and this run asks for " + threads +
+                     "; the last bits of the results depend on it, so resume with --threads " +
+                     it->second + " or start over with --fresh");
+  }
+  return found.sizes.empty() ? std::vector<double>{} : found.sizes.front().observe.bin_edges;
+}
+
+/// Rank 0: opens the run file to resume it or creates it (--fresh deletes it first), fixing the
+/// bin edges.
+void open_run_file(Prepared& p, const RunOptions& options, std::vector<double>& edges,
+                   std::optional<store::RunFile>& file) {
+  namespace fs = std::filesystem;
+  const std::string& path = p.job.output;
+  if (!options.ignore_free_space) check_free_space(p.job);
+  if (options.fresh) {
+    store::check_replaceable(path);  // never delete anything but a run file
+    fs::remove(path);
+  }
+  const bool resume = fs::exists(path) || fs::is_symlink(path);
+  const std::string threads = std::to_string(options.threads);
+  if (resume) {
+    edges = resumed_edges(p, path, threads);
+  } else {
+    edges = p.job.observe.auto_range
+                ? pilot_edges(p.job, p.runners.front())
+                : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
+  }
+  if (edges.size() < 2) edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
+  for (std::size_t i = 0; i < p.runners.size(); ++i) {
+    p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+  }
+  file.emplace(resume ? store::RunFile::open_for_resume(path, make_header(p, options.threads))
+                      : store::RunFile::create(path, make_header(p, options.threads)));
+}
+
+/// Every rank learns rank 0's bin edges and builds its observation settings from them.
+void share_edges(Prepared& p, std::vector<double>& edges, MPI_Comm comm) {
+  long long ne = static_cast<long long>(edges.size());
+  MPI_Bcast(&ne, 1, MPI_LONG_LONG, 0, comm);
+  edges.resize(static_cast<std::size_t>(ne));
+  MPI_Bcast(edges.data(), static_cast<int>(ne), MPI_DOUBLE, 0, comm);
+  p.configs.clear();
+  for (std::size_t i = 0; i < p.runners.size(); ++i) {
+    p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+  }
+}
+
+/// Every rank's host name, known to every rank (each rank broadcasts its own in turn).
+std::vector<std::string> share_host_names(int ranks, MPI_Comm comm) {
+  std::vector<std::string> hosts(static_cast<std::size_t>(ranks));
+  std::string mine = host_name();
+  for (int r = 0; r < ranks; ++r) {
+    std::string h = mine;
+    long long n = static_cast<long long>(h.size());
+    MPI_Bcast(&n, 1, MPI_LONG_LONG, r, comm);
+    h.resize(static_cast<std::size_t>(n));
+    MPI_Bcast(h.data(), static_cast<int>(n), MPI_CHAR, r, comm);
+    hosts[static_cast<std::size_t>(r)] = h;
+  }
+  return hosts;
+}
+
+/// Rank 0: runs this session over the units not yet committed and says how it ended; the run's
+/// exit status. A failure here aborts every rank.
+int run_session(Prepared& p, store::RunFile& file, const RunOptions& options, MPI_Comm comm,
+                int ranks, const std::vector<std::string>& hosts,
+                std::chrono::steady_clock::time_point run_start, std::ostream& out,
+                std::ostream& err) {
+  int status = kExitFinished;
+  try {
+    std::vector<Unit> pending;
+    std::vector<std::vector<bool>> committed;
+    for (std::size_t i = 0; i < p.runners.size(); ++i) committed.push_back(file.committed(i));
+    for (const auto& u : all_units(p.job)) {
+      if (!committed[u.size_index][static_cast<std::size_t>(u.unit)]) pending.push_back(u);
+    }
+    file.begin_session(ranks, hosts);
+    bool stopped_for_deadline = false;
+    status = coordinate(p, file, pending, comm, options, err, hosts, run_start,
+                        stopped_for_deadline);
+    file.end_session(status == kExitFinished ? "finished" : "interrupted");
+    if (status == kExitResumable && stopped_for_deadline && g_stop_signal == 0) {
+      err << "freegap: stopped before the deadline: the next unit would not finish in time; "
+             "committed units are in '"
+          << p.job.output << "'; run the same command again to resume\n";
+    } else if (status == kExitResumable) {
+      err << "freegap: stopped by signal " << static_cast<int>(g_stop_signal)
+          << "; committed units are in '" << p.job.output
+          << "'; run the same command again to resume\n";
+    } else if (!options.quiet) {
+      out << "freegap: run complete: " << p.job.output << "\n";
+    }
+  } catch (const std::exception& e) {
+    err << "freegap: " << e.what() << "\n";
+    MPI_Abort(comm, kExitFailure);
+  }
+  return status;
+}
+
 }  // namespace
 
 int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm comm,
@@ -851,107 +1140,20 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   Prepared p;
   std::string text, message;
   int code = 0;
-  if (me == 0) {
-    std::ifstream in(job_path);
-    if (!in) {
-      code = kExitBadInput;
-      message = "cannot read job file '" + job_path + "': " + std::strerror(errno);
-    } else {
-      std::ostringstream ss;
-      ss << in.rdbuf();
-      text = ss.str();
-    }
-  }
-  if (auto [c, m] = agree(code, message, comm); c != 0) {
-    if (me == 0) err << "freegap: " << m << "\n";
-    return c;
-  }
+  if (me == 0) read_job_text(job_path, text, code, message);
+  if (const int c = agreed_failure(code, message, me, comm, err); c != 0) return c;
   broadcast_string(text, comm);
-  try {
-    p.job = job::parse_job(text, job_path, true,
-                           options.confine ? job::Paths::confined : job::Paths::anywhere);
-    if (!options.output.empty()) p.job.output = options.output;
-    p.runners = study::runners(p.job);
-    // Opens and checks every estimator (a library is loaded and described by its helper
-    // process, never here: entry points, ABI version, declared names; commands on PATH) on
-    // every rank, before anything is written.
-    p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
-    p.estimators->set_stop_check([] { return stop_requested(); });
-    if (options.threads > 1) {
-      // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
-      // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
-      bool complex_svd = false;
-      for (const auto& m : p.job.matrices) {
-        complex_svd |= m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
-      }
-      const auto& e = p.runners.front().expression();
-      complex_svd |= e.spectrum() == expr::Spectrum::singular_values && !e.is_real();
-      if (complex_svd) {
-        throw InputError("--threads " + std::to_string(options.threads) +
-                         ": this job needs complex singular value decompositions, which crash "
-                         "with more than one OpenBLAS thread in the OpenBLAS shipped with "
-                         "Debian 12; use --threads 1 and more ranks instead");
-      }
-    }
-  } catch (const InputError& e) {
-    code = kExitBadInput;
-    message = e.what();
-  } catch (const Stopped& e) {
-    // A signal during validation (freegap/stop.hpp): nothing is written yet, so running the
-    // same command again starts the run.
-    code = kExitResumable;
-    message = e.what();
-  } catch (const Error& e) {
-    // Not the input's fault (e.g. the plug-in helper program cannot be started): every rank
-    // stops the same way, before anything is written.
-    code = kExitFailure;
-    message = e.what();
-  }
-  if (auto [c, m] = agree(code, message, comm); c != 0) {
-    if (me == 0) err << "freegap: " << m << "\n";
-    return c;
-  }
+  std::tie(code, message) = prepare_job_or_fail(p, text, job_path, options);
+  if (const int c = agreed_failure(code, message, me, comm, err); c != 0) return c;
 
   // 2. Memory: refuse a size whose estimated peak does not fit a rank, before any work.
   {
-    std::size_t limit = static_cast<std::size_t>(p.job.memory_per_rank_bytes);
-    std::string source = "memory_per_rank in the job";
-    if (limit == 0) {
-      const int local = ranks_on_this_node(comm);
-      limit = available_memory_bytes() / static_cast<std::size_t>(std::max(1, local));
-      source = "this node's available memory shared by " + std::to_string(local) + " rank(s)";
-    }
-    std::string msg;
-    int c = 0;
-    for (const auto& r : p.runners) {
-      const auto need = study::estimate_peak_bytes(r, p.estimators->wants_matrix());
-      if (limit > 0 && need > limit) {
-        c = kExitBadInput;
-        msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
-              human_bytes(static_cast<double>(need)) + " per rank (estimate), more than the " +
-              human_bytes(static_cast<double>(limit)) + " from " + source +
-              "; remove the size, run fewer ranks per node, or raise memory_per_rank";
-        break;
-      }
-    }
-    if (auto [cc, m] = agree(c, msg, comm); cc != 0) {
-      if (me == 0) err << "freegap: " << m << "\n";
-      return cc;
-    }
+    const auto [c, msg] = check_memory(p, comm);
+    if (const int cc = agreed_failure(c, msg, me, comm, err); cc != 0) return cc;
   }
 
   if (options.explain) {
-    if (me == 0) {
-      for (std::size_t i = 0; i < p.runners.size(); ++i) {
-        out << p.runners[i].explain();
-        out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
-            << "; estimated peak per rank: "
-            << human_bytes(static_cast<double>(
-                   study::estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
-            << "\n\n";
-      }
-      out << space_line(p.job) << "\n";
-    }
+    if (me == 0) print_explanation(p, out);
     return kExitFinished;
   }
 
@@ -959,45 +1161,11 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
   //    and which units are still to do.
   std::optional<store::RunFile> file;
   std::vector<double> edges;
-  std::vector<Unit> pending;
   code = 0;
   message.clear();
   if (me == 0) {
     try {
-      namespace fs = std::filesystem;
-      const std::string& path = p.job.output;
-      if (!options.ignore_free_space) check_free_space(p.job);
-      if (options.fresh) {
-        store::check_replaceable(path);  // never delete anything but a run file
-        fs::remove(path);
-      }
-      const bool resume = fs::exists(path) || fs::is_symlink(path);
-      const std::string threads = std::to_string(options.threads);
-      if (resume) {
-        // Read-only first: the bin edges of a resumed run are the file's (an automatic range was
-        // fixed by the first session's pilot trial), and the BLAS thread count must match before
-        // the file is opened for writing.
-        const store::RunHeader found = store::read_header_for_resume(path);
-        const auto it = found.metadata.find("blas_threads");
-        if (found.job_hash == p.job.hash() && it != found.metadata.end() &&
-            it->second != threads) {
-          throw InputError("run file '" + path + "' was written with " + it->second +
-                           " BLAS thread(s) per rank and this run asks for " + threads +
-                           "; the last bits of the results depend on it, so resume with --threads " +
-                           it->second + " or start over with --fresh");
-        }
-        edges = found.sizes.empty() ? std::vector<double>{} : found.sizes.front().observe.bin_edges;
-      } else {
-        edges = p.job.observe.auto_range
-                    ? pilot_edges(p.job, p.runners.front())
-                    : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
-      }
-      if (edges.size() < 2) edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
-      for (std::size_t i = 0; i < p.runners.size(); ++i) {
-        p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
-      }
-      file.emplace(resume ? store::RunFile::open_for_resume(path, make_header(p, options.threads))
-                          : store::RunFile::create(path, make_header(p, options.threads)));
+      open_run_file(p, options, edges, file);
     } catch (const InputError& e) {
       code = kExitBadInput;
       message = e.what();
@@ -1006,63 +1174,15 @@ int run_job(const std::string& job_path, const RunOptions& options, MPI_Comm com
       message = e.what();
     }
   }
-  if (auto [c, m] = agree(code, message, comm); c != 0) {
-    if (me == 0) err << "freegap: " << m << "\n";
-    return c;
-  }
+  if (const int c = agreed_failure(code, message, me, comm, err); c != 0) return c;
   // The run file is accepted: from now on plug-ins' output goes to the log beside it.
   p.estimators->log_plugin_output_to(estimate::plugin_log_path(p.job.output));
-  {
-    long long ne = static_cast<long long>(edges.size());
-    MPI_Bcast(&ne, 1, MPI_LONG_LONG, 0, comm);
-    edges.resize(static_cast<std::size_t>(ne));
-    MPI_Bcast(edges.data(), static_cast<int>(ne), MPI_DOUBLE, 0, comm);
-    p.configs.clear();
-    for (std::size_t i = 0; i < p.runners.size(); ++i) {
-      p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
-    }
-  }
-  std::vector<std::string> hosts(static_cast<std::size_t>(ranks));
-  {
-    std::string mine = host_name();
-    for (int r = 0; r < ranks; ++r) {
-      std::string h = mine;
-      long long n = static_cast<long long>(h.size());
-      MPI_Bcast(&n, 1, MPI_LONG_LONG, r, comm);
-      h.resize(static_cast<std::size_t>(n));
-      MPI_Bcast(h.data(), static_cast<int>(n), MPI_CHAR, r, comm);
-      hosts[static_cast<std::size_t>(r)] = h;
-    }
-  }
+  share_edges(p, edges, comm);
+  const std::vector<std::string> hosts = share_host_names(ranks, comm);
 
   int status = kExitFinished;
   if (me == 0) {
-    try {
-      std::vector<std::vector<bool>> committed;
-      for (std::size_t i = 0; i < p.runners.size(); ++i) committed.push_back(file->committed(i));
-      for (const auto& u : all_units(p.job)) {
-        if (!committed[u.size_index][static_cast<std::size_t>(u.unit)]) pending.push_back(u);
-      }
-      file->begin_session(ranks, hosts);
-      bool stopped_for_deadline = false;
-      status = coordinate(p, *file, pending, comm, options, err, hosts, run_start,
-                          stopped_for_deadline);
-      file->end_session(status == kExitFinished ? "finished" : "interrupted");
-      if (status == kExitResumable && stopped_for_deadline && g_stop_signal == 0) {
-        err << "freegap: stopped before the deadline: the next unit would not finish in time; "
-               "committed units are in '"
-            << p.job.output << "'; run the same command again to resume\n";
-      } else if (status == kExitResumable) {
-        err << "freegap: stopped by signal " << static_cast<int>(g_stop_signal)
-            << "; committed units are in '" << p.job.output
-            << "'; run the same command again to resume\n";
-      } else if (!options.quiet) {
-        out << "freegap: run complete: " << p.job.output << "\n";
-      }
-    } catch (const std::exception& e) {
-      err << "freegap: " << e.what() << "\n";
-      MPI_Abort(comm, kExitFailure);
-    }
+    status = run_session(p, *file, options, comm, ranks, hosts, run_start, out, err);
   } else {
     work(p, comm);
   }
