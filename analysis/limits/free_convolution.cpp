@@ -720,6 +720,112 @@ double SubordinatedLaw::edge_between(double x_out, AxisPoint p, double x_in) con
   return x_edge;
 }
 
+namespace {
+
+// The gaps of the grid's runs of outside points: each run's edges, located by
+// `edge(x_out, w_out, x_in)` from its first and last points towards their neighbours inside.
+template <class Point, class Edge>
+std::vector<Interval> gaps_of_outside_runs(const std::vector<double>& xs,
+                                           const std::vector<Point>& ws,
+                                           const std::vector<char>& out, double lo, double hi,
+                                           const Edge& edge) {
+  const int kGrid = static_cast<int>(xs.size());
+  std::vector<Interval> gaps;
+  for (int i = 0; i < kGrid;) {
+    if (!out[i]) {
+      ++i;
+      continue;
+    }
+    int j = i;
+    while (j + 1 < kGrid && out[j + 1]) ++j;
+    const double left = edge(xs[i], ws[i], i > 0 ? xs[i - 1] : lo);
+    const double right = edge(xs[j], ws[j], j + 1 < kGrid ? xs[j + 1] : hi);
+    if (right > left) gaps.push_back({left, right});
+    i = j + 1;
+  }
+  return gaps;
+}
+
+// A golden-section search of [a, b] for the minimum of the density, stopped at the first point
+// `probe` finds outside the support: true with that point (the last one when both first probes
+// are outside) in x_found, w_found.
+template <class Point, class Probe>
+bool golden_section_outside(double a, double b, const Probe& probe, double& x_found,
+                            Point& w_found) {
+  const double r = 0.5 * (std::sqrt(5.0) - 1.0);
+  double c = b - r * (b - a), d = a + r * (b - a);
+  double fc = 0.0, fd = 0.0;
+  Point wc, wd;
+  bool found = false;
+  auto look = [&](double x, double& f, Point& w) {
+    if (probe(x, f, w)) {
+      found = true;
+      x_found = x;
+      w_found = w;
+    }
+  };
+  look(c, fc, wc);
+  look(d, fd, wd);
+  for (int k = 0; k < 60 && !found; ++k) {
+    if (fc < fd) {
+      b = d;
+      d = c;
+      fd = fc;
+      c = b - r * (b - a);
+      look(c, fc, wc);
+    } else {
+      a = c;
+      c = d;
+      fc = fd;
+      d = a + r * (b - a);
+      look(d, fd, wd);
+    }
+    if (b - a <= 1e-15 * std::max(1.0, std::abs(a))) break;
+  }
+  return found;
+}
+
+// Adds to `gaps` the gaps narrower than the grid: at each local minimum of the density between
+// inside points, a golden-section search for an outside point, whose edges `edge` locates.
+template <class Point, class Probe, class Edge>
+void add_gaps_at_density_minima(const std::vector<double>& xs, const std::vector<double>& dens,
+                                const std::vector<char>& out, const Probe& probe,
+                                const Edge& edge, std::vector<Interval>& gaps) {
+  const int kGrid = static_cast<int>(xs.size());
+  int searches = 0;
+  for (int i = 1; i + 1 < kGrid && searches < 4 * kGrid; ++i) {
+    if (out[i - 1] || out[i] || out[i + 1]) continue;
+    if (!(dens[i] < dens[i - 1] && dens[i] <= dens[i + 1])) continue;
+    ++searches;
+    double x_found = 0.0;
+    Point w_found;
+    if (!golden_section_outside(xs[i - 1], xs[i + 1], probe, x_found, w_found)) continue;
+    const double left = edge(x_found, w_found, xs[i - 1]);
+    const double right = edge(x_found, w_found, xs[i + 1]);
+    if (right > left) gaps.push_back({left, right});
+  }
+}
+
+// Appends to `bands` the pieces of [lo, hi] between the gaps (sorted here, merged where they
+// overlap or touch).
+void add_bands_between_gaps(std::vector<Interval>& gaps, double lo, double hi,
+                            std::vector<Interval>& bands) {
+  std::sort(gaps.begin(), gaps.end(),
+            [](const Interval& l, const Interval& r) { return l.lo < r.lo; });
+  double start = lo;
+  for (const Interval& g : gaps) {
+    if (g.lo <= start) {  // overlapping or touching the previous gap: merge
+      start = std::max(start, g.hi);
+      continue;
+    }
+    bands.push_back({start, std::min(g.lo, hi)});
+    start = g.hi;
+  }
+  if (hi > start) bands.push_back({start, hi});
+}
+
+}  // namespace
+
 void SubordinatedLaw::find_bands() {
   support_.bands.clear();
   if (!(continuous_hi_ > continuous_lo_)) return;
@@ -769,74 +875,12 @@ void SubordinatedLaw::find_bands() {
     xs[i] = lo + (hi - lo) * (i + 0.5) / kGrid;
     out[i] = probe(xs[i], dens[i], ws[i]) ? 1 : 0;
   }
-  std::vector<Interval> gaps;
-  for (int i = 0; i < kGrid;) {
-    if (!out[i]) {
-      ++i;
-      continue;
-    }
-    int j = i;
-    while (j + 1 < kGrid && out[j + 1]) ++j;
-    const double left = edge_between(xs[i], ws[i], i > 0 ? xs[i - 1] : lo);
-    const double right = edge_between(xs[j], ws[j], j + 1 < kGrid ? xs[j + 1] : hi);
-    if (right > left) gaps.push_back({left, right});
-    i = j + 1;
-  }
-  int searches = 0;
-  for (int i = 1; i + 1 < kGrid && searches < 4 * kGrid; ++i) {
-    if (out[i - 1] || out[i] || out[i + 1]) continue;
-    if (!(dens[i] < dens[i - 1] && dens[i] <= dens[i + 1])) continue;
-    ++searches;
-    const double r = 0.5 * (std::sqrt(5.0) - 1.0);
-    double a = xs[i - 1], b = xs[i + 1];
-    double c = b - r * (b - a), d = a + r * (b - a);
-    double fc = 0.0, fd = 0.0;
-    AxisPoint wc, wd;
-    bool found = false;
-    double x_found = 0.0;
-    AxisPoint w_found;
-    auto look = [&](double x, double& f, AxisPoint& w) {
-      if (probe(x, f, w)) {
-        found = true;
-        x_found = x;
-        w_found = w;
-      }
-    };
-    look(c, fc, wc);
-    look(d, fd, wd);
-    for (int k = 0; k < 60 && !found; ++k) {
-      if (fc < fd) {
-        b = d;
-        d = c;
-        fd = fc;
-        c = b - r * (b - a);
-        look(c, fc, wc);
-      } else {
-        a = c;
-        c = d;
-        fc = fd;
-        d = a + r * (b - a);
-        look(d, fd, wd);
-      }
-      if (b - a <= 1e-15 * std::max(1.0, std::abs(a))) break;
-    }
-    if (!found) continue;
-    const double left = edge_between(x_found, w_found, xs[i - 1]);
-    const double right = edge_between(x_found, w_found, xs[i + 1]);
-    if (right > left) gaps.push_back({left, right});
-  }
-  std::sort(gaps.begin(), gaps.end(),
-            [](const Interval& l, const Interval& r) { return l.lo < r.lo; });
-  double start = lo;
-  for (const Interval& g : gaps) {
-    if (g.lo <= start) {  // overlapping or touching the previous gap: merge
-      start = std::max(start, g.hi);
-      continue;
-    }
-    support_.bands.push_back({start, std::min(g.lo, hi)});
-    start = g.hi;
-  }
-  if (hi > start) support_.bands.push_back({start, hi});
+  const auto edge = [&](double x_out, const AxisPoint& w, double x_in) {
+    return edge_between(x_out, w, x_in);
+  };
+  std::vector<Interval> gaps = gaps_of_outside_runs(xs, ws, out, lo, hi, edge);
+  add_gaps_at_density_minima<AxisPoint>(xs, dens, out, probe, edge, gaps);
+  add_bands_between_gaps(gaps, lo, hi, support_.bands);
   snap_edges_to_singular_points();
 }
 
@@ -880,43 +924,16 @@ double theta_of_x(double lo, double hi, double x) {
   return kPi - 2.0 * std::asin(std::sqrt(std::clamp((hi - x) / (2.0 * half), 0.0, 1.0)));
 }
 
-}  // namespace
+// The width of the unsampled layer next to `edge` of a band of width `width`; at a singular
+// point it is 100 ε wide (ε = epsilon_abs, the distance of the solves to the axis).
+double edge_layer(double edge, bool singular, double width, double epsilon_abs) {
+  const double floor = 64.0 * std::numeric_limits<double>::epsilon() * std::abs(edge);
+  const double d = std::max(1e-30 * width, std::max(1e-13 * width * (edge != 0.0), floor));
+  return singular ? std::max(d, std::min(100.0 * epsilon_abs, 0.25 * width)) : d;
+}
 
-SubordinatedLaw::BandTable SubordinatedLaw::build_table(double lo, double hi, bool singular_lo,
-                                                        bool singular_hi) const {
-  BandTable t;
-  t.lo = lo;
-  t.hi = hi;
-  if (!(hi > lo)) return t;
-  const double width = hi - lo;
-  const double half = 0.5 * width;
-  // The last layer next to an edge is not sampled (doubles cannot resolve it next to a nonzero
-  // edge); its mass comes from the local power law f ≈ A d^β fitted at d and 2d (d the layer
-  // width), which covers square-root, inverse-square-root and x^{−2/3} edges alike.
-  // At a singular point the density is accurate only from about 100 ε from it (ε the distance
-  // of the solves to the axis; closer, Newton from x + iε no longer reaches the axis's value),
-  // so the layer there is 100 ε wide: the power law holds across it to far below 1e-9 of mass.
-  auto layer = [&](double edge, bool singular) {
-    const double floor = 64.0 * std::numeric_limits<double>::epsilon() * std::abs(edge);
-    const double d = std::max(1e-30 * width, std::max(1e-13 * width * (edge != 0.0), floor));
-    return singular ? std::max(d, std::min(100.0 * epsilon_abs_, 0.25 * width)) : d;
-  };
-  const double d_left = layer(lo, singular_lo);
-  const double d_right = layer(hi, singular_hi);
-  cd warm;
-  bool have_warm = false;
-  auto tail = [&](double edge, double d, double direction, double& beta) {
-    const double f1 = density_at(edge + direction * d, warm, have_warm);
-    const double f2 = density_at(edge + direction * 2.0 * d, warm, have_warm);
-    have_warm = false;
-    beta = (f1 > 0.0 && f2 > 0.0) ? std::log2(f2 / f1) : 0.0;
-    if (!(f1 > 0.0) || !(beta > -1.0)) return 0.0;
-    return f1 * d / (beta + 1.0);
-  };
-  t.left_tail = tail(lo, d_left, 1.0, t.left_beta);
-  const double right_tail = tail(hi, d_right, -1.0, t.right_beta);
-  const double theta_lo = theta_of_x(lo, hi, lo + d_left);
-  const double theta_hi = theta_of_x(lo, hi, hi - d_right);
+// The base breakpoints in θ of a band's table, from theta_lo to theta_hi.
+std::vector<double> theta_breakpoints(double theta_lo, double theta_hi) {
   // Graded breakpoints in θ: geometric (ratio 4) towards both edges, uniform in between; the
   // adaptive refinement below adds what a band needs (a square-root edge is smooth in θ).
   std::vector<double> breaks{theta_lo};
@@ -930,19 +947,15 @@ SubordinatedLaw::BandTable SubordinatedLaw::build_table(double lo, double hi, bo
     if (th < theta_hi) breaks.push_back(th);
   }
   breaks.push_back(theta_hi);
-  const detail::GaussRule& rule = detail::gauss_legendre(16);
-  auto panel = [&](double a, double b) {
-    double sum = 0.0;
-    for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
-      const double th = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[i];
-      sum +=
-          rule.weights[i] * density_at(x_of_theta(lo, hi, th), warm, have_warm) * half * std::sin(th);
-    }
-    return 0.5 * (b - a) * sum;
-  };
-  double cumulative = t.left_tail;
-  t.theta.push_back(theta_lo);
-  t.cumulative.push_back(cumulative);
+  return breaks;
+}
+
+// Integrates `panel` adaptively between the breakpoints, appending each leaf's right end to
+// `theta` and the mass up to it (starting from `cumulative`, updated) to `cumulatives`.
+template <class Panel>
+void integrate_adaptively(const std::vector<double>& breaks, const Panel& panel,
+                          double& cumulative, std::vector<double>& theta,
+                          std::vector<double>& cumulatives) {
   struct Piece {
     double a, b, whole;
     int depth;
@@ -967,14 +980,63 @@ SubordinatedLaw::BandTable SubordinatedLaw::build_table(double lo, double hi, bo
       const double right = panel(mid, p.b);
       if (p.depth >= 24 || std::abs(left + right - p.whole) <= tolerance) {
         cumulative += left + right;
-        t.theta.push_back(p.b);
-        t.cumulative.push_back(cumulative);
+        theta.push_back(p.b);
+        cumulatives.push_back(cumulative);
       } else {
         stack.push_back({mid, p.b, right, p.depth + 1});  // right half after the left one
         stack.push_back({p.a, mid, left, p.depth + 1});
       }
     }
   }
+}
+
+}  // namespace
+
+SubordinatedLaw::BandTable SubordinatedLaw::build_table(double lo, double hi, bool singular_lo,
+                                                        bool singular_hi) const {
+  BandTable t;
+  t.lo = lo;
+  t.hi = hi;
+  if (!(hi > lo)) return t;
+  const double width = hi - lo;
+  const double half = 0.5 * width;
+  // The last layer next to an edge is not sampled (doubles cannot resolve it next to a nonzero
+  // edge); its mass comes from the local power law f ≈ A d^β fitted at d and 2d (d the layer
+  // width), which covers square-root, inverse-square-root and x^{−2/3} edges alike.
+  // At a singular point the density is accurate only from about 100 ε from it (ε the distance
+  // of the solves to the axis; closer, Newton from x + iε no longer reaches the axis's value),
+  // so the layer there is 100 ε wide: the power law holds across it to far below 1e-9 of mass.
+  const double d_left = edge_layer(lo, singular_lo, width, epsilon_abs_);
+  const double d_right = edge_layer(hi, singular_hi, width, epsilon_abs_);
+  cd warm;
+  bool have_warm = false;
+  auto tail = [&](double edge, double d, double direction, double& beta) {
+    const double f1 = density_at(edge + direction * d, warm, have_warm);
+    const double f2 = density_at(edge + direction * 2.0 * d, warm, have_warm);
+    have_warm = false;
+    beta = (f1 > 0.0 && f2 > 0.0) ? std::log2(f2 / f1) : 0.0;
+    if (!(f1 > 0.0) || !(beta > -1.0)) return 0.0;
+    return f1 * d / (beta + 1.0);
+  };
+  t.left_tail = tail(lo, d_left, 1.0, t.left_beta);
+  const double right_tail = tail(hi, d_right, -1.0, t.right_beta);
+  const double theta_lo = theta_of_x(lo, hi, lo + d_left);
+  const double theta_hi = theta_of_x(lo, hi, hi - d_right);
+  const std::vector<double> breaks = theta_breakpoints(theta_lo, theta_hi);
+  const detail::GaussRule& rule = detail::gauss_legendre(16);
+  auto panel = [&](double a, double b) {
+    double sum = 0.0;
+    for (std::size_t i = 0; i < rule.nodes.size(); ++i) {
+      const double th = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[i];
+      sum +=
+          rule.weights[i] * density_at(x_of_theta(lo, hi, th), warm, have_warm) * half * std::sin(th);
+    }
+    return 0.5 * (b - a) * sum;
+  };
+  double cumulative = t.left_tail;
+  t.theta.push_back(theta_lo);
+  t.cumulative.push_back(cumulative);
+  integrate_adaptively(breaks, panel, cumulative, t.theta, t.cumulative);
   t.theta.push_back(kPi);
   t.cumulative.push_back(cumulative + right_tail);
   return t;

@@ -134,65 +134,156 @@ std::string word_text(const Letters& letters, const std::vector<MatrixSpec>& dec
   return s;
 }
 
-// A monomial c·w as a free self-adjoint term, or nullopt with `why` set.
-std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<MatrixSpec>& d,
-                            std::string& why) {
-  auto spec = [&](std::size_t k) -> const MatrixSpec& { return d[static_cast<std::size_t>(w[k].first)]; };
-  auto use = [&](FreeTerm& t, int letter) {
+// A monomial's word with the declared matrices and its text, as the rules of term_of read it.
+struct TermWord {
+  const Letters& w;
+  const std::vector<MatrixSpec>& d;
+  std::string text;
+  const MatrixSpec& spec(std::size_t k) const { return d[static_cast<std::size_t>(w[k].first)]; }
+  // Records that the term uses `letter`, as a random or as a deterministic matrix.
+  void use(FreeTerm& t, int letter) const {
     if (declarations::is_random(d[static_cast<std::size_t>(letter)].kind)) {
       t.random_letters.insert(letter);
     } else {
       t.deterministic_letters.insert(letter);
     }
-  };
-  const std::string text = word_text(w, d);
+  }
+};
+
+// X alone: the law of the self-adjoint matrix X.
+std::optional<FreeTerm> single_letter_term(const TermWord& tw, FreeTerm& t, std::string& why) {
+  const LetterLaw l = law_of(tw.spec(0));
+  if (!l.law) {
+    why = l.reason;
+    return std::nullopt;
+  }
+  t.law = l.law;
+  t.text = tw.text + " → " + l.name +
+           (semicircular(tw.spec(0).kind)           ? " (Wigner 1955)"
+            : marchenko_pastur_kind(tw.spec(0).kind) ? " (Marchenko & Pastur 1967)"
+                                                    : "");
+  tw.use(t, tw.w[0].first);
+  return t;
+}
+
+// U X U^* or U^* X U: a free copy of X's law.
+std::optional<FreeTerm> conjugated_letter_term(const TermWord& tw, FreeTerm& t, std::string& why) {
+  const LetterLaw l = law_of(tw.spec(1));
+  if (!l.law) {
+    why = l.reason;
+    return std::nullopt;
+  }
+  t.law = l.law;
+  t.text = tw.text + " → free copy of " + tw.spec(1).name + " (" + l.name + "; Voiculescu 1991)";
+  t.random_letters.insert(tw.w[0].first);
+  if (declarations::is_random(tw.spec(1).kind)) t.random_letters.insert(tw.w[1].first);
+  (tw.spec(0).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
+  return t;
+}
+
+// The laws of the two letters of a sandwich, or false with `why` set: both deterministic (when
+// `y_unrotated`: Y is not conjugated by a Haar unitary) are not free, and each needs a law.
+bool free_pair_laws(const std::string& text, const MatrixSpec& x, const MatrixSpec& y,
+                    bool y_unrotated, LetterLaw& lx, LetterLaw& ly, std::string& why) {
+  if (!declarations::is_random(x.kind) && !declarations::is_random(y.kind) && y_unrotated) {
+    why = "'" + text + "': two deterministic matrices are not free of each other";
+    return false;
+  }
+  lx = law_of(x);
+  ly = law_of(y);
+  if (!lx.law || !ly.law) {
+    why = !lx.law ? lx.reason : ly.reason;
+    return false;
+  }
+  return true;
+}
+
+// X Y X (`sandwich3`) or X U Y U^* X: law(X²) ⊠ law(Y) when Y ≥ 0.
+std::optional<FreeTerm> sandwich_term(const TermWord& tw, bool sandwich3, FreeTerm& t,
+                                      std::string& why) {
+  const std::string& text = tw.text;
+  const MatrixSpec& x = tw.spec(0);
+  const MatrixSpec& y = tw.spec(sandwich3 ? 1 : 2);
+  LetterLaw lx, ly;
+  if (!free_pair_laws(text, x, y, sandwich3, lx, ly, why)) return std::nullopt;
+  const LawPtr x2 = square_law(x, lx.law);
+  if (!x2) {
+    why = "'" + text + "': the law of " + x.name + "² has no closed form here";
+    return std::nullopt;
+  }
+  const Support sy = ly.law->support();
+  const double variance = semicircle_variance(x);
+  if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
+      sy.atoms.size() <= kMostCompoundPoissonJumps) {
+    // X semicircular of variance v: X Y X has free cumulants κ_n = vⁿ φ(Yⁿ), the free compound
+    // Poisson law of rate 1 with jumps v·Y (Nica & Speicher 2006, Prop. 12.18, from memory;
+    // tests/limits checks it against the exact moments). Y may take any sign here.
+    std::vector<Atom> jumps;
+    for (const Atom& a : sy.atoms) jumps.push_back({variance * a.value, a.mass});
+    t.law = free_compound_poisson(jumps);
+    t.text = text + " → free compound Poisson law with the jumps of " +
+             (variance == 1.0 ? "" : detail::format_number(variance) + "·") + y.name +
+             " (Nica & Speicher 2006)";
+  } else if (sy.lo < 0.0) {
+    why = "'" + text + "': the middle factor " + y.name +
+          " takes negative values, and the free multiplicative convolution needs a law on "
+          "[0, inf)" +
+          (variance > 0.0 ? " (with a semicircular " + x.name + ", " + y.name +
+                                " needs at most " + std::to_string(kMostCompoundPoissonJumps) +
+                                " atoms and no continuous part)"
+                          : "") +
+          " (its exact moments are still reported)";
+    return std::nullopt;
+  } else {
+    t.law = free_multiplicative(x2, ly.law);
+    t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + ") (Voiculescu 1987)";
+  }
+  tw.use(t, tw.w[0].first);
+  if (sandwich3) {
+    tw.use(t, tw.w[1].first);
+  } else {
+    t.random_letters.insert(tw.w[1].first);
+    if (declarations::is_random(y.kind)) t.random_letters.insert(tw.w[2].first);
+    (tw.spec(1).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
+  }
+  return t;
+}
+
+// X Y Y X: law(X²) ⊠ law(Y²).
+std::optional<FreeTerm> gram_sandwich_term(const TermWord& tw, FreeTerm& t, std::string& why) {
+  const std::string& text = tw.text;
+  const MatrixSpec& x = tw.spec(0);
+  const MatrixSpec& y = tw.spec(1);
+  LetterLaw lx, ly;
+  if (!free_pair_laws(text, x, y, true, lx, ly, why)) return std::nullopt;
+  const LawPtr x2 = square_law(x, lx.law);
+  const LawPtr y2 = square_law(y, ly.law);
+  if (!x2 || !y2) {
+    why = "'" + text + "': the law of " + (!x2 ? x.name : y.name) + "² has no closed form here";
+    return std::nullopt;
+  }
+  t.law = free_multiplicative(x2, y2);
+  t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + "²) (Voiculescu 1987)";
+  tw.use(t, tw.w[0].first);
+  tw.use(t, tw.w[1].first);
+  return t;
+}
+
+// A monomial c·w as a free self-adjoint term, or nullopt with `why` set.
+std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<MatrixSpec>& d,
+                            std::string& why) {
+  const TermWord tw{w, d, word_text(w, d)};
+  const auto spec = [&](std::size_t k) -> const MatrixSpec& { return tw.spec(k); };
   FreeTerm t;
   t.coefficient = c;
   if (w.size() == 1 && declarations::is_self_adjoint(spec(0).kind)) {
-    const LetterLaw l = law_of(spec(0));
-    if (!l.law) {
-      why = l.reason;
-      return std::nullopt;
-    }
-    t.law = l.law;
-    t.text = text + " → " + l.name +
-             (semicircular(spec(0).kind)           ? " (Wigner 1955)"
-              : marchenko_pastur_kind(spec(0).kind) ? " (Marchenko & Pastur 1967)"
-                                                   : "");
-    use(t, w[0].first);
-    return t;
+    return single_letter_term(tw, t, why);
   }
   // U X U^* or U^* X U: a free copy of X's law.
   if (w.size() == 3 && declarations::is_unitary(spec(0).kind) && w[2].first == w[0].first &&
       w[0].second != w[2].second && declarations::is_self_adjoint(spec(1).kind)) {
-    const LetterLaw l = law_of(spec(1));
-    if (!l.law) {
-      why = l.reason;
-      return std::nullopt;
-    }
-    t.law = l.law;
-    t.text = text + " → free copy of " + spec(1).name + " (" + l.name + "; Voiculescu 1991)";
-    t.random_letters.insert(w[0].first);
-    if (declarations::is_random(spec(1).kind)) t.random_letters.insert(w[1].first);
-    (spec(0).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
-    return t;
+    return conjugated_letter_term(tw, t, why);
   }
-  // The laws of the two letters of a sandwich, or false with `why` set: both deterministic (when
-  // `y_unrotated`: Y is not conjugated by a Haar unitary) are not free, and each needs a law.
-  const auto free_pair_laws = [&](const MatrixSpec& x, const MatrixSpec& y, bool y_unrotated,
-                                  LetterLaw& lx, LetterLaw& ly) {
-    if (!declarations::is_random(x.kind) && !declarations::is_random(y.kind) && y_unrotated) {
-      why = "'" + text + "': two deterministic matrices are not free of each other";
-      return false;
-    }
-    lx = law_of(x);
-    ly = law_of(y);
-    if (!lx.law || !ly.law) {
-      why = !lx.law ? lx.reason : ly.reason;
-      return false;
-    }
-    return true;
-  };
   // X Y X (or X U Y U^* X): law(X²) ⊠ law(Y) when Y ≥ 0.
   const bool sandwich3 = w.size() == 3 && w[0].first == w[2].first && w[0].first != w[1].first &&
                          declarations::is_self_adjoint(spec(0).kind) &&
@@ -201,77 +292,15 @@ std::optional<FreeTerm> term_of(double c, const Letters& w, const std::vector<Ma
                          declarations::is_self_adjoint(spec(0).kind) &&
                          declarations::is_unitary(spec(1).kind) && w[3].first == w[1].first &&
                          w[1].second != w[3].second && declarations::is_self_adjoint(spec(2).kind);
-  if (sandwich3 || sandwich5) {
-    const MatrixSpec& x = spec(0);
-    const MatrixSpec& y = spec(sandwich3 ? 1 : 2);
-    LetterLaw lx, ly;
-    if (!free_pair_laws(x, y, sandwich3, lx, ly)) return std::nullopt;
-    const LawPtr x2 = square_law(x, lx.law);
-    if (!x2) {
-      why = "'" + text + "': the law of " + x.name + "² has no closed form here";
-      return std::nullopt;
-    }
-    const Support sy = ly.law->support();
-    const double variance = semicircle_variance(x);
-    if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
-        sy.atoms.size() <= kMostCompoundPoissonJumps) {
-      // X semicircular of variance v: X Y X has free cumulants κ_n = vⁿ φ(Yⁿ), the free compound
-      // Poisson law of rate 1 with jumps v·Y (Nica & Speicher 2006, Prop. 12.18, from memory;
-      // tests/limits checks it against the exact moments). Y may take any sign here.
-      std::vector<Atom> jumps;
-      for (const Atom& a : sy.atoms) jumps.push_back({variance * a.value, a.mass});
-      t.law = free_compound_poisson(jumps);
-      t.text = text + " → free compound Poisson law with the jumps of " +
-               (variance == 1.0 ? "" : detail::format_number(variance) + "·") + y.name +
-               " (Nica & Speicher 2006)";
-    } else if (sy.lo < 0.0) {
-      why = "'" + text + "': the middle factor " + y.name +
-            " takes negative values, and the free multiplicative convolution needs a law on "
-            "[0, inf)" +
-            (variance > 0.0 ? " (with a semicircular " + x.name + ", " + y.name +
-                                  " needs at most " + std::to_string(kMostCompoundPoissonJumps) +
-                                  " atoms and no continuous part)"
-                            : "") +
-            " (its exact moments are still reported)";
-      return std::nullopt;
-    } else {
-      t.law = free_multiplicative(x2, ly.law);
-      t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + ") (Voiculescu 1987)";
-    }
-    use(t, w[0].first);
-    if (sandwich3) {
-      use(t, w[1].first);
-    } else {
-      t.random_letters.insert(w[1].first);
-      if (declarations::is_random(y.kind)) t.random_letters.insert(w[2].first);
-      (spec(1).kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
-    }
-    return t;
-  }
+  if (sandwich3 || sandwich5) return sandwich_term(tw, sandwich3, t, why);
   // X Y Y X (the Gram matrix of Y X, e.g. the singular values of X1 X2): law(X²) ⊠ law(Y²), both
   // on [0, inf). Its moments are those of X² Y² by cyclicity of the trace, and X², Y² are free
   // and positive (Voiculescu 1987).
   const bool sandwich4 = w.size() == 4 && w[0].first == w[3].first && w[1].first == w[2].first &&
                          w[0].first != w[1].first && declarations::is_self_adjoint(spec(0).kind) &&
                          declarations::is_self_adjoint(spec(1).kind);
-  if (sandwich4) {
-    const MatrixSpec& x = spec(0);
-    const MatrixSpec& y = spec(1);
-    LetterLaw lx, ly;
-    if (!free_pair_laws(x, y, true, lx, ly)) return std::nullopt;
-    const LawPtr x2 = square_law(x, lx.law);
-    const LawPtr y2 = square_law(y, ly.law);
-    if (!x2 || !y2) {
-      why = "'" + text + "': the law of " + (!x2 ? x.name : y.name) + "² has no closed form here";
-      return std::nullopt;
-    }
-    t.law = free_multiplicative(x2, y2);
-    t.text = text + " → law(" + x.name + "²) ⊠ law(" + y.name + "²) (Voiculescu 1987)";
-    use(t, w[0].first);
-    use(t, w[1].first);
-    return t;
-  }
-  why = "no rule covers the term '" + text + "'";
+  if (sandwich4) return gram_sandwich_term(tw, t, why);
+  why = "no rule covers the term '" + tw.text + "'";
   return std::nullopt;
 }
 
@@ -345,11 +374,9 @@ static std::optional<std::pair<PowerOf, int>> power_of(const Letters& w,
   return std::make_pair(key, static_cast<int>(end - begin));
 }
 
-static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_moment) {
-  DerivedLimit out;
-  const auto& d = expression.declared();
-  const bool eigenvalues = expression.spectrum() == expr::Spectrum::eigenvalues;
-
+// The exact moments of an eigenvalue model into `out` (or why there are none in moments_note).
+static void exact_moments_into(const expr::Expression& expression, int max_moment,
+                               bool eigenvalues, DerivedLimit& out) {
   // Exact moments first: they stand on their own, whatever the rules say.
   if (eigenvalues) {
     try {
@@ -365,63 +392,55 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
   } else {
     out.moments_note = "exact moments are computed for eigenvalues only (this model's spectrum is its singular values)";
   }
+}
 
-  std::vector<expr::Monomial> terms;
-  try {
-    terms = expression.expansion(10000);
-  } catch (const Stopped&) {
-    throw;  // a stop request ends the command, it is not a reason
-  } catch (const Error& e) {
-    out.reason = std::string("the expression's expansion is too large for the rules: ") + e.what();
-    return out;
-  }
-  if (!eigenvalues) {
-    if (expression.self_adjoint()) {
-      out.reason = "singular values of a self-adjoint expression (forced) are not predicted; use eigenvalues";
-      return out;
-    }
-    out.reason = ginibre_singular_values(terms, d, out);
-    if (!out.reason.empty()) out.reason = "no predictor applies yet: " + out.reason;
-    return out;
-  }
-
-  // Powers of one matrix, gathered per base: a base with a power ≥ 2 becomes one term p(X).
-  std::map<PowerOf, std::map<int, double>> polynomial_terms;
-  for (const auto& m : terms) {
-    if (const auto p = power_of(m.letters, d)) polynomial_terms[p->first][p->second] += m.coefficient;
-  }
-  std::erase_if(polynomial_terms, [](const auto& entry) { return entry.second.rbegin()->first < 2; });
-
-  // Split into the constant, the U + U^* pairs and the other terms.
+// The terms of an expansion sorted for the rules: the constant, the U + U^* pairs and the others.
+struct SplitTerms {
   double shift = 0.0;
   std::vector<FreeTerm> free_terms;
   std::map<int, std::vector<const expr::Monomial*>> single_unitary;  // letter → its monomials
+};
+
+// Splits `terms` into `split`, leaving out the powers gathered in `polynomial_terms`; false with
+// out.reason set when a term has no rule.
+static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vector<MatrixSpec>& d,
+                        const std::map<PowerOf, std::map<int, double>>& polynomial_terms,
+                        SplitTerms& split, DerivedLimit& out) {
   for (const auto& m : terms) {
     if (m.letters.empty()) {
-      shift += m.coefficient;
+      split.shift += m.coefficient;
       continue;
     }
     if (const auto p = power_of(m.letters, d); p && polynomial_terms.count(p->first)) continue;
     if (m.letters.size() == 1 && declarations::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind)) {
-      single_unitary[m.letters[0].first].push_back(&m);
+      split.single_unitary[m.letters[0].first].push_back(&m);
       continue;
     }
     std::string why;
     auto t = term_of(m.coefficient, m.letters, d, why);
     if (!t) {
       out.reason = "no predictor applies yet: " + why;
-      return out;
+      return false;
     }
-    free_terms.push_back(std::move(*t));
+    split.free_terms.push_back(std::move(*t));
   }
+  return true;
+}
+
+// Adds one free term p(X) per base of `polynomial_terms`; false with out.reason set when X has
+// no law.
+static bool add_polynomial_terms(const std::map<PowerOf, std::map<int, double>>& polynomial_terms,
+                                 const std::vector<MatrixSpec>& d, SplitTerms& split,
+                                 DerivedLimit& out) {
+  double& shift = split.shift;
   const bool polynomial_alone =
-      polynomial_terms.size() == 1 && free_terms.empty() && single_unitary.empty();
+      polynomial_terms.size() == 1 && split.free_terms.empty() && split.single_unitary.empty();
   for (const auto& [key, coefficients] : polynomial_terms) {
     const MatrixSpec& x = d[static_cast<std::size_t>(key.letter)];
     const LetterLaw l = law_of(x);
     if (!l.law) {
       out.reason = "no predictor applies yet: " + l.reason;
-      return out;
+      return false;
     }
     std::vector<double> c(static_cast<std::size_t>(coefficients.rbegin()->first) + 1, 0.0);
     for (const auto& [power, coefficient] : coefficients) c[static_cast<std::size_t>(power)] = coefficient;
@@ -446,15 +465,22 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
       (d[static_cast<std::size_t>(key.unitary)].kind == Kind::haar_orthogonal ? t.haar_orthogonal
                                                                               : t.haar_unitary) = true;
     }
-    free_terms.push_back(std::move(t));
+    split.free_terms.push_back(std::move(t));
   }
-  for (const auto& [letter, ms] : single_unitary) {
+  return true;
+}
+
+// Adds one free term U + U^* per Haar matrix that appears alone; false with out.reason set when
+// it does not appear as such a pair.
+static bool add_unitary_pairs(const std::vector<MatrixSpec>& d, SplitTerms& split,
+                              DerivedLimit& out) {
+  for (const auto& [letter, ms] : split.single_unitary) {
     const MatrixSpec& u = d[static_cast<std::size_t>(letter)];
     if (ms.size() != 2 || ms[0]->coefficient != ms[1]->coefficient ||
         ms[0]->letters[0].second == ms[1]->letters[0].second) {
       out.reason = "no predictor applies yet: " + u.name + " appears alone, not as " + u.name +
                    " + " + u.name + "^*";
-      return out;
+      return false;
     }
     FreeTerm t;
     t.law = arcsine();
@@ -463,14 +489,14 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
     t.random_letters.insert(letter);
     t.unitary_pair = true;
     (u.kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
-    free_terms.push_back(std::move(t));
+    split.free_terms.push_back(std::move(t));
   }
-  if (free_terms.empty()) {
-    out.law = atoms({{shift, 1.0}});
-    out.rule = "a multiple of the identity";
-    return out;
-  }
+  return true;
+}
 
+// Whether the terms are free of each other; false with out.reason set when they are not.
+static bool terms_are_free(const std::vector<FreeTerm>& free_terms,
+                           const std::vector<MatrixSpec>& d, DerivedLimit& out) {
   // Freeness: random matrices and unitaries in one term only; a deterministic matrix
   // unconjugated in one term only.
   std::map<int, int> random_owner;
@@ -480,7 +506,7 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
       if (random_owner.count(l)) {
         out.reason = "no predictor applies yet: " + d[static_cast<std::size_t>(l)].name +
                      " appears in more than one term, so the terms are not free of each other";
-        return out;
+        return false;
       }
       random_owner[l] = static_cast<int>(i);
     }
@@ -493,16 +519,21 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
       if (fixed_owner.at(l) != static_cast<int>(i)) {
         out.reason = "no predictor applies yet: " + d[static_cast<std::size_t>(l)].name +
                      " appears unconjugated in more than one term";
-        return out;
+        return false;
       }
     }
   }
   if (fixed_terms.size() > 1) {
     out.reason = "no predictor applies yet: two terms hold deterministic matrices without a Haar "
                  "conjugation, and commuting matrices are not free";
-    return out;
+    return false;
   }
+  return true;
+}
 
+// The law of the sum of the free terms shifted by `shift`, and its rule, into `out`.
+static void combine_free_terms(const std::vector<FreeTerm>& free_terms, double shift,
+                               DerivedLimit& out) {
   // Kesten–McKay: every term is U_i + U_i^* with coefficient 1.
   const bool all_pairs = std::all_of(free_terms.begin(), free_terms.end(), [](const FreeTerm& t) {
     return t.unitary_pair && t.coefficient == 1.0;
@@ -538,7 +569,11 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
   }
   out.law = law;
   out.rule = rule;
+}
 
+// Sets out.rate_key for a model of the published-rate table.
+static void set_rate_key(const std::vector<FreeTerm>& free_terms,
+                         const std::vector<MatrixSpec>& d, DerivedLimit& out) {
   // The published-rate key of the model, when it is one the table knows.
   if (free_terms.size() == 1 && !free_terms[0].unitary_pair && !free_terms[0].polynomial &&
       free_terms[0].random_letters.size() == 1 &&
@@ -562,6 +597,54 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_
                                   [](const FreeTerm& t) { return t.haar_orthogonal; });
     out.rate_key = orth ? "haar_orthogonal_sum" : "haar_unitary_sum";
   }
+}
+
+static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_moment) {
+  DerivedLimit out;
+  const auto& d = expression.declared();
+  const bool eigenvalues = expression.spectrum() == expr::Spectrum::eigenvalues;
+  exact_moments_into(expression, max_moment, eigenvalues, out);
+
+  std::vector<expr::Monomial> terms;
+  try {
+    terms = expression.expansion(10000);
+  } catch (const Stopped&) {
+    throw;  // a stop request ends the command, it is not a reason
+  } catch (const Error& e) {
+    out.reason = std::string("the expression's expansion is too large for the rules: ") + e.what();
+    return out;
+  }
+  if (!eigenvalues) {
+    if (expression.self_adjoint()) {
+      out.reason = "singular values of a self-adjoint expression (forced) are not predicted; use eigenvalues";
+      return out;
+    }
+    out.reason = ginibre_singular_values(terms, d, out);
+    if (!out.reason.empty()) out.reason = "no predictor applies yet: " + out.reason;
+    return out;
+  }
+
+  // Powers of one matrix, gathered per base: a base with a power ≥ 2 becomes one term p(X).
+  std::map<PowerOf, std::map<int, double>> polynomial_terms;
+  for (const auto& m : terms) {
+    if (const auto p = power_of(m.letters, d)) polynomial_terms[p->first][p->second] += m.coefficient;
+  }
+  std::erase_if(polynomial_terms, [](const auto& entry) { return entry.second.rbegin()->first < 2; });
+
+  // Split into the constant, the U + U^* pairs and the other terms.
+  SplitTerms split;
+  if (!split_terms(terms, d, polynomial_terms, split, out)) return out;
+  if (!add_polynomial_terms(polynomial_terms, d, split, out)) return out;
+  if (!add_unitary_pairs(d, split, out)) return out;
+  const std::vector<FreeTerm>& free_terms = split.free_terms;
+  if (free_terms.empty()) {
+    out.law = atoms({{split.shift, 1.0}});
+    out.rule = "a multiple of the identity";
+    return out;
+  }
+  if (!terms_are_free(free_terms, d, out)) return out;
+  combine_free_terms(free_terms, split.shift, out);
+  set_rate_key(free_terms, d, out);
   return out;
 }
 

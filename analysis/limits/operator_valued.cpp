@@ -22,6 +22,35 @@ double max_abs(const Matrix& m) { return m.cwiseAbs().maxCoeff(); }
 
 Matrix inverse(const Matrix& m) { return m.partialPivLu().inverse(); }
 
+// The analytic Jacobian at G of the residual (β − η(G))G − I of semicircular letters only, into
+// J (n² × n²), given A = β − η(G).
+void semicircular_jacobian(const Matrix& G, const Matrix& A,
+                           const std::vector<Matrix>& semicircular, int n, Matrix& J) {
+  J.setZero();
+  for (int c = 0; c < n; ++c) J.block(c * n, c * n, n, n) = A;
+  for (const auto& b : semicircular) {
+    const Matrix X = (b * G).transpose();
+    for (int r1 = 0; r1 < n; ++r1) {
+      for (int c1 = 0; c1 < n; ++c1) {
+        if (X(r1, c1) != 0.0) J.block(r1 * n, c1 * n, n, n) -= X(r1, c1) * b;
+      }
+    }
+  }
+}
+
+// The forward-difference Jacobian of `residual_at` at y (whose residual is r), into J.
+template <class Residual>
+void forward_difference_jacobian(const Eigen::VectorXcd& y, const Eigen::VectorXcd& r,
+                                 const Residual& residual_at, Matrix& J) {
+  for (Eigen::Index k = 0; k < y.size(); ++k) {
+    check_stop();
+    const double h = 1e-7 * (1.0 + std::abs(y(k)));
+    Eigen::VectorXcd yk = y;
+    yk(k) += h;
+    J.col(k) = (residual_at(yk) - r) / h;
+  }
+}
+
 }  // namespace
 
 OperatorValuedSolver::OperatorValuedSolver(const Pencil& pencil,
@@ -226,27 +255,10 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
       // Analytic: d[(β − η(G))G][Δ] = (β − η(G))Δ − η(Δ)G, and vec(Y Δ X) = (Xᵀ ⊗ Y) vec Δ.
       const Matrix G = Eigen::Map<const Matrix>(y.data(), n_, n_);
       const Matrix A = beta - eta(G);
-      J.setZero();
-      for (int c = 0; c < n_; ++c) J.block(c * n_, c * n_, n_, n_) = A;
-      for (const auto& b : semicircular_) {
-        const Matrix X = (b * G).transpose();
-        for (int r1 = 0; r1 < n_; ++r1) {
-          for (int c1 = 0; c1 < n_; ++c1) {
-            if (X(r1, c1) != 0.0) J.block(r1 * n_, c1 * n_, n_, n_) -= X(r1, c1) * b;
-          }
-        }
-      }
-      lu.compute(J);
-      fresh = true;
-      have = true;
-      return;
-    }
-    for (Eigen::Index k = 0; k < D; ++k) {
-      check_stop();
-      const double h = 1e-7 * (1.0 + std::abs(y(k)));
-      Eigen::VectorXcd yk = y;
-      yk(k) += h;
-      J.col(k) = (residual(beta, yk) - r) / h;
+      semicircular_jacobian(G, A, semicircular_, n_, J);
+    } else {
+      const auto residual_at = [&](const Eigen::VectorXcd& yk) { return residual(beta, yk); };
+      forward_difference_jacobian(y, r, residual_at, J);
     }
     lu.compute(J);
     fresh = true;

@@ -90,22 +90,17 @@ std::string word_text(const std::vector<int>& w) {
   return s;
 }
 
-}  // namespace
+// How a Haar unitary appears: U D^k U^* (or U^* D^k U) with one D.
+struct Conjugation {
+  bool adjoint_first = false;  // U^* D U
+  int inner = -1;
+};
 
-FreePolynomial free_polynomial_of(const expr::Expression& expression) {
-  if (!expression.self_adjoint()) {
-    throw InputError("expression '" + expression.text() +
-                     "' is not proven self-adjoint: the polynomial limit needs a self-adjoint "
-                     "expression (add its adjoint, e.g. 'A B + B A')");
-  }
-  const auto& declared = expression.declared();
-  const auto monomials = expression.expansion();
-
+// The conjugation of each Haar unitary of the monomials (InputError when one is not of that form).
+std::map<int, Conjugation> conjugations_of(const expr::Expression& expression,
+                                           const std::vector<declarations::MatrixSpec>& declared,
+                                           const std::vector<expr::Monomial>& monomials) {
   // Haar unitaries: each must appear only as U D^k U^* (or only as U^* D^k U) with one D.
-  struct Conjugation {
-    bool adjoint_first = false;  // U^* D U
-    int inner = -1;
-  };
   std::map<int, Conjugation> conjugations;
   for (const auto& m : monomials) {
     const auto& ls = m.letters;
@@ -138,54 +133,88 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
       p = q;
     }
   }
+  return conjugations;
+}
 
-  // Letter indices: declared self-adjoint matrices that appear bare, then one per conjugation.
+// The free letters handed out so far: declared self-adjoint matrices that appear bare, then one
+// per conjugation.
+struct LetterIndices {
   std::map<int, int> bare_index;
   std::map<int, int> conjugated_index;  // unitary → letter
+  std::optional<int> diagonal_seen;
+};
+
+// The word of free letters of one monomial; adds each new letter to result.letters.
+std::vector<int> free_word_of(const expr::Monomial& m, const expr::Expression& expression,
+                              const std::vector<declarations::MatrixSpec>& declared,
+                              const std::map<int, Conjugation>& conjugations,
+                              LetterIndices& indices, FreePolynomial& result) {
+  std::map<int, int>& bare_index = indices.bare_index;
+  std::map<int, int>& conjugated_index = indices.conjugated_index;
+  std::optional<int>& diagonal_seen = indices.diagonal_seen;
+  const auto& ls = m.letters;
+  std::vector<int> word;
+  for (std::size_t p = 0; p < ls.size(); ++p) {
+    const int v = ls[p].first;
+    if (declarations::is_unitary(declared[v].kind)) {
+      auto it = conjugated_index.find(v);
+      if (it == conjugated_index.end()) {
+        const auto& c = conjugations.at(v);
+        const std::string& u = declared[v].name;
+        const std::string& d = declared[c.inner].name;
+        const std::string name =
+            c.adjoint_first ? u + "^* " + d + " " + u : u + " " + d + " " + u + "^*";
+        result.letters.push_back(letter_for(declared[c.inner], name));
+        it = conjugated_index.emplace(v, static_cast<int>(result.letters.size()) - 1).first;
+      }
+      std::size_t q = p + 1;
+      while (ls[q].first != v) ++q;
+      for (std::size_t r = p + 1; r < q; ++r) word.push_back(it->second);
+      p = q;
+      continue;
+    }
+    auto it = bare_index.find(v);
+    if (it == bare_index.end()) {
+      if (declared[v].kind == Kind::diagonal) {
+        if (diagonal_seen && *diagonal_seen != v) {
+          throw InputError("matrices '" + declared[*diagonal_seen].name + "' and '" +
+                           declared[v].name + "' in '" + expression.text() +
+                           "': two deterministic diagonal matrices commute, so they are not "
+                           "free and the polynomial limit does not cover them together "
+                           "(conjugate one by a Haar unitary, U D U^*, to make it free)");
+        }
+        diagonal_seen = v;
+      }
+      result.letters.push_back(letter_for(declared[v], declared[v].name));
+      it = bare_index.emplace(v, static_cast<int>(result.letters.size()) - 1).first;
+    }
+    word.push_back(it->second);
+  }
+  return word;
+}
+
+}  // namespace
+
+FreePolynomial free_polynomial_of(const expr::Expression& expression) {
+  if (!expression.self_adjoint()) {
+    throw InputError("expression '" + expression.text() +
+                     "' is not proven self-adjoint: the polynomial limit needs a self-adjoint "
+                     "expression (add its adjoint, e.g. 'A B + B A')");
+  }
+  const auto& declared = expression.declared();
+  const auto monomials = expression.expansion();
+  const std::map<int, Conjugation> conjugations =
+      conjugations_of(expression, declared, monomials);
+
+  // Letter indices: declared self-adjoint matrices that appear bare, then one per conjugation.
+  LetterIndices indices;
   FreePolynomial result;
   result.text = expression.text();
   std::map<std::string, double> merged;  // word key → coefficient
   std::map<std::string, std::vector<int>> words;
-  std::optional<int> diagonal_seen;
   for (const auto& m : monomials) {
-    const auto& ls = m.letters;
-    std::vector<int> word;
-    for (std::size_t p = 0; p < ls.size(); ++p) {
-      const int v = ls[p].first;
-      if (declarations::is_unitary(declared[v].kind)) {
-        auto it = conjugated_index.find(v);
-        if (it == conjugated_index.end()) {
-          const auto& c = conjugations.at(v);
-          const std::string& u = declared[v].name;
-          const std::string& d = declared[c.inner].name;
-          const std::string name =
-              c.adjoint_first ? u + "^* " + d + " " + u : u + " " + d + " " + u + "^*";
-          result.letters.push_back(letter_for(declared[c.inner], name));
-          it = conjugated_index.emplace(v, static_cast<int>(result.letters.size()) - 1).first;
-        }
-        std::size_t q = p + 1;
-        while (ls[q].first != v) ++q;
-        for (std::size_t r = p + 1; r < q; ++r) word.push_back(it->second);
-        p = q;
-        continue;
-      }
-      auto it = bare_index.find(v);
-      if (it == bare_index.end()) {
-        if (declared[v].kind == Kind::diagonal) {
-          if (diagonal_seen && *diagonal_seen != v) {
-            throw InputError("matrices '" + declared[*diagonal_seen].name + "' and '" +
-                             declared[v].name + "' in '" + expression.text() +
-                             "': two deterministic diagonal matrices commute, so they are not "
-                             "free and the polynomial limit does not cover them together "
-                             "(conjugate one by a Haar unitary, U D U^*, to make it free)");
-          }
-          diagonal_seen = v;
-        }
-        result.letters.push_back(letter_for(declared[v], declared[v].name));
-        it = bare_index.emplace(v, static_cast<int>(result.letters.size()) - 1).first;
-      }
-      word.push_back(it->second);
-    }
+    const std::vector<int> word =
+        free_word_of(m, expression, declared, conjugations, indices, result);
     const std::string key = word_text(word);
     merged[key] += m.coefficient;
     words[key] = word;
