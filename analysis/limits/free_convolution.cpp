@@ -10,6 +10,7 @@
 #include <sstream>
 
 #include "freegap/errors.hpp"
+#include "freegap/text.hpp"
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
@@ -123,8 +124,8 @@ SubordinationPoint fixed_point(const Map& map, cd w0, const cd* start, bool cold
   }
   if (!converged) {
     throw NumericalError(std::string(who) +
-                         ": subordination did not converge at z = " + detail::format_number(z.real()) +
-                         (z.imag() >= 0 ? "+" : "") + detail::format_number(z.imag()) + "i");
+                         ": subordination did not converge at z = " + text::readable(z.real()) +
+                         (z.imag() >= 0 ? "+" : "") + text::readable(z.imag()) + "i");
   }
   out.omega1 = w;
   out.newton_steps = steps;
@@ -405,7 +406,7 @@ std::vector<double> moments_from_free_cumulants(std::span<const double> cumulant
 // -------------------------------------------------------------------------- SubordinatedLaw
 cd SubordinatedLaw::atom_cauchy(cd z) const {
   cd sum = 0.0;
-  for (const Atom& a : support_.atoms) sum += a.mass / (z - a.value);
+  for (const Atom& a : support_.atoms) sum += a.weight / (z - a.value);
   return sum;
 }
 
@@ -458,9 +459,9 @@ SubordinationPoint SubordinatedLaw::solve_robust(cd z, const cd* start) const {
           }
         }
         throw NumericalError(describe() + ": subordination did not converge at z = " +
-                             detail::format_number(z.real()) + "+" +
-                             detail::format_number(z.imag()) + "i (continuation stalled at " +
-                             detail::format_number(height) + "i)");
+                             text::readable(z.real()) + "+" +
+                             text::readable(z.imag()) + "i (continuation stalled at " +
+                             text::readable(height) + "i)");
       }
     }
   }
@@ -1101,7 +1102,7 @@ double SubordinatedLaw::cdf(double x) const {
   if (!table_error_.empty()) throw NumericalError(table_error_);
   double total = 0.0;
   for (const Atom& a : support_.atoms) {
-    if (a.value <= x) total += a.mass;
+    if (a.value <= x) total += a.weight;
   }
   for (const BandTable& t : tables_) {
     if (t.cumulative.empty() || x <= t.lo) continue;
@@ -1122,7 +1123,7 @@ std::vector<double> FreeAdditiveConvolution::interior_singular_points() const {
   std::vector<double> out;
   for (const Atom& a : mu_->support().atoms) {
     for (const Atom& b : nu_->support().atoms) {
-      if (std::abs(a.mass + b.mass - 1.0) <= 1e-12) out.push_back(a.value + b.value);
+      if (std::abs(a.weight + b.weight - 1.0) <= 1e-12) out.push_back(a.value + b.value);
     }
   }
   return out;
@@ -1136,8 +1137,8 @@ FreeAdditiveConvolution::FreeAdditiveConvolution(LawPtr mu, LawPtr nu, Subordina
   // Atoms: (μ⊞ν)({a+b}) = max(0, μ({a}) + ν({b}) − 1) (Bercovici & Voiculescu 1998, from memory).
   for (const Atom& a : sm.atoms) {
     for (const Atom& b : sn.atoms) {
-      if (a.mass + b.mass > 1.0 + 1e-15)
-        support_.atoms.push_back({a.value + b.value, a.mass + b.mass - 1.0});
+      if (a.weight + b.weight > 1.0 + 1e-15)
+        support_.atoms.push_back({a.value + b.value, a.weight + b.weight - 1.0});
     }
   }
   epsilon_abs_ = options_.epsilon * std::max(1.0, (sm.hi - sm.lo) + (sn.hi - sn.lo));
@@ -1153,7 +1154,7 @@ void SubordinatedLaw::finish_support() {
   std::sort(support_.atoms.begin(), support_.atoms.end(),
             [](const Atom& l, const Atom& r) { return l.value < r.value; });
   double atom_mass = 0.0;
-  for (const Atom& a : support_.atoms) atom_mass += a.mass;
+  for (const Atom& a : support_.atoms) atom_mass += a.weight;
   if (atom_mass >= 1.0 - 1e-12) continuous_lo_ = continuous_hi_ = support_.atoms.front().value;
   support_.lo = continuous_lo_;
   support_.hi = continuous_hi_;
@@ -1295,8 +1296,8 @@ FreeMultiplicativeConvolution::FreeMultiplicativeConvolution(LawPtr mu, LawPtr n
   if (zero > 0.0) support_.atoms.push_back({0.0, zero});
   for (const Atom& a : sm.atoms) {
     for (const Atom& b : sn.atoms) {
-      if (a.value != 0.0 && b.value != 0.0 && a.mass + b.mass > 1.0 + 1e-15) {
-        support_.atoms.push_back({a.value * b.value, a.mass + b.mass - 1.0});
+      if (a.value != 0.0 && b.value != 0.0 && a.weight + b.weight > 1.0 + 1e-15) {
+        support_.atoms.push_back({a.value * b.value, a.weight + b.weight - 1.0});
       }
     }
   }
@@ -1443,7 +1444,7 @@ std::shared_ptr<const FreeMultiplicativeConvolution> free_multiplicative(
     if (s.lo < 0.0) {
       throw InputError(std::string("free_multiplicative: the ") + which + " law " +
                        law->describe() + " must lie on [0, inf) (its support starts at " +
-                       detail::format_number(s.lo) + ")");
+                       text::readable(s.lo) + ")");
     }
   }
   if (!(options.epsilon > 0.0)) throw InputError("free_multiplicative: epsilon must be > 0");
@@ -1456,17 +1457,17 @@ LawPtr free_compound_poisson(const std::vector<Atom>& jumps, SubordinationOption
   std::vector<LawPtr> parts;
   double total = 0.0;
   for (const Atom& a : jumps) {
-    if (!(a.mass >= 0.0) || !std::isfinite(a.value)) {
+    if (!(a.weight >= 0.0) || !std::isfinite(a.value)) {
       throw InputError("free_compound_poisson: a jump needs a finite value and a weight >= 0");
     }
-    total += a.mass;
-    if (a.value != 0.0 && a.mass > 0.0) {
-      parts.push_back(affine(marchenko_pastur(1.0 / a.mass), a.value * a.mass, 0.0));
+    total += a.weight;
+    if (a.value != 0.0 && a.weight > 0.0) {
+      parts.push_back(affine(marchenko_pastur(1.0 / a.weight), a.value * a.weight, 0.0));
     }
   }
   if (total > 1.0 + 1e-12) {
     throw InputError("free_compound_poisson: the jump weights sum to " +
-                     detail::format_number(total) + ", more than the rate 1");
+                     text::readable(total) + ", more than the rate 1");
   }
   if (parts.empty()) return atoms({{0.0, 1.0}});
   // Folded as a balanced tree, so that k parts nest only ⌈log₂ k⌉ subordinations deep.

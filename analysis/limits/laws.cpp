@@ -8,6 +8,7 @@
 #include <sstream>
 
 #include "freegap/errors.hpp"
+#include "freegap/text.hpp"
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
@@ -61,7 +62,7 @@ class Semicircle final : public Law {
     return m;
   }
   Support support() const override { return {-r_, r_, {}, {{-r_, r_}}}; }
-  std::string describe() const override { return "semicircle(variance=" + detail::format_number(v_) + ")"; }
+  std::string describe() const override { return "semicircle(variance=" + text::readable(v_) + ")"; }
 
  private:
   double v_;
@@ -111,7 +112,7 @@ class MarchenkoPastur final : public Law {
     if (c_ > 1.0) return {0.0, b_, {{0.0, 1.0 - 1.0 / c_}}, {{a_, b_}}};
     return {a_, b_, {}, {{a_, b_}}};
   }
-  std::string describe() const override { return "marchenko_pastur(ratio=" + detail::format_number(c_) + ")"; }
+  std::string describe() const override { return "marchenko_pastur(ratio=" + text::readable(c_) + ")"; }
 
  private:
   double c_;
@@ -209,12 +210,12 @@ class Atoms final : public Law {
       : points_(std::move(points)), name_(std::move(name)) {
     cumulative_.reserve(points_.size());
     double sum = 0.0;
-    for (const Atom& a : points_) cumulative_.push_back(sum += a.mass);
+    for (const Atom& a : points_) cumulative_.push_back(sum += a.weight);
     values_.reserve(points_.size());
     masses_.reserve(points_.size());
     for (const Atom& a : points_) {
       values_.push_back(a.value);
-      masses_.push_back(a.mass);
+      masses_.push_back(a.weight);
     }
   }
   double density(double) const override { return 0.0; }
@@ -249,7 +250,7 @@ class Atoms final : public Law {
     for (const Atom& a : points_) {
       const double dr = z.real() - a.value, di = z.imag();
       const double n = dr * dr + di * di;
-      const double s = a.mass / (n * n);
+      const double s = a.weight / (n * n);
       re -= (dr * dr - di * di) * s;
       im += 2.0 * dr * di * s;
     }
@@ -284,7 +285,7 @@ class Atoms final : public Law {
     check_moment_order(k);
     std::vector<double> m(k + 1, 0.0);
     for (const Atom& a : points_) {
-      double power = a.mass;
+      double power = a.weight;
       for (int n = 0; n <= k; ++n, power *= a.value) m[n] += power;
     }
     return m;
@@ -336,7 +337,7 @@ class Uniform final : public Law {
     return a_ + p * (b_ - a_);
   }
   std::string describe() const override {
-    return "uniform(" + detail::format_number(a_) + ", " + detail::format_number(b_) + ")";
+    return "uniform(" + text::readable(a_) + ", " + text::readable(b_) + ")";
   }
 
  private:
@@ -456,7 +457,7 @@ class FussCatalan final : public Law {
         if (!ok) next = 0.5 * (y + next);
       }
       if (!ok)
-        throw NumericalError("fuss_catalan: root continuation failed at z = " + detail::format_number(z.real()));
+        throw NumericalError("fuss_catalan: root continuation failed at z = " + text::readable(z.real()));
       w = candidate;
       y = next;
     }
@@ -569,7 +570,7 @@ class Affine final : public Law {
     Support out;
     out.lo = std::min(a_ * inner.lo, a_ * inner.hi) + b_;
     out.hi = std::max(a_ * inner.lo, a_ * inner.hi) + b_;
-    for (const Atom& atom : inner.atoms) out.atoms.push_back({a_ * atom.value + b_, atom.mass});
+    for (const Atom& atom : inner.atoms) out.atoms.push_back({a_ * atom.value + b_, atom.weight});
     std::sort(out.atoms.begin(), out.atoms.end(),
               [](const Atom& l, const Atom& r) { return l.value < r.value; });
     for (const Interval& band : inner.bands) {
@@ -590,10 +591,10 @@ class Affine final : public Law {
     if (a_ == -1.0) {
       out = "−(" + out + ")";
     } else if (a_ != 1.0) {
-      out = detail::format_number(a_) + "·(" + out + ")";
+      out = text::readable(a_) + "·(" + out + ")";
     }
-    if (b_ > 0.0) out += " + " + detail::format_number(b_);
-    if (b_ < 0.0) out += " − " + detail::format_number(-b_);
+    if (b_ > 0.0) out += " + " + text::readable(b_);
+    if (b_ < 0.0) out += " − " + text::readable(-b_);
     return out;
   }
   bool radial() const override { return law_->radial(); }
@@ -612,7 +613,7 @@ class SquareRoot final : public Law {
   explicit SquareRoot(LawPtr law) : law_(std::move(law)), inner_(law_->support()) {
     lo_ = std::sqrt(std::max(inner_.lo, 0.0));
     hi_ = std::sqrt(std::max(inner_.hi, 0.0));
-    for (const Atom& a : inner_.atoms) atom_mass_ += a.mass;
+    for (const Atom& a : inner_.atoms) atom_mass_ += a.weight;
   }
   double density(double t) const override {
     return t <= 0.0 ? 0.0 : 2.0 * t * law_->density(t * t);
@@ -620,7 +621,7 @@ class SquareRoot final : public Law {
   double cdf(double t) const override { return t < 0.0 ? 0.0 : law_->cdf(t * t); }
   cd cauchy(cd z) const override {
     cd g = 0.0;
-    for (const Atom& a : inner_.atoms) g += a.mass / (z - std::sqrt(a.value));
+    for (const Atom& a : inner_.atoms) g += a.weight / (z - std::sqrt(a.value));
     return g + continuous([z](double t) { return 1.0 / (z - t); });
   }
   std::vector<double> moments(int k) const override {
@@ -633,7 +634,7 @@ class SquareRoot final : public Law {
         continue;
       }
       double sum = 0.0;
-      for (const Atom& a : inner_.atoms) sum += a.mass * std::pow(std::sqrt(a.value), j);
+      for (const Atom& a : inner_.atoms) sum += a.weight * std::pow(std::sqrt(a.value), j);
       m[j] = sum + continuous([j](double t) { return cd(std::pow(t, j), 0.0); }).real();
     }
     return m;
@@ -642,7 +643,7 @@ class SquareRoot final : public Law {
     Support out;
     out.lo = lo_;
     out.hi = hi_;
-    for (const Atom& a : inner_.atoms) out.atoms.push_back({std::sqrt(std::max(a.value, 0.0)), a.mass});
+    for (const Atom& a : inner_.atoms) out.atoms.push_back({std::sqrt(std::max(a.value, 0.0)), a.weight});
     for (const Interval& band : inner_.bands) {
       out.bands.push_back({std::sqrt(std::max(band.lo, 0.0)), std::sqrt(std::max(band.hi, 0.0))});
     }
@@ -689,7 +690,7 @@ std::pair<cd, cd> Law::cauchy_with_derivative(cd z) const { return {cauchy(z), c
 
 double Law::quantile(double p) const {
   if (!(p >= 0.0 && p <= 1.0)) {
-    throw InputError("quantile: probability must lie in [0, 1] (got " + detail::format_number(p) + ")");
+    throw InputError("quantile: probability must lie in [0, 1] (got " + text::readable(p) + ")");
   }
   const Support s = support();
   double lo = s.lo;
@@ -718,7 +719,7 @@ std::vector<double> Law::densities(std::span<const double> xs) const {
 
 double Law::mass_at(double x) const {
   for (const Atom& a : support().atoms) {
-    if (std::abs(a.value - x) <= 1e-12 * (1.0 + std::abs(x))) return a.mass;
+    if (std::abs(a.value - x) <= 1e-12 * (1.0 + std::abs(x))) return a.weight;
   }
   return 0.0;
 }
@@ -726,7 +727,7 @@ double Law::mass_at(double x) const {
 // ----------------------------------------------------------------------------------- factories
 LawPtr semicircle(double variance) {
   if (!(variance > 0.0) || !std::isfinite(variance)) {
-    throw InputError("semicircle: variance must be a finite number > 0 (got " + detail::format_number(variance) +
+    throw InputError("semicircle: variance must be a finite number > 0 (got " + text::readable(variance) +
                      ")");
   }
   return std::make_shared<Semicircle>(variance);
@@ -734,7 +735,7 @@ LawPtr semicircle(double variance) {
 
 LawPtr marchenko_pastur(double ratio) {
   if (!(ratio > 0.0) || !std::isfinite(ratio)) {
-    throw InputError("marchenko_pastur: ratio must be a finite number > 0 (got " + detail::format_number(ratio) +
+    throw InputError("marchenko_pastur: ratio must be a finite number > 0 (got " + text::readable(ratio) +
                      ")");
   }
   return std::make_shared<MarchenkoPastur>(ratio);
@@ -756,27 +757,27 @@ LawPtr make_atoms(std::vector<Atom> points, const char* who, std::string name) {
   double total = 0.0;
   for (const Atom& a : points) {
     if (!std::isfinite(a.value)) throw InputError(std::string(who) + ": values must be finite");
-    if (!(a.mass >= 0.0) || !std::isfinite(a.mass)) {
+    if (!(a.weight >= 0.0) || !std::isfinite(a.weight)) {
       throw InputError(std::string(who) + ": weights must be finite and >= 0 (got " +
-                       detail::format_number(a.mass) + ")");
+                       text::readable(a.weight) + ")");
     }
-    total += a.mass;
+    total += a.weight;
   }
   if (std::abs(total - 1.0) > 1e-9) {
-    throw InputError(std::string(who) + ": weights must sum to 1 (got " + detail::format_number(total) + ")");
+    throw InputError(std::string(who) + ": weights must sum to 1 (got " + text::readable(total) + ")");
   }
   std::sort(points.begin(), points.end(),
             [](const Atom& l, const Atom& r) { return l.value < r.value; });
   std::vector<Atom> merged;
   for (const Atom& a : points) {
-    if (a.mass == 0.0) continue;
+    if (a.weight == 0.0) continue;
     if (!merged.empty() && merged.back().value == a.value) {
-      merged.back().mass += a.mass;
+      merged.back().weight += a.weight;
     } else {
-      merged.push_back({a.value, a.mass});
+      merged.push_back({a.value, a.weight});
     }
   }
-  for (Atom& a : merged) a.mass /= total;  // remove the last rounding of the sum
+  for (Atom& a : merged) a.weight /= total;  // remove the last rounding of the sum
   return std::make_shared<Atoms>(std::move(merged), std::move(name));
 }
 
@@ -787,7 +788,7 @@ LawPtr atoms(std::vector<Atom> points) {
   name.precision(12);
   name << "atoms(";
   for (std::size_t i = 0; i < points.size() && i < 6; ++i) {
-    name << (i ? ", " : "") << points[i].value << ":" << points[i].mass;
+    name << (i ? ", " : "") << points[i].value << ":" << points[i].weight;
   }
   if (points.size() > 6) name << ", ...";
   name << ")";
@@ -806,7 +807,7 @@ LawPtr empirical(std::span<const double> values) {
 
 LawPtr uniform(double a, double b) {
   if (!std::isfinite(a) || !std::isfinite(b) || !(a < b)) {
-    throw InputError("uniform: needs finite a < b (got " + detail::format_number(a) + ", " + detail::format_number(b) + ")");
+    throw InputError("uniform: needs finite a < b (got " + text::readable(a) + ", " + text::readable(b) + ")");
   }
   return std::make_shared<Uniform>(a, b);
 }
@@ -851,8 +852,8 @@ std::vector<double> densities_or_nan(const Law& law, std::span<const double> xs)
 LawPtr affine(LawPtr law, double a, double b) {
   if (!law) throw InputError("affine: law is null");
   if (!std::isfinite(a) || !std::isfinite(b) || a == 0.0) {
-    throw InputError("affine: needs finite a != 0 and finite b (got a=" + detail::format_number(a) +
-                     ", b=" + detail::format_number(b) + ")");
+    throw InputError("affine: needs finite a != 0 and finite b (got a=" + text::readable(a) +
+                     ", b=" + text::readable(b) + ")");
   }
   if (law->radial() && (a <= 0.0 || b != 0.0)) {
     throw InputError("affine: a radial law (" + law->describe() +

@@ -8,6 +8,7 @@
 
 #include "freegap/analysis/limits/laws.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/text.hpp"
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
@@ -84,7 +85,7 @@ std::string polynomial_text(const std::vector<double>& c) {
     const double a = std::abs(c[k]);
     out += out.empty() ? (c[k] < 0.0 ? "−" : "") : (c[k] < 0.0 ? " − " : " + ");
     const std::string x = k == 0 ? "" : k == 1 ? "x" : "x^" + std::to_string(k);
-    if (k == 0 || a != 1.0) out += detail::format_number(a) + (k == 0 ? "" : "·");
+    if (k == 0 || a != 1.0) out += text::readable(a) + (k == 0 ? "" : "·");
     out += x;
   }
   return out.empty() ? "0" : out;
@@ -119,7 +120,7 @@ class Pushforward final : public Law {
     }
     // Atoms map to atoms, equal images merged.
     std::map<double, double> image;
-    for (const Atom& a : inner_.atoms) image[evaluate(c_, a.value)] += a.mass;
+    for (const Atom& a : inner_.atoms) image[evaluate(c_, a.value)] += a.weight;
     for (const auto& [value, mass] : image) support_.atoms.push_back({value, mass});
     // Bands: the images of the segments, overlapping ones merged.
     std::vector<Interval> pieces;
@@ -161,7 +162,7 @@ class Pushforward final : public Law {
   double cdf(double y) const override {
     double total = 0.0;
     for (const Atom& a : support_.atoms) {
-      if (a.value <= y) total += a.mass;
+      if (a.value <= y) total += a.weight;
     }
     for (const Segment& s : segments_) {
       const double low = std::min(s.pa, s.pb), high = std::max(s.pa, s.pb);
@@ -230,7 +231,7 @@ class Pushforward final : public Law {
   double continuous_cdf(double x) const {
     double f = law_->cdf(x);
     for (const Atom& a : inner_.atoms) {
-      if (a.value <= x) f -= a.mass;
+      if (a.value <= x) f -= a.weight;
     }
     return f;
   }
@@ -313,7 +314,7 @@ LawPtr polynomial_image(LawPtr law, std::vector<double> coefficients) {
   if (s.bands.empty()) {
     // A law of atoms alone: its image is a law of atoms (exact).
     std::map<double, double> image;
-    for (const Atom& a : s.atoms) image[evaluate(coefficients, a.value)] += a.mass;
+    for (const Atom& a : s.atoms) image[evaluate(coefficients, a.value)] += a.weight;
     std::vector<Atom> points;
     for (const auto& [value, mass] : image) points.push_back({value, mass});
     return atoms(std::move(points));

@@ -89,11 +89,4 @@ double integrate_density(const std::function<double(double)>& f, double lo, doub
   return integrate(integrand, 0.0, theta, tol);
 }
 
-std::string format_number(double x) {
-  std::ostringstream out;
-  out.precision(12);
-  out << x;
-  return out.str();
-}
-
 }  // namespace freegap::analysis::detail

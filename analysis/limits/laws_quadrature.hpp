@@ -24,7 +24,4 @@ double integrate(const std::function<double(double)>& f, double a, double b, dou
 double integrate_density(const std::function<double(double)>& f, double lo, double hi, double x,
                          double tol = 1e-14);
 
-/// A number for messages and descriptions: 12 significant digits.
-std::string format_number(double x);
-
 }  // namespace freegap::analysis::detail

@@ -11,6 +11,7 @@
 #include "freegap/analysis/limits/moments.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/text.hpp"
 #include "freegap/stop.hpp"
 #include "laws_quadrature.hpp"
 
@@ -42,7 +43,7 @@ LetterLaw law_of(const MatrixSpec& m) {
   const std::string who = m.name + " (" + std::string(declarations::kind_name(m.kind)) + ")";
   if (semicircular(m.kind)) return {semicircle(1.0), "semicircle", {}};
   if (marchenko_pastur_kind(m.kind)) {
-    return {marchenko_pastur(m.ratio), "Marchenko-Pastur(" + detail::format_number(m.ratio) + ")", {}};
+    return {marchenko_pastur(m.ratio), "Marchenko-Pastur(" + text::readable(m.ratio) + ")", {}};
   }
   if (m.kind != Kind::diagonal) return {nullptr, {}, who + " is not self-adjoint"};
   switch (m.diagonal.kind) {
@@ -100,7 +101,7 @@ LawPtr square_law(const MatrixSpec& m, const LawPtr& law) {
   if (m.kind == Kind::diagonal && (m.diagonal.kind == declarations::DiagonalLawKind::atoms ||
                                    m.diagonal.kind == declarations::DiagonalLawKind::file)) {
     std::vector<Atom> squared;
-    for (const Atom& a : law->support().atoms) squared.push_back({a.value * a.value, a.mass});
+    for (const Atom& a : law->support().atoms) squared.push_back({a.value * a.value, a.weight});
     return atoms(std::move(squared));
   }
   if (m.kind == Kind::diagonal && m.diagonal.kind == declarations::DiagonalLawKind::semicircle_quantiles) {
@@ -219,10 +220,10 @@ std::optional<FreeTerm> sandwich_term(const TermWord& tw, bool sandwich3, FreeTe
     // Poisson law of rate 1 with jumps v·Y (Nica & Speicher 2006, Prop. 12.18, from memory;
     // tests/limits checks it against the exact moments). Y may take any sign here.
     std::vector<Atom> jumps;
-    for (const Atom& a : sy.atoms) jumps.push_back({variance * a.value, a.mass});
+    for (const Atom& a : sy.atoms) jumps.push_back({variance * a.value, a.weight});
     t.law = free_compound_poisson(jumps);
     t.text = text + " → free compound Poisson law with the jumps of " +
-             (variance == 1.0 ? "" : detail::format_number(variance) + "·") + y.name +
+             (variance == 1.0 ? "" : text::readable(variance) + "·") + y.name +
              " (Nica & Speicher 2006)";
   } else if (sy.lo < 0.0) {
     why = "'" + text + "': the middle factor " + y.name +
@@ -550,7 +551,7 @@ static void combine_free_terms(const std::vector<FreeTerm>& free_terms, double s
       const LawPtr scaled = t.coefficient == 1.0 ? t.law : affine(t.law, t.coefficient, 0.0);
       law = law ? LawPtr(free_additive(law, scaled)) : scaled;
       rule += (rule.empty() ? "" : "; ") +
-              (t.coefficient == 1.0 ? std::string() : detail::format_number(t.coefficient) + "·") +
+              (t.coefficient == 1.0 ? std::string() : text::readable(t.coefficient) + "·") +
               "(" + t.text + ")";
     }
     if (free_terms.size() > 1) {
@@ -559,13 +560,13 @@ static void combine_free_terms(const std::vector<FreeTerm>& free_terms, double s
     } else {
       rule = free_terms[0].text;
       if (free_terms[0].coefficient != 1.0) {
-        rule += "; scaled by " + detail::format_number(free_terms[0].coefficient);
+        rule += "; scaled by " + text::readable(free_terms[0].coefficient);
       }
     }
   }
   if (shift != 0.0) {
     law = affine(law, 1.0, shift);
-    rule += "; shifted by " + detail::format_number(shift);
+    rule += "; shifted by " + text::readable(shift);
   }
   out.law = law;
   out.rule = rule;
@@ -760,7 +761,7 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
     out.law = law;
     out.reason.clear();
     double mass = law->continuous_mass();
-    for (const Atom& a : law->support().atoms) mass += a.mass;
+    for (const Atom& a : law->support().atoms) mass += a.weight;
     if (std::abs(mass - 1.0) > 1e-4) {
       char buffer[320];
       std::snprintf(buffer, sizeof buffer,

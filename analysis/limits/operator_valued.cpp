@@ -104,7 +104,7 @@ Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega) const {
   const General& g = general_[j];
   if (!g.atoms.empty()) {
     Matrix sum = Matrix::Zero(n_, n_);
-    for (const Atom& a : g.atoms) sum += a.mass * inverse(omega - a.value * g.b);
+    for (const Atom& a : g.atoms) sum += a.weight * inverse(omega - a.value * g.b);
     return sum;
   }
   // Woodbury with b = E S E^*: (ω − t b)^{−1} = A + t A E (I − t K)^{−1} S E^* A, A = ω^{−1},

@@ -11,6 +11,7 @@
 
 #include "freegap/analysis/limits/moments.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/text.hpp"
 #include "freegap/stop.hpp"
 #include "laws_quadrature.hpp"
 #include "operator_valued.hpp"
@@ -107,7 +108,7 @@ SolveReport solve_chain(const OperatorValuedSolver& solver, cd z, double epsilon
           rep.newton_steps += steps;
           rep.converged = false;
           rep.reason = "neither Newton nor the averaged iteration converged at distance " +
-                       detail::format_number(s_next) + " from the axis";
+                       text::readable(s_next) + " from the axis";
           rep.cauchy = cd(kNaN, kNaN);
           return rep;
         }
@@ -138,13 +139,13 @@ double find_edge(const OperatorValuedSolver& solver, double from, double directi
       solve_chain(solver, cd(from, 0.05 * scale), 0.0, scale, options, state, false);
   if (!first.converged) {
     throw NumericalError("polynomial limit: no solution beyond the norm bound at " +
-                         detail::format_number(from));
+                         text::readable(from));
   }
   int steps = 0;
   if (!solver.newton(solver.beta(cd(from, 0.0), 0.0), state, options.max_newton_steps, kTolerance,
                      steps)) {
     throw NumericalError("polynomial limit: no real-axis solution at " +
-                         detail::format_number(from));
+                         text::readable(from));
   }
   double x = from;
   double h = 0.05 * scale;
@@ -232,7 +233,7 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
     }
   }
   // This solver finds the outer edges only: its continuous part is given as one band.
-  if (support_.atoms.empty() || support_.atoms.front().mass < 1.0 - 1e-12) {
+  if (support_.atoms.empty() || support_.atoms.front().weight < 1.0 - 1e-12) {
     support_.bands.push_back({support_.lo, support_.hi});
   }
 }
@@ -323,8 +324,8 @@ std::vector<double> PolynomialLaw::solver_moments(int k) const {
     const SolveReport r = solve_chain(*solver_, z, 0.0, scale_, options_, state, warm);
     if (!r.converged) {
       throw NumericalError(
-          "polynomial limit: no convergence at z = " + detail::format_number(z.real()) + "+" +
-          detail::format_number(z.imag()) + "i for the moments");
+          "polynomial limit: no convergence at z = " + text::readable(z.real()) + "+" +
+          text::readable(z.imag()) + "i for the moments");
     }
     warm = true;
     cd power = 1.0;
@@ -441,7 +442,7 @@ double PolynomialLaw::cdf(double x) const {
   partial *= 0.5 * (theta - a);
   double atoms = 0.0;
   for (const Atom& a : support_.atoms) {
-    if (a.value <= x) atoms += a.mass;
+    if (a.value <= x) atoms += a.weight;
   }
   return std::clamp(panel_cumulative_[p] + partial + atoms, 0.0, 1.0);
 }
@@ -454,8 +455,8 @@ std::string PolynomialLaw::describe() const {
   }
   return "limit of '" + polynomial_.text + "' in free " + letters + " (linearization, pencil " +
          std::to_string(pencil_.size) + "×" + std::to_string(pencil_.size) +
-         "; operator-valued subordination), support [" + detail::format_number(support_.lo) + ", " +
-         detail::format_number(support_.hi) + "]";
+         "; operator-valued subordination), support [" + text::readable(support_.lo) + ", " +
+         text::readable(support_.hi) + "]";
 }
 
 bool proven_positive(const FreePolynomial& polynomial) {

@@ -145,7 +145,7 @@ class TabulatedCdf {
   double atoms_up_to(double x) const {
     double m = 0.0;
     for (const Atom& a : support_.atoms) {
-      if (a.value <= x) m += a.mass;
+      if (a.value <= x) m += a.weight;
     }
     return m;
   }
@@ -616,7 +616,7 @@ void add_limit_rows(const RunResult& run, double id, Table& dens_t, Table& atoms
   // left out of the figures) instead of the whole report failing.
   const auto ds = densities_or_nan(*run.limit.law, xs);
   for (int i = 0; i < points; ++i) dens_t.rows.push_back({id, xs[i], ds[i]});
-  for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.mass});
+  for (const Atom& a : sup.atoms) atoms_t.rows.push_back({id, a.value, a.weight});
 }
 
 void tables_of(const std::vector<RunResult>& runs, std::vector<Table>& out) {

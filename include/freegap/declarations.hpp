@@ -100,8 +100,6 @@ Shape shape(const MatrixSpec& spec, Index n);
 
 /// Throws InputError "matrix 'NAME': what": the form of every message about one declaration.
 [[noreturn]] void refuse(const MatrixSpec& spec, const std::string& what);
-/// A number as messages about declarations print it (12 significant digits).
-std::string number_text(double x);
 
 /// Checks a declaration as the samplers need it (name, ratio, β, the diagonal law's parameters);
 /// throws InputError "matrix 'NAME': what, and the fix". Does not read an eigenvalue file: that is

@@ -115,7 +115,7 @@ class EstimatorSet {
   std::size_t estimator_count() const { return estimators_.size(); }
   std::size_t estimate_count() const { return columns_; }
   /// Whether any estimator reads the trial's matrix: the runner then keeps a copy of it per
-  /// trial (run::estimate_peak_bytes counts it) and passes it in TrialInput::matrix.
+  /// trial (run::peak_bytes counts it) and passes it in TrialInput::matrix.
   bool wants_matrix() const { return wants_matrix_; }
   /// Room for a trial's matrix of `doubles` doubles in the memory the plug-in helpers share
   /// (grown as needed; valid until the next call). Only when wants_matrix(); throws Error if the

@@ -43,14 +43,14 @@
 // herk on N/2 columns, 4 times cheaper than a general product
 // (docs/performance.md §4: 0.33 s against 1.57 s at N = 2000).
 //
-// Flop conventions (Plan::flops, explain): complex gemm 8mnk, real 2mnk; zherk 4n²k, dsyrk n²k;
+// Flop conventions (Evaluation::flops, explain): complex gemm 8mnk, real 2mnk; zherk 4n²k, dsyrk n²k;
 // scaling a complex entry by a real number 2, a real entry 1; adding a scaled term to a complex
 // matrix 4 per entry, to a real one 2; operations on diagonals N per operation; copies, mirroring
 // a triangle, transposing and promoting real to complex 0.
 //
 // Memory: a plan holds its inputs (the caller's samples, not copied) plus temporaries. For
 // B + U B U^* it holds the result (one N×N) and, during the herk, the N×N/2 scaled columns of U,
-// so the peak is 1.5 N×N complex temporaries (16 N² bytes each). Plan::peak_temporary_bytes gives
+// so the peak is 1.5 N×N complex temporaries (16 N² bytes each). Evaluation::peak_temporary_bytes gives
 // the exact peak of any plan; temporaries are freed after their last use and sums accumulate in
 // place into a temporary that is not needed afterwards.
 #pragma once
@@ -134,7 +134,7 @@ struct Monomial {
 
 namespace detail {
 struct ExpressionData;
-struct PlanData;
+struct EvaluationData;
 }  // namespace detail
 
 /// A parsed and checked expression over declared matrices.
@@ -162,11 +162,11 @@ class Expression {
   std::vector<Monomial> expansion(std::size_t max_monomials = 100000) const;
 
  private:
-  friend class Plan;
+  friend class Evaluation;
   std::shared_ptr<const detail::ExpressionData> data_;
 };
 
-struct PlanOptions {
+struct EvaluationOptions {
   /// Form the full matrix even when the lower triangle would do (eigenvalues of a self-adjoint
   /// result read only the lower triangle).
   bool full_result = false;
@@ -217,9 +217,9 @@ struct StepInfo {
 };
 
 /// An evaluation plan for one size N.
-class Plan {
+class Evaluation {
  public:
-  Plan(const Expression& expression, Index n, const PlanOptions& options = {});
+  Evaluation(const Expression& expression, Index n, const EvaluationOptions& options = {});
 
   Index size() const;
   Spectrum spectrum() const;
@@ -239,7 +239,7 @@ class Plan {
   Evaluated evaluate(const std::vector<ensembles::Sample>& samples) const;
 
  private:
-  std::shared_ptr<const detail::PlanData> data_;
+  std::shared_ptr<const detail::EvaluationData> data_;
 };
 
 /// Peak working memory of evaluating `expression` at size n: inputs plus peak temporaries.

@@ -90,7 +90,7 @@ class SizeRunner {
   /// histogram range; throws NumericalError if the trial fails.
   std::pair<double, double> pilot_range(std::uint64_t seed, std::uint64_t trial) const;
   const expr::Expression& expression() const { return expression_; }
-  const expr::Plan& plan() const { return plan_; }
+  const expr::Evaluation& evaluation() const { return evaluation_; }
   observe::SpectrumKind spectrum_kind() const;
 
   /// Draws the samples of trial `trial` (only the matrices the expression uses).
@@ -110,7 +110,7 @@ class SizeRunner {
   std::vector<ensembles::Sampler> samplers_;
   std::vector<bool> used_;
   expr::Expression expression_;
-  expr::Plan plan_;
+  expr::Evaluation evaluation_;
   std::optional<tridiagonal::ModelSpec> tri_;
   double tri_scale_ = 1.0, tri_shift_ = 0.0;
 };

@@ -28,7 +28,7 @@
 
 namespace freegap::observe {
 
-/// What the numbers handed to observe_trial are. Both are observed the same way; singular values
+/// What the numbers handed to observe_spectrum are. Both are observed the same way; singular values
 /// must also be ≥ 0 (a negative one fails the trial).
 enum class SpectrumKind {
   eigenvalues,      ///< real eigenvalues of a self-adjoint expression
@@ -41,7 +41,7 @@ inline constexpr int kMaxMomentLimit = 64;
 /// The largest number of bins accepted; a guard against a typo allocating gigabytes.
 inline constexpr std::int64_t kMaxBins = 10'000'000;
 
-/// What to observe. Plain data; validate() checks it (observe_trial and start_observations call
+/// What to observe. Plain data; validate() checks it (observe_spectrum and start_observations call
 /// it, so a bad configuration is refused before anything is counted).
 struct ObserveConfig {
   /// b + 1 strictly increasing, finite bin edges e_0 < e_1 < ... < e_b (b ≥ 1). Uniform bins are
@@ -151,7 +151,7 @@ struct CompensatedSum {
 /// in the spectrum, a negative singular value, a moment that overflows double) without touching
 /// `into`, or adds its values to `into` and returns its row. Throws InputError if the spectrum is
 /// empty or `into` does not match the bins.
-TrialRecord observe_trial(std::uint64_t trial, std::span<const double> spectrum,
+TrialRecord observe_spectrum(std::uint64_t trial, std::span<const double> spectrum,
                           const ObserveConfig& config, Histogram& into);
 
 /// The row of a trial that produced no spectrum (a solver failure reported by the caller).
@@ -170,7 +170,7 @@ struct Observations {
 /// Empty observations for `config` (validates it).
 Observations start_observations(ObserveConfig config);
 
-/// Observes a trial into `obs` (see observe_trial). Throws InputError, changing nothing, if the
+/// Observes a trial into `obs` (see observe_spectrum). Throws InputError, changing nothing, if the
 /// trial is already recorded.
 void record_trial(Observations& obs, std::uint64_t trial, std::span<const double> spectrum);
 /// Records a failed trial (see failed_trial). Throws InputError, changing nothing, if the trial is
@@ -182,7 +182,7 @@ void record_failure(Observations& obs, std::uint64_t trial, std::string reason);
 void merge_into(Observations& into, const Observations& from);
 
 /// Mean and standard error of one quantity over the non-failed trials.
-struct Estimate {
+struct MeanWithError {
   double mean = 0.0;
   /// s/√n with the sample standard deviation s (divisor n − 1); NaN when n < 2.
   double standard_error = 0.0;
@@ -194,8 +194,8 @@ struct Summary {
   std::int64_t failed = 0;
   /// Each distinct failure reason with how many trials failed with it, sorted by reason.
   std::vector<std::pair<std::string, std::int64_t>> failure_reasons;
-  std::vector<Estimate> moments;  ///< indexed by k = 0..K; NaN means when no trial succeeded
-  Estimate min, max, norm;        ///< of the per-trial extremes and norm
+  std::vector<MeanWithError> moments;  ///< indexed by k = 0..K; NaN means when no trial succeeded
+  MeanWithError min, max, norm;        ///< of the per-trial extremes and norm
   double smallest = 0.0;          ///< min over trials of the smallest value (NaN if none)
   double largest = 0.0;           ///< max over trials of the largest value (NaN if none)
 };

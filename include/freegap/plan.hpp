@@ -10,7 +10,7 @@
 // is fitted with non-negative coefficients by least squares on relative errors, then used at the
 // job's sizes. The fit is stored in a calibration file and reused until the machine changes (CPU
 // model, core count, BLAS build, freegap version); the BLAS thread count is part of each entry.
-// Memory is the runner's own estimate (run::estimate_peak_bytes), the one it refuses jobs by.
+// Memory is the runner's own estimate (run::peak_bytes), the one it refuses jobs by.
 //
 // Everything here is an estimate from a short measurement on one machine: other nodes, other
 // loads and the site's scheduling policies decide the real costs.
@@ -156,23 +156,23 @@ struct Options {
   double calibration_budget = kCalibrationBudget;  ///< seconds for a new measurement
 };
 
-struct SizeEstimate {
+struct SizeForecast {
   std::int64_t n = 0;
   std::int64_t trials = 0;
   double seconds_per_trial = 0.0;
   double core_hours = 0.0;       ///< trials × seconds per trial × threads / 3600
-  std::size_t peak_bytes = 0;    ///< run::estimate_peak_bytes
+  std::size_t peak_bytes = 0;    ///< run::peak_bytes
   std::size_t working_bytes = 0; ///< the evaluation's own temporaries (expr::peak_working_bytes)
   std::size_t output_bytes = 0;  ///< this size's share of the run file
   bool fits = true;              ///< peak_bytes ≤ the memory per rank (when known)
 };
 
-struct Estimate {
+struct Forecast {
   std::string job_path, expression, path;  ///< path: "dense" or "tridiagonal"
   Options options;
   CostFit cost;
   std::string cost_source;  ///< "measured now (…)" or "from <file>"
-  std::vector<SizeEstimate> sizes;
+  std::vector<SizeForecast> sizes;
   double core_hours = 0.0;
   std::size_t output_bytes = 0;
   std::string output_path;        ///< the job's run file
@@ -223,9 +223,9 @@ std::size_t available_memory_bytes();
 
 /// The whole estimate; measures (and stores) the cost if the calibration file lacks it. Progress
 /// notes (e.g. "measuring…") go to `log`.
-Estimate estimate(const job::Job& job, const Options& options, std::ostream& log);
+Forecast forecast(const job::Job& job, const Options& options, std::ostream& log);
 
 /// The report `freegap plan` prints.
-std::string format(const Estimate& e);
+std::string format(const Forecast& e);
 
 }  // namespace freegap::plan

@@ -80,6 +80,6 @@ model::SizeRunner runner_at(const job::Job& job, std::int64_t n);
 /// samples, the sampler's transient factorisation storage, the plan's temporaries and the
 /// spectrum, plus a fixed allowance for the process itself; `keeps_matrix` (an estimator reads
 /// the trial's matrix) adds the copy kept for it.
-std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix = false);
+std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix = false);
 
 }  // namespace freegap::study

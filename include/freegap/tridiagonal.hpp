@@ -129,7 +129,7 @@ double operator_norm(const Tridiagonal& t, double tolerance);
 /// Throws InputError for max_moment outside 0..kMaxMomentLimit or a non-finite entry.
 std::vector<double> moments(const Tridiagonal& t, int max_moment);
 
-/// How observe_trial transforms the sampled matrix: P = scale·T + shift·I (the runner's affine
+/// How observe_tridiagonal_trial transforms the sampled matrix: P = scale·T + shift·I (the runner's affine
 /// expressions such as `2 X + 1`), and how precisely it locates the extremes.
 struct TrialOptions {
   double scale = 1.0;
@@ -139,7 +139,7 @@ struct TrialOptions {
 };
 
 /// One trial observed without diagonalising, into the same record and histogram the dense path
-/// produces (observe::observe_trial on the eigenvalues of P): histogram from Sturm counts at the
+/// produces (observe::observe_spectrum on the eigenvalues of P): histogram from Sturm counts at the
 /// bin edges, moments from `moments`, min/max by bisection (started from the bins the histogram
 /// found them in), norm = max(|min|, |max|). A non-finite entry, a moment that overflows double, or
 /// Sturm counts that are not monotone in x record a failed trial (nothing added to `into`). If the
@@ -147,11 +147,11 @@ struct TrialOptions {
 /// (O(N²) time: 110 s at N = 10^5) and kept ascending. Throws InputError for a bad configuration,
 /// a config.kind other than eigenvalues, a histogram that does not match the bins, or a
 /// non-finite scale/shift.
-observe::TrialRecord observe_trial(const ModelSpec& spec, Index n, std::uint64_t seed,
+observe::TrialRecord observe_tridiagonal_trial(const ModelSpec& spec, Index n, std::uint64_t seed,
                                    std::uint64_t trial, const observe::ObserveConfig& config,
                                    observe::Histogram& into, const TrialOptions& options = {});
 
-/// The same for a matrix already sampled (and mapped): the observation half of observe_trial.
+/// The same for a matrix already sampled (and mapped): the observation half of observe_tridiagonal_trial.
 observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
                                     const observe::ObserveConfig& config, observe::Histogram& into,
                                     double extreme_tolerance);

@@ -168,7 +168,7 @@ void print_density_summary(const Densities& d, const std::vector<double>& xs, in
   for (std::size_t i = 0; i < xs.size(); ++i) {
     if (!d.ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
   }
-  for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.mass, a.value);
+  for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.weight, a.value);
   if (!derived.law_note.empty()) std::printf("note: %s\n", derived.law_note.c_str());
 }
 

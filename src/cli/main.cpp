@@ -86,7 +86,7 @@ int run_sample(const SampleOptions& opt) {
   std::vector<freegap::model::SizeRunner> runners;
   for (long long n : opt.sizes) runners.emplace_back(model, n);
   if (opt.explain) {
-    for (const auto& r : runners) std::cout << r.plan().explain() << "\n";
+    for (const auto& r : runners) std::cout << r.evaluation().explain() << "\n";
     return 0;
   }
   const auto& expression = runners.front().expression();

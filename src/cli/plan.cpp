@@ -128,7 +128,7 @@ double rate_factor(const std::string& pilot, const std::string& key, double targ
 Subcommand add_plan_command(CLI::App& app) {
   auto args = std::make_shared<PlanArgs>();
   auto* cmd = app.add_subcommand(
-      "plan", "Estimate a job's time per trial, core-hours, memory per rank and output size");
+      "plan", "Forecast a job's time per trial, core-hours, memory per rank and output size");
   cmd->add_option("job", args->job, "Job file (TOML)")->required();
   cmd->add_option("--ranks", args->options.ranks, "MPI ranks the job would run on (default 1)")
       ->check(CLI::Range(1, 1 << 24));
@@ -199,7 +199,7 @@ Subcommand add_plan_command(CLI::App& app) {
                            << " (the estimate below is for these)\n";
               }
             }
-            const auto e = plan::estimate(job, args->options, std::cerr);
+            const auto e = plan::forecast(job, args->options, std::cerr);
             std::cout << pilot_text.str() << plan::format(e);
             return 0;
           }};

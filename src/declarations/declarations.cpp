@@ -1,5 +1,6 @@
 // The matrices a job declares: names and kinds, validity, shapes, and an eigenvalue file's numbers.
 #include "freegap/declarations.hpp"
+#include "freegap/text.hpp"
 
 #include <algorithm>
 #include <array>
@@ -34,7 +35,7 @@ constexpr std::array<KindName, 12> kind_names{{
     {Kind::beta_laguerre, "beta_laguerre"},
 }};
 
-std::string num(double x) { return number_text(x); }
+std::string num(double x) { return text::readable(x); }
 [[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) { refuse(spec, what); }
 
 // A word of a file the job names, as a message may quote it: the file may be anyone's (a job
@@ -84,12 +85,6 @@ std::vector<double> read_number_file(const MatrixSpec& spec) {
 }
 
 }  // namespace
-
-std::string number_text(double x) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, "%.12g", x);
-  return buf;
-}
 
 void refuse(const MatrixSpec& spec, const std::string& what) {
   throw InputError("matrix '" + spec.name + "': " + what);

@@ -1,5 +1,6 @@
 // Samplers for the declared matrices; normalisations in include/freegap/ensembles.hpp.
 #include "freegap/ensembles.hpp"
+#include "freegap/text.hpp"
 
 #include <algorithm>
 #include <array>
@@ -19,7 +20,7 @@ namespace {
 
 constexpr double pi = 3.14159265358979323846;
 
-std::string num(double x) { return declarations::number_text(x); }
+std::string num(double x) { return text::readable(x); }
 [[noreturn]] void fail(const MatrixSpec& spec, const std::string& what) {
   declarations::refuse(spec, what);
 }

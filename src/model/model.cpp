@@ -176,7 +176,7 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       samplers_(make_samplers(model)),
       used_(used_matrices(model)),
       expression_(model.expression, model.matrices, model.check),
-      plan_(expression_, n) {
+      evaluation_(expression_, n) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
   // The tridiagonal path applies when the expression is a·X + b for one matrix X whose
   // eigenvalue law has an exact tridiagonal model (Dumitriu & Edelman 2002) and eigenvalues are
@@ -237,7 +237,7 @@ SizeRunner::SizeRunner(const Model& model, Index n)
 }
 
 std::string SizeRunner::explain() const {
-  if (!tri_) return plan_.explain();
+  if (!tri_) return evaluation_.explain();
   char buf[512];
   std::snprintf(buf, sizeof buf,
                 "expression: %s\nsize: N = %lld\npath: tridiagonal (Dumitriu & Edelman 2002 %s "
@@ -270,7 +270,7 @@ void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
   tridiagonal::TrialOptions options;
   options.scale = tri_scale_;
   options.shift = tri_shift_;
-  auto row = tridiagonal::observe_trial(*tri_, n_, seed, trial, obs.config, obs.histogram, options);
+  auto row = tridiagonal::observe_tridiagonal_trial(*tri_, n_, seed, trial, obs.config, obs.histogram, options);
   const auto at = std::lower_bound(
       obs.trials.begin(), obs.trials.end(), trial,
       [](const observe::TrialRecord& r, std::uint64_t t) { return r.trial < t; });
@@ -334,7 +334,7 @@ TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
   TrialOutcome out;
   out.trial = trial;
   auto start = std::chrono::steady_clock::now();
-  expr::Evaluated value = plan_.evaluate(samples);
+  expr::Evaluated value = evaluation_.evaluate(samples);
   out.seconds.evaluate = seconds_since(start);
   // LAPACK on a matrix with NaN/Inf may loop, fail or return garbage: refuse it first (O(N²)).
   const bool finite = value.is_complex ? value.complex.allFinite() : value.real.allFinite();
@@ -345,11 +345,11 @@ TrialOutcome SizeRunner::spectrum_of(std::uint64_t trial,
   }
   // The LAPACK routines overwrite their input: keep a copy first.
   if (keep_matrix) {
-    out.matrix = keep_copy(value, plan_.spectrum() == expr::Spectrum::eigenvalues, keep_matrix);
+    out.matrix = keep_copy(value, evaluation_.spectrum() == expr::Spectrum::eigenvalues, keep_matrix);
   }
   start = std::chrono::steady_clock::now();
   try {
-    out.spectrum = expr::compute_spectrum(plan_.spectrum(), value);
+    out.spectrum = expr::compute_spectrum(evaluation_.spectrum(), value);
   } catch (const NumericalError& e) {
     out.failed = true;
     out.reason = e.what();

@@ -64,7 +64,7 @@ TrialRecord failed_row(std::uint64_t trial, std::string reason) {
   return row;
 }
 
-// observe_trial without re-validating the configuration (record_trial validated it once).
+// observe_spectrum without re-validating the configuration (record_trial validated it once).
 TrialRecord observe_validated(std::uint64_t trial, std::span<const double> spectrum,
                               const ObserveConfig& config, Histogram& into) {
   if (spectrum.empty()) refuse("trial " + std::to_string(trial) + " has an empty spectrum");
@@ -114,8 +114,8 @@ void refuse_duplicate(std::uint64_t trial) {
   refuse("trial " + std::to_string(trial) + " is recorded twice; each trial is observed once");
 }
 
-Estimate estimate(const std::vector<double>& values) {
-  Estimate result;
+MeanWithError estimate(const std::vector<double>& values) {
+  MeanWithError result;
   const auto n = static_cast<double>(values.size());
   if (values.empty()) return {kNaN, kNaN};
   result.mean = compensated_sum(values) / n;
@@ -319,7 +319,7 @@ std::vector<double> spectral_moments(std::span<const double> x, int max_moment) 
   return moments;
 }
 
-TrialRecord observe_trial(std::uint64_t trial, std::span<const double> spectrum,
+TrialRecord observe_spectrum(std::uint64_t trial, std::span<const double> spectrum,
                           const ObserveConfig& config, Histogram& into) {
   config.validate();
   return observe_validated(trial, spectrum, config, into);

@@ -1,5 +1,6 @@
 // Planning a job before it runs (see include/freegap/plan.hpp).
 #include "freegap/plan.hpp"
+#include "freegap/text.hpp"
 
 #include <toml++/toml.h>
 #include <malloc.h>
@@ -51,14 +52,7 @@ std::string number(double v, const char* fmt = "%.3g") {
   return buf;
 }
 
-std::string utc_now() {
-  const std::time_t t = std::time(nullptr);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[32];
-  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  return buf;
-}
+using text::utc_now;
 
 int online_cores() {
   const long n = sysconf(_SC_NPROCESSORS_ONLN);
@@ -787,11 +781,11 @@ std::int64_t free_bytes_for(const std::string& path) {
 
 namespace {
 
-// What to ask a Slurm scheduler for (Estimate::slurm_command): the time from the predicted wall
+// What to ask a Slurm scheduler for (Forecast::slurm_command): the time from the predicted wall
 // time with the estimate's 25 % margin plus the checkpoint margin jobs/slurm/run.sbatch keeps
 // before the limit (5 % of it, at least 60 s); the memory per task from the largest planned peak
 // per rank with kMemoryMargin, in whole MiB.
-void slurm_request(Estimate& e, const job::Job& job) {
+void slurm_request(Forecast& e, const job::Job& job) {
   double peak = 0.0;
   for (const auto& s : e.sizes) {
     // The measured trial memory, but never less than the evaluation's own temporaries, which
@@ -836,7 +830,7 @@ void refuse_threaded_complex_svd(const job::Job& job, const model::SizeRunner& r
 }
 
 // The cost of a trial: from the calibration file, or measured now and stored there.
-void find_cost(Estimate& e, const job::Job& job, const Options& options, std::ostream& log) {
+void find_cost(Forecast& e, const job::Job& job, const Options& options, std::ostream& log) {
   const std::string cal_path =
       options.calibration_path.empty() ? default_calibration_path() : options.calibration_path;
   auto cal = Calibration::load(cal_path, this_machine());
@@ -871,7 +865,7 @@ void find_cost(Estimate& e, const job::Job& job, const Options& options, std::os
 
 // Memory per rank: the job's memory_per_rank, else this node's available memory shared by the
 // ranks that would run on it (at most one per core).
-void find_memory_limit(Estimate& e, const job::Job& job, const Options& options) {
+void find_memory_limit(Forecast& e, const job::Job& job, const Options& options) {
   if (job.memory_per_rank_bytes > 0) {
     e.memory_limit = static_cast<std::size_t>(job.memory_per_rank_bytes);
     e.memory_source = "memory_per_rank in the job";
@@ -885,17 +879,17 @@ void find_memory_limit(Estimate& e, const job::Job& job, const Options& options)
 
 // Every size's estimate (appended to e.sizes, its core-hours added to e.core_hours); returns the
 // predicted seconds of every unit of the job.
-std::vector<double> estimate_sizes(Estimate& e, const job::Job& job, const Options& options,
+std::vector<double> estimate_sizes(Forecast& e, const job::Job& job, const Options& options,
                                    const std::vector<model::SizeRunner>& runners,
                                    bool keeps_matrix) {
   std::vector<double> unit_seconds;
   for (std::size_t i = 0; i < job.sizes.size(); ++i) {
-    SizeEstimate s;
+    SizeForecast s;
     s.n = job.sizes[i];
     s.trials = job.trials[i];
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
-    s.peak_bytes = study::estimate_peak_bytes(runners[i], keeps_matrix);
+    s.peak_bytes = study::peak_bytes(runners[i], keeps_matrix);
     s.working_bytes = expr::peak_working_bytes(runners[i].expression(), runners[i].size());
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
@@ -919,7 +913,7 @@ std::vector<double> estimate_sizes(Estimate& e, const job::Job& job, const Optio
 }
 
 // Which spectra the run file keeps, their size, and what they are used for (e.kept_spectra).
-void describe_kept_spectra(Estimate& e, const job::Job& job) {
+void describe_kept_spectra(Forecast& e, const job::Job& job) {
   double spectra = 0.0, largest = 0.0;
   bool every = true;
   for (std::size_t i = 0; i < job.sizes.size(); ++i) {
@@ -950,7 +944,7 @@ void describe_kept_spectra(Estimate& e, const job::Job& job) {
 }
 
 // A warning when the largest size lies far beyond the sizes whose trials were timed.
-void warn_if_extrapolated(Estimate& e, const job::Job& job) {
+void warn_if_extrapolated(Forecast& e, const job::Job& job) {
   const std::int64_t calibrated = e.cost.largest_calibrated();
   if (calibrated > 0 && static_cast<double>(job.sizes.back()) >
                             kExtrapolationWarning * static_cast<double>(calibrated)) {
@@ -965,7 +959,7 @@ void warn_if_extrapolated(Estimate& e, const job::Job& job) {
 
 // The fewest ranks whose wall time with a 25 % margin fits the deadline. Beyond one rank per
 // unit nothing gets faster.
-void suggest_ranks(Estimate& e, const std::vector<double>& unit_seconds, const Options& options) {
+void suggest_ranks(Forecast& e, const std::vector<double>& unit_seconds, const Options& options) {
   constexpr double kMargin = 1.25;
   const int most = static_cast<int>(std::max<std::size_t>(1, unit_seconds.size()));
   int lo = 1, hi = most;
@@ -995,12 +989,12 @@ void suggest_ranks(Estimate& e, const std::vector<double>& unit_seconds, const O
 
 }  // namespace
 
-Estimate estimate(const job::Job& job, const Options& options, std::ostream& log) {
+Forecast forecast(const job::Job& job, const Options& options, std::ostream& log) {
   if (options.ranks < 1)
     throw InputError("--ranks must be at least 1 (got " + std::to_string(options.ranks) + ")");
   if (options.threads < 1)
     throw InputError("--threads must be at least 1 (got " + std::to_string(options.threads) + ")");
-  Estimate e;
+  Forecast e;
   e.job_path = job.path;
   e.expression = job.expression;
   e.options = options;
@@ -1035,7 +1029,7 @@ Estimate estimate(const job::Job& job, const Options& options, std::ostream& log
   return e;
 }
 
-std::string format(const Estimate& e) {
+std::string format(const Forecast& e) {
   std::ostringstream out;
   char line[256];
   out << "job:          " << e.job_path << "\n";

@@ -434,7 +434,7 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
     if (estimators.empty()) {
       runner.observe_trial(done.obs, p.job.seed, trial);
     } else {
-      // The same trial as observe_trial's dense path, then every estimator on its spectrum.
+      // The same trial as SizeRunner::observe_trial's dense path, then every estimator on its spectrum.
       const model::TrialOutcome outcome = runner.run(p.job.seed, trial, keep_matrix);
       model::record(done.obs, outcome);
       if (outcome.failed) {
@@ -989,7 +989,7 @@ std::pair<int, std::string> check_memory(const Prepared& p, MPI_Comm comm) {
   std::string msg;
   int c = 0;
   for (const auto& r : p.runners) {
-    const auto need = study::estimate_peak_bytes(r, p.estimators->wants_matrix());
+    const auto need = study::peak_bytes(r, p.estimators->wants_matrix());
     if (limit > 0 && need > limit) {
       c = kExitBadInput;
       msg = prefix(p.job, "sizes") + "N = " + std::to_string(r.size()) + " needs about " +
@@ -1009,7 +1009,7 @@ void print_explanation(const Prepared& p, std::ostream& out) {
     out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
         << "; estimated peak per rank: "
         << human_bytes(static_cast<double>(
-               study::estimate_peak_bytes(p.runners[i], p.estimators->wants_matrix())))
+               study::peak_bytes(p.runners[i], p.estimators->wants_matrix())))
         << "\n\n";
   }
   out << space_line(p.job) << "\n";

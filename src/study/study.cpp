@@ -52,7 +52,7 @@ std::vector<model::SizeRunner> runners(const job::Job& job) {
   return out;
 }
 
-std::size_t estimate_peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
+std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const auto n = static_cast<double>(runner.size());
   if (runner.path() == model::Path::tridiagonal) {
     // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row

@@ -164,7 +164,7 @@ void BM_KeepCopy(benchmark::State& state) {
   const int n = static_cast<int>(state.range(0));
   const bool complex = state.range(1) != 0;
   const auto runner = runner_for(n, complex);
-  const auto value = runner.plan().evaluate(runner.draw(1, 0));
+  const auto value = runner.evaluation().evaluate(runner.draw(1, 0));
   estimate::EstimatorSet set(job::parse_job(
       complex ? complex_job_text(n, matrix_reader()) : job_text(n, matrix_reader()), "bench.toml"));
   const model::MatrixBuffer room = [&set](std::size_t k) { return set.matrix_buffer(k); };

@@ -60,7 +60,7 @@ void BM_ValidateAndPlanLongSum(benchmark::State& state) {
   const std::string text = long_sum(static_cast<int>(state.range(0)));
   for (auto _ : state) {
     const freegap::expr::Expression e(text, specs);
-    const freegap::expr::Plan plan(e, 100);
+    const freegap::expr::Evaluation plan(e, 100);
     benchmark::DoNotOptimize(plan.flops());
   }
 }

@@ -95,7 +95,7 @@ struct Row {
 
 Row measure(long n, int trials, int warmup, bool split_sample, bool explain) {
   const model::SizeRunner runner(free_sum_model(), n);
-  if (explain) std::fprintf(stderr, "N = %ld\n%s\n", n, runner.plan().explain().c_str());
+  if (explain) std::fprintf(stderr, "N = %ld\n%s\n", n, runner.evaluation().explain().c_str());
   observe::ObserveConfig config;
   config.bin_edges = observe::uniform_edges(-2.5, 2.5, 400);
   config.kind = runner.spectrum_kind();

@@ -55,7 +55,7 @@ void BM_TridiagonalTrial(benchmark::State& state) {
   auto histogram = obs::empty_histogram(config);
   std::uint64_t trial = 0;
   for (auto _ : state) {
-    auto row = tri::observe_trial(gue_model(), n, kSeed, trial++, config, histogram);
+    auto row = tri::observe_tridiagonal_trial(gue_model(), n, kSeed, trial++, config, histogram);
     benchmark::DoNotOptimize(row);
   }
   state.counters["peak_rss_MiB"] = peak_rss_mib();
@@ -136,7 +136,7 @@ void BM_DenseTrial(benchmark::State& state) {
   for (auto _ : state) {
     auto sample = sampler.draw(n, kSeed, trial);
     const Eigen::VectorXd lambda = freegap::linalg::eigenvalues(sample.complex);
-    auto row = obs::observe_trial(trial++, {lambda.data(), static_cast<std::size_t>(lambda.size())},
+    auto row = obs::observe_spectrum(trial++, {lambda.data(), static_cast<std::size_t>(lambda.size())},
                                   config, histogram);
     benchmark::DoNotOptimize(row);
   }

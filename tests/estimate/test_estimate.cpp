@@ -353,9 +353,9 @@ TEST(EstimatorLibrary, PlanCountsTheKeptMatrix) {
   freegap::plan::Options options;
   options.calibration_path = (dir / "calibration.toml").string();
   std::ostringstream log;
-  const auto without = freegap::plan::estimate(
+  const auto without = freegap::plan::forecast(
       job::parse_job(job_text(library_estimator("ok")), "j.toml"), options, log);
-  const auto with = freegap::plan::estimate(
+  const auto with = freegap::plan::forecast(
       job::parse_job(job_text(library_estimator("ok") + matrix_estimator()), "j.toml"), options,
       log);
   std::filesystem::remove_all(dir);

@@ -266,7 +266,7 @@ TEST(ExprEvaluate, AgreesWithNaiveDenseProducts) {
       EXPECT_GT((reference - reference.adjoint()).norm(), 1e-6 * reference.norm());
     }
     for (const bool full : {false, true}) {
-      const fe::Plan plan(e, n, fe::PlanOptions{full});
+      const fe::Evaluation plan(e, n, fe::EvaluationOptions{full});
       const fe::Evaluated result = plan.evaluate(in.samples);
       EXPECT_EQ(result.is_complex, !row.real);
       if (full) {
@@ -370,7 +370,7 @@ TEST(ExprCheck, ShapeErrorsGiveExactMessages) {
 TEST(ExprPlan, CommonSubexpressionComputedOnce) {
   const auto specs = table_specs();
   const fe::Expression e("(X1 X2)(X1 X2)^* + X1 X2", specs);
-  const fe::Plan plan(e, 40);
+  const fe::Evaluation plan(e, 40);
   const auto& steps = plan.steps();
   ASSERT_EQ(steps.size(), 3u) << plan.explain();
   EXPECT_EQ(steps[0].kind, fe::StepKind::gemm);
@@ -380,7 +380,7 @@ TEST(ExprPlan, CommonSubexpressionComputedOnce) {
   EXPECT_EQ(steps[2].kind, fe::StepKind::sum);
   EXPECT_EQ(steps[2].description, "t2 + t1");
   // X2 X1 is the adjoint of X1 X2 for self-adjoint X1, X2: one product for the anticommutator.
-  const fe::Plan anti(fe::Expression("X1 X2 + X2 X1", specs), 40);
+  const fe::Evaluation anti(fe::Expression("X1 X2 + X2 X1", specs), 40);
   ASSERT_EQ(anti.steps().size(), 2u) << anti.explain();
   EXPECT_EQ(anti.steps()[0].description, "X1·X2");
   EXPECT_EQ(anti.steps()[1].description, "t1 + t1^*");
@@ -392,7 +392,7 @@ TEST(ExprPlan, CommonSubexpressionComputedOnce) {
 TEST(ExprPlan, FreeSumIsOneHerkOnHalfTheColumns) {
   const auto specs = table_specs();
   const fe::Expression e("B + U B U^*", specs);
-  const fe::Plan plan(e, 2000);
+  const fe::Evaluation plan(e, 2000);
   const auto& steps = plan.steps();
   ASSERT_EQ(steps.size(), 2u) << plan.explain();
   EXPECT_EQ(steps[0].kind, fe::StepKind::conjugate);
@@ -420,7 +420,7 @@ TEST(ExprPlan, FreeSumIsOneHerkOnHalfTheColumns) {
 // real).
 TEST(ExprPlan, RealArithmeticAndFlopCounts) {
   const auto specs = table_specs();
-  const fe::Plan plan(fe::Expression("S1 S2 + R^* R", specs), 10);
+  const fe::Evaluation plan(fe::Expression("S1 S2 + R^* R", specs), 10);
   const auto& steps = plan.steps();
   ASSERT_EQ(steps.size(), 3u) << plan.explain();
   EXPECT_EQ(steps[0].routine, "dgemm");
@@ -429,18 +429,18 @@ TEST(ExprPlan, RealArithmeticAndFlopCounts) {
   EXPECT_DOUBLE_EQ(steps[1].flops, 1.0 * 1000);
   EXPECT_NE(plan.explain().find("arithmetic: real"), std::string::npos);
   // Diagonal factors are scalings, never products: D U D is two O(N²) scalings.
-  const fe::Plan scaled(fe::Expression("D U D", specs), 10);
+  const fe::Evaluation scaled(fe::Expression("D U D", specs), 10);
   ASSERT_EQ(scaled.steps().size(), 2u) << scaled.explain();
   EXPECT_EQ(scaled.steps()[0].kind, fe::StepKind::scale_rows);
   EXPECT_EQ(scaled.steps()[1].kind, fe::StepKind::scale_columns);
   EXPECT_EQ(scaled.steps()[1].output, "t1");  // in place
   // A self-adjoint square is a herk: X1^4 = (X1²)(X1²)^*.
-  const fe::Plan power(fe::Expression("X1^4", specs), 10);
+  const fe::Evaluation power(fe::Expression("X1^4", specs), 10);
   ASSERT_EQ(power.steps().size(), 2u) << power.explain();
   EXPECT_EQ(power.steps()[0].routine, "zherk");
   EXPECT_EQ(power.steps()[1].routine, "zherk");
   // Scalars fold into BLAS alpha: no sum step for 0.5 X1 X2.
-  const fe::Plan folded(fe::Expression("0.5 X1 X2 - 2 (X1 X2)", specs), 10);
+  const fe::Evaluation folded(fe::Expression("0.5 X1 X2 - 2 (X1 X2)", specs), 10);
   ASSERT_EQ(folded.steps().size(), 1u) << folded.explain();
   EXPECT_EQ(folded.steps()[0].kind, fe::StepKind::gemm);
 }
@@ -452,7 +452,7 @@ TEST(ExprParse, DocumentedSyntaxDecisions) {
   Inputs in = make_inputs(specs, n);
   auto value = [&](const char* text) {
     const fe::Expression e(text, specs);
-    return as_complex(fe::Plan(e, n, fe::PlanOptions{true}).evaluate(in.samples));
+    return as_complex(fe::Evaluation(e, n, fe::EvaluationOptions{true}).evaluate(in.samples));
   };
   auto same = [](const CMatrix& a, const CMatrix& b) { return (a - b).norm() <= 1e-12 * b.norm(); };
   EXPECT_TRUE(same(value("U^2^*"), value("(U^2)^*")));
@@ -493,14 +493,14 @@ TEST(ExprCheck, SelfAdjointnessDecisions) {
   EXPECT_EQ(big.note(),
             "self-adjointness not decided: the expansion exceeds 1000 monomials; singular values "
             "are computed");
-  EXPECT_NE(fe::Plan(big, 8).explain().find("self-adjoint: not decided"), std::string::npos);
+  EXPECT_NE(fe::Evaluation(big, 8).explain().find("self-adjoint: not decided"), std::string::npos);
 }
 
 // Source: the issue (evaluation refuses samples that do not fit the plan).
 TEST(ExprEvaluate, RefusesWrongSamples) {
   const auto specs = table_specs();
   Inputs in = make_inputs(specs, 8);
-  const fe::Plan plan(fe::Expression("B + U B U^*", specs), 10);
+  const fe::Evaluation plan(fe::Expression("B + U B U^*", specs), 10);
   try {
     plan.evaluate(in.samples);
     ADD_FAILURE();
@@ -519,7 +519,7 @@ TEST(ExprEndToEnd, FreeSumWithProjectSamplers) {
   std::vector<en::Sample> samples;
   for (const auto& s : specs) samples.push_back(en::Sampler(s).draw(n, 7, 0));
   const fe::Expression e("B + U B U^*", specs);
-  const fe::Plan plan(e, n);
+  const fe::Evaluation plan(e, n);
   fe::Evaluated m = plan.evaluate(samples);
   const auto& u = samples[5].complex;
   const Eigen::VectorXd b = samples[3].diagonal;
@@ -533,7 +533,7 @@ TEST(ExprEndToEnd, FreeSumWithProjectSamplers) {
   EXPECT_GE(ev.minCoeff(), -2.0 - 1e-12);  // ‖B‖ + ‖U B U^*‖ = 2
   EXPECT_LE(ev.maxCoeff(), 2.0 + 1e-12);
   // Singular values of the commutator: the largest is the operator norm.
-  const fe::Plan commutator(fe::Expression("X1 X2 - X2 X1", specs), n);
+  const fe::Evaluation commutator(fe::Expression("X1 X2 - X2 X1", specs), n);
   fe::Evaluated c = commutator.evaluate(samples);
   const Eigen::VectorXd sv = fe::compute_spectrum(commutator.spectrum(), c);
   const CMatrix x1 = samples[0].complex, x2 = samples[1].complex;

@@ -48,7 +48,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     } catch (const freegap::expr::ExprError& e) {
       freegap::fuzz::check_expr_error(e);  // past the expansion's bounds: refused, named
     }
-    const freegap::expr::Plan plan(expression, 16);
+    const freegap::expr::Evaluation plan(expression, 16);
     (void)plan.explain();
     (void)freegap::expr::peak_working_bytes(expression, 16);
   } catch (const freegap::expr::ExprError& e) {

@@ -25,7 +25,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     check.force_singular_values = job.observe.singular_values;
     const freegap::expr::Expression expression(job.expression, job.matrices, check);
     for (const auto n : job.sizes) {
-      const freegap::expr::Plan plan(expression, n);
+      const freegap::expr::Evaluation plan(expression, n);
       (void)plan.flops();
     }
   } catch (const freegap::expr::ExprError& e) {

@@ -147,7 +147,7 @@ TEST(InputBounds, StopRequestEndsValidation) {
 TEST(InputBounds, StopRequestEndsPlanning) {
   const fe::Expression e("X Y + Y X + B U B U^*", declared());
   const StopFlag stop(SIGINT);
-  EXPECT_THROW(fe::Plan(e, 8), freegap::Stopped);
+  EXPECT_THROW(fe::Evaluation(e, 8), freegap::Stopped);
 }
 
 TEST(InputBounds, JobValidationWithoutFiles) {

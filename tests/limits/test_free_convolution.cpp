@@ -112,7 +112,7 @@ TEST(FreeAdditive, ShiftByPointMassAndAtoms) {
   const auto pp = fa::free_additive(p, p);
   ASSERT_EQ(pp->support().atoms.size(), 1u);
   EXPECT_NEAR(pp->support().atoms[0].value, 0.0, 0.0);
-  EXPECT_NEAR(pp->support().atoms[0].mass, 0.4, 1e-15);
+  EXPECT_NEAR(pp->support().atoms[0].weight, 0.4, 1e-15);
   // The CDF jumps by the atom and reaches 1; the mean is 0.6 (moments add their first cumulant).
   EXPECT_NEAR(pp->cdf(0.0) - pp->cdf(-1e-9), 0.4, 1e-9);
   EXPECT_NEAR(pp->cdf(pp->support().hi), 1.0, 1e-8);
@@ -183,7 +183,7 @@ TEST(FreeMultiplicative, FreePoissonTimesProjection) {
   const auto law =
       fa::free_multiplicative(fa::marchenko_pastur(1.0), fa::atoms({{0.0, 0.5}, {1.0, 0.5}}));
   ASSERT_EQ(law->support().atoms.size(), 1u);
-  EXPECT_NEAR(law->support().atoms[0].mass, 0.5, 1e-15);  // Belinschi 2003, from memory
+  EXPECT_NEAR(law->support().atoms[0].weight, 0.5, 1e-15);  // Belinschi 2003, from memory
   const auto mp = fa::marchenko_pastur(0.5);
   for (double x : {0.1, 0.5, 1.0, 2.0, 2.8})
     EXPECT_NEAR(law->density(x), 0.5 * mp->density(x), 1e-8) << x;

@@ -88,7 +88,7 @@ TEST(Laws, MarchenkoPasturValuesMomentsAtom) {
   expect_moments(*two, {1, 1, 3, 11, 45, 197, 903, 4279, 20793}, 1e-14);
   // Atom 1 − 1/c at 0 for c > 1 (Marchenko & Pastur 1967, from memory).
   ASSERT_EQ(two->support().atoms.size(), 1u);
-  EXPECT_DOUBLE_EQ(two->support().atoms[0].mass, 0.5);
+  EXPECT_DOUBLE_EQ(two->support().atoms[0].weight, 0.5);
   EXPECT_DOUBLE_EQ(two->cdf(0.0), 0.5);
   EXPECT_NEAR(two->cdf(two->support().hi), 1.0, 1e-12);
   // G(z) ~ atom/z near 0: z·G(z) → 1/2 (elementary).
@@ -299,13 +299,13 @@ TEST(Laws, PolynomialImageSplitsAtCriticalPointsAndMapsAtoms) {
   const auto atoms = fa::polynomial_image(fa::atoms({{-1.0, 0.25}, {1.0, 0.25}, {2.0, 0.5}}),
                                           {0.0, 0.0, 1.0});
   ASSERT_EQ(atoms->support().atoms.size(), 2u);
-  EXPECT_DOUBLE_EQ(atoms->support().atoms[0].mass, 0.5);
+  EXPECT_DOUBLE_EQ(atoms->support().atoms[0].weight, 0.5);
   EXPECT_DOUBLE_EQ(atoms->support().atoms[1].value, 4.0);
   // MP(2) has an atom ½ at 0: W² − W keeps it at 0 and its continuous part sums to ½.
   const auto w = fa::polynomial_image(fa::marchenko_pastur(2.0), {0.0, -1.0, 1.0});
   ASSERT_EQ(w->support().atoms.size(), 1u);
   EXPECT_DOUBLE_EQ(w->support().atoms[0].value, 0.0);
-  EXPECT_NEAR(w->support().atoms[0].mass, 0.5, 1e-15);
+  EXPECT_NEAR(w->support().atoms[0].weight, 0.5, 1e-15);
   EXPECT_NEAR(w->cdf(w->support().hi), 1.0, 1e-15);
   EXPECT_EQ(w->cdf(-0.25 - 1e-12), 0.0);  // nothing below the minimum −¼ of y² − y
   // Below 0 (the atom excluded): the continuous part of X on (0, 1], where x² − x ≤ 0.

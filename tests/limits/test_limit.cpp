@@ -150,7 +150,7 @@ TEST(LimitOfRun, PolynomialInOneAtomicMatrixIsTheImageOfItsAtoms) {
   EXPECT_DOUBLE_EQ(atoms[0].value, -0.375);
   EXPECT_DOUBLE_EQ(atoms[1].value, 0.0);
   EXPECT_DOUBLE_EQ(atoms[2].value, 6.0);
-  EXPECT_DOUBLE_EQ(atoms[2].mass, 0.5);
+  EXPECT_DOUBLE_EQ(atoms[2].weight, 0.5);
   EXPECT_DOUBLE_EQ(rotated.law->cdf(0.0), 0.5);
   expect_moments_agree(rotated, 1e-12);
   // D² − D: equal images merge (−1 and 2 both go to 2).
@@ -158,7 +158,7 @@ TEST(LimitOfRun, PolynomialInOneAtomicMatrixIsTheImageOfItsAtoms) {
   ASSERT_TRUE(plain.law) << plain.reason;
   ASSERT_EQ(plain.law->support().atoms.size(), 2u);
   EXPECT_DOUBLE_EQ(plain.law->support().atoms[1].value, 2.0);
-  EXPECT_DOUBLE_EQ(plain.law->support().atoms[1].mass, 0.75);
+  EXPECT_DOUBLE_EQ(plain.law->support().atoms[1].weight, 0.75);
   expect_moments_agree(plain, 1e-12);
   // A rotated and an unrotated copy are two free terms: law(D²) ⊞ law(D), against the exact
   // moments (before the polynomial image joined the free terms, the polynomial solver took it).
@@ -205,7 +205,7 @@ TEST(LimitOfRun, SolverLawThatMissesMassSaysSo) {
     const auto* polynomial = dynamic_cast<const fa::PolynomialLaw*>(d.law.get());
     ASSERT_NE(polynomial, nullptr) << text;
     double mass = polynomial->continuous_mass();
-    for (const auto& a : d.law->support().atoms) mass += a.mass;
+    for (const auto& a : d.law->support().atoms) mass += a.weight;
     EXPECT_EQ(!d.law_note.empty(), std::abs(mass - 1.0) > 1e-4) << text << ": " << mass;
     if (!d.law_note.empty()) {
       char shown[32];

@@ -240,7 +240,7 @@ TEST(PolynomialLimit, PointMassAtTheConstantTerm) {
   const auto law = law_of("X B X", {"X=gue", "B=diagonal:atoms=0@0.5,1@0.5"});
   ASSERT_EQ(law->support().atoms.size(), 1u);
   EXPECT_EQ(law->support().atoms[0].value, 0.0);
-  EXPECT_NEAR(law->support().atoms[0].mass, 0.5, 1e-6);
+  EXPECT_NEAR(law->support().atoms[0].weight, 0.5, 1e-6);
   // The density table next to an atom at the support's edge is accurate to a few 1e−4 only (the
   // atom's Lorentzian tail at the final distance to the axis and the singular density there).
   EXPECT_NEAR(law->continuous_mass(), 0.5, 1e-3);

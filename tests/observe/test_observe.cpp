@@ -58,7 +58,7 @@ void expect_same_rows(const fo::TrialRecord& a, const fo::TrialRecord& b) {
   EXPECT_TRUE(same_bits(a.spectrum, b.spectrum)) << "trial " << a.trial;
 }
 
-void expect_same_estimate(const fo::Estimate& a, const fo::Estimate& b) {
+void expect_same_estimate(const fo::MeanWithError& a, const fo::MeanWithError& b) {
   EXPECT_TRUE(same_bits(a.mean, b.mean));
   EXPECT_TRUE(same_bits(a.standard_error, b.standard_error));
 }
@@ -397,7 +397,7 @@ TEST(ObserveTrial, ExtremesAndNormOfEigenvalues) {
   fo::ObserveConfig config = config_for(-4.0, 4.0, 8, 2);
   fo::Histogram h = fo::empty_histogram(config);
   const std::vector<double> x = {0.5, -3.0, 2.0};
-  const fo::TrialRecord row = fo::observe_trial(7, x, config, h);
+  const fo::TrialRecord row = fo::observe_spectrum(7, x, config, h);
   EXPECT_EQ(row.trial, 7u);
   EXPECT_FALSE(row.failed);
   EXPECT_EQ(row.reason, "");
@@ -415,7 +415,7 @@ TEST(ObserveTrial, ExtremesAndNormOfSingularValues) {
   config.keep_spectrum_trials = {2};
   fo::Histogram h = fo::empty_histogram(config);
   const std::vector<double> s = {4.0, 1.5, 0.0};  // descending, as an SVD returns them
-  const fo::TrialRecord row = fo::observe_trial(2, s, config, h);
+  const fo::TrialRecord row = fo::observe_spectrum(2, s, config, h);
   EXPECT_FALSE(row.failed);
   EXPECT_EQ(row.min, 0.0);
   EXPECT_EQ(row.max, 4.0);
@@ -426,7 +426,7 @@ TEST(ObserveTrial, ExtremesAndNormOfSingularValues) {
   EXPECT_EQ(h.counts, (std::vector<std::int64_t>{1, 1, 0, 0, 1}));
 
   const std::vector<double> negative = {2.0, -1e-3};
-  const fo::TrialRecord bad = fo::observe_trial(3, negative, config, h);
+  const fo::TrialRecord bad = fo::observe_spectrum(3, negative, config, h);
   EXPECT_TRUE(bad.failed);
   EXPECT_EQ(bad.reason, "negative singular value");
   EXPECT_EQ(h.total(), 3);  // unchanged
@@ -442,7 +442,7 @@ TEST(ObserveTrial, MomentOverflowFailsTheTrial) {
   const std::vector<double> y = {1e10, 1.0};
   fo::ObserveConfig config = config_for(0.0, 1.0, 1, 64);
   fo::Histogram h = fo::empty_histogram(config);
-  const fo::TrialRecord row = fo::observe_trial(0, y, config, h);
+  const fo::TrialRecord row = fo::observe_spectrum(0, y, config, h);
   EXPECT_TRUE(row.failed);
   EXPECT_EQ(row.reason, "moment 31 overflows double; rescale the expression or lower max_moment");
   EXPECT_EQ(h.total(), 0);
@@ -452,7 +452,7 @@ TEST(ObserveTrial, RefusesEmptySpectrumAndEmptyReason) {
   fo::ObserveConfig config = config_for(0.0, 1.0, 2, 2);
   fo::Histogram h = fo::empty_histogram(config);
   const std::vector<double> empty;
-  expect_input_error([&] { fo::observe_trial(4, empty, config, h); },
+  expect_input_error([&] { fo::observe_spectrum(4, empty, config, h); },
                      "observe: trial 4 has an empty spectrum");
   expect_input_error([] { fo::failed_trial(9, ""); },
                      "observe: trial 9 failed without a reason; give a short reason");

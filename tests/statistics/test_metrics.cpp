@@ -202,7 +202,7 @@ TEST(SizeMetrics, CombinesEverything) {
       {0.1, 0.3, 0.6, 0.9}, {0.2, 0.4, 0.55, 0.8}, {0.15, 0.35, 0.65, 0.95}};
   for (std::size_t t = 0; t < spectra.size(); ++t) {
     ob::Histogram h = ob::empty_histogram(config);
-    data.trials.push_back(ob::observe_trial(t, spectra[t], config, h));
+    data.trials.push_back(ob::observe_spectrum(t, spectra[t], config, h));
     data.unit_histograms.push_back(h);
   }
   data.trials.push_back(ob::failed_trial(3, "solver failed"));
@@ -354,7 +354,7 @@ TEST(SizeMetrics, PooledDistancesFromSpectraWhenEveryTrialKeptOne) {
       {0.1, 0.3, 0.6, 0.9}, {0.2, 0.4, 0.55, 0.8}, {0.15, 0.35, 0.65, 0.95}};
   for (std::size_t t = 0; t < spectra.size(); ++t) {
     ob::Histogram h = ob::empty_histogram(config);
-    data.trials.push_back(ob::observe_trial(t, spectra[t], config, h));
+    data.trials.push_back(ob::observe_spectrum(t, spectra[t], config, h));
     data.unit_histograms.push_back(h);
   }
   fa::LimitReference limit;

@@ -46,7 +46,7 @@ int main() {
   std::size_t k = 0;
   std::cin >> k;
   std::vector<fa::Atom> atoms(k);
-  for (auto& a : atoms) std::cin >> a.value >> a.mass;
+  for (auto& a : atoms) std::cin >> a.value >> a.weight;
   std::size_t n = 0;
   std::cin >> n;
   std::vector<double> xs(n);
@@ -65,7 +65,7 @@ int main() {
   for (double x : xs) cdfs.push_back(law->cdf(x));
   const auto done = std::chrono::steady_clock::now();
   for (const fa::Interval& b : s.bands) std::printf("band %.17g %.17g\n", b.lo, b.hi);
-  for (const fa::Atom& a : s.atoms) std::printf("atom %.17g %.17g\n", a.value, a.mass);
+  for (const fa::Atom& a : s.atoms) std::printf("atom %.17g %.17g\n", a.value, a.weight);
   for (std::size_t i = 0; i < n; ++i) {
     std::printf("point %.17g %.17g %.17g\n", xs[i], densities[i], cdfs[i]);
   }

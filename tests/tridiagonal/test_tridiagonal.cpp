@@ -95,7 +95,7 @@ TEST(TridiagonalInput, RefusesBadParametersWithExactMessages) {
   config.bin_edges = obs::uniform_edges(-1, 1, 4);
   config.kind = obs::SpectrumKind::singular_values;
   auto h = obs::empty_histogram(config);
-  expect_throw_msg([&] { tri::observe_trial(hermite(2.0), 10, kSeed, 0, config, h); },
+  expect_throw_msg([&] { tri::observe_tridiagonal_trial(hermite(2.0), 10, kSeed, 0, config, h); },
                    "tridiagonal: a tridiagonal model is self-adjoint; observe its eigenvalues "
                    "(kind = eigenvalues)");
 }
@@ -387,7 +387,7 @@ TEST(Moments, AgreeWithMomentsOfLapackEigenvalues) {
 
 // ---- one trial, end to end ----------------------------------------------------------------------
 
-// observe_trial on P = a·T + b must give what the dense path's observe::observe_trial gives on the
+// observe_tridiagonal_trial on P = a·T + b must give what the dense path's observe::observe_spectrum gives on the
 // eigenvalues of the same P: the same histogram exactly, moments to 1e-11 of their scale, extremes
 // to the bisection tolerance, and the kept spectrum (dsterf). Negative a reverses the spectrum.
 TEST(ObserveTrial, MatchesTheDenseObservationOfTheSameMatrix) {
@@ -403,12 +403,12 @@ TEST(ObserveTrial, MatchesTheDenseObservationOfTheSameMatrix) {
       options.shift = b;
       options.extreme_tolerance = 1e-12;
       auto h_tri = obs::empty_histogram(config);
-      const auto row = tri::observe_trial(spec, 1500, kSeed, trial, config, h_tri, options);
+      const auto row = tri::observe_tridiagonal_trial(spec, 1500, kSeed, trial, config, h_tri, options);
 
       const auto p = tri::affine(tri::sample(spec, 1500, kSeed, trial), a, b);
       const auto lambda = dsterf(p);
       auto h_dense = obs::empty_histogram(config);
-      const auto expected = obs::observe_trial(trial, lambda, config, h_dense);
+      const auto expected = obs::observe_spectrum(trial, lambda, config, h_dense);
 
       ASSERT_FALSE(row.failed) << row.reason;
       EXPECT_EQ(h_tri, h_dense) << "a=" << a << " trial=" << trial;

@@ -9,13 +9,12 @@
 #include <utility>
 #include <vector>
 
+#include "freegap/declarations.hpp"
+
 namespace freegap::analysis {
 
-/// A point mass of a law.
-struct Atom {
-  double value;
-  double mass;
-};
+/// A point mass of a law: its value and its weight (the same type as a declared atom).
+using declarations::Atom;
 
 /// An interval (lo, hi) of the real line.
 struct Interval {

@@ -1,5 +1,5 @@
 // One trial of a tridiagonal model observed without diagonalising, into the records and
-// histogram that observe::observe_trial produces from a dense spectrum.
+// histogram that observe::observe_spectrum produces from a dense spectrum.
 #include <algorithm>
 #include <cmath>
 #include <string>
@@ -133,7 +133,7 @@ observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
   return row;
 }
 
-observe::TrialRecord observe_trial(const ModelSpec& spec, Index n, std::uint64_t seed,
+observe::TrialRecord observe_tridiagonal_trial(const ModelSpec& spec, Index n, std::uint64_t seed,
                                    std::uint64_t trial, const observe::ObserveConfig& config,
                                    observe::Histogram& into, const TrialOptions& options) {
   if (!std::isfinite(options.scale) || !std::isfinite(options.shift)) {

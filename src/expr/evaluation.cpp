@@ -344,7 +344,7 @@ std::string format_bytes(double bytes) {
 
 }  // namespace
 
-struct PlanData {
+struct EvaluationData {
   std::shared_ptr<const ExpressionData> expression;
   Index n = 0;
   std::vector<Index> dims;  // concrete size of each dimension symbol
@@ -371,7 +371,7 @@ using detail::format_bytes;
 using detail::format_flops;
 using detail::Node;
 using detail::NodeKind;
-using detail::PlanData;
+using detail::EvaluationData;
 using detail::Ref;
 using detail::Step;
 
@@ -379,7 +379,7 @@ namespace {
 
 /// Column counts (k₊, k₋) of the two rank-k updates for Y D Y^*, estimated at plan time from the
 /// declared law of D (exact for atom laws; otherwise all N columns, one fewer for a unitary Y).
-std::pair<Index, Index> conjugate_columns(const PlanData& p, const Node& d, bool unitary) {
+std::pair<Index, Index> conjugate_columns(const EvaluationData& p, const Node& d, bool unitary) {
   const Index n = p.dims[d.rows];
   if (d.kind == NodeKind::leaf) {
     const auto& spec = p.expression->declared[d.leaf];
@@ -406,9 +406,9 @@ std::pair<Index, Index> conjugate_columns(const PlanData& p, const Node& d, bool
   return {unitary ? n - 1 : n, 0};
 }
 
-class Planner {
+class EvaluationBuilder {
  public:
-  Planner(PlanData& p, const PlanOptions& options) : p_(p), options_(options) {}
+  EvaluationBuilder(EvaluationData& p, const EvaluationOptions& options) : p_(p), options_(options) {}
 
   void run() {
     const auto& nodes = p_.nodes;
@@ -759,8 +759,8 @@ class Planner {
     }
   }
 
-  PlanData& p_;
-  const PlanOptions& options_;
+  EvaluationData& p_;
+  const EvaluationOptions& options_;
   std::vector<int> uses_;
   std::vector<bool> reachable_;
   std::vector<bool> need_full_;
@@ -770,9 +770,9 @@ class Planner {
 
 }  // namespace
 
-Plan::Plan(const Expression& expression, Index n, const PlanOptions& options) {
+Evaluation::Evaluation(const Expression& expression, Index n, const EvaluationOptions& options) {
   if (n < 1) throw InputError("matrix size must be at least 1 (got " + std::to_string(n) + ")");
-  auto p = std::make_shared<PlanData>();
+  auto p = std::make_shared<EvaluationData>();
   p->expression = expression.data_;
   p->n = n;
   p->dims.push_back(n);
@@ -782,19 +782,19 @@ Plan::Plan(const Expression& expression, Index n, const PlanOptions& options) {
   detail::Graph graph(*p->expression);
   p->root = detail::Lowering(*p->expression, graph).root();
   p->nodes = std::move(graph.nodes);
-  Planner(*p, options).run();
+  EvaluationBuilder(*p, options).run();
   data_ = std::move(p);
 }
 
-Index Plan::size() const { return data_->n; }
-Spectrum Plan::spectrum() const { return data_->expression->spectrum; }
-const std::vector<StepInfo>& Plan::steps() const { return data_->infos; }
-double Plan::flops() const { return data_->flops; }
-std::size_t Plan::peak_temporary_bytes() const { return data_->peak; }
-std::size_t Plan::input_bytes() const { return data_->inputs; }
+Index Evaluation::size() const { return data_->n; }
+Spectrum Evaluation::spectrum() const { return data_->expression->spectrum; }
+const std::vector<StepInfo>& Evaluation::steps() const { return data_->infos; }
+double Evaluation::flops() const { return data_->flops; }
+std::size_t Evaluation::peak_temporary_bytes() const { return data_->peak; }
+std::size_t Evaluation::input_bytes() const { return data_->inputs; }
 
-std::string Plan::explain() const {
-  const PlanData& p = *data_;
+std::string Evaluation::explain() const {
+  const EvaluationData& p = *data_;
   const auto& e = *p.expression;
   std::ostringstream out;
   out << "expression: " << e.text << "\n";
@@ -829,7 +829,7 @@ std::string Plan::explain() const {
 }
 
 std::size_t peak_working_bytes(const Expression& expression, Index n) {
-  const Plan plan(expression, n);
+  const Evaluation plan(expression, n);
   return plan.input_bytes() + plan.peak_temporary_bytes();
 }
 
@@ -849,7 +849,7 @@ struct Buffer {
 
 class Evaluator {
  public:
-  Evaluator(const PlanData& p, const std::vector<ensembles::Sample>& samples)
+  Evaluator(const EvaluationData& p, const std::vector<ensembles::Sample>& samples)
       : p_(p), samples_(samples), buffers_(p.buffer_is_vector.size()) {}
 
   Evaluated run() {
@@ -1157,14 +1157,14 @@ class Evaluator {
     }
   }
 
-  const PlanData& p_;
+  const EvaluationData& p_;
   const std::vector<ensembles::Sample>& samples_;
   std::vector<Buffer> buffers_;
 };
 
 }  // namespace
 
-Evaluated Plan::evaluate(const std::vector<ensembles::Sample>& samples) const {
+Evaluated Evaluation::evaluate(const std::vector<ensembles::Sample>& samples) const {
   return Evaluator(*data_, samples).run();
 }
 
