@@ -169,6 +169,7 @@ struct SizeForecast {
 
 struct Forecast {
   std::string job_path, expression, path;  ///< path: "dense" or "tridiagonal"
+  std::string path_reason;                 ///< why (study::Study::path_reason)
   Options options;
   CostFit cost;
   std::string cost_source;  ///< "measured now (…)" or "from <file>"

@@ -48,6 +48,13 @@ class Study {
   /// shorter (unit u holds trials [u·B, min((u+1)·B, T))).
   std::int64_t unit_count(std::size_t i) const;
   std::int64_t trials_in_unit(std::size_t i, std::int64_t unit) const;
+  /// Peak bytes one rank holds for one trial of size `i` (peak_bytes below; `keeps_matrix`: an
+  /// estimator reads the trial's matrix).
+  std::size_t peak_bytes(std::size_t i, bool keeps_matrix) const;
+  /// Refuses `threads` > 1 BLAS threads per rank when the job needs complex singular value
+  /// decompositions, which crash with more than one thread in the OpenBLAS Debian 12 ships
+  /// (InputError naming --threads and the fix).
+  void check_threads(int threads) const;
   /// The limit of the expression with its exact moments up to max_moment: closed-form rules,
   /// free convolutions, then the polynomial solver (limit.hpp). Never throws for a model it
   /// cannot predict: `reason` says why.

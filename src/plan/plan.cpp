@@ -810,25 +810,6 @@ void slurm_request(Forecast& e, const job::Job& job) {
   e.slurm_command = command;
 }
 
-// Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
-// 12's OpenBLAS 0.3.21; see run.cpp).
-void refuse_threaded_complex_svd(const job::Job& job, const model::SizeRunner& runner,
-                                 int threads) {
-  bool complex_svd = false;
-  for (const auto& m : job.matrices) {
-    complex_svd |=
-        m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
-  }
-  const auto& x = runner.expression();
-  complex_svd |= x.spectrum() == expr::Spectrum::singular_values && !x.is_real();
-  if (complex_svd) {
-    throw InputError("--threads " + std::to_string(threads) +
-                     ": this job needs complex singular value decompositions, which crash with "
-                     "more than one OpenBLAS thread in the OpenBLAS shipped with Debian 12; plan "
-                     "with --threads 1 and more ranks instead");
-  }
-}
-
 // The cost of a trial: from the calibration file, or measured now and stored there.
 void find_cost(Forecast& e, const job::Job& job, const Options& options, std::ostream& log) {
   const std::string cal_path =
@@ -879,9 +860,10 @@ void find_memory_limit(Forecast& e, const job::Job& job, const Options& options)
 
 // Every size's estimate (appended to e.sizes, its core-hours added to e.core_hours); returns the
 // predicted seconds of every unit of the job.
-std::vector<double> estimate_sizes(Forecast& e, const job::Job& job, const Options& options,
-                                   const std::vector<model::SizeRunner>& runners,
+std::vector<double> estimate_sizes(Forecast& e, const study::Study& st, const Options& options,
                                    bool keeps_matrix) {
+  const job::Job& job = st.job();
+  const std::vector<model::SizeRunner>& runners = st.runners();
   std::vector<double> unit_seconds;
   for (std::size_t i = 0; i < job.sizes.size(); ++i) {
     SizeForecast s;
@@ -889,7 +871,7 @@ std::vector<double> estimate_sizes(Forecast& e, const job::Job& job, const Optio
     s.trials = job.trials[i];
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
-    s.peak_bytes = study::peak_bytes(runners[i], keeps_matrix);
+    s.peak_bytes = st.peak_bytes(i, keeps_matrix);
     s.working_bytes = expr::peak_working_bytes(runners[i].expression(), runners[i].size());
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
@@ -902,9 +884,8 @@ std::vector<double> estimate_sizes(Forecast& e, const job::Job& job, const Optio
           "raise memory_per_rank where the node has the memory");
     }
     e.core_hours += s.core_hours;
-    for (std::int64_t u = 0; u * job.trials_per_unit < s.trials; ++u) {
-      const auto in_unit = std::min(job.trials_per_unit, s.trials - u * job.trials_per_unit);
-      unit_seconds.push_back(static_cast<double>(in_unit) * s.seconds_per_trial +
+    for (std::int64_t u = 0; u < st.unit_count(i); ++u) {
+      unit_seconds.push_back(static_cast<double>(st.trials_in_unit(i, u)) * s.seconds_per_trial +
                              0.002);  // + commit
     }
     e.sizes.push_back(s);
@@ -998,17 +979,21 @@ Forecast forecast(const job::Job& job, const Options& options, std::ostream& log
   e.job_path = job.path;
   e.expression = job.expression;
   e.options = options;
-  // Build every size's runner first: a bad model fails before any measurement.
-  const std::vector<model::SizeRunner> runners = study::runners(job);
+  // Compile the study first (every size's runner): a bad model fails before any measurement.
+  const study::Study st(job);
+  const std::vector<model::SizeRunner>& runners = st.runners();
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
   // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
   e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
-  if (options.threads > 1) refuse_threaded_complex_svd(job, runners.front(), options.threads);
+  e.path_reason = st.path_reason(0);
+  // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
+  // 12's OpenBLAS 0.3.21): the same refusal, from the study.
+  st.check_threads(options.threads);
 
   find_cost(e, job, options, log);
   find_memory_limit(e, job, options);
-  const std::vector<double> unit_seconds = estimate_sizes(e, job, options, runners, keeps_matrix);
+  const std::vector<double> unit_seconds = estimate_sizes(e, st, options, keeps_matrix);
   e.output_bytes = run_file_bytes(job);
   describe_kept_spectra(e, job);
   e.output_path = job.output;
@@ -1034,6 +1019,7 @@ std::string format(const Forecast& e) {
   char line[256];
   out << "job:          " << e.job_path << "\n";
   out << "expression:   " << e.expression << " (" << e.path << " path)\n";
+  out << "why the path: " << e.path_reason << "\n";
   out << "ranks:        " << e.options.ranks << " × " << e.options.threads << " BLAS thread(s)\n";
   out << "cost model:   t(N) = " << e.cost.formula() << " per trial, " << e.cost_source << "\n";
   if (e.cost.terms.size() > 1 && !e.sizes.empty()) {

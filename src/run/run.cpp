@@ -312,7 +312,7 @@ void check_free_space(const job::Job& job) {
 /// The per-size pieces every rank needs: the trial runner and the observation settings.
 struct Prepared {
   job::Job job;
-  std::vector<model::SizeRunner> runners;
+  std::optional<study::Study> study;  // the job compiled: its runners, units and peak bytes
   std::vector<observe::ObserveConfig> configs;  // filled after the bin edges are known
   /// The job's estimators, opened in this rank (empty set without any). Shared so that the
   /// const Prepared handed around can still call them (a plug-in's helper process has state).
@@ -361,17 +361,18 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.job_canonical = p.job.canonical();
   h.job_hash = p.job.hash();
   h.expression = p.job.expression;
-  const auto& e = p.runners.front().expression();
+  const auto& e = p.study->runners().front().expression();
   h.self_adjoint = e.self_adjoint();
-  h.spectrum = p.runners.front().spectrum_kind();
+  h.spectrum = p.study->runners().front().spectrum_kind();
   h.metadata["job_name"] = p.job.name.empty() ? std::string("(unnamed)") : p.job.name;
   h.metadata["seed"] = std::to_string(p.job.seed);
   // Which path computed the numbers (they differ between paths, so this is not provenance).
-  h.metadata["path"] = p.runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  h.metadata["path"] =
+      p.study->runners().front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
   // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
   h.metadata["blas_threads"] = std::to_string(threads);
-  for (std::size_t i = 0; i < p.runners.size(); ++i) {
+  for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
     store::SizeLayout s;
     s.n = p.job.sizes[i];
     s.trials = p.job.trials[i];
@@ -419,7 +420,7 @@ bool compute_unit(const Prepared& p, const Unit& unit, int rank, UnitDone& done,
   done.unit = unit.unit;
   done.rank = rank;
   done.obs = observe::start_observations(p.configs[unit.size_index]);
-  const auto& runner = p.runners[unit.size_index];
+  const auto& runner = p.study->runners()[unit.size_index];
   auto& estimators = *p.estimators;
   std::vector<double> values;
   std::vector<std::string> reasons;
@@ -922,24 +923,6 @@ void read_job_text(const std::string& job_path, std::string& text, int& code,
   }
 }
 
-/// Refuses more than one BLAS thread for a job that needs complex singular value decompositions.
-void refuse_threaded_complex_svd(const Prepared& p, int threads) {
-  // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
-  // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
-  bool complex_svd = false;
-  for (const auto& m : p.job.matrices) {
-    complex_svd |=
-        m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
-  }
-  const auto& e = p.runners.front().expression();
-  complex_svd |= e.spectrum() == expr::Spectrum::singular_values && !e.is_real();
-  if (complex_svd) {
-    throw InputError("--threads " + std::to_string(threads) +
-                     ": this job needs complex singular value decompositions, which crash "
-                     "with more than one OpenBLAS thread in the OpenBLAS shipped with "
-                     "Debian 12; use --threads 1 and more ranks instead");
-  }
-}
 
 /// Parses the job text and builds its runners and estimators in this rank.
 void prepare_job(Prepared& p, const std::string& text, const std::string& job_path,
@@ -947,13 +930,13 @@ void prepare_job(Prepared& p, const std::string& text, const std::string& job_pa
   p.job = job::parse_job(text, job_path, true,
                          options.confine ? job::Paths::confined : job::Paths::anywhere);
   if (!options.output.empty()) p.job.output = options.output;
-  p.runners = study::runners(p.job);
+  p.study.emplace(p.job);
   // Opens and checks every estimator (a library is loaded and described by its helper
   // process, never here: entry points, ABI version, declared names; commands on PATH) on
   // every rank, before anything is written.
   p.estimators = std::make_shared<estimate::EstimatorSet>(p.job);
   p.estimators->set_stop_check([] { return stop_requested(); });
-  if (options.threads > 1) refuse_threaded_complex_svd(p, options.threads);
+  p.study->check_threads(options.threads);
 }
 
 /// prepare_job, its failure as a code and message for agree() ({0, ""} if it succeeds).
@@ -988,7 +971,7 @@ std::pair<int, std::string> check_memory(const Prepared& p, MPI_Comm comm) {
   }
   std::string msg;
   int c = 0;
-  for (const auto& r : p.runners) {
+  for (const auto& r : p.study->runners()) {
     const auto need = study::peak_bytes(r, p.estimators->wants_matrix());
     if (limit > 0 && need > limit) {
       c = kExitBadInput;
@@ -1004,12 +987,13 @@ std::pair<int, std::string> check_memory(const Prepared& p, MPI_Comm comm) {
 
 /// --explain: each size's evaluation plan, trials and peak memory, then the run file's size.
 void print_explanation(const Prepared& p, std::ostream& out) {
-  for (std::size_t i = 0; i < p.runners.size(); ++i) {
-    out << p.runners[i].explain();
+  for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
+    out << p.study->runners()[i].explain();
+    out << "why the path: " << p.study->path_reason(i) << "\n";
     out << "trials: " << p.job.trials[i] << " in units of " << p.job.trials_per_unit
         << "; estimated peak per rank: "
         << human_bytes(static_cast<double>(
-               study::peak_bytes(p.runners[i], p.estimators->wants_matrix())))
+               p.study->peak_bytes(i, p.estimators->wants_matrix())))
         << "\n\n";
   }
   out << space_line(p.job) << "\n";
@@ -1051,12 +1035,12 @@ void open_run_file(Prepared& p, const RunOptions& options, std::vector<double>& 
     edges = resumed_edges(p, path, threads);
   } else {
     edges = p.job.observe.auto_range
-                ? pilot_edges(p.job, p.runners.front())
+                ? pilot_edges(p.job, p.study->runners().front())
                 : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
   }
   if (edges.size() < 2) edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
-  for (std::size_t i = 0; i < p.runners.size(); ++i) {
-    p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+  for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
+    p.configs.push_back(config_for(p.job, i, edges, p.study->runners()[i]));
   }
   file.emplace(resume ? store::RunFile::open_for_resume(path, make_header(p, options.threads))
                       : store::RunFile::create(path, make_header(p, options.threads)));
@@ -1069,8 +1053,8 @@ void share_edges(Prepared& p, std::vector<double>& edges, MPI_Comm comm) {
   edges.resize(static_cast<std::size_t>(ne));
   MPI_Bcast(edges.data(), static_cast<int>(ne), MPI_DOUBLE, 0, comm);
   p.configs.clear();
-  for (std::size_t i = 0; i < p.runners.size(); ++i) {
-    p.configs.push_back(config_for(p.job, i, edges, p.runners[i]));
+  for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
+    p.configs.push_back(config_for(p.job, i, edges, p.study->runners()[i]));
   }
 }
 
@@ -1099,7 +1083,9 @@ int run_session(Prepared& p, store::RunFile& file, const RunOptions& options, MP
   try {
     std::vector<Unit> pending;
     std::vector<std::vector<bool>> committed;
-    for (std::size_t i = 0; i < p.runners.size(); ++i) committed.push_back(file.committed(i));
+    for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
+      committed.push_back(file.committed(i));
+    }
     for (const auto& u : all_units(p.job)) {
       if (!committed[u.size_index][static_cast<std::size_t>(u.unit)]) pending.push_back(u);
     }

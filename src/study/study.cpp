@@ -167,6 +167,28 @@ std::int64_t Study::trials_in_unit(std::size_t i, std::int64_t unit) const {
   return std::max<std::int64_t>(0, std::min(b, job_.trials.at(i) - unit * b));
 }
 
+std::size_t Study::peak_bytes(std::size_t i, bool keeps_matrix) const {
+  return study::peak_bytes(runners_.at(i), keeps_matrix);
+}
+
+void Study::check_threads(int threads) const {
+  if (threads <= 1) return;
+  // OpenBLAS 0.3.21 (Debian 12) crashes in threaded zgesdd (inside zgebrd's zgemv) in most
+  // runs at N ≥ 200 (measured here); refuse rather than crash mid-run.
+  bool complex_svd = false;
+  for (const auto& m : job_.matrices) {
+    complex_svd |=
+        m.kind == declarations::Kind::haar_unitary && m.haar == declarations::HaarMethod::polar;
+  }
+  complex_svd |= expression_.spectrum() == expr::Spectrum::singular_values && !expression_.is_real();
+  if (complex_svd) {
+    throw InputError("--threads " + std::to_string(threads) +
+                     ": this job needs complex singular value decompositions, which crash "
+                     "with more than one OpenBLAS thread in the OpenBLAS shipped with "
+                     "Debian 12; use --threads 1 and more ranks instead");
+  }
+}
+
 analysis::DerivedLimit Study::limit(int max_moment) const {
   return analysis::derive_limit(expression_, max_moment);
 }

@@ -10,8 +10,9 @@ For every example job in jobs/ and two jobs made for the case that used to diffe
 - a β-Hermite matrix with an estimator: `run` refuses it (no spectrum on that path); `plan` used
   to accept it.
 What must hold: `run --explain` (which builds the runners and runs nothing) and `plan` name the
-same path, the same number of work units (Σ over sizes of ⌈trials / trials_per_unit⌉), and when one
-refuses, both refuse with the same message and exit code 2.
+same path for the same reason (study::Study::path_reason), the same number of work units (Σ over
+sizes of ⌈trials / trials_per_unit⌉), and when one refuses, both refuse with the same message and
+exit code 2 — also for --threads 2 on a job that needs complex singular value decompositions.
 """
 import glob
 import math
@@ -49,9 +50,23 @@ norm = "limit_norm"
 """
 
 
+# A scenario of our own: a two-level signal rotated by a Haar unitary drawn as a polar factor.
+POLAR = rh.fixture_job("rotated-two-level", """\
+seed = 5
+sizes = [20]
+trials = 2
+""", """\
+
+[matrices.U2]
+ensemble = "haar_unitary"
+method = "polar"
+""").replace('expression = "B + U B U^*"', 'expression = "B + U2 B U2^*"')
+
+
 def explain(exe, job, d):
     r = rh.run([exe, "run", job, "--explain"], d)
     paths, units = set(), 0
+    reasons = set(re.findall(r"^why the path: (.*)$", r.stdout, re.M))
     for block in r.stdout.split("\nexpression:")[0:]:
         if "size: N =" not in block:
             continue
@@ -59,14 +74,15 @@ def explain(exe, job, d):
         m = re.search(r"^trials: (\d+) in units of (\d+)", block, re.M)
         if m:
             units += math.ceil(int(m.group(1)) / int(m.group(2)))
-    return r, paths, units
+    return r, paths, units, reasons
 
 
 def planned(exe, job, d):
     r = rh.run([exe, "plan", job], d)
     m = re.search(r"^expression:.*\((\w+) path\)", r.stdout, re.M)
     u = re.search(r"in (\d+) units", r.stdout)
-    return r, (m.group(1) if m else None), (int(u.group(1)) if u else None)
+    why = re.search(r"^why the path: (.*)$", r.stdout, re.M)
+    return r, (m.group(1) if m else None), (int(u.group(1)) if u else None), (why.group(1) if why else None)
 
 
 def main():
@@ -79,15 +95,20 @@ def main():
                         GUE_WITH_ESTIMATOR % ("beta_hermite", "beta = 4"))
         for job in jobs + [gue]:
             name = os.path.basename(job)
-            er, paths, units = explain(exe, job, d)
-            pr, path, punits = planned(exe, job, d)
+            er, paths, units, reasons = explain(exe, job, d)
+            pr, path, punits, why = planned(exe, job, d)
             if not c.check(er.returncode == 0 and pr.returncode == 0, "%s: both accept it" % name):
                 print(er.stderr, pr.stderr)
                 continue
             c.check(len(paths) == 1 and path in paths,
                     "%s: run takes the %s path, plan times the %s path" % (name, "/".join(sorted(paths)), path))
             c.check(units == punits, "%s: %d work units in both (plan: %s)" % (name, units, punits))
-        c.check(explain(exe, gue, d)[1] == {"dense"}, "the GUE with an estimator is on the dense path")
+            c.check(why is not None and reasons == {why},
+                    "%s: for the same reason (%s)" % (name, why))
+        _, paths, _, reasons = explain(exe, gue, d)
+        c.check(paths == {"dense"}, "the GUE with an estimator is on the dense path")
+        c.check(len(reasons) == 1 and "estimators read every trial's spectrum" in next(iter(reasons)),
+                "… because its estimators read every trial's spectrum: %s" % reasons)
         er = rh.run([exe, "run", beta, "--explain"], d)
         pr = rh.run([exe, "plan", beta], d)
         c.check(er.returncode == 2 and pr.returncode == 2,
@@ -96,6 +117,13 @@ def main():
                 "with the same message: %s" % er.stderr.strip())
         c.check("estimators need every trial's spectrum" in pr.stderr and "beta-estimator.toml:" in pr.stderr,
                 "the message names the job's place and the fix")
+        # A Haar unitary by its polar factor needs complex SVDs: one refusal of --threads 2.
+        polar = rh.write(os.path.join(d, "polar.toml"), POLAR)
+        er = rh.run([exe, "run", polar, "--explain", "--threads", "2"], d)
+        pr = rh.run([exe, "plan", polar, "--threads", "2"], d)
+        c.check(er.returncode == 2 and pr.returncode == 2 and er.stderr.strip() == pr.stderr.strip()
+                and "--threads 2: this job needs complex singular value decompositions" in er.stderr,
+                "--threads 2 with complex SVDs: both refuse with the same message", er.stderr + pr.stderr)
     c.finish()
 
 
