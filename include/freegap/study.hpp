@@ -23,10 +23,12 @@ class Study {
   /// with the job's place for every refusal, as `run` gives it).
   explicit Study(job::Job job);
 
-  /// The study of declarations and an expression alone, without sizes (`freegap limit`): the same
-  /// checks of the expression as a job's.
+  /// The study of declarations and an expression without a job file (`freegap limit`, `freegap
+  /// sample`): the same checks of the expression as a job's, and one runner per size when sizes
+  /// are given (increasing, positive; no work units).
   static Study of_expression(std::vector<declarations::MatrixSpec> matrices,
-                             const std::string& expression, bool singular_values = false);
+                             const std::string& expression, bool singular_values = false,
+                             std::vector<std::int64_t> sizes = {});
 
   /// The study of the job a run file stores (its text and canonical text). A relative path the
   /// job names (an eigenvalue file) is looked for beside `run_file` (when given), then in the

@@ -19,6 +19,7 @@
 #include "freegap/run.hpp"
 #include "freegap/stop.hpp"
 #include "freegap/store.hpp"
+#include "freegap/study.hpp"
 #include "freegap/version.hpp"
 
 namespace {
@@ -70,10 +71,8 @@ struct SampleOptions {
 };
 
 int run_sample(const SampleOptions& opt) {
-  freegap::model::Model model;
-  for (const auto& d : opt.declarations) model.matrices.push_back(freegap::model::parse_declaration(d));
-  model.expression = opt.expression;
-  model.check.force_singular_values = opt.singular_values;
+  std::vector<freegap::declarations::MatrixSpec> matrices;
+  for (const auto& d : opt.declarations) matrices.push_back(freegap::model::parse_declaration(d));
   if (opt.trials < 1) throw freegap::InputError("--trials must be at least 1 (got " + std::to_string(opt.trials) + ")");
   for (std::size_t i = 0; i < opt.sizes.size(); ++i) {
     if (opt.sizes[i] < 1) throw freegap::InputError("--sizes: every size must be positive (got " + std::to_string(opt.sizes[i]) + ")");
@@ -82,11 +81,15 @@ int run_sample(const SampleOptions& opt) {
                                 " after " + std::to_string(opt.sizes[i - 1]) + ")");
     }
   }
-  // Build every size's runner first, so a bad declaration or expression fails before any work.
-  std::vector<freegap::model::SizeRunner> runners;
-  for (long long n : opt.sizes) runners.emplace_back(model, n);
+  // The compiled study (every size's runner) first, so a bad declaration or expression fails
+  // before any work; the same model as a job's.
+  const freegap::study::Study study = freegap::study::Study::of_expression(
+      matrices, opt.expression, opt.singular_values, {opt.sizes.begin(), opt.sizes.end()});
+  const auto& runners = study.runners();
   if (opt.explain) {
-    for (const auto& r : runners) std::cout << r.evaluation().explain() << "\n";
+    for (std::size_t i = 0; i < runners.size(); ++i) {
+      std::cout << runners[i].explain() << "why the path: " << study.path_reason(i) << "\n\n";
+    }
     return 0;
   }
   const auto& expression = runners.front().expression();
@@ -99,7 +102,7 @@ int run_sample(const SampleOptions& opt) {
   std::printf("%8s %6s", "N", "failed");
   for (int k = 1; k <= opt.max_moment; ++k) std::printf("   %20s", ("m_" + std::to_string(k)).c_str());
   std::printf("   %18s %18s %10s\n", "largest", "norm", "s/trial");
-  for (auto& runner : runners) {
+  for (const auto& runner : runners) {
     freegap::observe::ObserveConfig config;
     config.bin_edges = freegap::observe::uniform_edges(-1.0, 1.0, 1);  // histogram unused here
     config.max_moment = opt.max_moment;
@@ -122,6 +125,23 @@ int run_sample(const SampleOptions& opt) {
   return 0;
 }
 
+// `inspect`: the stored job as this freegap compiles it (study::Study, as `report` does): its
+// path and why, and whether that is the path the run recorded; or why it no longer compiles.
+void print_compiled_study(const freegap::store::RunHeader& h, const std::string& path) {
+  try {
+    const auto study = freegap::study::Study::of_stored_job(h.job_text, h.job_canonical, path);
+    if (study.runners().empty()) return;
+    const bool tridiagonal = study.runners().front().path() == freegap::model::Path::tridiagonal;
+    const std::string here = tridiagonal ? "tridiagonal" : "dense";
+    const auto recorded = h.metadata.find("path");
+    const bool differs = recorded != h.metadata.end() && recorded->second != here;
+    std::printf("compiled:   %s%s\n", study.path_reason(0).c_str(),
+                differs ? (" (the run recorded the " + recorded->second + " path)").c_str() : "");
+  } catch (const freegap::InputError& e) {
+    std::printf("compiled:   the stored job does not compile with this freegap: %s\n", e.what());
+  }
+}
+
 // `inspect`: the run file's header — who wrote it, its metadata, expression, job hash and checks.
 void print_inspect_header(const freegap::store::RunFile& file, const std::string& path) {
   const auto& h = file.header();
@@ -133,6 +153,7 @@ void print_inspect_header(const freegap::store::RunFile& file, const std::string
               h.self_adjoint ? "self-adjoint" : "not self-adjoint",
               freegap::store::spectrum_name(h.spectrum).c_str());
   std::printf("job hash:   %s\n", h.job_hash.c_str());
+  print_compiled_study(h, path);
   print_integrity(file.integrity());
 }
 
@@ -241,7 +262,7 @@ CLI::App* add_sample_command(CLI::App& app, SampleOptions& sample) {
   sample_cmd->add_option("-s,--seed", sample.seed, "Job seed");
   sample_cmd->add_option("-k,--max-moment", sample.max_moment, "Highest moment shown")
       ->check(CLI::Range(1, 12));
-  sample_cmd->add_flag("--explain", sample.explain, "Print the evaluation plan and stop");
+  sample_cmd->add_flag("--explain", sample.explain, "Print what each size computes (its path and why) and stop");
   sample_cmd->add_flag("--singular-values", sample.singular_values,
                        "Singular values even for a self-adjoint expression");
   return sample_cmd;

@@ -93,14 +93,19 @@ Study::Study(job::Job job) : job_(std::move(job)), expression_(checked_expressio
 }
 
 Study Study::of_expression(std::vector<declarations::MatrixSpec> matrices,
-                           const std::string& expression, bool singular_values) {
+                           const std::string& expression, bool singular_values,
+                           std::vector<std::int64_t> sizes) {
   job::Job job;
   job.matrices = std::move(matrices);
   job.expression = expression;
   job.observe.singular_values = singular_values;
+  job.trials.assign(sizes.size(), 0);
+  job.sizes = std::move(sizes);
   const model::Model m = model_of(job);
   expr::Expression checked(m.expression, m.matrices, m.check);
-  return Study(std::move(job), std::move(checked));
+  Study study(std::move(job), std::move(checked));
+  for (const auto n : study.job_.sizes) study.runners_.emplace_back(m, n);
+  return study;
 }
 
 Study Study::of_stored_job(const std::string& job_text, const std::string& job_canonical,
