@@ -671,9 +671,7 @@ Totals count_totals(const Prepared& p, const store::RunFile& file) {
     for (std::size_t u = 0; u < committed.size(); ++u) {
       if (committed[u]) {
         ++t.done_units;
-        const std::int64_t b = p.job.trials_per_unit;
-        t.done_trials +=
-            std::min<std::int64_t>(b, p.job.trials[i] - static_cast<std::int64_t>(u) * b);
+        t.done_trials += p.study->trials_in_unit(i, static_cast<std::int64_t>(u));
       }
     }
   }
