@@ -93,6 +93,21 @@ with rh.WorkDir("architecture") as work:
     check(r.returncode == 1 and "src/newpart/a.cpp: its part 'newpart' is not in docs/parts.toml" in r.stdout,
           "a part not declared in docs/parts.toml fails the check", r.stdout)
 
+# Header and source names pair in the analysis's rooms: every source is named after a header of
+# its room (public, include/freegap/analysis/<room>/, or private, beside it) or is <header>_<aspect>
+# (laws_pushforward.cpp beside laws.hpp), and every header has a source of its own name.
+for room in ("limits", "statistics", "reporting"):
+    headers = {f[:-4] for d in (os.path.join(repo, "include", "freegap", "analysis", room),
+                                os.path.join(repo, "analysis", room))
+               for f in os.listdir(d) if f.endswith(".hpp")}
+    sources = {f[:-4] for f in os.listdir(os.path.join(repo, "analysis", room)) if f.endswith(".cpp")}
+    unpaired = sorted(s for s in sources if not any(s == h or s.startswith(h + "_") for h in headers))
+    check(not unpaired, "analysis/%s: every source is named after a header of its room" % room,
+          "unpaired: %s" % ", ".join(unpaired))
+    lonely = sorted(headers - sources)
+    check(not lonely, "analysis/%s: every header has a source of its own name" % room,
+          "without a source: %s" % ", ".join(lonely))
+
 # The tests of the mathematics link neither MPI nor HDF5 (tests/CMakeLists.txt links them with
 # their parts only): their binaries, as the dynamic linker sees them.
 build = os.path.abspath(sys.argv[1]) if len(sys.argv) > 1 else None
