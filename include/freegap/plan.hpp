@@ -224,9 +224,8 @@ std::size_t available_memory_bytes();
 
 /// The whole estimate; measures (and stores) the cost if the calibration file lacks it. Progress
 /// notes (e.g. "measuring…") go to `log`.
+/// Its text, as `freegap plan` prints it, is analysis::forecast_text
+/// (freegap/analysis/reporting/console.hpp).
 Forecast forecast(const job::Job& job, const Options& options, std::ostream& log);
-
-/// The report `freegap plan` prints.
-std::string format(const Forecast& e);
 
 }  // namespace freegap::plan

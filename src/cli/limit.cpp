@@ -2,7 +2,6 @@
 // sampling) — support edges, operator-norm limit, moments, and a density/CDF table with plots.
 #include <algorithm>
 #include <cmath>
-#include <cstdio>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
@@ -13,6 +12,7 @@
 #include "commands.hpp"
 #include "freegap/analysis/limits/limit.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
+#include "freegap/analysis/reporting/console.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/install_paths.hpp"
 #include "freegap/model.hpp"
@@ -65,49 +65,6 @@ void check_limit_options(const LimitOptions& opt) {
   }
 }
 
-// The law found: the expression, its spectrum, the rule and the law (a polynomial's free
-// variables and pencil), the support and its bands, and the operator-norm limit.
-void print_law(const expr::Expression& expression, const analysis::DerivedLimit& derived,
-               const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
-               const analysis::Support& support, bool singular) {
-  std::printf("expression: %s\n", expression.text().c_str());
-  std::printf("spectrum: %s\n", singular ? "singular values" : "eigenvalues");
-  std::printf("rule: %s\n", derived.rule.c_str());
-  std::printf("law: %s\n", law.describe().c_str());
-  if (polynomial != nullptr) {
-    std::printf("free variables:\n");
-    for (const auto& l : polynomial->polynomial().letters) {
-      std::printf("  %-14s %s\n", l.name.c_str(), l.law->describe().c_str());
-    }
-    std::printf("pencil size: %d (self-adjoint linearization)\n", polynomial->pencil_size());
-  }
-  std::printf("support: [%.10f, %.10f]\n", support.lo, support.hi);
-  if (support.bands.size() > 1) {
-    std::printf("bands of the continuous part: %zu\n", support.bands.size());
-    for (const auto& band : support.bands) std::printf("  [%.10f, %.10f]\n", band.lo, band.hi);
-  }
-  const double norm = polynomial != nullptr ? polynomial->norm_limit()
-                      : singular ? support.hi
-                                 : std::max(std::abs(support.lo), std::abs(support.hi));
-  std::printf("operator-norm limit: %.10f\n", norm);
-}
-
-// The moments from the solver (or the law) beside the exact ones where they are known.
-void print_moments(const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
-                   const analysis::DerivedLimit& derived, int max_moment) {
-  const auto solver = polynomial != nullptr ? polynomial->solver_moments(max_moment)
-                                            : law.moments(max_moment);
-  const auto& exact = derived.exact_moments;
-  std::printf("moments     %-20s  exact\n", polynomial != nullptr ? "solver" : "law");
-  for (int k = 1; k <= max_moment; ++k) {
-    if (k < static_cast<int>(exact.size())) {
-      std::printf("  m%-3d %20.12g  %20.12g\n", k, solver[k], exact[k]);
-    } else {
-      std::printf("  m%-3d %20.12g  %20s\n", k, solver[k], "(not available)");
-    }
-  }
-}
-
 // The grid covers the support with a 5% margin on each side, or the window given, ends
 // included (the points x_i = LO + (HI − LO) i/(P − 1) of a report's density table).
 std::vector<double> density_grid(const LimitOptions& opt, const analysis::Support& support) {
@@ -121,18 +78,11 @@ std::vector<double> density_grid(const LimitOptions& opt, const analysis::Suppor
   return xs;
 }
 
-/// The density at every point of the grid (NaN where it failed), which points converged, and the
-/// polynomial solver's iterations (all points together, and the most at one point).
-struct Densities {
-  std::vector<double> density;
-  std::vector<bool> ok;
-  long long steps = 0, worst = 0;
-};
-
 // Every point gets a density or is named as failed; a failure never ends the command.
-Densities evaluate_densities(const analysis::Law& law, const analysis::PolynomialLaw* polynomial,
-                             const std::vector<double>& xs) {
-  Densities d;
+analysis::LimitDensities evaluate_densities(const analysis::Law& law,
+                                            const analysis::PolynomialLaw* polynomial,
+                                            const std::vector<double>& xs) {
+  analysis::LimitDensities d;
   d.density.assign(xs.size(), std::nan(""));
   d.ok.assign(xs.size(), false);
   if (polynomial != nullptr) {
@@ -150,46 +100,28 @@ Densities evaluate_densities(const analysis::Law& law, const analysis::Polynomia
   return d;
 }
 
-// How many points converged (with the solver's iterations), each point that did not, the point
-// masses and the law's note.
-void print_density_summary(const Densities& d, const std::vector<double>& xs, int points,
-                           const analysis::PolynomialLaw* polynomial,
-                           const analysis::Support& support,
-                           const analysis::DerivedLimit& derived) {
-  const auto converged = std::count(d.ok.begin(), d.ok.end(), true);
-  if (polynomial != nullptr) {
-    std::printf("density grid: %d points, %lld converged; iterations per point: mean %.1f, max %lld\n",
-                points, static_cast<long long>(converged), static_cast<double>(d.steps) / points,
-                d.worst);
-  } else {
-    std::printf("density grid: %d points, %lld converged\n", points,
-                static_cast<long long>(converged));
-  }
+// The CDF at every point of the grid (NaN where it failed); it integrates the density, so a stop
+// request ends it between points.
+std::vector<double> evaluate_cdf(const analysis::Law& law, const std::vector<double>& xs) {
+  std::vector<double> cdf(xs.size(), std::nan(""));
   for (std::size_t i = 0; i < xs.size(); ++i) {
-    if (!d.ok[i]) std::printf("  not converged at x = %.10g (no value reported)\n", xs[i]);
+    check_stop();
+    try {
+      cdf[i] = law.cdf(xs[i]);
+    } catch (const NumericalError&) {
+    }
   }
-  for (const auto& a : support.atoms) std::printf("point mass: %.6f at x = %.10g\n", a.weight, a.value);
-  if (!derived.law_note.empty()) std::printf("note: %s\n", derived.law_note.c_str());
+  return cdf;
 }
 
 // Writes the table x, density, cdf to `csv` (`output`: the -o directory, for the messages).
 void write_limit_csv(const std::filesystem::path& csv, const std::string& output,
                      const std::vector<double>& xs, const std::vector<double>& density,
                      const analysis::Law& law) {
+  const std::string table = analysis::limit_csv(xs, density, evaluate_cdf(law, xs));
   std::ofstream out(csv);
   if (!out) throw InputError("-o " + output + ": cannot write " + csv.string());
-  out << "x,density,cdf\n";
-  char line[128];
-  for (std::size_t i = 0; i < xs.size(); ++i) {
-    check_stop();  // the CDF integrates the density: stop before the table is complete
-    double cdf = std::nan("");
-    try {
-      cdf = law.cdf(xs[i]);
-    } catch (const NumericalError&) {
-    }
-    std::snprintf(line, sizeof line, "%.12g,%.12g,%.12g\n", xs[i], density[i], cdf);
-    out << line;
-  }
+  out << table;
   if (!out) throw Error("writing " + csv.string() + " failed");
 }
 
@@ -222,12 +154,20 @@ int run_limit(const LimitOptions& opt) {
   const auto support = law->support();
   const bool singular = expression.spectrum() == expr::Spectrum::singular_values;
 
-  print_law(expression, derived, *law, polynomial, support, singular);
-  print_moments(*law, polynomial, derived, opt.max_moment);
+  const double norm = polynomial != nullptr ? polynomial->norm_limit()
+                      : singular ? support.hi
+                                 : std::max(std::abs(support.lo), std::abs(support.hi));
+  std::cout << analysis::limit_law_text(expression, derived, *law, polynomial, support, singular,
+                                        norm);
+  const auto moments = polynomial != nullptr ? polynomial->solver_moments(opt.max_moment)
+                                             : law->moments(opt.max_moment);
+  std::cout << analysis::limit_moments_text(moments, polynomial != nullptr, derived,
+                                            opt.max_moment);
 
   const std::vector<double> xs = density_grid(opt, support);
-  const Densities densities = evaluate_densities(*law, polynomial, xs);
-  print_density_summary(densities, xs, opt.points, polynomial, support, derived);
+  const analysis::LimitDensities densities = evaluate_densities(*law, polynomial, xs);
+  std::cout << analysis::limit_density_text(densities, xs, polynomial != nullptr, support,
+                                            derived);
 
   if (opt.output.empty()) return 0;
   namespace fs = std::filesystem;
@@ -245,16 +185,7 @@ int run_limit(const LimitOptions& opt) {
                               std::to_string(support.lo) + " " + std::to_string(support.hi);
   const int rc = std::system(command.c_str());
   staged.commit();
-  std::printf("wrote %s\n", (dir / "limit.csv").string().c_str());
-  if (rc == 0) {
-    std::printf("wrote %s and %s\n", (dir / "limit.png").string().c_str(),
-                (dir / "limit.svg").string().c_str());
-  } else {
-    std::printf(
-        "note: no figures (the plot script %s failed; it needs /usr/bin/python3 with "
-        "matplotlib: apt-get install python3-matplotlib); the CSV is complete\n",
-        script.c_str());
-  }
+  std::cout << analysis::limit_files_text(dir, rc == 0, script);
   return 0;
 }
 

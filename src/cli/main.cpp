@@ -1,18 +1,15 @@
 // The freegap executable: parses the command line and calls the library (docs/building.md habit 1).
 #include <CLI/CLI.hpp>
-#include <algorithm>
-#include <map>
 #include <chrono>
 #include <cmath>
-#include <cstdio>
 #include <cstdlib>
 #include <iostream>
 #include <string>
 #include <vector>
 
 #include "commands.hpp"
+#include "freegap/analysis/reporting/console.hpp"
 #include "freegap/errors.hpp"
-#include "freegap/linalg.hpp"
 #include "freegap/model.hpp"
 #include "freegap/observe.hpp"
 #include "freegap/plan.hpp"
@@ -28,35 +25,12 @@ using freegap::kExitBadInput;
 using freegap::kExitDamaged;
 using freegap::kExitFailure;
 
-// What the checks found: whether the file has checksums, and each damaged unit, left out.
-void print_integrity(const freegap::store::Integrity& integrity) {
-  if (!integrity.checksummed) {
-    std::printf("checksums:  none (unverified: written before checksums)\n");
-  }
-  for (const auto& d : integrity.damaged) {
-    std::printf("damaged:    N = %lld, unit %lld: %s; left out (a resume computes it again)\n",
-                static_cast<long long>(d.n), static_cast<long long>(d.unit), d.reason.c_str());
-  }
-}
-
-// `inspect --verify`: every committed unit and the header against their checksums.
+// `inspect --verify`: every committed unit and the header against their checksums; exit 4 when
+// a unit is damaged.
 int run_verify(const std::string& path) {
   const auto integrity = freegap::store::verify(path);
-  std::printf("run file:   %s\n", path.c_str());
-  print_integrity(integrity);
-  if (!integrity.checksummed) {
-    std::printf(
-        "verify:     nothing to compare (the file has no checksums); it reads without "
-        "errors\n");
-    return 0;
-  }
-  if (integrity.damaged.empty()) {
-    std::printf("verify:     ok: the header and every committed unit match their checksums\n");
-    return 0;
-  }
-  std::printf("verify:     %zu damaged unit(s); every other committed unit matches its checksum\n",
-              integrity.damaged.size());
-  return kExitDamaged;
+  std::cout << freegap::analysis::verify_text(integrity, path);
+  return integrity.checksummed && !integrity.damaged.empty() ? kExitDamaged : 0;
 }
 
 struct SampleOptions {
@@ -87,21 +61,11 @@ int run_sample(const SampleOptions& opt) {
       matrices, opt.expression, opt.singular_values, {opt.sizes.begin(), opt.sizes.end()});
   const auto& runners = study.runners();
   if (opt.explain) {
-    for (std::size_t i = 0; i < runners.size(); ++i) {
-      std::cout << runners[i].explain() << "why the path: " << study.path_reason(i) << "\n\n";
-    }
+    std::cout << freegap::analysis::sample_explain_text(study);
     return 0;
   }
-  const auto& expression = runners.front().expression();
-  std::printf("expression: %s  (%s; %s)\n", expression.text().c_str(),
-              expression.self_adjoint() ? "self-adjoint" : "not self-adjoint",
-              expression.spectrum() == freegap::expr::Spectrum::eigenvalues ? "eigenvalues"
-                                                                          : "singular values");
-  std::printf("seed %llu, %lld trials per size; moments m_k = (1/N) sum x^k, mean +- standard error\n\n",
-              static_cast<unsigned long long>(opt.seed), opt.trials);
-  std::printf("%8s %6s", "N", "failed");
-  for (int k = 1; k <= opt.max_moment; ++k) std::printf("   %20s", ("m_" + std::to_string(k)).c_str());
-  std::printf("   %18s %18s %10s\n", "largest", "norm", "s/trial");
+  std::cout << freegap::analysis::sample_table_header(runners.front().expression(), opt.seed,
+                                                     opt.trials, opt.max_moment);
   for (const auto& runner : runners) {
     freegap::observe::ObserveConfig config;
     config.bin_edges = freegap::observe::uniform_edges(-1.0, 1.0, 1);  // histogram unused here
@@ -114,137 +78,17 @@ int run_sample(const SampleOptions& opt) {
       freegap::model::record(obs, runner.run(opt.seed, static_cast<std::uint64_t>(t)));
     }
     const double secs = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-    const auto s = freegap::observe::summarize(obs);
-    std::printf("%8lld %6lld", static_cast<long long>(runner.size()), static_cast<long long>(s.failed));
-    for (int k = 1; k <= opt.max_moment; ++k) {
-      std::printf("   %10.5f +- %7.5f", s.moments[k].mean, s.moments[k].standard_error);
-    }
-    std::printf("   %8.5f +- %6.4f %8.5f +- %6.4f %10.3f\n", s.max.mean, s.max.standard_error,
-                s.norm.mean, s.norm.standard_error, secs / static_cast<double>(opt.trials));
+    std::cout << freegap::analysis::sample_row(static_cast<long long>(runner.size()),
+                                               freegap::observe::summarize(obs), opt.max_moment,
+                                               secs / static_cast<double>(opt.trials));
   }
   return 0;
 }
 
-// `inspect`: the stored job as this freegap compiles it (study::Study, as `report` does): its
-// path and why, and whether that is the path the run recorded; or why it no longer compiles.
-void print_compiled_study(const freegap::store::RunHeader& h, const std::string& path) {
-  try {
-    const auto study = freegap::study::Study::of_stored_job(h.job_text, h.job_canonical, path);
-    if (study.runners().empty()) return;
-    const bool tridiagonal = study.runners().front().path() == freegap::model::Path::tridiagonal;
-    const std::string here = tridiagonal ? "tridiagonal" : "dense";
-    const auto recorded = h.metadata.find("path");
-    const bool differs = recorded != h.metadata.end() && recorded->second != here;
-    std::printf("compiled:   %s%s\n", study.path_reason(0).c_str(),
-                differs ? (" (the run recorded the " + recorded->second + " path)").c_str() : "");
-  } catch (const freegap::InputError& e) {
-    std::printf("compiled:   the stored job does not compile with this freegap: %s\n", e.what());
-  }
-}
-
-// `inspect`: the run file's header — who wrote it, its metadata, expression, job hash and checks.
-void print_inspect_header(const freegap::store::RunFile& file, const std::string& path) {
-  const auto& h = file.header();
-  std::printf("run file:   %s\n", path.c_str());
-  std::printf("written by: freegap %s (%s), format %d.x\n", h.tool_version.c_str(),
-              h.git_revision.c_str(), freegap::store::kFormatMajor);
-  for (const auto& [key, value] : h.metadata) std::printf("%-13s %s\n", (key + ":").c_str(), value.c_str());
-  std::printf("expression: %s (%s; %s)\n", h.expression.c_str(),
-              h.self_adjoint ? "self-adjoint" : "not self-adjoint",
-              freegap::store::spectrum_name(h.spectrum).c_str());
-  std::printf("job hash:   %s\n", h.job_hash.c_str());
-  print_compiled_study(h, path);
-  print_integrity(file.integrity());
-}
-
-// `inspect`: a row per size (units, trials, failures, kept spectra), then the run's status and its
-// trials' failure reasons.
-void print_size_table(const freegap::store::RunFile& file) {
-  const auto& h = file.header();
-  std::printf("%10s %12s %14s %10s %8s\n", "N", "units", "trials", "failed", "spectra");
-  bool complete = true;
-  std::vector<std::string> failures;
-  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
-    const auto& layout = h.sizes[i];
-    const auto committed = file.committed(i);
-    const auto done = std::count(committed.begin(), committed.end(), true);
-    const auto obs = file.read_observations(i);
-    const auto summary = freegap::observe::summarize(obs);
-    std::printf("%10lld %5lld/%-6lld %6lld/%-7lld %10lld %8lld%s\n", static_cast<long long>(layout.n),
-                static_cast<long long>(done), static_cast<long long>(committed.size()),
-                static_cast<long long>(obs.trials.size()), static_cast<long long>(layout.trials),
-                static_cast<long long>(summary.failed), static_cast<long long>(layout.keep_count()),
-                done == static_cast<long long>(committed.size()) ? "" : "  incomplete");
-    if (done != static_cast<long long>(committed.size())) complete = false;
-    for (const auto& [reason, count] : summary.failure_reasons) {
-      failures.push_back("N = " + std::to_string(layout.n) + ": " + std::to_string(count) +
-                         " trial(s): " + reason);
-    }
-  }
-  std::printf("\nstatus:     %s\n", complete ? "complete" : "incomplete (run the job again to resume)");
-  for (const auto& f : failures) std::printf("failure:    %s\n", f.c_str());
-}
-
-// `inspect`: the estimators' columns, and per size how many committed trials each failed, and why.
-void print_estimates(const freegap::store::RunFile& file) {
-  const auto& h = file.header();
-  std::string columns;
-  for (const auto& c : h.estimates) {
-    columns += (columns.empty() ? "" : ", ") + c.estimator + "." + c.estimate + " (truth " +
-               c.truth + ")";
-  }
-  std::printf("estimates:  %s\n", columns.c_str());
-  const auto names = h.estimators();
-  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
-    const auto rows = file.read_estimates(i);
-    for (std::size_t e = 0; e < names.size(); ++e) {
-      std::map<std::string, std::int64_t> reasons;
-      for (std::size_t t = 0; t < rows.trials.size(); ++t) {
-        const auto& reason = rows.failures[t * names.size() + e];
-        if (!reason.empty()) ++reasons[reason];
-      }
-      for (const auto& [reason, count] : reasons) {
-        std::printf("estimate failure: N = %lld: %s: %lld trial(s): %s\n",
-                    static_cast<long long>(h.sizes[i].n), names[e].c_str(),
-                    static_cast<long long>(count), reason.c_str());
-      }
-    }
-  }
-}
-
-// `inspect --moments`: per-size means over committed, non-failed trials, with standard errors
-// (derived when read).
-void print_moments(const freegap::store::RunFile& file) {
-  const auto& h = file.header();
-  std::printf("\nmoments m_k = (1/N) sum x^k over committed trials, mean +- standard error\n");
-  for (std::size_t i = 0; i < h.sizes.size(); ++i) {
-    const auto s = freegap::observe::summarize(file.read_observations(i));
-    std::printf("N = %lld (%lld trials):\n", static_cast<long long>(h.sizes[i].n),
-                static_cast<long long>(s.trials - s.failed));
-    for (std::size_t k = 1; k < s.moments.size(); ++k) {
-      std::printf("  m_%-2zu %14.6f +- %.6f\n", k, s.moments[k].mean, s.moments[k].standard_error);
-    }
-    std::printf("  smallest %9.6f, largest %9.6f, operator norm %.6f +- %.6f (mean over trials)\n",
-                s.min.mean, s.max.mean, s.norm.mean, s.norm.standard_error);
-  }
-}
-
+// `inspect`: the run file described (analysis::inspect_text).
 int run_inspect(const std::string& path, bool show_job, bool show_moments) {
   const auto file = freegap::store::RunFile::open_read(path);
-  const auto& h = file.header();
-  print_inspect_header(file, path);
-  std::printf("\n");
-  print_size_table(file);
-  if (!h.estimates.empty()) print_estimates(file);
-  const auto prov = file.read_provenance();
-  std::printf("created:    %s\n", prov.created.c_str());
-  for (std::size_t i = 0; i < prov.sessions.size(); ++i) {
-    const auto& s = prov.sessions[i];
-    std::printf("session %zu:  %s .. %s, %d rank(s), %s\n", i, s.started.c_str(),
-                s.ended.empty() ? "?" : s.ended.c_str(), s.ranks, s.status.c_str());
-  }
-  if (show_moments) print_moments(file);
-  if (show_job) std::printf("\n--- job file ---\n%s", h.job_text.c_str());
+  std::cout << freegap::analysis::inspect_text(file, path, show_job, show_moments);
   return 0;
 }
 

@@ -10,6 +10,7 @@
 #include <variant>
 
 #include "commands.hpp"
+#include "freegap/analysis/reporting/console.hpp"
 #include "freegap/analysis/reporting/report.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/job.hpp"
@@ -200,7 +201,7 @@ Subcommand add_plan_command(CLI::App& app) {
               }
             }
             const auto e = plan::forecast(job, args->options, std::cerr);
-            std::cout << pilot_text.str() << plan::format(e);
+            std::cout << pilot_text.str() << analysis::forecast_text(e);
             return 0;
           }};
 }
