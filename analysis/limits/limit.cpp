@@ -727,9 +727,9 @@ std::string solver_law_fails_check(const PolynomialLaw& law, const expr::Express
       }
     }
   }
-  // Not checked here: the total mass. The solver does not locate point masses away from the
-  // constant term, and its CDF table can miss a few 1e-3 near a singular point; a law whose
-  // moments are right is kept, and law_note states the shortfall in `limit` and `report`.
+  // Not checked here: the total mass. The solver can miss a point mass narrower than its grid
+  // or at a band's edge, and its CDF table can miss a little mass near a singular point; a law
+  // whose moments are right is kept, and law_note states the shortfall in `limit` and `report`.
   return {};
 }
 
@@ -765,8 +765,8 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
     if (std::abs(mass - 1.0) > 1e-4) {
       char buffer[320];
       std::snprintf(buffer, sizeof buffer,
-                    "the density and the point masses found add up to %.6f instead of 1 (point "
-                    "masses this solver does not locate, or its CDF table's error near a "
+                    "the density and the point masses found add up to %.6f instead of 1 (a point "
+                    "mass the solver's grid did not resolve, or its CDF table's error near a "
                     "singularity of the density): the CDF is off by up to %.1e, and distances "
                     "to this limit below that mean nothing",
                     mass, std::abs(1.0 - mass));

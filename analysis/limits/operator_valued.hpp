@@ -25,6 +25,14 @@ class OperatorValuedSolver {
   OperatorValuedSolver(const Pencil& pencil, const std::vector<FreeLetter>& letters);
 
   int size() const { return n_; }
+  /// Complex unknowns of the fixed point (n² per matrix unknown).
+  long long unknowns() const {
+    return static_cast<long long>(n_) * n_ *
+           (general_.empty() ? 1 : static_cast<long long>(general_.size()));
+  }
+  /// Whether Newton's Jacobian is analytic (semicircular letters only) rather than a forward
+  /// difference costing one map evaluation per unknown.
+  bool analytic_jacobian() const { return general_.empty(); }
   /// β = Λ_ε(z) − b_0, Λ_ε(z) = diag(z, iε, …, iε) (Belinschi, Mai & Speicher 2017).
   Matrix beta(cd z, double epsilon) const;
   /// A starting state for β with Im β > 0: G = β^{−1}, ω_j = β.

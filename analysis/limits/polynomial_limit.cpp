@@ -1,6 +1,8 @@
 // The limit law of a self-adjoint polynomial in free variables: densities by Stieltjes inversion
-// of the pencil's operator-valued Cauchy transform, edges by real-axis continuation, CDF from a
-// graded Gauss–Legendre table, moments by a contour integral.
+// of the pencil's operator-valued Cauchy transform; bands and gaps by a two-distance test on a
+// grid, their edges bisected (outer edges by real-axis continuation where it agrees); point
+// masses from the residue of the Cauchy transform; CDF from graded Gauss–Legendre tables per
+// band; moments by a contour integral.
 #include "freegap/analysis/limits/polynomial_limit.hpp"
 
 #include <Eigen/Dense>
@@ -8,6 +10,7 @@
 #include <cmath>
 #include <limits>
 #include <numbers>
+#include <optional>
 
 #include "freegap/analysis/limits/moments.hpp"
 #include "freegap/errors.hpp"
@@ -131,7 +134,9 @@ bool real_branch(const Eigen::MatrixXcd& G) {
 }
 
 // The outer edge on one side: the real solution (ε = 0) continued from `from` (beyond the norm
-// bound) towards the support with Newton and step halving; the edge is where it ends.
+// bound) towards the support with Newton and step halving; the edge is where it ends. It can walk
+// on through a band on a spurious real solution, so locate_bands uses it only where it ends
+// inside the bracket the two-distance test found.
 double find_edge(const OperatorValuedSolver& solver, double from, double direction, double scale,
                  const PolynomialLimitOptions& options) {
   State state;
@@ -193,6 +198,251 @@ double find_edge(const OperatorValuedSolver& solver, double from, double directi
   return x + direction * h;
 }
 
+// Where the continuous part lives, seen from two distances to the axis. Outside the support
+// −Im G(x + iε) = ε ∫ dμ(t)/((x − t)² + ε²) falls in proportion to ε; inside it tends to the
+// density (Stieltjes inversion); near an atom it grows like 1/ε. With f = −Im G/π at ε₁ and
+// ε₂ = ε₁/100, a point is in a band when (100 f₂ − f₁)/99 exceeds 1 % of f₁ and the rounding
+// floor, and f₂ ≤ 3 f₁ (a two-distance test of Stieltjes inversion; docs/check-values.md §4d′).
+// The solves take Λ(z) = diag(z, 0, …, 0) exactly: a regularised Λ_ε's O(ε) error spoils the
+// linearity in ε. The test tells the two sides of an edge apart down to about ε₁ from it. Unlike the real-axis continuation of
+// find_edge, it cannot walk through a band on a spurious real solution: found by
+// python.check_limit_catalogue, where 0.5 (U D U^* X + X U D U^*) + 2 X − 0.5 (W X + X W) got the
+// support [−0.70, 0.70] instead of about [−2.197, 2.197].
+class BandProbe {
+ public:
+  struct OverBudget {};
+
+  BandProbe(const OperatorValuedSolver& solver, double scale, const PolynomialLimitOptions& options,
+            double near_distance, long long budget)
+      : solver_(solver),
+        scale_(scale),
+        options_(options),
+        near_(near_distance * scale),
+        budget_(budget) {}
+
+  /// Whether x is in a band, continuing from `start` (the state of a point nearby) when given;
+  /// the nearer distance is continued from the farther one's solution. Throws OverBudget when
+  /// the probe's work (all points; see spend) passes its budget.
+  bool inside(double x, const State* start) {
+    const double e2 = near_, e1 = 100.0 * e2;
+    if (start != nullptr) far_state_ = *start;
+    const SolveReport far_solve =
+        solve_chain(solver_, cd(x, e1), 0.0, scale_, options_, far_state_, start != nullptr);
+    spend(far_solve);
+    // A point the solver cannot settle lies in or at the support (outside it the equation is a
+    // contraction far from the axis and Newton continues it): counted as inside.
+    if (!far_solve.converged) return true;
+    State near_state = far_state_;
+    const SolveReport near_solve =
+        solve_chain(solver_, cd(x, e2), 0.0, scale_, options_, near_state, true);
+    spend(near_solve);
+    if (!near_solve.converged) return true;
+    const double f1 = -far_solve.cauchy.imag() / kPi, f2 = -near_solve.cauchy.imag() / kPi;
+    // Im G(x + iε) = −ε G'(x) + O(ε³) outside, so (100 f₂ − f₁)/99 removes the part linear in
+    // ε (Richardson) and leaves the density inside, ~0 outside.
+    const double density = (100.0 * f2 - f1) / 99.0;
+    return density > std::max(1e-9 / scale_, 1e-2 * f1) && f2 <= 3.0 * f1;
+  }
+  /// The solution at the farther distance of the last probe.
+  const State& state() const { return far_state_; }
+  double resolution() const { return 100.0 * near_; }
+
+ private:
+  void spend(const SolveReport& r) {
+    // An averaged step costs one evaluation of the map, about the unknowns' count d; a Newton
+    // step up to a forward-difference Jacobian, d evaluations (an analytic one: about one).
+    const long long d = solver_.unknowns();
+    work_ += r.averaged_steps * d + r.newton_steps * d * (solver_.analytic_jacobian() ? 1 : d);
+    if (work_ > budget_) throw OverBudget{};
+  }
+
+  const OperatorValuedSolver& solver_;
+  double scale_;
+  PolynomialLimitOptions options_;
+  double near_;
+  long long budget_;
+  long long work_ = 0;
+  State far_state_;
+};
+
+// An edge between a point outside a band and one inside it, with their solutions.
+struct Bracket {
+  double out = 0.0, in = 0.0;
+  State out_state, in_state;
+  double middle() const { return 0.5 * (out + in); }
+};
+
+// Bisection on the two-distance test down to the probe's resolution, each probe continued from
+// the nearer end's solution.
+void bisect(BandProbe& probe, Bracket& b) {
+  while (std::abs(b.in - b.out) > probe.resolution()) {
+    check_stop();
+    const double mid = b.middle();
+    const bool nearer_out = std::abs(mid - b.out) < std::abs(mid - b.in);
+    if (probe.inside(mid, nearer_out ? &b.out_state : &b.in_state)) {
+      b.in = mid;
+      b.in_state = probe.state();
+    } else {
+      b.out = mid;
+      b.out_state = probe.state();
+    }
+  }
+}
+
+// An edge found at the coarse resolution, sharpened with the fine probe (distances from the
+// options) inside a bracket a few coarse resolutions wide whose ends the fine probe confirms.
+// Near a singular point the fine solves can be slow: past the fine budget the coarse edge stands.
+double sharpen(const OperatorValuedSolver& solver, Bracket coarse, double scale,
+               const PolynomialLimitOptions& options) {
+  BandProbe fine(solver, scale, options, options.epsilon, options.scan_work / 2);
+  const double direction = coarse.in > coarse.out ? 1.0 : -1.0;
+  const double reach = 4.0 * std::abs(coarse.in - coarse.out) + 1e-9 * scale;
+  Bracket b;
+  b.out = coarse.middle() - direction * reach;
+  b.in = coarse.middle() + direction * reach;
+  try {
+    if (fine.inside(b.out, &coarse.out_state)) return coarse.middle();
+    b.out_state = fine.state();
+    if (!fine.inside(b.in, &coarse.in_state)) return coarse.middle();
+    b.in_state = fine.state();
+    bisect(fine, b);
+  } catch (const BandProbe::OverBudget&) {
+    return coarse.middle();
+  }
+  return b.middle();
+}
+
+// The bands of the continuous part inside [−from, from]: the two-distance test at the coarse
+// distances (10⁻⁴ and 10⁻⁶ of the scale, where solves near atoms and singular points stay cheap)
+// on a grid of `scan_points` points (offset by the golden ratio so that no round number, where
+// atoms and the constant term sit, is a node); each run of inside points is bisected to its two
+// edges, which are then sharpened at the fine distances.
+//
+// Seen from the grid's spacing h, an atom of mass m within h/2 of a node puts at least 0.8 m into
+// h·(−Im G(x + ih)), which a continuous density f only reaches as πhf: the nodes where that is a
+// local maximum above 10⁻⁷ go into `atom_candidates`.
+std::vector<Interval> locate_bands(const OperatorValuedSolver& solver, double from, double scale,
+                                   const PolynomialLimitOptions& options, bool positive,
+                                   std::vector<double>& atom_candidates) {
+  BandProbe probe(solver, scale, options, 1e-6, options.scan_work);
+  const int M = std::max(64, options.scan_points);
+  const double h = 2.0 * from / M;
+  std::vector<double> xs(M), q(M, 0.0);
+  std::vector<char> in(M);
+  std::vector<State> states(M);
+  std::vector<std::pair<Bracket, Bracket>> brackets;
+  State high;
+  try {
+    for (int i = 0; i < M; ++i) {
+      check_stop();
+      xs[i] = -from + h * (i + 0.3819660112501051);
+      in[i] = probe.inside(xs[i], i > 0 ? &states[i - 1] : nullptr);
+      states[i] = probe.state();
+      const SolveReport r = solve_chain(solver, cd(xs[i], h), 0.0, scale, options, high, i > 0);
+      if (r.converged) q[i] = -h * r.cauchy.imag();
+    }
+    for (int i = 0; i < M; ++i) {
+      const double left = i > 0 ? q[i - 1] : 0.0, right = i + 1 < M ? q[i + 1] : 0.0;
+      if (q[i] > 1e-7 && q[i] >= left && q[i] >= right) atom_candidates.push_back(xs[i]);
+    }
+    for (int i = 0; i < M;) {
+      if (!in[i]) {
+        ++i;
+        continue;
+      }
+      int j = i;
+      while (j + 1 < M && in[j + 1]) ++j;
+      Bracket lo{i > 0 ? xs[i - 1] : xs[0] - h, xs[i], i > 0 ? states[i - 1] : states[0], states[i]};
+      Bracket hi{j + 1 < M ? xs[j + 1] : xs[M - 1] + h, xs[j], j + 1 < M ? states[j + 1] : states[j],
+                 states[j]};
+      bisect(probe, lo);
+      bisect(probe, hi);
+      if (hi.middle() - lo.middle() > 2.0 * probe.resolution()) {  // narrower: an atom's trace
+        brackets.push_back({lo, hi});
+      }
+      i = j + 1;
+    }
+  } catch (const BandProbe::OverBudget&) {
+    throw NumericalError("polynomial limit: the search for the support's bands spent its work "
+                         "budget (" + std::to_string(options.scan_work) +
+                         " units of solver work): near the real axis this law's "
+                         "fixed point converges too slowly to locate its bands");
+  }
+  if (brackets.empty()) {
+    throw NumericalError("polynomial limit: no point of the continuous part found on a grid of " +
+                         std::to_string(M) + " points over [" + text::readable(-from) + ", " +
+                         text::readable(from) + "]");
+  }
+  // The outer edges: the real-axis continuation from beyond the norm bound (precise, also at
+  // singular edges) when it ends within the coarse bracket; otherwise, and for every interior
+  // edge, the coarse edge sharpened.
+  const auto outer = [&](const Bracket& b, double start, double direction) {
+    try {
+      const double e = find_edge(solver, start, direction, scale, options);
+      if (std::abs(e - b.middle()) <= 3.0 * probe.resolution()) return e;
+    } catch (const NumericalError&) {
+      // no real solution from there: the sharpened edge stands
+    }
+    return sharpen(solver, b, scale, options);
+  };
+  std::vector<Interval> bands;
+  for (std::size_t k = 0; k < brackets.size(); ++k) {
+    const auto& [lo, hi] = brackets[k];
+    // A positive P whose coarse lower edge is within the coarse resolution of 0 has its edge at 0
+    // (its spectrum lies in [0, ∞)); solves there are slow when the density is singular at 0.
+    const bool at_zero = positive && k == 0 && lo.middle() <= 3.0 * probe.resolution();
+    const double a = at_zero  ? 0.0
+                     : k == 0 ? outer(lo, -from, 1.0)
+                              : sharpen(solver, lo, scale, options);
+    const double b = k + 1 == brackets.size() ? outer(hi, from, -1.0)
+                                              : sharpen(solver, hi, scale, options);
+    bands.push_back({a, b});
+  }
+  return bands;
+}
+
+// A point mass near `x` (within the grid's spacing h): near an atom a of mass m,
+// G(z) = m/(z − a) + r(z) with r bounded, so two solves z₁ = x + iε and z₂ = x + 2iε give
+// m ≈ (z₁ − z₂)/(1/G₁ − 1/G₂) and a ≈ z₁ − m/G₁ (the pole of G by its residue; standard complex
+// analysis), with errors O(ε r/m). Repeated from the new a with ε ← ε/10 down to 10⁻⁵ of the
+// scale (closer, the solver's answer near an atom is no longer reliable: at 10⁻⁶ it gave 0.17
+// for a mass of 0.3). Accepted when the last two estimates agree to 10⁻³, are real to 10⁻³, stay
+// within h of x, and ε·(−Im G(a + iε)) equals m to 10⁻³ at the last ε (a merely singular density
+// gives ε^{1−α} there instead, a regular point ~ε).
+std::optional<Atom> refine_atom(const OperatorValuedSolver& solver, double x, double h,
+                                double scale, const PolynomialLimitOptions& options) {
+  State state;
+  bool warm = false;
+  double a = x, m_before = -1.0;
+  const double finest = 1e-5 * scale;
+  std::vector<double> levels;
+  for (double e = h; e > finest; e *= 0.1) levels.push_back(e);
+  levels.push_back(finest);
+  for (const double eps : levels) {
+    check_stop();
+    const cd z1(a, eps), z2(a, 2.0 * eps);
+    const SolveReport r2 = solve_chain(solver, z2, 0.0, scale, options, state, warm);
+    const SolveReport r1 = solve_chain(solver, z1, 0.0, scale, options, state, r2.converged);
+    if (!r1.converged || !r2.converged) return std::nullopt;
+    warm = true;
+    const cd m = (z1 - z2) / (1.0 / r1.cauchy - 1.0 / r2.cauchy);
+    if (!(m.real() > 1e-7)) return std::nullopt;
+    a = (z1 - m / r1.cauchy).real();
+    if (std::abs(a - x) > h) return std::nullopt;
+    if (eps == finest) {
+      const SolveReport r = solve_chain(solver, cd(a, eps), 0.0, scale, options, state, true);
+      const double q = r.converged ? -eps * r.cauchy.imag() : 0.0;
+      if (std::abs(m.imag()) <= 1e-3 * m.real() && std::abs(q - m.real()) <= 1e-3 * m.real() &&
+          std::abs(m.real() - m_before) <= 1e-3 * m.real()) {
+        return Atom{a, m.real()};
+      }
+      return std::nullopt;
+    }
+    m_before = m.real();
+  }
+  return std::nullopt;
+}
+
 }  // namespace
 
 PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exact_moments,
@@ -205,36 +455,43 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
   const double bound = norm_bound(polynomial_);
   scale_ = std::max(bound, 1e-6);
   const double from = bound * 1.05 + 0.05 * scale_;
-  support_.hi = find_edge(*solver_, from, -1.0, scale_, options_);
-  support_.lo = find_edge(*solver_, -from, 1.0, scale_, options_);
+  std::vector<double> atom_candidates;
+  support_.bands = locate_bands(*solver_, from, scale_, options_, proven_positive(polynomial_),
+                                atom_candidates);
+  support_.lo = support_.bands.front().lo;
+  support_.hi = support_.bands.back().hi;
   // A positive P has its spectrum in [0, ∞); the edge search stops within rounding of the edge
   // (−8e-13 for X² before this), which must not read as negative eigenvalues.
-  if (proven_positive(polynomial_) && support_.lo < 0.0) support_.lo = 0.0;
-  // A point mass sits, in the cases we meet (a factor with an atom at 0, e.g. X B X with B
-  // singular), at the constant term c_0 of P. Its mass is lim_{ε↓0} Re[iε G(c_0 + iε)] (Stieltjes
-  // inversion at an atom, standard); it is accepted when two distances to the axis agree, which a
-  // merely singular density (iεG ~ ε^{1−α} for f ~ |x − c_0|^{−α}) does not.
+  if (proven_positive(polynomial_) && support_.lo < 0.0) {
+    support_.lo = 0.0;
+    support_.bands.front().lo = std::max(0.0, support_.bands.front().lo);
+  }
+  // Point masses, by refine_atom: first at the constant term c_0 of P, where one sits in the
+  // common case (a factor with an atom at 0, e.g. X B X with B singular; placed exactly there),
+  // then from the scan's candidates (for example where two projections overlap).
   double c0 = 0.0;
   for (const auto& t : polynomial_.terms) {
     if (t.word.empty()) c0 += t.coefficient.real();
   }
-  const double width = support_.hi - support_.lo;
-  if (c0 >= support_.lo - 1e-9 * width && c0 <= support_.hi + 1e-9 * width) {
-    double masses[2] = {0.0, 0.0};
-    const double distances[2] = {1e-4 * scale_, 1e-6 * scale_};
-    for (int i = 0; i < 2; ++i) {
-      State state;
-      const SolveReport r =
-          solve_chain(*solver_, cd(c0, distances[i]), 0.0, scale_, options_, state, false);
-      masses[i] = r.converged ? (cd(0.0, distances[i]) * r.cauchy).real() : 0.0;
-    }
-    if (masses[1] > 1e-6 && std::abs(masses[0] - masses[1]) < 1e-3 * masses[1]) {
-      support_.atoms.push_back({c0, masses[1]});
-    }
+  const double h = 2.0 * from / std::max(64, options_.scan_points);
+  if (auto atom = refine_atom(*solver_, c0, h, scale_, options_);
+      atom && std::abs(atom->value - c0) <= 1e-6 * scale_) {
+    support_.atoms.push_back({c0, atom->weight});
   }
-  // This solver finds the outer edges only: its continuous part is given as one band.
-  if (support_.atoms.empty() || support_.atoms.front().weight < 1.0 - 1e-12) {
-    support_.bands.push_back({support_.lo, support_.hi});
+  for (double x : atom_candidates) {
+    if (std::abs(x - c0) < 2.0 * h) continue;
+    const auto atom = refine_atom(*solver_, x, h, scale_, options_);
+    if (!atom) continue;
+    const bool known = std::any_of(support_.atoms.begin(), support_.atoms.end(), [&](const Atom& k) {
+      return std::abs(k.value - atom->value) < 1e-6 * scale_;
+    });
+    if (!known) support_.atoms.push_back(*atom);
+  }
+  std::sort(support_.atoms.begin(), support_.atoms.end(),
+            [](const Atom& x, const Atom& y) { return x.value < y.value; });
+  if (!support_.atoms.empty()) {
+    support_.lo = std::min(support_.lo, support_.atoms.front().value);
+    support_.hi = std::max(support_.hi, support_.atoms.back().value);
   }
 }
 
@@ -255,7 +512,9 @@ std::vector<DensityReport> PolynomialLaw::evaluate(std::span<const double> xs) c
     check_stop();
     DensityReport d;
     d.x = x;
-    if (!(x > support_.lo && x < support_.hi)) {
+    const bool in_band = std::any_of(support_.bands.begin(), support_.bands.end(),
+                                     [x](const Interval& b) { return x > b.lo && x < b.hi; });
+    if (!in_band) {
       d.density = 0.0;
       d.converged = true;
       out.push_back(d);
@@ -345,63 +604,75 @@ std::vector<double> PolynomialLaw::moments(int k) const {
 }
 
 void PolynomialLaw::build_table() const {
-  // x = lo + w(1 − cos θ)/2 makes density·dx/dθ smooth at square-root and inverse-square-root
-  // edges (the substitution of laws_quadrature's integrate_density); Gauss–Legendre panels in θ.
-  const int P = std::max(4, options_.table_panels);
-  const double lo = support_.lo, w = support_.hi - support_.lo;
+  // Per band, x = lo + w(1 − cos θ)/2 makes density·dx/dθ smooth at square-root and
+  // inverse-square-root edges (the substitution of laws_quadrature's integrate_density);
+  // Gauss–Legendre panels in θ.
   const auto& rule = detail::gauss_legendre(kPanelNodes);
-  panel_theta_.resize(P + 1);
-  for (int p = 0; p <= P; ++p) panel_theta_[p] = kPi * p / P;
+  double total_width = 0.0;
+  for (const Interval& band : support_.bands) total_width += band.hi - band.lo;
   // The constant term c_0 is where an interior singularity of the density sits in the cases we
   // meet (A B A at 0, f ~ |x|^{−1/3}); as a panel end it is integrated well by Gauss–Legendre.
   double c0 = 0.0;
   for (const auto& t : polynomial_.terms) {
     if (t.word.empty()) c0 += t.coefficient.real();
   }
-  if (c0 > support_.lo + 1e-6 * w && c0 < support_.hi - 1e-6 * w) {
-    const double t0 = std::acos(std::clamp(1.0 - 2.0 * (c0 - lo) / w, -1.0, 1.0));
-    // Panels graded geometrically towards t0 (5 halvings on each side), so that a singularity
-    // there leaves only a tiny mass in the panels that touch it.
-    const double h = kPi / P;
-    for (int k = 0; k <= 5; ++k) {
-      for (double side : {-1.0, 1.0}) {
-        const double t = t0 + side * h * std::ldexp(1.0, -k);
-        if (t > 0.0 && t < kPi) panel_theta_.push_back(t);
+  std::vector<double> xs, jac;
+  tables_.clear();
+  for (const Interval& band : support_.bands) {
+    BandTable table;
+    table.lo = band.lo;
+    table.width = band.hi - band.lo;
+    const double w = table.width;
+    const int P = std::max(8, static_cast<int>(std::lround(std::max(4, options_.table_panels) *
+                                                           w / total_width)));
+    for (int p = 0; p <= P; ++p) table.theta.push_back(kPi * p / P);
+    if (c0 > band.lo + 1e-6 * w && c0 < band.hi - 1e-6 * w) {
+      const double t0 = std::acos(std::clamp(1.0 - 2.0 * (c0 - band.lo) / w, -1.0, 1.0));
+      // Panels graded geometrically towards t0 (5 halvings on each side), so that a singularity
+      // there leaves only a tiny mass in the panels that touch it.
+      const double h = kPi / P;
+      for (int k = 0; k <= 5; ++k) {
+        for (double side : {-1.0, 1.0}) {
+          const double t = t0 + side * h * std::ldexp(1.0, -k);
+          if (t > 0.0 && t < kPi) table.theta.push_back(t);
+        }
+      }
+      table.theta.push_back(t0);
+      std::sort(table.theta.begin(), table.theta.end());
+      table.theta.erase(std::unique(table.theta.begin(), table.theta.end(),
+                                    [](double a, double b) { return std::abs(a - b) < 1e-12; }),
+                        table.theta.end());
+    }
+    for (std::size_t p = 0; p + 1 < table.theta.size(); ++p) {
+      const double a = table.theta[p], b = table.theta[p + 1];
+      for (int q = 0; q < kPanelNodes; ++q) {
+        const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[q];
+        xs.push_back(band.lo + 0.5 * w * (1.0 - std::cos(t)));
+        jac.push_back(0.5 * w * std::sin(t));
       }
     }
-    panel_theta_.push_back(t0);
-    std::sort(panel_theta_.begin(), panel_theta_.end());
-    panel_theta_.erase(std::unique(panel_theta_.begin(), panel_theta_.end(),
-                                   [](double a, double b) { return std::abs(a - b) < 1e-12; }),
-                       panel_theta_.end());
-  }
-  const int panels = static_cast<int>(panel_theta_.size()) - 1;
-  std::vector<double> xs;
-  std::vector<double> jac;
-  for (int p = 0; p < panels; ++p) {
-    const double a = panel_theta_[p], b = panel_theta_[p + 1];
-    for (int q = 0; q < kPanelNodes; ++q) {
-      const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[q];
-      xs.push_back(lo + 0.5 * w * (1.0 - std::cos(t)));
-      jac.push_back(0.5 * w * std::sin(t));
-    }
+    tables_.push_back(std::move(table));
   }
   const auto ds = evaluate(xs);
-  panel_integrand_.resize(xs.size());
-  for (std::size_t i = 0; i < xs.size(); ++i) {
-    // A node the solver could not settle (only ever within ~1e−8 of an edge) counts as 0.
-    panel_integrand_[i] = ds[i].converged ? ds[i].density * jac[i] : 0.0;
-  }
-  panel_cumulative_.assign(panels + 1, 0.0);
-  for (int p = 0; p < panels; ++p) {
-    double sum = 0.0;
-    for (int q = 0; q < kPanelNodes; ++q) {
-      sum += rule.weights[q] * panel_integrand_[p * kPanelNodes + q];
+  std::size_t node = 0;
+  mass_ = 0.0;
+  for (BandTable& table : tables_) {
+    const std::size_t panels = table.theta.size() - 1;
+    table.integrand.resize(panels * kPanelNodes);
+    table.cumulative.assign(panels + 1, 0.0);
+    for (std::size_t p = 0; p < panels; ++p) {
+      double sum = 0.0;
+      for (int q = 0; q < kPanelNodes; ++q, ++node) {
+        // A node the solver could not settle (only ever within ~1e−8 of an edge) counts as 0.
+        const double v = ds[node].converged ? ds[node].density * jac[node] : 0.0;
+        table.integrand[p * kPanelNodes + q] = v;
+        sum += rule.weights[q] * v;
+      }
+      table.cumulative[p + 1] =
+          table.cumulative[p] + 0.5 * (table.theta[p + 1] - table.theta[p]) * sum;
     }
-    panel_cumulative_[p + 1] =
-        panel_cumulative_[p] + 0.5 * (panel_theta_[p + 1] - panel_theta_[p]) * sum;
+    mass_ += table.cumulative.back();
   }
-  mass_ = panel_cumulative_[panels];
 }
 
 double PolynomialLaw::continuous_mass() const {
@@ -409,21 +680,11 @@ double PolynomialLaw::continuous_mass() const {
   return mass_;
 }
 
-double PolynomialLaw::cdf(double x) const {
-  if (x <= support_.lo) return 0.0;
-  if (x >= support_.hi) return 1.0;
-  std::call_once(table_once_, [this] { build_table(); });
-  const double w = support_.hi - support_.lo;
-  const double theta = std::acos(std::clamp(1.0 - 2.0 * (x - support_.lo) / w, -1.0, 1.0));
-  const int P = static_cast<int>(panel_theta_.size()) - 1;
-  const int p = std::clamp(
-      static_cast<int>(std::upper_bound(panel_theta_.begin(), panel_theta_.end(), theta) -
-                       panel_theta_.begin()) -
-          1,
-      0, P - 1);
-  const double a = panel_theta_[p], b = panel_theta_[p + 1];
+namespace {
+
+// ∫_a^θ of the degree-7 interpolant through a panel's nodes (Lagrange form), by the same rule.
+double panel_partial(const double* integrand, double a, double b, double theta) {
   const auto& rule = detail::gauss_legendre(kPanelNodes);
-  // ∫_a^θ of the degree-7 interpolant through the panel's nodes (Lagrange form), by the same rule.
   double nodes[kPanelNodes];
   for (int q = 0; q < kPanelNodes; ++q) nodes[q] = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[q];
   double partial = 0.0;
@@ -435,16 +696,42 @@ double PolynomialLaw::cdf(double x) const {
       for (int l = 0; l < kPanelNodes; ++l) {
         if (l != q) basis *= (t - nodes[l]) / (nodes[q] - nodes[l]);
       }
-      value += basis * panel_integrand_[p * kPanelNodes + q];
+      value += basis * integrand[q];
     }
     partial += rule.weights[r] * value;
   }
-  partial *= 0.5 * (theta - a);
-  double atoms = 0.0;
+  return partial * 0.5 * (theta - a);
+}
+
+}  // namespace
+
+double PolynomialLaw::cdf(double x) const {
+  if (x < support_.lo) return 0.0;
+  if (x >= support_.hi) return 1.0;
+  std::call_once(table_once_, [this] { build_table(); });
+  double total = 0.0;
   for (const Atom& a : support_.atoms) {
-    if (a.value <= x) atoms += a.weight;
+    if (a.value <= x) total += a.weight;
   }
-  return std::clamp(panel_cumulative_[p] + partial + atoms, 0.0, 1.0);
+  for (const BandTable& table : tables_) {
+    if (x <= table.lo) break;
+    if (x >= table.lo + table.width) {
+      total += table.cumulative.back();
+      continue;
+    }
+    const double theta =
+        std::acos(std::clamp(1.0 - 2.0 * (x - table.lo) / table.width, -1.0, 1.0));
+    const int P = static_cast<int>(table.theta.size()) - 1;
+    const int p = std::clamp(
+        static_cast<int>(std::upper_bound(table.theta.begin(), table.theta.end(), theta) -
+                         table.theta.begin()) -
+            1,
+        0, P - 1);
+    total += table.cumulative[p] + panel_partial(&table.integrand[p * kPanelNodes],
+                                                 table.theta[p], table.theta[p + 1], theta);
+    break;
+  }
+  return std::clamp(total, 0.0, 1.0);
 }
 
 std::string PolynomialLaw::describe() const {

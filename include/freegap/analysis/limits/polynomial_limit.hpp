@@ -117,8 +117,18 @@ struct PolynomialLimitOptions {
   int max_newton_steps = 40;
   /// Highest order of exact moments (free-cumulant engine) computed at construction; 0: none.
   int exact_moment_order = 6;
-  /// Gauss–Legendre panels (8 nodes each) of the density table behind the CDF.
+  /// Gauss–Legendre panels (8 nodes each) of the density table behind the CDF, shared among the
+  /// bands in proportion to their widths (at least 8 per band).
   int table_panels = 48;
+  /// Grid points over [−‖P‖ bound, ‖P‖ bound] on which the bands of the continuous part are
+  /// looked for; a band or gap narrower than the grid's spacing can be missed (the law's moment
+  /// check and mass note then say so).
+  int scan_points = 800;
+  /// Work the band search may spend before it gives up with a reason: over all points, the
+  /// averaged steps times the fixed point's number d of unknowns plus the Newton steps times d²
+  /// (a forward-difference Jacobian; times d when the Jacobian is analytic). The sharpening of each edge gets half of it, past which
+  /// an edge keeps its coarse value (about 10⁻⁴ of the norm bound).
+  long long scan_work = 50000000;
 };
 
 /// What one solve of the operator-valued equation did.
@@ -173,9 +183,8 @@ class PolynomialLaw final : public Law {
   int pencil_size() const { return pencil_.size; }
   const Pencil& pencil() const { return pencil_; }
   const FreePolynomial& polynomial() const { return polynomial_; }
-  /// Mass of the continuous part found by integrating the density (1 when there are no atoms).
-  /// The atom found (support().atoms) is a point mass at the constant term of P, if any; other
-  /// point masses are not located, and then continuous_mass() + Σ atoms < 1 says so.
+  /// Mass of the continuous part found by integrating the density over its bands (1 when there
+  /// are no atoms); continuous_mass() + Σ atoms < 1 says that mass was not found.
   double continuous_mass() const;
 
  private:
@@ -188,9 +197,14 @@ class PolynomialLaw final : public Law {
   Support support_;
   double scale_ = 1.0;
   mutable std::once_flag table_once_;
-  mutable std::vector<double> panel_theta_;  // panel boundaries in θ, x = lo + w(1 − cos θ)/2
-  mutable std::vector<double> panel_integrand_;  // density·dx/dθ at the 8 nodes of each panel
-  mutable std::vector<double> panel_cumulative_;
+  /// One band's density table: x = lo + w(1 − cos θ)/2 over θ ∈ [0, π].
+  struct BandTable {
+    double lo = 0.0, width = 0.0;
+    std::vector<double> theta;       // panel boundaries
+    std::vector<double> integrand;   // density·dx/dθ at the 8 nodes of each panel
+    std::vector<double> cumulative;  // mass up to each boundary, from the band's lower edge
+  };
+  mutable std::vector<BandTable> tables_;
   mutable double mass_ = 1.0;
 };
 
