@@ -6,16 +6,19 @@ Models (scenarios of our own):
    and 9 (weights ½): the law is the image under t ↦ t² of the semicircle ⊞ ½(δ₃ + δ₉), which
    has two bands, so the square has a gap between 18.66 and 58.99.
 2. P Q P + P with P = B and Q = U C U^* free projections of traces α = 0.7 and β = 0.6: point
-   masses at 0 (the kernel of P, mass 1 − α) and at 2 (the range of P meeting that of Q, mass
-   α + β − 1), none of them at the constant term's place only.
+   masses at 0 (the kernel of P, mass 1 − α), at 1 (the range of P meeting the kernel of Q, mass
+   α − β, 0.011 from the band) and at 2 (the range of P meeting that of Q, mass α + β − 1); the
+   constant term is 0, so two of them are away from it.
 
 Outside references (independent of freegap's code):
 - the edges of μ ⊞ σ_t, μ atomic: ω + t G_μ(ω) at the real critical points, the roots of
   t Σ w_k/(ω − a_k)² = 1 (Biane 1997), found here with numpy.roots; the square maps each band
   [a, b] with 0 < a to [a², b²];
 - the masses of the atoms of P Q P for free projections in general position: 1 − α at 0 from
-  the kernel of P and α + β − 1 at 1 from the intersection of the ranges (Nica & Speicher 2006,
-  the free product of two projections; from memory), so P Q P + P has them at 0 and 2;
+  the kernel of P, α − β at 0 from ran P ∩ ker Q and α + β − 1 at 1 from the intersection of
+  the ranges (Nica & Speicher 2006, the free product of two projections; from memory), so
+  P Q P + P has them at 0, 1 and 2 (the continuous part, mass 1 − α − (α − β) − (α + β − 1) =
+  0.3, lives in (1, 2));
 - the exact moments printed by `limit` (free cumulants) against the law's.
 
 Usage: /usr/bin/python3 check_polynomial_bands.py <build_dir>
@@ -110,6 +113,9 @@ with rh.WorkDir("polynomial-bands") as wd:
     near_two = [m for x, m in atoms if abs(x - 2.0) < 1e-6]
     check(len(near_two) == 1 and abs(near_two[0] - (alpha + beta - 1)) < 1e-5,
           "P Q P + P: a point mass α + β − 1 = 0.3 at 2, away from the constant term", atoms)
+    near_one = [m for x, m in atoms if abs(x - 1.0) < 1e-6]
+    check(len(near_one) == 1 and abs(near_one[0] - (alpha - beta)) < 1e-5,
+          "P Q P + P: a point mass α − β = 0.1 at 1, beside the band", atoms)
     check(len(bands) <= 1 and support is not None and float(support.group(2)) >= 2.0 - 1e-6,
           "P Q P + P: the support reaches the atom at 2", p.stdout)
 
