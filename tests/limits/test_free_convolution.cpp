@@ -207,6 +207,23 @@ TEST(FreeMultiplicative, FreePoissonTimesProjection) {
   EXPECT_NEAR(two_point->cdf(two_point->support().hi), 1.0, 1e-9);
 }
 
+TEST(FreeMultiplicative, SingularFactorTabulatesItsCdf) {
+  // law(S²) ⊠ MP(1) with S² = 0, 1, 4 in shares 0.3, 0.3, 0.4 (S W S): a point mass 0.3 at 0
+  // (the kernel of S, elementary) and, beside it, what was shown as a band [0, 5e-9] of mass
+  // about 1e-33. Its CDF table asked for 1e-13 of that mass, below the density's rounding, and
+  // every panel went 24 halvings deep: `freegap limit -o` ran for over ten minutes.
+  const auto law = fa::free_multiplicative(fa::atoms({{0.0, 0.3}, {1.0, 0.3}, {4.0, 0.4}}),
+                                           fa::marchenko_pastur(1.0));
+  ASSERT_FALSE(law->support().atoms.empty());
+  EXPECT_NEAR(law->support().atoms[0].weight, 0.3, 1e-12);
+  // The sliver [0, 5e-9] was the point mass's trace, not a band: one band, away from 0.
+  ASSERT_EQ(law->support().bands.size(), 1u);
+  EXPECT_GT(law->support().bands[0].lo, 0.04);
+  EXPECT_NEAR(law->cdf(0.01), 0.3, 1e-9);  // nothing continuous between the two
+  EXPECT_NEAR(law->cdf(law->support().hi), 1.0, 1e-9);
+  EXPECT_NEAR(law->moments(1)[1], 1.9, 1e-12);  // E[S²] E[W] (free independence)
+}
+
 TEST(FreeCompoundPoisson, SignSandwichLosesNoMassAtItsSingularPoint) {
   // A B A with A semicircular and B = ±1 (ref §1.6): the free compound Poisson law with jumps ±1
   // of weight ½. Its square is π ⊠ π (Fuss–Catalan, ref §1.5) and it is symmetric, so

@@ -125,6 +125,7 @@ class SubordinatedLaw : public Law {
   BandTable build_table(double lo, double hi, bool singular_lo, bool singular_hi) const;
   /// Sets every band edge within 1e-6 of the hull's width of a singular point to that point.
   void snap_edges_to_singular_points();
+  void drop_traces_of_atoms();
   double band_cdf(const BandTable& t, double x) const;
   mutable std::once_flag table_once_;
   mutable std::vector<BandTable> tables_;
