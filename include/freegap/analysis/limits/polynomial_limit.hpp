@@ -186,6 +186,10 @@ class PolynomialLaw final : public Law {
   /// Mass of the continuous part found by integrating the density over its bands (1 when there
   /// are no atoms); continuous_mass() + Σ atoms < 1 says that mass was not found.
   double continuous_mass() const;
+  /// Each band's mass from the contour integral of the Cauchy transform around it (point masses
+  /// inside taken out): what the CDF table of the band is scaled to; negative where a solve
+  /// failed.
+  std::vector<double> band_masses() const;
 
  private:
   void build_table() const;
@@ -203,7 +207,24 @@ class PolynomialLaw final : public Law {
     std::vector<double> theta;       // panel boundaries
     std::vector<double> integrand;   // density·dx/dθ at the 8 nodes of each panel
     std::vector<double> cumulative;  // mass up to each boundary, from the band's lower edge
+    /// A singular point of the density inside the band (build_table): the panel `window`
+    /// (−1: none) is [window_lo, window_hi] around `centre`; its mass is a contour integral and,
+    /// inside it, the CDF and density follow the laws c·d^{−α}(1 + b·d), d = |x − centre|,
+    /// fitted on each side, scaled by `window_scale` to that mass.
+    int window = -1;
+    double centre = 0.0, window_lo = 0.0, window_hi = 0.0, window_scale = 1.0;
+    double left_c = 0.0, left_alpha = 0.0, left_b = 0.0;
+    double right_c = 0.0, right_alpha = 0.0, right_b = 0.0;
+    /// The band's mass from the contour integral of G (exact to the solver's accuracy), and the
+    /// density table's own integral before it was scaled to that mass.
+    double exact_mass = -1.0, table_mass = 0.0;
   };
+  std::vector<DensityReport> solve_densities(std::span<const double> xs) const;
+  void add_singular_window(BandTable& table, double centre) const;
+  void set_exact_mass(BandTable& table, std::size_t band) const;
+  static void grade_towards(BandTable& table, double centre);
+  void fill_tables(const std::vector<DensityReport>& nodes,
+                   const std::vector<double>& jacobian) const;
   mutable std::vector<BandTable> tables_;
   mutable double mass_ = 1.0;
 };
