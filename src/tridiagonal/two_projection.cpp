@@ -48,7 +48,9 @@ void validate(const TwoProjectionSpec& spec, Index n) {
                      std::to_string(spec.rank) + ")");
   }
   for (const double v : {spec.s, spec.t, spec.shift}) {
-    if (!std::isfinite(v)) refuse(spec, "s, t and the shift must be finite (got " + number(v) + ")");
+    if (!std::isfinite(v)) {
+      refuse(spec, "s, t and the shift must be finite (got " + number(v) + ")");
+    }
   }
   if (spec.s == 0.0 || spec.t == 0.0) {
     refuse(spec, "s and t must be nonzero (got s = " + number(spec.s) + ", t = " +
