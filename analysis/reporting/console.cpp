@@ -59,8 +59,7 @@ std::string compiled_study_text(const store::RunHeader& h, const std::string& pa
   try {
     const auto study = study::Study::of_stored_job(h.job_text, h.job_canonical, path);
     if (study.runners().empty()) return out;
-    const bool tridiagonal = study.runners().front().path() == model::Path::tridiagonal;
-    const std::string here = tridiagonal ? "tridiagonal" : "dense";
+    const std::string here = model::path_name(study.runners().front().path());
     const auto recorded = h.metadata.find("path");
     const bool differs = recorded != h.metadata.end() && recorded->second != here;
     appendf(out, "compiled:   %s%s\n", study.path_reason(0).c_str(),

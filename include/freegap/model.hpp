@@ -32,7 +32,25 @@ enum class Path {
   dense,        ///< sample dense matrices, evaluate the expression, LAPACK spectrum
   tridiagonal,  ///< a·X + b of one β-ensemble matrix X: Dumitriu–Edelman model, Sturm counts,
                 ///< bisection extremes, band moments; O(N) time per bin and O(N) memory
+  two_projection,  ///< a·B + b·U B U^* (+ c) of a two-valued diagonal B and a Haar U: the
+                   ///< β-Jacobi corner (Edelman & Sutton 2008) in a tridiagonal matrix with the
+                   ///< same eigenvalues, observed as on the tridiagonal path; O(N) per bin
 };
+
+/// The path's name in the run file's /metadata path, `run --explain` and `plan`: "dense",
+/// "tridiagonal" or "two_projection".
+const char* path_name(Path path);
+
+/// The two-projection model of an expression, or nothing when it does not have that form: every
+/// term of its expansion is a constant, a diagonal D, or U D U^* (or U^* D U throughout) for one
+/// haar_unitary or haar_orthogonal U, with at least one of each of the last two kinds; every D is
+/// a diagonal of atoms with exactly two distinct values on the same coordinates as the others
+/// (same weights in the same order, same pattern of values), so D = α_D·I + δ_D·P for one
+/// coordinate projection P; s = Σ a_D δ_D over the plain terms and t over the conjugated ones are
+/// nonzero; and eigenvalues are observed. At size n, P's rank is counted as the sampler
+/// places the atoms (ensembles::atom_counts). Decided from the expression and n alone.
+std::optional<tridiagonal::TwoProjectionSpec> two_projection_form(const expr::Expression& e,
+                                                                  Index n);
 
 /// Parses a matrix declaration as written on the command line:
 ///   NAME=ENSEMBLE[:key=value]...
@@ -81,7 +99,9 @@ class SizeRunner {
   SizeRunner(const Model& model, Index n);
 
   Index size() const { return n_; }
-  Path path() const { return tri_ ? Path::tridiagonal : Path::dense; }
+  Path path() const {
+    return tri_ ? Path::tridiagonal : two_ ? Path::two_projection : Path::dense;
+  }
   /// What will be computed: the evaluation plan, or the tridiagonal model and its observations.
   std::string explain() const;
   /// Observes trial `trial` into `obs` (either path). Failed trials become failure rows.
@@ -113,6 +133,7 @@ class SizeRunner {
   expr::Evaluation evaluation_;
   std::optional<tridiagonal::ModelSpec> tri_;
   double tri_scale_ = 1.0, tri_shift_ = 0.0;
+  std::optional<tridiagonal::TwoProjectionSpec> two_;
 };
 
 /// Records an outcome into observations (a failed one as a failure row).

@@ -6,7 +6,7 @@
 // expression and observations) are timed at small sizes on this machine, and
 //   t(N) = a·N³ + b·N² + c   (dense path: tridiagonalisation, products and QR are N³, sampling
 //                             and observing N²), or
-//   t(N) = a·N + c           (tridiagonal path: O(N) per bin edge, extreme and moment)
+//   t(N) = a·N + c           (tridiagonal, two_projection: O(N) per bin edge, extreme and moment)
 // is fitted with non-negative coefficients by least squares on relative errors, then used at the
 // job's sizes. The fit is stored in a calibration file and reused until the machine changes (CPU
 // model, core count, BLAS build, freegap version); the BLAS thread count is part of each entry.
@@ -168,7 +168,7 @@ struct SizeForecast {
 };
 
 struct Forecast {
-  std::string job_path, expression, path;  ///< path: "dense" or "tridiagonal"
+  std::string job_path, expression, path;  ///< path: model::path_name
   std::string path_reason;                 ///< why (study::Study::path_reason)
   Options options;
   CostFit cost;

@@ -25,9 +25,12 @@ inline constexpr const char* kFileKind = "freegap run";
 /// Format version [major, minor]. A reader refuses another major version; a minor version only
 /// adds things an older reader may ignore.
 inline constexpr int kFormatMajor = 1;
-/// The minor version written: 1.1 added the estimates, 1.2 the checksums (docs/run-file.md). Files of
-/// 1.0 and 1.1 stay readable and resumable; they are reported as unverified.
-inline constexpr int kFormatMinor = 2;
+/// The minor version written: 1.1 added the estimates, 1.2 the checksums, 1.3 the value
+/// "two_projection" of /metadata path, which a resume now compares with the job's path (a file of
+/// another path, or one without the attribute — dense — is refused; docs/run-file.md). Files of
+/// 1.0 and 1.1 stay readable and resumable; they are reported as unverified. 1.2 files read and
+/// resume as before.
+inline constexpr int kFormatMinor = 3;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {

@@ -1,5 +1,6 @@
 // Tridiagonal β-ensemble models and observations without diagonalising, for sizes dense methods
-// cannot reach (N up to 10^7 in O(N) memory).
+// cannot reach (N up to 10^7 in O(N) memory): the β-Hermite and β-Laguerre models of a single
+// matrix, and the two-projection model of a·B + b·U B U^* (β-Jacobi corner).
 //
 // Models (Dumitriu & Edelman 2002, "Matrix models for beta ensembles", J. Math. Phys. 43(11);
 // docs/check-values.md §4f), normalised like the dense samplers of
@@ -28,6 +29,43 @@
 // laguerre — for i = 0..m−1 the square B_ii², then (if i < m − 1) B_{i+1,i}², with m = min(N, M).
 // The tridiagonal and dense samplers with the same name give matrices with the same eigenvalue
 // law, not the same matrices.
+//
+// Two-projection model (sums a·B + b·U B U^* of a two-valued diagonal B and a Haar U): with
+// B = α·I + δ·P, P a rank-k coordinate projection, every such expression (and a·B + b·U C U^* with
+// C = γ·I + ε·P on the same coordinates) is c·I + s·P + t·Q, Q = U P U^* (here s = aδ, t = bε,
+// c = aα + bγ). When k > N/2 the complement is used: c + sP + tQ = (c + s + t) − s(I − P) −
+// t·U(I − P)U^*, so from here on k ≤ N/2 (TwoProjectionSpec → canonical()). With σ_1..σ_k the
+// singular values of the k×k corner of U (the cosines of the principal angles between the ranges
+// of P and Q; Davis & Kahan 1970, Halmos 1969, from memory), s·P + t·Q is an orthogonal sum of k
+// 2×2 blocks [[s + tσ², tσ√(1−σ²)], [tσ√(1−σ²), t(1 − σ²)]] with eigenvalues
+//   λ± = ((s + t) ± √((s − t)² + 4 s t σ²))/2     (trace s + t, determinant s t (1 − σ²)),
+// and N − 2k zeros (so N − 2k eigenvalues c, or c + s + t in the original k > N/2 terms; checked
+// against LAPACK in tests/tridiagonal/test_two_projection.cpp). The same λ± are the eigenvalues
+// of [[s, wσ], [wσ, t]] with w = √(st) when st > 0, and of [[s + t, wτ], [wτ, 0]] with
+// w = √(−st), τ = √(1 − σ²), when st < 0. So the whole spectrum is that of one N×N symmetric
+// tridiagonal matrix: c plus the Golub–Kahan form of the corner bidiagonal B11 (st > 0) or of the
+// sine bidiagonal B21 with B21ᵀB21 = I − B11ᵀB11 (st < 0), shuffled (column 0, row 0, column 1,
+// …) with diagonal (t, s, t, s, …) or (0, s + t, 0, s + t, …), followed by N − 2k decoupled rows
+// c. Every observation of the tridiagonal path then applies unchanged.
+//   The corner: the squared singular values of the k×k corner of an N×N Haar unitary (β = 2) or
+// orthogonal (β = 1) matrix, k ≤ N/2, have the Jacobi density ∝ Π λ^(β/2·(a+1)−1)
+// (1−λ)^(β/2·(b+1)−1) Π|λ_i − λ_j|^β with a = 0, b = N − 2k (Collins 2005 for β = 2; Edelman &
+// Sutton 2008 for the p×q blocks of Haar matrices, a = q − p, b = N − p − q). The β-Jacobi matrix
+// model of Edelman & Sutton (2008), "The beta-Jacobi matrix model, the CS decomposition, and
+// generalized singular value problems", Found. Comput. Math. 8(2), has exactly this law for
+// cos²: B11 upper bidiagonal with diagonal (c_k s'_k) and superdiagonal (−s_{k+1} c'_k), rows
+// k = m, m − 1, …, 1 (s'_m = 1), where c_k = cos θ_k, c'_k = cos φ_k are independent with
+//   c_k² ~ Beta(β/2·(a + k), β/2·(b + k)),   c'_k² ~ Beta(β/2·k, β/2·(a + b + 1 + k));
+// The sine block used here, B21 with diagonal (−s_k s'_k) and superdiagonal (−c_{k+1} c'_k), is
+// our construction: B11ᵀB11 + B21ᵀB21 = I holds entry by entry (c² + s² = 1, c'² + s'² = 1; the
+// off-diagonal terms cancel), so its singular values are √(1 − σ²) with B11's right vectors.
+// Signs are dropped (they do not change singular values). Verified against the singular values of dense Haar corners by
+// two-sample KS tests (tests/tridiagonal/test_two_projection.cpp).
+//
+// Random numbers: one rng::Stream keyed {seed, name of U, N, trial}; for j = 0..m−1 (k = m − j):
+// cos² θ_k as X/(X + Y) from X ~ Gamma(β/2·(a + k)) then Y ~ Gamma(β/2·(b + k)), then, if j ≥ 1,
+// cos² φ_k likewise (X then Y). The model and the dense path have the same eigenvalue law, not the
+// same matrices.
 //
 // Observations: #{λ < x} by the Sturm count (the inertia of the LDLᵀ factorisation of T − xI,
 // Sylvester's law; bisection on it: Barth, Martin & Wilkinson 1967), histograms from counts at the
@@ -155,5 +193,44 @@ observe::TrialRecord observe_tridiagonal_trial(const ModelSpec& spec, Index n, s
 observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
                                     const observe::ObserveConfig& config, observe::Histogram& into,
                                     double extreme_tolerance);
+
+/// The two-projection model c·I + s·P + t·U P U^* (see the top of this file): β = 1 (U Haar
+/// orthogonal) or 2 (Haar unitary), P the coordinate projection of rank `rank` (0..N).
+struct TwoProjectionSpec {
+  double beta = 2.0;
+  Index rank = 0;     ///< k
+  double s = 1.0;     ///< coefficient of P, nonzero
+  double t = 1.0;     ///< coefficient of Q = U P U^*, nonzero
+  double shift = 0.0; ///< c
+  std::string name;   ///< stream name: the Haar matrix's
+};
+/// Checks β ∈ {1, 2}, 0 ≤ rank ≤ n, 1 ≤ n < 2^32, s, t, shift finite with s, t ≠ 0 (InputError).
+void validate(const TwoProjectionSpec& spec, Index n);
+/// The same matrix with rank ≤ n/2 (complement when rank > n/2: shift + s + t, −s, −t).
+TwoProjectionSpec canonical(const TwoProjectionSpec& spec, Index n);
+
+/// The β-Jacobi bidiagonal corner (magnitudes): B11 (cosines: diagonal, superdiagonal) and B21
+/// (sines), each m×m upper bidiagonal, with B11ᵀB11 + B21ᵀB21 = I.
+struct JacobiCorner {
+  Eigen::VectorXd cos_diag, cos_super, sin_diag, sin_super;
+};
+/// Samples the corner of size m (0 ≤ 2m ≤ n) of an n×n Haar matrix for (seed, name, n, trial),
+/// in the draw order at the top of this file.
+JacobiCorner sample_jacobi_corner(double beta, Index corner, Index n, std::uint64_t seed,
+                                  std::uint64_t trial, const std::string& name);
+/// The N×N tridiagonal matrix with the eigenvalues of c + sP + tQ for this corner (whose size
+/// must be min(k, N − k)).
+Tridiagonal two_projection_matrix(const TwoProjectionSpec& spec, const JacobiCorner& corner,
+                                  Index n);
+/// sample_jacobi_corner + two_projection_matrix. O(N) time and memory.
+Tridiagonal sample(const TwoProjectionSpec& spec, Index n, std::uint64_t seed,
+                   std::uint64_t trial);
+/// One trial of the two-projection model observed like observe_tridiagonal_trial (the same
+/// record and histogram as the dense path's).
+observe::TrialRecord observe_two_projection_trial(const TwoProjectionSpec& spec, Index n,
+                                                  std::uint64_t seed, std::uint64_t trial,
+                                                  const observe::ObserveConfig& config,
+                                                  observe::Histogram& into,
+                                                  double extreme_tolerance = 1e-10);
 
 }  // namespace freegap::tridiagonal

@@ -178,6 +178,15 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       expression_(model.expression, model.matrices, model.check),
       evaluation_(expression_, n) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
+  // The two-projection path: a·B + b·U B U^* + c of a two-valued diagonal and a Haar matrix
+  // (two_projection_form). Like the tridiagonal path, decided from the job alone.
+  if (!model.force_dense) {
+    two_ = two_projection_form(expression_, n);
+    if (two_) {
+      tridiagonal::validate(*two_, n);
+      return;
+    }
+  }
   // The tridiagonal path applies when the expression is a·X + b for one matrix X whose
   // eigenvalue law has an exact tridiagonal model (Dumitriu & Edelman 2002) and eigenvalues are
   // asked for. It is decided from the job alone, never per rank: its random numbers differ from
@@ -236,7 +245,40 @@ SizeRunner::SizeRunner(const Model& model, Index n)
   tri_shift_ = b;
 }
 
+const char* path_name(Path path) {
+  switch (path) {
+    case Path::tridiagonal: return "tridiagonal";
+    case Path::two_projection: return "two_projection";
+    case Path::dense: break;
+  }
+  return "dense";
+}
+
+namespace {
+
+std::string explain_two_projection(const expr::Expression& e, Index n,
+                                   const tridiagonal::TwoProjectionSpec& t) {
+  const auto c = tridiagonal::canonical(t, n);
+  char buf[900];
+  std::snprintf(buf, sizeof buf,
+                "expression: %s\nsize: N = %lld\npath: two_projection (%g + %g P + %g U P U^* "
+                "with P of rank %lld and U Haar %s: the %lld x %lld corner of U from the "
+                "beta-Jacobi model of Edelman & Sutton 2008, beta = %g, in a tridiagonal matrix "
+                "with the same eigenvalues%s)\nobservations: histogram by Sturm counts at the bin "
+                "edges, smallest and largest eigenvalue by bisection to 1e-10, moments from the "
+                "band of T^j; no dense matrix and no spectrum\nmemory: O(N), about %.1f MiB\n",
+                e.text().c_str(), static_cast<long long>(n), t.shift, t.s, t.t,
+                static_cast<long long>(t.rank), t.beta == 2.0 ? "unitary" : "orthogonal",
+                static_cast<long long>(c.rank), static_cast<long long>(c.rank), t.beta,
+                c.rank == t.rank ? "" : "; the complementary projections, as 2k > N",
+                48.0 * static_cast<double>(n) / (1024.0 * 1024.0));
+  return buf;
+}
+
+}  // namespace
+
 std::string SizeRunner::explain() const {
+  if (two_) return explain_two_projection(expression_, n_, *two_);
   if (!tri_) return evaluation_.explain();
   char buf[512];
   std::snprintf(buf, sizeof buf,
@@ -257,7 +299,7 @@ std::string SizeRunner::explain() const {
 
 void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
                                std::uint64_t trial) const {
-  if (!tri_) {
+  if (!tri_ && !two_) {
     record(obs, run(seed, trial));
     return;
   }
@@ -267,10 +309,17 @@ void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
   if (exists != obs.trials.end() && exists->trial == trial) {
     throw InputError("trial " + std::to_string(trial) + " is already recorded");
   }
-  tridiagonal::TrialOptions options;
-  options.scale = tri_scale_;
-  options.shift = tri_shift_;
-  auto row = tridiagonal::observe_tridiagonal_trial(*tri_, n_, seed, trial, obs.config, obs.histogram, options);
+  observe::TrialRecord row;
+  if (two_) {
+    row = tridiagonal::observe_two_projection_trial(*two_, n_, seed, trial, obs.config,
+                                                    obs.histogram);
+  } else {
+    tridiagonal::TrialOptions options;
+    options.scale = tri_scale_;
+    options.shift = tri_shift_;
+    row = tridiagonal::observe_tridiagonal_trial(*tri_, n_, seed, trial, obs.config,
+                                                 obs.histogram, options);
+  }
   const auto at = std::lower_bound(
       obs.trials.begin(), obs.trials.end(), trial,
       [](const observe::TrialRecord& r, std::uint64_t t) { return r.trial < t; });
@@ -278,6 +327,10 @@ void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
 }
 
 std::pair<double, double> SizeRunner::pilot_range(std::uint64_t seed, std::uint64_t trial) const {
+  if (two_) {
+    const auto x = tridiagonal::extremes(tridiagonal::sample(*two_, n_, seed, trial), 1e-10);
+    return {x.min, x.max};
+  }
   if (tri_) {
     const auto t = tridiagonal::affine(tridiagonal::sample(*tri_, n_, seed, trial), tri_scale_,
                                        tri_shift_);

@@ -672,7 +672,8 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   const int saved_threads = openblas_get_num_threads();
   openblas_set_num_threads(std::max(1, threads));
   const std::int64_t largest = job.sizes.back();
-  const bool tri = study::runner_at(job, largest).path() == model::Path::tridiagonal;
+  // Both O(N) paths (tridiagonal, two_projection) observe a tridiagonal matrix: one a·N + c.
+  const bool tri = study::runner_at(job, largest).path() != model::Path::dense;
   // A kept spectrum makes a tridiagonal trial compute every eigenvalue (O(N²)).
   const bool tri_spectra = tri && job.observe.keep_spectra > 0;
   std::vector<CostTerm> terms = trial_parts(tri, tri_spectra);
@@ -918,8 +919,8 @@ void describe_kept_spectra(Forecast& e, const job::Job& job) {
     e.kept_spectra += "; freegap report will need about " + human_bytes(100.0 * largest) +
                       " of memory for the largest size's";
   }
-  if (spectra > 0 && e.path == "tridiagonal") {
-    e.kept_spectra += "; on the tridiagonal path a kept spectrum costs every eigenvalue (O(N²)) "
+  if (spectra > 0 && e.path != "dense") {
+    e.kept_spectra += "; on the " + e.path + " path a kept spectrum costs every eigenvalue (O(N²)) "
                       "instead of counts per bin (O(N·bins)); the timing above includes it";
   }
 }
@@ -985,7 +986,7 @@ Forecast forecast(const job::Job& job, const Options& options, std::ostream& log
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
   // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
-  e.path = runners.front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  e.path = model::path_name(runners.front().path());
   e.path_reason = st.path_reason(0);
   // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
   // 12's OpenBLAS 0.3.21): the same refusal, from the study.

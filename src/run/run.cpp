@@ -367,8 +367,7 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.metadata["job_name"] = p.job.name.empty() ? std::string("(unnamed)") : p.job.name;
   h.metadata["seed"] = std::to_string(p.job.seed);
   // Which path computed the numbers (they differ between paths, so this is not provenance).
-  h.metadata["path"] =
-      p.study->runners().front().path() == model::Path::tridiagonal ? "tridiagonal" : "dense";
+  h.metadata["path"] = model::path_name(p.study->runners().front().path());
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
   // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
   h.metadata["blas_threads"] = std::to_string(threads);

@@ -1011,6 +1011,21 @@ std::string first_difference(const RunHeader& file, const RunHeader& job) {
   return "";
 }
 
+// Whether the file's trials were computed on another path than this job's (/metadata path; a
+// file without it predates the O(N) paths and is dense). The same job can change path when a
+// newer freegap adds one (format 1.3: two_projection), and the paths draw different random
+// numbers, so their trials must not be mixed. Empty when they agree or the job names no path.
+std::string path_mismatch(const RunHeader& file, const RunHeader& job) {
+  const auto wanted = job.metadata.find("path");
+  if (wanted == job.metadata.end()) return "";
+  const auto had = file.metadata.find("path");
+  const std::string in_file = had == file.metadata.end() ? "dense" : had->second;
+  if (in_file == wanted->second) return "";
+  return "holds trials computed on the " + in_file + " path, and this freegap computes this job "
+         "on the " + wanted->second + " path (the paths draw different random numbers, so their "
+         "trials cannot be mixed)";
+}
+
 // Opens in this process, checks kind and version, reads the header (and compares it with its
 // checksum) and every size's datasets and commit markers; the units' data are not checked here
 // (see check_units). `flags` is H5F_ACC_RDONLY or H5F_ACC_RDWR.
@@ -1470,6 +1485,11 @@ RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expec
                        short_hash(found.job_hash) + " in the file, " +
                        short_hash(expected.job_hash) +
                        " for this job); use a new output path or --fresh to start over");
+    }
+    const std::string path_difference = path_mismatch(found, expected);
+    if (!path_difference.empty()) {
+      throw InputError("run file '" + path + "' " + path_difference +
+                       "; use a new output path or --fresh to start over");
     }
     const std::string difference = first_difference(found, expected);
     if (!difference.empty()) {

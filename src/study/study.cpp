@@ -54,8 +54,9 @@ std::vector<model::SizeRunner> runners(const job::Job& job) {
 
 std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const auto n = static_cast<double>(runner.size());
-  if (runner.path() == model::Path::tridiagonal) {
-    // Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
+  if (runner.path() != model::Path::dense) {
+    // Tridiagonal and two_projection paths alike (the latter's corner, 4 vectors of N/2 at
+    // most, is freed before the tridiagonal matrix's Sturm work starts). Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
     // (measured 244 MiB at N = 10^7), plus the same 64 MiB allowance.
     return static_cast<std::size_t>(48.0 * n + 64.0 * 1024 * 1024);
   }
@@ -145,6 +146,12 @@ Study Study::of_stored_job(const std::string& job_text, const std::string& job_c
 
 std::string Study::path_reason(std::size_t i) const {
   const model::SizeRunner& runner = runners_.at(i);
+  if (runner.path() == model::Path::two_projection) {
+    return "two_projection: the expression is a·B + b·U B U^* (+ c) of a diagonal B with two "
+           "values and a Haar U, and its eigenvalues are observed, so a trial samples the corner "
+           "of U from the beta-Jacobi model (Edelman & Sutton 2008) in O(N) memory and no dense "
+           "matrix";
+  }
   if (runner.path() == model::Path::tridiagonal) {
     return "tridiagonal: the expression is a·X + b of one matrix with an exact tridiagonal model "
            "(Dumitriu & Edelman 2002) and its eigenvalues are observed, so a trial costs O(N) "
@@ -152,14 +159,17 @@ std::string Study::path_reason(std::size_t i) const {
   }
   model::Model unforced = model_of(job_);
   unforced.force_dense = false;
-  if (model::SizeRunner(unforced, runner.size()).path() == model::Path::tridiagonal) {
+  const model::Path would = model::SizeRunner(unforced, runner.size()).path();
+  if (would != model::Path::dense) {
+    const std::string name = model::path_name(would);
     return job_.force_dense
-               ? "dense: forced by force_dense in [run] (the tridiagonal path would apply)"
+               ? "dense: forced by force_dense in [run] (the " + name + " path would apply)"
                : "dense: the estimators read every trial's spectrum, which only the dense path "
-                 "computes (the tridiagonal path would apply otherwise)";
+                 "computes (the " + name + " path would apply otherwise)";
   }
   return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
-         "β-ensemble matrix with its eigenvalues observed";
+         "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
+         "two-valued diagonal B and a Haar U, with eigenvalues observed";
 }
 
 std::int64_t Study::unit_count(std::size_t i) const {

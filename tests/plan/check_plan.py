@@ -45,6 +45,9 @@ keep_spectra = 2
 
 [run]
 trials_per_unit = 4
+# B + U B U^* takes the O(N) two_projection path by itself; this check
+# needs the dense cost and memory model.
+force_dense = true
 """)
 
 UNITS = {"B": 1, "KiB": 1024, "MiB": 1024 ** 2, "GiB": 1024 ** 3, "TiB": 1024 ** 4}

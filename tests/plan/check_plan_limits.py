@@ -41,6 +41,9 @@ ensemble = "haar_unitary"
 
 [run]
 trials_per_unit = 3
+# B + U B U^* takes the O(N) two_projection path by itself; this check
+# times the dense parts.
+force_dense = true
 """
 
 

@@ -47,6 +47,9 @@ max_moment = 4
 
 [run]
 trials_per_unit = 4
+# B + U B U^* takes the O(N) two_projection path by itself; this check
+# needs units long enough for a deadline to fall between them.
+force_dense = true
 """)
 
 MESSAGE = ("freegap: stopped before the deadline: the next unit would not finish in time; "

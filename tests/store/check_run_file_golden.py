@@ -43,6 +43,9 @@ keep_spectra = 2
 
 [run]
 trials_per_unit = 4
+# B + U B U^* takes the O(N) two_projection path by itself; this check
+# needs the golden copy records the dense path.
+force_dense = true
 """)
 
 

@@ -576,6 +576,38 @@ TEST(Store, ResumeRefusesSameHashWithAnotherLayout) {
                 "the file, 12 for this job); use a new output path or --fresh to start over");
 }
 
+// Format 1.3: the same job computed on another path (/metadata path; a file without it was
+// written by the dense path) is refused, untouched; the same path resumes.
+TEST(Store, ResumeRefusesAnotherPath) {
+  TempDir dir;
+  const auto path = dir.file("x.h5");
+  write_whole_run(path, 3);  // the sample header names no path: the dense path's file
+  const auto before = Snapshot::of(path);
+  auto other = store_sample::header();
+  other.metadata["path"] = "two_projection";
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_for_resume(path, other); }),
+            "run file '" + path +
+                "' holds trials computed on the dense path, and this freegap computes this job "
+                "on the two_projection path (the paths draw different random numbers, so their "
+                "trials cannot be mixed); use a new output path or --fresh to start over");
+  EXPECT_TRUE(Snapshot::of(path) == before);
+  auto dense = store_sample::header();
+  dense.metadata["path"] = "dense";
+  EXPECT_NO_THROW(RunFile::open_for_resume(path, dense));
+
+  const auto fast = dir.file("y.h5");
+  {
+    auto h = store_sample::header();
+    h.metadata["path"] = "two_projection";
+    auto file = RunFile::create(fast, h);
+  }
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_for_resume(fast, dense); }),
+            "run file '" + fast +
+                "' holds trials computed on the two_projection path, and this freegap computes "
+                "this job on the dense path (the paths draw different random numbers, so their "
+                "trials cannot be mixed); use a new output path or --fresh to start over");
+}
+
 TEST(Store, RefusesAnHdf5FileOfAnotherKind) {
   TempDir dir;
   const auto path = dir.file("x.h5");
