@@ -762,7 +762,10 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
     out.reason.clear();
     double mass = law->continuous_mass();
     for (const Atom& a : law->support().atoms) mass += a.weight;
-    if (std::abs(mass - 1.0) > 1e-4) {
+    // 1e-6: the CDF tables are scaled to the bands' contour masses, so a shortfall of the
+    // tables' own total (a coarse edge next to a point mass: 1.3e-5 for S W S with S singular)
+    // is where the CDF may be off locally.
+    if (std::abs(mass - 1.0) > 1e-6) {
       char buffer[320];
       std::snprintf(buffer, sizeof buffer,
                     "the density and the point masses found add up to %.6f instead of 1 (a point "

@@ -4,6 +4,7 @@
 #include <chrono>
 #include <algorithm>
 #include <cctype>
+#include <cmath>
 #include <cstdio>
 
 #include "freegap/errors.hpp"
@@ -256,18 +257,32 @@ const char* path_name(Path path) {
 
 namespace {
 
+std::string text_of(double v) {
+  char out[32];
+  std::snprintf(out, sizeof out, "%g", v);
+  return out;
+}
+
 std::string explain_two_projection(const expr::Expression& e, Index n,
                                    const tridiagonal::TwoProjectionSpec& t) {
   const auto c = tridiagonal::canonical(t, n);
+  // c + s P + t U P U^*, each sign written once ("2 - 2 P - 2 U P U^*", not "2 + -2 P ...").
+  const auto signed_term = [](double v) {
+    char term[64];
+    std::snprintf(term, sizeof term, "%s %g", v < 0 ? "-" : "+", std::abs(v));
+    return std::string(term);
+  };
+  const std::string model = text_of(t.shift) + " " + signed_term(t.s) + " P " + signed_term(t.t) +
+                            " U P U^*";
   char buf[900];
   std::snprintf(buf, sizeof buf,
-                "expression: %s\nsize: N = %lld\npath: two_projection (%g + %g P + %g U P U^* "
+                "expression: %s\nsize: N = %lld\npath: two_projection (%s "
                 "with P of rank %lld and U Haar %s: the %lld x %lld corner of U from the "
                 "beta-Jacobi model of Edelman & Sutton 2008, beta = %g, in a tridiagonal matrix "
                 "with the same eigenvalues%s)\nobservations: histogram by Sturm counts at the bin "
                 "edges, smallest and largest eigenvalue by bisection to 1e-10, moments from the "
                 "band of T^j; no dense matrix and no spectrum\nmemory: O(N), about %.1f MiB\n",
-                e.text().c_str(), static_cast<long long>(n), t.shift, t.s, t.t,
+                e.text().c_str(), static_cast<long long>(n), model.c_str(),
                 static_cast<long long>(t.rank), t.beta == 2.0 ? "unitary" : "orthogonal",
                 static_cast<long long>(c.rank), static_cast<long long>(c.rank), t.beta,
                 c.rank == t.rank ? "" : "; the complementary projections, as 2k > N",

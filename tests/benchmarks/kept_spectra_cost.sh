@@ -35,6 +35,7 @@ ensemble = "haar_unitary"
 keep_spectra = "$keep"
 [run]
 trials_per_unit = 4
+force_dense = true  # the dense path these numbers were measured on
 JOB
     for r in $(seq "$rounds"); do
       ms "$exe" run "$work/free-$n-$keep.toml" -o "$work/free-$n-$keep.h5" --quiet --fresh

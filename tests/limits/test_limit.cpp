@@ -198,7 +198,7 @@ TEST(LimitOfRun, PolynomialInOneMatrixIsItsImageAndLosesNoMass) {
 TEST(LimitOfRun, SolverLawThatMissesMassSaysSo) {
   // The polynomial solver's CDF misses mass it cannot place (python.check_limit_catalogue found
   // 0.4 % too much for a cubic in one GUE, which the polynomial image now takes): the derivation states it beside the law, for limit and
-  // report alike, exactly when the density and point masses miss 1 by more than 1e-4.
+  // report alike, exactly when the density and point masses miss 1 by more than 1e-6.
   for (const std::string text : {"X1 X2 X1 + X2", "X1 X2 + X2 X1"}) {
     const auto d = derive({"X1=gue", "X2=gue"}, text, 2);
     ASSERT_TRUE(d.law) << d.reason;
@@ -206,7 +206,7 @@ TEST(LimitOfRun, SolverLawThatMissesMassSaysSo) {
     ASSERT_NE(polynomial, nullptr) << text;
     double mass = polynomial->continuous_mass();
     for (const auto& a : d.law->support().atoms) mass += a.weight;
-    EXPECT_EQ(!d.law_note.empty(), std::abs(mass - 1.0) > 1e-4) << text << ": " << mass;
+    EXPECT_EQ(!d.law_note.empty(), std::abs(mass - 1.0) > 1e-6) << text << ": " << mass;
     if (!d.law_note.empty()) {
       char shown[32];
       std::snprintf(shown, sizeof shown, "add up to %.6f", mass);
