@@ -1,8 +1,10 @@
 // Pieces shared by the tridiagonal sources (not part of the public interface).
 #pragma once
 
+#include <charconv>
 #include <cstddef>
 #include <cstdint>
+#include <string>
 #include <vector>
 
 #include "freegap/tridiagonal.hpp"
@@ -16,6 +18,13 @@
 #endif
 
 namespace freegap::tridiagonal::detail {
+
+/// x in the shortest form that reads back to the same double (for messages).
+inline std::string number(double x) {
+  char buffer[64];
+  const auto result = std::to_chars(buffer, buffer + sizeof buffer, x);
+  return std::string(buffer, result.ptr);
+}
 
 /// negatives[j] = number of negative LDLᵀ pivots of T − x_j I (as a double), j < m; q is scratch.
 void sturm_sweep(const double* d, const double* e2, Index n, const double* x, double* q,

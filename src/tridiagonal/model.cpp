@@ -1,7 +1,6 @@
 // Tridiagonal β-Hermite and β-Laguerre models (Dumitriu & Edelman 2002) and the gamma/chi
 // variates they need, drawn from one rng::Stream per (seed, name, N, trial).
 #include <algorithm>
-#include <charconv>
 #include <cmath>
 #include <limits>
 #include <string>
@@ -10,15 +9,12 @@
 #include "freegap/errors.hpp"
 #include "freegap/rng.hpp"
 #include "freegap/tridiagonal.hpp"
+#include "internal.hpp"
 
 namespace freegap::tridiagonal {
 namespace {
 
-std::string number(double x) {
-  char buffer[64];
-  const auto result = std::to_chars(buffer, buffer + sizeof buffer, x);
-  return std::string(buffer, result.ptr);
-}
+using detail::number;
 
 std::string label(const ModelSpec& spec) { return "tridiagonal model '" + spec.name + "'"; }
 

@@ -4,21 +4,17 @@
 // form scaled and shifted, and a decoupled constant block.
 #include <algorithm>
 #include <cmath>
-#include <charconv>
 #include <string>
 
 #include "freegap/errors.hpp"
 #include "freegap/rng.hpp"
 #include "freegap/tridiagonal.hpp"
+#include "internal.hpp"
 
 namespace freegap::tridiagonal {
 namespace {
 
-std::string number(double x) {
-  char buffer[64];
-  const auto result = std::to_chars(buffer, buffer + sizeof buffer, x);
-  return std::string(buffer, result.ptr);
-}
+using detail::number;
 
 [[noreturn]] void refuse(const TwoProjectionSpec& spec, const std::string& what) {
   throw InputError("two-projection model '" + spec.name + "': " + what);

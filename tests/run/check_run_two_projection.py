@@ -28,15 +28,11 @@ import h5py  # noqa: E402
 import numpy as np  # noqa: E402
 
 # A scenario of our own: two equal halves of a ±1 signal, one of them turned by a Haar rotation.
-JOB = """seed = 17
+JOB = rh.fixture_job("rotated-two-level", """\
+seed = 17
 sizes = [2000, 1000000]
 trials = 8
-expression = "B + U B U^*"
-[matrices.B]
-ensemble = "diagonal"
-atoms = [[1.0, 0.5], [-1.0, 0.5]]
-[matrices.U]
-ensemble = "haar_unitary"
+""", """\
 [observe]
 bins = 100
 range = [-2.2, 2.2]
@@ -44,7 +40,7 @@ max_moment = 4
 [run]
 trials_per_unit = 2
 {extra}
-"""
+""")
 
 
 def metadata_path(path):

@@ -162,7 +162,7 @@ TEST(JacobiCorner, CosineAndSineBlocksAreComplementary) {
 
 // λ± = ((s + t) ± √((s − t)² + 4stσ²))/2 for each singular value σ of the m×m corner (m =
 // min(k, N − k), the lower-right one when k > N/2), plus N − 2m eigenvalues 0 (k ≤ N/2) or s + t
-// (k > N/2), then + c. A plain transcription of the header's formulas.
+// (k > N/2), then + c: the header's formulas, written out here apart from the model's code.
 std::vector<double> mapped_spectrum(const tri::TwoProjectionSpec& p, Index n,
                                     const std::vector<double>& sigma) {
   std::vector<double> out;
