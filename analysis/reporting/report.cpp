@@ -21,6 +21,7 @@
 #include "freegap/analysis/limits/limit.hpp"
 #include "freegap/analysis/statistics/metrics.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
+#include "freegap/analysis/limits/tabulated_cdf.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/stop.hpp"
 #include "freegap/store.hpp"
@@ -94,76 +95,16 @@ struct RunResult {
   std::vector<EstimateScore> estimates;  // plug-in estimators scored against their truths
 };
 
-// The CDF of a law on a graded grid x(θ) = lo + w(1 − cos θ)/2, θ ∈ [0, π], interpolated by cubic
-// Hermite polynomials in θ with the exact derivative dF/dθ = f(x)·dx/dθ from the density. In θ
-// the square-root edges of the support are smooth, so the interpolant is fourth order there
-// (error ~ h⁴, h = π/M); near an interior edge of a support with gaps it is locally of order
-// h^1.5 in x-spacing (about 1e-6 with M = 8192 on a support of width 4). Atoms are added exactly.
-class TabulatedCdf {
- public:
-  explicit TabulatedCdf(const Law& law, int m = 8192) : support_(law.support()) {
-    lo_ = support_.lo;
-    w_ = support_.hi - support_.lo;
-    theta_step_ = std::numbers::pi / m;
-    std::vector<double> xs(static_cast<std::size_t>(m) + 1);
-    for (int j = 0; j <= m; ++j) xs[static_cast<std::size_t>(j)] = x_of(j * theta_step_);
-    const std::vector<double> dens = law.densities(xs);
-    values_.resize(xs.size());
-    slopes_.resize(xs.size());
-    for (std::size_t j = 0; j < xs.size(); ++j) {
-      values_[j] = law.cdf(xs[j]) - atoms_up_to(xs[j]);
-      const double f = std::isfinite(dens[j]) ? dens[j] : 0.0;
-      slopes_[j] = f * 0.5 * w_ * std::sin(static_cast<double>(j) * theta_step_);
-    }
-  }
-  double cdf(double x) const {
-    if (!(w_ > 0.0)) return x >= lo_ ? 1.0 : 0.0;
-    const double atoms = atoms_up_to(x);
-    if (x <= lo_) return atoms;
-    if (x >= lo_ + w_) return std::min(1.0, values_.back() + atoms);
-    const double theta = std::acos(std::clamp(1.0 - 2.0 * (x - lo_) / w_, -1.0, 1.0));
-    const auto j = std::min(static_cast<std::size_t>(theta / theta_step_), values_.size() - 2);
-    const double t = theta / theta_step_ - static_cast<double>(j);
-    const double h00 = (1 + 2 * t) * (1 - t) * (1 - t), h10 = t * (1 - t) * (1 - t);
-    const double h01 = t * t * (3 - 2 * t), h11 = t * t * (t - 1);
-    const double v = h00 * values_[j] + h10 * theta_step_ * slopes_[j] + h01 * values_[j + 1] +
-                     h11 * theta_step_ * slopes_[j + 1];
-    return std::clamp(v + atoms, 0.0, 1.0);
-  }
-  double quantile(double p) const {
-    double a = support_.lo, b = support_.hi;
-    if (p <= 0.0) return a;
-    for (int i = 0; i < 200 && b - a > 4e-16 * (1.0 + std::abs(a) + std::abs(b)); ++i) {
-      const double mid = 0.5 * (a + b);
-      (cdf(mid) >= p ? b : a) = mid;
-    }
-    return b;
-  }
-
- private:
-  double x_of(double theta) const { return lo_ + 0.5 * w_ * (1.0 - std::cos(theta)); }
-  double atoms_up_to(double x) const {
-    double m = 0.0;
-    for (const Atom& a : support_.atoms) {
-      if (a.value <= x) m += a.weight;
-    }
-    return m;
-  }
-  Support support_;
-  double lo_ = 0.0, w_ = 0.0, theta_step_ = 0.0;
-  std::vector<double> values_, slopes_;
-};
-
 LimitReference reference_of(const DerivedLimit& d, observe::SpectrumKind kind) {
   LimitReference r;
   r.edge_low = r.edge_high = r.norm = kNaN;
   if (!d.exact_moments.empty()) r.moments = d.exact_moments;
   if (!d.law) return r;
   const LawPtr law = d.law;
-  if (dynamic_cast<const SubordinatedLaw*>(law.get()) != nullptr) {
+  if (const auto* sub = dynamic_cast<const SubordinatedLaw*>(law.get())) {
     // A law solved by subordination pays a solve for every F(x), and the distances evaluate F at
     // many points for every bootstrap replicate: tabulate it once (see TabulatedCdf).
-    auto table = std::make_shared<const TabulatedCdf>(*law);
+    auto table = std::make_shared<const TabulatedCdf>(*law, sub->singular_points());
     r.distribution.cdf = [table](double x) { return table->cdf(x); };
     r.distribution.quantile = [table](double u) { return table->quantile(u); };
   } else {

@@ -55,6 +55,9 @@ class SubordinatedLaw : public Law {
                                   const std::complex<double>* start = nullptr) const;
   /// The absolute distance to the axis used for densities.
   double epsilon() const { return epsilon_abs_; }
+  /// Points inside a band where the density may be infinite (interior_singular_points): where a
+  /// quadrature of the density must not lay a panel across (TabulatedCdf's breakpoints).
+  std::vector<double> singular_points() const { return interior_singular_points(); }
 
  protected:
   /// Density at real x from a solve at x + iε, polished to ε → 0; updates `warm`.
