@@ -104,6 +104,10 @@ class SizeRunner {
   }
   /// What will be computed: the evaluation plan, or the tridiagonal model and its observations.
   std::string explain() const;
+  /// How this freegap's samplers draw this model's trials differently from those of run-file
+  /// format 1.3 and before (which the run file records as /metadata sampler_changes and a resume
+  /// compares): "NAME: what changed" per matrix, joined by "; ", or empty when nothing did.
+  std::string sampler_changes() const;
   /// Observes trial `trial` into `obs` (either path). Failed trials become failure rows.
   void observe_trial(observe::Observations& obs, std::uint64_t seed, std::uint64_t trial) const;
   /// Smallest and largest eigenvalue (or singular value) of one trial, for an automatic

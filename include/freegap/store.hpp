@@ -29,8 +29,10 @@ inline constexpr int kFormatMajor = 1;
 /// "two_projection" of /metadata path, which a resume now compares with the job's path (a file of
 /// another path, or one without the attribute — dense — is refused; docs/run-file.md). Files of
 /// 1.0 and 1.1 stay readable and resumable; they are reported as unverified. 1.2 files read and
-/// resume as before.
-inline constexpr int kFormatMinor = 3;
+/// resume as before. 1.4 added /metadata sampler_changes: how the job's samplers draw differently
+/// from those of 1.3 and before (empty when they do not), compared on resume like the path, so a
+/// file drawn by an older sampler is refused where the samplers changed and resumed where not.
+inline constexpr int kFormatMinor = 4;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {

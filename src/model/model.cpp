@@ -246,6 +246,15 @@ SizeRunner::SizeRunner(const Model& model, Index n)
   tri_shift_ = b;
 }
 
+std::string SizeRunner::sampler_changes() const {
+  std::vector<std::string> changes;
+  // One entry per used matrix whose sampler draws differently from format 1.3's; none does yet
+  // (the paths themselves are recorded apart, as /metadata path).
+  std::string out;
+  for (const std::string& c : changes) out += (out.empty() ? "" : "; ") + c;
+  return out;
+}
+
 const char* path_name(Path path) {
   switch (path) {
     case Path::tridiagonal: return "tridiagonal";

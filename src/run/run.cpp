@@ -368,6 +368,8 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.metadata["seed"] = std::to_string(p.job.seed);
   // Which path computed the numbers (they differ between paths, so this is not provenance).
   h.metadata["path"] = model::path_name(p.study->runners().front().path());
+  // Which samplers draw differently from format 1.3's (compared on resume like the path).
+  h.metadata["sampler_changes"] = p.study->runners().front().sampler_changes();
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
   // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
   h.metadata["blas_threads"] = std::to_string(threads);

@@ -1026,6 +1026,25 @@ std::string path_mismatch(const RunHeader& file, const RunHeader& job) {
          "trials cannot be mixed)";
 }
 
+// Whether the file's trials were drawn by samplers that draw differently from this freegap's
+// (/metadata sampler_changes: how the job's samplers differ from those of format 1.3 and before,
+// empty when they do not; a file without it was written by one of those). Same path, same job,
+// other numbers: the trials must not be mixed. Empty when they agree or the job names none.
+std::string sampler_mismatch(const RunHeader& file, const RunHeader& job) {
+  const auto wanted = job.metadata.find("sampler_changes");
+  if (wanted == job.metadata.end()) return "";
+  const auto had = file.metadata.find("sampler_changes");
+  const std::string in_file = had == file.metadata.end() ? "" : had->second;
+  if (in_file == wanted->second) return "";
+  auto name = [](const std::string& changes) {
+    return changes.empty() ? std::string("the samplers of freegap's run-file format 1.3")
+                           : "the samplers '" + changes + "'";
+  };
+  return "holds trials drawn by " + name(in_file) + ", and this freegap draws this job's trials "
+         "by " + name(wanted->second) + " (they give different numbers, so their trials cannot "
+         "be mixed)";
+}
+
 // Opens in this process, checks kind and version, reads the header (and compares it with its
 // checksum) and every size's datasets and commit markers; the units' data are not checked here
 // (see check_units). `flags` is H5F_ACC_RDONLY or H5F_ACC_RDWR.
@@ -1486,7 +1505,8 @@ RunFile RunFile::open_for_resume(const std::string& path, const RunHeader& expec
                        short_hash(expected.job_hash) +
                        " for this job); use a new output path or --fresh to start over");
     }
-    const std::string path_difference = path_mismatch(found, expected);
+    std::string path_difference = path_mismatch(found, expected);
+    if (path_difference.empty()) path_difference = sampler_mismatch(found, expected);
     if (!path_difference.empty()) {
       throw InputError("run file '" + path + "' " + path_difference +
                        "; use a new output path or --fresh to start over");

@@ -608,6 +608,40 @@ TEST(Store, ResumeRefusesAnotherPath) {
                 "trials cannot be mixed); use a new output path or --fresh to start over");
 }
 
+TEST(Store, ResumeRefusesTrialsOfAnotherSampler) {
+  // /metadata sampler_changes (format 1.4): a file written before it (no attribute) holds the
+  // trials of format 1.3's samplers; a job whose samplers changed since must not resume it, a
+  // job whose samplers did not (empty value) must.
+  TempDir dir;
+  const auto path = dir.file("x.h5");
+  write_whole_run(path, 3);  // the sample header has no sampler_changes: a 1.3 writer's file
+  const auto before = Snapshot::of(path);
+  auto changed = store_sample::header();
+  changed.metadata["sampler_changes"] = "U: columns only";
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_for_resume(path, changed); }),
+            "run file '" + path +
+                "' holds trials drawn by the samplers of freegap's run-file format 1.3, and this "
+                "freegap draws this job's trials by the samplers 'U: columns only' (they give "
+                "different numbers, so their trials cannot be mixed); use a new output path or "
+                "--fresh to start over");
+  EXPECT_TRUE(Snapshot::of(path) == before);
+  auto same = store_sample::header();
+  same.metadata["sampler_changes"] = "";
+  EXPECT_NO_THROW(RunFile::open_for_resume(path, same));
+
+  const auto newer = dir.file("y.h5");
+  { auto file = RunFile::create(newer, changed); }
+  EXPECT_NO_THROW(RunFile::open_for_resume(newer, changed));
+  auto other = store_sample::header();
+  other.metadata["sampler_changes"] = "U: polar by Newton";
+  EXPECT_EQ(message_of_type<InputError>([&] { RunFile::open_for_resume(newer, other); }),
+            "run file '" + newer +
+                "' holds trials drawn by the samplers 'U: columns only', and this freegap draws "
+                "this job's trials by the samplers 'U: polar by Newton' (they give different "
+                "numbers, so their trials cannot be mixed); use a new output path or --fresh to "
+                "start over");
+}
+
 TEST(Store, RefusesAnHdf5FileOfAnotherKind) {
   TempDir dir;
   const auto path = dir.file("x.h5");
