@@ -44,6 +44,7 @@
 //   memory_per_rank = "8 GiB"               # B, kB, MB, GB, TB, KiB, MiB, GiB, TiB, or integer
 //   bytes output = "free-sum.h5"                  # relative to the job file's directory
 //   force_dense = false
+//   path = "auto"                           # "auto", "dense", "tridiagonal", "two_projection"
 //
 // Matrix keys by ensemble (a key that does not apply is an error):
 //   gue, goe, wigner_rademacher            ensemble
@@ -147,6 +148,8 @@ struct Job {
   std::string output;
   std::int64_t memory_per_rank_bytes = 0;  ///< 0 = not given
   bool force_dense = false;                ///< force the dense path
+  /// [run] path: "auto" (the cheapest path that applies, by predicted cost) or a path's name.
+  std::string run_path = "auto";
   /// [[estimator]] tables, in file order.
   std::vector<EstimatorSpec> estimators;
 

@@ -18,13 +18,24 @@ namespace freegap::model {
 
 using Index = Eigen::Index;
 
+/// Which path a job asks for: the cheapest of those that apply (by the predicted cost of one
+/// trial, predicted_trial_seconds), or one by name.
+enum class PathRequest { automatic, dense, tridiagonal, two_projection };
+
 /// What a job declares about its matrices and expression.
 struct Model {
   std::vector<ensembles::MatrixSpec> matrices;
   std::string expression;
   expr::CheckOptions check;
-  /// Use dense matrices even where the tridiagonal path applies (for comparison).
+  /// Use dense matrices even where the tridiagonal path applies (for comparison); the same as
+  /// path = PathRequest::dense.
   bool force_dense = false;
+  PathRequest path = PathRequest::automatic;
+  /// What a trial observes, for the predicted costs of the paths: the number of histogram bins,
+  /// the largest moment, and the share of trials that keep their whole spectrum (0 to 1).
+  std::int64_t bins = 200;
+  int max_moment = 8;
+  double kept_share = 0.0;
 };
 
 /// How a size's trials are computed.
@@ -40,6 +51,17 @@ enum class Path {
 /// The path's name in the run file's /metadata path, `run --explain` and `plan`: "dense",
 /// "tridiagonal" or "two_projection".
 const char* path_name(Path path);
+
+/// Predicted CPU seconds of one trial of size n on a path, for choosing between paths that apply:
+/// dense: sampling and the eigenvalue step (complex or real); tridiagonal and
+/// two_projection (both observe an n × n tridiagonal matrix): Sturm counts at bins + 1 edges,
+/// sampling, extremes and moments, and the whole spectrum (dsterf, O(n²)) for the kept share of
+/// trials. Fixed coefficients measured on the development machine (docs/performance.md §5b), so
+/// that the choice depends on the job alone and never on the machine or the rank: within a
+/// version, the same job computes the same numbers everywhere.
+/// `extra_dense_seconds`: the dense path's sampling beyond a Wigner matrix's and its evaluation.
+double predicted_trial_seconds(Path path, Index n, const Model& model, bool complex_dense,
+                               double extra_dense_seconds);
 
 /// The two-projection model of an expression, or nothing when it does not have that form: every
 /// term of its expansion is a constant, a diagonal D, or U D U^* (or U^* D U throughout) for one
@@ -102,6 +124,9 @@ class SizeRunner {
   Path path() const {
     return tri_ ? Path::tridiagonal : two_ ? Path::two_projection : Path::dense;
   }
+  /// Why this path: forced by the job, the only one that applies, or the cheapest predicted
+  /// (with the predicted seconds per trial of the paths compared).
+  const std::string& path_choice() const { return path_choice_; }
   /// What will be computed: the evaluation plan, or the tridiagonal model and its observations.
   std::string explain() const;
   /// How this freegap's samplers draw this model's trials differently from those of run-file
@@ -138,6 +163,15 @@ class SizeRunner {
   std::optional<tridiagonal::ModelSpec> tri_;
   double tri_scale_ = 1.0, tri_shift_ = 0.0;
   std::optional<tridiagonal::TwoProjectionSpec> two_;
+  std::string path_choice_;
+  std::string predicted_;  // the predicted costs compared, for explain()
+  /// The tridiagonal form a·X + b of the expression, when it has one (and the refusals of
+  /// matrices that have only a tridiagonal model, in any other expression).
+  std::optional<tridiagonal::ModelSpec> tridiagonal_form(const Model& model, double& scale,
+                                                         double& shift) const;
+  /// Picks the path from the job's request and the predicted costs (sets tri_ / two_).
+  void choose_path(const Model& model, std::optional<tridiagonal::ModelSpec> tri, double scale,
+                   double shift, std::optional<tridiagonal::TwoProjectionSpec> two);
 };
 
 /// Records an outcome into observations (a failed one as a failure row).

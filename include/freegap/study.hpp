@@ -45,6 +45,10 @@ class Study {
   /// (`explain()`). Empty for a study of an expression alone.
   const std::vector<model::SizeRunner>& runners() const { return runners_; }
   /// Why size `i` takes its path, in one sentence for `plan` and `run --explain`.
+  /// The paths of the sizes, in ladder order without repeats, joined by ","; one name when every
+  /// size takes the same path (at small N with many bins the dense trial may be the cheaper one
+  /// and at large N the O(N) path, so a ladder can cross over). /metadata path and `plan`.
+  std::string path_names() const;
   std::string path_reason(std::size_t i) const;
   /// The work units of size `i`: trials in blocks of the job's trials_per_unit, the last one
   /// shorter (unit u holds trials [u·B, min((u+1)·B, T))).

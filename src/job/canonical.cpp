@@ -143,6 +143,8 @@ std::string Job::canonical() const {
   out += "; keep_spectra = " + std::to_string(observe.keep_spectra);
   out += observe.singular_values ? "; spectrum = singular_values\n" : "; spectrum = auto\n";
   out += force_dense ? "force_dense = true\n" : "force_dense = false\n";
+  // Only when given, so that jobs without the key keep their hash.
+  if (run_path != "auto") out += "path = " + run_path + "\n";
   // Estimators define numbers in the file too (their estimates). Nothing is printed for a job
   // without them, so such jobs keep their hash. A library is identified by its bytes (the path is
   // where, not what); a command by its argv only — freegap cannot see what a program reads.

@@ -730,7 +730,8 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
 }
 
 void read_run(const Reader& r, const toml::table& t, const std::filesystem::path& base, Job& job) {
-  r.check_keys(t, "run", {"trials_per_unit", "memory_per_rank", "output", "force_dense"}, "");
+  r.check_keys(t, "run", {"trials_per_unit", "memory_per_rank", "output", "force_dense", "path"},
+               "");
   if (const toml::node* v = t.get("trials_per_unit")) {
     job.trials_per_unit = r.integer(*v, "run.trials_per_unit", "an integer ≥ 1");
     if (job.trials_per_unit < 1) {
@@ -764,6 +765,19 @@ void read_run(const Reader& r, const toml::table& t, const std::filesystem::path
   }
   if (const toml::node* v = t.get("force_dense"))
     job.force_dense = r.boolean(*v, "run.force_dense");
+  if (const toml::node* v = t.get("path")) {
+    const std::string p = r.string(*v, "run.path", "\"auto\", \"dense\", \"tridiagonal\" or "
+                                   "\"two_projection\"");
+    if (p != "auto" && p != "dense" && p != "tridiagonal" && p != "two_projection") {
+      r.fail("run.path", "must be \"auto\", \"dense\", \"tridiagonal\" or \"two_projection\" "
+                         "(got \"" + p + "\")");
+    }
+    if (job.force_dense && p != "auto" && p != "dense") {
+      r.fail("run.path", "asks for the " + p + " path while force_dense = true asks for the dense "
+                         "one; keep one of the two keys");
+    }
+    job.run_path = p;
+  }
 }
 
 // ---- estimators ----------------------------------------------------------------------------------

@@ -179,19 +179,21 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       expression_(model.expression, model.matrices, model.check),
       evaluation_(expression_, n) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
-  // The two-projection path: a·B + b·U B U^* + c of a two-valued diagonal and a Haar matrix
-  // (two_projection_form). Like the tridiagonal path, decided from the job alone.
-  if (!model.force_dense) {
-    two_ = two_projection_form(expression_, n);
-    if (two_) {
-      tridiagonal::validate(*two_, n);
-      return;
-    }
-  }
-  // The tridiagonal path applies when the expression is a·X + b for one matrix X whose
-  // eigenvalue law has an exact tridiagonal model (Dumitriu & Edelman 2002) and eigenvalues are
-  // asked for. It is decided from the job alone, never per rank: its random numbers differ from
-  // the dense path's.
+  const bool dense = model.force_dense || model.path == PathRequest::dense;
+  // Both O(N) paths are decided from the job alone, never per rank: their random numbers differ
+  // from the dense path's. The two-projection form: a·B + b·U B U^* + c of a two-valued diagonal
+  // and a Haar matrix (two_projection_form); the tridiagonal form: a·X + b of one matrix whose
+  // eigenvalue law has an exact tridiagonal model (Dumitriu & Edelman 2002).
+  std::optional<tridiagonal::TwoProjectionSpec> two;
+  if (!dense && model.path != PathRequest::tridiagonal) two = two_projection_form(expression_, n);
+  double scale = 1.0, shift = 0.0;
+  std::optional<tridiagonal::ModelSpec> tri = tridiagonal_form(model, scale, shift);
+  choose_path(model, dense ? std::nullopt : tri, scale, shift, two);
+}
+
+std::optional<tridiagonal::ModelSpec> SizeRunner::tridiagonal_form(const Model& model,
+                                                                   double& scale,
+                                                                   double& shift) const {
   using ensembles::Kind;
   int letter = -1;
   double a = 0.0, b = 0.0;
@@ -207,27 +209,27 @@ SizeRunner::SizeRunner(const Model& model, Index n)
     }
   }
   affine = affine && letter >= 0;
+  const bool dense = model.force_dense || model.path == PathRequest::dense;
   for (std::size_t i = 0; i < model.matrices.size(); ++i) {
     const auto& spec = model.matrices[i];
     const bool beta_only = spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre;
     if (!beta_only || !used_[i]) continue;
+    const std::string what = "matrix '" + spec.name + "' (" +
+                             std::string(ensembles::kind_name(spec.kind)) + ")";
     if (!affine || letter != static_cast<int>(i)) {
-      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
-                       ") has only a tridiagonal model, which gives the law of its eigenvalues "
-                       "alone; use it alone or as a·" + spec.name + " + b");
+      throw InputError(what + " has only a tridiagonal model, which gives the law of its "
+                       "eigenvalues alone; use it alone or as a·" + spec.name + " + b");
     }
-    if (model.force_dense) {
-      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
-                       ") has no dense sampler, so force_dense cannot apply; compare with gue or "
-                       "goe (β = 2, 1) or wishart_complex or wishart_real instead");
+    if (dense) {
+      throw InputError(what + " has no dense sampler, so the dense path cannot apply; compare "
+                       "with gue or goe (β = 2, 1) or wishart_complex or wishart_real instead");
     }
     if (expression_.spectrum() != expr::Spectrum::eigenvalues) {
-      throw InputError("matrix '" + spec.name + "' (" + std::string(ensembles::kind_name(spec.kind)) +
-                       "): singular values are not available on the tridiagonal path; observe "
-                       "eigenvalues");
+      throw InputError(what + ": singular values are not available on the tridiagonal path; "
+                       "observe eigenvalues");
     }
   }
-  if (!affine || model.force_dense || expression_.spectrum() != expr::Spectrum::eigenvalues) return;
+  if (!affine || expression_.spectrum() != expr::Spectrum::eigenvalues) return std::nullopt;
   const auto& x = model.matrices[static_cast<std::size_t>(letter)];
   tridiagonal::ModelSpec t;
   t.name = x.name;
@@ -238,12 +240,113 @@ SizeRunner::SizeRunner(const Model& model, Index n)
     case Kind::wishart_complex: t.family = tridiagonal::Family::laguerre; t.beta = 2.0; t.ratio = x.ratio; break;
     case Kind::wishart_real: t.family = tridiagonal::Family::laguerre; t.beta = 1.0; t.ratio = x.ratio; break;
     case Kind::beta_laguerre: t.family = tridiagonal::Family::laguerre; t.beta = x.beta; t.ratio = x.ratio; break;
-    default: return;  // no tridiagonal model (Wigner ±1, Ginibre, Haar, diagonal)
+    default: return std::nullopt;  // no tridiagonal model (Wigner ±1, Ginibre, Haar, diagonal)
   }
   tridiagonal::validate(t);
-  tri_ = t;
-  tri_scale_ = a;
-  tri_shift_ = b;
+  scale = a;
+  shift = b;
+  return t;
+}
+
+namespace {
+
+// The dense path's sampling beyond a Wigner matrix's, and its evaluation: Haar samples by QR
+// (2.7 s complex, 0.85 s real at N = 2000, tests/benchmarks/RESULTS.md; ×5 by the polar factor),
+// Wishart samples (1.07 s complex at N = 2000, c = 1, scaling as 1/c) and the evaluation's flops
+// at 50 GFlop/s.
+double dense_extra_seconds(const Model& model, const std::vector<bool>& used, Index n,
+                           double flops) {
+  using ensembles::Kind;
+  const double cube = std::pow(static_cast<double>(n), 3);
+  double s = 2e-11 * flops;
+  for (std::size_t i = 0; i < model.matrices.size(); ++i) {
+    const auto& m = model.matrices[i];
+    if (!used[i]) continue;
+    const double polar = m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0;
+    if (m.kind == Kind::haar_unitary) s += 3.4e-10 * cube * polar;
+    if (m.kind == Kind::haar_orthogonal) s += 1.1e-10 * cube * polar;
+    if (m.kind == Kind::wishart_complex) s += 1.3e-10 * cube / m.ratio;
+    if (m.kind == Kind::wishart_real) s += 0.46e-10 * cube / m.ratio;
+  }
+  return s;
+}
+
+std::string seconds_text(double s) {
+  char out[32];
+  std::snprintf(out, sizeof out, "%.3g s", s);
+  return out;
+}
+
+}  // namespace
+
+void SizeRunner::choose_path(const Model& model, std::optional<tridiagonal::ModelSpec> tri,
+                             double scale, double shift,
+                             std::optional<tridiagonal::TwoProjectionSpec> two) {
+  const char* forced = model.path == PathRequest::tridiagonal      ? "tridiagonal"
+                       : model.path == PathRequest::two_projection ? "two_projection"
+                                                                   : nullptr;
+  if (forced && !(model.path == PathRequest::tridiagonal ? tri.has_value() : two.has_value())) {
+    throw InputError(std::string("path = \"") + forced + "\" does not apply to this model: " +
+                     (model.path == PathRequest::tridiagonal
+                          ? "the tridiagonal path computes a·X + b of one GUE, GOE, Wishart or "
+                            "β-ensemble matrix, with eigenvalues observed"
+                          : "the two_projection path computes a·B + b·U B U^* (+ c) of a "
+                            "two-valued diagonal B and a Haar U, with eigenvalues observed") +
+                     "; remove path or set it to \"auto\" or \"dense\"");
+  }
+  if (model.force_dense || model.path == PathRequest::dense) {
+    path_choice_ = "forced by the job";
+    return;
+  }
+  const Path fast = two ? Path::two_projection : Path::tridiagonal;
+  if (!two && !tri) {
+    path_choice_ = "the only path that applies";
+    return;
+  }
+  if (forced) {
+    path_choice_ = "forced by the job";
+  } else {
+    // A matrix with only a tridiagonal model has no dense sampler: no choice to make.
+    const bool has_dense = std::none_of(model.matrices.begin(), model.matrices.end(), [](auto& m) {
+      return m.kind == ensembles::Kind::beta_hermite || m.kind == ensembles::Kind::beta_laguerre;
+    });
+    const double linear = predicted_trial_seconds(fast, n_, model, false, 0.0);
+    const double full = predicted_trial_seconds(Path::dense, n_, model, !expression_.is_real(),
+                                                dense_extra_seconds(model, used_, n_,
+                                                                    evaluation_.flops()));
+    predicted_ = "predicted CPU per trial: " + std::string(path_name(fast)) + " " +
+                 seconds_text(linear) + ", dense " + seconds_text(full);
+    path_choice_ = has_dense ? "the cheaper of the two that apply, by predicted cost per trial"
+                             : "the only path that applies (no dense sampler)";
+    if (has_dense && full < linear) return;
+  }
+  if (two) {
+    tridiagonal::validate(*two, n_);
+    two_ = two;
+  } else {
+    tri_ = tri;
+    tri_scale_ = scale;
+    tri_shift_ = shift;
+  }
+}
+
+double predicted_trial_seconds(Path path, Index n, const Model& model, bool complex_dense,
+                               double extra_dense_seconds) {
+  // Coefficients from CPU times of one trial measured on the development machine (2-core AMD
+  // EPYC, one OpenBLAS thread, 2026-12-04; docs/performance.md §5b): a GUE and a GOE trial on
+  // each path at N = 3 … 400 with 100 to 40,000 bins, and dsterf's time at N = 10⁵ (§5).
+  const double nn = static_cast<double>(n);
+  if (path == Path::dense) {
+    // Sampling a Wigner matrix and the eigenvalue step (zheevd / dsyevd): a + b N² + c N³.
+    return complex_dense ? 5e-6 + 6.5e-8 * nn * nn + 2.1e-10 * nn * nn * nn + extra_dense_seconds
+                         : 4.5e-6 + 3.8e-8 * nn * nn + 1.5e-10 * nn * nn * nn + extra_dense_seconds;
+  }
+  const double edges = static_cast<double>(model.bins + 1);
+  const double k = static_cast<double>(std::max(model.max_moment, 2));
+  // Sturm counts: 2.5 ns per edge plus 0.445 ns per (row, edge); sampling and both extremes by
+  // bisection ≈ 170 ns per row; moments ≈ 0.75 ns per row and K²; kept spectra by dsterf.
+  return 5e-6 + edges * (2.5e-9 + 0.445e-9 * nn) + 170e-9 * nn + 0.75e-9 * k * k * nn +
+         model.kept_share * 1.1e-8 * nn * nn;
 }
 
 std::string SizeRunner::sampler_changes() const {
@@ -302,8 +405,9 @@ std::string explain_two_projection(const expr::Expression& e, Index n,
 }  // namespace
 
 std::string SizeRunner::explain() const {
-  if (two_) return explain_two_projection(expression_, n_, *two_);
-  if (!tri_) return evaluation_.explain();
+  const std::string predicted = predicted_.empty() ? "" : predicted_ + "\n";
+  if (two_) return explain_two_projection(expression_, n_, *two_) + predicted;
+  if (!tri_) return evaluation_.explain() + predicted;
   char buf[512];
   std::snprintf(buf, sizeof buf,
                 "expression: %s\nsize: N = %lld\npath: tridiagonal (Dumitriu & Edelman 2002 %s "
@@ -318,7 +422,7 @@ std::string SizeRunner::explain() const {
                     ? (", ratio c = " + std::to_string(tri_->ratio)).c_str()
                     : "",
                 tri_scale_, tri_shift_, 48.0 * static_cast<double>(n_) / (1024.0 * 1024.0));
-  return buf;
+  return buf + predicted;
 }
 
 void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,

@@ -986,7 +986,7 @@ Forecast forecast(const job::Job& job, const Options& options, std::ostream& log
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
   // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();
-  e.path = model::path_name(runners.front().path());
+  e.path = st.path_names();
   e.path_reason = st.path_reason(0);
   // Measuring would crash where freegap run refuses to run (threaded complex SVDs in Debian
   // 12's OpenBLAS 0.3.21): the same refusal, from the study.

@@ -367,7 +367,8 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.metadata["job_name"] = p.job.name.empty() ? std::string("(unnamed)") : p.job.name;
   h.metadata["seed"] = std::to_string(p.job.seed);
   // Which path computed the numbers (they differ between paths, so this is not provenance).
-  h.metadata["path"] = model::path_name(p.study->runners().front().path());
+  h.metadata["path"] = p.study->path_names();
+  h.metadata["path_choice"] = p.study->runners().front().path_choice();
   // Which samplers draw differently from format 1.3's (compared on resume like the path).
   h.metadata["sampler_changes"] = p.study->runners().front().sampler_changes();
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts

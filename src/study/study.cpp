@@ -18,6 +18,18 @@ model::Model model_of(const job::Job& job) {
   m.expression = job.expression;
   m.check.force_singular_values = job.observe.singular_values;
   m.force_dense = job.force_dense || !job.estimators.empty();
+  m.path = job.run_path == "dense"            ? model::PathRequest::dense
+           : job.run_path == "tridiagonal"    ? model::PathRequest::tridiagonal
+           : job.run_path == "two_projection" ? model::PathRequest::two_projection
+                                          : model::PathRequest::automatic;
+  // What a trial observes, for the predicted costs of the paths (model::predicted_trial_seconds).
+  m.bins = job.observe.bins;
+  m.max_moment = job.observe.max_moment;
+  std::int64_t fewest = 0;
+  for (const auto t : job.trials) fewest = fewest == 0 ? t : std::min(fewest, t);
+  m.kept_share = fewest > 0 ? std::min(1.0, static_cast<double>(job.observe.keep_spectra) /
+                                                static_cast<double>(fewest))
+                            : 0.0;
   return m;
 }
 
@@ -144,29 +156,49 @@ Study Study::of_stored_job(const std::string& job_text, const std::string& job_c
   throw InputError(last_error + (run_file.empty() ? "" : " (looked for beside the run file too)"));
 }
 
+std::string Study::path_names() const {
+  std::string out;
+  const char* last = nullptr;
+  for (const auto& r : runners_) {
+    const char* name = model::path_name(r.path());
+    if (last == nullptr || std::string(name) != last) out += (out.empty() ? "" : ",") + std::string(name);
+    last = name;
+  }
+  return out;
+}
+
 std::string Study::path_reason(std::size_t i) const {
   const model::SizeRunner& runner = runners_.at(i);
+  const std::string& choice = runner.path_choice();
   if (runner.path() == model::Path::two_projection) {
     return "two_projection: the expression is a·B + b·U B U^* (+ c) of a diagonal B with two "
            "values and a Haar U, and its eigenvalues are observed, so a trial samples the corner "
            "of U from the beta-Jacobi model (Edelman & Sutton 2008) in O(N) memory and no dense "
-           "matrix";
+           "matrix; " + choice;
   }
   if (runner.path() == model::Path::tridiagonal) {
     return "tridiagonal: the expression is a·X + b of one matrix with an exact tridiagonal model "
            "(Dumitriu & Edelman 2002) and its eigenvalues are observed, so a trial costs O(N) "
-           "memory and no dense matrix";
+           "memory and no dense matrix; " + choice;
   }
-  model::Model unforced = model_of(job_);
-  unforced.force_dense = false;
-  const model::Path would = model::SizeRunner(unforced, runner.size()).path();
-  if (would != model::Path::dense) {
-    const std::string name = model::path_name(would);
-    return job_.force_dense
-               ? "dense: forced by force_dense in [run] (the " + name + " path would apply)"
-               : "dense: the estimators read every trial's spectrum, which only the dense path "
-                 "computes (the " + name + " path would apply otherwise)";
+  const bool estimators = !job_.estimators.empty();
+  if (estimators || job_.force_dense || job_.run_path == "dense") {
+    model::Model unforced = model_of(job_);
+    unforced.force_dense = false;
+    unforced.path = model::PathRequest::automatic;
+    const model::SizeRunner would(unforced, runner.size());
+    const std::string automatic = std::string(" (automatically: ") +
+                                  model::path_name(would.path()) + ", " + would.path_choice() +
+                                  ")";
+    if (estimators) {
+      return "dense: the estimators read every trial's spectrum, which only the dense path "
+             "computes" + automatic;
+    }
+    return std::string("dense: forced by ") +
+           (job_.force_dense ? "force_dense = true" : "path = \"dense\"") + " in [run]" +
+           automatic;
   }
+  if (choice.rfind("the cheaper", 0) == 0) return "dense: " + choice;
   return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
          "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
          "two-valued diagonal B and a Haar U, with eigenvalues observed";

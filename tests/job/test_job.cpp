@@ -340,7 +340,22 @@ TEST(JobErrors, UnknownKeyInRun) {
                      "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\nensemble = \"goe\"\n"
                      "[run]\nranks = 4\n"),
             "study.toml:10: run.ranks: unknown key 'ranks'; known keys: trials_per_unit, "
-            "memory_per_rank, output, force_dense");
+            "memory_per_rank, output, force_dense, path");
+}
+
+TEST(JobErrors, RunPathNamesAPathAndAgreesWithForceDense) {
+  const std::string head = std::string(kGoodHead) +
+                           "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\nensemble = \"goe\"\n";
+  EXPECT_EQ(error_of(head + "[run]\npath = \"fast\"\n"),
+            "study.toml:10: run.path: must be \"auto\", \"dense\", \"tridiagonal\" or "
+            "\"two_projection\" (got \"fast\")");
+  EXPECT_EQ(error_of(head + "[run]\nforce_dense = true\npath = \"tridiagonal\"\n"),
+            "study.toml:11: run.path: asks for the tridiagonal path while force_dense = true asks "
+            "for the dense one; keep one of the two keys");
+  EXPECT_EQ(error_of(head + "[run]\npath = 2\n").rfind("study.toml:10: run.path: ", 0), 0u);
+  const Job forced = parse_job(head + "[run]\npath = \"dense\"\n", "study.toml");
+  EXPECT_EQ(forced.run_path, "dense");
+  EXPECT_EQ(parse_job(head, "study.toml").run_path, "auto");
 }
 
 TEST(JobErrors, UnknownKeyInMatrix) {
@@ -643,6 +658,19 @@ std::string replaced(std::string text, const std::string& from, const std::strin
   EXPECT_NE(at, std::string::npos) << from;
   if (at != std::string::npos) text.replace(at, from.size(), to);
   return text;
+}
+
+TEST(JobHash, RunPathEntersOnlyWhenGiven) {
+  // A job without [run] path keeps the hash it had before the key existed (its run files still
+  // resume); "auto" is the same job; a forced path is another job.
+  const std::string base = hash_of(kHashBase);
+  const std::string with_auto = replaced(kHashBase, "memory_per_rank", "path = \"auto\"\nmemory_per_rank");
+  const std::string with_dense = replaced(kHashBase, "memory_per_rank", "path = \"dense\"\nmemory_per_rank");
+  EXPECT_EQ(hash_of(with_auto), base);
+  EXPECT_NE(hash_of(with_dense), base);
+  EXPECT_EQ(parse_job(kHashBase, "base.toml").canonical().find("path ="), std::string::npos);
+  EXPECT_NE(parse_job(with_dense, "base.toml").canonical().find("path = dense\n"),
+            std::string::npos);
 }
 
 TEST(JobHash, IsSha256OfCanonicalText) {

@@ -177,3 +177,85 @@ TEST(Declarations, BadDeclarationsHaveExactMessages) {
 }
 
 }  // namespace
+
+namespace {
+
+template <class F>
+std::string input_error_of(F f) {
+  try {
+    f();
+  } catch (const InputError& e) {
+    return e.what();
+  }
+  return "(no InputError)";
+}
+
+model::Model lone(const std::string& declaration, std::int64_t bins) {
+  model::Model m;
+  m.matrices = {parse_declaration(declaration)};
+  m.expression = "X";
+  m.bins = bins;
+  return m;
+}
+
+}  // namespace
+
+TEST(PathChoice, CheaperPathByPredictedCost) {
+  // Measured on the development machine (docs/performance.md §5b): a lone GUE at N = 40 with
+  // 40,000 bins took 0.86 ms per trial by Sturm counts and 0.14 ms dense; with 100 bins
+  // 0.018 ms against 0.15 ms; at N = 2000 the dense trial is thousands of times slower.
+  const model::SizeRunner many_bins(lone("X=gue", 40000), 40);
+  EXPECT_EQ(many_bins.path(), model::Path::dense);
+  EXPECT_EQ(many_bins.path_choice(), "the cheaper of the two that apply, by predicted cost per trial");
+  EXPECT_NE(many_bins.explain().find("predicted CPU per trial: tridiagonal "), std::string::npos)
+      << many_bins.explain();
+  const model::SizeRunner few_bins(lone("X=gue", 100), 40);
+  EXPECT_EQ(few_bins.path(), model::Path::tridiagonal);
+  EXPECT_EQ(model::SizeRunner(lone("X=goe", 40000), 2000).path(), model::Path::tridiagonal);
+  // The prediction orders the measured pairs the same way at N = 10 … 400 (the table of §5b).
+  auto m = lone("X=gue", 100);
+  const double tri40 = model::predicted_trial_seconds(model::Path::tridiagonal, 40, m, true, 0);
+  const double dense40 = model::predicted_trial_seconds(model::Path::dense, 40, m, true, 0);
+  EXPECT_LT(tri40, dense40);
+  m.bins = 40000;
+  EXPECT_GT(model::predicted_trial_seconds(model::Path::tridiagonal, 100, m, true, 0),
+            model::predicted_trial_seconds(model::Path::dense, 100, m, true, 0));
+  EXPECT_LT(model::predicted_trial_seconds(model::Path::tridiagonal, 400, m, true, 0),
+            model::predicted_trial_seconds(model::Path::dense, 400, m, true, 0));
+  // Kept spectra cost the tridiagonal path dsterf's O(N²) for each kept trial.
+  m.kept_share = 1.0;
+  EXPECT_GT(model::predicted_trial_seconds(model::Path::tridiagonal, 400, m, true, 0),
+            model::predicted_trial_seconds(model::Path::tridiagonal, 400, lone("X=gue", 40000),
+                                           true, 0));
+}
+
+TEST(PathChoice, JobCanForceAnyPathThatApplies) {
+  auto m = lone("X=gue", 40000);
+  m.path = model::PathRequest::tridiagonal;
+  const model::SizeRunner forced(m, 40);
+  EXPECT_EQ(forced.path(), model::Path::tridiagonal);
+  EXPECT_EQ(forced.path_choice(), "forced by the job");
+  m = lone("X=gue", 100);
+  m.path = model::PathRequest::dense;
+  EXPECT_EQ(model::SizeRunner(m, 400).path(), model::Path::dense);
+  m.path = model::PathRequest::two_projection;
+  EXPECT_EQ(input_error_of([&] { model::SizeRunner(m, 40); }),
+            "path = \"two_projection\" does not apply to this model: the two_projection path "
+            "computes a·B + b·U B U^* (+ c) of a two-valued diagonal B and a Haar U, with "
+            "eigenvalues observed; remove path or set it to \"auto\" or \"dense\"");
+  model::Model two;
+  two.matrices = {parse_declaration("B=diagonal:atoms=1@0.5,-1@0.5"),
+                  parse_declaration("U=haar_unitary")};
+  two.expression = "B + U B U^*";
+  two.bins = 400;
+  EXPECT_EQ(model::SizeRunner(two, 200).path(), model::Path::two_projection);
+  two.path = model::PathRequest::tridiagonal;
+  EXPECT_THROW(model::SizeRunner(two, 200), InputError);
+  two.path = model::PathRequest::dense;
+  EXPECT_EQ(model::SizeRunner(two, 200).path(), model::Path::dense);
+  // A β-ensemble has no dense sampler: never dense, and forcing it is refused.
+  auto beta = lone("X=beta_hermite:beta=4", 40000);
+  EXPECT_EQ(model::SizeRunner(beta, 10).path(), model::Path::tridiagonal);
+  beta.path = model::PathRequest::dense;
+  EXPECT_THROW(model::SizeRunner(beta, 10), InputError);
+}

@@ -154,7 +154,7 @@ def cases(good_hash, other_hash, template):
              expect=F + "job.toml:2:10: TOML syntax: Error while parsing key-value pair: expected a comment or whitespace, saw 'f'\n"),
         dict(name="unknown key", files={"job.toml": edit("trials_per_unit = 4", "trials_per_unit = 4\ncolour = \"red\"")},
              args=["run", "job.toml"] + run_out,
-             expect=F + "job.toml:19: run.colour: unknown key 'colour'; known keys: trials_per_unit, memory_per_rank, output, force_dense\n"),
+             expect=F + "job.toml:19: run.colour: unknown key 'colour'; known keys: trials_per_unit, memory_per_rank, output, force_dense, path\n"),
         dict(name="sizes not increasing", files={"job.toml": edit("sizes = [24, 48]", "sizes = [48, 24]")},
              args=["run", "job.toml"] + run_out,
              expect=F + "job.toml:3: sizes: must be strictly increasing (got 24 after 48); sort the ladder\n"),

@@ -11,7 +11,11 @@ Checks, under real runs:
   - a β-Hermite matrix with β = 4 runs; in a product with another matrix, or with force_dense,
     it is refused with exact messages and exit 2;
   - a size of 10^7 fits a 1 GiB rank on this path (the plan's O(N) estimate), while the dense
-    path refuses it.
+    path refuses it;
+  - the choice by predicted cost (docs/performance.md §5b): with 40,000 bins a ladder N = 20, 3000
+    takes the dense path at 20 and the tridiagonal one at 3000 (said by --explain with the
+    predicted seconds, recorded as /metadata path "dense,tridiagonal"), the same on 2 ranks;
+    path = "tridiagonal" forces it at N = 20 too.
 """
 import os
 import re
@@ -102,7 +106,7 @@ beta = 4
         p = rh.run([exe, "run", "forced.toml", "--quiet"], d)
         c.equal((p.returncode, p.stderr),
                 (2, "freegap: forced.toml:4: expression: matrix 'X' (beta_hermite) has no dense sampler, so "
-                    "force_dense cannot apply; compare with gue or goe (β = 2, 1) or wishart_complex or "
+                    "the dense path cannot apply; compare with gue or goe (β = 2, 1) or wishart_complex or "
                     "wishart_real instead\n"),
                 "beta_hermite with force_dense is refused")
 
@@ -116,7 +120,32 @@ beta = 4
         p = rh.run([exe, "run", "bigdense.toml", "--explain"], d)
         c.check(p.returncode == 2 and "N = 10000000 needs about" in p.stderr,
                 "the dense path refuses N = 10^7 in 1 GiB", p.stderr)
+        check_cost_choice(exe, c, d)
     c.finish()
+
+
+def check_cost_choice(exe, c, d):
+    cross = JOB.format(extra="").replace("sizes = [2000, 1000000]", "sizes = [20, 3000]") \
+        .replace("bins = 120", "bins = 40000").replace("trials = 8", "trials = 4")
+    rh.write(os.path.join(d, "cross.toml"), cross)
+    p = rh.run([exe, "run", "cross.toml", "--explain"], d)
+    paths = re.findall(r"^why the path: (\w+)", p.stdout, re.M)
+    c.check(p.returncode == 0 and paths == ["dense", "tridiagonal"]
+            and p.stdout.count("predicted CPU per trial: tridiagonal") == 2,
+            "40,000 bins: dense at N = 20, tridiagonal at N = 3000, with the predicted costs",
+            p.stdout + p.stderr)
+    p1 = rh.run(rh.command(exe, ["run", "cross.toml", "-o", "c1.h5", "--quiet"]), d)
+    p2 = rh.run(rh.command(exe, ["run", "cross.toml", "-o", "c2.h5", "--quiet"], ranks=2), d)
+    c.equal((p1.returncode, p2.returncode), (0, 0), "the crossing ladder runs on 1 and 2 ranks")
+    if p1.returncode == 0:
+        c.equal(metadata_path(os.path.join(d, "c1.h5")), "dense,tridiagonal",
+                "/metadata path lists both paths in ladder order")
+        rc, out = rh.h5diff(os.path.join(d, "c1.h5"), os.path.join(d, "c2.h5"))
+        c.check(rc == 0, "the crossing ladder's run file is the same on 1 and 2 ranks", out)
+    rh.write(os.path.join(d, "crossforced.toml"), cross.replace("[run]", '[run]\npath = "tridiagonal"'))
+    p = rh.run([exe, "run", "crossforced.toml", "--explain"], d)
+    c.check(p.returncode == 0 and re.findall(r"^why the path: (\w+)", p.stdout, re.M) == ["tridiagonal"] * 2,
+            'path = "tridiagonal" forces the tridiagonal path at N = 20 too', p.stdout + p.stderr)
 
 
 if __name__ == "__main__":
