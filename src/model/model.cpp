@@ -177,7 +177,8 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       samplers_(make_samplers(model)),
       used_(used_matrices(model)),
       expression_(model.expression, model.matrices, model.check),
-      evaluation_(expression_, n) {
+      evaluation_(expression_, n, expr::EvaluationOptions{.full_haar = model.full_haar}),
+      haar_columns_(evaluation_.haar_columns()) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
   // The two-projection path: a·B + b·U B U^* + c of a two-valued diagonal and a Haar matrix
   // (two_projection_form). Like the tridiagonal path, decided from the job alone.
@@ -366,7 +367,12 @@ observe::SpectrumKind SizeRunner::spectrum_kind() const {
 std::vector<ensembles::Sample> SizeRunner::draw(std::uint64_t seed, std::uint64_t trial) const {
   std::vector<ensembles::Sample> samples(samplers_.size());
   for (std::size_t i = 0; i < samplers_.size(); ++i) {
-    if (used_[i]) samples[i] = samplers_[i].draw(n_, seed, trial);
+    if (!used_[i]) continue;
+    // A Haar matrix the plan reads only by some columns is drawn as those columns alone
+    // (expr::Evaluation::haar_columns): decided by the plan from the job and N, never per trial.
+    const Index r = haar_columns_[i];
+    samples[i] = r >= 0 ? samplers_[i].draw_columns(n_, r, seed, trial)
+                        : samplers_[i].draw(n_, seed, trial);
   }
   return samples;
 }

@@ -68,8 +68,11 @@ std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   // its plug-in helpers (they map it; they do not copy it).
   const double matrix_copy =
       keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
-  return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
-                                  sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
+  // The runner's own plan: its inputs (a Haar matrix read by r columns counts N×r) and temporaries.
+  const expr::Evaluation& plan = runner.evaluation();
+  const double working = static_cast<double>(plan.input_bytes() + plan.peak_temporary_bytes());
+  return static_cast<std::size_t>(working + sampler_transient + matrix_copy + 8.0 * n +
+                                  64.0 * 1024 * 1024);
 }
 
 namespace {
