@@ -147,6 +147,41 @@ Study Study::of_stored_job(const std::string& job_text, const std::string& job_c
   throw InputError(last_error + (run_file.empty() ? "" : " (looked for beside the run file too)"));
 }
 
+namespace {
+
+// On the dense path, the Haar matrices the plan draws by columns (expr::Evaluation::haar_columns),
+// as a sentence to follow the path's reason; empty when there are none.
+std::string haar_columns_note(const model::SizeRunner& runner) {
+  std::string note;
+  const auto columns = runner.evaluation().haar_columns();
+  const auto& declared = runner.expression().declared();
+  for (std::size_t o = 0; o < columns.size(); ++o) {
+    if (columns[o] < 0) continue;
+    note += "; " + declared[o].name + " is drawn as an N × r isometry, r = " +
+            std::to_string(columns[o]) + " of its " + std::to_string(runner.size()) +
+            " columns (the ones its conjugations read)";
+  }
+  return note;
+}
+
+std::string dense_path_reason(const job::Job& job, const model::SizeRunner& runner) {
+  model::Model unforced = model_of(job);
+  unforced.force_dense = false;
+  const model::Path would = model::SizeRunner(unforced, runner.size()).path();
+  if (would != model::Path::dense) {
+    const std::string name = model::path_name(would);
+    return job.force_dense
+               ? "dense: forced by force_dense in [run] (the " + name + " path would apply)"
+               : "dense: the estimators read every trial's spectrum, which only the dense path "
+                 "computes (the " + name + " path would apply otherwise)";
+  }
+  return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
+         "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
+         "two-valued diagonal B and a Haar U, with eigenvalues observed";
+}
+
+}  // namespace
+
 std::string Study::path_reason(std::size_t i) const {
   const model::SizeRunner& runner = runners_.at(i);
   if (runner.path() == model::Path::two_projection) {
@@ -160,19 +195,7 @@ std::string Study::path_reason(std::size_t i) const {
            "(Dumitriu & Edelman 2002) and its eigenvalues are observed, so a trial costs O(N) "
            "memory and no dense matrix";
   }
-  model::Model unforced = model_of(job_);
-  unforced.force_dense = false;
-  const model::Path would = model::SizeRunner(unforced, runner.size()).path();
-  if (would != model::Path::dense) {
-    const std::string name = model::path_name(would);
-    return job_.force_dense
-               ? "dense: forced by force_dense in [run] (the " + name + " path would apply)"
-               : "dense: the estimators read every trial's spectrum, which only the dense path "
-                 "computes (the " + name + " path would apply otherwise)";
-  }
-  return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
-         "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
-         "two-valued diagonal B and a Haar U, with eigenvalues observed";
+  return dense_path_reason(job_, runner) + haar_columns_note(runner);
 }
 
 std::int64_t Study::unit_count(std::size_t i) const {
