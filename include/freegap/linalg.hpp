@@ -66,12 +66,6 @@ void haar_from_qr(RMatrix& z);
 CMatrix polar_factor(CMatrix z);
 RMatrix polar_factor(RMatrix z);
 
-/// Polar factor Z (Z^*Z)^(-1/2) = W V^* of an N×r matrix, r ≤ N (thin zgesdd / dgesdd + gemm).
-/// For an N×r Ginibre Z it is a Haar-distributed isometry (its law is invariant under Z ↦ VZ
-/// for unitary V, and the left-invariant law on the isometries is unique).
-CMatrix polar_isometry(CMatrix z);
-RMatrix polar_isometry(RMatrix z);
-
 /// How a factor enters a product (BLAS's op argument).
 enum class Op { none, transpose, adjoint };
 
@@ -93,6 +87,12 @@ void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha = 1.0, double beta =
 /// Takes a matrix or a Map of one.
 void mirror_lower(Eigen::Ref<CMatrix> c);
 void mirror_lower(Eigen::Ref<RMatrix> c);
+
+/// Polar factor Z (Z^*Z)^(-1/2) = W V^* of an N×r matrix, r ≤ N (thin zgesdd / dgesdd + gemm).
+/// For an N×r Ginibre Z it is a Haar-distributed isometry (its law is invariant under Z ↦ VZ
+/// for unitary V, and the left-invariant law on the isometries is unique).
+CMatrix polar_isometry(CMatrix z);
+RMatrix polar_isometry(RMatrix z);
 
 /// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
 std::string blas_description();
