@@ -79,6 +79,11 @@ class Sampler {
   const MatrixSpec& spec() const { return spec_; }
   /// The matrix at size n for (seed, trial). Deterministic in (seed, name, n, trial).
   Sample draw(Index n, std::uint64_t seed, std::uint64_t trial) const;
+  /// r of the N columns of a haar_unitary or haar_orthogonal matrix (0 ≤ r ≤ n): an N×r
+  /// Haar-distributed isometry, from the same stream (seed, name, n, trial) as draw(). With
+  /// method qr it equals the first r columns of draw() up to rounding; with method polar it has
+  /// their law. Throws InputError for any other kind.
+  Sample draw_columns(Index n, Index r, std::uint64_t seed, std::uint64_t trial) const;
   /// The diagonal entries of a `diagonal` matrix at size n (no randomness).
   Eigen::VectorXd diagonal_values(Index n) const;
 

@@ -43,14 +43,22 @@
 // herk on N/2 columns, 4 times cheaper than a general product
 // (docs/performance.md §4: 0.33 s against 1.57 s at N = 2000).
 //
+// Haar columns: a Haar U used only in conjugations U D U^* (or only U^* D U) of diagonals with an
+// atoms law is read only at the columns S where some D differs from its most frequent value. The
+// plan then asks for U as an N×|S| Haar isometry (Evaluation::haar_columns; the sampler
+// orthonormalises an N×|S| Ginibre block, Mezzadri 2007), whose columns stand for S in increasing
+// order: Haar columns are exchangeable, so this is the law of U's columns at S. For B = ±1 the
+// sample is N×N/2 and the herk reads it in place (the weight into alpha).
+//
 // Flop conventions (Evaluation::flops, explain): complex gemm 8mnk, real 2mnk; zherk 4n²k, dsyrk n²k;
 // scaling a complex entry by a real number 2, a real entry 1; adding a scaled term to a complex
 // matrix 4 per entry, to a real one 2; operations on diagonals N per operation; copies, mirroring
 // a triangle, transposing and promoting real to complex 0.
 //
 // Memory: a plan holds its inputs (the caller's samples, not copied) plus temporaries. For
-// B + U B U^* it holds the result (one N×N) and, during the herk, the N×N/2 scaled columns of U,
-// so the peak is 1.5 N×N complex temporaries (16 N² bytes each). Evaluation::peak_temporary_bytes gives
+// B + U B U^* it holds the result (one N×N complex temporary, 16 N² bytes) and reads U's N/2
+// sampled columns in place (with EvaluationOptions::full_haar, U is an N×N input and the herk
+// copies its N/2 scaled columns: 1.5 N×N temporaries). Evaluation::peak_temporary_bytes gives
 // the exact peak of any plan; temporaries are freed after their last use and sums accumulate in
 // place into a temporary that is not needed afterwards.
 #pragma once
@@ -170,6 +178,9 @@ struct EvaluationOptions {
   /// Form the full matrix even when the lower triangle would do (eigenvalues of a self-adjoint
   /// result read only the lower triangle).
   bool full_result = false;
+  /// Plan every Haar matrix as a whole N×N sample, even one whose conjugations use only some of
+  /// its columns (for comparisons; see Evaluation::haar_columns).
+  bool full_haar = false;
 };
 
 /// The evaluated expression: real or complex dense, square.
@@ -222,6 +233,12 @@ class Evaluation {
   Evaluation(const Expression& expression, Index n, const EvaluationOptions& options = {});
 
   Index size() const;
+  /// Per declared matrix: r ≥ 0 when the plan reads a Haar matrix U only through conjugations
+  /// U D U^* (or only U^* D U) of atom-law diagonals, and then only the r columns of U (of U^*)
+  /// at the coordinates where a D differs from its most frequent value; its sample must then be
+  /// an N×r Haar isometry (ensembles::Sampler::draw_columns), whose columns stand for those
+  /// coordinates in increasing order. −1 for a matrix sampled whole (or not used).
+  std::vector<Index> haar_columns() const;
   Spectrum spectrum() const;
   const std::vector<StepInfo>& steps() const;
   /// Total floating-point operations (conventions above).

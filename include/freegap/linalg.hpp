@@ -53,8 +53,12 @@ Vector singular_values(RMatrix& a);
 /// Haar unitary from a square complex Ginibre matrix Z, in place: Z = QR (zgeqrf + zungqr),
 /// then Z ← Q·diag(r_ii/|r_ii|). Without the phase fix Q is not Haar distributed
 /// (Mezzadri 2007, "How to generate random matrices from the classical compact groups").
+/// Z may be N×r with r < N (thin QR): the result is then a Haar-distributed isometry, the law
+/// of r columns of a Haar unitary, and equals the first r columns of the result for any N×N
+/// Z whose first r columns are these (Householder QR treats columns left to right).
 void haar_from_qr(CMatrix& z);
-/// Haar orthogonal from a square real Ginibre matrix, in place (dgeqrf + dorgqr, sign fix).
+/// Haar orthogonal from a real Ginibre matrix (square, or N×r for r columns), in place
+/// (dgeqrf + dorgqr, sign fix).
 void haar_from_qr(RMatrix& z);
 
 /// Polar factor U = Z (Z^*Z)^(-1/2) = W V^* of a square matrix Z = W Σ V^* (zgesdd + zgemm).
@@ -83,6 +87,12 @@ void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha = 1.0, double beta =
 /// Takes a matrix or a Map of one.
 void mirror_lower(Eigen::Ref<CMatrix> c);
 void mirror_lower(Eigen::Ref<RMatrix> c);
+
+/// Polar factor Z (Z^*Z)^(-1/2) = W V^* of an N×r matrix, r ≤ N (thin zgesdd / dgesdd + gemm).
+/// For an N×r Ginibre Z it is a Haar-distributed isometry (its law is invariant under Z ↦ VZ
+/// for unitary V, and the left-invariant law on the isometries is unique).
+CMatrix polar_isometry(CMatrix z);
+RMatrix polar_isometry(RMatrix z);
 
 /// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
 std::string blas_description();

@@ -36,6 +36,9 @@ struct Model {
   std::int64_t bins = 200;
   int max_moment = 8;
   double kept_share = 0.0;
+  /// Draw every Haar matrix whole on the dense path, even one the plan reads only by some of its
+  /// columns (expr::Evaluation::haar_columns), for comparisons. Not a job key: results differ.
+  bool full_haar = false;
 };
 
 /// How a size's trials are computed.
@@ -142,7 +145,8 @@ class SizeRunner {
   const expr::Evaluation& evaluation() const { return evaluation_; }
   observe::SpectrumKind spectrum_kind() const;
 
-  /// Draws the samples of trial `trial` (only the matrices the expression uses).
+  /// Draws the samples of trial `trial` (only the matrices the expression uses; a Haar matrix
+  /// the plan reads by r of its columns as an N×r isometry).
   std::vector<ensembles::Sample> draw(std::uint64_t seed, std::uint64_t trial) const;
   /// Evaluates and diagonalises given samples. A non-finite entry in the evaluated matrix or a
   /// LAPACK failure gives a failed outcome with its reason; nothing is thrown for those.
@@ -160,6 +164,7 @@ class SizeRunner {
   std::vector<bool> used_;
   expr::Expression expression_;
   expr::Evaluation evaluation_;
+  std::vector<Index> haar_columns_;  ///< per declared matrix, Evaluation::haar_columns
   std::optional<tridiagonal::ModelSpec> tri_;
   double tri_scale_ = 1.0, tri_shift_ = 0.0;
   std::optional<tridiagonal::TwoProjectionSpec> two_;

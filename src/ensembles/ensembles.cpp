@@ -143,6 +143,35 @@ void draw_haar_orthogonal(HaarMethod method, Index n, rng::Stream& stream, Sampl
   }
 }
 
+// r columns of a Haar unitary or orthogonal matrix: the N×r block of Ginibre numbers that the
+// full draw puts in its first r columns (the same stream positions), orthonormalised. With the
+// QR method the result is, up to rounding, the first r columns of the full draw; with the polar
+// method it has the same law (an N×r Haar isometry) but not the same values.
+void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& stream,
+                       Sample& out) {
+  if (spec.kind == Kind::haar_unitary) {
+    out.storage = Sample::Storage::complex_dense;
+    Eigen::MatrixXcd z(n, r);
+    stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
+    if (spec.haar == HaarMethod::qr) {
+      linalg::haar_from_qr(z);
+      out.complex = std::move(z);
+    } else {
+      out.complex = linalg::polar_isometry(std::move(z));
+    }
+  } else {
+    out.storage = Sample::Storage::real_dense;
+    Eigen::MatrixXd z(n, r);
+    stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
+    if (spec.haar == HaarMethod::qr) {
+      linalg::haar_from_qr(z);
+      out.real = std::move(z);
+    } else {
+      out.real = linalg::polar_isometry(std::move(z));
+    }
+  }
+}
+
 void require_size(const MatrixSpec& spec, Index n) {
   if (n <= 0) fail(spec, "size N must be positive (got " + std::to_string(n) + ")");
 }
@@ -227,6 +256,18 @@ Eigen::VectorXd Sampler::diagonal_values(Index n) const {
     }
   }
   return d;
+}
+
+Sample Sampler::draw_columns(Index n, Index r, std::uint64_t seed, std::uint64_t trial) const {
+  require_size(spec_, n);
+  if (!is_unitary(spec_.kind)) fail(spec_, "only a Haar matrix can be drawn by columns");
+  if (r < 0 || r > n) {
+    fail(spec_, "cannot draw " + std::to_string(r) + " columns at size " + std::to_string(n));
+  }
+  Sample out;
+  rng::Stream stream({seed, spec_.name, static_cast<std::uint64_t>(n), trial});
+  draw_haar_columns(spec_, n, r, stream, out);
+  return out;
 }
 
 Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {

@@ -9,6 +9,7 @@
 #include <map>
 #include <set>
 #include <sstream>
+#include <type_traits>
 #include <unordered_map>
 
 #include "freegap/linalg.hpp"
@@ -362,6 +363,11 @@ struct EvaluationData {
   std::size_t peak = 0;
   std::size_t inputs = 0;
   std::size_t result_bytes = 0;
+  // Per declared matrix: the coordinates S of a Haar matrix drawn as an N×|S| isometry (column j
+  // of the sample stands for coordinate S[j]), and each coordinate's column (−1 outside S).
+  std::vector<bool> reduced;
+  std::vector<std::vector<Index>> columns;
+  std::vector<std::vector<Index>> position;
 };
 
 }  // namespace detail
@@ -404,6 +410,91 @@ std::pair<Index, Index> conjugate_columns(const EvaluationData& p, const Node& d
     }
   }
   return {unitary ? n - 1 : n, 0};
+}
+
+/// The entries of a diagonal leaf with an atoms law at size n, as the sampler places them
+/// (ensembles::Sampler::diagonal_values); empty for any other law.
+std::vector<double> atom_diagonal(const ensembles::MatrixSpec& spec, Index n) {
+  std::vector<double> d;
+  if (spec.diagonal.kind != ensembles::DiagonalLawKind::atoms || spec.diagonal.atoms.empty()) {
+    return d;
+  }
+  const auto counts = ensembles::atom_counts(spec.diagonal.atoms, n);
+  for (std::size_t i = 0; i < counts.size(); ++i) {
+    d.insert(d.end(), static_cast<std::size_t>(counts[i]), spec.diagonal.atoms[i].value);
+  }
+  return d;
+}
+
+/// The most frequent value of d, the smallest one on a tie: the shift of Y D Y^* for unitary Y
+/// (the evaluator's rule, applied again at run time to the sampled diagonal).
+double most_frequent(std::vector<double> d) {
+  std::sort(d.begin(), d.end());
+  double shift = 0.0;
+  std::size_t best = 0;
+  for (std::size_t i = 0; i < d.size();) {
+    std::size_t j = i;
+    while (j < d.size() && d[j] == d[i]) ++j;
+    if (j - i > best) best = j - i, shift = d[i];
+    i = j;
+  }
+  return shift;
+}
+
+/// Which Haar matrices the plan can draw as isometries of only the columns it uses. A Haar leaf
+/// U qualifies when each of its uses is the Y of a conjugation Y D Y^*, all with the same
+/// orientation (all U D U^*, or all U^* D U), each D a diagonal leaf with an atoms law. Then
+/// Y D Y^* = d_r I + Σ_{i ∈ S_D} (d_i − d_r) y_i y_i^* reads only the columns y_i of Y at the
+/// coordinates S_D where D differs from its most frequent value d_r; the union S of the S_D is
+/// what the plan needs. The columns of a Haar unitary (or orthogonal) matrix are exchangeable,
+/// and so are those of U^*, so an N×|S| Haar isometry has the law of the columns of Y at S
+/// (Mezzadri 2007 for the construction). Decided from the expression and N alone.
+void decide_haar_columns(EvaluationData& p, const std::vector<bool>& reachable) {
+  const auto& e = *p.expression;
+  const std::size_t count = e.operands.size();
+  p.reduced.assign(count, false);
+  p.columns.assign(count, {});
+  p.position.assign(count, {});
+  std::vector<int> orientation(count, -1);  // −1 none yet, 0 U D U^*, 1 U^* D U, 2 refused
+  std::vector<std::vector<bool>> in_s(count);
+  auto refuse = [&](int o) { orientation[o] = 2; };
+  for (std::size_t v = 0; v < p.nodes.size(); ++v) {
+    if (!reachable[v]) continue;
+    const Node& node = p.nodes[v];
+    for (std::size_t a = 0; a < node.args.size(); ++a) {
+      const Node& arg = p.nodes[node.args[a].node];
+      if (arg.kind != NodeKind::leaf || !e.operands[arg.leaf].unitary) continue;
+      const int o = arg.leaf;
+      const Node& d = p.nodes[node.args[node.args.size() - 1].node];
+      std::vector<double> values;
+      if (node.kind == NodeKind::conjugate && a == 0 && d.kind == NodeKind::leaf) {
+        values = atom_diagonal(e.declared[d.leaf], p.n);
+      }
+      const int side = node.args[a].adj ? 1 : 0;
+      if (values.empty() || (orientation[o] >= 0 && orientation[o] != side)) {
+        refuse(o);
+        continue;
+      }
+      if (orientation[o] == 2) continue;
+      orientation[o] = side;
+      in_s[o].resize(static_cast<std::size_t>(p.n), false);
+      const double shift = most_frequent(values);
+      for (std::size_t i = 0; i < values.size(); ++i) {
+        if (values[i] != shift) in_s[o][i] = true;
+      }
+    }
+  }
+  if (p.nodes[p.root.node].kind == NodeKind::leaf) refuse(p.nodes[p.root.node].leaf);
+  for (std::size_t o = 0; o < count; ++o) {
+    if (orientation[o] < 0 || orientation[o] == 2) continue;
+    p.reduced[o] = true;
+    p.position[o].assign(static_cast<std::size_t>(p.n), -1);
+    for (Index i = 0; i < p.n; ++i) {
+      if (!in_s[o][static_cast<std::size_t>(i)]) continue;
+      p.position[o][static_cast<std::size_t>(i)] = static_cast<Index>(p.columns[o].size());
+      p.columns[o].push_back(i);
+    }
+  }
 }
 
 class EvaluationBuilder {
@@ -455,6 +546,9 @@ class EvaluationBuilder {
           break;
       }
     }
+
+    decide_haar_columns(p_, reachable_);
+    if (options_.full_haar) p_.reduced.assign(p_.reduced.size(), false);
 
     p_.buffer.assign(count, -1);
     step_of_.assign(count, -1);
@@ -595,14 +689,21 @@ class EvaluationBuilder {
     const auto [plus, minus] = conjugate_columns(p_, p_.nodes[d.node], step.unitary);
     const double n = rows(y);
     const double k = static_cast<double>(plus + minus);
-    step.scratch = entry_bytes(complex) * rows(y) * std::max(plus, minus);
+    const Node& yn = p_.nodes[y.node];
+    const bool reduced = yn.kind == NodeKind::leaf && p_.reduced[yn.leaf];
+    const Index copied = conjugate_copy_columns(y, d, plus, minus);
+    step.scratch = entry_bytes(complex) * rows(y) * copied;
+    const double scale_flops = (complex ? 2.0 : 1.0) * n * k;  // none when nothing is copied
     std::string routine = std::string(complex ? "zherk" : "dsyrk") + " on " +
                           std::to_string(plus + minus) + " scaled columns";
     if (plus > 0 && minus > 0) routine += " (two updates)";
     if (step.unitary) routine += ", shift by the most frequent value of " + name(d);
+    if (reduced) {
+      routine += ", from the " + std::to_string(p_.columns[yn.leaf].size()) + " sampled columns";
+    }
     step.info = {StepKind::conjugate, "",
                  name(y) + "·" + name(d) + "·" + name(p_nodes_adjoint(y)), routine,
-                 (complex ? 4.0 : 1.0) * n * n * k + (complex ? 2.0 : 1.0) * n * k};
+                 (complex ? 4.0 : 1.0) * n * n * k + (copied > 0 ? scale_flops : 0.0)};
   }
 
   // Fills `step` for a linear combination; false when it is only a scalar multiple folded into
@@ -669,6 +770,25 @@ class EvaluationBuilder {
     }
     step.info = {step.kind, "", text, node.diag ? "diagonal arithmetic" : "sum", flops};
     return true;
+  }
+
+  // Columns copied for the larger update of Y D Y^*: none when one update takes every column of
+  // a column-reduced sample Y with one weight (the herk reads the sample itself, the weight going
+  // into alpha: Evaluator::conjugate), else the update's columns.
+  Index conjugate_copy_columns(Ref y, Ref d, Index plus, Index minus) const {
+    const Node& yn = p_.nodes[y.node];
+    const bool reduced = yn.kind == NodeKind::leaf && p_.reduced[yn.leaf];
+    if (reduced && (plus == 0 || minus == 0) &&
+        plus + minus == static_cast<Index>(p_.columns[yn.leaf].size())) {
+      const auto values = atom_diagonal(p_.expression->declared[p_.nodes[d.node].leaf], p_.n);
+      const double shift = most_frequent(values);
+      std::set<double> weights;
+      for (const double v : values) {
+        if (v != shift) weights.insert(std::abs(v - shift));
+      }
+      if (weights.size() <= 1) return 0;
+    }
+    return std::max(plus, minus);
   }
 
   Ref p_nodes_adjoint(Ref r) const {
@@ -754,7 +874,8 @@ class EvaluationBuilder {
     }
     for (const int i : used) {
       const auto& o = p_.expression->operands[i];
-      const Index r = p_.dims[o.rows], c = p_.dims[o.cols];
+      const Index r = p_.dims[o.rows];
+      const Index c = p_.reduced[i] ? static_cast<Index>(p_.columns[i].size()) : p_.dims[o.cols];
       p_.inputs += o.diagonal ? 8 * r : entry_bytes(!o.real) * r * c;
     }
   }
@@ -787,6 +908,13 @@ Evaluation::Evaluation(const Expression& expression, Index n, const EvaluationOp
 }
 
 Index Evaluation::size() const { return data_->n; }
+std::vector<Index> Evaluation::haar_columns() const {
+  std::vector<Index> out;
+  for (std::size_t o = 0; o < data_->reduced.size(); ++o) {
+    out.push_back(data_->reduced[o] ? static_cast<Index>(data_->columns[o].size()) : -1);
+  }
+  return out;
+}
 Spectrum Evaluation::spectrum() const { return data_->expression->spectrum; }
 const std::vector<StepInfo>& Evaluation::steps() const { return data_->infos; }
 double Evaluation::flops() const { return data_->flops; }
@@ -815,7 +943,15 @@ std::string Evaluation::explain() const {
       << (e.spectrum == Spectrum::eigenvalues ? "eigenvalues"
                                               : "singular values (operator norm = largest)");
   if (p.result_lower) out << "; only the lower triangle is formed";
-  out << "\nsteps:\n";
+  out << "\n";
+  for (std::size_t o = 0; o < p.reduced.size(); ++o) {
+    if (!p.reduced[o]) continue;
+    out << "sampling: " << e.operands[o].name << " drawn as an N × r isometry, r = "
+        << p.columns[o].size() << " of its " << p.n
+        << " columns (only the columns its conjugations use: where the diagonal differs from its "
+           "most frequent value; Haar columns are exchangeable)\n";
+  }
+  out << "steps:\n";
   for (const auto& s : p.infos) {
     out << "  " << s.output << " = " << s.description << "   [" << s.routine << ", "
         << format_flops(s.flops) << " flops]\n";
@@ -894,10 +1030,13 @@ class Evaluator {
       const Index r = p_.dims[o.rows], c = p_.dims[o.cols];
       const Index sr = o.diagonal ? s.diagonal.size() : o.real ? s.real.rows() : s.complex.rows();
       const Index sc = o.diagonal ? s.diagonal.size() : o.real ? s.real.cols() : s.complex.cols();
-      if (sr != r || sc != c) {
+      // A Haar matrix the plan reads by columns may come as those columns or whole.
+      const Index cr = p_.reduced[node.leaf] ? static_cast<Index>(p_.columns[node.leaf].size()) : c;
+      if (sr != r || (sc != c && sc != cr)) {
         throw InputError("sample of '" + o.name + "' is " + std::to_string(sr) + "×" +
                          std::to_string(sc) + ", the plan expects " + std::to_string(r) + "×" +
-                         std::to_string(c));
+                         std::to_string(c) + (cr != c ? " or " + std::to_string(r) + "×" +
+                         std::to_string(cr) : ""));
       }
     }
   }
@@ -1024,72 +1163,97 @@ class Evaluator {
     }
   }
 
+  // Whether Y's sample holds only the columns the plan reads (fewer than N; a whole sample of a
+  // matrix the plan reads by columns is read as a whole one).
+  bool columns_only(Ref y) const {
+    const Node& n = node(y);
+    if (n.kind != NodeKind::leaf || !p_.reduced[n.leaf]) return false;
+    return (n.real ? real(y).cols() : complex(y).cols()) < p_.n;
+  }
+
   // Y D Y^* = d_r I + W₊W₊^* − W₋W₋^*, W± = √|d − d_r| times the columns of Y where d ≷ d_r
   // (rows of Y^*, when Y enters adjointed). d_r is the most frequent value of D for unitary Y
   // (Y Y^* = I), otherwise 0.
   void conjugate(const Step& step, Buffer& out) {
     const Ref y = step.in[0];
     const Vector& d = diagonal(step.in[1]);
-    double shift = 0.0;
-    if (step.unitary) {
-      std::vector<double> sorted(d.data(), d.data() + d.size());
-      std::sort(sorted.begin(), sorted.end());
-      Index best = 0;
-      for (std::size_t i = 0; i < sorted.size();) {
-        std::size_t j = i;
-        while (j < sorted.size() && sorted[j] == sorted[i]) ++j;
-        if (static_cast<Index>(j - i) > best) best = static_cast<Index>(j - i), shift = sorted[i];
-        i = j;
-      }
-    }
+    const double shift =
+        step.unitary ? most_frequent(std::vector<double>(d.data(), d.data() + d.size())) : 0.0;
     std::vector<Index> plus, minus;
     for (Index i = 0; i < d.size(); ++i) {
       if (d[i] > shift) plus.push_back(i);
       if (d[i] < shift) minus.push_back(i);
     }
-    const Index n = y.adj ? (node(y).real ? real(y).cols() : complex(y).cols())
-                          : (node(y).real ? real(y).rows() : complex(y).rows());
+    const bool reduced = columns_only(y);
+    const Index n = y.adj && !reduced ? (node(y).real ? real(y).cols() : complex(y).cols())
+                                      : (node(y).real ? real(y).rows() : complex(y).rows());
     bool written = false;
-    auto update = [&](const std::vector<Index>& idx, double sign) {
-      if (idx.empty()) return;
-      Vector s(static_cast<Index>(idx.size()));
-      for (std::size_t k = 0; k < idx.size(); ++k) s[k] = std::sqrt(std::abs(d[idx[k]] - shift));
+    for (const auto& [idx, sign] : {std::pair{&plus, 1.0}, std::pair{&minus, -1.0}}) {
+      if (idx->empty()) continue;
+      Vector w(static_cast<Index>(idx->size()));
+      for (std::size_t k = 0; k < idx->size(); ++k) w[k] = std::abs(d[(*idx)[k]] - shift);
       const double beta = written ? 1.0 : 0.0;
-      if (step.complex) {
-        const CMatrix& m = complex(y);
-        CMatrix w;
-        if (y.adj) {
-          w = m(idx, Eigen::all);
-          w.array().colwise() *= s.cast<Complex>().array();
-        } else {
-          w = m(Eigen::all, idx);
-          w.array().rowwise() *= s.cast<Complex>().transpose().array();
-        }
-        linalg::herk(w, y.adj ? linalg::Op::adjoint : linalg::Op::none, out.complex,
-                     sign * step.alpha, beta);
+      if (reduced) {
+        update_from_columns(step, y, *idx, w, sign, beta, out);
+      } else if (step.complex) {
+        update(complex(y), y.adj, *idx, w, sign * step.alpha, beta, out.complex);
       } else {
-        const RMatrix& m = real(y);
-        RMatrix w;
-        if (y.adj) {
-          w = m(idx, Eigen::all);
-          w.array().colwise() *= s.array();
-        } else {
-          w = m(Eigen::all, idx);
-          w.array().rowwise() *= s.transpose().array();
-        }
-        linalg::syrk(w, y.adj ? linalg::Op::transpose : linalg::Op::none, out.real,
-                     sign * step.alpha, beta);
+        update(real(y), y.adj, *idx, w, sign * step.alpha, beta, out.real);
       }
       written = true;
-    };
-    update(plus, 1.0);
-    update(minus, -1.0);
+    }
     if (step.complex) {
       if (!written) out.complex = CMatrix::Zero(n, n);
       out.complex.diagonal().array() += step.alpha * shift;
     } else {
       if (!written) out.real = RMatrix::Zero(n, n);
       out.real.diagonal().array() += step.alpha * shift;
+    }
+  }
+
+  // out ← alpha·W W^* + beta·out, W = the columns idx of m scaled by √w (rows of m, W^* W, when
+  // `rows`): zherk / dsyrk on a copy of those columns.
+  template <class M>
+  static void update(const M& m, bool rows, const std::vector<Index>& idx, const Vector& w,
+                     double alpha, double beta, M& out) {
+    using Scalar = typename M::Scalar;
+    const auto s = w.cwiseSqrt().cast<Scalar>();
+    M part;
+    if (rows) {
+      part = m(idx, Eigen::all);
+      part.array().colwise() *= s.array();
+    } else {
+      part = m(Eigen::all, idx);
+      part.array().rowwise() *= s.transpose().array();
+    }
+    if constexpr (std::is_same_v<Scalar, Complex>) {
+      linalg::herk(part, rows ? linalg::Op::adjoint : linalg::Op::none, out, alpha, beta);
+    } else {
+      linalg::syrk(part, rows ? linalg::Op::transpose : linalg::Op::none, out, alpha, beta);
+    }
+  }
+
+  // The update over coordinates idx for a Y drawn as an N×r isometry Q (Evaluation::
+  // haar_columns): coordinate i is Q's column position[i], whichever side Y enters on (Q then
+  // stands for columns of U^*, whose rows-of-U outer products U^* e_i e_i^* U they give). When
+  // idx takes every column of Q in order with one weight, the herk reads Q itself.
+  void update_from_columns(const Step& step, Ref y, const std::vector<Index>& idx,
+                           const Vector& w, double sign, double beta, Buffer& out) const {
+    const auto& position = p_.position[node(y).leaf];
+    std::vector<Index> cols;
+    for (const Index i : idx) cols.push_back(position[static_cast<std::size_t>(i)]);
+    const Index r = node(y).real ? real(y).cols() : complex(y).cols();
+    bool whole = static_cast<Index>(cols.size()) == r && w.maxCoeff() == w.minCoeff();
+    for (std::size_t k = 0; whole && k < cols.size(); ++k) whole = cols[k] == static_cast<Index>(k);
+    const double alpha = sign * step.alpha;
+    if (whole && step.complex) {
+      linalg::herk(complex(y), linalg::Op::none, out.complex, alpha * w[0], beta);
+    } else if (whole) {
+      linalg::syrk(real(y), linalg::Op::none, out.real, alpha * w[0], beta);
+    } else if (step.complex) {
+      update(complex(y), false, cols, w, alpha, beta, out.complex);
+    } else {
+      update(real(y), false, cols, w, alpha, beta, out.real);
     }
   }
 

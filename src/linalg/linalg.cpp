@@ -22,6 +22,13 @@ void check_info(lapack_int info, const char* routine) {
   }
 }
 
+void require_tall(Index rows, Index cols, const char* what) {
+  if (cols > rows) {
+    throw InputError(std::string(what) + ": matrix is " + std::to_string(rows) + "x" +
+                     std::to_string(cols) + ", expected no more columns than rows");
+  }
+}
+
 void require_square(Index rows, Index cols, const char* what) {
   if (rows != cols) {
     throw InputError(std::string(what) + ": matrix is " + std::to_string(rows) + "x" +
@@ -145,34 +152,34 @@ Vector singular_values(RMatrix& a) {
 }
 
 void haar_from_qr(CMatrix& z) {
-  require_square(z.rows(), z.cols(), "haar_from_qr");
-  const Index n = z.rows();
-  if (n == 0) return;
-  const lapack_int ln = static_cast<lapack_int>(n);
-  Eigen::VectorXcd tau(n);
-  check_info(LAPACKE_zgeqrf(LAPACK_COL_MAJOR, ln, ln, lp(z.data()), ln, lp(tau.data())), "zgeqrf");
+  require_tall(z.rows(), z.cols(), "haar_from_qr");
+  const Index n = z.rows(), r = z.cols();
+  if (r == 0) return;
+  const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+  Eigen::VectorXcd tau(r);
+  check_info(LAPACKE_zgeqrf(LAPACK_COL_MAJOR, ln, lr, lp(z.data()), ln, lp(tau.data())), "zgeqrf");
   // Phases r_jj/|r_jj| of R's diagonal, read before zungqr overwrites it (Mezzadri 2007).
-  Eigen::VectorXcd phase(n);
-  for (Index j = 0; j < n; ++j) {
-    const std::complex<double> r = z(j, j);
-    const double mod = std::abs(r);
-    phase(j) = mod > 0.0 ? r / mod : std::complex<double>(1.0, 0.0);
+  Eigen::VectorXcd phase(r);
+  for (Index j = 0; j < r; ++j) {
+    const std::complex<double> d = z(j, j);
+    const double mod = std::abs(d);
+    phase(j) = mod > 0.0 ? d / mod : std::complex<double>(1.0, 0.0);
   }
-  check_info(LAPACKE_zungqr(LAPACK_COL_MAJOR, ln, ln, ln, lp(z.data()), ln, lp(tau.data())),
+  check_info(LAPACKE_zungqr(LAPACK_COL_MAJOR, ln, lr, lr, lp(z.data()), ln, lp(tau.data())),
              "zungqr");
-  z = z * phase.asDiagonal();  // column scaling, O(N^2)
+  z = z * phase.asDiagonal();  // column scaling, O(N r)
 }
 
 void haar_from_qr(RMatrix& z) {
-  require_square(z.rows(), z.cols(), "haar_from_qr");
-  const Index n = z.rows();
-  if (n == 0) return;
-  const lapack_int ln = static_cast<lapack_int>(n);
-  Vector tau(n);
-  check_info(LAPACKE_dgeqrf(LAPACK_COL_MAJOR, ln, ln, z.data(), ln, tau.data()), "dgeqrf");
-  Vector sign(n);
-  for (Index j = 0; j < n; ++j) sign(j) = z(j, j) < 0.0 ? -1.0 : 1.0;
-  check_info(LAPACKE_dorgqr(LAPACK_COL_MAJOR, ln, ln, ln, z.data(), ln, tau.data()), "dorgqr");
+  require_tall(z.rows(), z.cols(), "haar_from_qr");
+  const Index n = z.rows(), r = z.cols();
+  if (r == 0) return;
+  const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+  Vector tau(r);
+  check_info(LAPACKE_dgeqrf(LAPACK_COL_MAJOR, ln, lr, z.data(), ln, tau.data()), "dgeqrf");
+  Vector sign(r);
+  for (Index j = 0; j < r; ++j) sign(j) = z(j, j) < 0.0 ? -1.0 : 1.0;
+  check_info(LAPACKE_dorgqr(LAPACK_COL_MAJOR, ln, lr, lr, z.data(), ln, tau.data()), "dorgqr");
   z = z * sign.asDiagonal();
 }
 
@@ -297,6 +304,38 @@ void mirror_lower(Eigen::Ref<RMatrix> c) {
 std::string blas_description() {
   const char* config = openblas_get_config();
   return config ? std::string(config) : std::string("unknown BLAS");
+}
+
+// The thin SVD Z = W Σ V^* (W N×r) gives Z (Z^*Z)^(-1/2) = W V^*. Kept apart from polar_factor
+// (square, full SVD) so that the two can change independently.
+CMatrix polar_isometry(CMatrix z) {
+  require_tall(z.rows(), z.cols(), "polar_isometry");
+  const Index n = z.rows(), r = z.cols();
+  CMatrix w(n, r), vt(r, r);
+  Vector s(r);
+  if (r == 0) return w;
+  const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+  check_info(LAPACKE_zgesdd(LAPACK_COL_MAJOR, 'S', ln, lr, lp(z.data()), ln, s.data(),
+                            lp(w.data()), ln, lp(vt.data()), lr),
+             "zgesdd");
+  CMatrix u;
+  gemm(w, Op::none, vt, Op::none, u);
+  return u;
+}
+
+RMatrix polar_isometry(RMatrix z) {
+  require_tall(z.rows(), z.cols(), "polar_isometry");
+  const Index n = z.rows(), r = z.cols();
+  RMatrix w(n, r), vt(r, r);
+  Vector s(r);
+  if (r == 0) return w;
+  const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+  check_info(LAPACKE_dgesdd(LAPACK_COL_MAJOR, 'S', ln, lr, z.data(), ln, s.data(), w.data(), ln,
+                            vt.data(), lr),
+             "dgesdd");
+  RMatrix u;
+  gemm(w, Op::none, vt, Op::none, u);
+  return u;
 }
 
 }  // namespace freegap::linalg

@@ -177,7 +177,8 @@ SizeRunner::SizeRunner(const Model& model, Index n)
       samplers_(make_samplers(model)),
       used_(used_matrices(model)),
       expression_(model.expression, model.matrices, model.check),
-      evaluation_(expression_, n) {
+      evaluation_(expression_, n, expr::EvaluationOptions{.full_haar = model.full_haar}),
+      haar_columns_(evaluation_.haar_columns()) {
   if (n <= 0) throw InputError("size N must be positive (got " + std::to_string(n) + ")");
   const bool dense = model.force_dense || model.path == PathRequest::dense;
   // Both O(N) paths are decided from the job alone, never per rank: their random numbers differ
@@ -253,16 +254,20 @@ namespace {
 // The dense path's sampling beyond a Wigner matrix's, and its evaluation: Haar samples by QR
 // (2.7 s complex, 0.85 s real at N = 2000, tests/benchmarks/RESULTS.md; ×5 by the polar factor),
 // Wishart samples (1.07 s complex at N = 2000, c = 1, scaling as 1/c) and the evaluation's flops
-// at 50 GFlop/s.
-double dense_extra_seconds(const Model& model, const std::vector<bool>& used, Index n,
-                           double flops) {
+// at 50 GFlop/s. A Haar matrix drawn by r of its columns (`columns`, −1: whole) costs r/N of
+// a whole one (a thin QR).
+double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
+                           const std::vector<Index>& columns, Index n, double flops) {
   using ensembles::Kind;
   const double cube = std::pow(static_cast<double>(n), 3);
   double s = 2e-11 * flops;
   for (std::size_t i = 0; i < model.matrices.size(); ++i) {
     const auto& m = model.matrices[i];
     if (!used[i]) continue;
-    const double polar = m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0;
+    const double share = i < columns.size() && columns[i] >= 0
+                             ? static_cast<double>(columns[i]) / static_cast<double>(n)
+                             : 1.0;
+    const double polar = (m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0) * share;
     if (m.kind == Kind::haar_unitary) s += 3.4e-10 * cube * polar;
     if (m.kind == Kind::haar_orthogonal) s += 1.1e-10 * cube * polar;
     if (m.kind == Kind::wishart_complex) s += 1.3e-10 * cube / m.ratio;
@@ -312,7 +317,7 @@ void SizeRunner::choose_path(const Model& model, std::optional<tridiagonal::Mode
     });
     const double linear = predicted_trial_seconds(fast, n_, model, false, 0.0);
     const double full = predicted_trial_seconds(Path::dense, n_, model, !expression_.is_real(),
-                                                dense_extra_seconds(model, used_, n_,
+                                                dense_extra_seconds(model, used_, haar_columns_, n_,
                                                                     evaluation_.flops()));
     predicted_ = "predicted CPU per trial: " + std::string(path_name(fast)) + " " +
                  seconds_text(linear) + ", dense " + seconds_text(full);
@@ -350,11 +355,22 @@ double predicted_trial_seconds(Path path, Index n, const Model& model, bool comp
 }
 
 std::string SizeRunner::sampler_changes() const {
-  std::vector<std::string> changes;
-  // One entry per used matrix whose sampler draws differently from format 1.3's; none does yet
-  // (the paths themselves are recorded apart, as /metadata path).
+  // One entry per used matrix whose sampler draws differently from format 1.3's (the paths
+  // themselves are recorded apart, as /metadata path). Only the dense path samples matrices.
   std::string out;
-  for (const std::string& c : changes) out += (out.empty() ? "" : "; ") + c;
+  if (path() != Path::dense) return out;
+  for (std::size_t i = 0; i < samplers_.size(); ++i) {
+    if (!used_[i]) continue;
+    const auto& spec = samplers_[i].spec();
+    std::string change;
+    if (haar_columns_[i] >= 0) {
+      change = spec.haar == ensembles::HaarMethod::qr
+                   ? "only the columns its conjugations read, by a thin QR"
+                   : "only the columns its conjugations read, by a thin polar factor";
+    }
+    if (change.empty()) continue;
+    out += (out.empty() ? "" : "; ") + spec.name + ": " + change;
+  }
   return out;
 }
 
@@ -479,7 +495,12 @@ observe::SpectrumKind SizeRunner::spectrum_kind() const {
 std::vector<ensembles::Sample> SizeRunner::draw(std::uint64_t seed, std::uint64_t trial) const {
   std::vector<ensembles::Sample> samples(samplers_.size());
   for (std::size_t i = 0; i < samplers_.size(); ++i) {
-    if (used_[i]) samples[i] = samplers_[i].draw(n_, seed, trial);
+    if (!used_[i]) continue;
+    // A Haar matrix the plan reads only by some columns is drawn as those columns alone
+    // (expr::Evaluation::haar_columns): decided by the plan from the job and N, never per trial.
+    const Index r = haar_columns_[i];
+    samples[i] = r >= 0 ? samplers_[i].draw_columns(n_, r, seed, trial)
+                        : samplers_[i].draw(n_, seed, trial);
   }
   return samples;
 }

@@ -873,7 +873,8 @@ std::vector<double> forecast_sizes(Forecast& e, const study::Study& st, const Op
     s.seconds_per_trial = e.cost.predict(s.n);
     s.core_hours = static_cast<double>(s.trials) * s.seconds_per_trial * options.threads / 3600.0;
     s.peak_bytes = st.peak_bytes(i, keeps_matrix);
-    s.working_bytes = expr::peak_working_bytes(runners[i].expression(), runners[i].size());
+    s.working_bytes = runners[i].evaluation().input_bytes() +
+                      runners[i].evaluation().peak_temporary_bytes();
     s.output_bytes = output_bytes(job, i);
     s.fits = e.memory_limit == 0 || s.peak_bytes <= e.memory_limit;
     if (!s.fits) {

@@ -370,7 +370,13 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.metadata["path"] = p.study->path_names();
   h.metadata["path_choice"] = p.study->runners().front().path_choice();
   // Which samplers draw differently from format 1.3's (compared on resume like the path).
-  h.metadata["sampler_changes"] = p.study->runners().front().sampler_changes();
+  std::string changes;
+  for (const auto& r : p.study->runners()) {
+    const std::string c = r.sampler_changes();
+    if (c.empty() || changes.find(c) != std::string::npos) continue;
+    changes += (changes.empty() ? "" : "; ") + c;
+  }
+  h.metadata["sampler_changes"] = changes;
   // LAPACK's blocked factorisations give different last bits with different BLAS thread counts
   // (measured: Haar QR at N = 400), so the count is part of what defines the numbers.
   h.metadata["blas_threads"] = std::to_string(threads);

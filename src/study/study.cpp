@@ -80,8 +80,11 @@ std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   // its plug-in helpers (they map it; they do not copy it).
   const double matrix_copy =
       keeps_matrix ? n * n * (runner.expression().is_real() ? 8.0 : 16.0) : 0.0;
-  return static_cast<std::size_t>(static_cast<double>(expr::peak_working_bytes(runner.expression(), runner.size())) +
-                                  sampler_transient + matrix_copy + 8.0 * n + 64.0 * 1024 * 1024);
+  // The runner's own plan: its inputs (a Haar matrix read by r columns counts N×r) and temporaries.
+  const expr::Evaluation& plan = runner.evaluation();
+  const double working = static_cast<double>(plan.input_bytes() + plan.peak_temporary_bytes());
+  return static_cast<std::size_t>(working + sampler_transient + matrix_copy + 8.0 * n +
+                                  64.0 * 1024 * 1024);
 }
 
 namespace {
@@ -161,11 +164,56 @@ std::string Study::path_names() const {
   const char* last = nullptr;
   for (const auto& r : runners_) {
     const char* name = model::path_name(r.path());
-    if (last == nullptr || std::string(name) != last) out += (out.empty() ? "" : ",") + std::string(name);
+    if (last != nullptr && std::string(name) == last) continue;
+    out += (out.empty() ? "" : ",") + std::string(name);
     last = name;
   }
   return out;
 }
+
+namespace {
+
+// On the dense path, the Haar matrices the plan draws by columns (expr::Evaluation::haar_columns),
+// as a sentence to follow the path's reason; empty when there are none.
+std::string haar_columns_note(const model::SizeRunner& runner) {
+  std::string note;
+  const auto columns = runner.evaluation().haar_columns();
+  const auto& declared = runner.expression().declared();
+  for (std::size_t o = 0; o < columns.size(); ++o) {
+    if (columns[o] < 0) continue;
+    note += "; " + declared[o].name + " is drawn as an N × r isometry, r = " +
+            std::to_string(columns[o]) + " of its " + std::to_string(runner.size()) +
+            " columns (the ones its conjugations read)";
+  }
+  return note;
+}
+
+std::string dense_path_reason(const job::Job& job, const model::SizeRunner& runner) {
+  const bool estimators = !job.estimators.empty();
+  if (estimators || job.force_dense || job.run_path == "dense") {
+    model::Model unforced = model_of(job);
+    unforced.force_dense = false;
+    unforced.path = model::PathRequest::automatic;
+    const model::SizeRunner would(unforced, runner.size());
+    const std::string automatic = std::string(" (automatically: ") +
+                                  model::path_name(would.path()) + ", " + would.path_choice() +
+                                  ")";
+    if (estimators) {
+      return "dense: the estimators read every trial's spectrum, which only the dense path "
+             "computes" + automatic;
+    }
+    return std::string("dense: forced by ") +
+           (job.force_dense ? "force_dense = true" : "path = \"dense\"") + " in [run]" +
+           automatic;
+  }
+  const std::string& choice = runner.path_choice();
+  if (choice.rfind("the cheaper", 0) == 0) return "dense: " + choice;
+  return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
+         "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
+         "two-valued diagonal B and a Haar U, with eigenvalues observed";
+}
+
+}  // namespace
 
 std::string Study::path_reason(std::size_t i) const {
   const model::SizeRunner& runner = runners_.at(i);
@@ -181,27 +229,7 @@ std::string Study::path_reason(std::size_t i) const {
            "(Dumitriu & Edelman 2002) and its eigenvalues are observed, so a trial costs O(N) "
            "memory and no dense matrix; " + choice;
   }
-  const bool estimators = !job_.estimators.empty();
-  if (estimators || job_.force_dense || job_.run_path == "dense") {
-    model::Model unforced = model_of(job_);
-    unforced.force_dense = false;
-    unforced.path = model::PathRequest::automatic;
-    const model::SizeRunner would(unforced, runner.size());
-    const std::string automatic = std::string(" (automatically: ") +
-                                  model::path_name(would.path()) + ", " + would.path_choice() +
-                                  ")";
-    if (estimators) {
-      return "dense: the estimators read every trial's spectrum, which only the dense path "
-             "computes" + automatic;
-    }
-    return std::string("dense: forced by ") +
-           (job_.force_dense ? "force_dense = true" : "path = \"dense\"") + " in [run]" +
-           automatic;
-  }
-  if (choice.rfind("the cheaper", 0) == 0) return "dense: " + choice;
-  return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
-         "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
-         "two-valued diagonal B and a Haar U, with eigenvalues observed";
+  return dense_path_reason(job_, runner) + haar_columns_note(runner);
 }
 
 std::int64_t Study::unit_count(std::size_t i) const {

@@ -16,7 +16,10 @@
 //
 // Columns (seconds per trial, median over the timed trials; "total" is the median of the
 // per-trial totals):
-//   sample     SizeRunner::draw: Ginibre generation + zgeqrf/zungqr + phase fix (+ B's diagonal)
+//   sample     SizeRunner::draw: Ginibre generation + zgeqrf/zungqr + phase fix (+ B's diagonal);
+//              U is drawn as the N × N/2 isometry of the columns the plan reads
+//              (expr::Evaluation::haar_columns; tests/benchmarks/bench_haar_columns.cpp compares
+//              it with the whole N × N draw)
 //   evaluate   Plan::evaluate: B + U B U^* (one zherk on the N/2 "+1" columns, per the plan)
 //   eigen      compute_spectrum: zheevd_2stage (N ≥ 400) on the lower triangle
 //   observe    observe::record_trial (histogram + moments + extremes)
@@ -25,8 +28,9 @@
 //   rest       (JSON "rest_share") median over trials of (total − sample − eigen)/total: the share of
 //              the trial outside the Haar sample and the eigenvalue step, taken trial by trial
 // With --split-sample, the sampling stage is also split, on a separate matrix drawn with the
-// same calls the sampler makes (rng::Stream::fill_complex_normal, then linalg::haar_from_qr):
-//   gen        Philox + Marsaglia polar for the N² complex normals
+// same calls the sampler makes (rng::Stream::fill_complex_normal, then linalg::haar_from_qr), of
+// the shape the sampler draws (N × r, r the plan's columns of U):
+//   gen        Philox + Marsaglia polar for the N·r complex normals
 //   qr         haar_from_qr (zgeqrf + zungqr + phase fix)
 #include <algorithm>
 #include <chrono>
@@ -134,8 +138,9 @@ Row measure(long n, int trials, int warmup, bool split_sample, bool explain) {
 
   if (split_sample) {
     std::vector<double> gen, qr;
+    const auto r = runner.evaluation().haar_columns()[1];
     for (int t = 0; t < trials; ++t) {
-      Eigen::MatrixXcd z(n, n);
+      Eigen::MatrixXcd z(n, r >= 0 ? r : n);
       auto start = Clock::now();
       rng::Stream stream({kSeed, "U", static_cast<std::uint64_t>(n), 1000000u + t});
       stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});

@@ -388,24 +388,41 @@ TEST(ExprPlan, CommonSubexpressionComputedOnce) {
 
 // Source: docs/performance.md §4 (B + U B U^* as one zherk on the N/2 "+1" columns, 0.33 s against
 // 1.57 s for zgemm at N = 2000). Flops by the header's conventions: 4·N²·(N/2) for the herk plus
-// 2·N·(N/2) for scaling the columns, N for adding diag(B).
+// 2·N·(N/2) for scaling the columns (none when U is drawn as the N/2 columns alone: the herk reads
+// the sample, the weight 2 = 1 − (−1) going into alpha), N for adding diag(B).
 TEST(ExprPlan, FreeSumIsOneHerkOnHalfTheColumns) {
   const auto specs = table_specs();
   const fe::Expression e("B + U B U^*", specs);
+  const fe::Evaluation whole(e, 2000, fe::EvaluationOptions{.full_haar = true});
+  ASSERT_EQ(whole.steps().size(), 2u) << whole.explain();
+  EXPECT_EQ(whole.steps()[0].routine,
+            "zherk on 1000 scaled columns, shift by the most frequent value of B");
+  EXPECT_DOUBLE_EQ(whole.flops(), 4.0 * 2000 * 2000 * 1000 + 2.0 * 2000 * 1000 + 2000);
+  // The result (16 N²) plus the scaled half of U (16 N²/2) during the herk.
+  EXPECT_EQ(whole.peak_temporary_bytes(), std::size_t{16} * 2000 * 2000 * 3 / 2);
+  EXPECT_EQ(whole.input_bytes(), std::size_t{16} * 2000 * 2000 + 8 * 2000);
+  EXPECT_EQ(whole.haar_columns(), std::vector<fe::Index>(specs.size(), -1));
+  EXPECT_EQ(whole.explain().find("sampling:"), std::string::npos);
+
   const fe::Evaluation plan(e, 2000);
   const auto& steps = plan.steps();
   ASSERT_EQ(steps.size(), 2u) << plan.explain();
   EXPECT_EQ(steps[0].kind, fe::StepKind::conjugate);
   EXPECT_EQ(steps[0].routine,
-            "zherk on 1000 scaled columns, shift by the most frequent value of B");
-  EXPECT_DOUBLE_EQ(steps[0].flops, 4.0 * 2000 * 2000 * 1000 + 2.0 * 2000 * 1000);
+            "zherk on 1000 scaled columns, shift by the most frequent value of B, from the 1000 "
+            "sampled columns");
+  EXPECT_DOUBLE_EQ(steps[0].flops, 4.0 * 2000 * 2000 * 1000);
   EXPECT_EQ(steps[1].kind, fe::StepKind::sum);
   EXPECT_EQ(steps[1].output, "t1");  // in place
-  EXPECT_DOUBLE_EQ(plan.flops(), 4.0 * 2000 * 2000 * 1000 + 2.0 * 2000 * 1000 + 2000);
-  // The result (16 N²) plus the scaled half of U (16 N²/2) during the herk.
-  EXPECT_EQ(plan.peak_temporary_bytes(), std::size_t{16} * 2000 * 2000 * 3 / 2);
-  EXPECT_EQ(plan.input_bytes(), std::size_t{16} * 2000 * 2000 + 8 * 2000);
+  EXPECT_DOUBLE_EQ(plan.flops(), 4.0 * 2000 * 2000 * 1000 + 2000);
+  // U is sampled as its N/2 used columns (16 N²/2 bytes); the result (16 N²) is the only
+  // temporary.
+  EXPECT_EQ(plan.peak_temporary_bytes(), std::size_t{16} * 2000 * 2000);
+  EXPECT_EQ(plan.input_bytes(), std::size_t{16} * 2000 * 1000 + 8 * 2000);
   EXPECT_EQ(fe::peak_working_bytes(e, 2000), plan.input_bytes() + plan.peak_temporary_bytes());
+  std::vector<fe::Index> columns(specs.size(), -1);
+  columns[5] = 1000;  // U
+  EXPECT_EQ(plan.haar_columns(), columns);
   const std::string text = plan.explain();
   EXPECT_NE(text.find("arithmetic: complex"), std::string::npos) << text;
   EXPECT_NE(text.find("self-adjoint: yes (proven symbolically)"), std::string::npos) << text;

@@ -259,3 +259,18 @@ TEST(PathChoice, JobCanForceAnyPathThatApplies) {
   beta.path = model::PathRequest::dense;
   EXPECT_THROW(model::SizeRunner(beta, 10), InputError);
 }
+
+TEST(SamplerChanges, NameTheMatricesDrawnOtherwiseThanInFormat13) {
+  // The run file's /metadata sampler_changes (format 1.4): a Haar matrix drawn by the columns
+  // its conjugations read is named; drawn whole, as before 1.4, it is not; the O(N) paths sample
+  // no matrices.
+  model::Model m;
+  m.matrices = {parse_declaration("B=diagonal:atoms=1@0.5,-1@0.3,0@0.2"),
+                parse_declaration("U=haar_unitary")};
+  m.expression = "B + U B U^*";
+  EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(),
+            "U: only the columns its conjugations read, by a thin QR");
+  m.full_haar = true;
+  EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(), "");
+  EXPECT_EQ(model::SizeRunner(lone("X=gue", 100), 400).sampler_changes(), "");
+}

@@ -61,6 +61,21 @@ TEST(Study, ForcedDensePathNamesWhatForcedIt) {
       << with_estimator.path_reason(0);
 }
 
+// A Haar matrix drawn by the columns its conjugations read is named in the path's reason (which
+// `plan` and `run --explain` print), with r at each size: B = ±1 in halves, r = N/2.
+TEST(Study, DenseReasonNamesHaarMatricesDrawnByColumns) {
+  const Study s(parsed("seed = 3\nsizes = [50, 100]\ntrials = [4, 4]\n"
+                       "expression = \"B + U B U^*\"\n[matrices.B]\nensemble = \"diagonal\"\n"
+                       "atoms = [[1.0, 0.5], [-1.0, 0.5]]\n[matrices.U]\n"
+                       "ensemble = \"haar_unitary\"\n[run]\nforce_dense = true\n"));
+  ASSERT_EQ(s.runners()[1].path(), model::Path::dense);
+  const std::string why = s.path_reason(1);
+  EXPECT_NE(why.find("forced by force_dense"), std::string::npos) << why;
+  EXPECT_NE(why.find("; U is drawn as an N × r isometry, r = 50 of its 100 columns"),
+            std::string::npos)
+      << why;
+}
+
 TEST(Study, OtherExpressionsAreDenseBecauseNoTridiagonalModelApplies) {
   std::string text = kLoneGue;
   text.replace(text.find("\"X\""), 3, "\"X X\"");
