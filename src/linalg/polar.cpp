@@ -14,18 +14,19 @@
 // zgetri) costs about 0.7 of a Haar QR sample, zherk + zheevr about 2 (N = 1000) or 1.5
 // (N = 2000), a zgemm 0.6, a zherk 0.3. Newton alone needs 6–7 inversions for a Ginibre
 // κ ≈ 2N (4.5–5× QR); the eigendecomposition alone on Z^*Z costs less but is only κ(Z)²·eps
-// accurate (1e-9 at N = 2000). One Newton step first makes that κ(X)²·eps ≈ κ(Z)·eps/4 for one
-// inversion more. QDWH (Nakatsukasa, Bai & Gygi 2010) needs a QR of a 2N×N matrix (2.8× QR
+// accurate (1e-9 to 1e-8 at N = 2000). One Newton step first makes that κ(X)²·eps ≈ κ(Z)·eps/4
+// for one inversion more. QDWH (Nakatsukasa, Bai & Gygi 2010) needs a QR of a 2N×N matrix (2.8× QR
 // measured) and then Cholesky steps of about 1.4× QR each: more work on one core.
 //
-// Accuracy of step 2. The computed X^*X is X^*X + E with ‖E‖ ≲ N·eps‖X‖² (Higham 2002,
-// "Accuracy and Stability of Numerical Algorithms", §3.5), a relative perturbation of order
-// κ(X)²·eps on the smallest eigenvalue; to first order the computed U is U(I + F) with
-// ‖F‖ ≲ κ(X)²·eps, so both ‖U^*U − I‖ and the distance to the exact polar factor are of that
-// order. We demand κ(X)² ≤ 4·kGramFactor·N before step 2 (checked on the computed eigenvalues),
-// so both are O(N·eps). For comparison the polar factor itself is only determined to about
-// κ(Z)·eps by Z's rounding (Higham 2008, "Functions of Matrices", Thm 8.9: a relative
-// perturbation ε of Z moves U by about 2ε·κ(Z) in the worst case, for square Z).
+// Accuracy of step 2. The computed X^*X is X^*X + E with ‖E‖ ≲ N·eps‖X‖² at worst, about eps‖X‖² in
+// practice (Higham 2002, "Accuracy and Stability of Numerical Algorithms", §3.5), a relative
+// perturbation of order κ(X)²·eps on the smallest eigenvalue; to first order the computed U is
+// U(I + F) with ‖F‖ ≲ κ(X)²·eps, so both ‖U^*U − I‖ and the distance to the exact polar factor
+// are of that order. We demand κ(X)² ≤ 4·kGramFactor·N before step 2 (checked on the computed
+// eigenvalues), so both are O(N·eps). For comparison the polar factor itself is only determined to
+// about κ(Z)·eps by Z's rounding (Higham 2008, "Functions of Matrices", Thm 8.9, recalled from
+// memory: for square Z the absolute condition number of U is at most 1/σ_min, so a relative
+// perturbation ε of Z moves U by up to about ε·κ(Z)).
 #include <cblas.h>
 #include <lapacke.h>
 
@@ -47,10 +48,12 @@ namespace {
 
 constexpr double kEps = std::numeric_limits<double>::epsilon();
 // Step 2 runs once κ(X)² ≤ kGramFactor·N is predicted and is accepted up to 4× that (the
-// prediction uses norm estimates from below). A Ginibre Z has κ ≈ 2.4N (median), one Newton step
-// gives κ(X)² ≈ κ(Z)/4 ≈ 0.6N; a second step is needed when κ(Z) > 4·kGramFactor·N, which for a
-// real Ginibre Z happens with probability about 1/(2·kGramFactor) (P(√N·σ_min < x) ≈ x,
-// Edelman 1988), for a complex one about 1/(8·kGramFactor)² (N·σ_min² is Exp(1), Edelman 1988).
+// prediction uses norm estimates from below). A Ginibre Z has κ of about 2–3·N, one Newton step
+// gives κ(X)² ≈ κ(Z)/4 ≈ 0.6N; a second step is needed when κ(Z) > 4·kGramFactor·N, i.e. when
+// √N·σ_min < 1/(2·kGramFactor) (σ_max ≈ 2√N). For a real Ginibre Z that has probability about
+// 1/(2·kGramFactor) (P(√N·σ_min < x) ≈ x for small x), for a complex one about
+// 1/(2·kGramFactor)² (N·σ_min² is Exp(1)) (Edelman 1988, "Eigenvalues and condition numbers of
+// random matrices"; recalled from memory).
 constexpr double kGramFactor = 8.0;
 // The bound on the Newton steps (kPolarMaxNewtonSteps = 6 by default): each takes κ to about
 // √κ/2 at worst, so 6 steps reach κ(X)² ≤ 8N from any κ(Z) below about 1e38, far beyond what an
