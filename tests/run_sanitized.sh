@@ -38,8 +38,9 @@ export OPENBLAS_NUM_THREADS="${OPENBLAS_NUM_THREADS:-1}"
 # this factor: instrumented programs start and run several times slower.
 export FREEGAP_TEST_TIME_SCALE="${FREEGAP_TEST_TIME_SCALE:-10}"
 # Debian 12's OpenBLAS (0.3.21) complex matrix-vector kernels for AVX cores (zgemv_n_HASWELL,
-# zgemv_n_SANDYBRIDGE, reached from zgesdd in linalg::polar_factor) read past the end of a small
-# matrix; under the sanitizers' allocator that read can reach an unmapped page and the test dies
+# zgemv_n_SANDYBRIDGE, reached from zgesdd in linalg::polar_factor_svd and from the norm estimates
+# of linalg::polar_factor) read past the end of a small matrix; under the sanitizers' allocator
+# that read can reach an unmapped page and the test dies
 # with SEGV inside OpenBLAS (test_ensembles' Haar sampling does). It is OpenBLAS's read, not ours,
 # and a SEGV cannot be suppressed, so the sanitized run uses OpenBLAS's SSE3 kernels, which stay
 # inside the matrix. Results differ from the AVX kernels' only in rounding.

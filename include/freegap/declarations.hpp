@@ -33,7 +33,7 @@ enum class Kind {
 /// (docs/performance.md §3), so it is the default.
 enum class HaarMethod {
   qr,     ///< Mezzadri (2007): QR of a Ginibre matrix with the phase (sign) correction
-  polar,  ///< polar factor Z (Z^*Z)^(-1/2) of a Ginibre matrix, through the SVD
+  polar,  ///< polar factor Z (Z^*Z)^(-1/2) of a Ginibre matrix (linalg::polar_factor)
 };
 
 /// A point mass `value` carrying probability `weight`.

@@ -183,8 +183,8 @@ void haar_from_qr(RMatrix& z) {
   z = z * sign.asDiagonal();
 }
 
-CMatrix polar_factor(CMatrix z) {
-  require_square(z.rows(), z.cols(), "polar_factor");
+CMatrix polar_factor_svd(CMatrix z) {
+  require_square(z.rows(), z.cols(), "polar_factor_svd");
   const Index n = z.rows();
   CMatrix w(n, n), vt(n, n);
   Vector s(n);
@@ -198,8 +198,8 @@ CMatrix polar_factor(CMatrix z) {
   return u;
 }
 
-RMatrix polar_factor(RMatrix z) {
-  require_square(z.rows(), z.cols(), "polar_factor");
+RMatrix polar_factor_svd(RMatrix z) {
+  require_square(z.rows(), z.cols(), "polar_factor_svd");
   const Index n = z.rows();
   RMatrix w(n, n), vt(n, n);
   Vector s(n);

@@ -73,8 +73,9 @@ std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
     return static_cast<std::size_t>(48.0 * n + 64.0 * 1024 * 1024);
   }
   // Samplers hold at most one N×N complex factorisation input besides their output (QR works in
-  // place; the polar factor holds Z, W, V^* and U: 3 more), the plan its temporaries (exact), the
-  // spectrum N doubles, plus 64 MiB for the process, LAPACK workspace and MPI buffers.
+  // place; the polar factor holds Z, X, X^*X and its eigenvectors, or Z, X, P and U: 3 more), the
+  // plan its temporaries (exact), the spectrum N doubles, plus 64 MiB for the process, LAPACK
+  // workspace and MPI buffers.
   const double sampler_transient = 3.0 * 16.0 * n * n;
   // Estimators that read the matrix: one whole N × N copy of it, in memory the rank shares with
   // its plug-in helpers (they map it; they do not copy it).

@@ -114,7 +114,7 @@ build = os.path.abspath(sys.argv[1]) if len(sys.argv) > 1 else None
 MATH_TESTS = ["test_rng", "test_observe", "test_ensembles", "test_expr", "test_tridiagonal",
               "test_tridiagonal_law", "test_model", "test_job", "test_laws", "test_free_convolution",
               "test_moments", "test_polynomial_limit", "test_limit", "test_fit", "test_metrics",
-              "test_study"]
+              "test_study", "test_polar"]
 for name in MATH_TESTS:
     binary = os.path.join(build or "", "tests", name)
     if not check(build is not None and os.access(binary, os.X_OK), "%s is built" % name, binary):

@@ -1,5 +1,6 @@
-// Speed of the foundation parts: every sampler, the Haar polar factor against corrected QR, and
-// the eigenvalue step against a direct LAPACKE call on the same matrix.
+// Speed of the foundation parts: every sampler; the Haar polar factor (Newton + eigendecomposition,
+// and by the SVD) against corrected QR, paired on the same matrices; and the eigenvalue step
+// against a direct LAPACKE call on the same matrix.
 //
 // Run with one BLAS thread (the production layout is one rank per core with one thread each,
 // docs/performance.md §8, ranks rather than threads):
@@ -98,6 +99,54 @@ void run_sampler(benchmark::State& state, const ens::MatrixSpec& spec) {
   }
 }
 
+// ---- Haar factorisations, paired ---------------------------------------------------------------
+
+// One Ginibre matrix per iteration (untimed), then on copies of it, in an order that rotates every
+// iteration: corrected QR (haar_from_qr), polar_factor (Newton + eigendecomposition) and
+// polar_factor_svd. Counters: the median time of each and the medians of the per-iteration ratios
+// polar/QR, SVD polar/QR and polar/SVD polar (paired: the machine is shared and noisy).
+template <class Matrix>
+void run_haar_paired(benchmark::State& state) {
+  const auto n = static_cast<la::Index>(state.range(0));
+  constexpr bool is_complex = std::is_same_v<Matrix, la::CMatrix>;
+  const ens::Sampler ginibre(make_spec(is_complex ? ens::Kind::ginibre_complex
+                                                  : ens::Kind::ginibre_real));
+  std::vector<double> t[3], polar_qr, svd_qr, polar_svd;
+  std::uint64_t trial = 0;
+  for (auto _ : state) {
+    const ens::Sample s = ginibre.draw(n, kSeed, trial);
+    const Matrix z = [&] {
+      if constexpr (is_complex) return s.complex; else return s.real;
+    }();
+    double took[3] = {0, 0, 0};
+    for (int k = 0; k < 3; ++k) {
+      const int which = static_cast<int>((k + trial) % 3);
+      Matrix work = z;
+      const auto start = std::chrono::steady_clock::now();
+      if (which == 0) {
+        la::haar_from_qr(work);
+      } else {
+        work = which == 1 ? la::polar_factor(std::move(work))
+                          : la::polar_factor_svd(std::move(work));
+      }
+      took[which] = seconds_since(start);
+      benchmark::DoNotOptimize(work.data());
+    }
+    for (int k = 0; k < 3; ++k) t[k].push_back(took[k]);
+    polar_qr.push_back(took[1] / took[0]);
+    svd_qr.push_back(took[2] / took[0]);
+    polar_svd.push_back(took[1] / took[2]);
+    state.SetIterationTime(took[0] + took[1] + took[2]);
+    ++trial;
+  }
+  state.counters["qr_s"] = median(t[0]);
+  state.counters["polar_s"] = median(t[1]);
+  state.counters["svd_s"] = median(t[2]);
+  state.counters["polar/qr"] = median(polar_qr);
+  state.counters["svd/qr"] = median(svd_qr);
+  state.counters["polar/svd"] = median(polar_svd);
+}
+
 // ---- eigenvalue step, paired with a direct LAPACKE call ------------------------------------
 
 lapack_int direct_call(la::CMatrix& a, la::Vector& w, la::EigenDriver driver) {
@@ -190,6 +239,16 @@ void register_all() {
       } else {
         b->MinTime(0.2)->Repetitions(5);
       }
+    }
+  }
+  for (const la::Index n : kSizes) {
+    for (const bool is_complex : {true, false}) {
+      const std::string name = is_complex ? "haar_paired/unitary" : "haar_paired/orthogonal";
+      auto* b = benchmark::RegisterBenchmark(name.c_str(), is_complex
+                                                               ? run_haar_paired<la::CMatrix>
+                                                               : run_haar_paired<la::RMatrix>);
+      b->Arg(n)->Unit(benchmark::kMillisecond)->UseManualTime();
+      b->Iterations(n >= 2000 ? 3 : (n >= 1000 ? 5 : 9));
     }
   }
   struct EigenCase {

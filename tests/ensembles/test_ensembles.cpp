@@ -251,6 +251,36 @@ TEST(HaarOrthogonal, TraceAndEntryMomentsBothSamplers) {
   }
 }
 
+// The polar sampler at N = 40, where linalg::polar_factor always takes its Newton path (a
+// Ginibre κ of about 2.4·N is far above the √(8N) ≈ 18 it would skip Newton at), while N = 3–6
+// above mostly skip it. Per trial: |U_11|², the first column's mean of |U_i1|⁴, |Tr U|².
+// Sources: E|U_11|² = 1/N, E|U_11|⁴ = 2/(N(N+1)) (unitary) and E O_11⁴ = 3/(N(N+2)) (orthogonal)
+// by Weingarten calculus (Collins & Śniady 2006; from memory, ref §2.5–2.6); E|Tr U|² = 1 and
+// E (Tr O)² = 1 for N ≥ 2 (Diaconis & Shahshahani 1994; from memory). 3000 trials each,
+// tolerance 5 standard errors of the per-trial values.
+TEST(HaarPolar, EntryAndTraceMomentsWhereNewtonRuns) {
+  const Eigen::Index n = 40;
+  const int trials = 3000;
+  const double dn = static_cast<double>(n);
+  for (Kind kind : {Kind::haar_unitary, Kind::haar_orthogonal}) {
+    const bool unitary = kind == Kind::haar_unitary;
+    Sampler sampler(spec_of("U", kind, 1.0, HaarMethod::polar));
+    std::vector<double> sq(trials), fourth(trials), trace_sq(trials);
+    for (int t = 0; t < trials; ++t) {
+      const Sample s = sampler.draw(n, kSeed, t);
+      const Eigen::MatrixXcd u = unitary ? s.complex : s.real.cast<std::complex<double>>();
+      sq[t] = std::norm(u(0, 0));
+      fourth[t] = u.col(0).cwiseAbs2().array().square().mean();
+      trace_sq[t] = std::norm(u.trace());
+    }
+    const auto a = mean_se(sq), b = mean_se(fourth), c = mean_se(trace_sq);
+    const std::string what = unitary ? "unitary" : "orthogonal";
+    EXPECT_NEAR(a.mean, 1.0 / dn, 5 * a.se) << what;
+    EXPECT_NEAR(b.mean, unitary ? 2.0 / (dn * (dn + 1)) : 3.0 / (dn * (dn + 2)), 5 * b.se) << what;
+    EXPECT_NEAR(c.mean, 1.0, 5 * c.se) << what;
+  }
+}
+
 // ---- deterministic diagonals --------------------------------------------------------------------
 
 TEST(Diagonal, LargestRemainderRounding) {
