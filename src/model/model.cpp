@@ -368,6 +368,12 @@ std::string SizeRunner::sampler_changes() const {
                    ? "only the columns its conjugations read, by a thin QR"
                    : "only the columns its conjugations read, by a thin polar factor";
     }
+    const bool haar = spec.kind == ensembles::Kind::haar_unitary ||
+                      spec.kind == ensembles::Kind::haar_orthogonal;
+    if (change.empty() && haar && spec.haar == ensembles::HaarMethod::polar) {
+      change = "polar factor by a scaled Newton step and an eigendecomposition (" +
+               std::string(linalg::kPolarAlgorithm) + ")";
+    }
     if (change.empty()) continue;
     out += (out.empty() ? "" : "; ") + spec.name + ": " + change;
   }

@@ -273,4 +273,8 @@ TEST(SamplerChanges, NameTheMatricesDrawnOtherwiseThanInFormat13) {
   m.full_haar = true;
   EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(), "");
   EXPECT_EQ(model::SizeRunner(lone("X=gue", 100), 400).sampler_changes(), "");
+  // The polar factor of a whole Ginibre matrix is computed otherwise since 1.4 (linalg).
+  m.matrices[1] = parse_declaration("U=haar_unitary:method=polar");
+  EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(),
+            "U: polar factor by a scaled Newton step and an eigendecomposition (polar:newton-eig)");
 }
