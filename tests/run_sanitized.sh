@@ -61,13 +61,16 @@ cd "$build"
 if [ "$mode" = unit ]; then
   # Some tests are pure numerics at sizes that take minutes each under the sanitizers (measured
   # 124–172 s on 2 cores: Sturm counts at N = 10^5, the largest eigenvalue at N = 10^6, the point
-  # masses of polynomial limits; 24–51 s: the polynomial solver's moments, A B A and positive
-  # expressions, whose code paths the other PolynomialLimit cases run); they are left to --all so
-  # that the CI run stays under 30 minutes.
+  # masses of polynomial limits; 20–51 s: the polynomial solver's moments, A B A and positive
+  # expressions, whose code paths the other PolynomialLimit cases run, and the two below); they
+  # are left to --all so that the CI run stays under 30 minutes.
   slow='EqualsLapackHistogramAtHundredThousand|GueLargestEigenvalueIsTracyWidom2AtOneMillion'
   slow+='|PointMassAtTheConstantTerm|PointMassBesideABandIsFoundAndWeighedExactly'
   slow+='|SingularPointLosesNoMassAndCostsNoMore|SolverMomentsMatchExactMoments'
   slow+='|ABAIsTheFreeMultiplicativeConvolution|PositiveExpressionsKeepTheirLowerEdgeAtZeroOrAbove'
+  # 20–45 s each instrumented, pure numerics run by other cases too: the arcsine limit of the
+  # two-projection path at N = 10^6, the CDF table of nested free sums.
+  slow+='|ArcsineAtOneMillion|FreeSumsWithGapsAndNestingEqualTheLawsOwnCdf'
   ctest --output-on-failure -j "$jobs" -L '^sanitize$' -E "$slow" "$@"
 else
   # OpenMPI is built without frame pointers: the slow unwinder follows a leak's stack into it, so
