@@ -4,7 +4,9 @@
 
 Usage: check_time_limit.py BUILD_DIR   (SLURM_CONF: the test cluster, see tests/slurm/cluster.sh)
 
-The job needs about 50 s of one core; the batch jobs have the minimum limit of 1 minute, an early
+The job needs over a minute of one core: 960 trials at N = 400 (320 took about 50 s with U drawn
+whole; drawing only the N/2 columns of U that B + U B U^* reads halved that, and the run then
+finished inside its first batch job); the batch jobs have the minimum limit of 1 minute, an early
 warning --signal=B:USR1@30 and FREEGAP_STOP_MARGIN=15 (--stop-before = time left − 15 s), so
 whichever comes first — Slurm's warning (up to 60 s early), freegap's own deadline, or SIGTERM
 at the limit (enforced up to ~30 s late) — stops the first job before the run is done
@@ -29,7 +31,7 @@ JOB = rh.fixture_job("rotated-two-level", """\
 name = "long rotated signal"
 seed = 31337
 sizes = [200, 400]
-trials = [32, 320]
+trials = [32, 960]
 """, """\
 
 [observe]
