@@ -91,6 +91,11 @@ std::vector<std::string> split(const std::string& text, char sep) {
   return parts;
 }
 
+// β-ensembles have only their tridiagonal model; every other kind has a dense sampler.
+bool has_dense_sampler(ensembles::Kind kind) {
+  return kind != ensembles::Kind::beta_hermite && kind != ensembles::Kind::beta_laguerre;
+}
+
 }  // namespace
 
 ensembles::MatrixSpec parse_declaration(const std::string& text) {
@@ -213,8 +218,7 @@ std::optional<tridiagonal::ModelSpec> SizeRunner::tridiagonal_form(const Model& 
   const bool dense = model.force_dense || model.path == PathRequest::dense;
   for (std::size_t i = 0; i < model.matrices.size(); ++i) {
     const auto& spec = model.matrices[i];
-    const bool beta_only = spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre;
-    if (!beta_only || !used_[i]) continue;
+    if (has_dense_sampler(spec.kind) || !used_[i]) continue;
     const std::string what = "matrix '" + spec.name + "' (" +
                              std::string(ensembles::kind_name(spec.kind)) + ")";
     if (!affine || letter != static_cast<int>(i)) {
@@ -312,9 +316,8 @@ void SizeRunner::choose_path(const Model& model, std::optional<tridiagonal::Mode
     path_choice_ = "forced by the job";
   } else {
     // A matrix with only a tridiagonal model has no dense sampler: no choice to make.
-    const bool has_dense = std::none_of(model.matrices.begin(), model.matrices.end(), [](auto& m) {
-      return m.kind == ensembles::Kind::beta_hermite || m.kind == ensembles::Kind::beta_laguerre;
-    });
+    const bool has_dense = std::all_of(model.matrices.begin(), model.matrices.end(),
+                                       [](auto& m) { return has_dense_sampler(m.kind); });
     const double linear = predicted_trial_seconds(fast, n_, model, false, 0.0);
     const double full = predicted_trial_seconds(Path::dense, n_, model, !expression_.is_real(),
                                                 dense_extra_seconds(model, used_, haar_columns_, n_,

@@ -15,6 +15,7 @@
 #include <fstream>
 #include <limits>
 #include <optional>
+#include <utility>
 #include <span>
 #include <sstream>
 #include <string_view>
@@ -1015,14 +1016,25 @@ std::string first_difference(const RunHeader& file, const RunHeader& job) {
 // file without it predates the O(N) paths and is dense). The same job can change path when a
 // newer freegap adds one (format 1.3: two_projection), and the paths draw different random
 // numbers, so their trials must not be mixed. Empty when they agree or the job names no path.
+// The file's and the job's values of a /metadata key compared on resume, or nothing when the
+// job names none or they agree; a file without the key has `before` (what older writers meant).
+std::optional<std::pair<std::string, std::string>> metadata_differs(const RunHeader& file,
+                                                                    const RunHeader& job,
+                                                                    const std::string& key,
+                                                                    const std::string& before) {
+  const auto wanted = job.metadata.find(key);
+  if (wanted == job.metadata.end()) return std::nullopt;
+  const auto had = file.metadata.find(key);
+  const std::string in_file = had == file.metadata.end() ? before : had->second;
+  if (in_file == wanted->second) return std::nullopt;
+  return std::pair{in_file, wanted->second};
+}
+
 std::string path_mismatch(const RunHeader& file, const RunHeader& job) {
-  const auto wanted = job.metadata.find("path");
-  if (wanted == job.metadata.end()) return "";
-  const auto had = file.metadata.find("path");
-  const std::string in_file = had == file.metadata.end() ? "dense" : had->second;
-  if (in_file == wanted->second) return "";
-  return "holds trials computed on the " + in_file + " path, and this freegap computes this job "
-         "on the " + wanted->second + " path (the paths draw different random numbers, so their "
+  const auto d = metadata_differs(file, job, "path", "dense");
+  if (!d) return "";
+  return "holds trials computed on the " + d->first + " path, and this freegap computes this job "
+         "on the " + d->second + " path (the paths draw different random numbers, so their "
          "trials cannot be mixed)";
 }
 
@@ -1031,17 +1043,14 @@ std::string path_mismatch(const RunHeader& file, const RunHeader& job) {
 // empty when they do not; a file without it was written by one of those). Same path, same job,
 // other numbers: the trials must not be mixed. Empty when they agree or the job names none.
 std::string sampler_mismatch(const RunHeader& file, const RunHeader& job) {
-  const auto wanted = job.metadata.find("sampler_changes");
-  if (wanted == job.metadata.end()) return "";
-  const auto had = file.metadata.find("sampler_changes");
-  const std::string in_file = had == file.metadata.end() ? "" : had->second;
-  if (in_file == wanted->second) return "";
+  const auto d = metadata_differs(file, job, "sampler_changes", "");
+  if (!d) return "";
   auto name = [](const std::string& changes) {
     return changes.empty() ? std::string("the samplers of freegap's run-file format 1.3")
                            : "the samplers '" + changes + "'";
   };
-  return "holds trials drawn by " + name(in_file) + ", and this freegap draws this job's trials "
-         "by " + name(wanted->second) + " (they give different numbers, so their trials cannot "
+  return "holds trials drawn by " + name(d->first) + ", and this freegap draws this job's trials "
+         "by " + name(d->second) + " (they give different numbers, so their trials cannot "
          "be mixed)";
 }
 
