@@ -64,6 +64,7 @@
 #pragma once
 
 #include <Eigen/Core>
+#include <complex>
 #include <cstddef>
 #include <memory>
 #include <string>
@@ -171,6 +172,7 @@ class Expression {
 
  private:
   friend class Evaluation;
+  friend class VectorProduct;
   std::shared_ptr<const detail::ExpressionData> data_;
 };
 
@@ -257,6 +259,36 @@ class Evaluation {
 
  private:
   std::shared_ptr<const detail::EvaluationData> data_;
+};
+
+/// Products of the expression with vectors, without forming it: for iterative solvers
+/// (model::Path::krylov). The syntax tree is applied to the vector from the right, each factor
+/// by one BLAS matrix–vector product (zhemv / dsymv for a self-adjoint dense sample, which reads
+/// one triangle; zgemv / dgemv otherwise, with the adjoint as BLAS's op), diagonals by scaling,
+/// numbers by scaling, sums term by term and powers by repeated products. So P = X1 X2 + X2 X1
+/// costs 4 matrix–vector products (4 passes over N×N data) instead of the N³ of forming it.
+class VectorProduct {
+ public:
+  VectorProduct(const Expression& expression, Index n);
+
+  Index size() const { return n_; }
+  /// Every factor real: products in real arithmetic (apply on double vectors).
+  bool is_real() const { return real_; }
+  /// Bytes of sampled matrices read by one product (16 per complex entry, 8 per real one; a
+  /// self-adjoint dense factor counts half): the memory traffic the product's time follows.
+  double bytes_read() const { return bytes_; }
+  /// out = P·in, vectors of length N. Samples as for Evaluation::evaluate, every one whole.
+  /// Throws InputError when a used sample has the wrong storage or shape.
+  void apply(const std::vector<ensembles::Sample>& samples, const std::complex<double>* in,
+             std::complex<double>* out) const;
+  /// The same in real arithmetic; only for is_real() expressions.
+  void apply(const std::vector<ensembles::Sample>& samples, const double* in, double* out) const;
+
+ private:
+  std::shared_ptr<const detail::ExpressionData> data_;
+  Index n_ = 0;
+  bool real_ = false;
+  double bytes_ = 0.0;
 };
 
 /// Peak working memory of evaluating `expression` at size n: inputs plus peak temporaries.

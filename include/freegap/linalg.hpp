@@ -8,6 +8,8 @@
 
 #include <Eigen/Core>
 #include <complex>
+#include <functional>
+#include <limits>
 #include <span>
 #include <string>
 
@@ -99,6 +101,16 @@ void gemm(const CMatrix& a, Op op_a, const CMatrix& b, Op op_b, CMatrix& c,
 void gemm(const RMatrix& a, Op op_a, const RMatrix& b, Op op_b, RMatrix& c, double alpha = 1.0,
           double beta = 0.0);
 
+/// y ← op(a)·x for one vector x of length op(a).cols() (zgemv / dgemv); y has op(a).rows()
+/// entries. With `hermitian` (a square, self-adjoint), y ← a·x from a's lower triangle alone
+/// (zhemv / dsymv: half the memory traffic); op is then irrelevant.
+void gemv(const CMatrix& a, Op op, bool hermitian, const std::complex<double>* x,
+          std::complex<double>* y);
+void gemv(const RMatrix& a, Op op, bool symmetric, const double* x, double* y);
+/// y ← op(a)·x for a real a and a complex x: the interleaved parts of x form a 2 × len real
+/// matrix X and Yᵀ = Xᵀ·op(a)ᵀ is one dgemm (op = transpose or adjoint both mean aᵀ).
+void gemv(const RMatrix& a, Op op, const std::complex<double>* x, std::complex<double>* y);
+
 /// Hermitian rank-k update of the lower triangle: c ← alpha·a·a^* + beta·c (zherk), or with
 /// `op = adjoint`, c ← alpha·a^*·a + beta·c. The strict upper triangle of c is left untouched;
 /// call mirror_lower when a full matrix is needed.
@@ -116,6 +128,49 @@ void mirror_lower(Eigen::Ref<RMatrix> c);
 /// for unitary V, and the left-invariant law on the isometries is unique).
 CMatrix polar_isometry(CMatrix z);
 RMatrix polar_isometry(RMatrix z);
+
+/// The smallest and largest eigenvalue of a Hermitian (real symmetric) operator known only by its
+/// products with vectors, by the Lanczos method with full reorthogonalisation (Lanczos 1950;
+/// Paige 1971; Parlett 1998, "The Symmetric Eigenvalue Problem", ch. 13 — from memory): the
+/// extreme eigenvalues of the Lanczos tridiagonal matrix T_k approach those of the operator
+/// from inside, converging fastest at the two ends of the spectrum.
+///
+/// Stopping rule, checked every step: for both extreme Ritz values θ with unit Ritz vectors y,
+/// the cheap residual r = β_k·|e_k^T s| and the gap δ to the next Ritz value give the
+/// Kato–Temple estimate r²/δ of |θ − λ|; the iteration stops when both are ≤ tolerance·scale
+/// (scale = the larger |θ|, or 1), or when β_k vanishes (an invariant subspace: the Ritz values
+/// are eigenvalues). Then y is formed, the operator applied to it once more, θ set to the
+/// Rayleigh quotient y^*Ay and r = ‖Ay − θy‖ recomputed from y itself: A has an eigenvalue
+/// within r of θ (the residual bound for Hermitian matrices). The run fails, with a reason,
+/// when the recomputed estimate r²/δ exceeds 10·tolerance·scale or the iteration reaches
+/// max_iterations first. Reorthogonalisation (classical Gram–Schmidt twice, zgemv/dgemv) keeps
+/// the basis orthonormal to working accuracy, so no spurious copies of converged values appear.
+/// The start vector is the caller's (a random one misses no eigenvector with probability 1).
+struct LanczosSettings {
+  double tolerance = 1e-12;  ///< relative error estimate to stop at
+  int max_iterations = 1000;
+};
+
+struct LanczosResult {
+  bool converged = false;
+  std::string reason;  ///< why not, when not converged
+  double min = 0.0, max = 0.0;
+  int iterations = 0;
+  /// ‖Ay − θy‖, recomputed (NaN when the iteration did not stop)
+  double residual_min = std::numeric_limits<double>::quiet_NaN();
+  double residual_max = std::numeric_limits<double>::quiet_NaN();
+  /// min(r, r²/δ) with the recomputed r, or the last cheap estimates when it did not stop
+  double estimate_min = std::numeric_limits<double>::quiet_NaN();
+  double estimate_max = std::numeric_limits<double>::quiet_NaN();
+};
+
+/// `apply(in, out)` sets out = A·in for vectors of length n (out never aliases in).
+using ComplexApply = std::function<void(const std::complex<double>* in, std::complex<double>* out)>;
+using RealApply = std::function<void(const double* in, double* out)>;
+LanczosResult lanczos_extremes(Index n, const ComplexApply& apply, Eigen::VectorXcd start,
+                               const LanczosSettings& settings = {});
+LanczosResult lanczos_extremes(Index n, const RealApply& apply, Eigen::VectorXd start,
+                               const LanczosSettings& settings = {});
 
 /// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
 std::string blas_description();

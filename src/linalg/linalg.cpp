@@ -255,6 +255,38 @@ void gemm(const RMatrix& a, Op op_a, const RMatrix& b, Op op_b, RMatrix& c, doub
               c.data(), static_cast<blasint>(m));
 }
 
+void gemv(const CMatrix& a, Op op, bool hermitian, const std::complex<double>* x,
+          std::complex<double>* y) {
+  const std::complex<double> one = 1.0, zero = 0.0;
+  const auto rows = static_cast<blasint>(a.rows()), cols = static_cast<blasint>(a.cols());
+  if (hermitian) {
+    if (rows != cols) throw InputError("gemv: a Hermitian matrix must be square");
+    cblas_zhemv(CblasColMajor, CblasLower, rows, &one, a.data(), rows, x, 1, &zero, y, 1);
+    return;
+  }
+  cblas_zgemv(CblasColMajor, to_cblas(op), rows, cols, &one, a.data(), rows, x, 1, &zero, y, 1);
+}
+
+void gemv(const RMatrix& a, Op op, bool symmetric, const double* x, double* y) {
+  const auto rows = static_cast<blasint>(a.rows()), cols = static_cast<blasint>(a.cols());
+  if (symmetric) {
+    if (rows != cols) throw InputError("gemv: a symmetric matrix must be square");
+    cblas_dsymv(CblasColMajor, CblasLower, rows, 1.0, a.data(), rows, x, 1, 0.0, y, 1);
+    return;
+  }
+  cblas_dgemv(CblasColMajor, to_cblas(op == Op::adjoint ? Op::transpose : op), rows, cols, 1.0,
+              a.data(), rows, x, 1, 0.0, y, 1);
+}
+
+void gemv(const RMatrix& a, Op op, const std::complex<double>* x, std::complex<double>* y) {
+  const auto rows = static_cast<blasint>(a.rows()), cols = static_cast<blasint>(a.cols());
+  const bool transposed = op != Op::none;
+  const blasint out = transposed ? cols : rows, inner = transposed ? rows : cols;
+  cblas_dgemm(CblasColMajor, CblasNoTrans, transposed ? CblasNoTrans : CblasTrans, 2, out, inner,
+              1.0, reinterpret_cast<const double*>(x), 2, a.data(), rows, 0.0,
+              reinterpret_cast<double*>(y), 2);
+}
+
 void herk(const CMatrix& a, Op op, CMatrix& c, double alpha, double beta) {
   if (op == Op::transpose) throw InputError("herk: use Op::none or Op::adjoint");
   const Index n = op == Op::none ? a.rows() : a.cols();
