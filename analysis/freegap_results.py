@@ -58,6 +58,10 @@ class Size:
       spectra_trials   -- int [len(spectra)]: their trial numbers
       estimates        -- float [T_c, E] or None: per-trial estimates (columns: RunFile.estimate_columns)
       estimate_failures -- str [T_c, P] or None
+      extremes_only    -- bool: only the extremes and the norm were observed (format 1.5; bins 0)
+      certificate      -- float [T_c, 5] or None (extremes_only sizes): Lanczos steps, the
+                          residuals of the smallest and largest Ritz pair, their error estimates;
+                          NaN for trials of the dense path (docs/run-file.md)
     """
 
     def __init__(self, group):
@@ -99,6 +103,10 @@ class Size:
                 self.spectra.append(np.asarray(spectra[j, : int(lengths[j])]))
                 trials.append(int(t))
         self.spectra_trials = np.asarray(trials, dtype=np.int64)
+        self.extremes_only = int(a.get("extremes_only", 0)) == 1
+        self.certificate = None
+        if "certificate" in group:
+            self.certificate = np.asarray(group["certificate"][...])[committed_trial]
         self.estimates = None
         self.estimate_failures = None
         if "estimates" in group:

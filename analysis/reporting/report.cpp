@@ -760,7 +760,7 @@ std::string markdown_limit(const RunResult& run) {
           "without distances to a limit.\n";
   }
   for (const std::string& note : run.notes) md += "- note: " + note + "\n";
-  if (!run.limit.exact_moment_text.empty()) {
+  if (run.limit.exact_moment_text.size() >= 2) {  // none with max_moment 0 (extremes_only)
     md += "- exact limit moments m_1..m_" + std::to_string(run.limit.exact_moment_text.size() - 1) +
           " (free cumulants over non-crossing partitions): ";
     for (std::size_t k = 1; k < run.limit.exact_moment_text.size(); ++k) {

@@ -713,6 +713,8 @@ void pooled_distances_of_size(const SizeData& data, const TrialPointers& ok,
     out.pooled_kolmogorov = out.spectra.kolmogorov;
     out.pooled_wasserstein1 = out.spectra.wasserstein1;
     out.pooled_resolution = 0.0;
+  } else if (data.edges.empty()) {
+    out.notes.push_back("only the extremes were observed (extremes_only): no distances");
   } else if (data.unit_histograms.empty()) {
     out.notes.push_back("no histograms: no pooled distances");
   } else {

@@ -106,6 +106,11 @@ struct ObserveSettings {
   /// How keep_spectra was given: "auto" (the default), "all", "none" or "first k".
   std::string keep_spectra_rule = "auto";
   bool singular_values = false;   ///< force singular values of a self-adjoint expression
+  /// Observe only the smallest and largest eigenvalue and the norm (observe.extremes_only): no
+  /// histogram, no moments, no kept spectra, so an iterative solver can find them without the
+  /// whole spectrum (model::Path::krylov). bins, range, margin, max_moment and keep_spectra are
+  /// then refused in the job file.
+  bool extremes_only = false;
 };
 
 /// Default per-trial timeout of an estimator, seconds.
@@ -148,7 +153,8 @@ struct Job {
   std::string output;
   std::int64_t memory_per_rank_bytes = 0;  ///< 0 = not given
   bool force_dense = false;                ///< force the dense path
-  /// [run] path: "auto" (the cheapest path that applies, by predicted cost) or a path's name.
+  /// [run] path: "auto" (the cheapest path that applies, by predicted cost) or a path's name:
+  /// "dense", "tridiagonal", "two_projection" or "krylov" (observe.extremes_only jobs only).
   std::string run_path = "auto";
   /// [[estimator]] tables, in file order.
   std::vector<EstimatorSpec> estimators;

@@ -21,6 +21,7 @@
 
 #include <cstddef>
 #include <cstdint>
+#include <limits>
 #include <span>
 #include <string>
 #include <utility>
@@ -45,8 +46,12 @@ inline constexpr std::int64_t kMaxBins = 10'000'000;
 /// it, so a bad configuration is refused before anything is counted).
 struct ObserveConfig {
   /// b + 1 strictly increasing, finite bin edges e_0 < e_1 < ... < e_b (b ≥ 1). Uniform bins are
-  /// made by uniform_edges().
+  /// made by uniform_edges(). Empty when extremes_only.
   std::vector<double> bin_edges;
+  /// Observe only the smallest and largest value and the norm: no histogram (no bin edges),
+  /// max_moment = 0 and no kept spectra. A trial may then hand in just its two extremes (what
+  /// an iterative solver finds, model::Path::krylov) instead of its whole spectrum.
+  bool extremes_only = false;
   /// K: moments m_0..m_K are kept (m_0 = 1). 0..kMaxMomentLimit.
   int max_moment = 8;
   SpectrumKind kind = SpectrumKind::eigenvalues;
@@ -96,6 +101,22 @@ void add_counts(std::span<const double> values, const std::vector<double>& bin_e
 /// Adds the counts of `from` to `into`. Throws InputError if the bin counts differ.
 void merge_into(Histogram& into, const Histogram& from);
 
+/// How an iterative solver found a trial's extremes (model::Path::krylov): what a reader needs to
+/// trust them. Every field is NaN for a trial whose whole spectrum was computed by LAPACK.
+struct Certificate {
+  double iterations = std::numeric_limits<double>::quiet_NaN();  ///< Lanczos steps taken
+  /// ‖P y − θ y‖ of the unit Ritz vector y of the smallest (largest) Ritz value θ, recomputed
+  /// from y itself: P has an eigenvalue within this distance of θ (a rigorous bound).
+  double residual_min = std::numeric_limits<double>::quiet_NaN();
+  double residual_max = std::numeric_limits<double>::quiet_NaN();
+  /// r²/δ, δ the distance from θ to the next Ritz value: the error estimate the iteration
+  /// stopped on (the Kato–Temple bound with δ for the unknown gap of P).
+  double estimate_min = std::numeric_limits<double>::quiet_NaN();
+  double estimate_max = std::numeric_limits<double>::quiet_NaN();
+  /// The five numbers in this order (the run file's per-trial row).
+  static constexpr int kColumns = 5;
+};
+
 /// The observations of one trial. Failed trials keep their index and reason; their moments are
 /// empty and their extremes NaN.
 struct TrialRecord {
@@ -107,6 +128,7 @@ struct TrialRecord {
   double max = 0.0;              ///< largest value of the spectrum
   double norm = 0.0;             ///< operator norm max_i |x_i|
   std::vector<double> spectrum;  ///< the full spectrum if the trial is selected (failed or not)
+  Certificate certificate;       ///< set by the caller for a trial of the Krylov path
 };
 
 /// m_0..m_K of x, m_k = (1/N) Σ_i x_i^k, accurate to a few units in the last place relative to

@@ -32,7 +32,10 @@ inline constexpr int kFormatMajor = 1;
 /// resume as before. 1.4 added /metadata sampler_changes: how the job's samplers draw differently
 /// from those of 1.3 and before (empty when they do not), compared on resume like the path, so a
 /// file drawn by an older sampler is refused where the samplers changed and resumed where not.
-inline constexpr int kFormatMinor = 4;
+/// 1.5 added runs that observe only the extremes (observe.extremes_only): their sizes carry the
+/// attribute extremes_only = 1, a zero-width unit_histograms, and a per-trial `certificate`
+/// dataset (observe::Certificate), and the path value "krylov". Other files are as in 1.4.
+inline constexpr int kFormatMinor = 5;
 
 /// What is stored for one matrix size N.
 struct SizeLayout {

@@ -133,15 +133,20 @@ std::string Job::canonical() const {
     append_matrix(out, matrices[i], i, file_digests);
   }
   out += "expression = " + with_length(expression) + "\n";
-  out += "observe: bins = " + std::to_string(observe.bins);
-  if (observe.auto_range) {
-    out += "; range = auto; margin = " + exact(observe.margin);
+  const char* spectrum = observe.singular_values ? "spectrum = singular_values\n" : "spectrum = auto\n";
+  if (observe.extremes_only) {
+    // Printed only when set, so that other jobs keep their hash; nothing else is observed then.
+    out += std::string("observe: extremes_only = true; ") + spectrum;
   } else {
-    out += "; range = " + exact(observe.low) + " " + exact(observe.high);
+    out += "observe: bins = " + std::to_string(observe.bins);
+    if (observe.auto_range) {
+      out += "; range = auto; margin = " + exact(observe.margin);
+    } else {
+      out += "; range = " + exact(observe.low) + " " + exact(observe.high);
+    }
+    out += "; max_moment = " + std::to_string(observe.max_moment);
+    out += "; keep_spectra = " + std::to_string(observe.keep_spectra) + "; " + spectrum;
   }
-  out += "; max_moment = " + std::to_string(observe.max_moment);
-  out += "; keep_spectra = " + std::to_string(observe.keep_spectra);
-  out += observe.singular_values ? "; spectrum = singular_values\n" : "; spectrum = auto\n";
   out += force_dense ? "force_dense = true\n" : "force_dense = false\n";
   // Only when given, so that jobs without the key keep their hash.
   if (run_path != "auto") out += "path = " + run_path + "\n";

@@ -685,9 +685,24 @@ void read_keep_spectra(const Reader& r, const toml::node& v, ObserveSettings& s)
 }
 
 ObserveSettings read_observe(const Reader& r, const toml::table& t) {
-  r.check_keys(t, "observe", {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum"},
+  r.check_keys(t, "observe",
+               {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum", "extremes_only"},
                "");
   ObserveSettings s;
+  if (const toml::node* v = t.get("extremes_only")) {
+    s.extremes_only = r.boolean(*v, "observe.extremes_only");
+    for (const char* key : {"bins", "range", "margin", "max_moment", "keep_spectra"}) {
+      if (s.extremes_only && t.get(key) != nullptr) {
+        r.fail(std::string("observe.") + key,
+               "needs the whole spectrum, which extremes_only = true does not observe; remove " +
+                   std::string(key) + " or set extremes_only = false");
+      }
+    }
+    if (s.extremes_only) {
+      s.max_moment = 0;
+      s.keep_spectra_rule = "none";
+    }
+  }
   if (const toml::node* v = t.get("bins")) {
     s.bins = r.integer(*v, "observe.bins", "an integer");
     if (s.bins < 1)
@@ -766,11 +781,12 @@ void read_run(const Reader& r, const toml::table& t, const std::filesystem::path
   if (const toml::node* v = t.get("force_dense"))
     job.force_dense = r.boolean(*v, "run.force_dense");
   if (const toml::node* v = t.get("path")) {
-    const std::string p = r.string(*v, "run.path", "\"auto\", \"dense\", \"tridiagonal\" or "
-                                   "\"two_projection\"");
-    if (p != "auto" && p != "dense" && p != "tridiagonal" && p != "two_projection") {
-      r.fail("run.path", "must be \"auto\", \"dense\", \"tridiagonal\" or \"two_projection\" "
-                         "(got \"" + p + "\")");
+    const std::string p = r.string(*v, "run.path", "\"auto\", \"dense\", \"tridiagonal\", "
+                                   "\"two_projection\" or \"krylov\"");
+    if (p != "auto" && p != "dense" && p != "tridiagonal" && p != "two_projection" &&
+        p != "krylov") {
+      r.fail("run.path", "must be \"auto\", \"dense\", \"tridiagonal\", \"two_projection\" or "
+                         "\"krylov\" (got \"" + p + "\")");
     }
     if (job.force_dense && p != "auto" && p != "dense") {
       r.fail("run.path", "asks for the " + p + " path while force_dense = true asks for the dense "

@@ -99,7 +99,7 @@ TrialRecord observe_validated(std::uint64_t trial, std::span<const double> spect
   row.max = *highest;
   row.norm = std::max(std::fabs(row.min), std::fabs(row.max));
   if (keep) row.spectrum.assign(spectrum.begin(), spectrum.end());
-  add_counts(spectrum, config.bin_edges, into);
+  if (!config.extremes_only) add_counts(spectrum, config.bin_edges, into);
   return row;
 }
 
@@ -132,6 +132,18 @@ MeanWithError estimate(const std::vector<double>& values) {
 }  // namespace
 
 void ObserveConfig::validate() const {
+  if (extremes_only) {
+    // Nothing but the extremes: a histogram, moments or kept spectra would need every value.
+    if (!bin_edges.empty()) refuse("extremes_only observes no histogram; give no bin_edges");
+    if (max_moment != 0) {
+      refuse("extremes_only observes no moments; max_moment must be 0 (got " +
+             std::to_string(max_moment) + ")");
+    }
+    if (!keep_spectrum_trials.empty()) {
+      refuse("extremes_only keeps no spectra; give no keep_spectrum_trials");
+    }
+    return;
+  }
   if (bin_edges.size() < 2) {
     refuse("bin_edges needs at least 2 edges (got " + std::to_string(bin_edges.size()) + ")");
   }

@@ -182,6 +182,11 @@ std::vector<char> pack(const UnitDone& u) {
     w.put<double>(t.max);
     w.put<double>(t.norm);
     w.put_doubles(t.spectrum);
+    const auto& c = t.certificate;
+    for (const double v : {c.iterations, c.residual_min, c.residual_max, c.estimate_min,
+                           c.estimate_max}) {
+      w.put<double>(v);
+    }
   }
   w.put_doubles(u.estimates);
   w.put<std::uint64_t>(u.estimate_failures.size());
@@ -213,6 +218,11 @@ UnitDone unpack(const std::vector<char>& bytes, const observe::ObserveConfig& co
     t.max = r.get<double>();
     t.norm = r.get<double>();
     t.spectrum = r.get_doubles();
+    auto& c = t.certificate;
+    for (double* v : {&c.iterations, &c.residual_min, &c.residual_max, &c.estimate_min,
+                      &c.estimate_max}) {
+      *v = r.get<double>();
+    }
   }
   u.estimates = r.get_doubles();
   const auto reasons = r.get<std::uint64_t>();
@@ -347,9 +357,14 @@ observe::ObserveConfig config_for(const job::Job& job, std::size_t size_index,
                                   const std::vector<double>& edges,
                                   const model::SizeRunner& runner) {
   observe::ObserveConfig c;
+  c.kind = runner.spectrum_kind();
+  if (job.observe.extremes_only) {
+    c.extremes_only = true;
+    c.max_moment = 0;
+    return c;
+  }
   c.bin_edges = edges;
   c.max_moment = job.observe.max_moment;
-  c.kind = runner.spectrum_kind();
   const std::int64_t keep = std::min(job.observe.keep_spectra, job.trials[size_index]);
   for (std::int64_t t = 0; t < keep; ++t) c.keep_spectrum_trials.push_back(static_cast<std::uint64_t>(t));
   return c;
@@ -1039,12 +1054,16 @@ void open_run_file(Prepared& p, const RunOptions& options, std::vector<double>& 
   const std::string threads = std::to_string(options.threads);
   if (resume) {
     edges = resumed_edges(p, path, threads);
+  } else if (p.job.observe.extremes_only) {
+    edges.clear();  // no histogram, so no pilot trial
   } else {
     edges = p.job.observe.auto_range
                 ? pilot_edges(p.job, p.study->runners().front())
                 : observe::uniform_edges(p.job.observe.low, p.job.observe.high, p.job.observe.bins);
   }
-  if (edges.size() < 2) edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
+  if (edges.size() < 2 && !p.job.observe.extremes_only) {
+    edges = observe::uniform_edges(0.0, 1.0, 1);  // refused below anyway
+  }
   for (std::size_t i = 0; i < p.study->runners().size(); ++i) {
     p.configs.push_back(config_for(p.job, i, edges, p.study->runners()[i]));
   }

@@ -36,6 +36,7 @@ using h5::Where;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr hsize_t kUnlimited = H5S_UNLIMITED;
+constexpr hsize_t kCertificateColumns = observe::Certificate::kColumns;
 // Room reserved before a unit is written, beyond its strings: the metadata one unit can add
 // (a provenance row and its chunk index, a global heap collection) is a few KiB; its rows go into
 // chunks allocated when the file was made. 16 KiB, not more: a reservation larger than what a unit
@@ -149,6 +150,7 @@ struct UnitView {
   std::span<const std::int64_t> lengths;
   std::span<const double> estimates;
   std::vector<std::string_view> estimate_failures;
+  std::span<const double> certificates;  // format 1.5, extremes_only sizes only
 };
 
 Digest unit_digest(const UnitView& v) {
@@ -169,6 +171,8 @@ Digest unit_digest(const UnitView& v) {
   in.numbers(v.estimates);
   in.count(v.estimate_failures.size());
   for (const auto r : v.estimate_failures) in.text(r);
+  // Only where there are any, so the units of files without them keep their digests.
+  if (!v.certificates.empty()) in.numbers(v.certificates);
   return in.digest();
 }
 
@@ -193,6 +197,7 @@ std::string header_digest(const RunHeader& h, const std::vector<int>& version) {
     in.count(static_cast<std::uint64_t>(size.observe.max_moment));
     in.numbers(std::span<const double>(size.observe.bin_edges));
     in.numbers(std::span<const std::uint64_t>(size.observe.keep_spectrum_trials));
+    if (size.observe.extremes_only) in.text("extremes only");  // format 1.5
   }
   in.count(h.metadata.size());
   for (const auto& [key, value] : h.metadata) {
@@ -539,7 +544,22 @@ struct SizeHandles {
   Id spectra, spectrum_length;
   Id estimates, estimate_failure;  // only with estimators
   Id unit_sha256;                  // only with checksums (format 1.2)
+  Id certificate;                  // only for extremes_only (format 1.5)
 };
+
+// Rows [b, b + rows) of a size's certificate dataset (format 1.5), or nothing without one.
+std::vector<double> read_certificates(const SizeHandles& s, hsize_t b, std::size_t rows, Where w,
+                                      const std::string& what) {
+  if (!s.certificate.valid()) return {};
+  std::vector<double> out(rows * kCertificateColumns);
+  h5::read_block(s.certificate.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, kCertificateColumns},
+                 out.data(), w, what);
+  return out;
+}
+
+observe::Certificate certificate_of(const double* row) {
+  return {row[0], row[1], row[2], row[3], row[4]};
+}
 
 }  // namespace
 
@@ -613,6 +633,22 @@ void write_static_1d(hid_t group, const char* name, hid_t file_type, hid_t mem_t
                   std::string("write dataset '") + name + "'");
 }
 
+// A size's unit_histograms, and (1.5) for an extremes_only size (no bins) its certificates.
+void create_histograms(hid_t g, hsize_t bins, hsize_t t, hsize_t rows, hsize_t u, Where where) {
+  const std::int64_t zero64 = 0;
+  if (bins > 0) {
+    h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE,
+                       {{u, bins}, {}, {1, bins}, true, true}, &zero64, where);
+    return;
+  }
+  // A chunk cannot be empty, so the width may grow (it never does).
+  h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE,
+                     {{u, 0}, {u, kUnlimited}, {1, 1}, true, true}, &zero64, where);
+  h5::create_dataset(g, "certificate", H5T_IEEE_F64LE,
+                     {{t, kCertificateColumns}, {}, {rows, kCertificateColumns}, true, true},
+                     &kNaN, where);
+}
+
 void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, hid_t string,
                 std::size_t estimate_columns, std::size_t estimator_count, Where where) {
   const std::string name = std::to_string(index);
@@ -627,6 +663,7 @@ void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, 
   h5::write_int64_attribute(g, "max_moment", config.max_moment, where);
   h5::write_int64_attribute(g, "keep_count", layout.keep_count(), where);
   h5::write_int64_attribute(g, "bins", static_cast<std::int64_t>(config.bins()), where);
+  if (config.extremes_only) h5::write_int64_attribute(g, "extremes_only", 1, where);
 
   write_static_1d(g, "bin_edges", H5T_IEEE_F64LE, H5T_NATIVE_DOUBLE, config.bin_edges.size(),
                   config.bin_edges.data(), where);
@@ -650,8 +687,7 @@ void write_size(hid_t sizes_group, std::size_t index, const SizeLayout& layout, 
   h5::create_dataset(g, "failed", H5T_STD_I8LE, {{t}, {}, {rows}, true, true}, &zero8, where);
   // Variable-length strings cannot be filtered: the unit's SHA-256 covers them.
   h5::create_dataset(g, "failure_reason", string, {{t}, {}, {rows}, true, false}, nullptr, where);
-  h5::create_dataset(g, "unit_histograms", H5T_STD_I64LE, {{u, bins}, {}, {1, bins}, true, true},
-                     &zero64, where);
+  create_histograms(g, bins, t, rows, u, where);
   h5::create_dataset(g, "unit_below", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
   h5::create_dataset(g, "unit_above", H5T_STD_I64LE, {{u}, {}, {1}, true, true}, &zero64, where);
   // The fill value (what HDF5 returns for a chunk its index cannot find) is kMarkerLost; every
@@ -834,6 +870,8 @@ RunHeader read_header(hid_t file, Where where) {
     layout.observe.kind = header.spectrum;
     layout.observe.bin_edges = read_doubles_1d(g, "bin_edges", where);
     layout.observe.keep_spectrum_trials = read_uint64_1d(g, "kept_trials", where);
+    layout.observe.extremes_only = h5::has_attribute(g, "extremes_only") &&
+                                   h5::read_int64_attribute(g, "extremes_only", where) == 1;
     header.sizes.push_back(std::move(layout));
   }
   if (h5::has_link(file, "estimators")) {
@@ -928,7 +966,11 @@ SizeHandles open_size(hid_t file, std::size_t index, const SizeLayout& layout,
   s.norm = open("norm", {t}, f64, {rows});
   s.failed = open("failed", {t}, i8, {rows});
   s.failure_reason = open("failure_reason", {t}, text, {rows});
-  s.unit_histograms = open("unit_histograms", {u, bins}, i64, {1, bins});
+  s.unit_histograms = open("unit_histograms", {u, bins}, i64, {1, std::max<hsize_t>(bins, 1)});
+  if (layout.observe.extremes_only) {
+    const hsize_t c = kCertificateColumns;
+    s.certificate = open("certificate", {t, c}, f64, {rows, c});
+  }
   s.unit_below = open("unit_below", {u}, i64, {1});
   s.unit_above = open("unit_above", {u}, i64, {1});
   s.unit_committed = open("unit_committed", {u}, i8, {1});
@@ -995,6 +1037,10 @@ std::string first_difference(const RunHeader& file, const RunHeader& job) {
     if (a.trials_per_unit != b.trials_per_unit) {
       return differ(at + "trials_per_unit", std::to_string(a.trials_per_unit),
                     std::to_string(b.trials_per_unit));
+    }
+    if (a.observe.extremes_only != b.observe.extremes_only) {
+      return differ(at + "extremes_only", a.observe.extremes_only ? "true" : "false",
+                    b.observe.extremes_only ? "true" : "false");
     }
     if (a.observe.max_moment != b.observe.max_moment) {
       return differ(at + "max_moment", std::to_string(a.observe.max_moment),
@@ -1115,7 +1161,8 @@ bool chunks_found(const RunFile::Impl& f, std::size_t i, std::size_t u) {
     H5Eclear2(H5E_DEFAULT);
     return ok;
   };
-  bool all = found(s.moments, {b, 0}) && found(s.unit_histograms, {u, 0}) &&
+  bool all = found(s.moments, {b, 0}) && found(s.certificate, {b, 0}) &&
+             (layout.observe.bins() == 0 || found(s.unit_histograms, {u, 0})) &&
              found(s.estimates, {b, 0}) && found(s.estimate_failure, {b, 0}) &&
              found(s.unit_sha256, {u, 0});
   for (const Id* d : {&s.min, &s.max, &s.norm, &s.failed, &s.failure_reason}) {
@@ -1163,6 +1210,7 @@ std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std
   std::vector<double> spectra((kept_end - kept_begin) * n);
   std::vector<std::int64_t> lengths(kept_end - kept_begin);
   std::vector<double> estimates(rows * columns_e);
+  std::vector<double> certificates;
   Digest stored{};
   try {
     h5::read_block(s.moments.get(), H5T_NATIVE_DOUBLE, {b, 0}, {rows, columns}, moments.data(), w,
@@ -1188,6 +1236,7 @@ std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std
     }
     h5::read_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes}, stored.data(),
                    w, "read its SHA-256");
+    certificates = read_certificates(s, b, rows, w, what);
   } catch (const Error& e) {
     damage.reason = e.what();
     const std::string prefix = "run file '" + f.path + "': ";
@@ -1199,9 +1248,10 @@ std::optional<DamagedUnit> check_unit(const RunFile::Impl& f, std::size_t i, std
     return damage;
   }
   UnitView view{moments, mins,  maxs,    norms,   failed,    {}, counts,
-                below,   above, spectra, lengths, estimates, {}};
+                below,   above, spectra, lengths, estimates, {}, {}};
   for (const auto& r : reasons) view.reasons.emplace_back(r);
   for (const auto& r : estimate_failures) view.estimate_failures.emplace_back(r);
+  view.certificates = certificates;
   if (unit_digest(view) != stored) {
     damage.reason = "its content does not match its SHA-256";
     damage.rewritable = chunks_found(f, i, u);
@@ -1767,6 +1817,7 @@ struct UnitBlock {
   std::size_t kept_begin = 0, kept_end = 0;  // the unit's rows among the kept spectra
   std::vector<double> spectra;
   std::vector<std::int64_t> lengths;
+  std::vector<double> certificates;  // rows × 5 for an extremes_only size, else empty
 };
 
 // Lays out the trial rows of a unit that check_unit_writable accepted, checking each row.
@@ -1790,8 +1841,15 @@ UnitBlock unit_block(const UnitResult& unit, const SizeLayout& layout, const std
       std::lower_bound(kept.begin(), kept.end(), static_cast<std::uint64_t>(end)) - kept.begin());
   std::vector<double> spectra((kept_end - kept_begin) * n, kNaN);
   std::vector<std::int64_t> lengths(kept_end - kept_begin, 0);
+  std::vector<double> certificates;
+  if (layout.observe.extremes_only) certificates.reserve(rows * kCertificateColumns);
   for (std::size_t i = 0; i < rows; ++i) {
     const observe::TrialRecord& row = obs.trials[i];
+    if (layout.observe.extremes_only) {
+      const auto& c = row.certificate;
+      certificates.insert(certificates.end(), {c.iterations, c.residual_min, c.residual_max,
+                                               c.estimate_min, c.estimate_max});
+    }
     const auto trial = static_cast<std::uint64_t>(begin) + i;
     if (row.trial != trial) {
       refuse("row " + std::to_string(i) + " holds trial " + std::to_string(row.trial) +
@@ -1836,7 +1894,8 @@ UnitBlock unit_block(const UnitResult& unit, const SizeLayout& layout, const std
                    kept_begin,
                    kept_end,
                    std::move(spectra),
-                   std::move(lengths)};
+                   std::move(lengths),
+                   std::move(certificates)};
 }
 
 // Refuses a unit whose estimates or estimate failure reasons do not fill its `rows` rows.
@@ -1888,9 +1947,11 @@ void write_unit_digest(const RunFile::Impl& f, const SizeHandles& s, const UnitR
                 k.spectra,
                 k.lengths,
                 unit.estimates,
+                {},
                 {}};
   for (const char* reason : k.reasons) view.reasons.emplace_back(reason);
   for (const auto& reason : unit.estimate_failures) view.estimate_failures.emplace_back(reason);
+  view.certificates = k.certificates;
   const Digest digest = unit_digest(view);
   h5::overwrite_block(s.unit_sha256.get(), H5T_NATIVE_UINT8, {u, 0}, {1, kDigestBytes},
                       digest.data(), w, what);
@@ -1934,6 +1995,10 @@ void write_unit_content(RunFile::Impl& f, const SizeHandles& s, const UnitResult
                         unit.estimates.data(), w, what);
     h5::overwrite_block(s.estimate_failure.get(), f.string_type.get(), {b, 0}, {r, estimators},
                         estimate_reasons.data(), w, what);
+  }
+  if (s.certificate.valid()) {
+    h5::overwrite_block(s.certificate.get(), H5T_NATIVE_DOUBLE, {b, 0}, {r, kCertificateColumns},
+                        k.certificates.data(), w, what);
   }
   if (f.checksummed) write_unit_digest(f, s, unit, k, what);
   f.flush(what);
@@ -2069,6 +2134,7 @@ void read_trial_rows(const SizeLayout& layout, const SizeHandles& s, std::int64_
                  spectra.data(), w, what);
   h5::read_block(s.spectrum_length.get(), H5T_NATIVE_INT64, {kept_begin}, {kept_rows},
                  lengths.data(), w, what);
+  const std::vector<double> certificates = read_certificates(s, b, rows, w, what);
 
   for (std::size_t i = 0; i < rows; ++i) {
     observe::TrialRecord row;
@@ -2081,6 +2147,7 @@ void read_trial_rows(const SizeLayout& layout, const SizeHandles& s, std::int64_
     row.min = mins[i];
     row.max = maxs[i];
     row.norm = norms[i];
+    if (!certificates.empty()) row.certificate = certificate_of(&certificates[i * kCertificateColumns]);
     const auto slot = std::lower_bound(kept.begin(), kept.end(), row.trial);
     if (slot != kept.end() && *slot == row.trial) {
       const auto j = static_cast<std::size_t>(slot - kept.begin()) - kept_begin;

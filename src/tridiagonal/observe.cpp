@@ -105,7 +105,7 @@ observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
     return observe::failed_trial(trial, "Gershgorin bound overflows double");
   }
   auto start = detail::start_brackets(p, extreme_tolerance);
-  narrow_by_counts(start, c, edges, n);
+  if (!edges.empty()) narrow_by_counts(start, c, edges, n);  // none when extremes_only
   if (!(start.lower.lo < start.lower.hi) || !(start.upper.lo < start.upper.hi)) {
     // The counts contradict the Gershgorin bounds: only possible through rounding at an edge
     // that lies within a few ulps of a bound; bisect from Gershgorin alone.
@@ -127,6 +127,7 @@ observe::TrialRecord observe_matrix(std::uint64_t trial, const Tridiagonal& p,
   row.max = x.max;
   row.norm = std::max(std::fabs(x.min), std::fabs(x.max));
 
+  if (c.empty()) return row;  // extremes_only: no histogram
   into.below += c.front();
   for (std::size_t i = 0; i < bins; ++i) into.counts[i] += c[i + 1] - c[i];
   into.above += n - c.back();

@@ -178,7 +178,7 @@ def main():
         files["resumed"] = resumed
 
         ref_head, ref_sizes, version = read(files["plain"])
-        c.equal(version, [1, 4], "format_version [1, 4] (estimates, checksums, path and samplers compared on resume)")
+        c.equal(version, [1, 5], "format_version [1, 5] (estimates, checksums, path and samplers compared on resume, extremes-only runs)")
         c.equal(ref_head["estimator"],
                 ["norm", "lib", "lib", "cmd", "cmd", "crashy", "crashy", "slow", "slow"] +
                 ["probe"] * 11,

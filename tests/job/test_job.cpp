@@ -332,7 +332,7 @@ TEST(JobErrors, UnknownKeyInObserve) {
                      "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\nensemble = \"goe\"\n"
                      "[observe]\nbin = 100\n"),
             "study.toml:10: observe.bin: unknown key 'bin' (did you mean 'bins'?); known keys: "
-            "bins, range, margin, max_moment, keep_spectra, spectrum");
+            "bins, range, margin, max_moment, keep_spectra, spectrum, extremes_only");
 }
 
 TEST(JobErrors, UnknownKeyInRun) {
@@ -347,8 +347,9 @@ TEST(JobErrors, RunPathNamesAPathAndAgreesWithForceDense) {
   const std::string head = std::string(kGoodHead) +
                            "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\nensemble = \"goe\"\n";
   EXPECT_EQ(error_of(head + "[run]\npath = \"fast\"\n"),
-            "study.toml:10: run.path: must be \"auto\", \"dense\", \"tridiagonal\" or "
-            "\"two_projection\" (got \"fast\")");
+            "study.toml:10: run.path: must be \"auto\", \"dense\", \"tridiagonal\", "
+            "\"two_projection\" or \"krylov\" (got \"fast\")");
+  EXPECT_EQ(parse_job(head + "[run]\npath = \"krylov\"\n", "study.toml").run_path, "krylov");
   EXPECT_EQ(error_of(head + "[run]\nforce_dense = true\npath = \"tridiagonal\"\n"),
             "study.toml:11: run.path: asks for the tridiagonal path while force_dense = true asks "
             "for the dense one; keep one of the two keys");
@@ -356,6 +357,27 @@ TEST(JobErrors, RunPathNamesAPathAndAgreesWithForceDense) {
   const Job forced = parse_job(head + "[run]\npath = \"dense\"\n", "study.toml");
   EXPECT_EQ(forced.run_path, "dense");
   EXPECT_EQ(parse_job(head, "study.toml").run_path, "auto");
+}
+
+TEST(JobErrors, ExtremesOnlyRefusesWhatNeedsTheWholeSpectrum) {
+  const std::string head = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n";
+  for (const char* key : {"bins = 10", "range = [-1, 1]", "max_moment = 2", "keep_spectra = 1"}) {
+    const std::string name = std::string(key).substr(0, std::string(key).find(' '));
+    EXPECT_EQ(error_of(head + "[observe]\nextremes_only = true\n" + key + "\n"),
+              "study.toml:9: observe." + name + ": needs the whole spectrum, which extremes_only = "
+              "true does not observe; remove " + name + " or set extremes_only = false")
+        << key;
+  }
+  EXPECT_EQ(error_of(head + "[observe]\nextremes_only = 1\n").rfind(
+                "study.toml:8: observe.extremes_only: ", 0),
+            0u);
+  const Job job = parse_job(head + "[observe]\nextremes_only = true\n", "study.toml");
+  EXPECT_TRUE(job.observe.extremes_only);
+  EXPECT_EQ(job.observe.max_moment, 0);
+  EXPECT_EQ(job.observe.keep_spectra, 0);
+  // false is the default and leaves the other keys free.
+  EXPECT_FALSE(parse_job(head + "[observe]\nextremes_only = false\nbins = 10\n", "study.toml")
+                   .observe.extremes_only);
 }
 
 TEST(JobErrors, UnknownKeyInMatrix) {
@@ -671,6 +693,22 @@ TEST(JobHash, RunPathEntersOnlyWhenGiven) {
   EXPECT_EQ(parse_job(kHashBase, "base.toml").canonical().find("path ="), std::string::npos);
   EXPECT_NE(parse_job(with_dense, "base.toml").canonical().find("path = dense\n"),
             std::string::npos);
+}
+
+TEST(JobHash, ExtremesOnlyEntersOnlyWhenSet) {
+  // Other jobs keep their hash; an extremes-only job is another job, whose canonical text names
+  // nothing it does not observe.
+  const std::string base = hash_of(kHashBase);
+  const std::string with_false = replaced(kHashBase, "[observe]", "[observe]\nextremes_only = false");
+  EXPECT_EQ(hash_of(with_false), base);
+  std::string only = kHashBase;
+  only = only.substr(0, only.find("[observe]")) + "[observe]\nextremes_only = true\n" +
+         only.substr(only.find("[run]"));
+  const std::string canonical = parse_job(only, "base.toml").canonical();
+  EXPECT_NE(canonical.find("observe: extremes_only = true; spectrum = auto\n"), std::string::npos)
+      << canonical;
+  EXPECT_EQ(canonical.find("bins ="), std::string::npos);
+  EXPECT_NE(hash_of(only), base);
 }
 
 TEST(JobHash, IsSha256OfCanonicalText) {

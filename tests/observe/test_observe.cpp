@@ -409,6 +409,40 @@ TEST(ObserveTrial, ExtremesAndNormOfEigenvalues) {
   EXPECT_EQ(h.counts, (std::vector<std::int64_t>{0, 1, 0, 0, 1, 0, 1, 0}));
 }
 
+TEST(ObserveTrial, ExtremesOnlyObservesTwoValuesWithoutAHistogram) {
+  // What the Krylov path hands in: the two extremes of a trial, no bins, m_0 only.
+  fo::ObserveConfig config;
+  config.extremes_only = true;
+  config.max_moment = 0;
+  auto obs = fo::start_observations(config);
+  EXPECT_TRUE(obs.histogram.counts.empty());
+  const std::vector<double> extremes = {-3.5, 2.25};
+  fo::record_trial(obs, 4, extremes);
+  ASSERT_EQ(obs.trials.size(), 1u);
+  EXPECT_EQ(obs.trials[0].min, -3.5);
+  EXPECT_EQ(obs.trials[0].max, 2.25);
+  EXPECT_EQ(obs.trials[0].norm, 3.5);
+  EXPECT_EQ(obs.trials[0].moments, std::vector<double>{1.0});
+  EXPECT_EQ(obs.histogram.total(), 0);
+  EXPECT_TRUE(std::isnan(obs.trials[0].certificate.iterations));  // set by the caller only
+  // Anything that needs the whole spectrum is refused with the reason.
+  fo::ObserveConfig bins = config;
+  bins.bin_edges = {0.0, 1.0};
+  expect_input_error([&] { bins.validate(); },
+                     "observe: extremes_only observes no histogram; give no bin_edges");
+  fo::ObserveConfig moments = config;
+  moments.max_moment = 2;
+  expect_input_error([&] { moments.validate(); },
+                     "observe: extremes_only observes no moments; max_moment must be 0 (got 2)");
+  fo::ObserveConfig kept = config;
+  kept.keep_spectrum_trials = {0};
+  expect_input_error([&] { kept.validate(); },
+                     "observe: extremes_only keeps no spectra; give no keep_spectrum_trials");
+  // Without extremes_only, no bins is still an error.
+  expect_input_error([] { fo::ObserveConfig none; none.validate(); },
+                     "observe: bin_edges needs at least 2 edges (got 0)");
+}
+
 TEST(ObserveTrial, ExtremesAndNormOfSingularValues) {
   fo::ObserveConfig config = config_for(0.0, 5.0, 5, 2);
   config.kind = fo::SpectrumKind::singular_values;

@@ -187,7 +187,7 @@ def check_size(f, index, size, units_expected_committed):
 def check_root(f):
     a = f.attrs
     check(a["file_kind"] == "freegap run", "file_kind = %r" % a["file_kind"])
-    check(list(a["format_version"]) == [1, 4], "format_version = %r" % a["format_version"])
+    check(list(a["format_version"]) == [1, 5], "format_version = %r" % a["format_version"])
     check(len(a["header_sha256"]) == 64 and all(c in "0123456789abcdef" for c in a["header_sha256"]),
           "header_sha256 = %r" % a["header_sha256"])
     check(isinstance(a["tool_version"], str) and a["tool_version"] != "", "tool_version")

@@ -62,7 +62,7 @@ def read_live(c, path):
     seen = {}
     with h5py.File(path, "r") as f:
         c.equal(f.attrs["file_kind"], "freegap run", "root file_kind")
-        c.equal(list(f.attrs["format_version"]), [1, 4], "root format_version [1, 4] (docs/run-file.md)")
+        c.equal(list(f.attrs["format_version"]), [1, 5], "root format_version [1, 5] (docs/run-file.md)")
         for name in ("tool_version", "git_revision", "job_text", "job_canonical"):
             c.check(isinstance(f.attrs[name], str) and f.attrs[name] != "", "root %s is a non-empty string" % name)
         c.check(re.fullmatch(r"[0-9a-f]{64}", f.attrs["job_hash"]) is not None, "root job_hash is 64 hex digits")

@@ -979,6 +979,83 @@ void rewrite_rows(const std::string& path, const char* name, hsize_t first,
   H5Fclose(file);
 }
 
+// Format 1.5: a size that observes only the extremes has no bins, and each trial a certificate
+// row (the Krylov path's), covered by the unit's SHA-256 like every other row.
+RunHeader extremes_header() {
+  RunHeader h = store_sample::header();
+  h.sizes.resize(1);
+  auto& o = h.sizes[0].observe;
+  o.bin_edges.clear();
+  o.max_moment = 0;
+  o.keep_spectrum_trials.clear();
+  o.extremes_only = true;
+  return h;
+}
+
+freegap::store::UnitResult extremes_unit(const RunHeader& h, std::int64_t u) {
+  const auto& s = h.sizes[0];
+  auto obs = freegap::observe::start_observations(s.observe);
+  for (auto t = static_cast<std::uint64_t>(s.unit_begin(u)); t < static_cast<std::uint64_t>(s.unit_end(u)); ++t) {
+    const double x[2] = {-1.0 - 0.01 * static_cast<double>(t), 2.0 + 0.001 * static_cast<double>(t)};
+    freegap::observe::record_trial(obs, t, x);
+    obs.trials.back().certificate = {40.0 + static_cast<double>(t), 1e-7, 2e-7, 1e-13, 3e-13};
+  }
+  return {0, u, std::move(obs), {}, {}};
+}
+
+TEST(Store, ExtremesOnlySizesKeepCertificatesAndNoHistogram) {
+  TempDir dir;
+  const auto path = dir.file("extremes.h5");
+  const RunHeader h = extremes_header();
+  {
+    auto file = RunFile::create(path, h);
+    file.begin_session(1, {"node0"});
+    for (std::int64_t u = 0; u < h.sizes[0].units(); ++u) {
+      file.write_unit(extremes_unit(h, u), {0, "node0", 0.1});
+    }
+    file.end_session("finished");
+  }
+  {
+    auto file = RunFile::open_read(path);
+    EXPECT_TRUE(file.header().sizes[0].observe.extremes_only);
+    const Observations obs = file.read_observations(0);
+    EXPECT_TRUE(obs.histogram.counts.empty());
+    ASSERT_EQ(obs.trials.size(), 23u);
+    for (const auto& row : obs.trials) {
+      EXPECT_EQ(row.certificate.iterations, 40.0 + static_cast<double>(row.trial));
+      EXPECT_EQ(row.certificate.residual_max, 2e-7);
+      EXPECT_EQ(row.certificate.estimate_max, 3e-13);
+      EXPECT_EQ(row.max, 2.0 + 0.001 * static_cast<double>(row.trial));
+      EXPECT_EQ(row.moments, std::vector<double>{1.0});
+    }
+  }
+  // A resume by a job that observes more is refused, naming the difference.
+  RunHeader more = h;
+  more.sizes[0] = store_sample::header().sizes[0];
+  const std::string refused = message_of_type<InputError>([&] { RunFile::open_for_resume(path, more); });
+  EXPECT_NE(refused.find("sizes[0].extremes_only"), std::string::npos) << refused;
+  // A changed certificate (checksums rewritten by HDF5) breaks the unit's SHA-256.
+  {
+    const hid_t file = H5Fopen(path.c_str(), H5F_ACC_RDWR, H5P_DEFAULT);
+    ASSERT_GE(file, 0);
+    const hid_t dataset = H5Dopen2(file, "sizes/0/certificate", H5P_DEFAULT);
+    const hid_t space = H5Dget_space(dataset);
+    const hsize_t start[2] = {9, 1}, count[2] = {1, 1};
+    H5Sselect_hyperslab(space, H5S_SELECT_SET, start, nullptr, count, nullptr);
+    const hid_t memory = H5Screate_simple(2, count, nullptr);
+    const double changed = 5e-7;
+    EXPECT_GE(H5Dwrite(dataset, H5T_NATIVE_DOUBLE, memory, space, H5P_DEFAULT, &changed), 0);
+    H5Sclose(memory);
+    H5Sclose(space);
+    H5Dclose(dataset);
+    H5Fclose(file);
+  }
+  const auto integrity = freegap::store::verify(path);
+  ASSERT_EQ(integrity.damaged.size(), 1u);
+  EXPECT_EQ(integrity.damaged[0].unit, 2);  // trials 8..11
+  EXPECT_EQ(integrity.damaged[0].reason, "its content does not match its SHA-256");
+}
+
 TEST(Store, ChangedBytesInAChunkNameTheUnitWhichAResumeComputesAgain) {
   TempDir dir;
   const auto path = dir.file("run.h5");
