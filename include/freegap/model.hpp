@@ -11,6 +11,7 @@
 
 #include "freegap/ensembles.hpp"
 #include "freegap/expr.hpp"
+#include "freegap/linalg.hpp"
 #include "freegap/observe.hpp"
 #include "freegap/tridiagonal.hpp"
 
@@ -20,7 +21,7 @@ using Index = Eigen::Index;
 
 /// Which path a job asks for: the cheapest of those that apply (by the predicted cost of one
 /// trial, predicted_trial_seconds), or one by name.
-enum class PathRequest { automatic, dense, tridiagonal, two_projection };
+enum class PathRequest { automatic, dense, tridiagonal, two_projection, krylov };
 
 /// What a job declares about its matrices and expression.
 struct Model {
@@ -39,6 +40,13 @@ struct Model {
   /// Draw every Haar matrix whole on the dense path, even one the plan reads only by some of its
   /// columns (expr::Evaluation::haar_columns), for comparisons. Not a job key: results differ.
   bool full_haar = false;
+  /// The job observes only the extremes and the norm (observe::ObserveConfig::extremes_only), so
+  /// the Krylov path may apply.
+  bool extremes_only = false;
+  /// The Krylov path's stopping rule (linalg::lanczos_extremes): relative error estimate and
+  /// most Lanczos steps. Not job keys; the tests lower max steps to reach a failure.
+  double krylov_tolerance = 1e-12;
+  int krylov_max_steps = 1000;
 };
 
 /// How a size's trials are computed.
@@ -49,6 +57,9 @@ enum class Path {
   two_projection,  ///< a·B + b·U B U^* (+ c) of a two-valued diagonal B and a Haar U: the
                    ///< β-Jacobi corner (Edelman & Sutton 2008) in a tridiagonal matrix with the
                    ///< same eigenvalues, observed as on the tridiagonal path; O(N) per bin
+  krylov,  ///< extremes only, of a self-adjoint expression: dense samples, never the formed
+           ///< matrix; Lanczos on products with the factors (expr::VectorProduct,
+           ///< linalg::lanczos_extremes), with a certificate per trial
 };
 
 /// The path's name in the run file's /metadata path, `run --explain` and `plan`: "dense",
@@ -65,6 +76,11 @@ const char* path_name(Path path);
 /// `extra_dense_seconds`: the dense path's sampling beyond a Wigner matrix's and its evaluation.
 double predicted_trial_seconds(Path path, Index n, const Model& model, bool complex_dense,
                                double extra_dense_seconds);
+
+/// Predicted CPU seconds of one Krylov trial of size n (Path::krylov): sampling, then about
+/// 30 + 20·log10 n Lanczos steps, each reading `bytes_per_product` of samples
+/// (expr::VectorProduct::bytes_read) and the basis at memory speed (docs/performance.md §5c).
+double predicted_krylov_seconds(Index n, double bytes_per_product, double sample_seconds);
 
 /// The two-projection model of an expression, or nothing when it does not have that form: every
 /// term of its expansion is a constant, a diagonal D, or U D U^* (or U^* D U throughout) for one
@@ -125,7 +141,10 @@ class SizeRunner {
 
   Index size() const { return n_; }
   Path path() const {
-    return tri_ ? Path::tridiagonal : two_ ? Path::two_projection : Path::dense;
+    return tri_     ? Path::tridiagonal
+           : two_   ? Path::two_projection
+           : krylov_ ? Path::krylov
+                     : Path::dense;
   }
   /// Why this path: forced by the job, the only one that applies, or the cheapest predicted
   /// (with the predicted seconds per trial of the paths compared).
@@ -168,15 +187,25 @@ class SizeRunner {
   std::optional<tridiagonal::ModelSpec> tri_;
   double tri_scale_ = 1.0, tri_shift_ = 0.0;
   std::optional<tridiagonal::TwoProjectionSpec> two_;
+  std::optional<expr::VectorProduct> krylov_;
+  linalg::LanczosSettings krylov_settings_;
   std::string path_choice_;
   std::string predicted_;  // the predicted costs compared, for explain()
   /// The tridiagonal form a·X + b of the expression, when it has one (and the refusals of
   /// matrices that have only a tridiagonal model, in any other expression).
   std::optional<tridiagonal::ModelSpec> tridiagonal_form(const Model& model, double& scale,
                                                          double& shift) const;
-  /// Picks the path from the job's request and the predicted costs (sets tri_ / two_).
+  /// Picks the path from the job's request and the predicted costs (sets tri_ / two_ / krylov_).
   void choose_path(const Model& model, std::optional<tridiagonal::ModelSpec> tri, double scale,
                    double shift, std::optional<tridiagonal::TwoProjectionSpec> two);
+  /// The cheapest of the paths that apply by predicted cost (sets path_choice_ and predicted_).
+  Path cheapest_path(const Model& model, bool linear, bool two, bool krylov);
+  /// Whether the Krylov path applies, and if not why (for a forced request's message).
+  bool krylov_applies(const Model& model, std::string& why) const;
+  std::string explain_krylov() const;
+  /// One trial of the Krylov path into `obs` (a failure row when Lanczos does not converge).
+  void observe_krylov_trial(observe::Observations& obs, std::uint64_t seed,
+                            std::uint64_t trial) const;
 };
 
 /// Records an outcome into observations (a failed one as a failure row).

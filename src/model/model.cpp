@@ -9,6 +9,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
+#include "freegap/rng.hpp"
 #include "freegap/tridiagonal.hpp"
 
 namespace freegap::model {
@@ -260,16 +261,48 @@ namespace {
 // Wishart samples (1.07 s complex at N = 2000, c = 1, scaling as 1/c) and the evaluation's flops
 // at 50 GFlop/s. A Haar matrix drawn by r of its columns (`columns`, −1: whole) costs r/N of
 // a whole one (a thin QR).
-double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
-                           const std::vector<Index>& columns, Index n, double flops) {
+// Seconds to draw one used matrix's Gaussian entries: a Wigner matrix's N² (complex) or N²/2
+// (real) normals, the same coefficients as the N² term of the dense prediction; a diagonal none.
+double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
   using ensembles::Kind;
-  const double cube = std::pow(static_cast<double>(n), 3);
-  double s = 2e-11 * flops;
+  if (m.kind == Kind::diagonal) return 0.0;
+  const bool real = m.kind == Kind::goe || m.kind == Kind::wishart_real ||
+                    m.kind == Kind::ginibre_real || m.kind == Kind::haar_orthogonal;
+  return (real ? 3.8e-8 : 6.5e-8) * nn * nn;
+}
+
+// The dense path's seconds beyond one Wigner matrix's sampling and the eigenvalue step: every
+// further used matrix's Gaussian entries, the Haar and Wishart factorisations, and the
+// evaluation: its flops at 50 GFlop/s plus 8e-8·N² per N×N product (measured 2026-12-05 for
+// X1 X2 + X2 X1: the product ran at 16, 25, 34, 42 GFlop/s at N = 250, 500, 1000, 2000).
+double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
+                           const std::vector<Index>& columns, Index n,
+                           const expr::Evaluation* plan) {
+  using ensembles::Kind;
+  const double nn = static_cast<double>(n);
+  const double cube = nn * nn * nn;
+  double s = 0.0;
+  if (plan != nullptr) {
+    s += 2e-11 * plan->flops();
+    for (const auto& step : plan->steps()) {
+      if (step.kind == expr::StepKind::gemm || step.kind == expr::StepKind::herk ||
+          step.kind == expr::StepKind::conjugate) {
+        s += 8e-8 * nn * nn;
+      }
+    }
+  }
+  bool first_wigner = true;
   for (std::size_t i = 0; i < model.matrices.size(); ++i) {
     const auto& m = model.matrices[i];
     if (!used[i]) continue;
+    const bool wigner = m.kind == Kind::gue || m.kind == Kind::goe;
+    if (wigner && first_wigner) {
+      first_wigner = false;  // counted by the dense prediction itself
+    } else if (wigner) {
+      s += gaussian_seconds(m, nn);
+    }
     const double share = i < columns.size() && columns[i] >= 0
-                             ? static_cast<double>(columns[i]) / static_cast<double>(n)
+                             ? static_cast<double>(columns[i]) / nn
                              : 1.0;
     const double polar = (m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0) * share;
     if (m.kind == Kind::haar_unitary) s += 3.4e-10 * cube * polar;
@@ -280,6 +313,37 @@ double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
   return s;
 }
 
+// Seconds to sample the used matrices whole (for the Krylov path's prediction): every matrix's
+// Gaussian entries, plus the Haar and Wishart factorisations.
+double sample_seconds(const Model& model, const std::vector<bool>& used, Index n) {
+  const double nn = static_cast<double>(n);
+  double s = 0.0;
+  for (std::size_t i = 0; i < model.matrices.size(); ++i) {
+    if (!used[i]) continue;
+    const auto& m = model.matrices[i];
+    const bool haar = m.kind == ensembles::Kind::haar_unitary ||
+                      m.kind == ensembles::Kind::haar_orthogonal;
+    if (!haar) s += gaussian_seconds(m, nn);  // a Haar matrix's coefficient below includes them
+    const double cube = nn * nn * nn;
+    const double polar = m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0;
+    if (m.kind == ensembles::Kind::haar_unitary) s += 3.4e-10 * cube * polar;
+    if (m.kind == ensembles::Kind::haar_orthogonal) s += 1.1e-10 * cube * polar;
+    if (m.kind == ensembles::Kind::wishart_complex) s += 1.3e-10 * cube / m.ratio;
+    if (m.kind == ensembles::Kind::wishart_real) s += 0.46e-10 * cube / m.ratio;
+  }
+  return s;
+}
+
+std::string expr_bytes_text(double bytes) {
+  char out[32];
+  if (bytes >= 1024.0 * 1024.0 * 1024.0) {
+    std::snprintf(out, sizeof out, "%.1f GiB", bytes / (1024.0 * 1024.0 * 1024.0));
+  } else {
+    std::snprintf(out, sizeof out, "%.1f MiB", bytes / (1024.0 * 1024.0));
+  }
+  return out;
+}
+
 std::string seconds_text(double s) {
   char out[32];
   std::snprintf(out, sizeof out, "%.3g s", s);
@@ -288,54 +352,123 @@ std::string seconds_text(double s) {
 
 }  // namespace
 
+namespace {
+
+// The message of a forced path that does not apply.
+[[noreturn]] void refuse_forced(const char* forced, const std::string& why) {
+  throw InputError(std::string("path = \"") + forced + "\" does not apply to this model: " + why +
+                   "; remove path or set it to \"auto\" or \"dense\"");
+}
+
+}  // namespace
+
 void SizeRunner::choose_path(const Model& model, std::optional<tridiagonal::ModelSpec> tri,
                              double scale, double shift,
                              std::optional<tridiagonal::TwoProjectionSpec> two) {
-  const char* forced = model.path == PathRequest::tridiagonal      ? "tridiagonal"
-                       : model.path == PathRequest::two_projection ? "two_projection"
-                                                                   : nullptr;
-  if (forced && !(model.path == PathRequest::tridiagonal ? tri.has_value() : two.has_value())) {
-    throw InputError(std::string("path = \"") + forced + "\" does not apply to this model: " +
-                     (model.path == PathRequest::tridiagonal
-                          ? "the tridiagonal path computes a·X + b of one GUE, GOE, Wishart or "
-                            "β-ensemble matrix, with eigenvalues observed"
-                          : "the two_projection path computes a·B + b·U B U^* (+ c) of a "
-                            "two-valued diagonal B and a Haar U, with eigenvalues observed") +
-                     "; remove path or set it to \"auto\" or \"dense\"");
+  const PathRequest want = model.force_dense ? PathRequest::dense : model.path;
+  std::string krylov_why;
+  const bool krylov = (want == PathRequest::automatic || want == PathRequest::krylov) &&
+                      krylov_applies(model, krylov_why);
+  if (want == PathRequest::tridiagonal && !tri) {
+    refuse_forced("tridiagonal",
+                  "the tridiagonal path computes a·X + b of one GUE, GOE, Wishart or β-ensemble "
+                  "matrix, with eigenvalues observed");
   }
-  if (model.force_dense || model.path == PathRequest::dense) {
+  if (want == PathRequest::two_projection && !two) {
+    refuse_forced("two_projection",
+                  "the two_projection path computes a·B + b·U B U^* (+ c) of a two-valued "
+                  "diagonal B and a Haar U, with eigenvalues observed");
+  }
+  if (want == PathRequest::krylov && !krylov) refuse_forced("krylov", krylov_why);
+  Path chosen = Path::dense;
+  if (want != PathRequest::automatic) {
     path_choice_ = "forced by the job";
-    return;
-  }
-  const Path fast = two ? Path::two_projection : Path::tridiagonal;
-  if (!two && !tri) {
-    path_choice_ = "the only path that applies";
-    return;
-  }
-  if (forced) {
-    path_choice_ = "forced by the job";
+    chosen = want == PathRequest::tridiagonal      ? Path::tridiagonal
+             : want == PathRequest::two_projection ? Path::two_projection
+             : want == PathRequest::krylov         ? Path::krylov
+                                                   : Path::dense;
   } else {
-    // A matrix with only a tridiagonal model has no dense sampler: no choice to make.
-    const bool has_dense = std::all_of(model.matrices.begin(), model.matrices.end(),
-                                       [](auto& m) { return has_dense_sampler(m.kind); });
-    const double linear = predicted_trial_seconds(fast, n_, model, false, 0.0);
-    const double full = predicted_trial_seconds(Path::dense, n_, model, !expression_.is_real(),
-                                                dense_extra_seconds(model, used_, haar_columns_, n_,
-                                                                    evaluation_.flops()));
-    predicted_ = "predicted CPU per trial: " + std::string(path_name(fast)) + " " +
-                 seconds_text(linear) + ", dense " + seconds_text(full);
-    path_choice_ = has_dense ? "the cheaper of the two that apply, by predicted cost per trial"
-                             : "the only path that applies (no dense sampler)";
-    if (has_dense && full < linear) return;
+    chosen = cheapest_path(model, tri.has_value() || two.has_value(), two.has_value(), krylov);
   }
-  if (two) {
+  if (chosen == Path::two_projection) {
     tridiagonal::validate(*two, n_);
     two_ = two;
-  } else {
+  } else if (chosen == Path::tridiagonal) {
     tri_ = tri;
     tri_scale_ = scale;
     tri_shift_ = shift;
+  } else if (chosen == Path::krylov) {
+    krylov_.emplace(expression_, n_);
+    krylov_settings_ = {model.krylov_tolerance, model.krylov_max_steps};
+    // Products need every column of a Haar U; run() and spectrum_of() then use a plan for
+    // whole samples too.
+    haar_columns_.assign(haar_columns_.size(), -1);
+    evaluation_ = expr::Evaluation(expression_, n_, expr::EvaluationOptions{.full_haar = true});
   }
+}
+
+Path SizeRunner::cheapest_path(const Model& model, bool linear, bool two, bool krylov) {
+  // A matrix with only a tridiagonal model has no dense sampler.
+  const bool has_dense = std::all_of(model.matrices.begin(), model.matrices.end(),
+                                     [](auto& m) { return has_dense_sampler(m.kind); });
+  std::vector<std::pair<Path, double>> options;  // listed O(N) path, dense, Krylov
+  if (linear) {
+    const Path fast = two ? Path::two_projection : Path::tridiagonal;
+    options.emplace_back(fast, predicted_trial_seconds(fast, n_, model, false, 0.0));
+  }
+  if (has_dense) {
+    options.emplace_back(Path::dense,
+                         predicted_trial_seconds(Path::dense, n_, model, !expression_.is_real(),
+                                                 dense_extra_seconds(model, used_, haar_columns_,
+                                                                     n_, &evaluation_)));
+  }
+  if (krylov) {
+    const expr::VectorProduct product(expression_, n_);
+    options.emplace_back(Path::krylov,
+                         predicted_krylov_seconds(n_, product.bytes_read(),
+                                                  sample_seconds(model, used_, n_)));
+  }
+  if (options.size() == 1) {
+    path_choice_ = has_dense ? "the only path that applies"
+                             : "the only path that applies (no dense sampler)";
+    return options.front().first;
+  }
+  predicted_ = "predicted CPU per trial:";
+  for (const auto& [path, seconds] : options) {
+    predicted_ += std::string(" ") + path_name(path) + " " + seconds_text(seconds) + ",";
+  }
+  predicted_.pop_back();
+  path_choice_ = options.size() == 2 ? "the cheaper of the two that apply, by predicted cost per trial"
+                                     : "the cheapest of those that apply, by predicted cost per trial";
+  return std::min_element(options.begin(), options.end(),
+                          [](auto& a, auto& b) { return a.second < b.second; })
+      ->first;
+}
+
+bool SizeRunner::krylov_applies(const Model& model, std::string& why) const {
+  why = "the krylov path finds only the smallest and largest eigenvalue of a self-adjoint "
+        "expression, so it needs observe.extremes_only = true, eigenvalues observed and dense "
+        "samples of every matrix";
+  if (!model.extremes_only || expression_.spectrum() != expr::Spectrum::eigenvalues) return false;
+  for (std::size_t i = 0; i < samplers_.size(); ++i) {
+    if (used_[i] && !has_dense_sampler(samplers_[i].spec().kind)) return false;
+  }
+  why.clear();
+  return true;
+}
+
+double predicted_krylov_seconds(Index n, double bytes_per_product, double sample_seconds) {
+  // Lanczos steps to a relative error estimate of 1e-12 at square-root edges grow like N^(1/3)
+  // (the relative gap at the edge shrinks like N^(-2/3)): 27, 34, 51, 60, 80, 96, 121 steps at
+  // N = 60, 100, 250, 500, 1000, 2000, 4000 for X1 X2 + X2 X1 (measured 2026-12-05), about
+  // 7.5·N^(1/3). Each step reads the samples once at memory speed (10.4–11 GB/s measured for
+  // the products from N = 500 on), the basis twice (reorthogonalisation), and spends about
+  // 20 µs on the tridiagonal eigenproblems and bookkeeping.
+  const double nn = static_cast<double>(n);
+  const double steps = std::min(nn, 7.5 * std::cbrt(nn));
+  const double bandwidth = 1.05e10;
+  return sample_seconds + steps * (bytes_per_product / bandwidth + 2e-5) +
+         16.0 * nn * steps * steps / bandwidth;
 }
 
 double predicted_trial_seconds(Path path, Index n, const Model& model, bool complex_dense,
@@ -361,7 +494,7 @@ std::string SizeRunner::sampler_changes() const {
   // One entry per used matrix whose sampler draws differently from format 1.3's (the paths
   // themselves are recorded apart, as /metadata path). Only the dense path samples matrices.
   std::string out;
-  if (path() != Path::dense) return out;
+  if (path() != Path::dense && path() != Path::krylov) return out;
   for (std::size_t i = 0; i < samplers_.size(); ++i) {
     if (!used_[i]) continue;
     const auto& spec = samplers_[i].spec();
@@ -387,6 +520,7 @@ const char* path_name(Path path) {
   switch (path) {
     case Path::tridiagonal: return "tridiagonal";
     case Path::two_projection: return "two_projection";
+    case Path::krylov: return "krylov";
     case Path::dense: break;
   }
   return "dense";
@@ -429,9 +563,30 @@ std::string explain_two_projection(const expr::Expression& e, Index n,
 
 }  // namespace
 
+std::string SizeRunner::explain_krylov() const {
+  const double n = static_cast<double>(n_);
+  const double steps = std::min<double>(krylov_settings_.max_iterations, n);
+  const double basis = (krylov_->is_real() ? 8.0 : 16.0) * n * (steps + 1);
+  char buf[900];
+  std::snprintf(buf, sizeof buf,
+                "expression: %s\nsize: N = %lld\narithmetic: %s\npath: krylov (Lanczos with full "
+                "reorthogonalisation on products of the expression with vectors, one BLAS "
+                "matrix-vector product per factor, %s read per product; the matrix is never "
+                "formed)\nobservations: smallest and largest eigenvalue and the norm, to a relative "
+                "error estimate of %g (Kato-Temple, r^2/gap) within %d steps, each trial's residuals "
+                "stored as its certificate; a trial that does not converge is recorded as failed\n"
+                "memory: the samples plus a Lanczos basis of at most %s\n",
+                expression_.text().c_str(), static_cast<long long>(n_),
+                krylov_->is_real() ? "real" : "complex",
+                expr_bytes_text(krylov_->bytes_read()).c_str(), krylov_settings_.tolerance,
+                krylov_settings_.max_iterations, expr_bytes_text(basis).c_str());
+  return buf;
+}
+
 std::string SizeRunner::explain() const {
   const std::string predicted = predicted_.empty() ? "" : predicted_ + "\n";
   if (two_) return explain_two_projection(expression_, n_, *two_) + predicted;
+  if (krylov_) return explain_krylov() + predicted;
   if (!tri_) return evaluation_.explain() + predicted;
   char buf[512];
   std::snprintf(buf, sizeof buf,
@@ -452,6 +607,10 @@ std::string SizeRunner::explain() const {
 
 void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
                                std::uint64_t trial) const {
+  if (krylov_) {
+    observe_krylov_trial(obs, seed, trial);
+    return;
+  }
   if (!tri_ && !two_) {
     record(obs, run(seed, trial));
     return;
@@ -477,6 +636,42 @@ void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
       obs.trials.begin(), obs.trials.end(), trial,
       [](const observe::TrialRecord& r, std::uint64_t t) { return r.trial < t; });
   obs.trials.insert(at, std::move(row));
+}
+
+void SizeRunner::observe_krylov_trial(observe::Observations& obs, std::uint64_t seed,
+                                      std::uint64_t trial) const {
+  const std::vector<ensembles::Sample> samples = draw(seed, trial);
+  // The start vector: a stream of its own, keyed like a matrix no job can declare (a name with a
+  // space), so it never shares random numbers with a sample.
+  rng::Stream stream({seed, "krylov start", static_cast<std::uint64_t>(n_), trial});
+  linalg::LanczosResult r;
+  if (krylov_->is_real()) {
+    Eigen::VectorXd start(n_);
+    stream.fill_normal({start.data(), static_cast<std::size_t>(n_)});
+    const linalg::RealApply apply = [&](const double* in, double* out) {
+      krylov_->apply(samples, in, out);
+    };
+    r = linalg::lanczos_extremes(n_, apply, std::move(start), krylov_settings_);
+  } else {
+    Eigen::VectorXcd start(n_);
+    stream.fill_complex_normal({start.data(), static_cast<std::size_t>(n_)});
+    const linalg::ComplexApply apply = [&](const std::complex<double>* in,
+                                           std::complex<double>* out) {
+      krylov_->apply(samples, in, out);
+    };
+    r = linalg::lanczos_extremes(n_, apply, std::move(start), krylov_settings_);
+  }
+  if (r.converged) {
+    const double extremes[2] = {r.min, r.max};
+    observe::record_trial(obs, trial, extremes);
+  } else {
+    observe::record_failure(obs, trial, r.reason);
+  }
+  auto row = std::lower_bound(
+      obs.trials.begin(), obs.trials.end(), trial,
+      [](const observe::TrialRecord& x, std::uint64_t t) { return x.trial < t; });
+  row->certificate = {static_cast<double>(r.iterations), r.residual_min, r.residual_max,
+                      r.estimate_min, r.estimate_max};
 }
 
 std::pair<double, double> SizeRunner::pilot_range(std::uint64_t seed, std::uint64_t trial) const {

@@ -601,9 +601,14 @@ std::vector<std::int64_t> size_ladder(bool tri, std::int64_t largest) {
 // The observation settings a size is timed with.
 observe::ObserveConfig timing_config(const job::Job& job, const model::SizeRunner& runner) {
   observe::ObserveConfig config;
+  config.kind = runner.spectrum_kind();
+  if (job.observe.extremes_only) {
+    config.extremes_only = true;
+    config.max_moment = 0;
+    return config;
+  }
   config.bin_edges = observe::uniform_edges(-10.0, 10.0, job.observe.bins);
   config.max_moment = job.observe.max_moment;
-  config.kind = runner.spectrum_kind();
   // Timed as they will run: a kept spectrum changes the tridiagonal path's work (every
   // eigenvalue instead of counts per bin).
   if (job.observe.keep_spectra > 0) {
@@ -673,10 +678,15 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   openblas_set_num_threads(std::max(1, threads));
   const std::int64_t largest = job.sizes.back();
   // Both O(N) paths (tridiagonal, two_projection) observe a tridiagonal matrix: one a·N + c.
-  const bool tri = study::runner_at(job, largest).path() != model::Path::dense;
+  // The Krylov path is timed whole too (smaller sizes of the ladder may run dense): a·N³ + b·N²
+  // + c, its N² products times the slowly growing number of steps landing on the N² term.
+  const model::Path path = study::runner_at(job, largest).path();
+  const bool krylov = path == model::Path::krylov;
+  const bool tri = path != model::Path::dense && !krylov;
   // A kept spectrum makes a tridiagonal trial compute every eigenvalue (O(N²)).
   const bool tri_spectra = tri && job.observe.keep_spectra > 0;
-  std::vector<CostTerm> terms = trial_parts(tri, tri_spectra);
+  std::vector<CostTerm> terms =
+      krylov ? std::vector<CostTerm>{{"trial", {3, 2, 0}, {}, {}}} : trial_parts(tri, tri_spectra);
   const double growth = tri ? (tri_spectra ? 2.0 : 1.0) : 3.0;
   const std::vector<std::int64_t> ladder = size_ladder(tri, largest);
 
@@ -699,7 +709,7 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
     const auto runner = study::runner_at(job, n);
     const observe::ObserveConfig config = timing_config(job, runner);
     std::uint64_t trial = kTimingTrialBase;
-    const auto times = time_trials(runner, config, job.seed, tri, terms.size(), trial);
+    const auto times = time_trials(runner, config, job.seed, tri || krylov, terms.size(), trial);
     sizes.push_back(n);
     trial_bytes.push_back(trial_peak_bytes(runner, config, job.seed, trial++));
     // The parts of the fastest timed trial: its time on an unshared core. Other processes on the
@@ -747,10 +757,12 @@ std::size_t output_bytes(const job::Job& job, std::size_t i) {
   const double b = static_cast<double>(job.trials_per_unit);
   const double units = std::ceil(t / b);
   const double k = job.observe.max_moment + 1;
-  const double bins = static_cast<double>(job.observe.bins);
+  // extremes_only: no histogram, and a certificate row of 5 doubles per trial (format 1.5).
+  const bool extremes = job.observe.extremes_only;
+  const double bins = extremes ? 0.0 : static_cast<double>(job.observe.bins);
   const double kept = static_cast<double>(std::min(job.observe.keep_spectra, job.trials[i]));
   const double n = static_cast<double>(job.sizes[i]);
-  const double bytes = t * (8.0 * k + 3 * 8.0 + 1.0 + 16.0) +
+  const double bytes = t * (8.0 * k + 3 * 8.0 + 1.0 + 16.0 + (extremes ? 40.0 : 0.0)) +
                        units * (8.0 * bins + 8.0 * 2 + 1.0 + 120.0) + kept * (8.0 * n + 8.0) +
                        8.0 * (bins + 1) + (10.0 * units + kept) * 100.0 +
                        4096.0;  // the size's group, attributes and bin edges
@@ -897,6 +909,11 @@ std::vector<double> forecast_sizes(Forecast& e, const study::Study& st, const Op
 
 // Which spectra the run file keeps, their size, and what they are used for (e.kept_spectra).
 void describe_kept_spectra(Forecast& e, const job::Job& job) {
+  if (job.observe.extremes_only) {
+    e.kept_spectra = "none (observe.extremes_only: only the extremes and the norm are observed, so "
+                     "the report gives no distances of the spectrum)";
+    return;
+  }
   double spectra = 0.0, largest = 0.0;
   bool every = true;
   for (std::size_t i = 0; i < job.sizes.size(); ++i) {

@@ -21,9 +21,11 @@ model::Model model_of(const job::Job& job) {
   m.path = job.run_path == "dense"            ? model::PathRequest::dense
            : job.run_path == "tridiagonal"    ? model::PathRequest::tridiagonal
            : job.run_path == "two_projection" ? model::PathRequest::two_projection
-                                          : model::PathRequest::automatic;
+           : job.run_path == "krylov"         ? model::PathRequest::krylov
+                                              : model::PathRequest::automatic;
+  m.extremes_only = job.observe.extremes_only;
   // What a trial observes, for the predicted costs of the paths (model::predicted_trial_seconds).
-  m.bins = job.observe.bins;
+  m.bins = job.observe.extremes_only ? 0 : job.observe.bins;
   m.max_moment = job.observe.max_moment;
   std::int64_t fewest = 0;
   for (const auto t : job.trials) fewest = fewest == 0 ? t : std::min(fewest, t);
@@ -51,8 +53,11 @@ model::SizeRunner runner_at(const job::Job& job, std::int64_t n) {
     return model::SizeRunner(model_of(job), n);
   } catch (const InputError& e) {
     // Expression errors and the model's refusals (a tridiagonal-only matrix in a product, ...);
-    // the matrices themselves were validated with the job.
-    throw InputError(job.where("expression") + e.what());
+    // the matrices themselves were validated with the job. A forced path that does not apply
+    // is the [run] path key's fault, so that is the place named.
+    const bool forced_path = std::string(e.what()).rfind("path = \"", 0) == 0 &&
+                             job.run_path != "auto";
+    throw InputError(job.where(forced_path ? "run.path" : "expression") + e.what());
   }
 }
 
@@ -66,6 +71,14 @@ std::vector<model::SizeRunner> runners(const job::Job& job) {
 
 std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const auto n = static_cast<double>(runner.size());
+  if (runner.path() == model::Path::krylov) {
+    // The whole samples (the plan's inputs), a sampler's transient, and the Lanczos basis of at
+    // most krylov_max_steps + 1 vectors (SizeRunner::explain states it), plus 64 MiB.
+    const double steps = std::min(n, 1001.0);
+    const double basis = (runner.expression().is_real() ? 8.0 : 16.0) * n * steps;
+    return static_cast<std::size_t>(static_cast<double>(runner.evaluation().input_bytes()) +
+                                    3.0 * 16.0 * n * n + basis + 64.0 * 1024 * 1024);
+  }
   if (runner.path() != model::Path::dense) {
     // Tridiagonal and two_projection paths alike (the latter's corner, 4 vectors of N/2 at
     // most, is freed before the tridiagonal matrix's Sturm work starts). Diagonal, off-diagonal, their squares and the Sturm work rows: under 48 bytes per row
@@ -208,7 +221,7 @@ std::string dense_path_reason(const job::Job& job, const model::SizeRunner& runn
            automatic;
   }
   const std::string& choice = runner.path_choice();
-  if (choice.rfind("the cheaper", 0) == 0) return "dense: " + choice;
+  if (choice.rfind("the cheape", 0) == 0) return "dense: " + choice;  // cheaper or cheapest
   return "dense: the tridiagonal path applies only to a·X + b of one GUE, GOE, Wishart or "
          "β-ensemble matrix, and the two_projection path only to a·B + b·U B U^* (+ c) of a "
          "two-valued diagonal B and a Haar U, with eigenvalues observed";
@@ -224,6 +237,11 @@ std::string Study::path_reason(std::size_t i) const {
            "values and a Haar U, and its eigenvalues are observed, so a trial samples the corner "
            "of U from the beta-Jacobi model (Edelman & Sutton 2008) in O(N) memory and no dense "
            "matrix; " + choice;
+  }
+  if (runner.path() == model::Path::krylov) {
+    return "krylov: only the extremes and the norm are observed (observe.extremes_only) of a "
+           "self-adjoint expression, so a trial runs Lanczos on products of the expression with "
+           "vectors and never forms the matrix; " + choice;
   }
   if (runner.path() == model::Path::tridiagonal) {
     return "tridiagonal: the expression is a·X + b of one matrix with an exact tridiagonal model "

@@ -1,8 +1,8 @@
 // Is the path the runner chooses the fastest of those that apply? For every example job in jobs/
 // and every size of its ladder up to N = 2000 (the dense path is O(N³); the larger sizes of the
 // large-N example leave no choice), one trial's CPU time on each path that applies — dense and,
-// where one applies, the O(N) path — against the path `path = "auto"` picks
-// (model::predicted_trial_seconds, docs/performance.md §5b). Prints a table; asserts nothing.
+// where they apply, the O(N) path and the Krylov path — against the path `path = "auto"` picks
+// (model::predicted_trial_seconds, predicted_krylov_seconds; docs/performance.md §5b, §5c). Prints a table; asserts nothing.
 //
 //   OPENBLAS_NUM_THREADS=1 build/tests/benchmarks/bench_path_choice [JOB.toml ...]
 #include <algorithm>
@@ -30,11 +30,16 @@ double cpu_seconds() {
 // CPU seconds of one trial: the mean over at least 3 trials and 0.3 s.
 double trial_seconds(const model::SizeRunner& runner, const job::Job& job) {
   observe::ObserveConfig c;
-  const auto [lo, hi] = runner.pilot_range(job.seed, 0);
-  c.bin_edges = observe::uniform_edges(lo - 0.1 * (hi - lo) - 1e-9, hi + 0.1 * (hi - lo) + 1e-9,
-                                       job.observe.bins);
-  c.max_moment = job.observe.max_moment;
   c.kind = runner.spectrum_kind();
+  if (job.observe.extremes_only) {
+    c.extremes_only = true;
+    c.max_moment = 0;
+  } else {
+    const auto [lo, hi] = runner.pilot_range(job.seed, 0);
+    c.bin_edges = observe::uniform_edges(lo - 0.1 * (hi - lo) - 1e-9,
+                                         hi + 0.1 * (hi - lo) + 1e-9, job.observe.bins);
+    c.max_moment = job.observe.max_moment;
+  }
   auto obs = observe::start_observations(c);
   runner.observe_trial(obs, job.seed, 1);  // untimed: first touch
   std::uint64_t trial = 2;
@@ -53,11 +58,14 @@ void compare(const std::string& path) {
     const model::SizeRunner chosen(m, n);
     std::vector<std::pair<model::Path, double>> times;
     for (const auto request : {model::PathRequest::dense, model::PathRequest::tridiagonal,
-                               model::PathRequest::two_projection}) {
+                               model::PathRequest::two_projection, model::PathRequest::krylov}) {
       m.path = request;
       try {
         const model::SizeRunner r(m, n);
-        times.emplace_back(r.path(), trial_seconds(r, job));
+        // A job with estimators runs dense whatever it asks for: time each path once.
+        const bool timed = std::any_of(times.begin(), times.end(),
+                                       [&](const auto& t) { return t.first == r.path(); });
+        if (!timed) times.emplace_back(r.path(), trial_seconds(r, job));
       } catch (const InputError&) {
         // this path does not apply to the job
       }

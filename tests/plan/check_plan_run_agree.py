@@ -70,7 +70,7 @@ def explain(exe, job, d):
     for block in r.stdout.split("\nexpression:")[0:]:
         if "size: N =" not in block:
             continue
-        m = re.search(r"^path: (tridiagonal|two_projection)\b", block, re.M)
+        m = re.search(r"^path: (tridiagonal|two_projection|krylov)\b", block, re.M)
         paths.add(m.group(1) if m else "dense")
         m = re.search(r"^trials: (\d+) in units of (\d+)", block, re.M)
         if m:

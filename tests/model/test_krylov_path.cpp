@@ -1,0 +1,192 @@
+// The Krylov path (model::Path::krylov): products of an expression with vectors equal the formed
+// matrix's, the extremes it finds equal LAPACK's on the same sampled matrices, a trial that does
+// not converge becomes a failure row with its reason, and the path is chosen, forced and refused
+// as documented.
+//
+// Tolerance of the extremes (as in tests/linalg/test_lanczos.cpp): the stopping rule accepts an
+// error estimate up to 10·tol·scale (tol = 1e-12 by default); LAPACK's eigenvalues are within
+// about N·eps·‖P‖ (backward stable; common practice). So |θ − λ| ≤ 10·tol·scale + N·eps·scale.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <complex>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "freegap/errors.hpp"
+#include "freegap/expr.hpp"
+#include "freegap/model.hpp"
+#include "freegap/observe.hpp"
+#include "freegap/rng.hpp"
+
+namespace {
+
+using namespace freegap;
+using model::parse_declaration;
+using Complex = std::complex<double>;
+
+constexpr std::uint64_t kSeed = 20261205;
+constexpr double kEps = std::numeric_limits<double>::epsilon();
+
+model::Model make(const std::vector<std::string>& declarations, const std::string& expression) {
+  model::Model m;
+  for (const auto& d : declarations) m.matrices.push_back(parse_declaration(d));
+  m.expression = expression;
+  m.extremes_only = true;
+  m.bins = 0;
+  m.max_moment = 0;
+  return m;
+}
+
+observe::ObserveConfig extremes_config(const model::SizeRunner& runner) {
+  observe::ObserveConfig c;
+  c.extremes_only = true;
+  c.max_moment = 0;
+  c.kind = runner.spectrum_kind();
+  return c;
+}
+
+// P·v from the formed matrix (full result, whole Haar samples) against VectorProduct::apply.
+void expect_product_matches(const std::vector<std::string>& declarations,
+                            const std::string& expression, Eigen::Index n) {
+  model::Model m = make(declarations, expression);
+  m.full_haar = true;
+  const model::SizeRunner runner(m, n);
+  const auto samples = runner.draw(kSeed, 3);
+  const expr::Evaluation full(runner.expression(), n,
+                              expr::EvaluationOptions{.full_result = true, .full_haar = true});
+  expr::Evaluated p = full.evaluate(samples);
+  const expr::VectorProduct product(runner.expression(), n);
+  rng::Stream s({1, "v", static_cast<std::uint64_t>(n), 0});
+  Eigen::VectorXcd v(n), y(n);
+  s.fill_complex_normal({v.data(), static_cast<std::size_t>(n)});
+  product.apply(samples, v.data(), y.data());
+  const Eigen::VectorXcd want = p.is_complex ? Eigen::VectorXcd(p.complex * v)
+                                             : Eigen::VectorXcd(p.real.cast<Complex>() * v);
+  EXPECT_LE((y - want).norm(), 1e-12 * (1.0 + want.norm())) << expression;
+  if (product.is_real()) {
+    Eigen::VectorXd vr = v.real(), yr(n);
+    product.apply(samples, vr.data(), yr.data());
+    EXPECT_LE((yr - p.real * vr).norm(), 1e-12 * (1.0 + yr.norm())) << expression;
+  }
+}
+
+TEST(VectorProduct, EqualsTheFormedMatrixTimesTheVector) {
+  const std::vector<std::string> d = {"X1=gue", "X2=gue", "B=diagonal:atoms=1@0.5,-1@0.5",
+                                      "U=haar_unitary", "O=haar_orthogonal", "W=wishart_real:ratio=0.5",
+                                      "Y=goe", "G=ginibre_complex:ratio=0.5",
+                                      "D=diagonal:law=uniform:low=0:high=2"};
+  for (const char* e : {"X1 X2 + X2 X1", "B + U B U^*", "U^* D U - 2 B", "1/2 (X1 - 2) X1^3",
+                        "Y^2 + W", "W + X1", "G G^*", "(X1 U)^* (X1 U)", "O B O^* + Y",
+                        "U + U^* + X2^2", "X2 - 3"}) {
+    expect_product_matches(d, e, 37);
+  }
+}
+
+TEST(VectorProduct, CountsTheBytesOfEachFactorRead) {
+  const expr::Expression e("X1 X2 + X2 X1",
+                           {parse_declaration("X1=gue"), parse_declaration("X2=gue")});
+  // Four products with Hermitian N×N complex samples, each reading one triangle: 4 · 8 N².
+  EXPECT_DOUBLE_EQ(expr::VectorProduct(e, 100).bytes_read(), 4 * 8.0 * 100 * 100);
+}
+
+// 100 trials each of three models: a complex product of GUE, a Haar-rotated two-valued diagonal,
+// and a real model (GOE squared plus a real Wishart matrix) in real arithmetic.
+TEST(KrylovPath, ExtremesEqualLapackOnTheSameMatricesForHundredTrials) {
+  const struct {
+    std::vector<std::string> d;
+    const char* e;
+  } models[] = {{{"X1=gue", "X2=gue"}, "X1 X2 + X2 X1"},
+                {{"B=diagonal:atoms=1@0.3,-1@0.7", "U=haar_unitary"}, "B + U B U^*"},
+                {{"Y=goe", "W=wishart_real:ratio=0.5"}, "Y^2 + W"}};
+  const Eigen::Index n = 120;
+  for (const auto& mdl : models) {
+    model::Model m = make(mdl.d, mdl.e);
+    m.path = model::PathRequest::krylov;
+    const model::SizeRunner runner(m, n);
+    ASSERT_EQ(runner.path(), model::Path::krylov);
+    auto obs = observe::start_observations(extremes_config(runner));
+    for (std::uint64_t t = 0; t < 100; ++t) {
+      runner.observe_trial(obs, kSeed, t);
+      const auto& row = obs.trials.back();
+      ASSERT_FALSE(row.failed) << mdl.e << " trial " << t << ": " << row.reason;
+      const model::TrialOutcome lapack = runner.run(kSeed, t);  // the same samples, formed
+      ASSERT_FALSE(lapack.failed);
+      const double lo = lapack.spectrum.minCoeff(), hi = lapack.spectrum.maxCoeff();
+      const double scale = std::max(std::abs(lo), std::abs(hi));
+      const double allowed = 10 * m.krylov_tolerance * scale + n * kEps * scale;
+      EXPECT_LE(std::abs(row.min - lo), allowed) << mdl.e << " trial " << t;
+      EXPECT_LE(std::abs(row.max - hi), allowed) << mdl.e << " trial " << t;
+      EXPECT_EQ(row.norm, std::max(std::abs(row.min), std::abs(row.max)));
+      EXPECT_GE(row.certificate.iterations, 1.0);
+      EXPECT_LE(std::abs(row.max - hi), row.certificate.residual_max + n * kEps * scale);
+      EXPECT_LE(row.certificate.estimate_min, 10 * m.krylov_tolerance * scale);
+    }
+  }
+}
+
+TEST(KrylovPath, TrialsAreReproducibleBitForBit) {
+  model::Model m = make({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1");
+  m.path = model::PathRequest::krylov;
+  const model::SizeRunner a(m, 80), b(m, 80);
+  auto oa = observe::start_observations(extremes_config(a));
+  auto ob = observe::start_observations(extremes_config(b));
+  for (std::uint64_t t : {0u, 1u, 2u}) a.observe_trial(oa, kSeed, t);
+  for (std::uint64_t t : {2u, 0u, 1u}) b.observe_trial(ob, kSeed, t);
+  for (std::size_t i = 0; i < 3; ++i) {
+    EXPECT_EQ(oa.trials[i].min, ob.trials[i].min);
+    EXPECT_EQ(oa.trials[i].max, ob.trials[i].max);
+    EXPECT_EQ(oa.trials[i].certificate.residual_max, ob.trials[i].certificate.residual_max);
+  }
+}
+
+TEST(KrylovPath, TrialThatDoesNotConvergeIsAFailureWithItsReason) {
+  model::Model m = make({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1");
+  m.path = model::PathRequest::krylov;
+  m.krylov_max_steps = 6;
+  const model::SizeRunner runner(m, 100);
+  auto obs = observe::start_observations(extremes_config(runner));
+  runner.observe_trial(obs, kSeed, 0);
+  ASSERT_EQ(obs.trials.size(), 1u);
+  const auto& row = obs.trials.front();
+  EXPECT_TRUE(row.failed);
+  EXPECT_EQ(row.reason.rfind("Lanczos did not converge in 6 steps (error estimates ", 0), 0u)
+      << row.reason;
+  EXPECT_EQ(row.certificate.iterations, 6.0);
+  EXPECT_EQ(observe::summarize(obs).failed, 1);
+}
+
+TEST(KrylovPath, ChosenByPredictedCostAndOnlyForExtremesOfSelfAdjointExpressions) {
+  const model::Model m = make({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1");
+  // Predicted (docs/performance.md §5c): at N = 100 the dense trial is cheaper (2.5 ms against
+  // 3.2 ms); at N = 3000 about 108 Lanczos steps of 4 half-matrix products (4.2 s) beat forming
+  // and diagonalising the matrix (11.9 s).
+  EXPECT_EQ(model::SizeRunner(m, 100).path(), model::Path::dense);
+  const model::SizeRunner big(m, 3000);
+  EXPECT_EQ(big.path(), model::Path::krylov);
+  EXPECT_NE(big.explain().find("path: krylov (Lanczos"), std::string::npos) << big.explain();
+  EXPECT_NE(big.explain().find("predicted CPU per trial: dense "), std::string::npos);
+
+  model::Model all = m;
+  all.extremes_only = false;
+  EXPECT_EQ(model::SizeRunner(all, 3000).path(), model::Path::dense);
+  all.path = model::PathRequest::krylov;
+  try {
+    model::SizeRunner refused(all, 100);
+    ADD_FAILURE() << "krylov forced without extremes_only was accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(std::string(e.what()),
+              "path = \"krylov\" does not apply to this model: the krylov path finds only the "
+              "smallest and largest eigenvalue of a self-adjoint expression, so it needs "
+              "observe.extremes_only = true, eigenvalues observed and dense samples of every "
+              "matrix; remove path or set it to \"auto\" or \"dense\"");
+  }
+  model::Model singular = make({"X1=gue", "X2=gue"}, "X1 X2");
+  singular.path = model::PathRequest::krylov;
+  EXPECT_THROW(model::SizeRunner(singular, 100), InputError);
+  singular.path = model::PathRequest::automatic;
+  EXPECT_EQ(model::SizeRunner(singular, 3000).path(), model::Path::dense);
+}
+
+}  // namespace
