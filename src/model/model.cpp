@@ -256,11 +256,6 @@ std::optional<tridiagonal::ModelSpec> SizeRunner::tridiagonal_form(const Model& 
 
 namespace {
 
-// The dense path's sampling beyond a Wigner matrix's, and its evaluation: Haar samples by QR
-// (2.7 s complex, 0.85 s real at N = 2000, tests/benchmarks/RESULTS.md; ×5 by the polar factor),
-// Wishart samples (1.07 s complex at N = 2000, c = 1, scaling as 1/c) and the evaluation's flops
-// at 50 GFlop/s. A Haar matrix drawn by r of its columns (`columns`, −1: whole) costs r/N of
-// a whole one (a thin QR).
 // Seconds to draw one used matrix's Gaussian entries: a Wigner matrix's N² (complex) or N²/2
 // (real) normals, the same coefficients as the N² term of the dense prediction; a diagonal none.
 double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
@@ -271,16 +266,31 @@ double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
   return (real ? 3.8e-8 : 6.5e-8) * nn * nn;
 }
 
+// Seconds of a used matrix's factorisation when it is sampled: a Haar matrix's QR (×5 by the
+// polar factor; `share` of it for a matrix drawn by share·N columns), a Wishart matrix's product.
+double factorisation_seconds(const ensembles::MatrixSpec& m, double nn, double share) {
+  using ensembles::Kind;
+  const double cube = nn * nn * nn;
+  const double polar = (m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0) * share;
+  if (m.kind == Kind::haar_unitary) return 3.4e-10 * cube * polar;
+  if (m.kind == Kind::haar_orthogonal) return 1.1e-10 * cube * polar;
+  if (m.kind == Kind::wishart_complex) return 1.3e-10 * cube / m.ratio;
+  if (m.kind == Kind::wishart_real) return 0.46e-10 * cube / m.ratio;
+  return 0.0;
+}
+
 // The dense path's seconds beyond one Wigner matrix's sampling and the eigenvalue step: every
-// further used matrix's Gaussian entries, the Haar and Wishart factorisations, and the
-// evaluation: its flops at 50 GFlop/s plus 8e-8·N² per N×N product (measured 2026-12-05 for
-// X1 X2 + X2 X1: the product ran at 16, 25, 34, 42 GFlop/s at N = 250, 500, 1000, 2000).
+// further Wigner matrix's Gaussian entries; Haar samples by QR (2.7 s complex, 0.85 s real at
+// N = 2000, tests/benchmarks/RESULTS.md; ×5 by the polar factor), a Haar matrix drawn by r of its
+// columns (`columns`, −1: whole) costing r/N of a whole one (a thin QR); Wishart samples (1.07 s
+// complex at N = 2000, c = 1, scaling as 1/c); and the evaluation: its flops at 50 GFlop/s plus
+// 8e-8·N² per N×N product (measured 2026-12-05 for X1 X2 + X2 X1: the product ran at 16, 25, 34,
+// 42 GFlop/s at N = 250, 500, 1000, 2000).
 double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
                            const std::vector<Index>& columns, Index n,
                            const expr::Evaluation* plan) {
   using ensembles::Kind;
   const double nn = static_cast<double>(n);
-  const double cube = nn * nn * nn;
   double s = 0.0;
   if (plan != nullptr) {
     s += 2e-11 * plan->flops();
@@ -304,11 +314,7 @@ double dense_extra_seconds(const Model& model, const std::vector<bool>& used,
     const double share = i < columns.size() && columns[i] >= 0
                              ? static_cast<double>(columns[i]) / nn
                              : 1.0;
-    const double polar = (m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0) * share;
-    if (m.kind == Kind::haar_unitary) s += 3.4e-10 * cube * polar;
-    if (m.kind == Kind::haar_orthogonal) s += 1.1e-10 * cube * polar;
-    if (m.kind == Kind::wishart_complex) s += 1.3e-10 * cube / m.ratio;
-    if (m.kind == Kind::wishart_real) s += 0.46e-10 * cube / m.ratio;
+    s += factorisation_seconds(m, nn, share);
   }
   return s;
 }
@@ -323,13 +329,8 @@ double sample_seconds(const Model& model, const std::vector<bool>& used, Index n
     const auto& m = model.matrices[i];
     const bool haar = m.kind == ensembles::Kind::haar_unitary ||
                       m.kind == ensembles::Kind::haar_orthogonal;
-    if (!haar) s += gaussian_seconds(m, nn);  // a Haar matrix's coefficient below includes them
-    const double cube = nn * nn * nn;
-    const double polar = m.haar == ensembles::HaarMethod::qr ? 1.0 : 5.0;
-    if (m.kind == ensembles::Kind::haar_unitary) s += 3.4e-10 * cube * polar;
-    if (m.kind == ensembles::Kind::haar_orthogonal) s += 1.1e-10 * cube * polar;
-    if (m.kind == ensembles::Kind::wishart_complex) s += 1.3e-10 * cube / m.ratio;
-    if (m.kind == ensembles::Kind::wishart_real) s += 0.46e-10 * cube / m.ratio;
+    if (!haar) s += gaussian_seconds(m, nn);  // a Haar matrix's QR coefficient includes them
+    s += factorisation_seconds(m, nn, 1.0);
   }
   return s;
 }
