@@ -19,6 +19,7 @@
 // histogram or the statistics (docs/design.md rule 2).
 #pragma once
 
+#include <array>
 #include <cstddef>
 #include <cstdint>
 #include <limits>
@@ -113,8 +114,12 @@ struct Certificate {
   /// stopped on (the Kato–Temple bound with δ for the unknown gap of P).
   double estimate_min = std::numeric_limits<double>::quiet_NaN();
   double estimate_max = std::numeric_limits<double>::quiet_NaN();
-  /// The five numbers in this order (the run file's per-trial row).
+  /// The five numbers in this order (the run file's per-trial row, a unit message's fields).
   static constexpr int kColumns = 5;
+  std::array<double, kColumns> row() const {
+    return {iterations, residual_min, residual_max, estimate_min, estimate_max};
+  }
+  static Certificate from_row(const double* r) { return {r[0], r[1], r[2], r[3], r[4]}; }
 };
 
 /// The observations of one trial. Failed trials keep their index and reason; their moments are

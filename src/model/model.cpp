@@ -351,10 +351,6 @@ std::string seconds_text(double s) {
   return out;
 }
 
-}  // namespace
-
-namespace {
-
 // The message of a forced path that does not apply.
 [[noreturn]] void refuse_forced(const char* forced, const std::string& why) {
   throw InputError(std::string("path = \"") + forced + "\" does not apply to this model: " + why +

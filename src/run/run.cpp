@@ -182,11 +182,7 @@ std::vector<char> pack(const UnitDone& u) {
     w.put<double>(t.max);
     w.put<double>(t.norm);
     w.put_doubles(t.spectrum);
-    const auto& c = t.certificate;
-    for (const double v : {c.iterations, c.residual_min, c.residual_max, c.estimate_min,
-                           c.estimate_max}) {
-      w.put<double>(v);
-    }
+    for (const double v : t.certificate.row()) w.put<double>(v);
   }
   w.put_doubles(u.estimates);
   w.put<std::uint64_t>(u.estimate_failures.size());
@@ -218,11 +214,9 @@ UnitDone unpack(const std::vector<char>& bytes, const observe::ObserveConfig& co
     t.max = r.get<double>();
     t.norm = r.get<double>();
     t.spectrum = r.get_doubles();
-    auto& c = t.certificate;
-    for (double* v : {&c.iterations, &c.residual_min, &c.residual_max, &c.estimate_min,
-                      &c.estimate_max}) {
-      *v = r.get<double>();
-    }
+    std::array<double, observe::Certificate::kColumns> certificate{};
+    for (double& v : certificate) v = r.get<double>();
+    t.certificate = observe::Certificate::from_row(certificate.data());
   }
   u.estimates = r.get_doubles();
   const auto reasons = r.get<std::uint64_t>();

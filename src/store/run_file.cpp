@@ -557,10 +557,6 @@ std::vector<double> read_certificates(const SizeHandles& s, hsize_t b, std::size
   return out;
 }
 
-observe::Certificate certificate_of(const double* row) {
-  return {row[0], row[1], row[2], row[3], row[4]};
-}
-
 }  // namespace
 
 struct RunFile::Impl {
@@ -1846,9 +1842,8 @@ UnitBlock unit_block(const UnitResult& unit, const SizeLayout& layout, const std
   for (std::size_t i = 0; i < rows; ++i) {
     const observe::TrialRecord& row = obs.trials[i];
     if (layout.observe.extremes_only) {
-      const auto& c = row.certificate;
-      certificates.insert(certificates.end(), {c.iterations, c.residual_min, c.residual_max,
-                                               c.estimate_min, c.estimate_max});
+      const auto values = row.certificate.row();
+      certificates.insert(certificates.end(), values.begin(), values.end());
     }
     const auto trial = static_cast<std::uint64_t>(begin) + i;
     if (row.trial != trial) {
@@ -2147,7 +2142,9 @@ void read_trial_rows(const SizeLayout& layout, const SizeHandles& s, std::int64_
     row.min = mins[i];
     row.max = maxs[i];
     row.norm = norms[i];
-    if (!certificates.empty()) row.certificate = certificate_of(&certificates[i * kCertificateColumns]);
+    if (!certificates.empty()) {
+      row.certificate = observe::Certificate::from_row(&certificates[i * kCertificateColumns]);
+    }
     const auto slot = std::lower_bound(kept.begin(), kept.end(), row.trial);
     if (slot != kept.end() && *slot == row.trial) {
       const auto j = static_cast<std::size_t>(slot - kept.begin()) - kept_begin;
