@@ -145,7 +145,8 @@ void draw_haar_orthogonal(HaarMethod method, Index n, rng::Stream& stream, Sampl
 
 // r columns of a Haar unitary or orthogonal matrix: the N×r block of Ginibre numbers that the
 // full draw puts in its first r columns (the same stream positions), orthonormalised. With the
-// QR method the result is, up to rounding, the first r columns of the full draw; with the polar
+// QR method (Cholesky QR for 2r ≤ N, linalg::haar_isometry) the result is, up to rounding, the
+// first r columns of the full draw; with the polar
 // method it has the same law (an N×r Haar isometry) but not the same values.
 void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& stream,
                        Sample& out) {
@@ -154,7 +155,7 @@ void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& st
     Eigen::MatrixXcd z(n, r);
     stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
     if (spec.haar == HaarMethod::qr) {
-      linalg::haar_from_qr(z);
+      linalg::haar_isometry(z);
       out.complex = std::move(z);
     } else {
       out.complex = linalg::polar_isometry(std::move(z));
@@ -164,7 +165,7 @@ void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& st
     Eigen::MatrixXd z(n, r);
     stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
     if (spec.haar == HaarMethod::qr) {
-      linalg::haar_from_qr(z);
+      linalg::haar_isometry(z);
       out.real = std::move(z);
     } else {
       out.real = linalg::polar_isometry(std::move(z));

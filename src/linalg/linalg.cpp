@@ -183,6 +183,51 @@ void haar_from_qr(RMatrix& z) {
   z = z * sign.asDiagonal();
 }
 
+IsometryMethod haar_isometry(CMatrix& z) {
+  require_tall(z.rows(), z.cols(), "haar_isometry");
+  const Index n = z.rows(), r = z.cols();
+  if (r == 0) return IsometryMethod::cholesky;
+  if (2 * r <= n) {
+    const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+    CMatrix g(r, r);  // Z^*Z, then R in its upper triangle; Z itself is untouched until trsm
+    cblas_zherk(CblasColMajor, CblasUpper, CblasConjTrans, lr, ln, 1.0, z.data(), ln, 0.0,
+                g.data(), lr);
+    double rcond = 0.0;
+    if (LAPACKE_zpotrf(LAPACK_COL_MAJOR, 'U', lr, lp(g.data()), lr) == 0 &&
+        LAPACKE_ztrcon(LAPACK_COL_MAJOR, '1', 'U', 'N', lr, lp(g.data()), lr, &rcond) == 0 &&
+        rcond * kIsometryConditionLimit(r) >= 1.0) {
+      const std::complex<double> one(1.0, 0.0);
+      cblas_ztrsm(CblasColMajor, CblasRight, CblasUpper, CblasNoTrans, CblasNonUnit, ln, lr, &one,
+                  g.data(), lr, z.data(), ln);
+      return IsometryMethod::cholesky;
+    }
+  }
+  haar_from_qr(z);
+  return IsometryMethod::householder;
+}
+
+IsometryMethod haar_isometry(RMatrix& z) {
+  require_tall(z.rows(), z.cols(), "haar_isometry");
+  const Index n = z.rows(), r = z.cols();
+  if (r == 0) return IsometryMethod::cholesky;
+  if (2 * r <= n) {
+    const lapack_int ln = static_cast<lapack_int>(n), lr = static_cast<lapack_int>(r);
+    RMatrix g(r, r);
+    cblas_dsyrk(CblasColMajor, CblasUpper, CblasTrans, lr, ln, 1.0, z.data(), ln, 0.0, g.data(),
+                lr);
+    double rcond = 0.0;
+    if (LAPACKE_dpotrf(LAPACK_COL_MAJOR, 'U', lr, g.data(), lr) == 0 &&
+        LAPACKE_dtrcon(LAPACK_COL_MAJOR, '1', 'U', 'N', lr, g.data(), lr, &rcond) == 0 &&
+        rcond * kIsometryConditionLimit(r) >= 1.0) {
+      cblas_dtrsm(CblasColMajor, CblasRight, CblasUpper, CblasNoTrans, CblasNonUnit, ln, lr, 1.0,
+                  g.data(), lr, z.data(), ln);
+      return IsometryMethod::cholesky;
+    }
+  }
+  haar_from_qr(z);
+  return IsometryMethod::householder;
+}
+
 CMatrix polar_factor_svd(CMatrix z) {
   require_square(z.rows(), z.cols(), "polar_factor_svd");
   const Index n = z.rows();

@@ -498,7 +498,7 @@ std::string SizeRunner::sampler_changes() const {
     std::string change;
     if (haar_columns_[i] >= 0) {
       change = spec.haar == ensembles::HaarMethod::qr
-                   ? "only the columns its conjugations read, by a thin QR"
+                   ? "only the columns its conjugations read, by Cholesky QR (2r ≤ N) or a thin QR"
                    : "only the columns its conjugations read, by a thin polar factor";
     }
     const bool haar = spec.kind == ensembles::Kind::haar_unitary ||

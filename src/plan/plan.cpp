@@ -1000,7 +1000,6 @@ Forecast forecast(const job::Job& job, const Options& options, std::ostream& log
   e.options = options;
   // Compile the study first (every size's runner): a bad model fails before any measurement.
   const study::Study st(job);
-  const std::vector<model::SizeRunner>& runners = st.runners();
   // The estimators are checked as freegap run checks them (a bad plug-in is refused here too),
   // and one that reads the matrix adds the copy kept for it to the memory estimate.
   const bool keeps_matrix = estimate::EstimatorSet(job).wants_matrix();

@@ -28,10 +28,10 @@
 //   rest       (JSON "rest_share") median over trials of (total − sample − eigen)/total: the share of
 //              the trial outside the Haar sample and the eigenvalue step, taken trial by trial
 // With --split-sample, the sampling stage is also split, on a separate matrix drawn with the
-// same calls the sampler makes (rng::Stream::fill_complex_normal, then linalg::haar_from_qr), of
-// the shape the sampler draws (N × r, r the plan's columns of U):
+// same calls the sampler makes (rng::Stream::fill_complex_normal, then linalg::haar_isometry for
+// the plan's r columns of U, linalg::haar_from_qr for a whole U), of the shape the sampler draws:
 //   gen        Philox + Marsaglia polar for the N·r complex normals
-//   qr         haar_from_qr (zgeqrf + zungqr + phase fix)
+//   qr         haar_isometry (Cholesky QR for 2r ≤ N, else zgeqrf + zungqr + phase fix)
 #include <algorithm>
 #include <chrono>
 #include <cmath>
@@ -146,7 +146,11 @@ Row measure(long n, int trials, int warmup, bool split_sample, bool explain) {
       stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
       gen.push_back(seconds_since(start));
       start = Clock::now();
-      la::haar_from_qr(z);
+      if (r >= 0) {
+        la::haar_isometry(z);
+      } else {
+        la::haar_from_qr(z);
+      }
       qr.push_back(seconds_since(start));
     }
     row.gen = median(gen);

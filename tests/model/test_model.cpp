@@ -269,7 +269,7 @@ TEST(SamplerChanges, NameTheMatricesDrawnOtherwiseThanInFormat13) {
                 parse_declaration("U=haar_unitary")};
   m.expression = "B + U B U^*";
   EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(),
-            "U: only the columns its conjugations read, by a thin QR");
+            "U: only the columns its conjugations read, by Cholesky QR (2r ≤ N) or a thin QR");
   m.full_haar = true;
   EXPECT_EQ(model::SizeRunner(m, 10).sampler_changes(), "");
   EXPECT_EQ(model::SizeRunner(lone("X=gue", 100), 400).sampler_changes(), "");
