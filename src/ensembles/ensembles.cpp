@@ -94,7 +94,7 @@ void draw_gue(Index n, double inv_sqrt_n, rng::Stream& stream, Sample& out) {
   // Lower triangle column by column: H_jj ~ N(0,1), H_ij (i > j) complex normal, E|H_ij|^2 = 1.
   out.storage = Sample::Storage::complex_dense;
   auto& h = out.complex;
-  h.resize(n, n);
+  linalg::resize_fresh(h, n, n);
   for (Index j = 0; j < n; ++j) {
     h(j, j) = stream.normal();
     for (Index i = j + 1; i < n; ++i) h(i, j) = stream.complex_normal();
@@ -108,7 +108,7 @@ void draw_gue(Index n, double inv_sqrt_n, rng::Stream& stream, Sample& out) {
 void draw_real_wigner(bool gauss, Index n, double inv_sqrt_n, rng::Stream& stream, Sample& out) {
   out.storage = Sample::Storage::real_dense;
   auto& h = out.real;
-  h.resize(n, n);
+  linalg::resize_fresh(h, n, n);
   for (Index j = 0; j < n; ++j) {
     h(j, j) = gauss ? std::sqrt(2.0) * stream.normal() : 0.0;  // GOE diagonal variance 2
     for (Index i = j + 1; i < n; ++i) h(i, j) = gauss ? stream.normal() : stream.rademacher();
@@ -120,7 +120,8 @@ void draw_real_wigner(bool gauss, Index n, double inv_sqrt_n, rng::Stream& strea
 // A Haar unitary matrix from a complex Ginibre one, by `method`.
 void draw_haar_unitary(HaarMethod method, Index n, rng::Stream& stream, Sample& out) {
   out.storage = Sample::Storage::complex_dense;
-  Eigen::MatrixXcd z(n, n);
+  Eigen::MatrixXcd z;
+  linalg::resize_fresh(z, n, n);
   stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
   if (method == HaarMethod::qr) {
     linalg::haar_from_qr(z);
@@ -133,7 +134,8 @@ void draw_haar_unitary(HaarMethod method, Index n, rng::Stream& stream, Sample& 
 // A Haar orthogonal matrix from a real Ginibre one, by `method`.
 void draw_haar_orthogonal(HaarMethod method, Index n, rng::Stream& stream, Sample& out) {
   out.storage = Sample::Storage::real_dense;
-  Eigen::MatrixXd z(n, n);
+  Eigen::MatrixXd z;
+  linalg::resize_fresh(z, n, n);
   stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
   if (method == HaarMethod::qr) {
     linalg::haar_from_qr(z);
@@ -152,7 +154,8 @@ void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& st
                        Sample& out) {
   if (spec.kind == Kind::haar_unitary) {
     out.storage = Sample::Storage::complex_dense;
-    Eigen::MatrixXcd z(n, r);
+    Eigen::MatrixXcd z;
+    linalg::resize_fresh(z, n, r);
     stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
     if (spec.haar == HaarMethod::qr) {
       linalg::haar_isometry(z);
@@ -162,7 +165,8 @@ void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& st
     }
   } else {
     out.storage = Sample::Storage::real_dense;
-    Eigen::MatrixXd z(n, r);
+    Eigen::MatrixXd z;
+    linalg::resize_fresh(z, n, r);
     stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
     if (spec.haar == HaarMethod::qr) {
       linalg::haar_isometry(z);
@@ -298,7 +302,8 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
       draw_real_wigner(spec_.kind == Kind::goe, n, inv_sqrt_n, stream, out);
       break;
     case Kind::wishart_complex: {
-      Eigen::MatrixXcd x(n, m);
+      Eigen::MatrixXcd x;
+      linalg::resize_fresh(x, n, m);
       stream.fill_complex_normal({x.data(), static_cast<std::size_t>(x.size())});
       out.storage = Sample::Storage::complex_dense;
       linalg::herk(x, linalg::Op::none, out.complex, 1.0 / static_cast<double>(m));
@@ -306,7 +311,8 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
       break;
     }
     case Kind::wishart_real: {
-      Eigen::MatrixXd x(n, m);
+      Eigen::MatrixXd x;
+      linalg::resize_fresh(x, n, m);
       stream.fill_normal({x.data(), static_cast<std::size_t>(x.size())});
       out.storage = Sample::Storage::real_dense;
       linalg::syrk(x, linalg::Op::none, out.real, 1.0 / static_cast<double>(m));
@@ -315,14 +321,14 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
     }
     case Kind::ginibre_complex: {
       out.storage = Sample::Storage::complex_dense;
-      out.complex.resize(n, m);
+      linalg::resize_fresh(out.complex, n, m);
       stream.fill_complex_normal({out.complex.data(), static_cast<std::size_t>(out.complex.size())});
       out.complex *= 1.0 / std::sqrt(static_cast<double>(m));
       break;
     }
     case Kind::ginibre_real: {
       out.storage = Sample::Storage::real_dense;
-      out.real.resize(n, m);
+      linalg::resize_fresh(out.real, n, m);
       stream.fill_normal({out.real.data(), static_cast<std::size_t>(out.real.size())});
       out.real *= 1.0 / std::sqrt(static_cast<double>(m));
       break;

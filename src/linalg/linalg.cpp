@@ -3,8 +3,10 @@
 
 #include <cblas.h>
 #include <lapacke.h>
+#include <sys/mman.h>
 
 #include <algorithm>
+#include <cstdint>
 #include <string>
 
 #include "freegap/errors.hpp"
@@ -263,7 +265,7 @@ void gemm(const CMatrix& a, Op op_a, const CMatrix& b, Op op_b, CMatrix& c,
   const Index m = op_rows(a, op_a), k = op_cols(a, op_a), n = op_cols(b, op_b);
   if (op_rows(b, op_b) != k) throw InputError("gemm: inner dimensions differ");
   if (beta == std::complex<double>(0.0)) {
-    c.resize(m, n);
+    resize_fresh(c, m, n);
   } else if (c.rows() != m || c.cols() != n) {
     throw InputError("gemm: output has the wrong shape");
   }
@@ -285,7 +287,7 @@ void gemm(const RMatrix& a, Op op_a, const RMatrix& b, Op op_b, RMatrix& c, doub
   const Index m = op_rows(a, op_a), k = op_cols(a, op_a), n = op_cols(b, op_b);
   if (op_rows(b, op_b) != k) throw InputError("gemm: inner dimensions differ");
   if (beta == 0.0) {
-    c.resize(m, n);
+    resize_fresh(c, m, n);
   } else if (c.rows() != m || c.cols() != n) {
     throw InputError("gemm: output has the wrong shape");
   }
@@ -337,7 +339,7 @@ void herk(const CMatrix& a, Op op, CMatrix& c, double alpha, double beta) {
   const Index n = op == Op::none ? a.rows() : a.cols();
   const Index k = op == Op::none ? a.cols() : a.rows();
   if (beta == 0.0) {
-    c.resize(n, n);
+    resize_fresh(c, n, n);
     // zherk with beta = 0 does not read c, but the strict upper triangle would stay
     // uninitialised; zero it so the matrix is always fully defined.
     c.setZero();
@@ -355,7 +357,7 @@ void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha, double beta) {
   const Index n = trans ? a.cols() : a.rows();
   const Index k = trans ? a.rows() : a.cols();
   if (beta == 0.0) {
-    c.resize(n, n);
+    resize_fresh(c, n, n);
     c.setZero();
   } else if (c.rows() != n || c.cols() != n) {
     throw InputError("syrk: output has the wrong shape");
@@ -364,6 +366,18 @@ void syrk(const RMatrix& a, Op op, RMatrix& c, double alpha, double beta) {
   cblas_dsyrk(CblasColMajor, CblasLower, trans ? CblasTrans : CblasNoTrans,
               static_cast<blasint>(n), static_cast<blasint>(k), alpha, a.data(),
               static_cast<blasint>(a.rows()), beta, c.data(), static_cast<blasint>(n));
+}
+
+void advise_huge_pages(void* data, std::size_t bytes) {
+  if (data == nullptr || bytes < kHugePageMinBytes) return;
+  constexpr std::uintptr_t kPage = 4096;
+  const auto begin = (reinterpret_cast<std::uintptr_t>(data) + kPage - 1) & ~(kPage - 1);
+  const auto end = (reinterpret_cast<std::uintptr_t>(data) + bytes) & ~(kPage - 1);
+  if (end <= begin) return;
+#ifdef MADV_HUGEPAGE
+  // The result is ignored on purpose: EINVAL where the kernel lacks transparent huge pages.
+  (void)::madvise(reinterpret_cast<void*>(begin), end - begin, MADV_HUGEPAGE);
+#endif
 }
 
 void mirror_lower(Eigen::Ref<CMatrix> c) {

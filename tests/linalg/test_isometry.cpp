@@ -10,14 +10,16 @@
 // below: at most 4.6·κ₂²·eps for the orthogonality and 2.5·κ₂²·eps for the distance (real 6 × 3).
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <limits>
 #include <string>
-#include <type_traits>
 
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/rng.hpp"
+#include "ginibre_helpers.hpp"
 
 namespace {
 
@@ -34,25 +36,11 @@ template <class M>
 M ginibre(Index n, Index r, std::uint64_t trial) {
   freegap::rng::Stream stream({kSeed, "isometry test", static_cast<std::uint64_t>(n * 1000 + r),
                                trial});
-  M z(n, r);
-  if constexpr (std::is_same_v<M, CMatrix>) {
-    stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
-  } else {
-    stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
-  }
-  return z;
+  return freegap::testing::ginibre_from<M>(stream, n, r);
 }
 
-template <class M>
-double orthogonality_error(const M& q) {
-  return (q.adjoint() * q - M::Identity(q.cols(), q.cols())).cwiseAbs().maxCoeff();
-}
-
-template <class M>
-double condition_number(M z) {
-  const linalg::Vector s = linalg::singular_values(z);
-  return s(0) / s(s.size() - 1);
-}
+using freegap::testing::condition_number;
+using freegap::testing::orthogonality_error;
 
 template <class M>
 class HaarIsometry : public ::testing::Test {};
@@ -93,7 +81,9 @@ TYPED_TEST(HaarIsometry, CholeskyQrIsThePhaseCorrectedHouseholderQ) {
       worst_orth = std::max(worst_orth, orth / unit);
       worst_dist = std::max(worst_dist, dist / unit);
     }
-    if (s.n >= 33) EXPECT_EQ(fallbacks, 0) << s.n << "x" << s.r;
+    if (s.n >= 33) {
+      EXPECT_EQ(fallbacks, 0) << s.n << "x" << s.r;
+    }
     EXPECT_LE(fallbacks * 50, s.trials) << s.n << "x" << s.r;  // at most 2 % of the draws
     std::printf("%ldx%ld: %d of %d draws fell back\n", long(s.n), long(s.r), fallbacks, s.trials);
   }

@@ -26,6 +26,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/rng.hpp"
+#include "ginibre_helpers.hpp"
 
 namespace {
 
@@ -40,25 +41,15 @@ constexpr std::uint64_t kSeed = 20261204;
 template <class M>
 M ginibre(Index n, std::uint64_t trial, const char* name = "polar test") {
   freegap::rng::Stream stream({kSeed, name, static_cast<std::uint64_t>(n), trial});
-  M z(n, n);
-  if constexpr (std::is_same_v<M, CMatrix>) {
-    stream.fill_complex_normal({z.data(), static_cast<std::size_t>(z.size())});
-  } else {
-    stream.fill_normal({z.data(), static_cast<std::size_t>(z.size())});
-  }
-  return z;
+  return freegap::testing::ginibre_from<M>(stream, n, n);
 }
 
 template <class M>
 double unitarity_error(const M& u) {
-  return (u.adjoint() * u - M::Identity(u.rows(), u.cols())).cwiseAbs().maxCoeff();
+  return freegap::testing::orthogonality_error(u);
 }
 
-template <class M>
-double condition_number(M z) {
-  const linalg::Vector s = linalg::singular_values(z);
-  return s(0) / s(s.size() - 1);
-}
+using freegap::testing::condition_number;
 
 // Z = W diag(σ) V^* with W, V Haar and σ_k = κ^(-k/(n-1)): condition number κ, exact polar
 // factor W V^*.
