@@ -87,7 +87,7 @@ bool eigen_decompose(CMatrix& a, Vector& w, CMatrix& v) {
   std::vector<lapack_int> support(2 * static_cast<std::size_t>(n));
   lapack_int found = 0;
   w.resize(n);
-  v.resize(n, n);
+  resize_fresh(v, n, n);
   const lapack_int info =
       LAPACKE_zheevr(LAPACK_COL_MAJOR, 'V', 'A', 'L', n, lp(a.data()), n, 0.0, 0.0, 0, 0, 0.0,
                      &found, w.data(), lp(v.data()), n, support.data());
@@ -98,7 +98,7 @@ bool eigen_decompose(RMatrix& a, Vector& w, RMatrix& v) {
   std::vector<lapack_int> support(2 * static_cast<std::size_t>(n));
   lapack_int found = 0;
   w.resize(n);
-  v.resize(n, n);
+  resize_fresh(v, n, n);
   const lapack_int info = LAPACKE_dsyevr(LAPACK_COL_MAJOR, 'V', 'A', 'L', n, a.data(), n, 0.0,
                                          0.0, 0, 0, 0.0, &found, w.data(), v.data(), n,
                                          support.data());
@@ -159,13 +159,13 @@ double norm2_estimate(const M& a) {
 void times_hermitian(const CMatrix& x, const CMatrix& p, CMatrix& u) {
   const std::complex<double> one = 1.0, zero = 0.0;
   const blasint n = static_cast<blasint>(x.rows());
-  u.resize(x.rows(), x.rows());
+  resize_fresh(u, x.rows(), x.rows());
   cblas_zhemm(CblasColMajor, CblasRight, CblasLower, n, n, &one, p.data(), n, x.data(), n, &zero,
               u.data(), n);
 }
 void times_hermitian(const RMatrix& x, const RMatrix& p, RMatrix& u) {
   const blasint n = static_cast<blasint>(x.rows());
-  u.resize(x.rows(), x.rows());
+  resize_fresh(u, x.rows(), x.rows());
   cblas_dsymm(CblasColMajor, CblasRight, CblasLower, n, n, 1.0, p.data(), n, x.data(), n, 0.0,
               u.data(), n);
 }
@@ -229,7 +229,9 @@ template <class M>
 std::optional<M> polar_newton_eig(const M& z, int max_steps, PolarReport& report) {
   const Index n = z.rows();
   const double limit = kGramFactor * static_cast<double>(n);
-  M x = z;
+  M x;  // fresh pages advised before the copy touches them (linalg::resize_fresh)
+  resize_fresh(x, n, n);
+  x = z;
   double kappa2 = std::numeric_limits<double>::infinity();  // predicted κ(X)²
   bool tried_without_newton = false;
   for (;;) {
@@ -239,7 +241,9 @@ std::optional<M> polar_newton_eig(const M& z, int max_steps, PolarReport& report
       if (std::isnan(kappa2)) return std::nullopt;
     }
     if (report.newton_steps >= max_steps) return std::nullopt;
-    M inverse = x;
+    M inverse;
+    resize_fresh(inverse, n, n);
+    inverse = x;
     if (!invert(inverse) || !inverse.allFinite()) return std::nullopt;
     const double big = norm2_estimate(x), small_inv = norm2_estimate(inverse);
     const double kappa = std::max(1.0, big * small_inv);
