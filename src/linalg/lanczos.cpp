@@ -153,8 +153,12 @@ LanczosResult run_lanczos(Index n, const Apply& apply, std::vector<T> start,
     return out;
   }
   const Index limit = std::min<Index>(n, std::max(1, settings.max_iterations));
-  std::vector<T> q(static_cast<std::size_t>(n * (limit + 1)));
-  std::copy(start.begin(), start.end(), q.begin());
+  // The basis: room for every column reserved (never moved), touched column by column as the
+  // steps reach it, on huge pages where the kernel allows (advise_huge_pages).
+  std::vector<T> q;
+  q.reserve(static_cast<std::size_t>(n * (limit + 1)));
+  advise_huge_pages(q.data(), q.capacity() * sizeof(T));
+  q.assign(start.begin(), start.end());
   scale(n, 1.0 / start_norm, q.data());
   std::vector<double> a(static_cast<std::size_t>(limit)), b(static_cast<std::size_t>(limit));
   std::vector<T> h;
@@ -162,6 +166,7 @@ LanczosResult run_lanczos(Index n, const Apply& apply, std::vector<T> start,
   Index k = 0;
   bool stopped = false;
   for (Index j = 0; j < limit && !stopped; ++j) {
+    q.resize(static_cast<std::size_t>((j + 2) * n));  // within the reserved room
     lanczos_step(n, j, q, apply, a, b, h);
     k = j + 1;
     if (!std::isfinite(a[static_cast<std::size_t>(j)]) || !std::isfinite(b[static_cast<std::size_t>(j)])) {
