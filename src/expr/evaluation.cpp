@@ -383,6 +383,13 @@ using detail::Step;
 
 namespace {
 
+// A zero matrix of r × c on fresh storage advised for huge pages (linalg::resize_fresh).
+template <class Matrix>
+void zero_fresh(Matrix& m, Index r, Index c) {
+  linalg::resize_fresh(m, r, c);
+  m.setZero();
+}
+
 /// Column counts (k₊, k₋) of the two rank-k updates for Y D Y^*, estimated at plan time from the
 /// declared law of D (exact for atom laws; otherwise all N columns, one fewer for a unitary Y).
 std::pair<Index, Index> conjugate_columns(const EvaluationData& p, const Node& d, bool unitary) {
@@ -1113,10 +1120,25 @@ class Evaluator {
       }
       case StepKind::copy: {
         const Ref r = step.in[0];
+        // Fresh storage of the right shape first (huge pages advised), then the copy fills it.
         if (step.complex) {
-          out.complex = r.adj ? CMatrix(complex(r).adjoint()) : complex(r);
+          const CMatrix& in = complex(r);
+          linalg::resize_fresh(out.complex, r.adj ? in.cols() : in.rows(),
+                               r.adj ? in.rows() : in.cols());
+          if (r.adj) {
+            out.complex = in.adjoint();
+          } else {
+            out.complex = in;
+          }
         } else {
-          out.real = r.adj ? RMatrix(real(r).transpose()) : real(r);
+          const RMatrix& in = real(r);
+          linalg::resize_fresh(out.real, r.adj ? in.cols() : in.rows(),
+                               r.adj ? in.rows() : in.cols());
+          if (r.adj) {
+            out.real = in.transpose();
+          } else {
+            out.real = in;
+          }
         }
         break;
       }
@@ -1203,10 +1225,10 @@ class Evaluator {
       written = true;
     }
     if (step.complex) {
-      if (!written) out.complex = CMatrix::Zero(n, n);
+      if (!written) zero_fresh(out.complex, n, n);
       out.complex.diagonal().array() += step.alpha * shift;
     } else {
-      if (!written) out.real = RMatrix::Zero(n, n);
+      if (!written) zero_fresh(out.real, n, n);
       out.real.diagonal().array() += step.alpha * shift;
     }
   }
@@ -1283,7 +1305,7 @@ class Evaluator {
     const Node& n = p_.nodes[step.node];
     const Index r = p_.dims[n.rows], c = p_.dims[n.cols];
     if (step.complex) {
-      if (!step.in_place) out.complex = CMatrix::Zero(r, c);
+      if (!step.in_place) zero_fresh(out.complex, r, c);
       CMatrix& m = out.complex;
       for (std::size_t i = 0; i < step.in.size(); ++i) {
         const Ref t = step.in[i];
@@ -1304,7 +1326,7 @@ class Evaluator {
       }
       m.diagonal().array() += step.alpha * step.identity;
     } else {
-      if (!step.in_place) out.real = RMatrix::Zero(r, c);
+      if (!step.in_place) zero_fresh(out.real, r, c);
       RMatrix& m = out.real;
       for (std::size_t i = 0; i < step.in.size(); ++i) {
         const Ref t = step.in[i];
