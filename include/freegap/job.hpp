@@ -111,7 +111,18 @@ struct ObserveSettings {
   /// whole spectrum (model::Path::krylov). bins, range, margin, max_moment and keep_spectra are
   /// then refused in the job file.
   bool extremes_only = false;
+  /// With extremes_only: the relative error estimate at which the krylov path stops
+  /// (observe.extremes_tolerance, 1e-14 … 1e-3; 0 = not given, the default 1e-12) and its step
+  /// limit (observe.extremes_max_steps, 2 … 100000; 0 = not given, the default 1000).
+  double extremes_tolerance = 0.0;
+  std::int64_t extremes_max_steps = 0;
 };
+
+/// Bounds of observe.extremes_tolerance: below 1e-14 a residual bound in double precision cannot
+/// certify it at the norms freegap meets; above 1e-3 the extremes would hardly be numbers.
+inline constexpr double kMinExtremesTolerance = 1e-14;
+inline constexpr double kMaxExtremesTolerance = 1e-3;
+inline constexpr std::int64_t kMaxExtremesSteps = 100000;
 
 /// Default per-trial timeout of an estimator, seconds.
 inline constexpr double kDefaultEstimatorTimeout = 60.0;

@@ -78,9 +78,11 @@ double predicted_trial_seconds(Path path, Index n, const Model& model, bool comp
                                double extra_dense_seconds);
 
 /// Predicted CPU seconds of one Krylov trial of size n (Path::krylov): sampling, then about
-/// 30 + 20·log10 n Lanczos steps, each reading `bytes_per_product` of samples
+/// 7.5·n^(1/3) Lanczos steps at the default tolerance 1e-12 (fewer for a looser `tolerance`, at
+/// most `max_steps`), each reading `bytes_per_product` of samples
 /// (expr::VectorProduct::bytes_read) and the basis at memory speed (docs/performance.md §5c).
-double predicted_krylov_seconds(Index n, double bytes_per_product, double sample_seconds);
+double predicted_krylov_seconds(Index n, double bytes_per_product, double sample_seconds,
+                                double tolerance = 1e-12, int max_steps = 1000);
 
 /// The two-projection model of an expression, or nothing when it does not have that form: every
 /// term of its expansion is a constant, a diagonal D, or U D U^* (or U^* D U throughout) for one

@@ -137,6 +137,13 @@ std::string Job::canonical() const {
   if (observe.extremes_only) {
     // Printed only when set, so that other jobs keep their hash; nothing else is observed then.
     out += std::string("observe: extremes_only = true; ") + spectrum;
+    // The krylov path's accuracy, likewise only when given.
+    if (observe.extremes_tolerance > 0) {
+      out += "observe: extremes_tolerance = " + exact(observe.extremes_tolerance) + "\n";
+    }
+    if (observe.extremes_max_steps > 0) {
+      out += "observe: extremes_max_steps = " + std::to_string(observe.extremes_max_steps) + "\n";
+    }
   } else {
     out += "observe: bins = " + std::to_string(observe.bins);
     if (observe.auto_range) {

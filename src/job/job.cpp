@@ -684,9 +684,41 @@ void read_keep_spectra(const Reader& r, const toml::node& v, ObserveSettings& s)
   }
 }
 
+// observe.extremes_tolerance and observe.extremes_max_steps: how far the krylov path iterates.
+// They mean something only when only the extremes are observed.
+void read_extremes_accuracy(const Reader& r, const toml::table& t, ObserveSettings& s) {
+  for (const char* key : {"extremes_tolerance", "extremes_max_steps"}) {
+    if (t.get(key) != nullptr && !s.extremes_only) {
+      r.fail(std::string("observe.") + key,
+             "applies only when only the extremes are observed; set extremes_only = true or "
+             "remove " + std::string(key));
+    }
+  }
+  if (const toml::node* v = t.get("extremes_tolerance")) {
+    const double tol = r.number(*v, "observe.extremes_tolerance", "a number");
+    if (!(tol >= kMinExtremesTolerance && tol <= kMaxExtremesTolerance)) {
+      r.fail("observe.extremes_tolerance",
+             "must be between " + shortest(kMinExtremesTolerance) + " and " +
+                 shortest(kMaxExtremesTolerance) + " (got " + shortest(tol) +
+                 "): the relative error estimate at which the Lanczos iteration stops");
+    }
+    s.extremes_tolerance = tol;
+  }
+  if (const toml::node* v = t.get("extremes_max_steps")) {
+    const std::int64_t steps = r.integer(*v, "observe.extremes_max_steps", "an integer");
+    if (steps < 2 || steps > kMaxExtremesSteps) {
+      r.fail("observe.extremes_max_steps",
+             "must be between 2 and " + std::to_string(kMaxExtremesSteps) + " (got " +
+                 std::to_string(steps) + ")");
+    }
+    s.extremes_max_steps = steps;
+  }
+}
+
 ObserveSettings read_observe(const Reader& r, const toml::table& t) {
   r.check_keys(t, "observe",
-               {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum", "extremes_only"},
+               {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum", "extremes_only",
+                "extremes_tolerance", "extremes_max_steps"},
                "");
   ObserveSettings s;
   if (const toml::node* v = t.get("extremes_only")) {
@@ -703,6 +735,7 @@ ObserveSettings read_observe(const Reader& r, const toml::table& t) {
       s.keep_spectra_rule = "none";
     }
   }
+  read_extremes_accuracy(r, t, s);
   if (const toml::node* v = t.get("bins")) {
     s.bins = r.integer(*v, "observe.bins", "an integer");
     if (s.bins < 1)

@@ -24,6 +24,10 @@ model::Model model_of(const job::Job& job) {
            : job.run_path == "krylov"         ? model::PathRequest::krylov
                                               : model::PathRequest::automatic;
   m.extremes_only = job.observe.extremes_only;
+  if (job.observe.extremes_tolerance > 0) m.krylov_tolerance = job.observe.extremes_tolerance;
+  if (job.observe.extremes_max_steps > 0) {
+    m.krylov_max_steps = static_cast<int>(job.observe.extremes_max_steps);
+  }
   // What a trial observes, for the predicted costs of the paths (model::predicted_trial_seconds).
   m.bins = job.observe.extremes_only ? 0 : job.observe.bins;
   m.max_moment = job.observe.max_moment;

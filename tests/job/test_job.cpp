@@ -332,7 +332,8 @@ TEST(JobErrors, UnknownKeyInObserve) {
                      "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\nensemble = \"goe\"\n"
                      "[observe]\nbin = 100\n"),
             "study.toml:10: observe.bin: unknown key 'bin' (did you mean 'bins'?); known keys: "
-            "bins, range, margin, max_moment, keep_spectra, spectrum, extremes_only");
+            "bins, range, margin, max_moment, keep_spectra, spectrum, extremes_only, "
+            "extremes_tolerance, extremes_max_steps");
 }
 
 TEST(JobErrors, UnknownKeyInRun) {
@@ -378,6 +379,44 @@ TEST(JobErrors, ExtremesOnlyRefusesWhatNeedsTheWholeSpectrum) {
   // false is the default and leaves the other keys free.
   EXPECT_FALSE(parse_job(head + "[observe]\nextremes_only = false\nbins = 10\n", "study.toml")
                    .observe.extremes_only);
+}
+
+// The krylov path's accuracy: only with extremes_only, within its bounds, and in the canonical
+// text (so in the hash) only when given.
+TEST(JobErrors, ExtremesAccuracyKeysNeedExtremesOnlyAndStayInTheirBounds) {
+  const std::string head = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n";
+  const std::string extremes = head + "[observe]\nextremes_only = true\n";
+  EXPECT_EQ(error_of(head + "[observe]\nextremes_tolerance = 1e-8\n"),
+            "study.toml:8: observe.extremes_tolerance: applies only when only the extremes are "
+            "observed; set extremes_only = true or remove extremes_tolerance");
+  EXPECT_EQ(error_of(head + "[observe]\nextremes_max_steps = 50\n"),
+            "study.toml:8: observe.extremes_max_steps: applies only when only the extremes are "
+            "observed; set extremes_only = true or remove extremes_max_steps");
+  EXPECT_EQ(error_of(extremes + "extremes_tolerance = 1e-16\n"),
+            "study.toml:9: observe.extremes_tolerance: must be between 1e-14 and 0.001 (got "
+            "1e-16): the relative error estimate at which the Lanczos iteration stops");
+  EXPECT_EQ(error_of(extremes + "extremes_tolerance = 0.5\n").rfind(
+                "study.toml:9: observe.extremes_tolerance: must be between", 0),
+            0u);
+  EXPECT_EQ(error_of(extremes + "extremes_tolerance = nan\n").rfind(
+                "study.toml:9: observe.extremes_tolerance: must be between", 0),
+            0u);
+  EXPECT_EQ(error_of(extremes + "extremes_max_steps = 1\n"),
+            "study.toml:9: observe.extremes_max_steps: must be between 2 and 100000 (got 1)");
+  EXPECT_EQ(error_of(extremes + "extremes_max_steps = 2.5\n").rfind(
+                "study.toml:9: observe.extremes_max_steps: must be an integer", 0),
+            0u);
+  const Job plain = parse_job(extremes, "study.toml");
+  EXPECT_EQ(plain.observe.extremes_tolerance, 0.0);
+  EXPECT_EQ(plain.observe.extremes_max_steps, 0);
+  EXPECT_EQ(plain.canonical().find("extremes_tolerance"), std::string::npos);
+  const Job tuned =
+      parse_job(extremes + "extremes_tolerance = 1e-9\nextremes_max_steps = 300\n", "study.toml");
+  EXPECT_EQ(tuned.observe.extremes_tolerance, 1e-9);
+  EXPECT_EQ(tuned.observe.extremes_max_steps, 300);
+  EXPECT_NE(tuned.canonical().find("observe: extremes_tolerance = "), std::string::npos);
+  EXPECT_NE(tuned.canonical().find("observe: extremes_max_steps = 300\n"), std::string::npos);
+  EXPECT_NE(tuned.canonical(), plain.canonical());
 }
 
 TEST(JobErrors, UnknownKeyInMatrix) {

@@ -10,6 +10,7 @@
 
 #include <cmath>
 #include <complex>
+#include <cstdio>
 #include <limits>
 #include <string>
 #include <vector>
@@ -124,6 +125,39 @@ TEST(KrylovPath, ExtremesEqualLapackOnTheSameMatricesForHundredTrials) {
       EXPECT_LE(row.certificate.estimate_min, 10 * m.krylov_tolerance * scale);
     }
   }
+}
+
+// observe.extremes_tolerance reaches the path: a looser tolerance stops earlier, and its extremes
+// stay within its own bound of LAPACK's (the same rule as above with tol = 1e-8).
+TEST(KrylovPath, LooserToleranceStopsEarlierWithinItsBound) {
+  model::Model tight = make({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1");
+  tight.path = model::PathRequest::krylov;
+  model::Model loose = tight;
+  loose.krylov_tolerance = 1e-8;
+  const Eigen::Index n = 150;
+  const model::SizeRunner a(tight, n), b(loose, n);
+  auto oa = observe::start_observations(extremes_config(a));
+  auto ob = observe::start_observations(extremes_config(b));
+  double steps_tight = 0, steps_loose = 0;
+  for (std::uint64_t t = 0; t < 20; ++t) {
+    a.observe_trial(oa, kSeed, t);
+    b.observe_trial(ob, kSeed, t);
+    const auto& ra = oa.trials.back();
+    const auto& rb = ob.trials.back();
+    ASSERT_FALSE(ra.failed || rb.failed) << "trial " << t;
+    steps_tight += ra.certificate.iterations;
+    steps_loose += rb.certificate.iterations;
+    EXPECT_LE(rb.certificate.iterations, ra.certificate.iterations) << "trial " << t;
+    const model::TrialOutcome lapack = b.run(kSeed, t);
+    const double lo = lapack.spectrum.minCoeff(), hi = lapack.spectrum.maxCoeff();
+    const double scale = std::max(std::abs(lo), std::abs(hi));
+    const double allowed = 10 * 1e-8 * scale + n * kEps * scale;
+    EXPECT_LE(std::abs(rb.min - lo), allowed) << "trial " << t;
+    EXPECT_LE(std::abs(rb.max - hi), allowed) << "trial " << t;
+  }
+  EXPECT_LT(steps_loose, steps_tight);
+  std::printf("mean steps at N = %ld: %.1f (1e-12), %.1f (1e-8)\n", static_cast<long>(n),
+              steps_tight / 20, steps_loose / 20);
 }
 
 TEST(KrylovPath, TrialsAreReproducibleBitForBit) {

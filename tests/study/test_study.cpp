@@ -37,6 +37,35 @@ TEST(Study, LoneGueTakesTheTridiagonalPathAndSaysWhy) {
   EXPECT_EQ(s.expression().text(), "X");
 }
 
+// observe.extremes_tolerance and extremes_max_steps reach the krylov path's runner (its
+// explanation states both).
+TEST(Study, ExtremesAccuracyKeysReachTheKrylovPath) {
+  const std::string job = R"(seed = 3
+sizes = [60]
+trials = 2
+expression = "X1 X2 + X2 X1"
+
+[matrices.X1]
+ensemble = "gue"
+
+[matrices.X2]
+ensemble = "gue"
+
+[observe]
+extremes_only = true
+extremes_tolerance = 1e-9
+extremes_max_steps = 40
+
+[run]
+path = "krylov"
+)";
+  const Study s(parsed(job));
+  ASSERT_EQ(s.runners()[0].path(), model::Path::krylov);
+  const std::string text = s.runners()[0].explain();
+  EXPECT_NE(text.find("relative error estimate of 1e-09"), std::string::npos) << text;
+  EXPECT_NE(text.find("within 40 steps"), std::string::npos) << text;
+}
+
 TEST(Study, WorkUnitsAreBlocksOfTrialsPerUnitWithAShorterLast) {
   const Study s(parsed(kLoneGue));
   EXPECT_EQ(s.unit_count(0), 3);
