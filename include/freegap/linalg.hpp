@@ -74,14 +74,16 @@ enum class IsometryMethod { cholesky, householder };
 /// Nakatsukasa, Yanagisawa & Fukaya 2015); a Ginibre block with 2r ≤ N has κ near
 /// (1 + √(r/N))/(1 − √(r/N)) ≤ 5.9 (Marchenko–Pastur edges). A block with 2r > N, a failed
 /// Cholesky factorisation or a 1-norm condition estimate of R (ztrcon) above
-/// kIsometryConditionLimit(r) goes to haar_from_qr instead, so every input gets orthonormal
+/// isometry_condition_limit(r) goes to haar_from_qr instead, so every input gets orthonormal
 /// columns to about 1e-14. The choice depends on Z alone, so results stay reproducible.
 IsometryMethod haar_isometry(CMatrix& z);
 IsometryMethod haar_isometry(RMatrix& z);
 /// The largest 1-norm condition estimate of R that haar_isometry accepts: 4(r + 8). Measured on
 /// Ginibre blocks N = 2r (docs/performance.md §3): the estimates stay below 1.5(r + 16) (at most
 /// 29 at r = 3, 735 at r = 1000, 1690 at r = 2000), while square blocks give 33r and more.
-inline double kIsometryConditionLimit(Index r) { return 4.0 * (static_cast<double>(r) + 8.0); }
+inline double isometry_condition_limit(Index r) {
+  return 4.0 * (static_cast<double>(r) + 8.0);
+}
 
 /// Name of the algorithm polar_factor uses, for records of how a sample was drawn.
 inline constexpr const char* kPolarAlgorithm = "polar:newton-eig";

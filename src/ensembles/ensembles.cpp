@@ -148,8 +148,8 @@ void draw_haar_orthogonal(HaarMethod method, Index n, rng::Stream& stream, Sampl
 // r columns of a Haar unitary or orthogonal matrix: the N×r block of Ginibre numbers that the
 // full draw puts in its first r columns (the same stream positions), orthonormalised. With the
 // QR method (Cholesky QR for 2r ≤ N, linalg::haar_isometry) the result is, up to rounding, the
-// first r columns of the full draw; with the polar
-// method it has the same law (an N×r Haar isometry) but not the same values.
+// first r columns of the full draw; with the polar method it has the same law (an N×r Haar
+// isometry) but not the same values.
 void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& stream,
                        Sample& out) {
   if (spec.kind == Kind::haar_unitary) {

@@ -717,8 +717,8 @@ void read_extremes_accuracy(const Reader& r, const toml::table& t, ObserveSettin
 
 ObserveSettings read_observe(const Reader& r, const toml::table& t) {
   r.check_keys(t, "observe",
-               {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum", "extremes_only",
-                "extremes_tolerance", "extremes_max_steps"},
+               {"bins", "range", "margin", "max_moment", "keep_spectra", "spectrum",
+                "extremes_only", "extremes_tolerance", "extremes_max_steps"},
                "");
   ObserveSettings s;
   if (const toml::node* v = t.get("extremes_only")) {

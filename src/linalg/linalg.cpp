@@ -197,7 +197,7 @@ IsometryMethod haar_isometry(CMatrix& z) {
     double rcond = 0.0;
     if (LAPACKE_zpotrf(LAPACK_COL_MAJOR, 'U', lr, lp(g.data()), lr) == 0 &&
         LAPACKE_ztrcon(LAPACK_COL_MAJOR, '1', 'U', 'N', lr, lp(g.data()), lr, &rcond) == 0 &&
-        rcond * kIsometryConditionLimit(r) >= 1.0) {
+        rcond * isometry_condition_limit(r) >= 1.0) {
       const std::complex<double> one(1.0, 0.0);
       cblas_ztrsm(CblasColMajor, CblasRight, CblasUpper, CblasNoTrans, CblasNonUnit, ln, lr, &one,
                   g.data(), lr, z.data(), ln);
@@ -220,7 +220,7 @@ IsometryMethod haar_isometry(RMatrix& z) {
     double rcond = 0.0;
     if (LAPACKE_dpotrf(LAPACK_COL_MAJOR, 'U', lr, g.data(), lr) == 0 &&
         LAPACKE_dtrcon(LAPACK_COL_MAJOR, '1', 'U', 'N', lr, g.data(), lr, &rcond) == 0 &&
-        rcond * kIsometryConditionLimit(r) >= 1.0) {
+        rcond * isometry_condition_limit(r) >= 1.0) {
       cblas_dtrsm(CblasColMajor, CblasRight, CblasUpper, CblasNoTrans, CblasNonUnit, ln, lr, 1.0,
                   g.data(), lr, z.data(), ln);
       return IsometryMethod::cholesky;
