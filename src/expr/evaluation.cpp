@@ -1120,25 +1120,20 @@ class Evaluator {
       }
       case StepKind::copy: {
         const Ref r = step.in[0];
-        // Fresh storage of the right shape first (huge pages advised), then the copy fills it.
+        // Fresh storage of the right shape first (huge pages advised), then the copy fills it
+        // (adjoint() of a real matrix is its transpose).
+        const auto copy_into = [&r](auto& into, const auto& in) {
+          linalg::resize_fresh(into, r.adj ? in.cols() : in.rows(), r.adj ? in.rows() : in.cols());
+          if (r.adj) {
+            into = in.adjoint();
+          } else {
+            into = in;
+          }
+        };
         if (step.complex) {
-          const CMatrix& in = complex(r);
-          linalg::resize_fresh(out.complex, r.adj ? in.cols() : in.rows(),
-                               r.adj ? in.rows() : in.cols());
-          if (r.adj) {
-            out.complex = in.adjoint();
-          } else {
-            out.complex = in;
-          }
+          copy_into(out.complex, complex(r));
         } else {
-          const RMatrix& in = real(r);
-          linalg::resize_fresh(out.real, r.adj ? in.cols() : in.rows(),
-                               r.adj ? in.rows() : in.cols());
-          if (r.adj) {
-            out.real = in.transpose();
-          } else {
-            out.real = in;
-          }
+          copy_into(out.real, real(r));
         }
         break;
       }
