@@ -38,16 +38,16 @@ void semicircular_jacobian(const Matrix& G, const Matrix& A,
   }
 }
 
-// The forward-difference Jacobian of `residual_at` at y (whose residual is r), into J.
-template <class Residual>
-void forward_difference_jacobian(const Eigen::VectorXcd& y, const Eigen::VectorXcd& r,
-                                 const Residual& residual_at, Matrix& J) {
-  for (Eigen::Index k = 0; k < y.size(); ++k) {
-    check_stop();
-    const double h = 1e-7 * (1.0 + std::abs(y(k)));
-    Eigen::VectorXcd yk = y;
-    yk(k) += h;
-    J.col(k) = (residual_at(yk) - r) / h;
+// Adds c (Xᵀ ⊗ Y) to the n² × n² block of J at (row, col): the matrix of Δ ↦ c Y Δ X on
+// column-major vec (vec(Y Δ X) = (Xᵀ ⊗ Y) vec Δ).
+void add_kron(Matrix& J, Eigen::Index row, Eigen::Index col, cd c, const Matrix& X,
+              const Matrix& Y) {
+  const Eigen::Index n = X.rows();
+  for (Eigen::Index r1 = 0; r1 < n; ++r1) {
+    for (Eigen::Index c1 = 0; c1 < n; ++c1) {
+      const cd f = c * X(c1, r1);
+      if (f != 0.0) J.block(row + r1 * n, col + c1 * n, n, n) += f * Y;
+    }
   }
 }
 
@@ -100,43 +100,82 @@ Matrix OperatorValuedSolver::eta(const Matrix& g) const {
   return out;
 }
 
-Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega) const {
+Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega, Matrix* derivative) const {
   const General& g = general_[j];
+  const Eigen::Index nn = static_cast<Eigen::Index>(n_) * n_;
+  if (derivative != nullptr) derivative->setZero(nn, nn);
   if (!g.atoms.empty()) {
+    // G(ω) = Σ_a w_a R_a with R_a = (ω − a b)^{−1}; its derivative Δ ↦ −Σ_a w_a R_a Δ R_a.
     Matrix sum = Matrix::Zero(n_, n_);
-    for (const Atom& a : g.atoms) sum += a.weight * inverse(omega - a.value * g.b);
+    for (const Atom& a : g.atoms) {
+      const Matrix R = inverse(omega - a.value * g.b);
+      sum += a.weight * R;
+      if (derivative != nullptr) add_kron(*derivative, 0, 0, -a.weight, R, R);
+    }
     return sum;
   }
   // Woodbury with b = E S E^*: (ω − t b)^{−1} = A + t A E (I − t K)^{−1} S E^* A, A = ω^{−1},
   // K = S E^* A E. With K = W diag(κ) W^{−1}, ∫ t/(1 − tκ) dμ(t) = a(a G_μ(a) − 1), a = 1/κ
-  // (derived here from t/(a − t) = a/(a − t) − 1), or the series Σ_{n≥1} m_n a^{1−n} for large |a|.
+  // (derived here from t/(a − t) = a/(a − t) − 1), or the series Σ_{n≥1} m_n κ^{n−1} for large |a|.
   const Matrix A = inverse(omega);
   const Matrix AE = A * g.range;
   const Matrix EA = g.range.adjoint() * A;
   const Matrix K = g.eigen.cast<cd>().asDiagonal() * (g.range.adjoint() * AE);
   Eigen::ComplexEigenSolver<Matrix> es(K);
   const Matrix& W = es.eigenvectors();
-  Eigen::VectorXcd phi(K.rows());
-  for (Eigen::Index k = 0; k < K.rows(); ++k) {
-    const cd a = 1.0 / es.eigenvalues()(k);
+  const Eigen::Index r = K.rows();
+  Eigen::VectorXcd phi(r), dphi(r);  // Φ(κ_k) and Φ′(κ_k) = ∫ t²/(1 − tκ_k)² dμ(t)
+  for (Eigen::Index k = 0; k < r; ++k) {
+    const cd kappa = es.eigenvalues()(k);
+    const cd a = 1.0 / kappa;
     if (std::abs(a) > 8.0 * g.radius + 1e-300) {
-      cd sum = 0.0, power = 1.0;
+      cd sum = 0.0, dsum = 0.0, power = 1.0;  // power = κ^{n−1}
       for (std::size_t m = 1; m < g.moments.size(); ++m) {
         sum += g.moments[m] * power;
-        power /= a;
+        if (m >= 2) dsum += static_cast<double>(m - 1) * g.moments[m] * power / kappa;
+        power *= kappa;
         if (std::abs(power) * std::pow(g.radius, static_cast<double>(m)) < 1e-18 * std::abs(sum)) {
           break;
         }
       }
+      // κ = 0 exactly (a letter's block orthogonal to ω^{−1}): Φ′(0) = m_2.
+      if (kappa == 0.0 && g.moments.size() > 2) dsum = g.moments[2];
       phi(k) = sum;
+      dphi(k) = dsum;
     } else {
-      const cd G = a.imag() < 0.0 ? std::conj(g.law->cauchy(std::conj(a))) : g.law->cauchy(a);
+      const bool lower = a.imag() < 0.0;
+      auto [G, dG] = g.law->cauchy_with_derivative(lower ? std::conj(a) : a);
+      if (lower) {
+        G = std::conj(G);
+        dG = std::conj(dG);
+      }
       phi(k) = a * (a * G - 1.0);
+      // dΦ/dκ = dΦ/da · da/dκ = (2aG + a²G′ − 1)(−a²).
+      dphi(k) = -a * a * (2.0 * a * G + a * a * dG - 1.0);
     }
   }
-  const Matrix T = W * phi.asDiagonal() *
-                   W.partialPivLu().solve(g.eigen.cast<cd>().asDiagonal().toDenseMatrix());
-  return A + AE * T * EA;
+  const Matrix P = AE * W;  // columns p_k
+  const Matrix Q = W.partialPivLu().solve(g.eigen.cast<cd>().asDiagonal() * EA);  // rows q_k
+  const Matrix H = P * phi.asDiagonal() * Q;
+  if (derivative != nullptr) {
+    // (ω − t b)^{−1} = A + Σ_k φ_k(t) C_k with C_k = p_k q_k and φ_k(t) = t/(1 − tκ_k), so
+    // E[R Δ R] = AΔA + HΔA + AΔH + Σ_{i,k} E[φ_i φ_k] C_i Δ C_k with H = Σ_k Φ_k C_k, and
+    // E[φ_i φ_k] = (Φ_i − Φ_k)/(κ_i − κ_k) (from t²κ/(1 − tκ) = φ(t) − t), Φ′ where κ_i = κ_k.
+    Matrix& L = *derivative;
+    add_kron(L, 0, 0, -1.0, A, A);
+    add_kron(L, 0, 0, -1.0, A, H);
+    add_kron(L, 0, 0, -1.0, H, A);
+    for (Eigen::Index i = 0; i < r; ++i) {
+      const Matrix Ci = P.col(i) * Q.row(i);
+      for (Eigen::Index k = 0; k < r; ++k) {
+        const cd ki = es.eigenvalues()(i), kk = es.eigenvalues()(k);
+        const bool close = std::abs(ki - kk) <= 1e-6 * (std::abs(ki) + std::abs(kk));
+        const cd psi = close ? 0.5 * (dphi(i) + dphi(k)) : (phi(i) - phi(k)) / (ki - kk);
+        add_kron(L, 0, 0, -psi, P.col(k) * Q.row(k), Ci);
+      }
+    }
+  }
+  return A + H;
 }
 
 OperatorValuedSolver::State OperatorValuedSolver::start(const Matrix& beta) const {
@@ -242,6 +281,33 @@ Eigen::VectorXcd OperatorValuedSolver::residual(const Matrix& beta,
   return pack(out);
 }
 
+void OperatorValuedSolver::general_jacobian(const Eigen::VectorXcd& y, Matrix& J) const {
+  // The residual's blocks are r_0 = Σ_j ω_j − β + η(G) − (m − 1)G^{−1} and r_j = G_j(ω_j) − G
+  // (j ≥ 1), with G = G_0(ω_0). With L_j the derivative of G_j at ω_j: dG = L_0Δ_0,
+  // dr_0 = Σ_j Δ_j + [η + (m − 1) G^{−1}(·)G^{−1}] L_0Δ_0 and dr_j = L_jΔ_j − L_0Δ_0.
+  check_stop();
+  const State s = unpack(y);
+  const std::size_t m = general_.size();
+  const Eigen::Index nn = static_cast<Eigen::Index>(n_) * n_;
+  std::vector<Matrix> L(m);
+  const Matrix G = letter_cauchy(0, s.unknowns[0], &L[0]);
+  Matrix outer = Matrix::Zero(nn, nn);
+  for (const auto& b : semicircular_) add_kron(outer, 0, 0, 1.0, b, b);
+  if (m > 1) {
+    const Matrix Gi = inverse(G);
+    add_kron(outer, 0, 0, static_cast<double>(m - 1), Gi, Gi);
+  }
+  J.setZero();
+  J.block(0, 0, nn, nn) = Matrix::Identity(nn, nn) + outer * L[0];
+  for (std::size_t j = 1; j < m; ++j) {
+    (void)letter_cauchy(static_cast<int>(j), s.unknowns[j], &L[j]);
+    const Eigen::Index at = static_cast<Eigen::Index>(j) * nn;
+    J.block(0, at, nn, nn) = Matrix::Identity(nn, nn);
+    J.block(at, 0, nn, nn) = -L[0];
+    J.block(at, at, nn, nn) = L[j];
+  }
+}
+
 bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_steps, double tol,
                                   int& steps) const {
   Eigen::VectorXcd y = pack(state);
@@ -257,8 +323,7 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
       const Matrix A = beta - eta(G);
       semicircular_jacobian(G, A, semicircular_, n_, J);
     } else {
-      const auto residual_at = [&](const Eigen::VectorXcd& yk) { return residual(beta, yk); };
-      forward_difference_jacobian(y, r, residual_at, J);
+      general_jacobian(y, J);
     }
     lu.compute(J);
     fresh = true;

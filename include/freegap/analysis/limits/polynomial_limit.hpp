@@ -35,6 +35,7 @@
 #include <Eigen/Core>
 #include <complex>
 #include <memory>
+#include <optional>
 #include <mutex>
 #include <span>
 #include <string>
@@ -186,6 +187,9 @@ class PolynomialLaw final : public Law {
   /// Mass of the continuous part found by integrating the density over its bands (1 when there
   /// are no atoms); continuous_mass() + Σ atoms < 1 says that mass was not found.
   double continuous_mass() const;
+  /// The point masses (also in support().atoms) that lie on a band, found only as the band's
+  /// contour mass less its density table (find_hidden_atom): their weights are less certain.
+  const std::vector<Atom>& atoms_on_bands() const { return atoms_on_bands_; }
   /// Each band's mass from the contour integral of the Cauchy transform around it (point masses
   /// inside taken out): what the CDF table of the band is scaled to; negative where a solve
   /// failed.
@@ -199,6 +203,7 @@ class PolynomialLaw final : public Law {
   PolynomialLimitOptions options_;
   std::unique_ptr<OperatorValuedSolver> solver_;
   Support support_;
+  std::vector<Atom> atoms_on_bands_;
   double scale_ = 1.0;
   mutable std::once_flag table_once_;
   /// One band's density table: x = lo + w(1 − cos θ)/2 over θ ∈ [0, π].
@@ -218,7 +223,18 @@ class PolynomialLaw final : public Law {
     /// The band's mass from the contour integral of G (exact to the solver's accuracy), and the
     /// density table's own integral before it was scaled to that mass.
     double exact_mass = -1.0, table_mass = 0.0;
+    /// The contour's first moment ∫ t dμ over the band (point masses known before excluded), and
+    /// a point mass at or in the band that only the difference between contour and table shows
+    /// (find_hidden_atom).
+    double exact_first = 0.0;
+    std::optional<Atom> hidden_atom;
   };
+  void find_hidden_atom(BandTable& table, double table_first) const;
+  // The band's table from the densities at its nodes (from `node` on), less a point mass's share
+  // when `without` is given; returns the table's first moment.
+  double integrate_band(BandTable& table, const std::vector<DensityReport>& ds,
+                        const std::vector<double>& jacobian, std::size_t node,
+                        const Atom* without) const;
   std::vector<DensityReport> solve_densities(std::span<const double> xs) const;
   void add_singular_window(BandTable& table, double centre) const;
   void set_exact_mass(BandTable& table, std::size_t band) const;
