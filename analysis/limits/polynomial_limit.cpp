@@ -47,8 +47,8 @@ using State = OperatorValuedSolver::State;
 
 // The secant predictor: the solution is analytic in s, so its line through the solutions at the
 // last two distances (s_before, s) starts Newton at s_next O((Δs)²) from the answer instead of
-// O(Δs) (Euler–Newton continuation; Allgower & Georg 1990, from memory). With the exact Jacobian it cut the
-// averaged iterations of 2 W1 W2 + 2 W2 W1 + W1 from 2.9 million to 57,000.
+// O(Δs) (Euler–Newton continuation; Allgower & Georg 1990, from memory). With the exact Jacobian
+// it cut the averaged iterations of 2 W1 W2 + 2 W2 W1 + W1 from 2.9 million to 57,000.
 State predicted(const State& current, const State& before, double s_before, double s,
                 double s_next) {
   State out = current;
