@@ -38,15 +38,14 @@ void semicircular_jacobian(const Matrix& G, const Matrix& A,
   }
 }
 
-// Adds c (Xᵀ ⊗ Y) to the n² × n² block of J at (row, col): the matrix of Δ ↦ c Y Δ X on
-// column-major vec (vec(Y Δ X) = (Xᵀ ⊗ Y) vec Δ).
-void add_kron(Matrix& J, Eigen::Index row, Eigen::Index col, cd c, const Matrix& X,
-              const Matrix& Y) {
+// Adds c (Xᵀ ⊗ Y) to the n² × n² matrix J: the matrix of Δ ↦ c Y Δ X on column-major vec
+// (vec(Y Δ X) = (Xᵀ ⊗ Y) vec Δ).
+void add_kron(Matrix& J, cd c, const Matrix& X, const Matrix& Y) {
   const Eigen::Index n = X.rows();
   for (Eigen::Index r1 = 0; r1 < n; ++r1) {
     for (Eigen::Index c1 = 0; c1 < n; ++c1) {
       const cd f = c * X(c1, r1);
-      if (f != 0.0) J.block(row + r1 * n, col + c1 * n, n, n) += f * Y;
+      if (f != 0.0) J.block(r1 * n, c1 * n, n, n) += f * Y;
     }
   }
 }
@@ -110,7 +109,7 @@ Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega, Matrix* d
     for (const Atom& a : g.atoms) {
       const Matrix R = inverse(omega - a.value * g.b);
       sum += a.weight * R;
-      if (derivative != nullptr) add_kron(*derivative, 0, 0, -a.weight, R, R);
+      if (derivative != nullptr) add_kron(*derivative, -a.weight, R, R);
     }
     return sum;
   }
@@ -162,16 +161,17 @@ Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega, Matrix* d
     // E[R Δ R] = AΔA + HΔA + AΔH + Σ_{i,k} E[φ_i φ_k] C_i Δ C_k with H = Σ_k Φ_k C_k, and
     // E[φ_i φ_k] = (Φ_i − Φ_k)/(κ_i − κ_k) (from t²κ/(1 − tκ) = φ(t) − t), Φ′ where κ_i = κ_k.
     Matrix& L = *derivative;
-    add_kron(L, 0, 0, -1.0, A, A);
-    add_kron(L, 0, 0, -1.0, A, H);
-    add_kron(L, 0, 0, -1.0, H, A);
+    add_kron(L, -1.0, A, A);
+    add_kron(L, -1.0, A, H);
+    add_kron(L, -1.0, H, A);
+    std::vector<Matrix> C(static_cast<std::size_t>(r));
+    for (Eigen::Index k = 0; k < r; ++k) C[static_cast<std::size_t>(k)] = P.col(k) * Q.row(k);
     for (Eigen::Index i = 0; i < r; ++i) {
-      const Matrix Ci = P.col(i) * Q.row(i);
       for (Eigen::Index k = 0; k < r; ++k) {
         const cd ki = es.eigenvalues()(i), kk = es.eigenvalues()(k);
         const bool close = std::abs(ki - kk) <= 1e-6 * (std::abs(ki) + std::abs(kk));
         const cd psi = close ? 0.5 * (dphi(i) + dphi(k)) : (phi(i) - phi(k)) / (ki - kk);
-        add_kron(L, 0, 0, -psi, P.col(k) * Q.row(k), Ci);
+        add_kron(L, -psi, C[static_cast<std::size_t>(k)], C[static_cast<std::size_t>(i)]);
       }
     }
   }
@@ -292,10 +292,10 @@ void OperatorValuedSolver::general_jacobian(const Eigen::VectorXcd& y, Matrix& J
   std::vector<Matrix> L(m);
   const Matrix G = letter_cauchy(0, s.unknowns[0], &L[0]);
   Matrix outer = Matrix::Zero(nn, nn);
-  for (const auto& b : semicircular_) add_kron(outer, 0, 0, 1.0, b, b);
+  for (const auto& b : semicircular_) add_kron(outer, 1.0, b, b);
   if (m > 1) {
     const Matrix Gi = inverse(G);
-    add_kron(outer, 0, 0, static_cast<double>(m - 1), Gi, Gi);
+    add_kron(outer, static_cast<double>(m - 1), Gi, Gi);
   }
   J.setZero();
   J.block(0, 0, nn, nn) = Matrix::Identity(nn, nn) + outer * L[0];
