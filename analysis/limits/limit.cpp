@@ -775,13 +775,12 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
                     mass, std::abs(1.0 - mass));
       out.law_note = buffer;
     }
-    for (const Atom& a : law->atoms_on_bands()) {
+    for (const auto& u : law->uncertain_weights()) {
       char buffer[320];
       std::snprintf(buffer, sizeof buffer,
-                    "the point mass %.6g at x = %.10g lies on a band, where only the band's "
-                    "contour mass less its density table shows it: its weight may be off by about "
-                    "1e-3 (measured: 9e-4 for a known 0.05)",
-                    a.weight, a.value);
+                    "the weight %.6g of the point mass at x = %.10g may be off by about %.0e (it "
+                    "lies on or next to a band, where the solver weighs it less well)",
+                    u.atom.weight, u.atom.value, u.uncertainty);
       out.law_note += (out.law_note.empty() ? "" : "; ") + std::string(buffer);
     }
   } catch (const Stopped&) {

@@ -155,6 +155,20 @@ SolveReport solve_chain(const OperatorValuedSolver& solver, cd z, double epsilon
     if (const auto s = continue_down(solver, z, epsilon_final, scale, options, predict, rep)) {
       finish(*s);
       if (rep.converged) return rep;
+      // Ended on the mirror image (Im G > 0): next to the axis the equations at z and z̄ nearly
+      // agree, and the solution at z̄ is the adjoint of the one at z, so Newton from the
+      // adjoint of what was found lands on the physical solution.
+      State mirrored = *s;
+      for (auto& u : mirrored.unknowns) u = u.adjoint().eval();
+      int steps = 0;
+      const bool ok = solver.newton(solver.beta(z, epsilon_final), mirrored,
+                                    options.max_newton_steps, kTolerance, steps);
+      rep.newton_steps += steps;
+      if (ok) {
+        rep.reason.clear();
+        finish(mirrored);
+        if (rep.converged) return rep;
+      }
     }
   }
   rep.converged = false;
@@ -577,11 +591,15 @@ std::optional<Atom> contour_atom(const OperatorValuedSolver& solver,
 // no band and no other point mass (arc_mass): exact to the solver's accuracy, where the residue
 // estimate of refine_atom is off by O(ε r/m) (1.7e-5 relative for the 0.3 at 0 of S W S with S
 // singular). A point mass in or on a band keeps its estimate; the band's contour mass, which
-// subtracts it, then carries the difference.
+// subtracts it, then carries the difference. A weight whose extrapolation settled to 1e-9
+// (weigh_point_mass; `settled` holds their places) is kept: near a band's edge the contour's
+// circle is small and meets the axis where G changes fast (the 0.01 of −B³ + ½(AB + BA), 8.9e-6
+// above an edge, came out as 0.009999 against the extrapolation's 0.0100000001).
 void exact_atom_weights(const OperatorValuedSolver& solver, Support& support, double scale,
-                        const PolynomialLimitOptions& options) {
+                        const PolynomialLimitOptions& options, const std::vector<double>& settled) {
   for (std::size_t k = 0; k < support.atoms.size(); ++k) {
     Atom& atom = support.atoms[k];
+    if (std::find(settled.begin(), settled.end(), atom.value) != settled.end()) continue;
     double room = 0.05 * scale;
     for (const Interval& b : support.bands) {
       if (atom.value >= b.lo && atom.value <= b.hi) room = 0.0;
@@ -594,6 +612,147 @@ void exact_atom_weights(const OperatorValuedSolver& solver, Support& support, do
     const double rho = 0.5 * room;
     const auto m = arc_mass(solver, atom.value - rho, atom.value + rho, 0.5, 0.5, scale, options);
     if (m && std::abs(*m - atom.weight) <= 1e-3 * atom.weight) atom.weight = *m;
+  }
+}
+
+// Point masses that linear algebra forces, at exact places. Take an eigenspace E_i of each letter
+// (value a_i, share w_i) and their intersection E. On E every word acts as the product of its
+// letters' values, so P acts as the scalar p(a_1, …, a_k), the polynomial evaluated on numbers.
+// And dim E ≥ Σ dim E_i − (k − 1)N (dim(V ∩ W) ≥ dim V + dim W − N; elementary). So p(a) is a
+// point mass of weight at least Σ w_i − (k − 1) wherever that is positive; intersections for
+// different values are orthogonal, so the bounds of equal p(a) add. For a free sum of two atomic
+// laws the weight is exactly this bound (Bercovici & Voiculescu 1998, from memory); for other
+// polynomials more mass can sit there, so the weight is measured (weigh_point_mass).
+std::vector<Atom> forced_atoms(const FreePolynomial& p) {
+  const std::size_t k = p.letters.size();
+  std::vector<std::vector<Atom>> atoms(k);
+  for (std::size_t i = 0; i < k; ++i) {
+    if (!p.letters[i].law) return {};
+    atoms[i] = p.letters[i].law->support().atoms;
+    if (atoms[i].empty()) return {};
+    // Heaviest first: the search below stops at the first value whose share leaves no room.
+    std::sort(atoms[i].begin(), atoms[i].end(),
+              [](const Atom& x, const Atom& y) { return x.weight > y.weight; });
+  }
+  std::vector<double> value(k, 0.0);
+  std::vector<Atom> out;
+  const auto evaluate = [&] {
+    double v = 0.0;
+    for (const RealTerm& t : p.terms) {
+      double product = t.coefficient.real();
+      for (const int j : t.word) product *= value[static_cast<std::size_t>(j)];
+      v += product;
+    }
+    return v;
+  };
+  // Depth-first over one value per letter; `deficit` = Σ (1 − w_i) so far, which must stay < 1.
+  const auto visit = [&](const auto& self, std::size_t i, double deficit) -> void {
+    if (i == k) {
+      out.push_back({evaluate(), 1.0 - deficit});
+      return;
+    }
+    for (const Atom& a : atoms[i]) {
+      const double d = deficit + (1.0 - a.weight);
+      if (d >= 1.0 - 1e-12) break;
+      value[i] = a.value;
+      self(self, i + 1, d);
+    }
+  };
+  visit(visit, 0, 0.0);
+  std::sort(out.begin(), out.end(), [](const Atom& x, const Atom& y) { return x.value < y.value; });
+  std::vector<Atom> merged;
+  for (const Atom& a : out) {
+    if (!merged.empty() && std::abs(a.value - merged.back().value) <= 1e-12 * (1.0 + std::abs(a.value))) {
+      merged.back().weight += a.weight;
+    } else {
+      merged.push_back(a);
+    }
+  }
+  return merged;
+}
+
+// The weight of a point mass at a known place a: w(ε) = ε·(−Im G(a + iε)) is m plus the
+// continuous part's share, O(ε^{1−α}) where the density is O(|x − a|^{−α}), once ε is small
+// against the distance to the nearest band edge or point mass. ε runs down from 10⁻⁵ of the scale
+// by factors of 4; Aitken's Δ² on each three consecutive values removes the leading power,
+// whatever it is, and the weight is taken when two extrapolations agree to 10⁻¹⁰. The sequence
+// stops where a value jumps (measured: below about 10⁻⁷ of the scale the solve can settle on a
+// branch that misses the point mass: 0.009 in place of 0.05). Measured: 0.05 at −1.938 of
+// A V B V^* + V B V^* A to 4e-11 (the residue of the band's table had been 9e-4 off); 0.01 at
+// 0.136048 of −B³ + ½(AB + BA), 1.4e-5 from a band's edge, to 1e-10 at ε = 1.5e-9 of the scale.
+// Returns the weight and the last two extrapolations' difference.
+std::optional<std::pair<double, double>> weigh_point_mass(const OperatorValuedSolver& solver,
+                                                          double a, double scale,
+                                                          const PolynomialLimitOptions& options) {
+  std::vector<double> w, extrapolated;
+  for (double eps = 1e-5 * scale; eps >= 1e-9 * scale; eps *= 0.25) {
+    check_stop();
+    State state;
+    const SolveReport r = solve_chain(solver, cd(a, eps), 0.0, scale, options, state, false);
+    if (!r.converged) break;
+    const double value = -eps * r.cauchy.imag();
+    const std::size_t n = w.size();
+    if (n >= 2 && std::abs(value - w[n - 1]) > 2.0 * std::abs(w[n - 1] - w[n - 2])) break;
+    w.push_back(value);
+    if (n + 1 < 3) continue;
+    const double d1 = w[n - 1] - w[n - 2], d2 = w[n] - w[n - 1];
+    extrapolated.push_back(std::abs(d2 - d1) > 1e-300 ? w[n] - d2 * d2 / (d2 - d1) : w[n]);
+    const std::size_t e = extrapolated.size();
+    if (e >= 2 && std::abs(extrapolated[e - 1] - extrapolated[e - 2]) <= 1e-10) break;
+  }
+  const std::size_t e = extrapolated.size();
+  if (e < 2 || !(extrapolated[e - 1] > 0.0)) return std::nullopt;
+  return std::pair{extrapolated[e - 1], std::abs(extrapolated[e - 1] - extrapolated[e - 2])};
+}
+
+// Whether x, beside a point mass `atom`, lies in a band. Near a point mass the solves on the
+// axis (the pencil's ε) can settle on a branch that smears the point mass over a width ~3e-7,
+// independent of ε: A V B V^* + V B V^* A then showed a band of density ~4e-9/u² around its 0.05
+// at −1.938 and from 2e-4 below it, where NumPy (N = 2000) has no eigenvalue within 5.4e-4 below
+// or above it. Here G is solved at x + iη with η = max(|u|/100, 3·10⁻⁷ of the scale) and η/3
+// (u = x − a), above that width, and the point mass's own share m η/(π(u² + η²)) is taken out:
+// what remains is the continuous density smoothed over η, which is ∝ η in a gap (ratio 1/3) and
+// settles in a band (ratio → 1; at a square-root edge the two meet where the distance is ~η,
+// which bounds the accuracy of an edge found this way).
+std::optional<bool> inside_beside(const OperatorValuedSolver& solver, double x, const Atom& atom,
+                                  double scale, const PolynomialLimitOptions& options) {
+  const double u = std::abs(x - atom.value);
+  double f[2];
+  for (int k = 0; k < 2; ++k) {
+    const double eta = std::max(1e-2 * u, 3e-7 * scale) / (k == 0 ? 1.0 : 3.0);
+    State state;  // cold: a warm start from η kept the smeared branch at η/3
+    const SolveReport r = solve_chain(solver, cd(x, eta), 0.0, scale, options, state, false);
+    if (!r.converged) return std::nullopt;
+    f[k] = -r.cauchy.imag() / kPi - atom.weight * eta / (kPi * (u * u + eta * eta));
+  }
+  return f[1] > 0.0 && f[1] > 0.65 * f[0];
+}
+
+// The part of a band on one side of a point mass (direction ±1), probed at distances growing by
+// 2 from 10⁻⁵ of the scale up to `extent`: the distance of the first point inside (then bisected
+// against the last point outside to a third of the test's resolution), +∞ when every probe is
+// outside, or empty when a solve fails.
+std::optional<double> first_inside(const OperatorValuedSolver& solver, const Atom& atom,
+                                   double direction, double extent, double scale,
+                                   const PolynomialLimitOptions& options) {
+  double outside = 0.0;
+  for (double d = 1e-5 * scale;; d = std::min(2.0 * d, extent)) {
+    check_stop();
+    const auto in = inside_beside(solver, atom.value + direction * d, atom, scale, options);
+    if (!in) return std::nullopt;
+    if (*in) {
+      double lo = outside, hi = d;
+      // No finer than a third of the test's own resolution η there (inside_beside).
+      while (hi - lo > 0.3 * std::max(1e-2 * hi, 3e-7 * scale)) {
+        const double mid = 0.5 * (lo + hi);
+        const auto m = inside_beside(solver, atom.value + direction * mid, atom, scale, options);
+        if (!m) return std::nullopt;
+        (*m ? hi : lo) = mid;
+      }
+      return hi;
+    }
+    outside = d;
+    if (d >= extent) return std::numeric_limits<double>::infinity();
   }
 }
 
@@ -648,50 +807,23 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
     support_.lo = 0.0;
     support_.bands.front().lo = std::max(0.0, support_.bands.front().lo);
   }
-  // Point masses, by refine_atom: first at the constant term c_0 of P, where one sits in the
-  // common case (a factor with an atom at 0, e.g. X B X with B singular; placed exactly there),
-  // then from the scan's candidates (for example where two projections overlap).
-  double c0 = 0.0;
-  for (const auto& t : polynomial_.terms) {
-    if (t.word.empty()) c0 += t.coefficient.real();
-  }
-  const double h = 2.0 * from / std::max(64, options_.scan_points);
-  if (auto atom = refine_atom(*solver_, c0, h, scale_, options_);
-      atom && std::abs(atom->value - c0) <= 1e-6 * scale_) {
-    support_.atoms.push_back({c0, atom->weight});
-  }
-  // A point mass next to a band is no local maximum of the scan (the band's own mass rises
-  // towards it): each edge is a candidate too. Found in the catalogue: −B³ + ½(AB + BA) with A, B
-  // Haar-rotated atomic laws has the point mass 0.05 at −5.882, 1.2e-3 from a band (contour_atom
-  // finds it). Its 0.01 at 0.136048 lies within 1.5e-5 of a computed edge, where neither test
-  // decides: it is still missed, and the law's mass note says so.
-  for (const Interval& band : support_.bands) {
-    atom_candidates.push_back(band.lo);
-    atom_candidates.push_back(band.hi);
-  }
-  for (double x : atom_candidates) {
-    if (std::abs(x - c0) < 2.0 * h) continue;
-    double estimate = kNaN;
-    auto atom = refine_atom(*solver_, x, h, scale_, options_, &estimate);
-    if (!atom && std::isfinite(estimate)) {
-      atom = contour_atom(*solver_, support_.bands, estimate, scale_, options_);
-    }
-    if (!atom) continue;
-    const bool known = std::any_of(support_.atoms.begin(), support_.atoms.end(), [&](const Atom& k) {
-      return std::abs(k.value - atom->value) < 1e-6 * scale_;
+  const std::vector<double> settled = locate_point_masses(std::move(atom_candidates), from);
+  trim_bands_beside_atoms();
+  exact_atom_weights(*solver_, support_, scale_, options_, settled);
+  // A weight the contour integral settled is no longer uncertain.
+  std::erase_if(uncertain_weights_, [&](const UncertainWeight& u) {
+    return std::none_of(support_.atoms.begin(), support_.atoms.end(), [&](const Atom& a) {
+      return a.value == u.atom.value && a.weight == u.atom.weight;
     });
-    if (!known) support_.atoms.push_back(*atom);
-  }
-  std::sort(support_.atoms.begin(), support_.atoms.end(),
-            [](const Atom& x, const Atom& y) { return x.value < y.value; });
-  exact_atom_weights(*solver_, support_, scale_, options_);
+  });
   // The tables now, not lazily: a point mass only they reveal (find_hidden_atom) belongs to the
-  // support that every later question sees.
+  // support that every later question sees. Its weight is good to about 1e-3 (measured: 9e-4 for
+  // a known 0.05 before weigh_point_mass took that case over).
   std::call_once(table_once_, [this] { build_table(); });
   for (const BandTable& t : tables_) {
     if (!t.hidden_atom) continue;
     support_.atoms.push_back(*t.hidden_atom);
-    atoms_on_bands_.push_back(*t.hidden_atom);
+    uncertain_weights_.push_back({*t.hidden_atom, 1e-3});
   }
   std::sort(support_.atoms.begin(), support_.atoms.end(),
             [](const Atom& x, const Atom& y) { return x.value < y.value; });
@@ -701,19 +833,106 @@ PolynomialLaw::PolynomialLaw(FreePolynomial polynomial, std::vector<double> exac
   }
 }
 
+std::vector<double> PolynomialLaw::locate_point_masses(std::vector<double> candidates,
+                                                       double from) {
+  std::vector<double> settled;
+  const auto known = [&](double x) {
+    return std::any_of(support_.atoms.begin(), support_.atoms.end(),
+                       [&](const Atom& k) { return std::abs(k.value - x) < 1e-6 * scale_; });
+  };
+  // First those the dimension count forces (forced_atoms), at their exact places.
+  for (const Atom& forced : forced_atoms(polynomial_)) {
+    const auto measured = weigh_point_mass(*solver_, forced.value, scale_, options_);
+    Atom atom = forced;  // the lower bound, where the solver cannot weigh it
+    double uncertainty = 1e-3;
+    if (measured && measured->first >= forced.weight - 1e-6) {
+      atom.weight = measured->first;
+      uncertainty = measured->second;
+    }
+    support_.atoms.push_back(atom);
+    if (uncertainty <= 1e-9) settled.push_back(atom.value);
+    if (uncertainty > 1e-8) uncertain_weights_.push_back({atom, uncertainty});
+  }
+  // Then by refine_atom: at the constant term c_0 of P, where one sits in the common case (a
+  // factor with an atom at 0, e.g. X B X with B singular; placed exactly there), then from the
+  // scan's candidates (for example where two projections overlap).
+  const double c0 = constant_term(polynomial_);
+  const double h = 2.0 * from / std::max(64, options_.scan_points);
+  if (!known(c0)) {
+    if (auto atom = refine_atom(*solver_, c0, h, scale_, options_);
+        atom && std::abs(atom->value - c0) <= 1e-6 * scale_) {
+      support_.atoms.push_back({c0, atom->weight});
+    }
+  }
+  // A point mass next to a band is no local maximum of the scan (the band's own mass rises
+  // towards it): each edge is a candidate too. Found in the catalogue: −B³ + ½(AB + BA) with A, B
+  // Haar-rotated atomic laws has the point mass 0.05 at −5.882, 1.2e-3 from a band (contour_atom
+  // finds it when the dimension count does not).
+  for (const Interval& band : support_.bands) {
+    candidates.push_back(band.lo);
+    candidates.push_back(band.hi);
+  }
+  for (double x : candidates) {
+    if (std::abs(x - c0) < 2.0 * h || known(x)) continue;
+    double estimate = kNaN;
+    auto atom = refine_atom(*solver_, x, h, scale_, options_, &estimate);
+    if (!atom && std::isfinite(estimate)) {
+      atom = contour_atom(*solver_, support_.bands, estimate, scale_, options_);
+    }
+    if (atom && !known(atom->value)) support_.atoms.push_back(*atom);
+  }
+  std::sort(support_.atoms.begin(), support_.atoms.end(),
+            [](const Atom& x, const Atom& y) { return x.value < y.value; });
+  return settled;
+}
+
+// A band that holds a point mass (more than 10⁻⁶ of the scale from either edge) may reach it
+// only through the smeared branch (inside_beside): where every probe on one side of the point
+// mass is outside, that side goes and the band's edge moves to the first point inside on the
+// other side. A band with nothing inside on either side (within 10⁻² of the scale) is dropped. A
+// point mass at a band's edge or outside it leaves the band as the scan found it.
+void PolynomialLaw::trim_bands_beside_atoms() {
+  const double reach = 1e-2 * scale_;
+  for (const Atom& atom : support_.atoms) {
+    for (std::size_t k = 0; k < support_.bands.size(); ++k) {
+      Interval& band = support_.bands[k];
+      const double below = atom.value - band.lo, above = band.hi - atom.value;
+      if (below <= 1e-6 * scale_ || above <= 1e-6 * scale_) continue;
+      const auto left = first_inside(*solver_, atom, -1.0, std::min(below, reach), scale_, options_);
+      const auto right = first_inside(*solver_, atom, 1.0, std::min(above, reach), scale_, options_);
+      if (!left || !right) continue;
+      const bool left_empty = std::isinf(*left) && below <= reach;
+      const bool right_empty = std::isinf(*right) && above <= reach;
+      if (left_empty && right_empty) {
+        support_.bands.erase(support_.bands.begin() + static_cast<std::ptrdiff_t>(k));
+        --k;
+        continue;
+      }
+      if (left_empty && std::isfinite(*right)) band.lo = atom.value + *right;
+      if (right_empty && std::isfinite(*left)) band.hi = atom.value - *left;
+    }
+  }
+  // With no band left the support is its point masses (the constructor widens to them).
+  support_.lo = support_.bands.empty() ? std::numeric_limits<double>::infinity()
+                                       : support_.bands.front().lo;
+  support_.hi = support_.bands.empty() ? -std::numeric_limits<double>::infinity()
+                                       : support_.bands.back().hi;
+}
+
 PolynomialLaw::~PolynomialLaw() = default;
 
 double PolynomialLaw::norm_limit() const {
   return std::max(std::abs(support_.lo), std::abs(support_.hi));
 }
 
-std::vector<DensityReport> PolynomialLaw::solve_densities(std::span<const double> xs) const {
+std::vector<DensityReport> PolynomialLaw::solve_densities(std::span<const double> xs,
+                                                         double eps_factor) const {
   std::vector<DensityReport> out;
   out.reserve(xs.size());
   State state;
   bool warm = false;
   double previous = 0.0;
-  const double eps = options_.epsilon * scale_;
+  const double eps = options_.epsilon * scale_ * eps_factor;
   for (double x : xs) {
     check_stop();
     DensityReport d;
@@ -742,14 +961,12 @@ std::vector<DensityReport> PolynomialLaw::solve_densities(std::span<const double
 }
 
 std::vector<DensityReport> PolynomialLaw::evaluate(std::span<const double> xs) const {
-  // Near the constant term a singular point may have a window (build_table): there the density
-  // is its fitted power law, not a solve (which takes ~10⁵ iterations at the singular point).
-  const double c0 = constant_term(polynomial_);
-  const bool near = std::any_of(xs.begin(), xs.end(), [&](double x) {
-    return std::abs(x - c0) <= 1e-3 * (support_.hi - support_.lo);
-  });
-  if (!near) return solve_densities(xs);
+  // A singular point may have a window (build_table): there the density is its fitted power law,
+  // not a solve (which takes ~10⁵ iterations at the singular point).
   std::call_once(table_once_, [this] { build_table(); });
+  if (std::none_of(tables_.begin(), tables_.end(), [](const BandTable& t) { return t.window >= 0; })) {
+    return solve_densities(xs);
+  }
   std::vector<DensityReport> out(xs.size());
   std::vector<double> to_solve;
   std::vector<std::size_t> solved_at;
@@ -845,35 +1062,52 @@ std::vector<double> PolynomialLaw::moments(int k) const {
   return solver_moments(k);
 }
 
-void PolynomialLaw::add_singular_window(BandTable& table, double centre) const {
+// The fitted laws' mass over [window_lo, x] for x in the window (before window_scale).
+double PolynomialLaw::window_mass(const BandTable& t, double x) {
+  const PowerLaw left{t.left_c, t.left_alpha, t.left_b}, right{t.right_c, t.right_alpha, t.right_b};
+  const double left_part = left.mass(t.centre - t.window_lo);
+  return x < t.centre ? left_part - left.mass(t.centre - x) : left_part + right.mass(x - t.centre);
+}
+
+void PolynomialLaw::add_singular_window(BandTable& table, double centre, bool left_side,
+                                        bool right_side, double beyond) const {
   // The circle of the window's contour keeps the distance δ from the singular point: G is smooth
-  // along it, and three panels of Gauss–Legendre suffice (one middle panel).
+  // along it, and three panels of Gauss–Legendre suffice (one middle panel). At a band's end
+  // (one side only) the circle crosses the axis `beyond` the end instead, in the gap.
   const double w = table.width, delta = 1e-4 * w;
-  if (centre - 8.0 * delta <= table.lo || centre + 8.0 * delta >= table.lo + w) return;
-  const std::vector<double> xs = {centre - 4 * delta, centre - 2 * delta, centre - delta,
-                                  centre + delta,     centre + 2 * delta, centre + 4 * delta};
+  if ((left_side && centre - 8.0 * delta <= table.lo) ||
+      (right_side && centre + 8.0 * delta >= table.lo + w)) {
+    return;
+  }
+  std::vector<double> xs;
+  if (left_side) xs.insert(xs.end(), {centre - 4 * delta, centre - 2 * delta, centre - delta});
+  if (right_side) xs.insert(xs.end(), {centre + delta, centre + 2 * delta, centre + 4 * delta});
   const auto ds = solve_densities(xs);
   for (const auto& d : ds) {
     if (!d.converged || !(d.density > 0.0)) return;
   }
-  const double left = std::log2(ds[2].density / ds[1].density),
-               left_far = std::log2(ds[1].density / ds[0].density),
-               right = std::log2(ds[3].density / ds[4].density),
-               right_far = std::log2(ds[4].density / ds[5].density);
+  // Log-ratios near (δ against 2δ) and far (2δ against 4δ) on each side present.
+  const std::size_t r0 = left_side ? 3 : 0;
+  const double left = left_side ? std::log2(ds[2].density / ds[1].density) : 0.0,
+               left_far = left_side ? std::log2(ds[1].density / ds[0].density) : 0.0,
+               right = right_side ? std::log2(ds[r0].density / ds[r0 + 1].density) : 0.0,
+               right_far = right_side ? std::log2(ds[r0 + 1].density / ds[r0 + 2].density) : 0.0;
   const auto power = [](double near, double far) {
     return near > 0.05 && std::abs(near - far) < 0.15;
   };
-  if (!power(left, left_far) && !power(right, right_far)) return;
+  if (!(left_side && power(left, left_far)) && !(right_side && power(right, right_far))) return;
   table.centre = centre;
-  table.window_lo = centre - delta;
-  table.window_hi = centre + delta;
+  table.window_lo = centre - (left_side ? delta : 0.0);
+  table.window_hi = centre + (right_side ? delta : 0.0);
   const auto fit = [&](double near, double far, double f, double& c, double& alpha, double& b) {
     alpha = std::clamp(2.0 * near - far, -0.5, 0.95);
     b = (far - near) * std::log(2.0) / delta;
     c = f * std::pow(delta, alpha) / (1.0 + b * delta);
   };
-  fit(left, left_far, ds[2].density, table.left_c, table.left_alpha, table.left_b);
-  fit(right, right_far, ds[3].density, table.right_c, table.right_alpha, table.right_b);
+  if (left_side) fit(left, left_far, ds[2].density, table.left_c, table.left_alpha, table.left_b);
+  if (right_side) {
+    fit(right, right_far, ds[r0].density, table.right_c, table.right_alpha, table.right_b);
+  }
   // Panels halved towards the window from a coarse panel's width away; none inside it.
   const auto theta = [&](double x) {
     return std::acos(std::clamp(1.0 - 2.0 * (x - table.lo) / w, -1.0, 1.0));
@@ -883,10 +1117,13 @@ void PolynomialLaw::add_singular_window(BandTable& table, double centre) const {
   for (const double t : table.theta) {
     if (std::abs(t - t0) > 1e-12) gap = std::min(gap, std::abs(t - t0));
   }
-  const double reach = 0.5 * w * std::sin(t0) * gap;
+  const auto x_of = [&](double t) { return table.lo + 0.5 * w * (1.0 - std::cos(t)); };
+  double reach = std::numeric_limits<double>::infinity();
+  if (left_side) reach = std::min(reach, centre - x_of(std::max(0.0, t0 - gap)));
+  if (right_side) reach = std::min(reach, x_of(std::min(kPi, t0 + gap)) - centre);
   for (double d = delta; d < reach; d *= 2.0) {
-    table.theta.push_back(theta(centre - d));
-    table.theta.push_back(theta(centre + d));
+    if (left_side) table.theta.push_back(theta(centre - d));
+    if (right_side) table.theta.push_back(theta(centre + d));
   }
   const double t_lo = theta(table.window_lo), t_hi = theta(table.window_hi);
   std::erase_if(table.theta, [&](double t) { return t > t_lo && t < t_hi; });
@@ -894,12 +1131,38 @@ void PolynomialLaw::add_singular_window(BandTable& table, double centre) const {
   table.theta.erase(std::unique(table.theta.begin(), table.theta.end()), table.theta.end());
   table.window = static_cast<int>(std::find(table.theta.begin(), table.theta.end(), t_lo) -
                                   table.theta.begin());
-  const double modelled = PowerLaw{table.left_c, table.left_alpha, table.left_b}.mass(delta) +
-                          PowerLaw{table.right_c, table.right_alpha, table.right_b}.mass(delta);
-  const auto exact =
-      arc_mass(*solver_, table.window_lo, table.window_hi, kPi, kPi, scale_, options_, 1);
+  const double modelled = window_mass(table, table.window_hi);
+  const double a = left_side ? table.window_lo : centre - beyond;
+  const double b = right_side ? table.window_hi : centre + beyond;
+  const auto exact = arc_mass(*solver_, a, b, kPi, kPi, scale_, options_, 1);
   if (exact && *exact > 0.5 * modelled && *exact < 2.0 * modelled) {
     table.window_scale = *exact / modelled;
+  }
+}
+
+// A band's end where the density blows up (2 W1 W2 + 2 W2 W1 + W1 ends at 0 like |x|^{−1/2}):
+// the computed edge is only good to ~1e-8 of the scale there (8.6e-7 past 0), and the table's
+// graded panels assume the singularity at that edge, so its integral overshot by 9e-5. The end
+// gets a one-sided window (add_singular_window) whose contour crosses the axis in the gap beyond
+// the edge, where nothing is; the upper end is tried first (one window per band). Tried only at an
+// end within 10⁻³ of the band's width from the constant term, where such ends sit in the cases we
+// meet (as interior singular points do): each try costs three solves near the edge.
+void PolynomialLaw::add_end_window(BandTable& table, std::size_t band) const {
+  const auto& bands = support_.bands;
+  const Interval& own = bands[band];
+  double before = band > 0 ? bands[band - 1].hi : -std::numeric_limits<double>::infinity();
+  double after =
+      band + 1 < bands.size() ? bands[band + 1].lo : std::numeric_limits<double>::infinity();
+  for (const Atom& a : support_.atoms) {
+    if (a.value <= own.lo) before = std::max(before, a.value);
+    if (a.value >= own.hi) after = std::min(after, a.value);
+  }
+  const double delta = 1e-4 * table.width;
+  if (after - own.hi > 2e-2 * delta) {
+    add_singular_window(table, own.hi, true, false, std::min(delta, 0.5 * (after - own.hi)));
+  }
+  if (table.window < 0 && own.lo - before > 2e-2 * delta) {
+    add_singular_window(table, own.lo, false, true, std::min(delta, 0.5 * (own.lo - before)));
   }
 }
 
@@ -986,11 +1249,8 @@ double PolynomialLaw::integrate_band(BandTable& table, const std::vector<Density
   table.cumulative.assign(panels + 1, 0.0);
   for (std::size_t p = 0; p < panels; ++p) {
     if (static_cast<int>(p) == table.window) {
-      const double delta = table.centre - table.window_lo;
-      const PowerLaw left{table.left_c, table.left_alpha, table.left_b};
-      const PowerLaw right{table.right_c, table.right_alpha, table.right_b};
       table.cumulative[p + 1] =
-          table.cumulative[p] + table.window_scale * (left.mass(delta) + right.mass(delta));
+          table.cumulative[p] + table.window_scale * window_mass(table, table.window_hi);
       first += table.centre * (table.cumulative[p + 1] - table.cumulative[p]);
       continue;
     }
@@ -999,7 +1259,7 @@ double PolynomialLaw::integrate_band(BandTable& table, const std::vector<Density
       // A node the solver could not settle (only ever within ~1e−8 of an edge) counts as 0.
       double f = ds[node].converged ? ds[node].density : 0.0;
       if (without != nullptr) {
-        // The point mass's own share of −Im G(x + iε)/π: m ε / (π((x − a)² + ε²)).
+        // The point mass's own share of −Im G(x + iε)/π: m ε/(π((x − a)² + ε²)).
         const double u = ds[node].x - without->value;
         f = std::max(0.0, f - without->weight * eps / (kPi * (u * u + eps * eps)));
       }
@@ -1042,6 +1302,34 @@ void PolynomialLaw::fill_tables(const std::vector<DensityReport>& ds,
   }
 }
 
+// Near a point mass on a band, −Im G(x + iε)/π with the pencil's regularization carries the point
+// mass smeared much wider than ε: for the 0.05 at −1.938 of A V B V^* + V B V^* A, a Lorentzian
+// m γ/(π(u² + γ²)) with γ ≈ 2.7e-7 where ε = 2.6e-10 (measured from its peak at u = 0 and its
+// tail out to 3e-5), which put 9e-4 too much into the band's table. The smear is linear in ε
+// where |u| ≫ γ and the density is not, so on such a band each density becomes 2 f(ε) − f(2ε)
+// (Richardson), from a second solve at 2ε.
+void PolynomialLaw::without_point_mass_smear(std::vector<DensityReport>& ds) const {
+  std::vector<double> again;
+  std::vector<std::size_t> at;
+  for (std::size_t i = 0; i < ds.size(); ++i) {
+    const double x = ds[i].x;
+    const auto band = std::find_if(support_.bands.begin(), support_.bands.end(),
+                                   [x](const Interval& b) { return x >= b.lo && x <= b.hi; });
+    if (band == support_.bands.end() || !ds[i].converged) continue;
+    const bool carries = std::any_of(support_.atoms.begin(), support_.atoms.end(), [&](const Atom& a) {
+      return a.value >= band->lo - 1e-6 * scale_ && a.value <= band->hi + 1e-6 * scale_;
+    });
+    if (!carries) continue;
+    again.push_back(x);
+    at.push_back(i);
+  }
+  const auto twice = solve_densities(again, 2.0);
+  for (std::size_t k = 0; k < at.size(); ++k) {
+    DensityReport& d = ds[at[k]];
+    if (twice[k].converged) d.density = std::max(0.0, 2.0 * d.density - twice[k].density);
+  }
+}
+
 void PolynomialLaw::build_table() const {
   // Per band, x = lo + w(1 − cos θ)/2 makes density·dx/dθ smooth at square-root and
   // inverse-square-root edges (the substitution of laws_quadrature's integrate_density);
@@ -1065,7 +1353,10 @@ void PolynomialLaw::build_table() const {
     for (int p = 0; p <= P; ++p) table.theta.push_back(kPi * p / P);
     if (c0 > band.lo + 1e-6 * w && c0 < band.hi - 1e-6 * w) {
       grade_towards(table, c0);
-      add_singular_window(table, c0);
+      add_singular_window(table, c0, true, true, 0.0);
+    }
+    if (table.window < 0 && std::min(std::abs(c0 - band.lo), std::abs(c0 - band.hi)) <= 1e-3 * w) {
+      add_end_window(table, static_cast<std::size_t>(&band - support_.bands.data()));
     }
     for (std::size_t p = 0; p + 1 < table.theta.size(); ++p) {
       if (static_cast<int>(p) == table.window) continue;
@@ -1078,7 +1369,9 @@ void PolynomialLaw::build_table() const {
     }
     tables_.push_back(std::move(table));
   }
-  fill_tables(solve_densities(xs), jac);
+  auto ds = solve_densities(xs);
+  without_point_mass_smear(ds);
+  fill_tables(ds, jac);
 }
 
 double PolynomialLaw::continuous_mass() const {
@@ -1143,13 +1436,7 @@ double PolynomialLaw::cdf(double x) const {
     if (p == table.window) {
       // Inside a singular point's window: the fitted laws, scaled to its contour mass (the
       // solver does not converge within ~1e-5 of the band's width from the point itself).
-      const double delta = table.centre - table.window_lo;
-      const PowerLaw left{table.left_c, table.left_alpha, table.left_b},
-        right{table.right_c, table.right_alpha, table.right_b};
-      const double inside = x < table.centre
-                                ? left.mass(delta) - left.mass(table.centre - x)
-                                : left.mass(delta) + right.mass(x - table.centre);
-      total += table.cumulative[p] + table.window_scale * inside;
+      total += table.cumulative[p] + table.window_scale * window_mass(table, x);
       break;
     }
     total += table.cumulative[p] + panel_partial(&table.integrand[p * kPanelNodes],

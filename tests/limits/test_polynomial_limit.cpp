@@ -327,29 +327,72 @@ TEST(PolynomialLimit, SingularInteriorEdgeIsSharp) {
   ASSERT_EQ(law->band_masses().size(), 2u);
   EXPECT_NEAR(law->band_masses()[0], 0.5, 1e-8);
   EXPECT_NEAR(law->band_masses()[1], 0.5, 1e-8);
+  // The density tables' own total: the edge at 0 is computed 8.6e-7 past it, and with the
+  // singularity there inside its last panel the table overshot by 9.0e-5. A one-sided window
+  // (contour mass, fitted power law) now closes the band.
+  EXPECT_NEAR(law->continuous_mass(), 1.0, 1e-8);
+  EXPECT_NEAR(law->cdf(1e-6), 0.5, 1e-8);  // in the gap, just past the computed edge
+  EXPECT_NEAR(law->cdf(0.1), 0.5, 1e-8);
 }
 
 TEST(PolynomialLimit, PointMassOnABandEdgeIsFound) {
   // A V B V^* + V B V^* A with A, B free (V Haar): A has eigenvalues −0.57, −0.39 in shares 0.89,
-  // 0.11 and B has 1.62, 1.7 in shares 0.84, 0.16. Eigenspaces of shares α and β in general
-  // position meet in share α + β − 1 (a dimension count; Bercovici & Voiculescu 1998 for sums, from
-  // memory), where P acts as 2ab: point masses 0.73 at 2(−0.57)(1.62) = −1.8468 and 0.05 at
-  // 2(−0.57)(1.7) = −1.938. The second sits on the lower edge of a band (−1.93820) and was missed:
-  // the law's masses added up to 0.951. The band's contour mass less its density table shows it.
+  // 0.11 and B has 1.62, 1.7 in shares 0.84, 0.16. Eigenspaces of shares α and β meet in share at
+  // least α + β − 1 (dim(V ∩ W) ≥ dim V + dim W − N), where P acts as 2ab: point masses 0.73 at
+  // 2(−0.57)(1.62) = −1.8468 and 0.05 at 2(−0.57)(1.7) = −1.938 (forced_atoms), weighed by
+  // extrapolation in ε. The weights are exactly the dimension count's: NumPy, N = 1000, one Haar
+  // sample (seed 1), has 50 eigenvalues within 1e-9 of −1.938 and 730 of −1.8468.
+  // History: the 0.05 was first missed (the masses added up to 0.951), then found from the
+  // band's contour mass less its table with the weight 0.04909 and placed on a band reaching
+  // 2e-4 below it. That band part was the solver's smeared branch: NumPy (N = 2000, seed 1) has
+  // no eigenvalue within 5.4e-4 below or above −1.938 other than the 100 at it, and the band
+  // starts 4.4e-4 above it (trim_bands_beside_atoms). Its table had overshot by 9e-4.
   const auto law = law_of("A V B V^* + V B V^* A",
                           {"A=diagonal:atoms=-0.57@0.89,-0.39@0.11",
                            "B=diagonal:atoms=1.62@0.84,1.7@0.16", "V=haar_unitary"});
   const auto s = law->support();
   ASSERT_EQ(s.atoms.size(), 2u);
-  EXPECT_NEAR(s.atoms[0].value, -1.938, 1e-5);
-  EXPECT_NEAR(s.atoms[0].weight, 0.05, 2e-3);  // measured 0.04909: the table's error near it
-  EXPECT_NEAR(s.atoms[1].value, -1.8468, 1e-6);
+  EXPECT_NEAR(s.atoms[0].value, -1.938, 1e-12);
+  EXPECT_NEAR(s.atoms[0].weight, 0.05, 1e-8);
+  EXPECT_NEAR(s.atoms[1].value, -1.8468, 1e-12);
   EXPECT_NEAR(s.atoms[1].weight, 0.73, 1e-8);
-  ASSERT_EQ(law->atoms_on_bands().size(), 1u);
-  EXPECT_EQ(law->atoms_on_bands()[0].value, s.atoms[0].value);
+  EXPECT_TRUE(law->uncertain_weights().empty());
+  ASSERT_EQ(s.bands.size(), 2u);
+  EXPECT_GT(s.bands[0].lo, -1.938 + 3e-4);
+  EXPECT_LT(s.bands[0].lo, -1.938 + 5.4e-4);
+  EXPECT_DOUBLE_EQ(s.lo, -1.938);
   double total = law->continuous_mass();
   for (const auto& a : s.atoms) total += a.weight;
   EXPECT_NEAR(total, 1.0, 1e-6);
+  EXPECT_NEAR(law->cdf(-1.938 + 1e-4), 0.05, 1e-8);  // the gap above the point mass
+}
+
+TEST(PolynomialLimit, ForcedPointMassesNextToBandsAreFound) {
+  // −B³ + ½(AB + BA), A and B Haar-rotated: A has −0.57, −0.39 in shares 0.89, 0.11; B has
+  // −0.22, 1.09, 1.62, 1.7 in shares 0.12, 0.08, 0.64, 0.16 (catalogue model 12). The dimension
+  // count forces −b³ + ab where α + β > 1: 0.05 at −1.7³ + (−0.57)(1.7) = −5.882, 0.53 at
+  // −1.62³ + (−0.57)(1.62) = −5.174928 and 0.01 at 0.22³ + (−0.57)(−0.22) = 0.136048. The last
+  // one was missed (the law's masses added up to 0.9909): it sat 1.4e-5 inside a band's computed
+  // upper edge. NumPy (N = 2000, one sample, seed 2) has exactly 100, 1060 and 20 eigenvalues
+  // within 1e-8 of the three places, and its largest other eigenvalue is 0.13603007, below
+  // 0.136048: the band ends below the point mass.
+  const auto law = law_of(
+      "- U2 D2 U2^* U2 D2 U2^* U2 D2 U2^* + 0.5 U2 D2 U2^* U1 D1 U1^* + 0.5 U1 D1 U1^* U2 D2 U2^*",
+      {"D1=diagonal:atoms=-0.57@0.89,-0.39@0.11", "U1=haar_unitary",
+       "D2=diagonal:atoms=-0.22@0.12,1.09@0.08,1.62@0.64,1.7@0.16", "U2=haar_unitary"});
+  const auto s = law->support();
+  ASSERT_EQ(s.atoms.size(), 3u);
+  const double places[] = {-5.882, -5.174928, 0.136048}, weights[] = {0.05, 0.53, 0.01};
+  for (int k = 0; k < 3; ++k) {
+    EXPECT_NEAR(s.atoms[k].value, places[k], 1e-12);
+    EXPECT_NEAR(s.atoms[k].weight, weights[k], 1e-8);
+  }
+  ASSERT_FALSE(s.bands.empty());
+  EXPECT_LT(s.bands.back().hi, 0.136048);
+  EXPECT_GT(s.bands.back().hi, 0.13603);
+  double total = law->continuous_mass();
+  for (const auto& a : s.atoms) total += a.weight;
+  EXPECT_NEAR(total, 1.0, 1e-5);
 }
 
 TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {

@@ -187,9 +187,14 @@ class PolynomialLaw final : public Law {
   /// Mass of the continuous part found by integrating the density over its bands (1 when there
   /// are no atoms); continuous_mass() + Σ atoms < 1 says that mass was not found.
   double continuous_mass() const;
-  /// The point masses (also in support().atoms) that lie on a band, found only as the band's
-  /// contour mass less its density table (find_hidden_atom): their weights are less certain.
-  const std::vector<Atom>& atoms_on_bands() const { return atoms_on_bands_; }
+  /// A point mass (also in support().atoms) whose weight is known only to ± `uncertainty`, above
+  /// the solver's accuracy: one on a band that only the band's contour mass less its density
+  /// table shows (find_hidden_atom), or one whose weight extrapolation did not settle.
+  struct UncertainWeight {
+    Atom atom;
+    double uncertainty = 0.0;
+  };
+  const std::vector<UncertainWeight>& uncertain_weights() const { return uncertain_weights_; }
   /// Each band's mass from the contour integral of the Cauchy transform around it (point masses
   /// inside taken out): what the CDF table of the band is scaled to; negative where a solve
   /// failed.
@@ -197,13 +202,18 @@ class PolynomialLaw final : public Law {
 
  private:
   void build_table() const;
+  // Point masses: forced ones (dimension count) weighed by extrapolation, then by refine_atom at
+  // the constant term and the scan's candidates and band edges; support_.atoms sorted. Returns
+  // the places whose extrapolated weight settled to 1e-9.
+  std::vector<double> locate_point_masses(std::vector<double> candidates, double from);
+  void trim_bands_beside_atoms();
   FreePolynomial polynomial_;
   Pencil pencil_;
   std::vector<double> exact_moments_;
   PolynomialLimitOptions options_;
   std::unique_ptr<OperatorValuedSolver> solver_;
   Support support_;
-  std::vector<Atom> atoms_on_bands_;
+  std::vector<UncertainWeight> uncertain_weights_;
   double scale_ = 1.0;
   mutable std::once_flag table_once_;
   /// One band's density table: x = lo + w(1 − cos θ)/2 over θ ∈ [0, π].
@@ -230,13 +240,21 @@ class PolynomialLaw final : public Law {
     std::optional<Atom> hidden_atom;
   };
   void find_hidden_atom(BandTable& table, double table_first) const;
-  // The band's table from the densities at its nodes (from `node` on), less a point mass's share
-  // when `without` is given; returns the table's first moment.
+  // The band's table from the densities at its nodes (from `node` on), less the shares of the
+  // point masses known, and of `without` when given; returns the table's first moment.
   double integrate_band(BandTable& table, const std::vector<DensityReport>& ds,
                         const std::vector<double>& jacobian, std::size_t node,
                         const Atom* without) const;
-  std::vector<DensityReport> solve_densities(std::span<const double> xs) const;
-  void add_singular_window(BandTable& table, double centre) const;
+  // −Im G(x + iε)/π at each x, with the pencil's regularization ε = epsilon·scale·eps_factor.
+  std::vector<DensityReport> solve_densities(std::span<const double> xs,
+                                             double eps_factor = 1.0) const;
+  // A window around a singular point `centre` of the density, on the sides asked for; at a band's
+  // end (one side) its contour crosses the axis `beyond` the end.
+  void add_singular_window(BandTable& table, double centre, bool left_side, bool right_side,
+                           double beyond) const;
+  void add_end_window(BandTable& table, std::size_t band) const;
+  void without_point_mass_smear(std::vector<DensityReport>& ds) const;
+  static double window_mass(const BandTable& table, double x);
   void set_exact_mass(BandTable& table, std::size_t band) const;
   static void grade_towards(BandTable& table, double centre);
   void fill_tables(const std::vector<DensityReport>& nodes,
