@@ -395,6 +395,21 @@ TEST(PolynomialLimit, ForcedPointMassesNextToBandsAreFound) {
   EXPECT_NEAR(total, 1.0, 1e-5);
 }
 
+TEST(PolynomialLimit, TableResolvesASteepShoulder) {
+  // Catalogue model 30: 1.5 X A X − ½(AX + XA), X GUE, A Haar-rotated with −0.91, −0.56, 0 in
+  // shares 0.09, 0.74, 0.17. One band with no point mass, so its density integrates to 1. Within
+  // 0.02 of the upper edge 0.1194626 the density rises to a shoulder that 48 panels of 8 nodes
+  // missed: the table's total was 1.000409 (a 20,000-point midpoint rule in θ gives 0.99999999).
+  // Panels whose Legendre tail shows unresolved structure are now split.
+  const auto law = law_of("1.5 X2 U1 D1 U1^* X2 - 0.5 U1 D1 U1^* X2 - 0.5 X2 U1 D1 U1^*",
+                          {"D1=diagonal:atoms=-0.91@0.09,-0.56@0.74,0.0@0.17",
+                           "U1=haar_unitary", "X2=gue"});
+  ASSERT_EQ(law->support().bands.size(), 1u);
+  EXPECT_TRUE(law->support().atoms.empty());
+  EXPECT_NEAR(law->band_masses()[0], 1.0, 1e-9);
+  EXPECT_NEAR(law->continuous_mass(), 1.0, 1e-7);
+}
+
 TEST(PolynomialLimit, SolverMomentsMatchExactMoments) {
   struct Case {
     std::string text;

@@ -254,6 +254,10 @@ class PolynomialLaw final : public Law {
                            double beyond) const;
   void add_end_window(BandTable& table, std::size_t band) const;
   void without_point_mass_smear(std::vector<DensityReport>& ds) const;
+  // The nodes of every table's panels (the window's excepted), in order, with dx/dθ.
+  void table_nodes(std::vector<double>& xs, std::vector<double>& jacobian) const;
+  bool split_unresolved_panels(const std::vector<DensityReport>& ds,
+                               const std::vector<double>& jacobian, double c0) const;
   static double window_mass(const BandTable& table, double x);
   void set_exact_mass(BandTable& table, std::size_t band) const;
   static void grade_towards(BandTable& table, double centre);
