@@ -1141,6 +1141,21 @@ void PolynomialLaw::add_singular_window(BandTable& table, double centre, bool le
   }
 }
 
+// The nearest band edge or point mass below and above band `band` (±∞ where there is none); a
+// point mass counts when it lies at least `apart` beyond the band's edge.
+std::pair<double, double> PolynomialLaw::neighbours(std::size_t band, double apart) const {
+  const auto& bands = support_.bands;
+  const Interval& own = bands[band];
+  double before = band > 0 ? bands[band - 1].hi : -std::numeric_limits<double>::infinity();
+  double after =
+      band + 1 < bands.size() ? bands[band + 1].lo : std::numeric_limits<double>::infinity();
+  for (const Atom& a : support_.atoms) {
+    if (a.value <= own.lo - apart) before = std::max(before, a.value);
+    if (a.value >= own.hi + apart) after = std::min(after, a.value);
+  }
+  return {before, after};
+}
+
 // A band's end where the density blows up (2 W1 W2 + 2 W2 W1 + W1 ends at 0 like |x|^{−1/2}):
 // the computed edge is only good to ~1e-8 of the scale there (8.6e-7 past 0), and the table's
 // graded panels assume the singularity at that edge, so its integral overshot by 9e-5. The end
@@ -1149,15 +1164,8 @@ void PolynomialLaw::add_singular_window(BandTable& table, double centre, bool le
 // end within 10⁻³ of the band's width from the constant term, where such ends sit in the cases we
 // meet (as interior singular points do): each try costs three solves near the edge.
 void PolynomialLaw::add_end_window(BandTable& table, std::size_t band) const {
-  const auto& bands = support_.bands;
-  const Interval& own = bands[band];
-  double before = band > 0 ? bands[band - 1].hi : -std::numeric_limits<double>::infinity();
-  double after =
-      band + 1 < bands.size() ? bands[band + 1].lo : std::numeric_limits<double>::infinity();
-  for (const Atom& a : support_.atoms) {
-    if (a.value <= own.lo) before = std::max(before, a.value);
-    if (a.value >= own.hi) after = std::min(after, a.value);
-  }
+  const Interval& own = support_.bands[band];
+  const auto [before, after] = neighbours(band, 0.0);
   const double delta = 1e-4 * table.width;
   if (after - own.hi > 2e-2 * delta) {
     add_singular_window(table, own.hi, true, false, std::min(delta, 0.5 * (after - own.hi)));
@@ -1170,15 +1178,8 @@ void PolynomialLaw::add_end_window(BandTable& table, std::size_t band) const {
 void PolynomialLaw::set_exact_mass(BandTable& table, std::size_t band) const {
   // The contour crosses the axis halfway to the next band or point mass on each side (or 5 % of
   // the scale beyond an outer edge), so that nothing singular lies closer to where it crosses.
-  const auto& bands = support_.bands;
-  const Interval& own = bands[band];
-  double before = band > 0 ? bands[band - 1].hi : -std::numeric_limits<double>::infinity();
-  double after =
-      band + 1 < bands.size() ? bands[band + 1].lo : std::numeric_limits<double>::infinity();
-  for (const Atom& a : support_.atoms) {
-    if (a.value < own.lo - 1e-9 * scale_) before = std::max(before, a.value);
-    if (a.value > own.hi + 1e-9 * scale_) after = std::min(after, a.value);
-  }
+  const Interval& own = support_.bands[band];
+  const auto [before, after] = neighbours(band, 1e-9 * scale_);
   const double pad = 0.05 * scale_;
   const double L = std::isfinite(before) ? 0.5 * (before + own.lo) : own.lo - pad;
   const double R = std::isfinite(after) ? 0.5 * (own.hi + after) : own.hi + pad;

@@ -253,6 +253,7 @@ class PolynomialLaw final : public Law {
   void add_singular_window(BandTable& table, double centre, bool left_side, bool right_side,
                            double beyond) const;
   void add_end_window(BandTable& table, std::size_t band) const;
+  std::pair<double, double> neighbours(std::size_t band, double apart) const;
   void without_point_mass_smear(std::vector<DensityReport>& ds) const;
   // The nodes of every table's panels (the window's excepted), in order, with dx/dθ.
   void table_nodes(std::vector<double>& xs, std::vector<double>& jacobian) const;
