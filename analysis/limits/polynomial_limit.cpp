@@ -663,7 +663,8 @@ std::vector<Atom> forced_atoms(const FreePolynomial& p) {
   std::sort(out.begin(), out.end(), [](const Atom& x, const Atom& y) { return x.value < y.value; });
   std::vector<Atom> merged;
   for (const Atom& a : out) {
-    if (!merged.empty() && std::abs(a.value - merged.back().value) <= 1e-12 * (1.0 + std::abs(a.value))) {
+    const double tolerance = 1e-12 * (1.0 + std::abs(a.value));
+    if (!merged.empty() && std::abs(a.value - merged.back().value) <= tolerance) {
       merged.back().weight += a.weight;
     } else {
       merged.push_back(a);
@@ -899,8 +900,10 @@ void PolynomialLaw::trim_bands_beside_atoms() {
       Interval& band = support_.bands[k];
       const double below = atom.value - band.lo, above = band.hi - atom.value;
       if (below <= 1e-6 * scale_ || above <= 1e-6 * scale_) continue;
-      const auto left = first_inside(*solver_, atom, -1.0, std::min(below, reach), scale_, options_);
-      const auto right = first_inside(*solver_, atom, 1.0, std::min(above, reach), scale_, options_);
+      const auto left =
+          first_inside(*solver_, atom, -1.0, std::min(below, reach), scale_, options_);
+      const auto right =
+          first_inside(*solver_, atom, 1.0, std::min(above, reach), scale_, options_);
       if (!left || !right) continue;
       const bool left_empty = std::isinf(*left) && below <= reach;
       const bool right_empty = std::isinf(*right) && above <= reach;
@@ -926,14 +929,13 @@ double PolynomialLaw::norm_limit() const {
   return std::max(std::abs(support_.lo), std::abs(support_.hi));
 }
 
-std::vector<DensityReport> PolynomialLaw::solve_densities(std::span<const double> xs,
-                                                         double eps_factor) const {
+std::vector<DensityReport> PolynomialLaw::solve_densities(std::span<const double> xs) const {
   std::vector<DensityReport> out;
   out.reserve(xs.size());
   State state;
   bool warm = false;
   double previous = 0.0;
-  const double eps = options_.epsilon * scale_ * eps_factor;
+  const double eps = options_.epsilon * scale_;
   for (double x : xs) {
     check_stop();
     DensityReport d;
@@ -965,9 +967,8 @@ std::vector<DensityReport> PolynomialLaw::evaluate(std::span<const double> xs) c
   // A singular point may have a window (build_table): there the density is its fitted power law,
   // not a solve (which takes ~10⁵ iterations at the singular point).
   std::call_once(table_once_, [this] { build_table(); });
-  if (std::none_of(tables_.begin(), tables_.end(), [](const BandTable& t) { return t.window >= 0; })) {
-    return solve_densities(xs);
-  }
+  const auto windowed = [](const BandTable& t) { return t.window >= 0; };
+  if (std::none_of(tables_.begin(), tables_.end(), windowed)) return solve_densities(xs);
   std::vector<DensityReport> out(xs.size());
   std::vector<double> to_solve;
   std::vector<std::size_t> solved_at;
@@ -1065,7 +1066,8 @@ std::vector<double> PolynomialLaw::moments(int k) const {
 
 // The fitted laws' mass over [window_lo, x] for x in the window (before window_scale).
 double PolynomialLaw::window_mass(const BandTable& t, double x) {
-  const PowerLaw left{t.left_c, t.left_alpha, t.left_b}, right{t.right_c, t.right_alpha, t.right_b};
+  const PowerLaw left{t.left_c, t.left_alpha, t.left_b};
+  const PowerLaw right{t.right_c, t.right_alpha, t.right_b};
   const double left_part = left.mass(t.centre - t.window_lo);
   return x < t.centre ? left_part - left.mass(t.centre - x) : left_part + right.mass(x - t.centre);
 }
@@ -1304,34 +1306,6 @@ void PolynomialLaw::fill_tables(const std::vector<DensityReport>& ds,
   }
 }
 
-// Near a point mass on a band, −Im G(x + iε)/π with the pencil's regularization carries the point
-// mass smeared much wider than ε: for the 0.05 at −1.938 of A V B V^* + V B V^* A, a Lorentzian
-// m γ/(π(u² + γ²)) with γ ≈ 2.7e-7 where ε = 2.6e-10 (measured from its peak at u = 0 and its
-// tail out to 3e-5), which put 9e-4 too much into the band's table. The smear is linear in ε
-// where |u| ≫ γ and the density is not, so on such a band each density becomes 2 f(ε) − f(2ε)
-// (Richardson), from a second solve at 2ε.
-void PolynomialLaw::without_point_mass_smear(std::vector<DensityReport>& ds) const {
-  std::vector<double> again;
-  std::vector<std::size_t> at;
-  for (std::size_t i = 0; i < ds.size(); ++i) {
-    const double x = ds[i].x;
-    const auto band = std::find_if(support_.bands.begin(), support_.bands.end(),
-                                   [x](const Interval& b) { return x >= b.lo && x <= b.hi; });
-    if (band == support_.bands.end() || !ds[i].converged) continue;
-    const bool carries = std::any_of(support_.atoms.begin(), support_.atoms.end(), [&](const Atom& a) {
-      return a.value >= band->lo - 1e-6 * scale_ && a.value <= band->hi + 1e-6 * scale_;
-    });
-    if (!carries) continue;
-    again.push_back(x);
-    at.push_back(i);
-  }
-  const auto twice = solve_densities(again, 2.0);
-  for (std::size_t k = 0; k < at.size(); ++k) {
-    DensityReport& d = ds[at[k]];
-    if (twice[k].converged) d.density = std::max(0.0, 2.0 * d.density - twice[k].density);
-  }
-}
-
 void PolynomialLaw::build_table() const {
   // Per band, x = lo + w(1 − cos θ)/2 makes density·dx/dθ smooth at square-root and
   // inverse-square-root edges (the substitution of laws_quadrature's integrate_density);
@@ -1356,7 +1330,8 @@ void PolynomialLaw::build_table() const {
       grade_towards(table, c0);
       add_singular_window(table, c0, true, true, 0.0);
     }
-    if (table.window < 0 && std::min(std::abs(c0 - band.lo), std::abs(c0 - band.hi)) <= 1e-3 * w) {
+    const double from_c0 = std::min(std::abs(c0 - band.lo), std::abs(c0 - band.hi));
+    if (table.window < 0 && from_c0 <= 1e-3 * w) {
       add_end_window(table, static_cast<std::size_t>(&band - support_.bands.data()));
     }
     tables_.push_back(std::move(table));
@@ -1377,7 +1352,6 @@ void PolynomialLaw::build_table() const {
     for (const double x : xs) ds.push_back(solved.at(x));
     if (round == 5 || !split_unresolved_panels(ds, jac, c0)) break;
   }
-  without_point_mass_smear(ds);
   fill_tables(ds, jac);
 }
 

@@ -245,16 +245,13 @@ class PolynomialLaw final : public Law {
   double integrate_band(BandTable& table, const std::vector<DensityReport>& ds,
                         const std::vector<double>& jacobian, std::size_t node,
                         const Atom* without) const;
-  // −Im G(x + iε)/π at each x, with the pencil's regularization ε = epsilon·scale·eps_factor.
-  std::vector<DensityReport> solve_densities(std::span<const double> xs,
-                                             double eps_factor = 1.0) const;
+  std::vector<DensityReport> solve_densities(std::span<const double> xs) const;
   // A window around a singular point `centre` of the density, on the sides asked for; at a band's
   // end (one side) its contour crosses the axis `beyond` the end.
   void add_singular_window(BandTable& table, double centre, bool left_side, bool right_side,
                            double beyond) const;
   void add_end_window(BandTable& table, std::size_t band) const;
   std::pair<double, double> neighbours(std::size_t band, double apart) const;
-  void without_point_mass_smear(std::vector<DensityReport>& ds) const;
   // The nodes of every table's panels (the window's excepted), in order, with dx/dθ.
   void table_nodes(std::vector<double>& xs, std::vector<double>& jacobian) const;
   bool split_unresolved_panels(const std::vector<DensityReport>& ds,
