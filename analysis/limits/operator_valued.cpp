@@ -7,6 +7,7 @@
 #include <algorithm>
 #include <cmath>
 
+#include "freegap/linalg.hpp"
 #include "freegap/stop.hpp"
 
 namespace freegap::analysis {
@@ -20,7 +21,7 @@ bool finite(const Matrix& m) { return m.allFinite(); }
 
 double max_abs(const Matrix& m) { return m.cwiseAbs().maxCoeff(); }
 
-Matrix inverse(const Matrix& m) { return m.partialPivLu().inverse(); }
+Matrix inverse(const Matrix& m) { return linalg::inverse(m); }
 
 // The analytic Jacobian at G of the residual (β − η(G))G − I of semicircular letters only, into
 // J (n² × n²), given A = β − η(G).
@@ -154,7 +155,8 @@ Matrix OperatorValuedSolver::letter_cauchy(int j, const Matrix& omega, Matrix* d
     }
   }
   const Matrix P = AE * W;  // columns p_k
-  const Matrix Q = W.partialPivLu().solve(g.eigen.cast<cd>().asDiagonal() * EA);  // rows q_k
+  const Matrix Q =
+      linalg::ComplexLU(W).solve(Matrix(g.eigen.cast<cd>().asDiagonal() * EA));  // rows q_k
   const Matrix H = P * phi.asDiagonal() * Q;
   if (derivative != nullptr) {
     // (ω − t b)^{−1} = A + Σ_k φ_k(t) C_k with C_k = p_k q_k and φ_k(t) = t/(1 − tκ_k), so
@@ -313,7 +315,7 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
   Eigen::VectorXcd y = pack(state);
   Eigen::VectorXcd r = residual(beta, y);
   const Eigen::Index D = y.size();
-  Eigen::PartialPivLU<Matrix> lu;
+  linalg::ComplexLU lu;
   bool fresh = false, have = false;
   const auto jacobian = [&]() {
     Matrix J(D, D);
@@ -336,7 +338,7 @@ bool OperatorValuedSolver::newton(const Matrix& beta, State& state, int max_step
     ++steps;
     if (!r.allFinite()) return false;
     if (!have) jacobian();
-    Eigen::VectorXcd delta = lu.solve(-r);
+    Eigen::VectorXcd delta = lu.solve(Eigen::VectorXcd(-r));
     if (!delta.allFinite()) return false;
     Eigen::VectorXcd next = y + delta;
     Eigen::VectorXcd r_next = residual(beta, next);
