@@ -205,12 +205,12 @@ double find_edge(const OperatorValuedSolver& solver, double from, double directi
   double x_before = x, g_before = 0.0, g_last = 0.0;
   bool two = false;
   // A walk to an edge takes about 80 steps (h grows by 1.5 per step taken and halves per step
-  // refused, down to 1e-11 of the scale; measured on the catalogue). One that creeps on is given
+  // refused, down to 1e-12 of the scale; measured on the catalogue). One that creeps on is given
   // up, and the sharpened edge stands: in the catalogue, 1.5 X D X − 0.5 (D X + X D) with D a
   // Haar-rotated atomic law took 548 steps and stopped 7.7e-6 inside its upper edge 0.1194626
   // (the density is 0.04 at 0.11946), and −B³ + ½(AB + BA) with Haar-rotated atomic A, B took
   // 6,755 steps (20 s) towards its point mass 0.01 at 0.136048, which sits at a band's edge.
-  for (int walked = 0; h > 1e-11 * scale; ++walked) {
+  for (int walked = 0; h > 1e-12 * scale; ++walked) {
     if (walked == 300) {
       throw NumericalError("polynomial limit: the real-axis continuation from " +
                            text::readable(from) + " did not settle on an edge in 300 steps");

@@ -150,6 +150,15 @@ TEST(PolynomialLimit, AnticommutatorOfFreeSemicirculars) {
   EXPECT_NEAR(law->continuous_mass(), 1.0, 1e-6);
 }
 
+TEST(PolynomialLimit, OuterEdgeIsFoundToTheWalksResolution) {
+  // The real-axis walk stops where its step falls below 1e-12 of the scale (the norm bound, 8
+  // here): the edge φ^{5/2} to 1e-11. With 1e-11 of the scale it stopped 4.6e-11 short, and
+  // `freegap limit` printed the edge's tenth decimal wrong (python.check_limit).
+  const auto law = law_of("X1 X2 + X2 X1", {"X1=gue", "X2=gue"});
+  EXPECT_NEAR(law->support().hi, kAnticommutatorEdge, 1e-11);
+  EXPECT_NEAR(law->support().lo, -kAnticommutatorEdge, 1e-11);
+}
+
 TEST(PolynomialLimit, CommutatorHasTheAnticommutatorLaw) {
   // Nica & Speicher 1998; ref §1.8: i(s1 s2 − s2 s1) has the same law as s1 s2 + s2 s1.
   const fa::PolynomialLaw law(commutator(), {}, {});
