@@ -1,6 +1,7 @@
 // The limit of a job's model by the rules listed in limit.hpp.
 #include <algorithm>
 #include <cmath>
+#include <future>
 #include <map>
 #include <optional>
 #include <set>
@@ -600,11 +601,10 @@ static void set_rate_key(const std::vector<FreeTerm>& free_terms,
   }
 }
 
-static DerivedLimit derive_by_rules(const expr::Expression& expression, int max_moment) {
+static DerivedLimit derive_by_rules(const expr::Expression& expression) {
   DerivedLimit out;
   const auto& d = expression.declared();
   const bool eigenvalues = expression.spectrum() == expr::Spectrum::eigenvalues;
-  exact_moments_into(expression, max_moment, eigenvalues, out);
 
   std::vector<expr::Monomial> terms;
   try {
@@ -734,21 +734,40 @@ std::string solver_law_fails_check(const PolynomialLaw& law, const expr::Express
 }
 
 DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment) {
-  DerivedLimit out = derive_by_rules(expression, max_moment);
+  // The exact moments stand on their own, whatever the rules say. They are computed on a thread
+  // of their own while the rules and the solver work: in big rationals they took 1.7 s of the
+  // 13 s of catalogue model 12 (−B³ + ½(AB + BA), decimal atoms).
+  std::future<DerivedLimit> exact = std::async(std::launch::async, [&expression, max_moment] {
+    DerivedLimit m;
+    exact_moments_into(expression, max_moment,
+                       expression.spectrum() == expr::Spectrum::eigenvalues, m);
+    return m;
+  });
+  DerivedLimit out = derive_by_rules(expression);
+  const auto with_moments = [&exact](DerivedLimit& o) -> DerivedLimit& {
+    if (exact.valid()) {
+      DerivedLimit m = exact.get();
+      o.exact_moments = std::move(m.exact_moments);
+      o.exact_moment_text = std::move(m.exact_moment_text);
+      o.moments_note = std::move(m.moments_note);
+    }
+    return o;
+  };
   if (!out.law && expression.spectrum() == expr::Spectrum::singular_values &&
       !expression.self_adjoint()) {
     singular_values_from_gram(expression, max_moment, out);
-    return out;
+    return with_moments(out);
   }
   if (out.law || expression.spectrum() != expr::Spectrum::eigenvalues || !expression.self_adjoint()) {
-    return out;
+    return with_moments(out);
   }
   // No closed-form rule: the general solver for self-adjoint polynomials in free variables.
   try {
     PolynomialLimitOptions options;
-    options.exact_moment_order = 0;  // the exact moments are computed above, independently
+    options.exact_moment_order = 0;  // the exact moments come from their own thread (above)
     const auto law = polynomial_limit(expression, options);
-    const std::string failed = solver_law_fails_check(*law, expression, out.exact_moments);
+    const std::string failed = solver_law_fails_check(*law, expression,
+                                                      with_moments(out).exact_moments);
     if (!failed.empty()) {
       out.reason += "; the polynomial solver's law failed its check and is not reported (" +
                     failed + ")";
@@ -788,7 +807,7 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
   } catch (const Error& e) {
     out.reason += "; the polynomial solver does not cover it either: " + std::string(e.what());
   }
-  return out;
+  return with_moments(out);
 }
 
 }  // namespace

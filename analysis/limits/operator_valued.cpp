@@ -21,7 +21,13 @@ bool finite(const Matrix& m) { return m.allFinite(); }
 
 double max_abs(const Matrix& m) { return m.cwiseAbs().maxCoeff(); }
 
-Matrix inverse(const Matrix& m) { return linalg::inverse(m); }
+// Pencil-sized inverses (n ≤ 8) by Eigen, larger ones by LAPACK (linalg::ComplexLU). LAPACK is
+// 2x faster on one thread at n = 5, but the solver calls it from several threads at once
+// (solve_densities), and OpenBLAS's calls then wait on a shared lock: with Eigen here the density
+// table of catalogue model 12 took 0.4 s a round on 2 threads instead of 0.7 s (2026-12-05).
+Matrix inverse(const Matrix& m) {
+  return m.rows() <= 8 ? Matrix(m.partialPivLu().inverse()) : linalg::inverse(m);
+}
 
 // The analytic Jacobian at G of the residual (β − η(G))G − I of semicircular letters only, into
 // J (n² × n²), given A = β − η(G).

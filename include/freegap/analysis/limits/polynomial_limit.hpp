@@ -246,6 +246,7 @@ class PolynomialLaw final : public Law {
                         const std::vector<double>& jacobian, std::size_t node,
                         const Atom* without) const;
   std::vector<DensityReport> solve_densities(std::span<const double> xs) const;
+  void solve_chunk(std::span<const double> xs, std::span<DensityReport> out) const;
   // A window around a singular point `centre` of the density, on the sides asked for; at a band's
   // end (one side) its contour crosses the axis `beyond` the end.
   void add_singular_window(BandTable& table, double centre, bool left_side, bool right_side,
