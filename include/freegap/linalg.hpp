@@ -238,6 +238,9 @@ class ComplexLU {
 /// The inverse of a square complex matrix by ComplexLU (NaN entries when exactly singular).
 CMatrix inverse(const CMatrix& a);
 
+/// Sets the number of threads OpenBLAS's own routines may use (at least 1), for the whole process.
+void set_blas_threads(int threads);
+
 /// The BLAS/LAPACK library actually linked, for benchmark and run-file context blocks.
 std::string blas_description();
 

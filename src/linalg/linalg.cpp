@@ -12,6 +12,7 @@
 #include "freegap/errors.hpp"
 
 extern "C" char* openblas_get_config(void);
+extern "C" void openblas_set_num_threads(int);
 
 namespace freegap::linalg {
 
@@ -391,6 +392,8 @@ void mirror_lower(Eigen::Ref<RMatrix> c) {
     c.row(j).tail(n - j - 1) = c.col(j).tail(n - j - 1).transpose();
   }
 }
+
+void set_blas_threads(int threads) { openblas_set_num_threads(std::max(1, threads)); }
 
 std::string blas_description() {
   const char* config = openblas_get_config();

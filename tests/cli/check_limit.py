@@ -96,6 +96,22 @@ with tempfile.TemporaryDirectory() as tmp:
           "[2.3606319603, 3.7415047768]" in r.stdout and "50 points, 50 converged" in r.stdout,
           f"gapped support from limit: {r.returncode} {r.stdout!r} {r.stderr!r}")
 
+    # The limit does not depend on OPENBLAS_NUM_THREADS: `limit` and `report` run OpenBLAS on one
+    # thread. Found 2026-12-05: with OpenBLAS's own threads this model's CDF differed in its 12th
+    # digit between OPENBLAS_NUM_THREADS=1 and 2 (the solver's Newton systems go to LAPACK).
+    model = ["-m", "A=diagonal:atoms=-1@0.5,1@0.5", "-m", "B=diagonal:atoms=1@0.5,2@0.5",
+             "-m", "V=haar_unitary", "-e", "A V B V^* + V B V^* A", "--points", "50"]
+    tables = []
+    for threads in ("1", "2"):
+        d = os.path.join(tmp, "blas" + threads)
+        env = dict(os.environ, OPENBLAS_NUM_THREADS=threads)
+        r = subprocess.run([exe, "limit"] + model + ["-o", d], capture_output=True, text=True,
+                           env=env)
+        check(r.returncode == 0, f"OPENBLAS_NUM_THREADS={threads}: exit 0 ({r.stderr})")
+        with open(os.path.join(d, "limit.csv"), "rb") as f:
+            tables.append(f.read())
+    check(tables[0] == tables[1], "the limit's table is the same for 1 and 2 OpenBLAS threads")
+
     # Bad input: exit 2, a message naming the place, nothing written.
     for args, expect in (
         (["-m", "X1=gue", "-e", "X1 Y"], "freegap: unknown matrix 'Y' at column 4 (declared: X1)\n"),
