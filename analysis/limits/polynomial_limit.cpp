@@ -1160,23 +1160,19 @@ void PolynomialLaw::add_singular_window(BandTable& table, double centre, bool le
     fit(right, right_far, ds[r0].density, table.right_c, table.right_alpha, table.right_b);
   }
   // Panels halved towards the window from a coarse panel's width away; none inside it.
-  const auto theta = [&](double x) {
-    return std::acos(std::clamp(1.0 - 2.0 * (x - table.lo) / w, -1.0, 1.0));
-  };
-  const double t0 = theta(centre);
+  const double t0 = table.theta_of(centre);
   double gap = kPi;
   for (const double t : table.theta) {
     if (std::abs(t - t0) > 1e-12) gap = std::min(gap, std::abs(t - t0));
   }
-  const auto x_of = [&](double t) { return table.lo + 0.5 * w * (1.0 - std::cos(t)); };
   double reach = std::numeric_limits<double>::infinity();
-  if (left_side) reach = std::min(reach, centre - x_of(std::max(0.0, t0 - gap)));
-  if (right_side) reach = std::min(reach, x_of(std::min(kPi, t0 + gap)) - centre);
+  if (left_side) reach = std::min(reach, centre - table.x_of(std::max(0.0, t0 - gap)));
+  if (right_side) reach = std::min(reach, table.x_of(std::min(kPi, t0 + gap)) - centre);
   for (double d = delta; d < reach; d *= 2.0) {
-    if (left_side) table.theta.push_back(theta(centre - d));
-    if (right_side) table.theta.push_back(theta(centre + d));
+    if (left_side) table.theta.push_back(table.theta_of(centre - d));
+    if (right_side) table.theta.push_back(table.theta_of(centre + d));
   }
-  const double t_lo = theta(table.window_lo), t_hi = theta(table.window_hi);
+  const double t_lo = table.theta_of(table.window_lo), t_hi = table.theta_of(table.window_hi);
   std::erase_if(table.theta, [&](double t) { return t > t_lo && t < t_hi; });
   std::sort(table.theta.begin(), table.theta.end());
   table.theta.erase(std::unique(table.theta.begin(), table.theta.end()), table.theta.end());
@@ -1274,8 +1270,7 @@ void PolynomialLaw::find_hidden_atom(BandTable& table, double table_first) const
 // Panels graded geometrically towards `centre` (5 halvings of a panel on each side), so that a
 // singularity there leaves only a tiny mass in the panels that touch it.
 void PolynomialLaw::grade_towards(BandTable& table, double centre) {
-  const double w = table.width;
-  const double t0 = std::acos(std::clamp(1.0 - 2.0 * (centre - table.lo) / w, -1.0, 1.0));
+  const double t0 = table.theta_of(centre);
   const double h = kPi / static_cast<double>(table.theta.size() - 1);
   for (int k = 0; k <= 5; ++k) {
     for (double side : {-1.0, 1.0}) {
@@ -1414,7 +1409,7 @@ void PolynomialLaw::table_nodes(std::vector<double>& xs, std::vector<double>& ja
       const double a = table.theta[p], b = table.theta[p + 1];
       for (int q = 0; q < kPanelNodes; ++q) {
         const double t = 0.5 * (a + b) + 0.5 * (b - a) * rule.nodes[q];
-        xs.push_back(table.lo + 0.5 * w * (1.0 - std::cos(t)));
+        xs.push_back(table.x_of(t));
         jac.push_back(0.5 * w * std::sin(t));
       }
     }
@@ -1447,9 +1442,7 @@ bool PolynomialLaw::split_unresolved_panels(const std::vector<DensityReport>& ds
       coarse = std::max(coarse, table.theta[p + 1] - table.theta[p]);
     }
     const bool graded = c0 > table.lo && c0 < table.lo + table.width;
-    const double t0 = graded ? std::acos(std::clamp(1.0 - 2.0 * (c0 - table.lo) / table.width,
-                                                     -1.0, 1.0))
-                             : -10.0;
+    const double t0 = graded ? table.theta_of(c0) : -10.0;
     const double window_lo = table.window >= 0 ? table.theta[table.window] : -10.0;
     std::vector<double> added;
     for (std::size_t p = 0; p + 1 < table.theta.size(); ++p) {
@@ -1467,11 +1460,9 @@ bool PolynomialLaw::split_unresolved_panels(const std::vector<DensityReport>& ds
           legendre = next;
         }
       }
-      const double x_lo = table.lo + 0.5 * table.width * (1.0 - std::cos(a));
-      const double x_hi = table.lo + 0.5 * table.width * (1.0 - std::cos(b));
       const bool near_singular = std::abs(0.5 * (a + b) - t0) < 2.0 * coarse ||
                                  std::abs(a - window_lo) < 2.0 * coarse ||
-                                 near_point_mass(x_lo, x_hi);
+                                 near_point_mass(table.x_of(a), table.x_of(b));
       const double tail =
           0.5 * (b - a) * (std::abs(c[kPanelNodes - 2]) + std::abs(c[kPanelNodes - 1]));
       if (!near_singular && tail > 1e-10 && b - a > 1e-9) added.push_back(0.5 * (a + b));
@@ -1539,8 +1530,7 @@ double PolynomialLaw::cdf(double x) const {
       total += table.cumulative.back();
       continue;
     }
-    const double theta =
-        std::acos(std::clamp(1.0 - 2.0 * (x - table.lo) / table.width, -1.0, 1.0));
+    const double theta = table.theta_of(x);
     const int P = static_cast<int>(table.theta.size()) - 1;
     const int p = std::clamp(
         static_cast<int>(std::upper_bound(table.theta.begin(), table.theta.end(), theta) -

@@ -33,10 +33,12 @@
 #pragma once
 
 #include <Eigen/Core>
+#include <algorithm>
+#include <cmath>
 #include <complex>
 #include <memory>
-#include <optional>
 #include <mutex>
+#include <optional>
 #include <span>
 #include <string>
 #include <vector>
@@ -238,6 +240,11 @@ class PolynomialLaw final : public Law {
     /// (find_hidden_atom).
     double exact_first = 0.0;
     std::optional<Atom> hidden_atom;
+    /// The table's substitution x = lo + width·(1 − cos θ)/2, and its inverse (clamped to the band).
+    double x_of(double theta) const { return lo + 0.5 * width * (1.0 - std::cos(theta)); }
+    double theta_of(double x) const {
+      return std::acos(std::clamp(1.0 - 2.0 * (x - lo) / width, -1.0, 1.0));
+    }
   };
   void find_hidden_atom(BandTable& table, double table_first) const;
   // The band's table from the densities at its nodes (from `node` on), less the shares of the
