@@ -59,6 +59,9 @@ LetterLaw law_of(const MatrixSpec& m) {
       return {semicircle(m.diagonal.variance), "semicircle", {}};
     case DL::marchenko_pastur_quantiles:
       return {marchenko_pastur(m.diagonal.ratio), "Marchenko-Pastur", {}};
+    case DL::spiked:
+      return {atoms({{m.diagonal.base, 1.0}}), "the point mass at its base (its spikes are outliers)",
+              {}};
     case DL::file: {
       // The empirical law of the file's K numbers: the law the diagonal's quantiles converge to.
       // When the file holds exactly the N numbers of the sampled size, the limit is the finite-N
@@ -215,7 +218,15 @@ std::optional<FreeTerm> sandwich_term(const TermWord& tw, bool sandwich3, FreeTe
   }
   const Support sy = ly.law->support();
   const double variance = semicircle_variance(x);
-  if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
+  const Support sx2 = x2->support();
+  if (sx2.bands.empty() && sx2.atoms.size() == 1) {
+    // X a point mass b (a spiked diagonal's limit): X Y X = b²·Y.
+    const double b2 = sx2.atoms[0].value;
+    t.law = b2 == 0.0 ? atoms({{0.0, 1.0}}) : affine(ly.law, b2, 0.0);
+    t.text = text + " → " + text::readable(sx2.atoms[0].value) + "·law(" + y.name +
+             ") (" + x.name + " is the point mass at ±" +
+             text::readable(std::sqrt(sx2.atoms[0].value)) + ")";
+  } else if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
       sy.atoms.size() <= kMostCompoundPoissonJumps) {
     // X semicircular of variance v: X Y X has free cumulants κ_n = vⁿ φ(Yⁿ), the free compound
     // Poisson law of rate 1 with jumps v·Y (Nica & Speicher 2006, Prop. 12.18, from memory;
@@ -411,6 +422,13 @@ static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vec
   for (const auto& m : terms) {
     if (m.letters.empty()) {
       split.shift += m.coefficient;
+      continue;
+    }
+    const MatrixSpec& first = d[static_cast<std::size_t>(m.letters[0].first)];
+    if (m.letters.size() == 1 && first.kind == Kind::diagonal &&
+        first.diagonal.kind == declarations::DiagonalLawKind::atoms &&
+        first.diagonal.atoms.size() == 1) {
+      split.shift += m.coefficient * first.diagonal.atoms[0].value;  // a point mass: a constant
       continue;
     }
     if (const auto p = power_of(m.letters, d); p && polynomial_terms.count(p->first)) continue;
@@ -685,15 +703,33 @@ DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
   // the order of its -m options while a job file's tables come sorted by name; derived in
   // different orders, the same model's edges differed in the tenth digit, and the density at a
   // grid point next to an edge by 1e-6 (found by python.check_limit_catalogue).
+  // A spiked diagonal enters as its limit, the point mass at its base (its outliers are
+  // predicted apart: outliers.hpp).
   std::vector<declarations::MatrixSpec> specs = expression.declared();
+  bool spiked = false;
+  for (auto& m : specs) {
+    spiked = spiked || m.diagonal.kind == declarations::DiagonalLawKind::spiked;
+    m = declarations::limit_spec(m);
+  }
   const auto by_name = [](const MatrixSpec& a, const MatrixSpec& b) { return a.name < b.name; };
-  if (std::is_sorted(specs.begin(), specs.end(), by_name)) {
+  if (!spiked && std::is_sorted(specs.begin(), specs.end(), by_name)) {
     return derive_in_order(expression, max_moment);
   }
   std::stable_sort(specs.begin(), specs.end(), by_name);
   expr::CheckOptions check;
   check.force_singular_values = expression.spectrum() == expr::Spectrum::singular_values;
-  return derive_in_order(expr::Expression(expression.text(), std::move(specs), check), max_moment);
+  DerivedLimit out =
+      derive_in_order(expr::Expression(expression.text(), std::move(specs), check), max_moment);
+  if (spiked) {
+    out.rate_key.clear();  // published finite-N rates are of the model without the spike
+    if (out.law) {
+      out.outliers = predict_outliers(expression, *out.law);
+    } else {
+      out.outliers.spiked = true;
+      out.outliers.reason = "no bulk law: " + out.reason;
+    }
+  }
+  return out;
 }
 
 namespace {

@@ -244,6 +244,11 @@ FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
           return FreeVariable::semicircular(Rational::from_double(spec.diagonal.variance));
         case DiagonalLawKind::marchenko_pastur_quantiles:
           return FreeVariable::marchenko_pastur(Rational::from_double(spec.diagonal.ratio));
+        case DiagonalLawKind::spiked: {  // finite rank: the point mass at the base in the limit
+          std::vector<std::pair<Rational, Rational>> atoms;
+          atoms.emplace_back(Rational::from_double(spec.diagonal.base), Rational(1));
+          return FreeVariable::atoms(std::move(atoms));
+        }
         case DiagonalLawKind::file: {
           // The empirical law of the file's numbers; its weights count/K are exact rationals.
           std::vector<std::size_t> counts;

@@ -57,6 +57,10 @@ FreeLetter letter_for(const declarations::MatrixSpec& spec, const std::string& n
         case DiagonalLawKind::marchenko_pastur_quantiles:
           letter.law = marchenko_pastur(spec.diagonal.ratio);
           return letter;
+        case DiagonalLawKind::spiked:  // finite rank: the point mass at the base in the limit
+          letter.atoms = {{spec.diagonal.base, 1.0}};
+          letter.law = atoms(letter.atoms);
+          return letter;
         case DiagonalLawKind::file: {
           // The empirical law of the file's numbers (declarations::file_law_atoms), ascending.
           std::vector<Atom> points;

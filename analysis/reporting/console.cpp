@@ -236,7 +236,33 @@ std::string limit_law_text(const expr::Expression& expression, const DerivedLimi
     appendf(out, "bands of the continuous part: %zu\n", support.bands.size());
     for (const auto& band : support.bands) appendf(out, "  [%.10f, %.10f]\n", band.lo, band.hi);
   }
-  appendf(out, "operator-norm limit: %.10f\n", norm);
+  appendf(out, "operator-norm limit: %.10f%s\n", norm,
+          derived.outliers.spiked ? " (of the bulk)" : "");
+  out += outliers_text(derived.outliers);
+  return out;
+}
+
+std::string outliers_text(const OutlierPrediction& p) {
+  std::string out;
+  if (!p.spiked) return out;
+  if (!p.predicted()) {
+    appendf(out, "outliers: not predicted: %s\n", p.reason.c_str());
+    return out;
+  }
+  appendf(out, "outliers: %s\n", p.rule.c_str());
+  for (const auto& o : p.outliers) {
+    if (o.separates) {
+      appendf(out, "  spike %.10g (θ = %.10g): outlier at %.10f (it separates for |θ| > %.6f)\n",
+              o.spike, o.theta, o.location, std::abs(o.threshold));
+    } else if (std::isfinite(o.threshold)) {
+      appendf(out, "  spike %.10g (θ = %.10g): no outlier (it needs |θ| > %.6f)\n", o.spike,
+              o.theta, std::abs(o.threshold));
+    } else {
+      appendf(out, "  spike %.10g (θ = %.10g): no outlier\n", o.spike, o.theta);
+    }
+  }
+  appendf(out, "largest eigenvalue → %.10f, smallest → %.10f, operator norm → %.10f\n",
+          p.largest, p.smallest, std::max(std::abs(p.largest), std::abs(p.smallest)));
   return out;
 }
 

@@ -15,6 +15,7 @@
 #include <sstream>
 #include <unordered_map>
 
+#include "freegap/analysis/reporting/console.hpp"
 #include "freegap/analysis/reporting/estimator_scores.hpp"
 #include "freegap/analysis/statistics/fit.hpp"
 #include "freegap/analysis/limits/free_convolution.hpp"
@@ -121,6 +122,25 @@ LimitReference reference_of(const DerivedLimit& d, observe::SpectrumKind kind) {
   return r;
 }
 
+// Whether a predicted outlier, not the bulk's edge, is the limit of the largest (`top`) or the
+// smallest eigenvalue (outliers.hpp).
+bool outlier_side(const RunResult& run, bool top) {
+  const OutlierPrediction& p = run.limit.outliers;
+  if (!p.predicted() || !run.limit.law) return false;
+  const Support s = run.limit.law->support();
+  return top ? p.largest > s.hi : p.smallest < s.lo;
+}
+
+// With predicted outliers the extremes and the norm go to them, not to the bulk's edges; the
+// distances still compare with the bulk law (a finite rank moves no mass in the limit).
+void aim_extremes_at_outliers(RunResult& run) {
+  const OutlierPrediction& p = run.limit.outliers;
+  if (!p.predicted() || run.header.spectrum != observe::SpectrumKind::eigenvalues) return;
+  run.reference.edge_high = p.largest;
+  run.reference.edge_low = p.smallest;
+  run.reference.norm = std::max(std::abs(p.largest), std::abs(p.smallest));
+}
+
 // Which published exponents apply to which quantity of a model (fit.hpp's table).
 std::optional<PublishedRate> published_for(const std::string& quantity, const std::string& model) {
   if (model.empty()) return std::nullopt;
@@ -154,7 +174,10 @@ void add_fit(RunFits& fits, std::string quantity, std::string key, std::vector<E
   f.key = key;
   f.fit = fit_power_law(points);
   if (f.fit.ok && interval) f.bootstrap = interval;
-  f.published = published_for(key, model);
+  const bool outlier = (key == "largest" && outlier_side(fits.run, true)) ||
+                       (key == "smallest" && outlier_side(fits.run, false)) ||
+                       (key == "norm" && fits.run.limit.outliers.predicted());
+  if (!outlier) f.published = published_for(key, model);  // the edge's exponents, not an outlier's
   fits.run.fits.push_back(std::move(f));
 }
 
@@ -315,10 +338,16 @@ void fit_run(RunResult& run, const ReportOptions& options) {
   }
 
   if (!run.reference.moments.empty()) fit_moments(fits, options);
-  fit_per_trial_values(fits, "largest value − limit edge", "largest", run.reference.edge_high,
+  fit_per_trial_values(fits,
+                       outlier_side(run, true) ? "largest value − predicted outlier"
+                                               : "largest value − limit edge",
+                       "largest", run.reference.edge_high,
                        [](const observe::TrialRecord& t) { return t.max; });
   if (run.header.spectrum == observe::SpectrumKind::eigenvalues) {
-    fit_per_trial_values(fits, "smallest value − limit edge", "smallest", run.reference.edge_low,
+    fit_per_trial_values(fits,
+                         outlier_side(run, false) ? "smallest value − predicted outlier"
+                                                  : "smallest value − limit edge",
+                         "smallest", run.reference.edge_low,
                          [](const observe::TrialRecord& t) { return t.min; });
   }
   fit_per_trial_values(fits, "operator norm − limit norm", "norm", run.reference.norm,
@@ -344,6 +373,7 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   }
   try {
     run.reference = reference_of(run.limit, run.header.spectrum);
+    aim_extremes_at_outliers(run);
   } catch (const NumericalError& e) {
     // Never abort the report: the finite-N data is reported without the distances that need the
     // limit's CDF, and the note says why.
@@ -754,7 +784,12 @@ std::string markdown_limit(const RunResult& run) {
         md += "[" + fmt("%.10g", s.bands[b].lo) + ", " + fmt("%.10g", s.bands[b].hi) + "]";
       }
     }
-    md += "; operator-norm limit " + fmt("%.10g", run.reference.norm) + "\n";
+    md += "; operator-norm limit " + fmt("%.10g", run.reference.norm) +
+          (run.limit.outliers.predicted() ? " (with the outliers)" : "") + "\n";
+    if (run.limit.outliers.spiked) {
+      md += "- outliers of the spiked matrix (the bulk law above is its limit without them):\n\n```\n" +
+            outliers_text(run.limit.outliers) + "```\n";
+    }
   } else {
     md += "- no predictor applies: " + run.limit.reason + ". The finite-N data is reported below "
           "without distances to a limit.\n";
@@ -906,9 +941,10 @@ std::string markdown_extremes(const RunResult& run) {
   const bool have_data = std::any_of(run.sizes.begin(), run.sizes.end(),
                                      [](const SizeResult& s) { return s.has_data(); });
   if (have_data) {
-    md += "\n### Extremes and operator norm (means over trials)\n\n| N | largest | − edge " +
+    md += "\n### Extremes and operator norm (means over trials)\n\n| N | largest | − " +
+          std::string(outlier_side(run, true) ? "outlier " : "edge ") +
           (std::isfinite(run.reference.edge_high) ? fmt("%.6g", run.reference.edge_high) : std::string("(unknown)")) +
-          " | smallest | − edge " +
+          " | smallest | − " + std::string(outlier_side(run, false) ? "outlier " : "edge ") +
           (std::isfinite(run.reference.edge_low) ? fmt("%.6g", run.reference.edge_low) : std::string("(unknown)")) +
           " | norm | − limit " +
           (std::isfinite(run.reference.norm) ? fmt("%.6g", run.reference.norm) : std::string("(unknown)")) +

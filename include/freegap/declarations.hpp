@@ -48,6 +48,7 @@ enum class DiagonalLawKind {
   semicircle_quantiles,        ///< semicircle of the given variance
   marchenko_pastur_quantiles,  ///< Marchenko–Pastur of the given ratio c (atom at 0 when c > 1)
   file,                        ///< the empirical law of the numbers in a text file
+  spiked,                      ///< finitely many given values, every other entry one base value
 };
 
 /// The law of a deterministic diagonal matrix. Its N diagonal entries are
@@ -56,7 +57,10 @@ enum class DiagonalLawKind {
 ///    fractional parts (ties to the earlier atom) until the counts sum to N;
 ///  - every other law: its quantiles F^(-1)((k + 1/2)/N), k = 0..N−1 (midpoint rule), ascending.
 ///    For `file`, F is the empirical CDF of the K numbers in the file (equal weights, left-
-///    continuous inverse), so a file with exactly N numbers gives those numbers, sorted.
+///    continuous inverse), so a file with exactly N numbers gives those numbers, sorted;
+///  - spiked: the r values of `spikes` in the order given, then N − r entries equal to `base`. The
+///    count r does not grow with N (a finite-rank perturbation), so the limit law is the point
+///    mass at `base`, and the spikes show as outliers (analysis/limits/outliers.hpp).
 struct DiagonalLaw {
   DiagonalLawKind kind = DiagonalLawKind::atoms;
   std::vector<Atom> atoms;
@@ -64,7 +68,12 @@ struct DiagonalLaw {
   double variance = 1.0;         ///< semicircle
   double ratio = 1.0;            ///< Marchenko–Pastur c
   std::string path;              ///< file: whitespace-separated numbers, '#' starts a comment
+  std::vector<double> spikes;    ///< spiked: the r values, r ≤ kMostSpikes
+  double base = 0.0;             ///< spiked: the value of the other N − r entries
 };
+
+/// The largest rank of a spiked diagonal: a finite-rank perturbation, not a law.
+inline constexpr std::size_t kMostSpikes = 64;
 
 /// One declared matrix.
 struct MatrixSpec {
@@ -116,6 +125,14 @@ std::vector<double> file_values(const MatrixSpec& spec);
 /// number's count (the weights are counts[i]/K exactly).
 std::vector<Atom> file_law_atoms(const MatrixSpec& spec,
                                  std::vector<std::size_t>* counts = nullptr);
+
+/// The diagonal entries at size N when they are fixed by the declaration alone (atoms and spiked
+/// laws, in the sampler's order); empty for any other law.
+std::vector<double> planned_entries(const MatrixSpec& spec, Index n);
+
+/// The declaration as its N → ∞ limit sees it: a spiked diagonal becomes the point mass at its
+/// base (law atoms [[base, 1]]); every other declaration is returned unchanged.
+MatrixSpec limit_spec(const MatrixSpec& spec);
 
 /// Counts n_i for atoms at size N by the largest-remainder rule (see DiagonalLaw).
 std::vector<Index> atom_counts(const std::vector<Atom>& atoms, Index n);

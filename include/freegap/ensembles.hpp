@@ -57,6 +57,7 @@ using declarations::companion_size;
 using declarations::shape;
 using declarations::file_law_atoms;
 using declarations::atom_counts;
+using declarations::planned_entries;
 
 /// A sampled matrix: dense real, dense complex, or a real diagonal kept as a vector.
 struct Sample {

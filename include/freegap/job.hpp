@@ -52,12 +52,14 @@
 //   haar_unitary, haar_orthogonal          ensemble, method ("qr" | "polar", default "qr")
 //   diagonal                               ensemble, law ("atoms" default | "uniform" |
 //   "semicircle"
-//                                          | "marchenko_pastur" | "file") and by law:
+//                                          | "marchenko_pastur" | "file" | "spiked") and by law:
 //                                            atoms: atoms (required)
 //                                            uniform: low, high (both required)
 //                                            semicircle: variance (> 0, default 1)
 //                                            marchenko_pastur: ratio (> 0, default 1)
 //                                            file: path (required; relative to the job file)
+//                                            spiked: spikes (1–64 values, required), base
+//                                              (default 0): a finite-rank perturbation
 //
 // Every message is "file:line: key: rule broken and how to fix it" (line omitted when the key is
 // missing from the file altogether); a TOML syntax error is "file:line:column: TOML syntax: ...".

@@ -210,7 +210,42 @@ void validate(const MatrixSpec& spec) {
       break;
     case DiagonalLawKind::file:
       break;  // its numbers are checked as file_values() reads them
+    case DiagonalLawKind::spiked:
+      if (law.spikes.empty() || law.spikes.size() > kMostSpikes) {
+        fail(spec, "a spiked law needs 1 to " + std::to_string(kMostSpikes) + " spike values (got " +
+                       std::to_string(law.spikes.size()) + ")");
+      }
+      for (const double v : law.spikes) {
+        if (!std::isfinite(v)) fail(spec, "spike values must be finite");
+      }
+      if (!std::isfinite(law.base)) fail(spec, "the base value must be finite");
+      break;
   }
+}
+
+MatrixSpec limit_spec(const MatrixSpec& spec) {
+  MatrixSpec out = spec;
+  if (spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::spiked) {
+    out.diagonal = DiagonalLaw{};
+    out.diagonal.atoms = {{spec.diagonal.base, 1.0}};
+  }
+  return out;
+}
+
+std::vector<double> planned_entries(const MatrixSpec& spec, Index n) {
+  std::vector<double> d;
+  if (spec.kind != Kind::diagonal || n <= 0) return d;
+  const DiagonalLaw& law = spec.diagonal;
+  if (law.kind == DiagonalLawKind::atoms && !law.atoms.empty()) {
+    const auto counts = atom_counts(law.atoms, n);
+    for (std::size_t i = 0; i < counts.size(); ++i) {
+      d.insert(d.end(), static_cast<std::size_t>(counts[i]), law.atoms[i].value);
+    }
+  } else if (law.kind == DiagonalLawKind::spiked && static_cast<Index>(law.spikes.size()) <= n) {
+    d = law.spikes;
+    d.resize(static_cast<std::size_t>(n), law.base);
+  }
+  return d;
 }
 
 std::vector<double> file_values(const MatrixSpec& spec) { return read_number_file(spec); }

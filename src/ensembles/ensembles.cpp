@@ -259,6 +259,16 @@ Eigen::VectorXd Sampler::diagonal_values(Index n) const {
       }
       break;
     }
+    case DiagonalLawKind::spiked: {
+      const auto rank = static_cast<Index>(law.spikes.size());
+      if (n < rank) {
+        fail(spec_, "size N = " + std::to_string(n) + " is below its " + std::to_string(rank) +
+                        " spike values; start the sizes at N ≥ " + std::to_string(rank));
+      }
+      d.setConstant(law.base);
+      for (Index k = 0; k < rank; ++k) d(k) = law.spikes[static_cast<std::size_t>(k)];
+      break;
+    }
   }
   return d;
 }

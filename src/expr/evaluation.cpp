@@ -391,16 +391,15 @@ void zero_fresh(Matrix& m, Index r, Index c) {
 }
 
 /// Column counts (k₊, k₋) of the two rank-k updates for Y D Y^*, estimated at plan time from the
-/// declared law of D (exact for atom laws; otherwise all N columns, one fewer for a unitary Y).
+/// declared law of D (exact for atom and spiked laws; otherwise all N columns, one fewer for a
+/// unitary Y).
 std::pair<Index, Index> conjugate_columns(const EvaluationData& p, const Node& d, bool unitary) {
   const Index n = p.dims[d.rows];
   if (d.kind == NodeKind::leaf) {
-    const auto& spec = p.expression->declared[d.leaf];
-    if (spec.diagonal.kind == ensembles::DiagonalLawKind::atoms && !spec.diagonal.atoms.empty()) {
-      const auto counts = ensembles::atom_counts(spec.diagonal.atoms, n);
+    const auto entries = ensembles::planned_entries(p.expression->declared[d.leaf], n);
+    if (!entries.empty()) {
       std::map<double, Index> by_value;
-      for (std::size_t i = 0; i < counts.size(); ++i)
-        by_value[spec.diagonal.atoms[i].value] += counts[i];
+      for (const double v : entries) ++by_value[v];
       double shift = 0.0;
       if (unitary) {
         Index best = -1;
@@ -419,18 +418,10 @@ std::pair<Index, Index> conjugate_columns(const EvaluationData& p, const Node& d
   return {unitary ? n - 1 : n, 0};
 }
 
-/// The entries of a diagonal leaf with an atoms law at size n, as the sampler places them
-/// (ensembles::Sampler::diagonal_values); empty for any other law.
+/// The entries of a diagonal leaf with an atoms or spiked law at size n, as the sampler places
+/// them (ensembles::Sampler::diagonal_values); empty for any other law.
 std::vector<double> atom_diagonal(const ensembles::MatrixSpec& spec, Index n) {
-  std::vector<double> d;
-  if (spec.diagonal.kind != ensembles::DiagonalLawKind::atoms || spec.diagonal.atoms.empty()) {
-    return d;
-  }
-  const auto counts = ensembles::atom_counts(spec.diagonal.atoms, n);
-  for (std::size_t i = 0; i < counts.size(); ++i) {
-    d.insert(d.end(), static_cast<std::size_t>(counts[i]), spec.diagonal.atoms[i].value);
-  }
-  return d;
+  return ensembles::planned_entries(spec, n);
 }
 
 /// The most frequent value of d, the smallest one on a tie: the shift of Y D Y^* for unitary Y

@@ -43,6 +43,14 @@ std::string law_words(const declarations::DiagonalLaw& law) {
       return "law = marchenko_pastur; ratio = " + exact(law.ratio);
     case DiagonalLawKind::file:
       return "law = file";  // the numbers' digest follows; the path is where, not what
+    case DiagonalLawKind::spiked: {
+      std::string out = "law = spiked; spikes =";
+      for (const double v : law.spikes) {
+        out += ' ';
+        out += exact(v);
+      }
+      return out + "; base = " + exact(law.base);
+    }
   }
   return "law = ?";
 }

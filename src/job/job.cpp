@@ -354,10 +354,12 @@ constexpr LawName kLaws[] = {
     {DiagonalLawKind::semicircle_quantiles, "semicircle"},
     {DiagonalLawKind::marchenko_pastur_quantiles, "marchenko_pastur"},
     {DiagonalLawKind::file, "file"},
+    {DiagonalLawKind::spiked, "spiked"},
 };
 
 const std::vector<std::string_view> kAllMatrixKeys = {
-    "ensemble", "ratio", "method", "law", "atoms", "low", "high", "variance", "path", "beta"};
+    "ensemble", "ratio", "method", "law",   "atoms",  "low",
+    "high",     "variance", "path", "beta", "spikes", "base"};
 
 bool has_ratio(Kind k) {
   return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
@@ -381,6 +383,8 @@ std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
       return {"ensemble", "law", "ratio"};
     case DiagonalLawKind::file:
       return {"ensemble", "law", "path"};
+    case DiagonalLawKind::spiked:
+      return {"ensemble", "law", "spikes", "base"};
   }
   return {"ensemble"};
 }
@@ -473,7 +477,7 @@ bool read_law_name(const Reader& r, const toml::table& t, const std::string& pre
       if (it == std::end(kLaws)) {
         r.fail(law_key,
                "must be one of \"atoms\", \"uniform\", \"semicircle\", "
-               "\"marchenko_pastur\", \"file\" (got \"" +
+               "\"marchenko_pastur\", \"file\", \"spiked\" (got \"" +
                    text + "\")");
       }
       spec.diagonal.kind = it->kind;
@@ -538,6 +542,27 @@ void read_law_file(const Reader& r, const toml::table& t, const std::string& pre
   }
 }
 
+// Reads law "spiked"'s values and base: r = 1 … kMostSpikes finite numbers, a count that does
+// not grow with N.
+void read_spikes(const Reader& r, const toml::table& t, const std::string& prefix,
+                 declarations::DiagonalLaw& law) {
+  const std::string key = prefix + ".spikes";
+  const std::string example = "e.g. spikes = [3.0] for one spike of value 3";
+  const toml::node* v = t.get("spikes");
+  if (v == nullptr) {
+    r.fail_at(r.line(prefix), key, "missing; law \"spiked\" needs its values, " + example);
+  }
+  const auto* list = v->as_array();
+  if (list == nullptr) r.fail(key, "must be a list of numbers, " + example + " (got " + describe(*v) + ")");
+  if (list->empty() || list->size() > declarations::kMostSpikes) {
+    r.fail(key, "must hold 1 to " + std::to_string(declarations::kMostSpikes) +
+                    " values (a finite rank; got " + std::to_string(list->size()) +
+                    "); a share of N is a law: use law = \"atoms\"");
+  }
+  for (const auto& item : *list) law.spikes.push_back(r.finite_number(item, key));
+  if (const toml::node* b = t.get("base")) law.base = r.finite_number(*b, prefix + ".base");
+}
+
 // Reads the parameters of a diagonal's law (law.kind already read).
 void read_diagonal_law(const Reader& r, const toml::table& t, const std::string& prefix,
                        bool law_given, const std::filesystem::path& base, bool read_files,
@@ -552,7 +577,7 @@ void read_diagonal_law(const Reader& r, const toml::table& t, const std::string&
         }
         r.fail(prefix,
                "a diagonal needs atoms = [[value, weight], ...] or a law = \"...\" "
-               "(uniform, semicircle, marchenko_pastur, file); add one");
+               "(uniform, semicircle, marchenko_pastur, file, spiked); add one");
       }
       law.atoms = read_atoms(r, *v, prefix + ".atoms");
       break;
@@ -583,6 +608,9 @@ void read_diagonal_law(const Reader& r, const toml::table& t, const std::string&
       break;
     case DiagonalLawKind::file:
       read_law_file(r, t, prefix, base, read_files, law);
+      break;
+    case DiagonalLawKind::spiked:
+      read_spikes(r, t, prefix, law);
       break;
   }
 }
@@ -1124,6 +1152,14 @@ void validate_matrices(const Reader& r, bool read_files, Job& job) {
       const bool about_file =
           spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file;
       r.fail(about_file ? key + ".path" : key, what);
+    }
+    const bool spiked = spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::spiked;
+    if (spiked && !job.sizes.empty() &&
+        static_cast<std::size_t>(job.sizes.front()) < spec.diagonal.spikes.size()) {
+      r.fail(key + ".spikes", "has " + std::to_string(spec.diagonal.spikes.size()) +
+                                  " values but the smallest size is N = " +
+                                  std::to_string(job.sizes.front()) +
+                                  "; start the sizes at N ≥ the number of spikes");
     }
     job.file_digests.push_back(std::move(digest));
   }

@@ -97,6 +97,48 @@ bool has_dense_sampler(ensembles::Kind kind) {
   return kind != ensembles::Kind::beta_hermite && kind != ensembles::Kind::beta_laguerre;
 }
 
+// A diagonal's key=value of a command-line declaration; false when `key` is not a diagonal's.
+bool set_diagonal_key(const std::string& text, const std::string& key, const std::string& value,
+                      ensembles::MatrixSpec& spec, bool& law_given) {
+  using ensembles::DiagonalLawKind;
+  if (key == "law") {
+    law_given = true;
+    if (value == "atoms") spec.diagonal.kind = DiagonalLawKind::atoms;
+    else if (value == "uniform") spec.diagonal.kind = DiagonalLawKind::uniform;
+    else if (value == "semicircle") spec.diagonal.kind = DiagonalLawKind::semicircle_quantiles;
+    else if (value == "marchenko_pastur") spec.diagonal.kind = DiagonalLawKind::marchenko_pastur_quantiles;
+    else if (value == "file") spec.diagonal.kind = DiagonalLawKind::file;
+    else if (value == "spiked") spec.diagonal.kind = DiagonalLawKind::spiked;
+    else bad_declaration(text, "law must be atoms, uniform, semicircle, marchenko_pastur, file or spiked (got '" + value + "')");
+  } else if (key == "atoms") {
+    for (const auto& pair : split(value, ',')) {
+      const auto at = pair.find('@');
+      if (at == std::string::npos) {
+        bad_declaration(text, "atoms are value@weight pairs separated by ',' (got '" + pair + "')");
+      }
+      spec.diagonal.atoms.push_back({parse_number(text, "atom value", pair.substr(0, at)),
+                                     parse_number(text, "atom weight", pair.substr(at + 1))});
+    }
+  } else if (key == "low") {
+    spec.diagonal.low = parse_number(text, key, value);
+  } else if (key == "high") {
+    spec.diagonal.high = parse_number(text, key, value);
+  } else if (key == "variance") {
+    spec.diagonal.variance = parse_number(text, key, value);
+  } else if (key == "ratio") {
+    spec.diagonal.ratio = parse_number(text, key, value);
+  } else if (key == "path") {
+    spec.diagonal.path = value;
+  } else if (key == "spikes") {
+    for (const auto& v : split(value, ',')) spec.diagonal.spikes.push_back(parse_number(text, "spike", v));
+  } else if (key == "base") {
+    spec.diagonal.base = parse_number(text, key, value);
+  } else {
+    return false;
+  }
+  return true;
+}
+
 }  // namespace
 
 ensembles::MatrixSpec parse_declaration(const std::string& text) {
@@ -140,33 +182,8 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
       } else {
         bad_declaration(text, "method must be qr or polar (got '" + value + "')");
       }
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "law") {
-      law_given = true;
-      if (value == "atoms") spec.diagonal.kind = DiagonalLawKind::atoms;
-      else if (value == "uniform") spec.diagonal.kind = DiagonalLawKind::uniform;
-      else if (value == "semicircle") spec.diagonal.kind = DiagonalLawKind::semicircle_quantiles;
-      else if (value == "marchenko_pastur") spec.diagonal.kind = DiagonalLawKind::marchenko_pastur_quantiles;
-      else if (value == "file") spec.diagonal.kind = DiagonalLawKind::file;
-      else bad_declaration(text, "law must be atoms, uniform, semicircle, marchenko_pastur or file (got '" + value + "')");
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "atoms") {
-      for (const auto& pair : split(value, ',')) {
-        const auto at = pair.find('@');
-        if (at == std::string::npos) {
-          bad_declaration(text, "atoms are value@weight pairs separated by ',' (got '" + pair + "')");
-        }
-        spec.diagonal.atoms.push_back({parse_number(text, "atom value", pair.substr(0, at)),
-                                       parse_number(text, "atom weight", pair.substr(at + 1))});
-      }
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "low") {
-      spec.diagonal.low = parse_number(text, key, value);
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "high") {
-      spec.diagonal.high = parse_number(text, key, value);
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "variance") {
-      spec.diagonal.variance = parse_number(text, key, value);
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "ratio") {
-      spec.diagonal.ratio = parse_number(text, key, value);
-    } else if (spec.kind == ensembles::Kind::diagonal && key == "path") {
-      spec.diagonal.path = value;
+    } else if (spec.kind == ensembles::Kind::diagonal &&
+               set_diagonal_key(text, key, value, spec, law_given)) {
     } else {
       bad_declaration(text, "key '" + key + "' does not apply to " +
                                 std::string(ensembles::kind_name(spec.kind)));
@@ -174,6 +191,11 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
   }
   if (spec.kind == ensembles::Kind::diagonal && !law_given && spec.diagonal.atoms.empty()) {
     bad_declaration(text, "a diagonal needs atoms=value@weight,... or law=...");
+  }
+  if (spec.kind == ensembles::Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::spiked &&
+      spec.diagonal.spikes.empty()) {
+    bad_declaration(text, "law=spiked needs spikes=value,... (1 to " +
+                              std::to_string(declarations::kMostSpikes) + " values)");
   }
   return spec;
 }

@@ -527,7 +527,7 @@ TEST(JobErrors, BadMatrixParameters) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.D]\nensemble = \"diagonal\"\n"
                                               "law = \"gauss\"\n"),
             "study.toml:7: matrices.D.law: must be one of \"atoms\", \"uniform\", \"semicircle\", "
-            "\"marchenko_pastur\", \"file\" (got \"gauss\")");
+            "\"marchenko_pastur\", \"file\", \"spiked\" (got \"gauss\")");
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.D]\nensemble = \"diagonal\"\n"
                                               "law = \"uniform\"\nlow = 2\nhigh = 1\n"),
             "study.toml:9: matrices.D.high: must be greater than low (got low = 2, high = 1)");
@@ -537,7 +537,7 @@ TEST(JobErrors, BadMatrixParameters) {
             "e.g. low = 0 and high = 1");
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.D]\nensemble = \"diagonal\"\n"),
             "study.toml:5: matrices.D: a diagonal needs atoms = [[value, weight], ...] or a law = "
-            "\"...\" (uniform, semicircle, marchenko_pastur, file); add one");
+            "\"...\" (uniform, semicircle, marchenko_pastur, file, spiked); add one");
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.D]\nensemble = \"diagonal\"\n"
                                               "atoms = [[1.0, 0.5, 3]]\n"),
             "study.toml:7: matrices.D.atoms: every atom must be a [value, weight] pair, e.g. "
@@ -546,6 +546,50 @@ TEST(JobErrors, BadMatrixParameters) {
                                               "atoms = [[1.0, 0.5], [2.0, -0.1]]\n"),
             "study.toml:7: matrices.D.atoms: every weight must be a finite number ≥ 0 (got -0.1 "
             "for value 2)");
+}
+
+TEST(ParseJob, SpikedLawReadsItsValuesAndBase) {
+  const Job job = parse_job(std::string(kGoodHead) +
+                                "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\n"
+                                "ensemble = \"diagonal\"\nlaw = \"spiked\"\nspikes = [3, -1.5]\n"
+                                "base = 0.25\n",
+                            "study.toml");
+  const auto& y = job.matrices[1];
+  ASSERT_EQ(y.name, "Y");
+  EXPECT_EQ(y.diagonal.kind, freegap::declarations::DiagonalLawKind::spiked);
+  EXPECT_EQ(y.diagonal.spikes, (std::vector<double>{3.0, -1.5}));
+  EXPECT_EQ(y.diagonal.base, 0.25);
+  // The sampler's entries: the spikes in order, then the base.
+  EXPECT_EQ(freegap::declarations::planned_entries(y, 4),
+            (std::vector<double>{3.0, -1.5, 0.25, 0.25}));
+}
+
+TEST(JobErrors, SpikedLaw) {
+  const std::string head = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n" +
+                           "[matrices.Y]\nensemble = \"diagonal\"\nlaw = \"spiked\"\n";
+  EXPECT_EQ(error_of(head),
+            "study.toml:7: matrices.Y.spikes: missing; law \"spiked\" needs its values, e.g. "
+            "spikes = [3.0] for one spike of value 3");
+  EXPECT_EQ(error_of(head + "spikes = []\n"),
+            "study.toml:10: matrices.Y.spikes: must hold 1 to 64 values (a finite rank; got 0); a "
+            "share of N is a law: use law = \"atoms\"");
+  std::string many = "spikes = [1";
+  for (int i = 0; i < 64; ++i) many += ", 1";
+  EXPECT_NE(error_of(head + many + "]\n").find("got 65"), std::string::npos);
+  EXPECT_NE(error_of(head + "spikes = 3\n").find("matrices.Y.spikes: must be a list of numbers"),
+            std::string::npos);
+  EXPECT_NE(error_of(head + "spikes = [\"a\"]\n").find("matrices.Y.spikes"), std::string::npos);
+  EXPECT_NE(error_of(head + "spikes = [1]\nbase = nan\n").find("matrices.Y.base"),
+            std::string::npos);
+  EXPECT_EQ(error_of(head + "spikes = [1]\natoms = [[1.0, 1.0]]\n"),
+            "study.toml:11: matrices.Y.atoms: does not apply to law \"spiked\" (its keys: "
+            "ensemble, law, spikes, base); remove it");
+  // A rank above the smallest size.
+  std::string ladder = head + "spikes = [1, 2, 3]\n";
+  ladder.replace(ladder.find("[100, 200]"), 10, "[2, 200]");
+  EXPECT_EQ(error_of(ladder),
+            "study.toml:10: matrices.Y.spikes: has 3 values but the smallest size is N = 2; start "
+            "the sizes at N ≥ the number of spikes");
 }
 
 TEST(JobErrors, WeightsNotSummingToOne) {
@@ -839,6 +883,20 @@ TEST(JobHash, ChangedByEverythingThatDefinesTheNumbers) {
     EXPECT_NE(h, base) << from << " -> " << to;
     EXPECT_TRUE(seen.insert(h).second) << "two edits gave the same hash: " << to;
   }
+}
+
+TEST(JobHash, FollowsSpikeValuesAndBase) {
+  const std::string spiked = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n" +
+                             "[matrices.Y]\nensemble = \"diagonal\"\nlaw = \"spiked\"\n" +
+                             "spikes = [3.0]\n";
+  const std::string base = hash_of(spiked);
+  std::set<std::string> seen = {base};
+  for (const auto& [from, to] : std::vector<std::pair<std::string, std::string>>{
+           {"[3.0]", "[3.5]"}, {"[3.0]", "[3.0, 1.0]"}, {"[3.0]", "[3.0]\nbase = 1"}}) {
+    const std::string h = hash_of(replaced(spiked, from, to));
+    EXPECT_TRUE(seen.insert(h).second) << to;
+  }
+  EXPECT_EQ(hash_of(replaced(spiked, "[3.0]", "[3.0]\nbase = 0")), base);  // the default, given
 }
 
 TEST(JobHash, FollowsEigenvalueFileContent) {

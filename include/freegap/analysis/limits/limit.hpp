@@ -32,6 +32,7 @@
 #include <vector>
 
 #include "freegap/analysis/limits/laws.hpp"
+#include "freegap/analysis/limits/outliers.hpp"
 #include "freegap/expr.hpp"
 
 namespace freegap::analysis {
@@ -51,6 +52,8 @@ struct DerivedLimit {
   /// What the law is known to miss, when something (the polynomial solver's density and point
   /// masses adding up to less or more than 1); shown beside the law by `limit` and `report`.
   std::string law_note;
+  /// The outliers of a spiked diagonal (outliers.hpp); `law` is then the bulk's law.
+  OutlierPrediction outliers;
 };
 
 /// The limit of `expression` (as checked for the run) with its exact moments up to max_moment.

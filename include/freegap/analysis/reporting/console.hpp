@@ -47,6 +47,10 @@ std::string limit_law_text(const expr::Expression& expression, const DerivedLimi
                            const Law& law, const PolynomialLaw* polynomial,
                            const Support& support, bool singular, double norm);
 
+/// The predicted outliers of a spiked diagonal, one line per spike, and the limits of the
+/// extremes they give (empty without a spiked diagonal).
+std::string outliers_text(const OutlierPrediction& prediction);
+
 /// The moments m_1..m_max_moment found (`computed`, by the solver when `solver`, else by the
 /// law) beside the exact ones where they are known.
 std::string limit_moments_text(const std::vector<double>& computed, bool solver,
