@@ -322,4 +322,25 @@ LawPtr polynomial_image(LawPtr law, std::vector<double> coefficients) {
   return std::make_shared<Pushforward>(std::move(law), std::move(coefficients));
 }
 
+std::vector<double> toeplitz_symbol_polynomial(const std::vector<double>& coefficients) {
+  const std::size_t k = coefficients.empty() ? 0 : coefficients.size() - 1;
+  std::vector<double> out(k + 1, 0.0);
+  if (coefficients.empty()) return out;
+  out[0] = coefficients[0];
+  std::vector<double> previous = {2.0}, current = {0.0, 1.0};  // S_0 = 2, S_1 = x
+  for (std::size_t j = 1; j <= k; ++j) {
+    for (std::size_t i = 0; i < current.size(); ++i) out[i] += coefficients[j] * current[i];
+    std::vector<double> next(current.size() + 1, 0.0);  // S_{j+1} = x S_j − S_{j−1}
+    for (std::size_t i = 0; i < current.size(); ++i) next[i + 1] += current[i];
+    for (std::size_t i = 0; i < previous.size(); ++i) next[i] -= previous[i];
+    previous = std::move(current);
+    current = std::move(next);
+  }
+  return out;
+}
+
+LawPtr toeplitz_symbol_law(const std::vector<double>& coefficients) {
+  return polynomial_image(arcsine(), toeplitz_symbol_polynomial(coefficients));
+}
+
 }  // namespace freegap::analysis

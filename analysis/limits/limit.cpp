@@ -46,6 +46,10 @@ LetterLaw law_of(const MatrixSpec& m) {
   if (marchenko_pastur_kind(m.kind)) {
     return {marchenko_pastur(m.ratio), "Marchenko-Pastur(" + text::readable(m.ratio) + ")", {}};
   }
+  if (m.kind == Kind::toeplitz) {
+    return {toeplitz_symbol_law(m.coefficients),
+            "the law of its symbol f(θ), θ uniform (Szegő 1920; Grenander & Szegő 1958)", {}};
+  }
   if (m.kind != Kind::diagonal) return {nullptr, {}, who + " is not self-adjoint"};
   switch (m.diagonal.kind) {
     case DL::atoms: {

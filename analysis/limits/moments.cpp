@@ -205,6 +205,29 @@ Rational FreeVariable::block_cumulant(const std::vector<bool>& adjoint) const {
   return Rational(0);
 }
 
+// The Szegő limit of a Toeplitz symbol f(θ) = c_0 + Σ_{j≥1} c_j (e^{ijθ} + e^{−ijθ}): m_n is
+// (1/2π)∫ f(θ)ⁿ dθ, the constant term of the Laurent polynomial fⁿ, exactly.
+static FreeVariable toeplitz_variable(const std::vector<double>& coefficients) {
+  const auto k = static_cast<std::ptrdiff_t>(coefficients.size()) - 1;
+  std::vector<Rational> symbol(static_cast<std::size_t>(2 * k + 1));  // exponents −k … k
+  for (std::ptrdiff_t j = -k; j <= k; ++j) {
+    symbol[static_cast<std::size_t>(j + k)] =
+        Rational::from_double(coefficients[static_cast<std::size_t>(j < 0 ? -j : j)]);
+  }
+  return FreeVariable::from_moment_function([symbol, k](int n) {
+    std::vector<Rational> power = {Rational(1)};  // exponents −(current degree) … +(degree)
+    for (int p = 0; p < n; ++p) {
+      std::vector<Rational> next(power.size() + static_cast<std::size_t>(2 * k));
+      for (std::size_t a = 0; a < power.size(); ++a) {
+        if (power[a].is_zero()) continue;
+        for (std::size_t b = 0; b < symbol.size(); ++b) next[a + b] += power[a] * symbol[b];
+      }
+      power = std::move(next);
+    }
+    return power[power.size() / 2];
+  });
+}
+
 FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
   using declarations::DiagonalLawKind;
   using declarations::Kind;
@@ -218,6 +241,8 @@ FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
     case Kind::wishart_real:
     case Kind::beta_laguerre:  // normalised to Marchenko–Pastur(c) for every β
       return FreeVariable::marchenko_pastur(Rational::from_double(spec.ratio));
+    case Kind::toeplitz:
+      return toeplitz_variable(spec.coefficients);
     case Kind::ginibre_complex:
     case Kind::ginibre_real:
       if (spec.ratio != 1.0) {

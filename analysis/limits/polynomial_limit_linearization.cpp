@@ -35,6 +35,9 @@ FreeLetter letter_for(const declarations::MatrixSpec& spec, const std::string& n
     case Kind::wishart_real:
       letter.law = marchenko_pastur(spec.ratio);
       return letter;
+    case Kind::toeplitz:
+      letter.law = toeplitz_symbol_law(spec.coefficients);
+      return letter;
     case Kind::diagonal:
       switch (spec.diagonal.kind) {
         case DiagonalLawKind::atoms: {
@@ -179,12 +182,12 @@ std::vector<int> free_word_of(const expr::Monomial& m, const expr::Expression& e
     }
     auto it = bare_index.find(v);
     if (it == bare_index.end()) {
-      if (declared[v].kind == Kind::diagonal) {
+      if (!declarations::is_random(declared[v].kind)) {
         if (diagonal_seen && *diagonal_seen != v) {
           throw InputError("matrices '" + declared[*diagonal_seen].name + "' and '" +
                            declared[v].name + "' in '" + expression.text() +
-                           "': two deterministic diagonal matrices commute, so they are not "
-                           "free and the polynomial limit does not cover them together "
+                           "': two deterministic matrices are not free of each other (diagonals "
+                           "commute), so the polynomial limit does not cover them together "
                            "(conjugate one by a Haar unitary, U D U^*, to make it free)");
         }
         diagonal_seen = v;

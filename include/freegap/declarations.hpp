@@ -27,6 +27,7 @@ enum class Kind {
   diagonal,
   beta_hermite,   ///< β-Hermite eigenvalue law (any β > 0); tridiagonal model only
   beta_laguerre,  ///< β-Laguerre eigenvalue law (any β > 0, ratio c); tridiagonal model only
+  toeplitz,       ///< deterministic real symmetric Toeplitz or circulant matrix of a symbol
 };
 
 /// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
@@ -83,7 +84,16 @@ struct MatrixSpec {
   double beta = 2.0;   ///< β for beta_hermite and beta_laguerre
   HaarMethod haar = HaarMethod::qr;
   DiagonalLaw diagonal;
+  /// toeplitz: c_0 … c_k, the entries T_ij = c_|i−j| (zero past k), the symbol
+  /// f(θ) = c_0 + 2 Σ_{j≥1} c_j cos(jθ); `circulant` wraps the band around (T_ij = Σ c_|m| over
+  /// m ≡ i − j mod N, |m| ≤ k), whose eigenvalues are f(2πj/N) exactly.
+  std::vector<double> coefficients;
+  bool circulant = false;
 };
+
+/// The most coefficients of a Toeplitz symbol (band half-width 16): the limit law is the image of
+/// the arcsine law under a polynomial of that degree.
+inline constexpr std::size_t kMostToeplitzCoefficients = 17;
 
 struct Shape {
   Index rows = 0;
@@ -99,7 +109,7 @@ std::string known_kinds();
 bool is_self_adjoint(Kind kind);  ///< gue, goe, wigner, wishart, diagonal
 bool is_unitary(Kind kind);       ///< haar_unitary, haar_orthogonal
 bool is_real(Kind kind);          ///< real entries
-bool is_random(Kind kind);        ///< draws random numbers (everything but diagonal)
+bool is_random(Kind kind);        ///< draws random numbers (everything but diagonal, toeplitz)
 bool uses_ratio(Kind kind);       ///< wishart_*, ginibre_*, beta_laguerre: a ratio c = N/M
 
 /// The second dimension M = round(N/c) used by Wishart and rectangular Ginibre matrices.

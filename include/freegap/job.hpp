@@ -60,6 +60,8 @@
 //                                            file: path (required; relative to the job file)
 //                                            spiked: spikes (1–64 values, required), base
 //                                              (default 0): a finite-rank perturbation
+//   toeplitz                               ensemble, coefficients (c_0 … c_k, 1–17 numbers),
+//                                          circulant (default false)
 //
 // Every message is "file:line: key: rule broken and how to fix it" (line omitted when the key is
 // missing from the file altogether); a TOML syntax error is "file:line:column: TOML syntax: ...".

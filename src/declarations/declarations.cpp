@@ -20,7 +20,7 @@ struct KindName {
   Kind kind;
   const char* name;
 };
-constexpr std::array<KindName, 12> kind_names{{
+constexpr std::array<KindName, 13> kind_names{{
     {Kind::gue, "gue"},
     {Kind::goe, "goe"},
     {Kind::wigner_rademacher, "wigner_rademacher"},
@@ -33,6 +33,7 @@ constexpr std::array<KindName, 12> kind_names{{
     {Kind::diagonal, "diagonal"},
     {Kind::beta_hermite, "beta_hermite"},
     {Kind::beta_laguerre, "beta_laguerre"},
+    {Kind::toeplitz, "toeplitz"},
 }};
 
 std::string num(double x) { return text::readable(x); }
@@ -122,15 +123,15 @@ std::string known_kinds() {
 bool is_self_adjoint(Kind k) {
   return k == Kind::gue || k == Kind::goe || k == Kind::wigner_rademacher ||
          k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre;
+         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz;
 }
 bool is_unitary(Kind k) { return k == Kind::haar_unitary || k == Kind::haar_orthogonal; }
 bool is_real(Kind k) {
   return k == Kind::goe || k == Kind::wigner_rademacher || k == Kind::wishart_real ||
          k == Kind::ginibre_real || k == Kind::haar_orthogonal || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre;
+         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz;
 }
-bool is_random(Kind k) { return k != Kind::diagonal; }
+bool is_random(Kind k) { return k != Kind::diagonal && k != Kind::toeplitz; }
 
 Index companion_size(Index n, double ratio) {
   return static_cast<Index>(std::llround(static_cast<double>(n) / ratio));
@@ -172,6 +173,17 @@ void validate(const MatrixSpec& spec) {
   if ((spec.kind == Kind::beta_hermite || spec.kind == Kind::beta_laguerre) &&
       !(std::isfinite(spec.beta) && spec.beta > 0)) {
     fail(spec, "beta must be a positive finite number (got " + num(spec.beta) + ")");
+  }
+  if (spec.kind == Kind::toeplitz) {
+    if (spec.coefficients.empty() || spec.coefficients.size() > kMostToeplitzCoefficients) {
+      fail(spec, "a Toeplitz matrix needs 1 to " + std::to_string(kMostToeplitzCoefficients) +
+                     " coefficients c_0, c_1, … (got " + std::to_string(spec.coefficients.size()) +
+                     ")");
+    }
+    for (const double c : spec.coefficients) {
+      if (!std::isfinite(c)) fail(spec, "Toeplitz coefficients must be finite");
+    }
+    return;
   }
   if (spec.kind != Kind::diagonal) return;
   const DiagonalLaw& law = spec.diagonal;

@@ -177,6 +177,25 @@ void draw_haar_columns(const MatrixSpec& spec, Index n, Index r, rng::Stream& st
   }
 }
 
+// T_ij = c_|i−j| on the band |i − j| ≤ k; circulant: Σ c_|m| over m ≡ i − j (mod N), |m| ≤ k
+// (declarations.hpp, MatrixSpec::coefficients).
+void toeplitz_matrix(const MatrixSpec& spec, Index n, Eigen::MatrixXd& t) {
+  linalg::resize_fresh(t, n, n);
+  t.setZero();
+  const auto k = static_cast<Index>(spec.coefficients.size()) - 1;
+  for (Index m = -k; m <= k; ++m) {
+    const double c = spec.coefficients[static_cast<std::size_t>(m < 0 ? -m : m)];
+    if (!spec.circulant) {
+      if (m < n && -m < n) t.diagonal(-m).array() += c;  // the entries with i − j = m
+      continue;
+    }
+    for (Index j = 0; j < n; ++j) {
+      const Index i = ((j + m) % n + n) % n;
+      t(i, j) += c;
+    }
+  }
+}
+
 void require_size(const MatrixSpec& spec, Index n) {
   if (n <= 0) fail(spec, "size N must be positive (got " + std::to_string(n) + ")");
 }
@@ -350,6 +369,10 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
       draw_haar_orthogonal(spec_.haar, n, stream, out);
       break;
     case Kind::diagonal:
+      break;
+    case Kind::toeplitz:
+      out.storage = Sample::Storage::real_dense;
+      toeplitz_matrix(spec_, n, out.real);
       break;
     case Kind::beta_hermite:
     case Kind::beta_laguerre:

@@ -89,6 +89,18 @@ void append_matrix(std::string& out, const declarations::MatrixSpec& m, std::siz
     case Kind::beta_laguerre:
       out += "; beta = " + exact(m.beta) + "; ratio = " + exact(m.ratio);
       break;
+    case Kind::toeplitz: {
+      // Trailing zero coefficients change no entry: [0, 1] and [0, 1, 0] are one matrix.
+      std::size_t k = m.coefficients.size();
+      while (k > 1 && m.coefficients[k - 1] == 0.0) --k;
+      out += "; coefficients =";
+      for (std::size_t i = 0; i < k; ++i) {
+        out += ' ';
+        out += exact(m.coefficients[i]);
+      }
+      out += m.circulant ? "; circulant" : "; banded";
+      break;
+    }
   }
   out += "\n";
 }

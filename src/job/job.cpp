@@ -358,8 +358,8 @@ constexpr LawName kLaws[] = {
 };
 
 const std::vector<std::string_view> kAllMatrixKeys = {
-    "ensemble", "ratio", "method", "law",   "atoms",  "low",
-    "high",     "variance", "path", "beta", "spikes", "base"};
+    "ensemble", "ratio", "method", "law",    "atoms",        "low",      "high",
+    "variance", "path",  "beta",   "spikes", "base", "coefficients", "circulant"};
 
 bool has_ratio(Kind k) {
   return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
@@ -371,6 +371,7 @@ std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
   if (kind == Kind::beta_laguerre) return {"ensemble", "beta", "ratio"};
   if (has_ratio(kind)) return {"ensemble", "ratio"};
   if (declarations::is_unitary(kind)) return {"ensemble", "method"};
+  if (kind == Kind::toeplitz) return {"ensemble", "coefficients", "circulant"};
   if (kind != Kind::diagonal) return {"ensemble"};
   switch (law) {
     case DiagonalLawKind::atoms:
@@ -615,6 +616,24 @@ void read_diagonal_law(const Reader& r, const toml::table& t, const std::string&
   }
 }
 
+// Reads a Toeplitz matrix's coefficients c_0 … c_k and whether it wraps around (circulant).
+void read_toeplitz(const Reader& r, const toml::table& t, const std::string& prefix,
+                   declarations::MatrixSpec& spec) {
+  const std::string key = prefix + ".coefficients";
+  const std::string example =
+      "e.g. coefficients = [0.0, 1.0] for the symbol 2 cos θ (ones beside the diagonal)";
+  const toml::node* v = t.get("coefficients");
+  if (v == nullptr) r.fail_at(r.line(prefix), key, "missing; a Toeplitz matrix needs c_0, c_1, …, " + example);
+  const auto* list = v->as_array();
+  if (list == nullptr) r.fail(key, "must be a list of numbers, " + example + " (got " + describe(*v) + ")");
+  if (list->empty() || list->size() > declarations::kMostToeplitzCoefficients) {
+    r.fail(key, "must hold 1 to " + std::to_string(declarations::kMostToeplitzCoefficients) +
+                    " numbers c_0 … c_k (got " + std::to_string(list->size()) + ")");
+  }
+  for (const auto& item : *list) spec.coefficients.push_back(r.finite_number(item, key));
+  if (const toml::node* c = t.get("circulant")) spec.circulant = r.boolean(*c, prefix + ".circulant");
+}
+
 declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
                                   const std::filesystem::path& base, bool read_files) {
   const std::string prefix = "matrices." + std::string(name);
@@ -653,6 +672,8 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
     }
   } else if (spec.kind == Kind::diagonal) {
     read_diagonal_law(r, t, prefix, law_given, base, read_files, spec.diagonal);
+  } else if (spec.kind == Kind::toeplitz) {
+    read_toeplitz(r, t, prefix, spec);
   }
   return spec;
 }

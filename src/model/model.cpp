@@ -184,6 +184,11 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
       }
     } else if (spec.kind == ensembles::Kind::diagonal &&
                set_diagonal_key(text, key, value, spec, law_given)) {
+    } else if (spec.kind == ensembles::Kind::toeplitz && key == "coefficients") {
+      for (const auto& v : split(value, ',')) spec.coefficients.push_back(parse_number(text, "coefficient", v));
+    } else if (spec.kind == ensembles::Kind::toeplitz && key == "circulant") {
+      if (value != "true" && value != "false") bad_declaration(text, "circulant must be true or false");
+      spec.circulant = value == "true";
     } else {
       bad_declaration(text, "key '" + key + "' does not apply to " +
                                 std::string(ensembles::kind_name(spec.kind)));
@@ -283,6 +288,7 @@ namespace {
 double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
   using ensembles::Kind;
   if (m.kind == Kind::diagonal) return 0.0;
+  if (m.kind == Kind::toeplitz) return 1e-9 * nn * nn;  // writing N² doubles (common practice)
   const bool real = m.kind == Kind::goe || m.kind == Kind::wishart_real ||
                     m.kind == Kind::ginibre_real || m.kind == Kind::haar_orthogonal;
   return (real ? 3.8e-8 : 6.5e-8) * nn * nn;

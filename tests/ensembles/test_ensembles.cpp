@@ -3,6 +3,7 @@
 // Check values: docs/check-values.md (cited as "ref §x.y"), which gives each one's source.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <complex>
 #include <cstdio>
@@ -317,6 +318,76 @@ TEST(Diagonal, AtomsInOrderAndNoRandomness) {
   EXPECT_EQ(a.diagonal, expected);
 }
 
+MatrixSpec toeplitz_spec(std::vector<double> coefficients, bool circulant) {
+  MatrixSpec s;
+  s.name = std::string(1, 'T');
+  s.kind = Kind::toeplitz;
+  s.coefficients = std::move(coefficients);
+  s.circulant = circulant;
+  return s;
+}
+
+// Banded Toeplitz entries T_ij = c_|i−j|, no randomness; circulant wrap-around, with collisions
+// added when the band is wider than N.
+TEST(Toeplitz, EntriesBandedAndCirculant) {
+  Sampler banded(toeplitz_spec({4.0, 1.0, 0.5}, false));
+  const Sample a = banded.draw(5, 1, 0), b = banded.draw(5, 7, 3);
+  ASSERT_EQ(a.storage, Sample::Storage::real_dense);
+  EXPECT_EQ(a.real, b.real);
+  for (Index i = 0; i < 5; ++i) {
+    for (Index j = 0; j < 5; ++j) {
+      const Index d = std::abs(i - j);
+      EXPECT_EQ(a.real(i, j), d == 0 ? 4.0 : d == 1 ? 1.0 : d == 2 ? 0.5 : 0.0) << i << "," << j;
+    }
+  }
+  Sampler circulant(toeplitz_spec({4.0, 1.0, 0.5}, true));
+  const Sample c = circulant.draw(5, 1, 0);
+  EXPECT_EQ(c.real(0, 4), 1.0);  // i − j = −4 ≡ 1 (mod 5)
+  EXPECT_EQ(c.real(0, 3), 0.5);  // −3 ≡ 2
+  EXPECT_EQ(c.real(4, 0), 1.0);
+  // N = 3 < band width 5: m = ±1 and ∓2 fall on the same offsets, c_1 + c_2 each.
+  const Sample small = circulant.draw(3, 1, 0);
+  EXPECT_EQ(small.real(1, 0), 1.5);
+  EXPECT_EQ(small.real(0, 1), 1.5);
+  EXPECT_EQ(small.real(0, 0), 4.0);
+}
+
+// Spectra known in closed form (Gray 2006, "Toeplitz and circulant matrices: a review", §3 and
+// §4.1): the tridiagonal Toeplitz matrix with ones beside the diagonal has eigenvalues
+// 2 cos(πj/(N + 1)), j = 1..N; a circulant matrix's eigenvalues are its symbol at the N-th roots
+// of unity, f(2πj/N) = c_0 + 2 Σ c_m cos(2πjm/N).
+TEST(Toeplitz, SpectraInClosedForm) {
+  const Index n = 40;
+  Sampler tri(toeplitz_spec({0.0, 1.0}, false));
+  Eigen::MatrixXd t = tri.draw(n, 1, 0).real;
+  Eigen::VectorXd got = linalg::eigenvalues(t);
+  std::vector<double> want;
+  for (Index j = 1; j <= n; ++j) want.push_back(2.0 * std::cos(std::numbers::pi * j / (n + 1.0)));
+  std::sort(want.begin(), want.end());
+  for (Index j = 0; j < n; ++j) EXPECT_NEAR(got(j), want[static_cast<std::size_t>(j)], 1e-13);
+
+  const std::vector<double> c = {1.0, -0.7, 0.3, 0.2};
+  Sampler circ(toeplitz_spec(c, true));
+  t = circ.draw(n, 1, 0).real;
+  got = linalg::eigenvalues(t);
+  want.clear();
+  for (Index j = 0; j < n; ++j) {
+    double f = c[0];
+    for (std::size_t m = 1; m < c.size(); ++m) {
+      f += 2.0 * c[m] * std::cos(2.0 * std::numbers::pi * static_cast<double>(j * static_cast<Index>(m)) / n);
+    }
+    want.push_back(f);
+  }
+  std::sort(want.begin(), want.end());
+  for (Index j = 0; j < n; ++j) EXPECT_NEAR(got(j), want[static_cast<std::size_t>(j)], 1e-13);
+}
+
+TEST(Toeplitz, RefusesBadCoefficients) {
+  EXPECT_THROW(Sampler(toeplitz_spec({}, false)), freegap::InputError);
+  EXPECT_THROW(Sampler(toeplitz_spec(std::vector<double>(18, 1.0), false)), freegap::InputError);
+  EXPECT_THROW(Sampler(toeplitz_spec({1.0, std::nan("")}, false)), freegap::InputError);
+}
+
 // Midpoint quantiles: uniform on [a, b] gives a + (b − a)(k + 1/2)/N exactly; the semicircle
 // quantiles satisfy F(q_k) = (k + 1/2)/N with F from the ref §1.1 closed form; the
 // Marchenko–Pastur quantiles are checked against F computed by composite Simpson quadrature of the
@@ -439,7 +510,7 @@ std::string message_of(F&& f) {
 TEST(BadInput, ExactMessages) {
   EXPECT_EQ(message_of([] { parse_kind("gaussian"); }),
             "unknown ensemble 'gaussian' (known: gue, goe, wigner_rademacher, wishart_complex, "
-            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre)");
+            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(0, 1, 0); }),
             "matrix 'X': size N must be positive (got 0)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(-3, 1, 0); }),

@@ -504,7 +504,7 @@ TEST(JobErrors, MissingRequiredKeys) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nratio = 2\n"),
             "study.toml:5: matrices.X.ensemble: missing; add ensemble = \"...\" (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
   EXPECT_EQ(error_of("seed = 1\nsizes = [10]\ntrials = 2\nexpression = \"  \"\n"),
             "study.toml:4: expression: is empty; write the expression to study, e.g. expression "
             "= \"X + Y\"");
@@ -514,7 +514,7 @@ TEST(JobErrors, UnknownEnsemble) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nensemble = \"gaussian\"\n"),
             "study.toml:6: matrices.X.ensemble: unknown ensemble 'gaussian' (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
 }
 
 TEST(JobErrors, BadMatrixParameters) {
@@ -590,6 +590,35 @@ TEST(JobErrors, SpikedLaw) {
   EXPECT_EQ(error_of(ladder),
             "study.toml:10: matrices.Y.spikes: has 3 values but the smallest size is N = 2; start "
             "the sizes at N ≥ the number of spikes");
+}
+
+TEST(ParseJob, ToeplitzReadsCoefficientsAndWrap) {
+  const Job job = parse_job(std::string(kGoodHead) +
+                                "[matrices.X]\nensemble = \"gue\"\n[matrices.Y]\n"
+                                "ensemble = \"toeplitz\"\ncoefficients = [0, 1, 0.25]\n"
+                                "circulant = true\n",
+                            "study.toml");
+  const auto& y = job.matrices[1];
+  EXPECT_EQ(y.kind, freegap::declarations::Kind::toeplitz);
+  EXPECT_EQ(y.coefficients, (std::vector<double>{0.0, 1.0, 0.25}));
+  EXPECT_TRUE(y.circulant);
+}
+
+TEST(JobErrors, Toeplitz) {
+  const std::string head = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n" +
+                           "[matrices.Y]\nensemble = \"toeplitz\"\n";
+  EXPECT_EQ(error_of(head),
+            "study.toml:7: matrices.Y.coefficients: missing; a Toeplitz matrix needs c_0, c_1, …, "
+            "e.g. coefficients = [0.0, 1.0] for the symbol 2 cos θ (ones beside the diagonal)");
+  EXPECT_EQ(error_of(head + "coefficients = []\n"),
+            "study.toml:9: matrices.Y.coefficients: must hold 1 to 17 numbers c_0 … c_k (got 0)");
+  EXPECT_NE(error_of(head + "coefficients = [1]\ncirculant = 1\n").find("matrices.Y.circulant"),
+            std::string::npos);
+  EXPECT_NE(error_of(head + "coefficients = [1, \"x\"]\n").find("matrices.Y.coefficients"),
+            std::string::npos);
+  EXPECT_EQ(error_of(head + "coefficients = [1]\nratio = 2\n"),
+            "study.toml:10: matrices.Y.ratio: does not apply to ensemble toeplitz (its keys: "
+            "ensemble, coefficients, circulant); remove it");
 }
 
 TEST(JobErrors, WeightsNotSummingToOne) {
@@ -897,6 +926,20 @@ TEST(JobHash, FollowsSpikeValuesAndBase) {
     EXPECT_TRUE(seen.insert(h).second) << to;
   }
   EXPECT_EQ(hash_of(replaced(spiked, "[3.0]", "[3.0]\nbase = 0")), base);  // the default, given
+}
+
+TEST(JobHash, FollowsToeplitzCoefficientsAndWrap) {
+  const std::string toeplitz = std::string(kGoodHead) + "[matrices.X]\nensemble = \"gue\"\n" +
+                               "[matrices.Y]\nensemble = \"toeplitz\"\ncoefficients = [0, 1]\n";
+  const std::string base = hash_of(toeplitz);
+  std::set<std::string> seen = {base};
+  for (const auto& [from, to] : std::vector<std::pair<std::string, std::string>>{
+           {"[0, 1]", "[0, 1.5]"}, {"[0, 1]", "[0, 1, 0.5]"}, {"[0, 1]", "[0, 1]\ncirculant = true"}}) {
+    EXPECT_TRUE(seen.insert(hash_of(replaced(toeplitz, from, to))).second) << to;
+  }
+  // The same matrix written otherwise: the default given, a trailing zero coefficient.
+  EXPECT_EQ(hash_of(replaced(toeplitz, "[0, 1]", "[0, 1]\ncirculant = false")), base);
+  EXPECT_EQ(hash_of(replaced(toeplitz, "[0, 1]", "[0, 1, 0]")), base);
 }
 
 TEST(JobHash, FollowsEigenvalueFileContent) {

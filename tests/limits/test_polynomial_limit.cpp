@@ -487,9 +487,9 @@ TEST(PolynomialLimit, RefusesWhatIsNotCovered) {
             "unitary only in conjugations U D U^* (powers of one self-adjoint matrix D, the same D "
             "everywhere), which give a free copy of D");
   EXPECT_EQ(message("A + B", {"A=diagonal:atoms=1@1", "B=diagonal:atoms=2@1"}),
-            "matrices 'A' and 'B' in 'A + B': two deterministic diagonal matrices commute, so "
-            "they are not free and the polynomial limit does not cover them together (conjugate "
-            "one by a Haar unitary, U D U^*, to make it free)");
+            "matrices 'A' and 'B' in 'A + B': two deterministic matrices are not free of each other "
+            "(diagonals commute), so the polynomial limit does not cover them together "
+            "(conjugate one by a Haar unitary, U D U^*, to make it free)");
   EXPECT_EQ(message("X1 X2", {"X1=gue", "X2=gue"}),
             "expression 'X1 X2' is not proven self-adjoint: the polynomial limit needs a "
             "self-adjoint expression (add its adjoint, e.g. 'A B + B A')");

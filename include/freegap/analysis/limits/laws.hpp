@@ -101,6 +101,13 @@ LawPtr affine(LawPtr law, double a, double b);
 /// is X's CDF at the preimages (no quadrature: singular points of the density lose no mass), and
 /// G(z) = Σ_k G_X(r_k)/p′(r_k) over the roots of p(x) = z. Degree 1 is affine(); degree 0 an atom.
 LawPtr polynomial_image(LawPtr law, std::vector<double> coefficients);
+/// The law of f(θ) = c_0 + 2 Σ_{j≥1} c_j cos(jθ), θ uniform on [0, 2π): the limit eigenvalue law of
+/// the Toeplitz and circulant matrices of the symbol f (Szegő 1920; Grenander & Szegő 1958, ch. 5).
+/// With x = 2 cos θ, arcsine-distributed on [−2, 2], 2 cos(jθ) = S_j(x) (S_0 = 2, S_1 = x,
+/// S_{j+1} = x S_j − S_{j−1}): the image of the arcsine law under c_0 + Σ_{j≥1} c_j S_j(x).
+LawPtr toeplitz_symbol_law(const std::vector<double>& coefficients);
+/// The power-basis coefficients of c_0 + Σ_{j≥1} c_j S_j(x) (above).
+std::vector<double> toeplitz_symbol_polynomial(const std::vector<double>& coefficients);
 
 /// The density at each x, NaN where its solver fails there (law.densities first, which continues
 /// along the grid; where that throws, point by point). `limit` and `report` both draw their
