@@ -6,6 +6,7 @@
 #include <cstdarg>
 #include <cstdio>
 #include <filesystem>
+#include <functional>
 #include <limits>
 #include <map>
 #include <numbers>
@@ -129,6 +130,66 @@ bool outlier_side(const RunResult& run, bool top) {
   if (!p.predicted() || !run.limit.law) return false;
   const Support s = run.limit.law->support();
   return top ? p.largest > s.hi : p.smallest < s.lo;
+}
+
+// One separated outlier as the report follows it: the k-th largest (top) or smallest eigenvalue,
+// k counted from the outermost, against its predicted limit.
+struct OutlierTarget {
+  double location = 0.0;
+  double spike = 0.0;
+  std::size_t rank = 1;
+  bool top = true;
+};
+
+std::vector<OutlierTarget> outlier_targets(const RunResult& run) {
+  std::vector<OutlierTarget> out;
+  const OutlierPrediction& p = run.limit.outliers;
+  if (!p.predicted() || !run.limit.law ||
+      run.header.spectrum != observe::SpectrumKind::eigenvalues) {
+    return out;
+  }
+  const Support s = run.limit.law->support();
+  std::vector<OutlierTarget> above, below;
+  for (const auto& o : p.outliers) {
+    if (!o.separates) continue;
+    (o.location > s.hi ? above : below).push_back({o.location, o.spike, 0, o.location > s.hi});
+  }
+  std::sort(above.begin(), above.end(), [](const auto& a, const auto& b) { return a.location > b.location; });
+  std::sort(below.begin(), below.end(), [](const auto& a, const auto& b) { return a.location < b.location; });
+  for (std::size_t i = 0; i < above.size(); ++i) above[i].rank = i + 1;
+  for (std::size_t i = 0; i < below.size(); ++i) below[i].rank = i + 1;
+  out = above;
+  out.insert(out.end(), below.begin(), below.end());
+  return out;
+}
+
+// The trial's eigenvalue that `t` follows: its max or min for rank 1, else from the kept spectrum
+// (NaN when the trial kept none or it is too short).
+double outlier_value(const OutlierTarget& o, const observe::TrialRecord& t) {
+  if (o.rank == 1) return o.top ? t.max : t.min;
+  if (t.spectrum.size() < o.rank) return std::numeric_limits<double>::quiet_NaN();
+  std::vector<double> v = t.spectrum;
+  const auto k = static_cast<std::ptrdiff_t>(o.rank - 1);
+  if (o.top) {
+    std::nth_element(v.begin(), v.begin() + k, v.end(), std::greater<double>());
+  } else {
+    std::nth_element(v.begin(), v.begin() + k, v.end());
+  }
+  return v[static_cast<std::size_t>(k)];
+}
+
+std::string outlier_name(const OutlierTarget& o) {
+  return "outlier " + std::to_string(o.rank) + (o.top ? " above" : " below") + " the bulk (spike " +
+         fmt("%.6g", o.spike) + ")";
+}
+
+// Whether every trial of every used size has the value of `o` (rank ≥ 2 needs kept spectra).
+bool outlier_observed(const std::vector<const SizeResult*>& used, const OutlierTarget& o) {
+  return std::all_of(used.begin(), used.end(), [&](const SizeResult* s) {
+    return std::all_of(s->trials.begin(), s->trials.end(), [&](const observe::TrialRecord& t) {
+      return std::isfinite(outlier_value(o, t));
+    });
+  });
 }
 
 // With predicted outliers the extremes and the norm go to them, not to the bulk's edges; the
@@ -352,6 +413,13 @@ void fit_run(RunResult& run, const ReportOptions& options) {
   }
   fit_per_trial_values(fits, "operator norm − limit norm", "norm", run.reference.norm,
                        [](const observe::TrialRecord& t) { return t.norm; });
+  // Further outliers (the outermost on each side is the largest or smallest value above).
+  for (const OutlierTarget& o : outlier_targets(run)) {
+    if (o.rank == 1 || !outlier_observed(fits.used, o)) continue;
+    fit_per_trial_values(fits, outlier_name(o) + " − predicted",
+                         std::string(o.top ? "outlier_above_" : "outlier_below_") + std::to_string(o.rank),
+                         o.location, [o](const observe::TrialRecord& t) { return outlier_value(o, t); });
+  }
 }
 
 RunResult analyse_run(const std::string& path, const ReportOptions& options) {
@@ -935,6 +1003,41 @@ std::string markdown_moment_errors(const RunResult& run) {
   return md;
 }
 
+// Each separated outlier per N: the mean of the eigenvalue that follows it against its predicted
+// limit, beside the bulk's edge on its side.
+std::string markdown_outliers(const RunResult& run) {
+  const auto targets = outlier_targets(run);
+  if (targets.empty() || !run.limit.law) return "";
+  const Support bulk = run.limit.law->support();
+  std::string md = "\n### Outliers against their predicted limits (means over trials)\n\n"
+                   "Bulk support [" + fmt("%.6g", bulk.lo) + ", " + fmt("%.6g", bulk.hi) +
+                   "]. The k-th outlier on a side is the k-th largest (smallest) eigenvalue of each "
+                   "trial; beyond the first it needs the trial's kept spectrum.\n\n| N |";
+  std::string rule = "|---|";
+  for (const auto& o : targets) {
+    md += " " + outlier_name(o) + " | − predicted " + fmt("%.6g", o.location) + " |";
+    rule += "---|---|";
+  }
+  md += "\n" + rule + "\n";
+  for (const auto& s : run.sizes) {
+    if (!s.has_data()) continue;
+    md += "| " + std::to_string(s.n) + " |";
+    for (const auto& o : targets) {
+      std::vector<double> v;
+      for (const auto& t : s.trials) v.push_back(outlier_value(o, t));
+      if (std::any_of(v.begin(), v.end(), [](double x) { return !std::isfinite(x); })) {
+        md += " – | (spectra not kept) |";
+        continue;
+      }
+      const ErrorPoint e = mean_error_point(static_cast<double>(s.n), v, o.location);
+      md += " " + fmt("%.6g", e.error + o.location) + " | " + fmt("%.4g", e.error) + " ± " +
+            fmt("%.2g", e.standard_error) + (e.resolved ? "" : " (unresolved)") + " |";
+    }
+    md += "\n";
+  }
+  return md;
+}
+
 // The extreme values and the operator norm against their limits.
 std::string markdown_extremes(const RunResult& run) {
   std::string md;
@@ -1016,6 +1119,7 @@ std::string markdown_of(const std::vector<RunResult>& runs, const ReportOptions&
     md += markdown_per_trial_distances(run);
     md += markdown_moment_errors(run);
     md += markdown_extremes(run);
+    md += markdown_outliers(run);
     md += markdown_fits(run);
     if (!run.estimates.empty()) {
       std::string section = estimator_scores_markdown(run.estimates);
