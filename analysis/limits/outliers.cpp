@@ -39,11 +39,28 @@ struct Form {
   std::string rule;
 };
 
-// P = X + c·S with S in no other term and X rotation invariant (or a·W + b of one Wigner W).
+// U D₁⋯D_k U^* (or U^* … U) with U Haar and the D_i deterministic: a term whose law is
+// invariant under conjugation by any unitary (orthogonal for a Haar orthogonal U), independent of
+// the rest.
+bool haar_conjugation(const std::vector<std::pair<int, bool>>& w, const std::vector<MatrixSpec>& d,
+                      int spike) {
+  if (w.size() < 3 || w.front().first != w.back().first || w.front().second == w.back().second) {
+    return false;
+  }
+  if (!declarations::is_unitary(d[static_cast<std::size_t>(w.front().first)].kind)) return false;
+  return std::all_of(w.begin() + 1, w.end() - 1, [&](const auto& l) {
+    const Kind k = d[static_cast<std::size_t>(l.first)].kind;
+    return l.first != spike && !declarations::is_random(k);
+  });
+}
+
+// P = X + c·S with S in no other term and X rotation invariant: a polynomial in GUE, GOE and
+// Wishart matrices and Haar conjugations U D U^* of deterministic matrices (or a·W + b of one
+// Wigner W).
 bool additive_form(const std::vector<expr::Monomial>& terms, const std::vector<MatrixSpec>& d,
                    int spike, Form& form, std::string& why) {
   double c = 0.0;
-  std::set<int> rest;
+  std::set<int> rest, conjugators;  // conjugators: Haar matrices seen only in U D U^* terms
   bool nonlinear_rest = false;
   for (const auto& t : terms) {
     const bool has = std::any_of(t.letters.begin(), t.letters.end(),
@@ -52,20 +69,22 @@ bool additive_form(const std::vector<expr::Monomial>& terms, const std::vector<M
       c += t.coefficient;
     } else if (has) {
       return false;  // S inside a product: not this form
+    } else if (haar_conjugation(t.letters, d, spike)) {
+      conjugators.insert(t.letters.front().first);
     } else {
       for (const auto& l : t.letters) rest.insert(l.first);
       nonlinear_rest = nonlinear_rest || t.letters.size() > 1;
     }
   }
   const MatrixSpec& s = d[static_cast<std::size_t>(spike)];
-  if (rest.empty()) {
+  if (rest.empty() && conjugators.empty()) {
     why = "the expression has no random matrix beside '" + s.name + "': its eigenvalues are fixed";
     return true;
   }
   const bool invariant = std::all_of(rest.begin(), rest.end(), [&](int i) {
     return rotation_invariant(d[static_cast<std::size_t>(i)].kind);
   });
-  const bool one_wigner = rest.size() == 1 && !nonlinear_rest &&
+  const bool one_wigner = rest.size() == 1 && conjugators.empty() && !nonlinear_rest &&
                           wigner(d[static_cast<std::size_t>(*rest.begin())].kind);
   if (!invariant && !one_wigner) {
     for (const int i : rest) {
@@ -130,14 +149,18 @@ struct Transform {
   }
 };
 
-// F at the support's edge `edge`, approached from the side `sign`: F(edge ± δ) with a square-root
-// edge's correction, F(e + δ) ≈ F(e) − C√δ, when three offsets δ, 4δ, 16δ show that behaviour
-// (common practice; a hard edge where F diverges keeps the value at δ, a threshold near 0).
+// F at the support's edge `edge`, approached from the side `sign`, from F at the offsets δ, 4δ,
+// 16δ (common practice): at a square-root edge F(e + δ) ≈ F(e) − C√δ, so the steps between them
+// double and F(e) ≈ 2F(δ) − F(4δ); where they do not grow (a logarithmic or power divergence, as at
+// a hard edge of a uniform or arcsine law) F is infinite there and every spike separates.
 double edge_value(const Transform& f, double edge, double sign, double delta) {
   const double f1 = f(edge + sign * delta), f2 = f(edge + sign * 4.0 * delta),
                f3 = f(edge + sign * 16.0 * delta);
   const double d1 = f2 - f1, d2 = f3 - f2;
-  if (d1 != 0.0 && std::abs(d2 / d1 - 2.0) < 0.2) return f1 - d1;
+  if (d1 == 0.0) return f1;
+  const double ratio = d2 / d1;
+  if (std::abs(ratio - 2.0) < 0.2) return f1 - d1;
+  if (ratio > 0.0 && ratio < 1.2) return sign * std::numeric_limits<double>::infinity();
   return f1;
 }
 

@@ -81,6 +81,26 @@ TEST(Outliers, RealWignerAndScaledForms) {
   EXPECT_NEAR(d.outliers.outliers[0].threshold, std::sqrt(2.0), 1e-6);
 }
 
+// A Haar-rotated bulk U D U^* with D uniform on [−1, 1]: G(z) = ½ log((z + 1)/(z − 1)) (the
+// uniform law's Cauchy transform, elementary), so G(ρ) = 1/θ gives ρ = coth(1/θ); G is infinite
+// at the hard edges, so every spike separates (threshold 0).
+TEST(Outliers, HaarRotatedBulkWithHardEdges) {
+  for (const double theta : {1.0, 0.5, -0.2}) {
+    const auto d = derive({"U=haar_unitary", "D=diagonal:law=uniform:low=-1:high=1", spike(theta)},
+                          "U D U^* + S");
+    ASSERT_TRUE(d.outliers.predicted()) << d.outliers.reason;
+    const auto& o = d.outliers.outliers[0];
+    EXPECT_TRUE(o.separates) << theta;
+    EXPECT_NEAR(o.location, 1.0 / std::tanh(1.0 / theta), 1e-10) << theta;
+    EXPECT_EQ(o.threshold, 0.0) << theta;
+  }
+  // D also unrotated beside it: not invariant, no prediction, and the reason names D.
+  const auto d = derive({"U=haar_unitary", "D=diagonal:law=uniform:low=-1:high=1", spike(1.0)},
+                        "U D U^* + D + S");
+  EXPECT_FALSE(d.outliers.predicted());
+  EXPECT_NE(d.outliers.reason.find("'D'"), std::string::npos) << d.outliers.reason;
+}
+
 TEST(Outliers, SpikedSampleCovarianceAtTheBbpLocation) {
   const double c = 0.5;
   for (const double ell : {2.0, 4.0, 9.0}) {

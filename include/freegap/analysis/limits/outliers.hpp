@@ -5,9 +5,9 @@
 // point mass at b as its limit law, so the bulk of P is the limit law ν that limit.hpp derives with
 // S replaced by b. The spikes move single eigenvalues. Two forms are predicted, from ν alone:
 //
-//  - additive, P = X + c·S (+ a constant), X a polynomial in matrices whose law is invariant under
-//    unitary conjugation (GUE, Wishart; orthogonal for GOE and real Wishart) or one Wigner matrix,
-//    S in no other term. With θ_i = c·(s_i − b), an eigenvalue converges to each ρ outside the
+//  - additive, P = X + c·S (+ a constant), X a sum of a polynomial in matrices whose law is
+//    invariant under unitary conjugation (GUE, Wishart; orthogonal for GOE and real Wishart) and of
+//    Haar conjugations U D U^* of deterministic matrices, or one Wigner matrix; S in no other term. With θ_i = c·(s_i − b), an eigenvalue converges to each ρ outside the
 //    support of ν with G_ν(ρ) = 1/θ_i, G the Cauchy transform; none when 1/θ_i is beyond G's value
 //    at the support's edge (Benaych-Georges & Nadakuditi 2011, Adv. Math. 227, Thm 2.1; for
 //    Wigner matrices Péché 2006 and Féral & Péché 2007 (GUE, ρ = θ + 1/θ for θ > 1), Capitaine,
