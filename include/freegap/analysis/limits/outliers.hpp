@@ -7,12 +7,13 @@
 //
 //  - additive, P = X + c·S (+ a constant), X a sum of a polynomial in matrices whose law is
 //    invariant under unitary conjugation (GUE, Wishart; orthogonal for GOE and real Wishart) and of
-//    Haar conjugations U D U^* of deterministic matrices, or one Wigner matrix; S in no other term. With θ_i = c·(s_i − b), an eigenvalue converges to each ρ outside the
-//    support of ν with G_ν(ρ) = 1/θ_i, G the Cauchy transform; none when 1/θ_i is beyond G's value
-//    at the support's edge (G infinite at a hard edge: every spike separates) (Benaych-Georges &
-//    Nadakuditi 2011, Adv. Math. 227, Thm 2.1; for
-//    Wigner matrices Péché 2006 and Féral & Péché 2007 (GUE, ρ = θ + 1/θ for θ > 1), Capitaine,
-//    Donati-Martin & Féral 2009 and Pizzo, Renfrew & Soshnikov 2013 (general entries)).
+//    Haar conjugations U D U^* of deterministic matrices, or one Wigner matrix; S in no other
+//    term. With θ_i = c·(s_i − b), an eigenvalue converges to each ρ outside the support of ν with
+//    G_ν(ρ) = 1/θ_i, G the Cauchy transform; none when 1/θ_i is beyond G's value at the support's
+//    edge (G infinite at a hard edge: every spike separates) (Benaych-Georges & Nadakuditi 2011,
+//    Adv. Math. 227, Thm 2.1; for Wigner matrices Péché 2006 and Féral & Péché 2007 (GUE,
+//    ρ = θ + 1/θ for θ > 1), Capitaine, Donati-Martin & Féral 2009 and Pizzo, Renfrew & Soshnikov
+//    2013 (general entries)).
 //  - multiplicative, P = c·S X S with X one Wishart matrix (a sample covariance with population
 //    covariance S², b ≠ 0, c > 0). With θ_i = (s_i/b)² − 1, the outliers are the ρ outside the
 //    support of ν with T_ν(ρ) = 1/θ_i, T(z) = z·G(z) − 1 (Benaych-Georges & Nadakuditi 2011,
