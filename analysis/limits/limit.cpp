@@ -428,11 +428,14 @@ static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vec
       split.shift += m.coefficient;
       continue;
     }
-    const MatrixSpec& first = d[static_cast<std::size_t>(m.letters[0].first)];
-    if (m.letters.size() == 1 && first.kind == Kind::diagonal &&
-        first.diagonal.kind == declarations::DiagonalLawKind::atoms &&
-        first.diagonal.atoms.size() == 1) {
-      split.shift += m.coefficient * first.diagonal.atoms[0].value;  // a point mass: a constant
+    // A point mass D = b·I, alone or conjugated (U D U^* = b·I): a constant.
+    const bool conjugated = m.letters.size() == 3 && m.letters[0].first == m.letters[2].first &&
+                            declarations::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind);
+    const MatrixSpec& inner = d[static_cast<std::size_t>(m.letters[conjugated ? 1 : 0].first)];
+    if ((m.letters.size() == 1 || conjugated) && inner.kind == Kind::diagonal &&
+        inner.diagonal.kind == declarations::DiagonalLawKind::atoms &&
+        inner.diagonal.atoms.size() == 1) {
+      split.shift += m.coefficient * inner.diagonal.atoms[0].value;
       continue;
     }
     if (const auto p = power_of(m.letters, d); p && polynomial_terms.count(p->first)) continue;

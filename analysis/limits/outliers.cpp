@@ -61,12 +61,16 @@ bool additive_form(const std::vector<expr::Monomial>& terms, const std::vector<M
                    int spike, Form& form, std::string& why) {
   double c = 0.0;
   std::set<int> rest, conjugators;  // conjugators: Haar matrices seen only in U D U^* terms
+  std::set<int> spike_rotations;    // V of a term V S V^*: the spike rotated (same outliers)
   bool nonlinear_rest = false;
   for (const auto& t : terms) {
     const bool has = std::any_of(t.letters.begin(), t.letters.end(),
                                  [&](const auto& l) { return l.first == spike; });
-    if (has && t.letters.size() == 1) {
+    const bool rotated = has && t.letters.size() == 3 && t.letters[1].first == spike &&
+                         haar_conjugation(t.letters, d, -1);
+    if (has && (t.letters.size() == 1 || rotated)) {
       c += t.coefficient;
+      if (rotated) spike_rotations.insert(t.letters.front().first);
     } else if (has) {
       return false;  // S inside a product: not this form
     } else if (haar_conjugation(t.letters, d, spike)) {
@@ -77,6 +81,13 @@ bool additive_form(const std::vector<expr::Monomial>& terms, const std::vector<M
     }
   }
   const MatrixSpec& s = d[static_cast<std::size_t>(spike)];
+  if (spike_rotations.size() > 1 ||
+      std::any_of(spike_rotations.begin(), spike_rotations.end(),
+                  [&](int v) { return rest.count(v) || conjugators.count(v); })) {
+    why = "the spike's Haar rotation also rotates other terms (or differs between terms), so the "
+          "spike is not independent of the rest";
+    return true;
+  }
   if (rest.empty() && conjugators.empty()) {
     why = "the expression has no random matrix beside '" + s.name + "': its eigenvalues are fixed";
     return true;

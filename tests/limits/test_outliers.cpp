@@ -74,6 +74,10 @@ TEST(Outliers, RealWignerAndScaledForms) {
   d = derive({"X=gue", spike(4.0, 1.0)}, "X + S");
   EXPECT_NEAR(d.outliers.largest, 1.0 + 3.0 + 1.0 / 3.0, 1e-12);
   EXPECT_NEAR(d.outliers.smallest, -1.0, 1e-12);
+  // The spike rotated by its own Haar matrix: the same outliers (the GUE is invariant).
+  d = derive({"X=gue", "V=haar_unitary", spike(2.0)}, "X + V S V^*");
+  ASSERT_TRUE(d.outliers.predicted()) << d.outliers.reason;
+  EXPECT_NEAR(d.outliers.largest, 2.5, 1e-12);
   // Two GUE: bulk variance 2, outlier θ + 2/θ above √2 (the semicircle rule scaled).
   d = derive({"X1=gue", "X2=gue", spike(3.0)}, "X1 + X2 + S");
   ASSERT_TRUE(d.outliers.predicted()) << d.outliers.reason;
@@ -136,6 +140,8 @@ TEST(Outliers, ExpressionsWithoutARuleSaySo) {
       {{"X=gue", spike(3.0)}, "X S X", "no outlier rule"},
       {{"X=gue", spike(3.0), "T=diagonal:law=spiked:spikes=2"}, "X + S + T", "one spiked matrix"},
       {{spike(3.0)}, "S", "no random matrix"},
+      {{"X=gue", "V=haar_unitary", "D=diagonal:law=uniform:low=0:high=1", spike(3.0)},
+       "X + V S V^* + V D V^*", "rotates other terms"},
   };
   for (const auto& c : cases) {
     const auto d = derive(c.declarations, c.expression);
