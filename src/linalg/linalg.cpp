@@ -1,5 +1,6 @@
 // LAPACKE / CBLAS wrappers (OpenBLAS). Column-major throughout, as Eigen stores matrices.
 #include "freegap/linalg.hpp"
+#include "lapack_complex.hpp"
 
 #include <cblas.h>
 #include <lapacke.h>
@@ -39,9 +40,7 @@ void require_square(Index rows, Index cols, const char* what) {
   }
 }
 
-lapack_complex_double* lp(std::complex<double>* p) {
-  return reinterpret_cast<lapack_complex_double*>(p);
-}
+using detail::lp;
 
 CBLAS_TRANSPOSE to_cblas(Op op) {
   switch (op) {

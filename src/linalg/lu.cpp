@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "freegap/linalg.hpp"
+#include "lapack_complex.hpp"
 
 namespace freegap::linalg {
 
@@ -16,9 +17,7 @@ static_assert(std::is_same_v<lapack_int, int>, "ComplexLU keeps pivots as int");
 
 namespace {
 
-lapack_complex_double* lp(std::complex<double>* p) {
-  return reinterpret_cast<lapack_complex_double*>(p);
-}
+using detail::lp;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 
@@ -54,8 +53,16 @@ CMatrix ComplexLU::solve(const CMatrix& b) const {
 }
 
 Eigen::VectorXcd ComplexLU::solve(const Eigen::VectorXcd& b) const {
-  const CMatrix x = solve(CMatrix(b));
-  return x.col(0);
+  Eigen::VectorXcd x = b;  // solved in place: no matrix copy on the Newton steps' path
+  const auto n = static_cast<lapack_int>(lu_.rows());
+  if (singular_) {
+    x.setConstant(std::complex<double>(kNaN, kNaN));
+  } else if (n > 0) {
+    LAPACKE_zgetrs_work(LAPACK_COL_MAJOR, 'N', n, 1,
+                        lp(const_cast<std::complex<double>*>(lu_.data())), n, pivots_.data(),
+                        lp(x.data()), n);
+  }
+  return x;
 }
 
 CMatrix ComplexLU::inverse() const {
@@ -68,9 +75,8 @@ CMatrix ComplexLU::inverse() const {
   if (n > 0) {
     // zgetri, not zgetrs on the identity: OpenBLAS runs a many-column zgetrs on all its threads
     // even at n = 5 (measured 3x slower in total with 2 threads, most of it in the kernel).
-    std::vector<lapack_int> pivots = pivots_;
     std::vector<std::complex<double>> work(static_cast<std::size_t>(64 * n));
-    LAPACKE_zgetri_work(LAPACK_COL_MAJOR, n, lp(x.data()), n, pivots.data(), lp(work.data()),
+    LAPACKE_zgetri_work(LAPACK_COL_MAJOR, n, lp(x.data()), n, pivots_.data(), lp(work.data()),
                         64 * n);
   }
   return x;

@@ -41,6 +41,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
+#include "lapack_complex.hpp"
 
 namespace freegap::linalg {
 
@@ -62,9 +63,7 @@ constexpr double kGramFactor = 8.0;
 // changes the speed, the check on the computed eigenvalues keeps the accuracy).
 constexpr int kPowerSteps = 6;
 
-lapack_complex_double* lp(std::complex<double>* p) {
-  return reinterpret_cast<lapack_complex_double*>(p);
-}
+using detail::lp;
 
 // In-place inverse by LU (zgetrf + zgetri); false when singular to working precision.
 bool invert(CMatrix& a) {
