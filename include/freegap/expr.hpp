@@ -283,6 +283,12 @@ class VectorProduct {
              std::complex<double>* out) const;
   /// The same in real arithmetic; only for is_real() expressions.
   void apply(const std::vector<ensembles::Sample>& samples, const double* in, double* out) const;
+  /// out = P^*·(P·in): the Gram matrix, whose eigenvalues are the squared singular values of P
+  /// (twice the bytes of one product).
+  void apply_gram(const std::vector<ensembles::Sample>& samples, const std::complex<double>* in,
+                  std::complex<double>* out) const;
+  void apply_gram(const std::vector<ensembles::Sample>& samples, const double* in,
+                  double* out) const;
 
  private:
   std::shared_ptr<const detail::ExpressionData> data_;

@@ -150,4 +150,19 @@ void VectorProduct::apply(const std::vector<ensembles::Sample>& samples, const d
   Eigen::Map<Vec<double>>(out, n_) = y;
 }
 
+void VectorProduct::apply_gram(const std::vector<ensembles::Sample>& samples, const Complex* in,
+                               Complex* out) const {
+  const Applier<Complex> a{*data_, samples, n_};
+  const Vec<Complex> y = a.node(data_->root, false, Eigen::Map<const Vec<Complex>>(in, n_));
+  Eigen::Map<Vec<Complex>>(out, n_) = a.node(data_->root, true, y);
+}
+
+void VectorProduct::apply_gram(const std::vector<ensembles::Sample>& samples, const double* in,
+                               double* out) const {
+  if (!real_) throw InputError("vector product: a complex expression needs complex vectors");
+  const Applier<double> a{*data_, samples, n_};
+  const Vec<double> y = a.node(data_->root, false, Eigen::Map<const Vec<double>>(in, n_));
+  Eigen::Map<Vec<double>>(out, n_) = a.node(data_->root, true, y);
+}
+
 }  // namespace freegap::expr

@@ -472,12 +472,18 @@ Path SizeRunner::cheapest_path(const Model& model, bool linear, bool two, bool k
 }
 
 bool SizeRunner::krylov_applies(const Model& model, std::string& why) const {
-  why = "the krylov path finds only the smallest and largest eigenvalue of a self-adjoint "
-        "expression, so it needs observe.extremes_only = true, eigenvalues observed and dense "
-        "samples of every matrix";
-  if (!model.extremes_only || expression_.spectrum() != expr::Spectrum::eigenvalues) return false;
+  why = "the krylov path finds only the smallest and largest eigenvalue (or singular value), so "
+        "it needs observe.extremes_only = true and dense samples of every matrix";
+  if (!model.extremes_only) return false;
   for (std::size_t i = 0; i < samplers_.size(); ++i) {
     if (used_[i] && !has_dense_sampler(samplers_[i].spec().kind)) return false;
+  }
+  if (expression_.spectrum() != expr::Spectrum::eigenvalues && model.path != PathRequest::krylov) {
+    // Singular values by Lanczos on P^*P: the smallest one needs many steps when it is near 0
+    // (a hard edge, e.g. a square Ginibre matrix), which no cost prediction can know in advance.
+    why = "singular values go to the krylov path only when the job forces it (path = \"krylov\"): "
+          "the smallest one can need many Lanczos steps";
+    return false;
   }
   why.clear();
   return true;
@@ -599,18 +605,22 @@ std::string SizeRunner::explain_krylov() const {
   const double n = static_cast<double>(n_);
   const double steps = std::min<double>(krylov_settings_.max_iterations, n);
   const double basis = (krylov_->is_real() ? 8.0 : 16.0) * n * (steps + 1);
-  char buf[900];
+  const bool gram = expression_.spectrum() != expr::Spectrum::eigenvalues;
+  char buf[1000];
   std::snprintf(buf, sizeof buf,
                 "expression: %s\nsize: N = %lld\narithmetic: %s\npath: krylov (Lanczos with full "
                 "reorthogonalisation on products of the expression with vectors, one BLAS "
                 "matrix-vector product per factor, %s read per product; the matrix is never "
-                "formed)\nobservations: smallest and largest eigenvalue and the norm, to a relative "
+                "formed)\nobservations: smallest and largest %s and the norm, to a relative "
                 "error estimate of %g (Kato-Temple, r^2/gap) within %d steps, each trial's residuals "
                 "stored as its certificate; a trial that does not converge is recorded as failed\n"
                 "memory: the samples plus a Lanczos basis of at most %s\n",
                 expression_.text().c_str(), static_cast<long long>(n_),
                 krylov_->is_real() ? "real" : "complex",
-                expr_bytes_text(krylov_->bytes_read()).c_str(), krylov_settings_.tolerance,
+                expr_bytes_text(krylov_->bytes_read()).c_str(),
+                gram ? "singular value (Lanczos on P^*P: a product with P, then with P^*)"
+                     : "eigenvalue",
+                krylov_settings_.tolerance,
                 krylov_settings_.max_iterations, expr_bytes_text(basis).c_str());
   return buf;
 }
@@ -670,18 +680,36 @@ void SizeRunner::observe_trial(observe::Observations& obs, std::uint64_t seed,
   obs.trials.insert(at, std::move(row));
 }
 
+// Lanczos on P^*P found its extreme eigenvalues λ = σ²: the singular values σ = √λ, and bounds
+// for them. P^*P has an eigenvalue s² within r of λ, so |s − σ| = |s² − σ²|/(s + σ) ≤ r/σ (∞ at
+// σ = 0); the same for the error estimates, which bound |s² − λ| too.
+linalg::LanczosResult singular_values_of_gram(linalg::LanczosResult r) {
+  const auto root = [](double lambda) { return std::sqrt(std::max(lambda, 0.0)); };
+  const auto bound = [](double residual, double sigma) {
+    return sigma > 0.0 ? residual / sigma : std::numeric_limits<double>::infinity();
+  };
+  r.min = root(r.min);
+  r.max = root(r.max);
+  r.residual_min = bound(r.residual_min, r.min);
+  r.residual_max = bound(r.residual_max, r.max);
+  r.estimate_min = bound(r.estimate_min, r.min);
+  r.estimate_max = bound(r.estimate_max, r.max);
+  return r;
+}
+
 void SizeRunner::observe_krylov_trial(observe::Observations& obs, std::uint64_t seed,
                                       std::uint64_t trial) const {
   const std::vector<ensembles::Sample> samples = draw(seed, trial);
   // The start vector: a stream of its own, keyed like a matrix no job can declare (a name with a
   // space), so it never shares random numbers with a sample.
   rng::Stream stream({seed, "krylov start", static_cast<std::uint64_t>(n_), trial});
+  const bool gram = expression_.spectrum() != expr::Spectrum::eigenvalues;  // singular values
   linalg::LanczosResult r;
   if (krylov_->is_real()) {
     Eigen::VectorXd start(n_);
     stream.fill_normal({start.data(), static_cast<std::size_t>(n_)});
     const linalg::RealApply apply = [&](const double* in, double* out) {
-      krylov_->apply(samples, in, out);
+      gram ? krylov_->apply_gram(samples, in, out) : krylov_->apply(samples, in, out);
     };
     r = linalg::lanczos_extremes(n_, apply, std::move(start), krylov_settings_);
   } else {
@@ -689,10 +717,11 @@ void SizeRunner::observe_krylov_trial(observe::Observations& obs, std::uint64_t 
     stream.fill_complex_normal({start.data(), static_cast<std::size_t>(n_)});
     const linalg::ComplexApply apply = [&](const std::complex<double>* in,
                                            std::complex<double>* out) {
-      krylov_->apply(samples, in, out);
+      gram ? krylov_->apply_gram(samples, in, out) : krylov_->apply(samples, in, out);
     };
     r = linalg::lanczos_extremes(n_, apply, std::move(start), krylov_settings_);
   }
+  if (gram) r = singular_values_of_gram(r);
   if (r.converged) {
     const double extremes[2] = {r.min, r.max};
     observe::record_trial(obs, trial, extremes);

@@ -243,6 +243,11 @@ std::string Study::path_reason(std::size_t i) const {
            "matrix; " + choice;
   }
   if (runner.path() == model::Path::krylov) {
+    if (runner.spectrum_kind() == observe::SpectrumKind::singular_values) {
+      return "krylov: only the extreme singular values and the norm are observed "
+             "(observe.extremes_only), so a trial runs Lanczos on P^*P by products of the "
+             "expression and its adjoint with vectors and never forms the matrix; " + choice;
+    }
     return "krylov: only the extremes and the norm are observed (observe.extremes_only) of a "
            "self-adjoint expression, so a trial runs Lanczos on products of the expression with "
            "vectors and never forms the matrix; " + choice;

@@ -66,6 +66,12 @@ void expect_product_matches(const std::vector<std::string>& declarations,
   const Eigen::VectorXcd want = p.is_complex ? Eigen::VectorXcd(p.complex * v)
                                              : Eigen::VectorXcd(p.real.cast<Complex>() * v);
   EXPECT_LE((y - want).norm(), 1e-12 * (1.0 + want.norm())) << expression;
+  // The Gram product P^*(P v) (singular values on the krylov path).
+  Eigen::VectorXcd g(n);
+  product.apply_gram(samples, v.data(), g.data());
+  const Eigen::VectorXcd want_g = p.is_complex ? Eigen::VectorXcd(p.complex.adjoint() * want)
+                                               : Eigen::VectorXcd(p.real.transpose().cast<Complex>() * want);
+  EXPECT_LE((g - want_g).norm(), 1e-12 * (1.0 + want_g.norm())) << expression;
   if (product.is_real()) {
     Eigen::VectorXd vr = v.real(), yr(n);
     product.apply(samples, vr.data(), yr.data());
@@ -212,15 +218,51 @@ TEST(KrylovPath, ChosenByPredictedCostAndOnlyForExtremesOfSelfAdjointExpressions
   } catch (const InputError& e) {
     EXPECT_EQ(std::string(e.what()),
               "path = \"krylov\" does not apply to this model: the krylov path finds only the "
-              "smallest and largest eigenvalue of a self-adjoint expression, so it needs "
-              "observe.extremes_only = true, eigenvalues observed and dense samples of every "
-              "matrix; remove path or set it to \"auto\" or \"dense\"");
+              "smallest and largest eigenvalue (or singular value), so it needs "
+              "observe.extremes_only = true and dense samples of every matrix; remove path or "
+              "set it to \"auto\" or \"dense\"");
   }
+  // Singular values: only when forced (the smallest can need many steps), never chosen.
   model::Model singular = make({"X1=gue", "X2=gue"}, "X1 X2");
-  singular.path = model::PathRequest::krylov;
-  EXPECT_THROW(model::SizeRunner(singular, 100), InputError);
-  singular.path = model::PathRequest::automatic;
   EXPECT_EQ(model::SizeRunner(singular, 3000).path(), model::Path::dense);
+  singular.path = model::PathRequest::krylov;
+  EXPECT_EQ(model::SizeRunner(singular, 100).path(), model::Path::krylov);
+}
+
+// Singular values by Lanczos on P^*P (forced): σ_max and σ_min equal LAPACK's on the same
+// samples. An error e in λ = σ² moves σ by at most e/σ, so the eigenvalue rule above becomes
+// |σ − s| ≤ (10·tol + N·eps)·σ_max²/σ for each extreme σ.
+TEST(KrylovPath, SingularValuesEqualLapackWhenForced) {
+  const struct {
+    std::vector<std::string> d;
+    const char* e;
+  } models[] = {{{"X1=gue", "X2=gue"}, "X1 X2 + 5"},
+                {{"Y1=goe", "Y2=goe"}, "Y1 Y2 + 5"},
+                {{"G=ginibre_complex", "X=gue"}, "G X + 3"}};
+  const Eigen::Index n = 100;
+  for (const auto& mdl : models) {
+    model::Model m = make(mdl.d, mdl.e);
+    m.path = model::PathRequest::krylov;
+    const model::SizeRunner runner(m, n);
+    ASSERT_EQ(runner.path(), model::Path::krylov);
+    ASSERT_EQ(runner.spectrum_kind(), observe::SpectrumKind::singular_values) << mdl.e;
+    EXPECT_NE(runner.explain().find("singular value (Lanczos on P^*P"), std::string::npos);
+    auto obs = observe::start_observations(extremes_config(runner));
+    for (std::uint64_t t = 0; t < 30; ++t) {
+      runner.observe_trial(obs, kSeed, t);
+      const auto& row = obs.trials.back();
+      ASSERT_FALSE(row.failed) << mdl.e << " trial " << t << ": " << row.reason;
+      const model::TrialOutcome lapack = runner.run(kSeed, t);
+      ASSERT_FALSE(lapack.failed);
+      const double lo = lapack.spectrum.minCoeff(), hi = lapack.spectrum.maxCoeff();
+      const double rule = (10 * m.krylov_tolerance + n * kEps) * hi * hi;
+      EXPECT_LE(std::abs(row.max - hi), rule / hi) << mdl.e << " trial " << t;
+      EXPECT_LE(std::abs(row.min - lo), rule / lo) << mdl.e << " trial " << t;
+      EXPECT_EQ(row.norm, row.max);
+      EXPECT_LE(std::abs(row.max - hi), row.certificate.residual_max + n * kEps * hi);
+      EXPECT_LE(std::abs(row.min - lo), row.certificate.residual_min + n * kEps * hi * hi / lo);
+    }
+  }
 }
 
 }  // namespace
