@@ -224,12 +224,12 @@ std::optional<FreeTerm> sandwich_term(const TermWord& tw, bool sandwich3, FreeTe
   const double variance = semicircle_variance(x);
   const Support sx2 = x2->support();
   if (sx2.bands.empty() && sx2.atoms.size() == 1) {
-    // X a point mass b (a spiked diagonal's limit): X Y X = b²·Y.
+    // X² = b²·I (X a point mass b, e.g. a spiked diagonal's limit, or X = ±b): X Y X is similar
+    // to b²·Y (X/b is its own inverse), so it has the law of b²·Y.
     const double b2 = sx2.atoms[0].value;
     t.law = b2 == 0.0 ? atoms({{0.0, 1.0}}) : affine(ly.law, b2, 0.0);
-    t.text = text + " → " + text::readable(sx2.atoms[0].value) + "·law(" + y.name +
-             ") (" + x.name + " is the point mass at ±" +
-             text::readable(std::sqrt(sx2.atoms[0].value)) + ")";
+    t.text = text + " → " + text::readable(b2) + "·law(" + y.name + ") (" + x.name + "² = " +
+             text::readable(b2) + "·I)";
   } else if (sy.lo < 0.0 && variance > 0.0 && sy.bands.empty() &&
       sy.atoms.size() <= kMostCompoundPoissonJumps) {
     // X semicircular of variance v: X Y X has free cumulants κ_n = vⁿ φ(Yⁿ), the free compound

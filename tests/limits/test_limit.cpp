@@ -39,6 +39,21 @@ void expect_moments_agree(const fa::DerivedLimit& d, double tol) {
   }
 }
 
+// X Y X with X² = b²·I (X = ±1, or a spiked diagonal's point mass): X/b is its own inverse, so
+// X Y X is similar to b²·Y and has its law exactly (elementary).
+TEST(DeriveLimit, SandwichByASquareRootOfAMultipleOfTheIdentity) {
+  const auto d = derive({"B=diagonal:atoms=1@0.5,-1@0.5", "U=haar_unitary",
+                         "D=diagonal:law=uniform:low=0:high=2"},
+                        "B U D U^* B");
+  ASSERT_TRUE(d.law) << d.reason;
+  EXPECT_EQ(d.law->describe(), "uniform(0, 2)");
+  EXPECT_NE(d.rule.find("B² = 1·I"), std::string::npos) << d.rule;
+  const auto s = d.law->support();
+  EXPECT_EQ(s.lo, 0.0);
+  EXPECT_EQ(s.hi, 2.0);
+  expect_moments_agree(d, 1e-12);
+}
+
 }  // namespace
 
 TEST(LimitOfRun, WignerAndWishartClosedForms) {
