@@ -2,7 +2,9 @@
 #include <algorithm>
 #include <cmath>
 #include <future>
+#include <limits>
 #include <map>
+#include <mutex>
 #include <optional>
 #include <set>
 #include <sstream>
@@ -12,11 +14,63 @@
 #include "freegap/analysis/limits/moments.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
+#include "freegap/linalg.hpp"
 #include "freegap/text.hpp"
 #include "freegap/stop.hpp"
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
+
+std::vector<declarations::Atom> file_matrix_eigenvalue_law(const declarations::MatrixSpec& spec,
+                                                           std::vector<std::size_t>* counts) {
+  struct Law {
+    std::vector<declarations::Atom> atoms;
+    std::vector<std::size_t> counts;
+  };
+  static std::mutex lock;
+  static std::map<std::string, Law> computed;  // by file, dataset and reference size
+  const Eigen::Index n = spec.file.reference_size;
+  const std::string key = declarations::file_matrix_path(spec, n) + '\n' + spec.file.dataset +
+                          '\n' + std::to_string(n);
+  const std::lock_guard<std::mutex> hold(lock);
+  auto found = computed.find(key);
+  if (found == computed.end()) {
+    const auto m = declarations::file_matrix_at(spec, n);
+    linalg::Vector values;
+    if (m->complex) {
+      linalg::CMatrix a = 0.5 * (m->values + m->values.adjoint());  // as the sampler does
+      values = linalg::eigenvalues(a);
+    } else {
+      linalg::RMatrix a = 0.5 * (m->real + m->real.transpose());
+      values = linalg::eigenvalues(a);
+    }
+    // Eigenvalues closer than LAPACK's backward error (about n·ε·‖A‖; here 8 n ε max|λ|) are one
+    // eigenvalue of higher multiplicity (a symmetric ring's pairs come out 1e-15 apart): one atom
+    // at their mean (common practice).
+    Law law;
+    const auto total = static_cast<double>(values.size());
+    const double spread = values.size() == 0 ? 0.0 : values.cwiseAbs().maxCoeff();
+    const double tie = 8.0 * total * std::numeric_limits<double>::epsilon() * spread;
+    double sum = 0.0;
+    for (Eigen::Index i = 0; i < values.size(); ++i) {
+      if (!law.atoms.empty() && values(i) - values(i - 1) <= tie) {
+        ++law.counts.back();
+        sum += values(i);
+        law.atoms.back().value = sum / static_cast<double>(law.counts.back());
+      } else {
+        law.atoms.push_back({values(i), 0.0});
+        law.counts.push_back(1);
+        sum = values(i);
+      }
+    }
+    for (std::size_t i = 0; i < law.atoms.size(); ++i) {
+      law.atoms[i].weight = static_cast<double>(law.counts[i]) / total;
+    }
+    found = computed.emplace(key, std::move(law)).first;
+  }
+  if (counts != nullptr) *counts = found->second.counts;
+  return found->second.atoms;
+}
 
 namespace {
 
@@ -49,6 +103,27 @@ LetterLaw law_of(const MatrixSpec& m) {
   if (m.kind == Kind::toeplitz) {
     return {toeplitz_symbol_law(m.coefficients),
             "the law of its symbol f(θ), θ uniform (Szegő 1920; Grenander & Szegő 1958)", {}};
+  }
+  if (m.kind == Kind::file_matrix) {
+    std::vector<declarations::Atom> read;
+    try {
+      read = file_matrix_eigenvalue_law(m);
+    } catch (const InputError& e) {
+      return {nullptr, {}, e.what()};
+    }
+    std::vector<Atom> points;
+    for (const auto& a : read) points.push_back({a.value, a.weight});
+    const std::string size = std::to_string(m.file.reference_size);
+    return {atoms(std::move(points)),
+            "the eigenvalue law of its matrix file (" + std::to_string(read.size()) +
+                " distinct eigenvalues; " +
+                (declarations::file_matrix_per_size(m)
+                     ? "the file for N = " + size +
+                           ", the largest size, stands for every size: at that N the limit is "
+                           "the free deterministic equivalent, Speicher & Vargas 2012"
+                     : "one file, repeated on the diagonal, has this law at every size") +
+                ")",
+            {}};
   }
   if (m.kind != Kind::diagonal) return {nullptr, {}, who + " is not self-adjoint"};
   switch (m.diagonal.kind) {

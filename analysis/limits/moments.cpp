@@ -1,5 +1,6 @@
 // Exact limit moments of polynomials in free variables (see moments.hpp for the method).
 #include "freegap/analysis/limits/moments.hpp"
+#include "freegap/analysis/limits/limit.hpp"
 
 #include <algorithm>
 #include <cstdio>
@@ -228,6 +229,20 @@ static FreeVariable toeplitz_variable(const std::vector<double>& coefficients) {
   });
 }
 
+// Atoms with weights count_i / Σ counts as exact rationals.
+static std::vector<std::pair<Rational, Rational>> rational_atoms(
+    const std::vector<declarations::Atom>& read, const std::vector<std::size_t>& counts) {
+  std::size_t k = 0;
+  for (const std::size_t c : counts) k += c;
+  std::vector<std::pair<Rational, Rational>> atoms;
+  for (std::size_t i = 0; i < read.size(); ++i) {
+    atoms.emplace_back(Rational::from_double(read[i].value),
+                       Rational(static_cast<std::int64_t>(counts[i])) /
+                           Rational(static_cast<std::int64_t>(k)));
+  }
+  return atoms;
+}
+
 FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
   using declarations::DiagonalLawKind;
   using declarations::Kind;
@@ -243,6 +258,12 @@ FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
       return FreeVariable::marchenko_pastur(Rational::from_double(spec.ratio));
     case Kind::toeplitz:
       return toeplitz_variable(spec.coefficients);
+    case Kind::file_matrix: {
+      // The eigenvalue law of the matrix (limit.hpp); its weights count/n are exact rationals.
+      std::vector<std::size_t> counts;
+      const auto law = file_matrix_eigenvalue_law(spec, &counts);
+      return FreeVariable::atoms(rational_atoms(law, counts));
+    }
     case Kind::ginibre_complex:
     case Kind::ginibre_real:
       if (spec.ratio != 1.0) {
@@ -278,15 +299,7 @@ FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
           // The empirical law of the file's numbers; its weights count/K are exact rationals.
           std::vector<std::size_t> counts;
           const auto read = declarations::file_law_atoms(spec, &counts);
-          std::size_t k = 0;
-          for (const std::size_t c : counts) k += c;
-          std::vector<std::pair<Rational, Rational>> atoms;
-          for (std::size_t i = 0; i < read.size(); ++i) {
-            atoms.emplace_back(Rational::from_double(read[i].value),
-                               Rational(static_cast<std::int64_t>(counts[i])) /
-                                   Rational(static_cast<std::int64_t>(k)));
-          }
-          return FreeVariable::atoms(std::move(atoms));
+          return FreeVariable::atoms(rational_atoms(read, counts));
         }
       }
   }

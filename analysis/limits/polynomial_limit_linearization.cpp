@@ -6,6 +6,7 @@
 #include <optional>
 #include <string>
 
+#include "freegap/analysis/limits/limit.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
 #include "freegap/errors.hpp"
 
@@ -38,6 +39,11 @@ FreeLetter letter_for(const declarations::MatrixSpec& spec, const std::string& n
     case Kind::toeplitz:
       letter.law = toeplitz_symbol_law(spec.coefficients);
       return letter;
+    case Kind::file_matrix: {
+      for (const auto& a : file_matrix_eigenvalue_law(spec)) letter.atoms.push_back({a.value, a.weight});
+      letter.law = atoms(letter.atoms);
+      return letter;
+    }
     case Kind::diagonal:
       switch (spec.diagonal.kind) {
         case DiagonalLawKind::atoms: {

@@ -6,9 +6,12 @@
 
 #include <Eigen/Core>
 #include <cstdint>
+#include <memory>
 #include <string>
 #include <string_view>
 #include <vector>
+
+#include "freegap/matrix_file.hpp"
 
 namespace freegap::declarations {
 
@@ -28,6 +31,7 @@ enum class Kind {
   beta_hermite,   ///< β-Hermite eigenvalue law (any β > 0); tridiagonal model only
   beta_laguerre,  ///< β-Laguerre eigenvalue law (any β > 0, ratio c); tridiagonal model only
   toeplitz,       ///< deterministic real symmetric Toeplitz or circulant matrix of a symbol
+  file_matrix,    ///< deterministic self-adjoint matrix read from a file (MatrixSpec::file)
 };
 
 /// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
@@ -76,6 +80,22 @@ struct DiagonalLaw {
 /// The largest rank of a spiked diagonal: a finite-rank perturbation, not a law.
 inline constexpr std::size_t kMostSpikes = 64;
 
+/// Where a `file_matrix` comes from (job key ensemble = "file"): one file for every size, or one
+/// per size. The matrix must be square and self-adjoint: real symmetric or complex Hermitian, up
+/// to 1e-12 of its largest entry; the sample is (A + A^*)/2, which is A bit for bit when A is
+/// exactly self-adjoint.
+///  - `path` without "{N}": one n × n matrix; at size N = k·n the sample is k copies of it on the
+///    block diagonal, whose eigenvalue law is that of A at every size (a size that is not a
+///    multiple of n is refused).
+///  - `path` with "{N}": the file for size N is the path with {N} replaced by N, and holds N × N.
+struct FileMatrix {
+  std::string path;     ///< resolved against the job file's directory
+  std::string dataset;  ///< the HDF5 dataset ("" = the file's only one); other formats: ""
+  bool complex = false;      ///< complex Hermitian entries (set from the file when the job is read)
+  Index reference_size = 0;  ///< the size whose matrix stands for the limit law (the largest)
+  Index file_size = 0;       ///< the order n of the reference size's matrix (set with `complex`)
+};
+
 /// One declared matrix.
 struct MatrixSpec {
   std::string name;
@@ -89,6 +109,7 @@ struct MatrixSpec {
   /// m ≡ i − j mod N, |m| ≤ k), whose eigenvalues are f(2πj/N) exactly.
   std::vector<double> coefficients;
   bool circulant = false;
+  FileMatrix file;  ///< file_matrix
 };
 
 /// The most coefficients of a Toeplitz symbol (band half-width 16): the limit law is the image of
@@ -108,7 +129,8 @@ std::string known_kinds();
 
 bool is_self_adjoint(Kind kind);  ///< gue, goe, wigner, wishart, diagonal
 bool is_unitary(Kind kind);       ///< haar_unitary, haar_orthogonal
-bool is_real(Kind kind);          ///< real entries
+bool is_real(Kind kind);          ///< real entries (file_matrix: see the spec's overload)
+bool is_real(const MatrixSpec& spec);  ///< real entries; a file_matrix by its file
 bool is_random(Kind kind);        ///< draws random numbers (everything but diagonal, toeplitz)
 bool uses_ratio(Kind kind);       ///< wishart_*, ginibre_*, beta_laguerre: a ratio c = N/M
 
@@ -135,6 +157,16 @@ std::vector<double> file_values(const MatrixSpec& spec);
 /// number's count (the weights are counts[i]/K exactly).
 std::vector<Atom> file_law_atoms(const MatrixSpec& spec,
                                  std::vector<std::size_t>* counts = nullptr);
+
+/// The path of a file_matrix's file at size N ({N} replaced by N).
+std::string file_matrix_path(const MatrixSpec& spec, Index n);
+/// Whether a file_matrix has one file per size ({N} in its path).
+bool file_matrix_per_size(const MatrixSpec& spec);
+/// A file_matrix's matrix at size N, read (shared: matrix_file::read_shared) and checked: square,
+/// N × N (one file per size) or a divisor of N (one file), self-adjoint to 1e-12 of its largest
+/// entry, real or complex as the spec says. InputError "matrix 'NAME': …" naming the file.
+/// The k-fold block repetition is the sampler's; this is the file's matrix, not yet symmetrised.
+std::shared_ptr<const matrix_file::Matrix> file_matrix_at(const MatrixSpec& spec, Index n);
 
 /// The diagonal entries at size N when they are fixed by the declaration alone (atoms and spiked
 /// laws, in the sampler's order); empty for any other law.

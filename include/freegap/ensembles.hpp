@@ -31,6 +31,7 @@
 
 #include <Eigen/Core>
 #include <cstdint>
+#include <memory>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -89,8 +90,14 @@ class Sampler {
   Eigen::VectorXd diagonal_values(Index n) const;
 
  private:
+  void draw_file_matrix(Index n, Sample& out) const;
+
   MatrixSpec spec_;
   std::vector<double> file_values_;  ///< sorted numbers of a `file` law
+  /// file_matrix: the checked matrix of the last size drawn, shared by copies of the sampler
+  /// (checked once per size, not once per trial).
+  struct FileCache;
+  std::shared_ptr<FileCache> file_cache_;
 };
 
 }  // namespace freegap::ensembles

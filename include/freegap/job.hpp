@@ -62,6 +62,10 @@
 //                                              (default 0): a finite-rank perturbation
 //   toeplitz                               ensemble, coefficients (c_0 … c_k, 1–17 numbers),
 //                                          circulant (default false)
+//   file                                   ensemble, path (required: .h5/.hdf5, .npy, .mtx/.mm;
+//                                          "{N}" in it: one file per size), dataset (HDF5 only;
+//                                          default the file's only dataset): a self-adjoint
+//                                          matrix (declarations.hpp, FileMatrix)
 //
 // Every message is "file:line: key: rule broken and how to fix it" (line omitted when the key is
 // missing from the file altogether); a TOML syntax error is "file:line:column: TOML syntax: ...".

@@ -16,6 +16,7 @@
 #include <utility>
 #include <vector>
 
+#include "freegap/matrix_file.hpp"
 #include "freegap/observe.hpp"
 
 namespace freegap::store {
@@ -280,6 +281,14 @@ struct TableData {
 void write_tables(const std::string& path,
                   const std::vector<std::pair<std::string, std::string>>& attributes,
                   const std::vector<TableData>& tables);
+
+/// A matrix from an HDF5 file (matrix_file::read's reader for .h5 and .hdf5 files; the program
+/// installs it with matrix_file::set_hdf5_reader). `dataset` names the dataset ("/grp/A" or
+/// "A"); "" takes the only dataset at the file's root. The dataset must be rank 2, rows first
+/// (HDF5 stores row-major), of floats or integers, or complex as h5py writes it: a compound of
+/// two floats named "r" and "i". Throws InputError "matrix file 'PATH': …" for anything else: a
+/// missing, truncated or foreign file, another rank or type, a non-finite entry.
+matrix_file::Matrix read_matrix_dataset(const std::string& path, const std::string& dataset);
 
 /// "eigenvalues" or "singular_values", as stored in the file.
 std::string spectrum_name(observe::SpectrumKind kind);

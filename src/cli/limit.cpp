@@ -15,6 +15,7 @@
 #include "freegap/analysis/reporting/console.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/install_paths.hpp"
+#include "freegap/job.hpp"
 #include "freegap/model.hpp"
 #include "freegap/output_dir.hpp"
 #include "freegap/stop.hpp"
@@ -27,6 +28,7 @@ namespace {
 struct LimitOptions {
   std::vector<std::string> declarations;
   std::string expression;
+  std::string job;  ///< a job file: its matrices and expression instead of -m and -e
   std::string output;
   int points = 400;
   int max_moment = 6;
@@ -52,6 +54,14 @@ constexpr int kMaxPoints = 100000;
 
 // Refuses a --points or --window that `limit` does not take.
 void check_limit_options(const LimitOptions& opt) {
+  if (opt.job.empty() && (opt.declarations.empty() || opt.expression.empty())) {
+    throw InputError("limit needs the model: --job FILE, or -m NAME=ENSEMBLE (repeatable) and "
+                     "-e EXPRESSION");
+  }
+  if (!opt.job.empty() && (!opt.declarations.empty() || !opt.expression.empty())) {
+    throw InputError("--job takes the matrices and the expression from the job file; drop -m "
+                     "and -e, or drop --job");
+  }
   if (opt.points < 10 || opt.points > kMaxPoints) {
     throw InputError("--points must be between 10 and " + std::to_string(kMaxPoints) + " (got " +
                      std::to_string(opt.points) + ")");
@@ -141,11 +151,18 @@ int run_limit(const LimitOptions& opt) {
   // An output directory holding anything freegap did not write is refused before any work.
   if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
   std::vector<declarations::MatrixSpec> specs;
+  std::string expression_text = opt.expression;
+  if (!opt.job.empty()) {
+    // A job file's matrices as the run reads them (matrix files included, checked at its sizes).
+    job::Job job = job::load_job(opt.job);
+    specs = job.matrices;
+    expression_text = job.expression;
+  }
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
   // The compiled study of the expression: the same checks and the same derivation as `report`,
   // `plan` and the estimators' truths (closed-form rules, then free convolutions, then the
   // polynomial solver; singular values from the law of P^*P).
-  const study::Study study = study::Study::of_expression(specs, opt.expression);
+  const study::Study study = study::Study::of_expression(specs, expression_text);
   const expr::Expression& expression = study.expression();
   const analysis::DerivedLimit derived = study.limit(opt.max_moment);
   if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
@@ -196,11 +213,12 @@ Subcommand add_limit_command(CLI::App& app) {
   auto* cmd = app.add_subcommand(
       "limit", "The N → ∞ law of an expression from the declarations alone (no sampling)");
   cmd->add_option("-m,--matrix", opt->declarations,
-                  "Declare a matrix: NAME=ENSEMBLE[:key=value]... (repeatable)")
-      ->required();
+                  "Declare a matrix: NAME=ENSEMBLE[:key=value]... (repeatable)");
   cmd->add_option("-e,--expression", opt->expression,
-                  "Expression in the matrices (eigenvalues if self-adjoint, else singular values)")
-      ->required();
+                  "Expression in the matrices (eigenvalues if self-adjoint, else singular values)");
+  cmd->add_option("--job", opt->job,
+                  "A job file: its matrices and expression (instead of -m and -e; matrices read "
+                  "from files are declared this way)");
   cmd->add_option("-o,--output", opt->output,
                   "Directory for limit.csv (x, density, cdf) and limit.png / limit.svg");
   cmd->add_option("--points", opt->points, "Grid points of the density table (default 400)");

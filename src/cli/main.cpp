@@ -11,6 +11,7 @@
 #include "freegap/analysis/reporting/console.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
+#include "freegap/matrix_file.hpp"
 #include "freegap/model.hpp"
 #include "freegap/observe.hpp"
 #include "freegap/plan.hpp"
@@ -243,6 +244,8 @@ int run_reporting_errors(Command&& command) {
 }  // namespace
 
 int main(int argc, char** argv) {
+  // Matrix files in HDF5 are read by the store, the one part that links HDF5 (docs/parts.toml).
+  freegap::matrix_file::set_hdf5_reader(&freegap::store::read_matrix_dataset);
   CLI::App app{"freegap: finite-N random matrices against their free-probability limits"};
   app.set_version_flag("--version", std::string(freegap::tool_version) + " (" +
                                         freegap::git_revision + ")");

@@ -3,6 +3,7 @@
 #include "freegap/text.hpp"
 
 #include <algorithm>
+#include <complex>
 #include <array>
 #include <cmath>
 #include <cstdio>
@@ -20,7 +21,7 @@ struct KindName {
   Kind kind;
   const char* name;
 };
-constexpr std::array<KindName, 13> kind_names{{
+constexpr std::array<KindName, 14> kind_names{{
     {Kind::gue, "gue"},
     {Kind::goe, "goe"},
     {Kind::wigner_rademacher, "wigner_rademacher"},
@@ -34,6 +35,7 @@ constexpr std::array<KindName, 13> kind_names{{
     {Kind::beta_hermite, "beta_hermite"},
     {Kind::beta_laguerre, "beta_laguerre"},
     {Kind::toeplitz, "toeplitz"},
+    {Kind::file_matrix, "file"},
 }};
 
 std::string num(double x) { return text::readable(x); }
@@ -123,7 +125,8 @@ std::string known_kinds() {
 bool is_self_adjoint(Kind k) {
   return k == Kind::gue || k == Kind::goe || k == Kind::wigner_rademacher ||
          k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz;
+         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz ||
+         k == Kind::file_matrix;
 }
 bool is_unitary(Kind k) { return k == Kind::haar_unitary || k == Kind::haar_orthogonal; }
 bool is_real(Kind k) {
@@ -131,7 +134,10 @@ bool is_real(Kind k) {
          k == Kind::ginibre_real || k == Kind::haar_orthogonal || k == Kind::diagonal ||
          k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz;
 }
-bool is_random(Kind k) { return k != Kind::diagonal && k != Kind::toeplitz; }
+bool is_real(const MatrixSpec& spec) {
+  return spec.kind == Kind::file_matrix ? !spec.file.complex : is_real(spec.kind);
+}
+bool is_random(Kind k) { return k != Kind::diagonal && k != Kind::toeplitz && k != Kind::file_matrix; }
 
 Index companion_size(Index n, double ratio) {
   return static_cast<Index>(std::llround(static_cast<double>(n) / ratio));
@@ -184,6 +190,9 @@ void validate(const MatrixSpec& spec) {
       if (!std::isfinite(c)) fail(spec, "Toeplitz coefficients must be finite");
     }
     return;
+  }
+  if (spec.kind == Kind::file_matrix && spec.file.path.empty()) {
+    fail(spec, "a matrix from a file needs its path");
   }
   if (spec.kind != Kind::diagonal) return;
   const DiagonalLaw& law = spec.diagonal;
@@ -261,6 +270,72 @@ std::vector<double> planned_entries(const MatrixSpec& spec, Index n) {
 }
 
 std::vector<double> file_values(const MatrixSpec& spec) { return read_number_file(spec); }
+
+bool file_matrix_per_size(const MatrixSpec& spec) {
+  return spec.file.path.find("{N}") != std::string::npos;
+}
+
+std::string file_matrix_path(const MatrixSpec& spec, Index n) {
+  std::string path = spec.file.path;
+  const std::string size = std::to_string(n);
+  for (std::size_t at = path.find("{N}"); at != std::string::npos; at = path.find("{N}", at)) {
+    path.replace(at, 3, size);
+    at += size.size();
+  }
+  return path;
+}
+
+std::shared_ptr<const matrix_file::Matrix> file_matrix_at(const MatrixSpec& spec, Index n) {
+  const std::string path = file_matrix_path(spec, n);
+  std::shared_ptr<const matrix_file::Matrix> m;
+  try {
+    m = matrix_file::read_shared(path, spec.file.dataset);
+  } catch (const InputError& e) {
+    fail(spec, e.what());
+  }
+  const std::string where = "matrix file '" + path + "': ";
+  const std::string shape = std::to_string(m->rows) + " × " + std::to_string(m->cols);
+  if (m->rows != m->cols || m->rows == 0) {
+    fail(spec, where + "holds a " + shape + " matrix; a matrix in an expression must be square");
+  }
+  if (file_matrix_per_size(spec) && m->rows != n) {
+    fail(spec, where + "holds " + shape + ", but it is the file for size N = " + std::to_string(n) +
+                   "; write the N × N matrix there");
+  }
+  if (!file_matrix_per_size(spec) && n % m->rows != 0) {
+    fail(spec, where + "holds " + shape + "; the sizes must be multiples of " +
+                   std::to_string(m->rows) + " (got N = " + std::to_string(n) +
+                   "), or give one file per size with {N} in the path");
+  }
+  // Self-adjoint up to rounding: |A − A^*| ≤ 1e-12 max|A| entrywise (common practice for a
+  // matrix computed in floating point, e.g. X X^T from a BLAS product).
+  double largest = 0.0, asymmetry = 0.0;
+  Index worst_i = 0, worst_j = 0;
+  for (Index j = 0; j < m->cols; ++j) {
+    for (Index i = j; i < m->rows; ++i) {
+      const double gap = m->complex ? std::abs(m->values(i, j) - std::conj(m->values(j, i)))
+                                    : std::abs(m->real(i, j) - m->real(j, i));
+      largest = std::max(largest, m->complex ? std::abs(m->values(i, j)) : std::abs(m->real(i, j)));
+      if (gap > asymmetry) {
+        asymmetry = gap;
+        worst_i = i;
+        worst_j = j;
+      }
+    }
+  }
+  if (asymmetry > 1e-12 * largest) {
+    fail(spec, where + "is not self-adjoint: entries (" + std::to_string(worst_i + 1) + ", " +
+                   std::to_string(worst_j + 1) + ") and (" + std::to_string(worst_j + 1) + ", " +
+                   std::to_string(worst_i + 1) + ") differ by " + num(asymmetry) +
+                   "; freegap reads real symmetric or complex Hermitian matrices (write (A + A^*)/2)");
+  }
+  if (m->complex != spec.file.complex) {
+    fail(spec, where + "holds " + (m->complex ? "complex" : "real") + " entries where the file for N = " +
+                   std::to_string(spec.file.reference_size) + " holds " +
+                   (spec.file.complex ? "complex" : "real") + " ones; make them all one kind");
+  }
+  return m;
+}
 
 std::vector<Atom> file_law_atoms(const MatrixSpec& spec, std::vector<std::size_t>* counts) {
   const std::vector<double> values = file_values(spec);  // sorted

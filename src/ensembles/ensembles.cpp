@@ -7,6 +7,7 @@
 #include <cmath>
 #include <cstdio>
 #include <fstream>
+#include <mutex>
 #include <numeric>
 #include <sstream>
 
@@ -226,10 +227,50 @@ Index Sample::cols() const {
   return 0;
 }
 
+struct Sampler::FileCache {
+  std::mutex lock;
+  Index n = 0;
+  std::shared_ptr<const matrix_file::Matrix> matrix;
+};
+
 Sampler::Sampler(MatrixSpec spec) : spec_(std::move(spec)) {
   declarations::validate(spec_);
   if (spec_.kind == Kind::diagonal && spec_.diagonal.kind == DiagonalLawKind::file) {
     file_values_ = declarations::file_values(spec_);
+  }
+  if (spec_.kind == Kind::file_matrix) file_cache_ = std::make_shared<FileCache>();
+}
+
+namespace {
+
+// The sample of a file_matrix at size N: k = N/n copies of the file's n × n matrix A on the block
+// diagonal, each (A + A^*)/2 (A itself, bit for bit, when A is exactly self-adjoint).
+template <class Dense>
+void repeat_self_adjoint(const Dense& a, Index n, Dense& out) {
+  linalg::resize_fresh(out, n, n);
+  out.setZero();
+  const Index m = a.rows();
+  for (Index b = 0; b < n; b += m) out.block(b, b, m, m).noalias() = 0.5 * (a + a.adjoint());
+}
+
+}  // namespace
+
+void Sampler::draw_file_matrix(Index n, Sample& out) const {
+  std::shared_ptr<const matrix_file::Matrix> m;
+  {
+    const std::lock_guard<std::mutex> hold(file_cache_->lock);
+    if (file_cache_->n != n || !file_cache_->matrix) {
+      file_cache_->matrix = declarations::file_matrix_at(spec_, n);
+      file_cache_->n = n;
+    }
+    m = file_cache_->matrix;
+  }
+  if (m->complex) {
+    out.storage = Sample::Storage::complex_dense;
+    repeat_self_adjoint(m->values, n, out.complex);
+  } else {
+    out.storage = Sample::Storage::real_dense;
+    repeat_self_adjoint(m->real, n, out.real);
   }
 }
 
@@ -373,6 +414,9 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
     case Kind::toeplitz:
       out.storage = Sample::Storage::real_dense;
       toeplitz_matrix(spec_, n, out.real);
+      break;
+    case Kind::file_matrix:
+      draw_file_matrix(n, out);
       break;
     case Kind::beta_hermite:
     case Kind::beta_laguerre:

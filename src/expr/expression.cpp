@@ -36,7 +36,7 @@ Expression::Expression(std::string_view text, std::vector<ensembles::MatrixSpec>
     op.name = spec.name;
     op.self_adjoint = ensembles::is_self_adjoint(spec.kind);
     op.unitary = ensembles::is_unitary(spec.kind);
-    op.real = ensembles::is_real(spec.kind);
+    op.real = ensembles::is_real(spec);
     op.diagonal = spec.kind == ensembles::Kind::diagonal;
     if (is_rectangular_ginibre(spec)) {
       // One symbol per distinct ratio: equal ratios give equal M = round(N/c) at every N.

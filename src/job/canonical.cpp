@@ -101,6 +101,11 @@ void append_matrix(std::string& out, const declarations::MatrixSpec& m, std::siz
       out += m.circulant ? "; circulant" : "; banded";
       break;
     }
+    case Kind::file_matrix:
+      // The entries' digest (per size with {N}); the path and dataset are where, not what.
+      out += std::string(declarations::file_matrix_per_size(m) ? "; a file per size" : "; one file") +
+             "; values = " + (i < file_digests.size() ? file_digests[i] : std::string("?"));
+      break;
   }
   out += "\n";
 }

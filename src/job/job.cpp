@@ -359,7 +359,7 @@ constexpr LawName kLaws[] = {
 
 const std::vector<std::string_view> kAllMatrixKeys = {
     "ensemble", "ratio", "method", "law",    "atoms",        "low",      "high",
-    "variance", "path",  "beta",   "spikes", "base", "coefficients", "circulant"};
+    "variance", "path",  "beta",   "spikes", "base", "coefficients", "circulant", "dataset"};
 
 bool has_ratio(Kind k) {
   return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
@@ -372,6 +372,7 @@ std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
   if (has_ratio(kind)) return {"ensemble", "ratio"};
   if (declarations::is_unitary(kind)) return {"ensemble", "method"};
   if (kind == Kind::toeplitz) return {"ensemble", "coefficients", "circulant"};
+  if (kind == Kind::file_matrix) return {"ensemble", "path", "dataset"};
   if (kind != Kind::diagonal) return {"ensemble"};
   switch (law) {
     case DiagonalLawKind::atoms:
@@ -634,6 +635,36 @@ void read_toeplitz(const Reader& r, const toml::table& t, const std::string& pre
   if (const toml::node* c = t.get("circulant")) spec.circulant = r.boolean(*c, prefix + ".circulant");
 }
 
+// Reads a matrix file's path (with {N} for one file per size) and HDF5 dataset. The files are
+// read, checked and digested once the sizes are known (check_file_matrix).
+void read_file_matrix(const Reader& r, const toml::table& t, const std::string& prefix,
+                      const std::filesystem::path& base, declarations::MatrixSpec& spec) {
+  const std::string key = prefix + ".path";
+  const toml::node* v = t.get("path");
+  if (v == nullptr) {
+    r.fail_at(r.line(prefix), key,
+              "missing; ensemble \"file\" needs path = \"...\" (an .h5, .npy or .mtx file, relative "
+              "to the job file's directory; {N} in it stands for the size)");
+  }
+  const std::string given = r.string(*v, key, "a file path in quotes");
+  if (given.empty()) r.fail(key, "is empty; give the matrix file's path");
+  const std::filesystem::path resolved = base / std::filesystem::path(given);
+  spec.file.path = resolved.string();
+  try {
+    (void)matrix_file::format_of(spec.file.path);
+  } catch (const InputError& e) {
+    r.fail(key, e.what());
+  }
+  if (const toml::node* d = t.get("dataset")) {
+    const std::string dkey = prefix + ".dataset";
+    spec.file.dataset = r.string(*d, dkey, "an HDF5 dataset's name in quotes, e.g. \"/covariance\"");
+    if (spec.file.dataset.empty()) r.fail(dkey, "is empty; name the dataset or remove the key");
+    if (matrix_file::format_of(spec.file.path) != matrix_file::Format::hdf5) {
+      r.fail(dkey, "applies to HDF5 files only (.h5, .hdf5); remove it");
+    }
+  }
+}
+
 declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, const toml::node& node,
                                   const std::filesystem::path& base, bool read_files) {
   const std::string prefix = "matrices." + std::string(name);
@@ -674,6 +705,8 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
     read_diagonal_law(r, t, prefix, law_given, base, read_files, spec.diagonal);
   } else if (spec.kind == Kind::toeplitz) {
     read_toeplitz(r, t, prefix, spec);
+  } else if (spec.kind == Kind::file_matrix) {
+    read_file_matrix(r, t, prefix, base, spec);
   }
   return spec;
 }
@@ -1149,14 +1182,64 @@ void read_matrices(const Reader& r, const toml::table& doc, const std::filesyste
             [](const auto& a, const auto& b) { return a.name < b.name; });
 }
 
+// The digest of a matrix as read: "<rows>x<cols> real|complex <sha256 of its entries' bytes,
+// column-major>", the same for one matrix in any of the three formats.
+std::string matrix_digest(const matrix_file::Matrix& m) {
+  const char* data = m.complex ? reinterpret_cast<const char*>(m.values.data())
+                               : reinterpret_cast<const char*>(m.real.data());
+  const std::size_t bytes = static_cast<std::size_t>(m.rows * m.cols) * (m.complex ? 16 : 8);
+  return std::to_string(m.rows) + "x" + std::to_string(m.cols) + (m.complex ? " complex " : " real ") +
+         sha256_hex(std::string_view(data, bytes));
+}
+
+// A matrix file (ensemble "file") at every size of the job: its path confined (with --confine),
+// the file read and checked (square, self-adjoint, a size that fits: declarations::file_matrix_at)
+// and digested, so that editing a file changes the job hash while moving it does not. The limit
+// law is the eigenvalue law of the largest size's matrix (reference_size).
+std::string check_file_matrix(const Reader& r, const std::vector<std::int64_t>& sizes,
+                              bool read_files, declarations::MatrixSpec& spec) {
+  const std::string key = "matrices." + spec.name + ".path";
+  if (sizes.empty()) return {};
+  spec.file.reference_size = sizes.back();
+  const bool per_size = declarations::file_matrix_per_size(spec);
+  std::string digest;
+  for (auto it = sizes.rbegin(); it != sizes.rend(); ++it) {
+    const std::string path = declarations::file_matrix_path(spec, *it);
+    r.check_confined(key, path, path);
+    if (!read_files) continue;
+    try {
+      if (it == sizes.rbegin()) {
+        const auto first = matrix_file::read_shared(path, spec.file.dataset);
+        spec.file.complex = first->complex;
+        spec.file.file_size = first->rows;
+      }
+      const auto m = declarations::file_matrix_at(spec, *it);
+      if (per_size || it == sizes.rbegin()) {
+        digest += (digest.empty() ? "" : ", ") + std::string(per_size ? "N = " + std::to_string(*it) + ": " : "") +
+                  matrix_digest(*m);
+      }
+    } catch (const InputError& e) {
+      std::string what = e.what();
+      const std::string redundant = "matrix '" + spec.name + "': ";
+      if (what.rfind(redundant, 0) == 0) what.erase(0, redundant.size());
+      r.fail(key, what);
+    }
+  }
+  return digest;
+}
+
 // Validates every matrix of the job and reads the digests of eigenvalue files (with
 // `read_files`) into job.file_digests.
 void validate_matrices(const Reader& r, bool read_files, Job& job) {
   // declarations::validate is the authority on a spec (the samplers run the same check), and
   // an eigenvalue file is read here once; its message gets the place in the job file.
-  for (const auto& spec : job.matrices) {
+  for (auto& spec : job.matrices) {
     const std::string key = "matrices." + spec.name;
     std::string digest;
+    if (spec.kind == Kind::file_matrix) {
+      job.file_digests.push_back(check_file_matrix(r, job.sizes, read_files, spec));
+      continue;
+    }
     if (!read_files && spec.kind == Kind::diagonal && spec.diagonal.kind == DiagonalLawKind::file) {
       job.file_digests.push_back(digest);  // the file is not read here
       continue;

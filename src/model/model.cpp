@@ -159,6 +159,10 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
   }
   const auto parts = split(text.substr(eq + 1), ':');
   spec.kind = ensembles::parse_kind(parts[0]);
+  if (spec.kind == ensembles::Kind::file_matrix) {
+    bad_declaration(text, "a matrix from a file is declared in a job file (ensemble = \"file\", "
+                          "path = \"...\"), where its files are checked against the sizes");
+  }
   bool law_given = false;
   for (std::size_t i = 1; i < parts.size(); ++i) {
     const auto kv = parts[i].find('=');
@@ -289,6 +293,7 @@ double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
   using ensembles::Kind;
   if (m.kind == Kind::diagonal) return 0.0;
   if (m.kind == Kind::toeplitz) return 1e-9 * nn * nn;  // writing N² doubles (common practice)
+  if (m.kind == Kind::file_matrix) return (m.file.complex ? 4e-9 : 2e-9) * nn * nn;  // (A + A^*)/2
   const bool real = m.kind == Kind::goe || m.kind == Kind::wishart_real ||
                     m.kind == Kind::ginibre_real || m.kind == Kind::haar_orthogonal;
   return (real ? 3.8e-8 : 6.5e-8) * nn * nn;

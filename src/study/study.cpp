@@ -73,6 +73,25 @@ std::vector<model::SizeRunner> runners(const job::Job& job) {
   return out;
 }
 
+namespace {
+
+// Matrices read from files stay in memory while a size runs: the file's matrix at this size (one
+// file: its n × n; per size: N × N), and the reader's shared copy of the previous one
+// (matrix_file::read_shared keeps two).
+double file_matrix_bytes(const model::SizeRunner& runner) {
+  double bytes = 0.0;
+  for (const auto& spec : runner.expression().declared()) {
+    if (spec.kind != declarations::Kind::file_matrix) continue;
+    const auto n = static_cast<double>(declarations::file_matrix_per_size(spec)
+                                           ? runner.size()
+                                           : spec.file.file_size);
+    bytes += 2.0 * n * n * (spec.file.complex ? 16.0 : 8.0);
+  }
+  return bytes;
+}
+
+}  // namespace
+
 std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const auto n = static_cast<double>(runner.size());
   if (runner.path() == model::Path::krylov) {
@@ -81,7 +100,8 @@ std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
     const double steps = std::min(n, 1001.0);
     const double basis = (runner.expression().is_real() ? 8.0 : 16.0) * n * steps;
     return static_cast<std::size_t>(static_cast<double>(runner.evaluation().input_bytes()) +
-                                    3.0 * 16.0 * n * n + basis + 64.0 * 1024 * 1024);
+                                    3.0 * 16.0 * n * n + basis + file_matrix_bytes(runner) +
+                                    64.0 * 1024 * 1024);
   }
   if (runner.path() != model::Path::dense) {
     // Tridiagonal and two_projection paths alike (the latter's corner, 4 vectors of N/2 at
@@ -102,7 +122,7 @@ std::size_t peak_bytes(const model::SizeRunner& runner, bool keeps_matrix) {
   const expr::Evaluation& plan = runner.evaluation();
   const double working = static_cast<double>(plan.input_bytes() + plan.peak_temporary_bytes());
   return static_cast<std::size_t>(working + sampler_transient + matrix_copy + 8.0 * n +
-                                  64.0 * 1024 * 1024);
+                                  file_matrix_bytes(runner) + 64.0 * 1024 * 1024);
 }
 
 namespace {
@@ -170,7 +190,7 @@ Study Study::of_stored_job(const std::string& job_text, const std::string& job_c
   }
   if (other_numbers) {
     throw InputError(
-        "an eigenvalue file the job names holds other numbers than the run used (its SHA-256 "
+        "a file the job reads (eigenvalues or a matrix) holds other numbers than the run used (its SHA-256 "
         "differs from the one stored in the run file); put the run's own file beside the run "
         "file or in the current directory");
   }

@@ -352,6 +352,74 @@ TEST(Toeplitz, EntriesBandedAndCirculant) {
   EXPECT_EQ(small.real(0, 0), 4.0);
 }
 
+// A matrix from a file (ensemble "file"): the sampler's sample is the file's matrix, made
+// self-adjoint as (A + A^*)/2, repeated on the block diagonal when one file serves every size.
+std::string write_text(const std::string& name, const std::string& text) {
+  const std::string path = ::testing::TempDir() + name;
+  std::ofstream(path, std::ios::binary) << text;
+  return path;
+}
+
+MatrixSpec file_spec(const std::string& path, bool complex, Index reference) {
+  MatrixSpec spec;
+  spec.name = "F";
+  spec.kind = Kind::file_matrix;
+  spec.file.path = path;
+  spec.file.complex = complex;
+  spec.file.reference_size = reference;
+  return spec;
+}
+
+TEST(FileMatrix, RepeatedOnTheBlockDiagonal) {
+  // Exactly symmetric up to 1e-13 (within the 1e-12 rule): A(2,1) = 0.5 + 1e-13, A(1,2) = 0.5.
+  const std::string path = write_text("freegap_file_matrix_a.mtx",
+                                      "%%MatrixMarket matrix array real general\n2 2\n"
+                                      "2\n0.5000000000001\n0.5\n-1\n");
+  Sampler sampler(file_spec(path, false, 6));
+  const Sample s = sampler.draw(6, 1, 0);
+  ASSERT_EQ(s.storage, Sample::Storage::real_dense);
+  ASSERT_EQ(s.real.rows(), 6);
+  const double off = 0.5 * (0.5000000000001 + 0.5);
+  for (Index b = 0; b < 6; b += 2) {
+    EXPECT_EQ(s.real(b, b), 2.0);
+    EXPECT_EQ(s.real(b + 1, b + 1), -1.0);
+    EXPECT_EQ(s.real(b + 1, b), off);
+    EXPECT_EQ(s.real(b, b + 1), off);  // the mean of the two: exactly symmetric
+  }
+  EXPECT_EQ(s.real.cwiseAbs().sum(), 3.0 * (3.0 + 2.0 * off));  // nothing off the blocks
+  EXPECT_EQ(sampler.draw(6, 9, 4).real, s.real);                 // deterministic
+  EXPECT_FALSE(is_random(Kind::file_matrix));
+  try {
+    (void)sampler.draw(5, 1, 0);
+    ADD_FAILURE() << "size 5 is not a multiple of 2";
+  } catch (const freegap::InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("multiples of 2"), std::string::npos) << e.what();
+  }
+}
+
+TEST(FileMatrix, ComplexHermitianPerSize) {
+  // A Hermitian 2 × 2 in Matrix Market's hermitian storage (the lower triangle, conjugated above).
+  write_text("freegap_file_matrix_h_2.mtx",
+             "%%MatrixMarket matrix coordinate complex hermitian\n2 2 3\n1 1 1 0\n2 1 0.5 -2\n"
+             "2 2 3 0\n");
+  MatrixSpec spec = file_spec(::testing::TempDir() + "freegap_file_matrix_h_{N}.mtx", true, 2);
+  EXPECT_FALSE(is_real(spec));
+  Sampler sampler(spec);
+  const Sample s = sampler.draw(2, 1, 0);
+  ASSERT_EQ(s.storage, Sample::Storage::complex_dense);
+  EXPECT_EQ(s.complex(1, 0), std::complex<double>(0.5, -2.0));
+  EXPECT_EQ(s.complex(0, 1), std::complex<double>(0.5, 2.0));
+  EXPECT_EQ(s.complex(1, 1), std::complex<double>(3.0, 0.0));
+  // The file says complex where the declaration says real: refused, naming both.
+  spec.file.complex = false;
+  try {
+    (void)Sampler(spec).draw(2, 1, 0);
+    ADD_FAILURE() << "no error";
+  } catch (const freegap::InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("holds complex entries"), std::string::npos) << e.what();
+  }
+}
+
 // Spectra known in closed form (Gray 2006, "Toeplitz and circulant matrices: a review", §3 and
 // §4.1): the tridiagonal Toeplitz matrix with ones beside the diagonal has eigenvalues
 // 2 cos(πj/(N + 1)), j = 1..N; a circulant matrix's eigenvalues are its symbol at the N-th roots
@@ -510,7 +578,7 @@ std::string message_of(F&& f) {
 TEST(BadInput, ExactMessages) {
   EXPECT_EQ(message_of([] { parse_kind("gaussian"); }),
             "unknown ensemble 'gaussian' (known: gue, goe, wigner_rademacher, wishart_complex, "
-            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
+            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(0, 1, 0); }),
             "matrix 'X': size N must be positive (got 0)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(-3, 1, 0); }),

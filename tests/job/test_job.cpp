@@ -504,7 +504,7 @@ TEST(JobErrors, MissingRequiredKeys) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nratio = 2\n"),
             "study.toml:5: matrices.X.ensemble: missing; add ensemble = \"...\" (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
   EXPECT_EQ(error_of("seed = 1\nsizes = [10]\ntrials = 2\nexpression = \"  \"\n"),
             "study.toml:4: expression: is empty; write the expression to study, e.g. expression "
             "= \"X + Y\"");
@@ -514,7 +514,7 @@ TEST(JobErrors, UnknownEnsemble) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nensemble = \"gaussian\"\n"),
             "study.toml:6: matrices.X.ensemble: unknown ensemble 'gaussian' (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
 }
 
 TEST(JobErrors, BadMatrixParameters) {
@@ -966,6 +966,115 @@ path = "eigs.txt"
   dir.write("eigs.txt", "1 2 3 4 4\n");
   EXPECT_NE(load_job(path).hash(), first);
   EXPECT_NE(load_job(path).hash(), edited);
+}
+
+// ---- matrices from files -----------------------------------------------------------------------
+
+// A 3 × 3 symmetric matrix in Matrix Market's coordinate form (lower triangle) and array form
+// (every entry, column by column): the same matrix.
+constexpr const char* kCoordinate = R"(%%MatrixMarket matrix coordinate real symmetric
+% a comment
+3 3 5
+1 1 2
+2 1 0.5
+2 2 1
+3 2 -1
+3 3 3
+)";
+constexpr const char* kArray = R"(%%MatrixMarket matrix array real general
+3 3
+2
+0.5
+0
+0.5
+1
+-1
+0
+-1
+3
+)";
+
+std::string file_job(const std::string& sizes, const std::string& matrix_lines) {
+  return "seed = 1\nsizes = " + sizes + "\ntrials = 1\nexpression = \"F\"\n[matrices.F]\n"
+         "ensemble = \"file\"\n" + matrix_lines;
+}
+
+TEST(ParseJob, MatrixFile) {
+  TempDir dir;
+  dir.write("m.mtx", kCoordinate);
+  const Job job = load_job(dir.write("study.toml", file_job("[3, 6]", "path = \"m.mtx\"\n")));
+  ASSERT_EQ(job.matrices.size(), 1u);
+  const auto& f = job.matrices[0].file;
+  EXPECT_EQ(f.path, (dir.path() / "m.mtx").string());
+  EXPECT_FALSE(f.complex);
+  EXPECT_EQ(f.file_size, 3);
+  EXPECT_EQ(f.reference_size, 6);
+  // The SHA-256 of the entries as little-endian doubles, column by column, computed with numpy
+  // and hashlib: hashlib.sha256(np.asfortranarray(A).tobytes(order='F')).hexdigest().
+  EXPECT_EQ(job.file_digests[0],
+            "3x3 real 84ee86394cb4d3a53dda85d44155ebbb078a393a93ed1c7ca84dd6371463e83e");
+  EXPECT_NE(job.canonical().find("matrix F: ensemble = file; one file; values = 3x3 real 84ee"),
+            std::string::npos)
+      << job.canonical();
+}
+
+TEST(JobHash, FollowsMatrixFileContentNotItsForm) {
+  TempDir dir;
+  dir.write("a.mtx", kCoordinate);
+  dir.write("b.mtx", kArray);
+  const std::string first = load_job(dir.write("a.toml", file_job("[3]", "path = \"a.mtx\"\n"))).hash();
+  EXPECT_EQ(load_job(dir.write("b.toml", file_job("[3]", "path = \"b.mtx\"\n"))).hash(), first);
+  std::string edited = kCoordinate;
+  edited.replace(edited.find("3 3 3\n"), 6, "3 3 4\n");
+  dir.write("a.mtx", edited);
+  EXPECT_NE(load_job(dir.path() / "a.toml").hash(), first);
+  // One file for every size and one file per size are different studies.
+  dir.write("c_3.mtx", kCoordinate);
+  EXPECT_NE(load_job(dir.write("c.toml", file_job("[3]", "path = \"c_{N}.mtx\"\n"))).hash(), first);
+}
+
+TEST(JobErrors, MatrixFiles) {
+  TempDir dir;
+  dir.write("m.mtx", kCoordinate);
+  auto error_in = [&](const std::string& sizes, const std::string& lines) {
+    const std::string path = dir.write("bad.toml", file_job(sizes, lines));
+    try {
+      (void)load_job(path);
+    } catch (const InputError& e) {
+      const std::string what = e.what();
+      EXPECT_EQ(what.rfind(path + ":", 0), 0u) << what;
+      return what.substr(path.size() + 1);
+    }
+    return std::string("no error");
+  };
+  const std::string m = (dir.path() / "m.mtx").string();
+  EXPECT_EQ(error_in("[3]", ""),
+            "5: matrices.F.path: missing; ensemble \"file\" needs path = \"...\" (an .h5, .npy or "
+            ".mtx file, relative to the job file's directory; {N} in it stands for the size)");
+  EXPECT_EQ(error_in("[4]", "path = \"m.mtx\"\n"),
+            "7: matrices.F.path: matrix file '" + m +
+                "': holds 3 × 3; the sizes must be multiples of 3 (got N = 4), or give one file "
+                "per size with {N} in the path");
+  dir.write("p_4.mtx", kCoordinate);
+  EXPECT_EQ(error_in("[4]", "path = \"p_{N}.mtx\"\n"),
+            "7: matrices.F.path: matrix file '" + (dir.path() / "p_4.mtx").string() +
+                "': holds 3 × 3, but it is the file for size N = 4; write the N × N matrix there");
+  std::string skew = kArray;
+  skew.replace(skew.find("-1\n0\n"), 5, "-1.5\n0\n");  // A(3,2) = −1.5, A(2,3) = −1
+  dir.write("skew.mtx", skew);
+  EXPECT_EQ(error_in("[3]", "path = \"skew.mtx\"\n"),
+            "7: matrices.F.path: matrix file '" + (dir.path() / "skew.mtx").string() +
+                "': is not self-adjoint: entries (3, 2) and (2, 3) differ by 0.5; freegap reads "
+                "real symmetric or complex Hermitian matrices (write (A + A^*)/2)");
+  EXPECT_EQ(error_in("[3]", "path = \"m.mtx\"\ndataset = \"A\"\n"),
+            "8: matrices.F.dataset: applies to HDF5 files only (.h5, .hdf5); remove it");
+  const std::string unknown = error_in("[3]", "path = \"m.txt\"\n");
+  EXPECT_EQ(unknown.rfind("7: matrices.F.path: matrix file '", 0), 0u) << unknown;
+  const std::string missing = error_in("[3]", "path = \"gone.npy\"\n");
+  EXPECT_EQ(missing.rfind("7: matrices.F.path: matrix file '" + (dir.path() / "gone.npy").string() +
+                              "': ", 0), 0u) << missing;
+  EXPECT_NE(missing.find("No such file"), std::string::npos) << missing;
+  EXPECT_EQ(error_in("[3]", "path = \"m.mtx\"\ncirculant = true\n").rfind("8: matrices.F.circulant", 0), 0u);
 }
 
 // ---- the examples -------------------------------------------------------------------------------

@@ -6,6 +6,7 @@
 
 #include <cmath>
 #include <cstdio>
+#include <fstream>
 #include <numbers>
 #include <string>
 #include <vector>
@@ -52,6 +53,45 @@ TEST(DeriveLimit, SandwichByASquareRootOfAMultipleOfTheIdentity) {
   EXPECT_EQ(s.lo, 0.0);
   EXPECT_EQ(s.hi, 2.0);
   expect_moments_agree(d, 1e-12);
+}
+
+// A matrix from a file: its eigenvalue law by LAPACK, each distinct eigenvalue with weight
+// count/n. The model X + F with F = Q diag(1, 3, 1) Qᵀ (Q a rotation by a quarter turn in the
+// first two coordinates, so F is diag(3, 1, 1) written in another order) has the limit of X + D
+// with D the diagonal of atoms 1 (weight 2/3) and 3 (1/3): the same law, entry for entry.
+TEST(DeriveLimit, MatrixFromAFileHasItsEigenvalueLaw) {
+  const std::string path = ::testing::TempDir() + "freegap_limit_file.mtx";
+  std::ofstream(path) << "%%MatrixMarket matrix coordinate real symmetric\n3 3 3\n1 1 3\n2 2 1\n"
+                         "3 3 1\n";
+  freegap::declarations::MatrixSpec f;
+  f.name = "F";
+  f.kind = freegap::declarations::Kind::file_matrix;
+  f.file.path = path;
+  f.file.reference_size = 3;
+  std::vector<std::size_t> counts;
+  const auto law = fa::file_matrix_eigenvalue_law(f, &counts);
+  ASSERT_EQ(law.size(), 2u);
+  EXPECT_EQ(law[0].value, 1.0);
+  EXPECT_EQ(law[1].value, 3.0);
+  EXPECT_EQ(counts, (std::vector<std::size_t>{2, 1}));
+  EXPECT_EQ(law[0].weight, 2.0 / 3.0);
+
+  std::vector<freegap::declarations::MatrixSpec> specs = {
+      freegap::model::parse_declaration("X=gue"), f};
+  const auto from_file = fa::derive_limit(freegap::expr::Expression("X + F", specs, {}), 6);
+  const auto from_atoms = derive({"X=gue", "F=diagonal:atoms=1@0.6666666666666666,3@0.3333333333333333"},
+                                 "X + F", 6);
+  ASSERT_TRUE(from_file.law) << from_file.reason;
+  ASSERT_TRUE(from_atoms.law) << from_atoms.reason;
+  EXPECT_NE(from_file.rule.find("eigenvalue law of its matrix file (2 distinct eigenvalues; one file"),
+            std::string::npos) << from_file.rule;
+  for (const double x : {-1.5, 0.0, 1.0, 2.5, 4.0}) {
+    EXPECT_NEAR(from_file.law->cdf(x), from_atoms.law->cdf(x), 1e-12) << x;
+  }
+  // Exact moments from the counts: m_1 = (2·1 + 3)/3 = 5/3 (the GUE adds 0), m_2 = 1 + (2 + 9)/3.
+  ASSERT_GE(from_file.exact_moments.size(), 3u) << from_file.moments_note;
+  EXPECT_NEAR(from_file.exact_moments[1], 5.0 / 3.0, 1e-15);
+  EXPECT_NEAR(from_file.exact_moments[2], 1.0 + 11.0 / 3.0, 1e-14);
 }
 
 }  // namespace

@@ -56,6 +56,16 @@ struct DerivedLimit {
   OutlierPrediction outliers;
 };
 
+/// The eigenvalue law of a matrix read from a file (ensemble "file"): the matrix of its
+/// reference size (the largest of the job; its only matrix for one file), made self-adjoint as
+/// the sampler makes it, its eigenvalues by LAPACK; each distinct eigenvalue once, ascending,
+/// with weight (its count)/n (eigenvalues within 8 n ε max|λ| of their neighbour count as one,
+/// at their mean). With one file this is the eigenvalue law at every size (k copies on
+/// the diagonal); with a file per size, the law at the largest. `counts` receives the counts.
+/// Computed once per file in a process. InputError when the file cannot be read.
+std::vector<declarations::Atom> file_matrix_eigenvalue_law(
+    const declarations::MatrixSpec& spec, std::vector<std::size_t>* counts = nullptr);
+
 /// The limit of `expression` (as checked for the run) with its exact moments up to max_moment.
 /// Never throws for a model it cannot predict: it says so in `reason`.
 DerivedLimit derive_limit(const expr::Expression& expression, int max_moment);
