@@ -57,7 +57,7 @@ std::string integrity_text(const store::Integrity& integrity) {
 std::string compiled_study_text(const store::RunHeader& h, const std::string& path) {
   std::string out;
   try {
-    const auto study = study::Study::of_stored_job(h.job_text, h.job_canonical, path);
+    const auto study = study::Study::of_stored_job(h.job_text, h.job_canonical, path, h.job_directory);
     if (study.runners().empty()) return out;
     const std::string here = model::path_name(study.runners().front().path());
     const auto recorded = h.metadata.find("path");

@@ -52,7 +52,8 @@ std::optional<std::pair<double, double>> limit_edges_of(const store::RunHeader& 
                                                         std::string& note) {
   try {
     const DerivedLimit d =
-        study::Study::of_stored_job(header.job_text, header.job_canonical, run_file).limit(0);
+        study::Study::of_stored_job(header.job_text, header.job_canonical, run_file,
+                                    header.job_directory).limit(0);
     if (!d.law) {
       note = d.reason;
       return std::nullopt;
@@ -154,7 +155,8 @@ TruthValue resolve_truth(const std::string& truth, const store::RunHeader& heade
     // for beside the run file, then in the current directory, and only with the numbers the run
     // used (study::Study::of_stored_job); a truth never reads another file of the same name.
     const study::Study stored =
-        study::Study::of_stored_job(header.job_text, header.job_canonical, options.run_file);
+        study::Study::of_stored_job(header.job_text, header.job_canonical, options.run_file,
+                                    header.job_directory);
     const expr::Expression& e = stored.expression();
     const auto parts = split(truth, ':');
     const auto& head = parts[0];

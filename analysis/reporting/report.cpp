@@ -432,7 +432,8 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   run.provenance = file.read_provenance();
   const int max_moment = run.header.sizes.empty() ? 0 : run.header.sizes.front().observe.max_moment;
   try {
-    run.limit = study::Study::of_stored_job(run.header.job_text, run.header.job_canonical, path)
+    run.limit = study::Study::of_stored_job(run.header.job_text, run.header.job_canonical, path,
+                                              run.header.job_directory)
                     .limit(max_moment);
   } catch (const Stopped&) {
     throw;  // a stop request ends the command, it is not a reason

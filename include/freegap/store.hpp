@@ -87,6 +87,11 @@ struct RunHeader {
   /// The estimate columns, estimator by estimator (an estimator's columns are consecutive).
   /// Empty: the job declares no estimators, and the file has no estimate datasets.
   std::vector<EstimateColumn> estimates;
+  /// Where the job file was when the run file was created (its directory, absolute): the
+  /// anchor of the job's relative paths (eigenvalue and matrix files), for readers that rebuild
+  /// the job elsewhere. A hint, not a result: kept under /provenance (excluded from comparisons
+  /// and from the header digest); "" when unknown (files written before it was recorded).
+  std::string job_directory;
 
   /// The estimators' names, in column order, each once.
   std::vector<std::string> estimators() const;

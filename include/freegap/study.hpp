@@ -31,12 +31,13 @@ class Study {
                              std::vector<std::int64_t> sizes = {});
 
   /// The study of the job a run file stores (its text and canonical text). A relative path the
-  /// job names (an eigenvalue file) is looked for beside `run_file` (when given), then in the
+  /// job names (an eigenvalue or matrix file) is looked for beside `run_file` (when given), then
+  /// in `job_directory` (the job file's directory the run file recorded, when given), then in the
   /// current directory, and a file is used only when its numbers are those the run used (the
   /// canonical text, which holds each file's SHA-256, equals the stored one). InputError when the
   /// stored job no longer parses or no such file is found.
   static Study of_stored_job(const std::string& job_text, const std::string& job_canonical,
-                             const std::string& run_file = "");
+                             const std::string& run_file = "", const std::string& job_directory = "");
 
   const job::Job& job() const { return job_; }
   /// The expression as the runner computes it (its spectrum choice included).

@@ -370,6 +370,11 @@ store::RunHeader make_header(const Prepared& p, int threads) {
   h.job_canonical = p.job.canonical();
   h.job_hash = p.job.hash();
   h.expression = p.job.expression;
+  {
+    std::error_code ec;
+    const auto dir = std::filesystem::absolute(std::filesystem::path(p.job.path).parent_path(), ec);
+    if (!ec) h.job_directory = dir.lexically_normal().string();
+  }
   const auto& e = p.study->runners().front().expression();
   h.self_adjoint = e.self_adjoint();
   h.spectrum = p.study->runners().front().spectrum_kind();

@@ -778,6 +778,9 @@ void write_header(hid_t file, const RunHeader& header, hid_t string, hid_t sessi
   Id provenance = h5::own(H5Gcreate2(file, "provenance", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT),
                           H5Gclose, where, "create group '/provenance'");
   h5::write_string_attribute(provenance.get(), "created", utc_now(), where);
+  if (!header.job_directory.empty()) {
+    h5::write_string_attribute(provenance.get(), "job_directory", header.job_directory, where);
+  }
   // One row per chunk: an append then writes a new chunk and never rewrites earlier rows.
   h5::create_dataset(provenance.get(), "sessions", session_file_type,
                      {{0}, {kUnlimited}, {1}, false}, nullptr, where);
@@ -822,6 +825,19 @@ std::vector<std::uint64_t> read_uint64_1d(hid_t group, const char* name, Where w
   return values;
 }
 
+// The job file's directory as recorded at creation, or "" (an older file, or an unreadable
+// attribute: it is a hint for finding the job's files, never a reason to refuse the file).
+std::string read_job_directory(hid_t file, Where where) {
+  try {
+    if (!h5::has_link(file, "provenance")) return {};
+    Id provenance = h5::open_group(file, "provenance", where);
+    if (!h5::has_attribute(provenance.get(), "job_directory")) return {};
+    return h5::read_string_attribute(provenance.get(), "job_directory", where);
+  } catch (const Error&) {
+    return {};
+  }
+}
+
 // Reads the header; an Error (a missing or malformed piece) means the file is damaged.
 RunHeader read_header(hid_t file, Where where) {
   RunHeader header;
@@ -852,6 +868,8 @@ RunHeader read_header(hid_t file, Where where) {
     key.resize(static_cast<std::size_t>(length));
     header.metadata[key] = h5::read_string_attribute(metadata.get(), key.c_str(), where);
   }
+
+  header.job_directory = read_job_directory(file, where);
 
   const std::int64_t count = h5::read_int64_attribute(file, "size_count", where);
   if (count < 1) throw Error("attribute 'size_count' is " + std::to_string(count));

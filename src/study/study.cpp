@@ -163,13 +163,16 @@ Study Study::of_expression(std::vector<declarations::MatrixSpec> matrices,
 }
 
 Study Study::of_stored_job(const std::string& job_text, const std::string& job_canonical,
-                           const std::string& run_file) {
-  // A relative path in the job (an eigenvalue file) was relative to the job file's directory,
-  // which the run file does not record: it is looked for beside the run file, then in the
-  // current directory.
+                           const std::string& run_file, const std::string& job_directory) {
+  // A relative path in the job (an eigenvalue or matrix file) was relative to the job file's
+  // directory: it is looked for beside the run file, then in that directory (as the run file
+  // recorded it), then in the current directory. The digests decide which file is the run's.
   std::vector<std::string> anchors;
   if (!run_file.empty()) {
     anchors.push_back((std::filesystem::path(run_file).parent_path() / "job.toml").string());
+  }
+  if (!job_directory.empty()) {
+    anchors.push_back((std::filesystem::path(job_directory) / "job.toml").string());
   }
   anchors.push_back("<job stored in the run file>");
   std::string last_error;

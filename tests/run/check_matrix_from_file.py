@@ -21,6 +21,10 @@ their limit against an independent computation.
    .npy, a matrix that is not self-adjoint, a per-size file of the wrong order, a size that one
    file's order does not divide, a .npy with a 1-d array.
 6. Editing a file changes the job hash: a run file of the old matrix is not resumed with the new.
+7. A report made elsewhere finds the job's files: the job in jobs/ names data/a.npy, the run file
+   is written to out/ and reported from the parent directory, where neither place holds data/;
+   the run file records the job's directory (/provenance job_directory), so the limit is found.
+
 Run: /usr/bin/python3 check_matrix_from_file.py <build_dir>.
 """
 import csv
@@ -239,6 +243,29 @@ def check_edited_file(c, exe, d):
             r.stderr)
 
 
+def check_report_elsewhere(c, exe, d):
+    os.makedirs(os.path.join(d, "jobs", "data"), exist_ok=True)
+    os.makedirs(os.path.join(d, "out"), exist_ok=True)
+    np.save(os.path.join(d, "jobs", "data", "a.npy"), toeplitz(40))
+    job = rh.write(os.path.join(d, "jobs", "away.toml"),
+                   job_text('[matrices.T]\nensemble = "file"\npath = "data/a.npy"', "[40]", 2))
+    out = os.path.join(d, "out", "away.h5")
+    r = rh.run(rh.command(exe, ["run", job, "-o", out, "--quiet"], 1), d)
+    if not c.check(r.returncode == 0, "a job in jobs/ run into out/", r.stderr):
+        return
+    with h5py.File(out, "r") as h5:
+        recorded = h5["provenance"].attrs.get("job_directory")
+    recorded = recorded.decode() if isinstance(recorded, bytes) else recorded
+    c.check(recorded == os.path.realpath(os.path.join(d, "jobs")) or
+            recorded == os.path.abspath(os.path.join(d, "jobs")),
+            "the run file records the job's directory (%s)" % recorded)
+    rep = rh.run([exe, "report", out, "-o", "away-report", "--no-figures"], d)
+    if c.check(rep.returncode == 0, "reported from the parent directory", rep.stderr):
+        with open(os.path.join(d, "away-report", "report.md")) as fh:
+            c.check("eigenvalue law of its matrix file" in fh.read(),
+                    "the report found data/a.npy through the recorded directory")
+
+
 def main():
     exe = rh.freegap_exe(sys.argv)
     c = rh.Checks("Matrices from files: same spectra as generators, limit, refusals")
@@ -248,6 +275,7 @@ def main():
         check_limit(c, exe, d)
         check_bad_files(c, exe, d)
         check_edited_file(c, exe, d)
+        check_report_elsewhere(c, exe, d)
     c.finish()
 
 
