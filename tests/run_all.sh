@@ -26,7 +26,7 @@ step() {  # step NAME COMMAND...: runs it, times it, remembers a failure and goe
     failed+=("$name")
   fi
 }
-step "fuzzing (job and expression parsers)" bash "$FREEGAP_ROOT/tests/fuzz/run_fuzz.sh" \
+step "fuzzing (job, expression and matrix-file parsers)" bash "$FREEGAP_ROOT/tests/fuzz/run_fuzz.sh" \
   "$FREEGAP_ROOT/build-fuzz"
 step "unit tests under AddressSanitizer and UndefinedBehaviorSanitizer" \
   bash "$FREEGAP_ROOT/tests/run_sanitized.sh" "$FREEGAP_ROOT/build-sanitize"

@@ -14,6 +14,7 @@
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
+#include <functional>
 #include <fstream>
 #include <initializer_list>
 #include <limits>
@@ -514,21 +515,31 @@ void check_matrix_keys(const Reader& r, const toml::table& t, const std::string&
   }
 }
 
+// Reads key `path` of a matrix's table, resolved against the job file's directory: `missing`
+// says what it needs when absent, `what` names the file when it is empty.
+std::filesystem::path read_path(const Reader& r, const toml::table& t, const std::string& prefix,
+                                const std::filesystem::path& base, const std::string& missing,
+                                const std::string& what) {
+  const std::string key = prefix + ".path";
+  const toml::node* v = t.get("path");
+  if (v == nullptr) r.fail_at(r.line(prefix), key, "missing; " + missing);
+  const std::string given = r.string(*v, key, "a file path in quotes");
+  if (given.empty()) r.fail(key, "is empty; give the " + what + "'s path");
+  const std::filesystem::path resolved = base / std::filesystem::path(given);
+  r.check_confined(key, given, resolved);
+  return resolved;
+}
+
 // Reads law "file"'s path and, with `read_files`, checks that the file can be read.
 void read_law_file(const Reader& r, const toml::table& t, const std::string& prefix,
                    const std::filesystem::path& base, bool read_files,
                    declarations::DiagonalLaw& law) {
   const std::string key = prefix + ".path";
-  const toml::node* v = t.get("path");
-  if (v == nullptr) {
-    r.fail_at(r.line(prefix), key,
-              "missing; law \"file\" needs path = \"...\" (a text file of numbers, relative "
-              "to the job file's directory)");
-  }
-  const std::string given = r.string(*v, key, "a file path in quotes");
-  if (given.empty()) r.fail(key, "is empty; give the eigenvalue file's path");
-  const std::filesystem::path resolved = base / std::filesystem::path(given);
-  r.check_confined(key, given, resolved);
+  const std::filesystem::path resolved =
+      read_path(r, t, prefix, base,
+                "law \"file\" needs path = \"...\" (a text file of numbers, relative to the job "
+                "file's directory)",
+                "eigenvalue file");
   law.path = resolved.string();
   if (!read_files) return;
   // Checked here, with the system's reason, before the sampler's more general message.
@@ -544,24 +555,44 @@ void read_law_file(const Reader& r, const toml::table& t, const std::string& pre
   }
 }
 
+// How a list of numbers is described in its messages: what needs it (when missing), an example,
+// and the end of the count message ("must hold 1 to K" + count_rule(got)).
+struct NumberListWords {
+  std::string needs;
+  std::string example;
+  std::function<std::string(std::size_t)> count_rule;
+};
+
+// Reads `name`, a list of 1 to `most` finite numbers, from matrix `prefix`'s table.
+std::vector<double> read_number_list(const Reader& r, const toml::table& t,
+                                     const std::string& prefix, const std::string& name,
+                                     std::size_t most, const NumberListWords& words) {
+  const std::string key = prefix + "." + name;
+  const toml::node* v = t.get(name);
+  if (v == nullptr) r.fail_at(r.line(prefix), key, "missing; " + words.needs + words.example);
+  const auto* list = v->as_array();
+  if (list == nullptr) {
+    r.fail(key, "must be a list of numbers, " + words.example + " (got " + describe(*v) + ")");
+  }
+  if (list->empty() || list->size() > most) {
+    r.fail(key, "must hold 1 to " + std::to_string(most) + words.count_rule(list->size()));
+  }
+  std::vector<double> out;
+  for (const auto& item : *list) out.push_back(r.finite_number(item, key));
+  return out;
+}
+
 // Reads law "spiked"'s values and base: r = 1 … kMostSpikes finite numbers, a count that does
 // not grow with N.
 void read_spikes(const Reader& r, const toml::table& t, const std::string& prefix,
                  declarations::DiagonalLaw& law) {
-  const std::string key = prefix + ".spikes";
-  const std::string example = "e.g. spikes = [3.0] for one spike of value 3";
-  const toml::node* v = t.get("spikes");
-  if (v == nullptr) {
-    r.fail_at(r.line(prefix), key, "missing; law \"spiked\" needs its values, " + example);
-  }
-  const auto* list = v->as_array();
-  if (list == nullptr) r.fail(key, "must be a list of numbers, " + example + " (got " + describe(*v) + ")");
-  if (list->empty() || list->size() > declarations::kMostSpikes) {
-    r.fail(key, "must hold 1 to " + std::to_string(declarations::kMostSpikes) +
-                    " values (a finite rank; got " + std::to_string(list->size()) +
-                    "); a share of N is a law: use law = \"atoms\"");
-  }
-  for (const auto& item : *list) law.spikes.push_back(r.finite_number(item, key));
+  law.spikes = read_number_list(
+      r, t, prefix, "spikes", declarations::kMostSpikes,
+      {"law \"spiked\" needs its values, ", "e.g. spikes = [3.0] for one spike of value 3",
+       [](std::size_t got) {
+         return " values (a finite rank; got " + std::to_string(got) +
+                "); a share of N is a law: use law = \"atoms\"";
+       }});
   if (const toml::node* b = t.get("base")) law.base = r.finite_number(*b, prefix + ".base");
 }
 
@@ -620,18 +651,11 @@ void read_diagonal_law(const Reader& r, const toml::table& t, const std::string&
 // Reads a Toeplitz matrix's coefficients c_0 … c_k and whether it wraps around (circulant).
 void read_toeplitz(const Reader& r, const toml::table& t, const std::string& prefix,
                    declarations::MatrixSpec& spec) {
-  const std::string key = prefix + ".coefficients";
-  const std::string example =
-      "e.g. coefficients = [0.0, 1.0] for the symbol 2 cos θ (ones beside the diagonal)";
-  const toml::node* v = t.get("coefficients");
-  if (v == nullptr) r.fail_at(r.line(prefix), key, "missing; a Toeplitz matrix needs c_0, c_1, …, " + example);
-  const auto* list = v->as_array();
-  if (list == nullptr) r.fail(key, "must be a list of numbers, " + example + " (got " + describe(*v) + ")");
-  if (list->empty() || list->size() > declarations::kMostToeplitzCoefficients) {
-    r.fail(key, "must hold 1 to " + std::to_string(declarations::kMostToeplitzCoefficients) +
-                    " numbers c_0 … c_k (got " + std::to_string(list->size()) + ")");
-  }
-  for (const auto& item : *list) spec.coefficients.push_back(r.finite_number(item, key));
+  spec.coefficients = read_number_list(
+      r, t, prefix, "coefficients", declarations::kMostToeplitzCoefficients,
+      {"a Toeplitz matrix needs c_0, c_1, …, ",
+       "e.g. coefficients = [0.0, 1.0] for the symbol 2 cos θ (ones beside the diagonal)",
+       [](std::size_t got) { return " numbers c_0 … c_k (got " + std::to_string(got) + ")"; }});
   if (const toml::node* c = t.get("circulant")) spec.circulant = r.boolean(*c, prefix + ".circulant");
 }
 
@@ -640,16 +664,12 @@ void read_toeplitz(const Reader& r, const toml::table& t, const std::string& pre
 void read_file_matrix(const Reader& r, const toml::table& t, const std::string& prefix,
                       const std::filesystem::path& base, declarations::MatrixSpec& spec) {
   const std::string key = prefix + ".path";
-  const toml::node* v = t.get("path");
-  if (v == nullptr) {
-    r.fail_at(r.line(prefix), key,
-              "missing; ensemble \"file\" needs path = \"...\" (an .h5, .npy or .mtx file, relative "
-              "to the job file's directory; {N} in it stands for the size)");
-  }
-  const std::string given = r.string(*v, key, "a file path in quotes");
-  if (given.empty()) r.fail(key, "is empty; give the matrix file's path");
-  const std::filesystem::path resolved = base / std::filesystem::path(given);
-  spec.file.path = resolved.string();
+  // Confined here as written ({N} and all); each size's file is confined again when read.
+  spec.file.path = read_path(r, t, prefix, base,
+                             "ensemble \"file\" needs path = \"...\" (an .h5, .npy or .mtx file, "
+                             "relative to the job file's directory; {N} in it stands for the size)",
+                             "matrix file")
+                       .string();
   try {
     (void)matrix_file::format_of(spec.file.path);
   } catch (const InputError& e) {

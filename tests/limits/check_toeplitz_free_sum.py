@@ -11,8 +11,8 @@ independently of freegap's free convolution.
    G_ν(w) = (1/2π) ∫ dθ / (w − f(θ)) by the trapezoid rule in θ (exponentially accurate for a
    periodic integrand off the real axis: Trefethen & Weideman 2014), and for f = 2 cos θ also by
    the closed form G_ν(w) = 1/√(w² − 4). Densities −Im G/π at interior points must agree with
-   freegap's `limit.csv` to 1e-7 (absolute): the iteration is run to 1e-13 here, freegap's law to
-   about 1e-9 (docs/check-values.md).
+   freegap's `limit.csv` to 1e-7 (absolute): the iteration is run to 1e-14 here
+   (tests/support/subordination.py), freegap's law to about 1e-9 (docs/check-values.md).
 3. Sampled: eigenvalues of X + T at N = 500, 20 trials (seed 11), pooled: Kolmogorov distance to
    the limit CDF below 1.63/√(10 000) = 0.0163 (the 1 % point of the one-sample test for
    independent values, Massey 1951; eigenvalues are more regular than independent values, so it
@@ -30,6 +30,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
+from subordination import semicircle_free_sum_density  # noqa: E402
 
 
 def symbol(coefficients, theta):
@@ -47,18 +48,6 @@ def cauchy_trapezoid(coefficients, w, points=40000):
 def cauchy_arcsine(w):
     s = np.sqrt(w - 2.0) * np.sqrt(w + 2.0)  # the branch ~ w at infinity
     return 1.0 / s
-
-
-def free_sum_density(g_nu, x, eps=1e-10):
-    z = complex(x, eps)
-    omega = z
-    for _ in range(20000):
-        nxt = z - g_nu(omega)
-        if abs(nxt - omega) < 1e-13:
-            omega = nxt
-            break
-        omega = 0.5 * omega + 0.5 * nxt  # damped: converges where the plain iteration is slow
-    return -g_nu(omega).imag / math.pi
 
 
 def read_csv(path):
@@ -97,7 +86,7 @@ def main():
             for x, density, _ in table:
                 if density < 0.02:  # near an edge both sides resolve the square root less well
                     continue
-                worst = max(worst, abs(free_sum_density(g_nu, x) - density))
+                worst = max(worst, abs(semicircle_free_sum_density(g_nu, x) - density))
                 compared += 1
             c.check(compared >= 40 and worst < 1e-7,
                     "X + T (%s): density at %d interior points equal to %.1e (%s)"

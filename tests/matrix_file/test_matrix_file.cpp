@@ -20,6 +20,7 @@
 
 #include "freegap/errors.hpp"
 #include "freegap/matrix_file.hpp"
+#include "refusal.hpp"
 
 namespace {
 
@@ -74,17 +75,7 @@ bool same_bits(double a, double b) {
   return std::bit_cast<std::uint64_t>(a) == std::bit_cast<std::uint64_t>(b);
 }
 
-// The message of the InputError `f` throws ("" and a failure when it throws none).
-template <class F>
-std::string refusal(F f) {
-  try {
-    f();
-  } catch (const InputError& e) {
-    return e.what();
-  }
-  ADD_FAILURE() << "no InputError was thrown";
-  return "";
-}
+using freegap::testing::refusal;
 
 std::string npy_refusal(const std::string& bytes) {
   return refusal([&] { mf::parse_npy(bytes, "a.npy"); });

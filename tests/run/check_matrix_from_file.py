@@ -39,6 +39,7 @@ import scipy.sparse
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
+from subordination import semicircle_free_sum_density  # noqa: E402
 
 COEFFICIENTS = [0.5, 1.0, 0.3]
 
@@ -143,19 +144,6 @@ def check_repeated_and_complex(c, exe, d):
         c.check(len(rows) == 2 and worst < 1e-12, "its spectra equal eigvalsh's (%.1e)" % worst)
 
 
-def free_sum_density(lam, x, eps=1e-10):
-    z = complex(x, eps)
-    g_nu = lambda w: np.mean(1.0 / (w - lam))  # noqa: E731
-    omega = z
-    for _ in range(50000):
-        nxt = z - g_nu(omega)
-        if abs(nxt - omega) < 1e-14:
-            omega = nxt
-            break
-        omega = 0.5 * omega + 0.5 * nxt
-    return -g_nu(omega).imag / math.pi
-
-
 def check_limit(c, exe, d):
     rng = np.random.default_rng(7)  # invented test data: a real symmetric matrix of order 200
     q, _ = np.linalg.qr(rng.standard_normal((200, 200)))
@@ -176,7 +164,8 @@ def check_limit(c, exe, d):
     for x, density, _ in table:
         if density < 0.02:
             continue
-        worst = max(worst, abs(free_sum_density(lam, x) - density))
+        g_nu = lambda w: np.mean(1.0 / (w - lam))  # noqa: E731
+        worst = max(worst, abs(semicircle_free_sum_density(g_nu, x) - density))
         compared += 1
     c.check(compared >= 40 and worst < 1e-7,
             "X + F: density at %d interior points equal to the subordination solve to %.1e"

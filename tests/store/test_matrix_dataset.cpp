@@ -17,6 +17,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/matrix_file.hpp"
 #include "freegap/store.hpp"
+#include "refusal.hpp"
 
 namespace {
 
@@ -71,16 +72,7 @@ std::vector<double> numbers(std::size_t count) {
   return out;
 }
 
-template <class F>
-std::string refusal(F f) {
-  try {
-    f();
-  } catch (const InputError& e) {
-    return e.what();
-  }
-  ADD_FAILURE() << "no InputError was thrown";
-  return "";
-}
+using freegap::testing::refusal;
 
 bool has(const std::string& text, const std::string& part) {
   return text.find(part) != std::string::npos;
