@@ -20,10 +20,12 @@
 #include <functional>
 #include <iostream>
 #include <limits>
+#include <numeric>
 #include <queue>
 #include <sstream>
 #include <thread>
 
+#include "freegap/declarations.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/estimate.hpp"
 #include "freegap/linalg.hpp"
@@ -670,6 +672,22 @@ std::size_t fastest_trial(const std::vector<std::vector<double>>& times) {
   return fastest;
 }
 
+// The sizes a model with matrices read from files can be sampled at: with a file per size only
+// the job's own sizes have files; with one file of order n only multiples of n (each timed size
+// rounded to the nearest, the least common multiple for several such files).
+std::vector<std::int64_t> sampleable_ladder(const job::Job& job, std::vector<std::int64_t> ladder) {
+  std::int64_t step = 1;
+  for (const auto& m : job.matrices) {
+    if (m.kind != declarations::Kind::file_matrix) continue;
+    if (declarations::file_matrix_per_size(m)) return job.sizes;
+    step = std::lcm(step, std::max<std::int64_t>(1, m.file.file_size));
+  }
+  for (auto& n : ladder) n = std::max(step, (n + step / 2) / step * step);
+  std::sort(ladder.begin(), ladder.end());
+  ladder.erase(std::unique(ladder.begin(), ladder.end()), ladder.end());
+  return ladder;
+}
+
 }  // namespace
 
 CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
@@ -688,7 +706,7 @@ CostFit measure_cost(const job::Job& job, int threads, double budget_seconds) {
   std::vector<CostTerm> terms =
       krylov ? std::vector<CostTerm>{{"trial", {3, 2, 0}, {}, {}}} : trial_parts(tri, tri_spectra);
   const double growth = tri ? (tri_spectra ? 2.0 : 1.0) : 3.0;
-  const std::vector<std::int64_t> ladder = size_ladder(tri, largest);
+  const std::vector<std::int64_t> ladder = sampleable_ladder(job, size_ladder(tri, largest));
 
   std::vector<std::int64_t> sizes;
   std::vector<double> trial_bytes;

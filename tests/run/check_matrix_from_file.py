@@ -1,7 +1,7 @@
 """Matrices read from files (ensemble = "file") against the same matrices declared otherwise, and
 their limit against an independent computation.
 
-1. Bit-identical spectra: the Toeplitz matrix T_N with coefficients (0.5, 1, 0.3) at N = 40 and
+1. Bit-identical spectra (and `plan`, which times trials, measures at the sizes that have files): the Toeplitz matrix T_N with coefficients (0.5, 1, 0.3) at N = 40 and
    80, declared by freegap's generator and written by numpy to .npy, by h5py to HDF5 and by
    scipy.io.mmwrite to Matrix Market (one file per size, {N} in the path). The model X + T with a
    GUE X (seed 5, 6 trials, every spectrum kept) gives the same kept spectra, bit for bit, in all
@@ -110,6 +110,11 @@ def check_bit_identical(c, exe, d):
         c.check(same, "kept spectra from the %s file equal the generator's bit for bit" % name)
     c.check(hashes["npy"] == hashes["h5"] == hashes["mtx"] and hashes["npy"] is not None,
             "the three files give one job hash (%s)" % hashes["npy"])
+    # plan times trials at sizes of its own choosing; with a file per size only the job's exist.
+    r = rh.run([exe, "plan", os.path.join(d, "same-npy.toml"), "--remeasure", "--calibration",
+                os.path.join(d, "calibration.toml")], d)
+    c.check(r.returncode == 0 and "measured now at N = 40, 80" in r.stdout,
+            "plan measures a per-size file model at the job's own sizes", r.stdout + r.stderr)
 
 
 def check_repeated_and_complex(c, exe, d):
