@@ -110,6 +110,7 @@ def main():
     c = rh.Checks("Python reader against freegap inspect")
     with rh.WorkDir("pyreader") as d:
         shutil.copytree(os.path.join(JOBS, "estimators"), os.path.join(d, "estimators"))
+        shutil.copytree(os.path.join(JOBS, "data"), os.path.join(d, "data"))  # matrix files
         jobs = sorted(glob.glob(os.path.join(JOBS, "*.toml")))
         c.check(len(jobs) >= 5, "the example jobs are found (%d)" % len(jobs))
         files = {}
