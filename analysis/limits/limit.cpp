@@ -104,6 +104,10 @@ LetterLaw law_of(const MatrixSpec& m) {
     return {toeplitz_symbol_law(m.coefficients),
             "the law of its symbol f(θ), θ uniform (Szegő 1920; Grenander & Szegő 1958)", {}};
   }
+  if (m.kind == Kind::jacobi) {
+    return {periodic_jacobi_law(m.jacobi_diagonal, m.jacobi_off_diagonal),
+            "the density of states of its periodic Jacobi operator (Toda 1981; Teschl 2000)", {}};
+  }
   if (m.kind == Kind::file_matrix) {
     std::vector<declarations::Atom> read;
     try {

@@ -243,6 +243,35 @@ static std::vector<std::pair<Rational, Rational>> rational_atoms(
   return atoms;
 }
 
+// The limit moments of a periodic Jacobi matrix: m_n = (1/p) Σ_i (Jⁿ)_ii for the infinite
+// periodic matrix, the weighted closed walks of length n from each site of the period, exactly.
+static FreeVariable jacobi_variable(const declarations::MatrixSpec& spec) {
+  std::vector<Rational> a, b;
+  for (const double v : spec.jacobi_diagonal) a.push_back(Rational::from_double(v));
+  for (const double v : spec.jacobi_off_diagonal) b.push_back(Rational::from_double(v));
+  return FreeVariable::from_moment_function([a, b](int n) {
+    const auto p = static_cast<std::ptrdiff_t>(a.size());
+    const auto at = [p](std::ptrdiff_t s) { return static_cast<std::size_t>(((s % p) + p) % p); };
+    Rational total(0);
+    for (std::ptrdiff_t i = 0; i < p; ++i) {
+      std::vector<Rational> v(static_cast<std::size_t>(2 * n + 1));  // sites i − n … i + n
+      v[static_cast<std::size_t>(n)] = Rational(1);
+      for (int step = 0; step < n; ++step) {
+        std::vector<Rational> w(v.size());
+        for (std::size_t j = 0; j < v.size(); ++j) {
+          const std::ptrdiff_t site = i + static_cast<std::ptrdiff_t>(j) - n;
+          w[j] += a[at(site)] * v[j];
+          if (j > 0) w[j] += b[at(site - 1)] * v[j - 1];
+          if (j + 1 < v.size()) w[j] += b[at(site)] * v[j + 1];
+        }
+        v = std::move(w);
+      }
+      total += v[static_cast<std::size_t>(n)];
+    }
+    return total / Rational(static_cast<std::int64_t>(p));
+  });
+}
+
 FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
   using declarations::DiagonalLawKind;
   using declarations::Kind;
@@ -258,6 +287,8 @@ FreeVariable free_variable_for(const declarations::MatrixSpec& spec) {
       return FreeVariable::marchenko_pastur(Rational::from_double(spec.ratio));
     case Kind::toeplitz:
       return toeplitz_variable(spec.coefficients);
+    case Kind::jacobi:
+      return jacobi_variable(spec);
     case Kind::file_matrix: {
       // The eigenvalue law of the matrix (limit.hpp); its weights count/n are exact rationals.
       std::vector<std::size_t> counts;

@@ -39,11 +39,13 @@ FreeLetter letter_for(const declarations::MatrixSpec& spec, const std::string& n
     case Kind::toeplitz:
       letter.law = toeplitz_symbol_law(spec.coefficients);
       return letter;
-    case Kind::file_matrix: {
+    case Kind::jacobi:
+      letter.law = periodic_jacobi_law(spec.jacobi_diagonal, spec.jacobi_off_diagonal);
+      return letter;
+    case Kind::file_matrix:
       for (const auto& a : file_matrix_eigenvalue_law(spec)) letter.atoms.push_back({a.value, a.weight});
       letter.law = atoms(letter.atoms);
       return letter;
-    }
     case Kind::diagonal:
       switch (spec.diagonal.kind) {
         case DiagonalLawKind::atoms: {

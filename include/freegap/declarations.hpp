@@ -32,6 +32,7 @@ enum class Kind {
   beta_laguerre,  ///< β-Laguerre eigenvalue law (any β > 0, ratio c); tridiagonal model only
   toeplitz,       ///< deterministic real symmetric Toeplitz or circulant matrix of a symbol
   file_matrix,    ///< deterministic self-adjoint matrix read from a file (MatrixSpec::file)
+  jacobi,         ///< deterministic real symmetric tridiagonal matrix with periodic coefficients
 };
 
 /// How Haar matrices are sampled. Both are exactly Haar; QR is 4–5× cheaper
@@ -110,7 +111,13 @@ struct MatrixSpec {
   std::vector<double> coefficients;
   bool circulant = false;
   FileMatrix file;  ///< file_matrix
+  /// jacobi: J_ii = a_{i mod p}, J_{i,i+1} = J_{i+1,i} = b_{i mod p} (p = the lists' length,
+  /// every b_k ≠ 0): a periodic Jacobi matrix; p = 1 is the Toeplitz matrix of a + 2b cos θ.
+  std::vector<double> jacobi_diagonal, jacobi_off_diagonal;
 };
+
+/// The longest period of a Jacobi matrix's coefficients.
+inline constexpr std::size_t kMostJacobiPeriod = 16;
 
 /// The most coefficients of a Toeplitz symbol (band half-width 16): the limit law is the image of
 /// the arcsine law under a polynomial of that degree.

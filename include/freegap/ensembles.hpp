@@ -90,7 +90,7 @@ class Sampler {
   Eigen::VectorXd diagonal_values(Index n) const;
 
  private:
-  void draw_file_matrix(Index n, Sample& out) const;
+  Sample draw_file_matrix(Index n) const;
 
   MatrixSpec spec_;
   std::vector<double> file_values_;  ///< sorted numbers of a `file` law

@@ -62,6 +62,8 @@
 //                                              (default 0): a finite-rank perturbation
 //   toeplitz                               ensemble, coefficients (c_0 … c_k, 1–17 numbers),
 //                                          circulant (default false)
+//   jacobi                                 ensemble, diagonal and off_diagonal (required, 1–16
+//                                          numbers each, as many of one as of the other)
 //   file                                   ensemble, path (required: .h5/.hdf5, .npy, .mtx/.mm;
 //                                          "{N}" in it: one file per size), dataset (HDF5 only;
 //                                          default the file's only dataset): a self-adjoint

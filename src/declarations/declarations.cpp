@@ -21,7 +21,7 @@ struct KindName {
   Kind kind;
   const char* name;
 };
-constexpr std::array<KindName, 14> kind_names{{
+constexpr std::array<KindName, 15> kind_names{{
     {Kind::gue, "gue"},
     {Kind::goe, "goe"},
     {Kind::wigner_rademacher, "wigner_rademacher"},
@@ -36,6 +36,7 @@ constexpr std::array<KindName, 14> kind_names{{
     {Kind::beta_laguerre, "beta_laguerre"},
     {Kind::toeplitz, "toeplitz"},
     {Kind::file_matrix, "file"},
+    {Kind::jacobi, "jacobi"},
 }};
 
 std::string num(double x) { return text::readable(x); }
@@ -126,18 +127,21 @@ bool is_self_adjoint(Kind k) {
   return k == Kind::gue || k == Kind::goe || k == Kind::wigner_rademacher ||
          k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::diagonal ||
          k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz ||
-         k == Kind::file_matrix;
+         k == Kind::file_matrix || k == Kind::jacobi;
 }
 bool is_unitary(Kind k) { return k == Kind::haar_unitary || k == Kind::haar_orthogonal; }
 bool is_real(Kind k) {
   return k == Kind::goe || k == Kind::wigner_rademacher || k == Kind::wishart_real ||
          k == Kind::ginibre_real || k == Kind::haar_orthogonal || k == Kind::diagonal ||
-         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz;
+         k == Kind::beta_hermite || k == Kind::beta_laguerre || k == Kind::toeplitz ||
+         k == Kind::jacobi;
 }
 bool is_real(const MatrixSpec& spec) {
   return spec.kind == Kind::file_matrix ? !spec.file.complex : is_real(spec.kind);
 }
-bool is_random(Kind k) { return k != Kind::diagonal && k != Kind::toeplitz && k != Kind::file_matrix; }
+bool is_random(Kind k) {
+  return k != Kind::diagonal && k != Kind::toeplitz && k != Kind::file_matrix && k != Kind::jacobi;
+}
 
 Index companion_size(Index n, double ratio) {
   return static_cast<Index>(std::llround(static_cast<double>(n) / ratio));
@@ -171,6 +175,26 @@ std::vector<Index> atom_counts(const std::vector<Atom>& atoms, Index n) {
   return counts;
 }
 
+// A Jacobi matrix's coefficients: 1 to kMostJacobiPeriod of each kind, finite, every b_k ≠ 0.
+static void validate_jacobi(const MatrixSpec& spec) {
+  const std::size_t p = spec.jacobi_diagonal.size();
+  if (p == 0 || p > kMostJacobiPeriod || spec.jacobi_off_diagonal.size() != p) {
+    fail(spec, "a Jacobi matrix needs its period's diagonal and off-diagonal coefficients, 1 to " +
+                   std::to_string(kMostJacobiPeriod) + " of each and as many of one as of the "
+                   "other (got " + std::to_string(p) + " and " +
+                   std::to_string(spec.jacobi_off_diagonal.size()) + ")");
+  }
+  for (std::size_t k = 0; k < p; ++k) {
+    if (!std::isfinite(spec.jacobi_diagonal[k]) || !std::isfinite(spec.jacobi_off_diagonal[k])) {
+      fail(spec, "Jacobi coefficients must be finite");
+    }
+    if (spec.jacobi_off_diagonal[k] == 0.0) {
+      fail(spec, "off-diagonal coefficient b_" + std::to_string(k) + " is 0, which splits the "
+                 "matrix into blocks; give every b_k a non-zero value");
+    }
+  }
+}
+
 void validate(const MatrixSpec& spec) {
   if (spec.name.empty()) throw InputError("a matrix has an empty name; give every matrix a name");
   if (uses_ratio(spec.kind) && !(std::isfinite(spec.ratio) && spec.ratio > 0)) {
@@ -189,6 +213,10 @@ void validate(const MatrixSpec& spec) {
     for (const double c : spec.coefficients) {
       if (!std::isfinite(c)) fail(spec, "Toeplitz coefficients must be finite");
     }
+    return;
+  }
+  if (spec.kind == Kind::jacobi) {
+    validate_jacobi(spec);
     return;
   }
   if (spec.kind == Kind::file_matrix && spec.file.path.empty()) {

@@ -197,6 +197,17 @@ void toeplitz_matrix(const MatrixSpec& spec, Index n, Eigen::MatrixXd& t) {
   }
 }
 
+// J_ii = a_{i mod p}, J_{i,i+1} = J_{i+1,i} = b_{i mod p} (declarations.hpp, MatrixSpec).
+void jacobi_matrix(const MatrixSpec& spec, Index n, Eigen::MatrixXd& j) {
+  linalg::resize_fresh(j, n, n);
+  j.setZero();
+  const auto p = static_cast<Index>(spec.jacobi_diagonal.size());
+  for (Index i = 0; i < n; ++i) {
+    j(i, i) = spec.jacobi_diagonal[static_cast<std::size_t>(i % p)];
+    if (i + 1 < n) j(i, i + 1) = j(i + 1, i) = spec.jacobi_off_diagonal[static_cast<std::size_t>(i % p)];
+  }
+}
+
 void require_size(const MatrixSpec& spec, Index n) {
   if (n <= 0) fail(spec, "size N must be positive (got " + std::to_string(n) + ")");
 }
@@ -255,7 +266,8 @@ void repeat_self_adjoint(const Dense& a, Index n, Dense& out) {
 
 }  // namespace
 
-void Sampler::draw_file_matrix(Index n, Sample& out) const {
+Sample Sampler::draw_file_matrix(Index n) const {
+  Sample out;
   std::shared_ptr<const matrix_file::Matrix> m;
   {
     const std::lock_guard<std::mutex> hold(file_cache_->lock);
@@ -272,6 +284,7 @@ void Sampler::draw_file_matrix(Index n, Sample& out) const {
     out.storage = Sample::Storage::real_dense;
     repeat_self_adjoint(m->real, n, out.real);
   }
+  return out;
 }
 
 Eigen::VectorXd Sampler::diagonal_values(Index n) const {
@@ -353,6 +366,7 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
     out.diagonal = diagonal_values(n);
     return out;
   }
+  if (spec_.kind == Kind::file_matrix) return draw_file_matrix(n);
   rng::Stream stream({seed, spec_.name, static_cast<std::uint64_t>(n), trial});
   const double inv_sqrt_n = 1.0 / std::sqrt(static_cast<double>(n));
   Index m = n;
@@ -409,14 +423,13 @@ Sample Sampler::draw(Index n, std::uint64_t seed, std::uint64_t trial) const {
     case Kind::haar_orthogonal:
       draw_haar_orthogonal(spec_.haar, n, stream, out);
       break;
-    case Kind::diagonal:
+    case Kind::diagonal:  // both returned above
+    case Kind::file_matrix:
       break;
     case Kind::toeplitz:
+    case Kind::jacobi:
       out.storage = Sample::Storage::real_dense;
-      toeplitz_matrix(spec_, n, out.real);
-      break;
-    case Kind::file_matrix:
-      draw_file_matrix(n, out);
+      (spec_.kind == Kind::toeplitz ? toeplitz_matrix : jacobi_matrix)(spec_, n, out.real);
       break;
     case Kind::beta_hermite:
     case Kind::beta_laguerre:

@@ -101,6 +101,12 @@ void append_matrix(std::string& out, const declarations::MatrixSpec& m, std::siz
       out += m.circulant ? "; circulant" : "; banded";
       break;
     }
+    case Kind::jacobi:
+      out += "; diagonal =";
+      for (const double v : m.jacobi_diagonal) out += " " + exact(v);
+      out += "; off_diagonal =";
+      for (const double v : m.jacobi_off_diagonal) out += " " + exact(v);
+      break;
     case Kind::file_matrix:
       // The entries' digest (per size with {N}); the path and dataset are where, not what.
       out += std::string(declarations::file_matrix_per_size(m) ? "; a file per size" : "; one file") +

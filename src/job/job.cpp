@@ -360,7 +360,8 @@ constexpr LawName kLaws[] = {
 
 const std::vector<std::string_view> kAllMatrixKeys = {
     "ensemble", "ratio", "method", "law",    "atoms",        "low",      "high",
-    "variance", "path",  "beta",   "spikes", "base", "coefficients", "circulant", "dataset"};
+    "variance", "path",  "beta",   "spikes", "base", "coefficients", "circulant", "dataset",
+    "diagonal", "off_diagonal"};
 
 bool has_ratio(Kind k) {
   return k == Kind::wishart_complex || k == Kind::wishart_real || k == Kind::ginibre_complex ||
@@ -374,6 +375,7 @@ std::vector<std::string_view> matrix_keys(Kind kind, DiagonalLawKind law) {
   if (declarations::is_unitary(kind)) return {"ensemble", "method"};
   if (kind == Kind::toeplitz) return {"ensemble", "coefficients", "circulant"};
   if (kind == Kind::file_matrix) return {"ensemble", "path", "dataset"};
+  if (kind == Kind::jacobi) return {"ensemble", "diagonal", "off_diagonal"};
   if (kind != Kind::diagonal) return {"ensemble"};
   switch (law) {
     case DiagonalLawKind::atoms:
@@ -659,6 +661,27 @@ void read_toeplitz(const Reader& r, const toml::table& t, const std::string& pre
   if (const toml::node* c = t.get("circulant")) spec.circulant = r.boolean(*c, prefix + ".circulant");
 }
 
+// Reads a periodic Jacobi matrix's coefficients: the period's diagonal a_k and off-diagonal b_k.
+void read_jacobi(const Reader& r, const toml::table& t, const std::string& prefix,
+                 declarations::MatrixSpec& spec) {
+  const auto count = [](std::size_t got) {
+    return " numbers, one per site of the period (got " + std::to_string(got) + ")";
+  };
+  spec.jacobi_diagonal = read_number_list(
+      r, t, prefix, "diagonal", declarations::kMostJacobiPeriod,
+      {"a Jacobi matrix needs its diagonal a_0, …, a_{p-1}, ", "e.g. diagonal = [0.0, 0.5]", count});
+  spec.jacobi_off_diagonal = read_number_list(
+      r, t, prefix, "off_diagonal", declarations::kMostJacobiPeriod,
+      {"a Jacobi matrix needs its off-diagonal b_0, …, b_{p-1}, ", "e.g. off_diagonal = [1.0, 0.6]",
+       count});
+  if (spec.jacobi_off_diagonal.size() != spec.jacobi_diagonal.size()) {
+    r.fail(prefix + ".off_diagonal",
+           "has " + std::to_string(spec.jacobi_off_diagonal.size()) + " numbers and diagonal " +
+               std::to_string(spec.jacobi_diagonal.size()) + "; give both one number per site of "
+               "the period (b_k joins site k to site k + 1)");
+  }
+}
+
 // Reads a matrix file's path (with {N} for one file per size) and HDF5 dataset. The files are
 // read, checked and digested once the sizes are known (check_file_matrix).
 void read_file_matrix(const Reader& r, const toml::table& t, const std::string& prefix,
@@ -727,6 +750,8 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
     read_toeplitz(r, t, prefix, spec);
   } else if (spec.kind == Kind::file_matrix) {
     read_file_matrix(r, t, prefix, base, spec);
+  } else if (spec.kind == Kind::jacobi) {
+    read_jacobi(r, t, prefix, spec);
   }
   return spec;
 }

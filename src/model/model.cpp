@@ -190,6 +190,9 @@ ensembles::MatrixSpec parse_declaration(const std::string& text) {
                set_diagonal_key(text, key, value, spec, law_given)) {
     } else if (spec.kind == ensembles::Kind::toeplitz && key == "coefficients") {
       for (const auto& v : split(value, ',')) spec.coefficients.push_back(parse_number(text, "coefficient", v));
+    } else if (spec.kind == ensembles::Kind::jacobi && (key == "diagonal" || key == "off_diagonal")) {
+      auto& list = key == "diagonal" ? spec.jacobi_diagonal : spec.jacobi_off_diagonal;
+      for (const auto& v : split(value, ',')) list.push_back(parse_number(text, key, v));
     } else if (spec.kind == ensembles::Kind::toeplitz && key == "circulant") {
       if (value != "true" && value != "false") bad_declaration(text, "circulant must be true or false");
       spec.circulant = value == "true";
@@ -292,7 +295,7 @@ namespace {
 double gaussian_seconds(const ensembles::MatrixSpec& m, double nn) {
   using ensembles::Kind;
   if (m.kind == Kind::diagonal) return 0.0;
-  if (m.kind == Kind::toeplitz) return 1e-9 * nn * nn;  // writing N² doubles (common practice)
+  if (m.kind == Kind::toeplitz || m.kind == Kind::jacobi) return 1e-9 * nn * nn;  // writing N² doubles (common practice)
   if (m.kind == Kind::file_matrix) return (m.file.complex ? 4e-9 : 2e-9) * nn * nn;  // (A + A^*)/2
   const bool real = m.kind == Kind::goe || m.kind == Kind::wishart_real ||
                     m.kind == Kind::ginibre_real || m.kind == Kind::haar_orthogonal;

@@ -578,7 +578,7 @@ std::string message_of(F&& f) {
 TEST(BadInput, ExactMessages) {
   EXPECT_EQ(message_of([] { parse_kind("gaussian"); }),
             "unknown ensemble 'gaussian' (known: gue, goe, wigner_rademacher, wishart_complex, "
-            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
+            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file, jacobi)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(0, 1, 0); }),
             "matrix 'X': size N must be positive (got 0)");
   EXPECT_EQ(message_of([] { Sampler(spec_of("X", Kind::gue)).draw(-3, 1, 0); }),

@@ -504,7 +504,7 @@ TEST(JobErrors, MissingRequiredKeys) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nratio = 2\n"),
             "study.toml:5: matrices.X.ensemble: missing; add ensemble = \"...\" (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file, jacobi)");
   EXPECT_EQ(error_of("seed = 1\nsizes = [10]\ntrials = 2\nexpression = \"  \"\n"),
             "study.toml:4: expression: is empty; write the expression to study, e.g. expression "
             "= \"X + Y\"");
@@ -514,7 +514,7 @@ TEST(JobErrors, UnknownEnsemble) {
   EXPECT_EQ(error_of(std::string(kGoodHead) + "[matrices.X]\nensemble = \"gaussian\"\n"),
             "study.toml:6: matrices.X.ensemble: unknown ensemble 'gaussian' (known: gue, goe, "
             "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
+            "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file, jacobi)");
 }
 
 TEST(JobErrors, BadMatrixParameters) {
@@ -1075,6 +1075,27 @@ TEST(JobErrors, MatrixFiles) {
                               "': ", 0), 0u) << missing;
   EXPECT_NE(missing.find("No such file"), std::string::npos) << missing;
   EXPECT_EQ(error_in("[3]", "path = \"m.mtx\"\ncirculant = true\n").rfind("8: matrices.F.circulant", 0), 0u);
+}
+
+TEST(ParseJob, PeriodicJacobi) {
+  const std::string head = "seed = 1\nsizes = [6]\ntrials = 1\nexpression = \"J\"\n[matrices.J]\n"
+                           "ensemble = \"jacobi\"\n";
+  const Job job = parse_job(head + "diagonal = [0, 1.5]\noff_diagonal = [1, 0.4]\n", "study.toml");
+  ASSERT_EQ(job.matrices.size(), 1u);
+  EXPECT_EQ(job.matrices[0].jacobi_diagonal, (std::vector<double>{0.0, 1.5}));
+  EXPECT_EQ(job.matrices[0].jacobi_off_diagonal, (std::vector<double>{1.0, 0.4}));
+  EXPECT_NE(job.canonical().find("matrix J: ensemble = jacobi; diagonal = 0 1.5; off_diagonal = 1 0.4"),
+            std::string::npos)
+      << job.canonical();
+  EXPECT_EQ(error_of(head + "diagonal = [0, 1.5]\noff_diagonal = [1]\n"),
+            "study.toml:8: matrices.J.off_diagonal: has 1 numbers and diagonal 2; give both one "
+            "number per site of the period (b_k joins site k to site k + 1)");
+  EXPECT_EQ(error_of(head + "diagonal = [0]\n"),
+            "study.toml:5: matrices.J.off_diagonal: missing; a Jacobi matrix needs its off-diagonal "
+            "b_0, …, b_{p-1}, e.g. off_diagonal = [1.0, 0.6]");
+  EXPECT_EQ(error_of(head + "diagonal = [0]\noff_diagonal = [0]\n"),
+            "study.toml:5: matrices.J: off-diagonal coefficient b_0 is 0, which splits the matrix "
+            "into blocks; give every b_k a non-zero value");
 }
 
 // ---- the examples -------------------------------------------------------------------------------

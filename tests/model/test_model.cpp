@@ -162,7 +162,7 @@ TEST(Declarations, BadDeclarationsHaveExactMessages) {
             "matrix declaration '1X=gue': a name is a letter followed by letters, digits or '_'");
   EXPECT_EQ(declaration_error("X=wigner"),
             "unknown ensemble 'wigner' (known: gue, goe, wigner_rademacher, wishart_complex, "
-            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)");
+            "wishart_real, ginibre_complex, ginibre_real, haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file, jacobi)");
   EXPECT_EQ(declaration_error("W=wishart_real:ratio=half"),
             "matrix declaration 'W=wishart_real:ratio=half': ratio must be a number (got 'half')");
   EXPECT_EQ(declaration_error("X=gue:ratio=2"),

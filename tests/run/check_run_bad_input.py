@@ -162,7 +162,7 @@ def cases(good_hash, other_hash, template):
              args=["run", "job.toml"] + run_out,
              expect=F + "job.toml:11: matrices.Y.ensemble: unknown ensemble 'gaussian_blob' (known: gue, goe, "
                         "wigner_rademacher, wishart_complex, wishart_real, ginibre_complex, ginibre_real, "
-                        "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file)\n"),
+                        "haar_unitary, haar_orthogonal, diagonal, beta_hermite, beta_laguerre, toeplitz, file, jacobi)\n"),
         dict(name="expression error, with its column", files={"job.toml": edit('"X + Y"', '"X + * Y"')},
              args=["run", "job.toml"] + run_out,
              expect=F + "job.toml:5: expression: expected a matrix name, a number or '(' after '+' at column 5\n"),

@@ -106,6 +106,11 @@ LawPtr polynomial_image(LawPtr law, std::vector<double> coefficients);
 /// With x = 2 cos θ, arcsine-distributed on [−2, 2], 2 cos(jθ) = S_j(x) (S_0 = 2, S_1 = x,
 /// S_{j+1} = x S_j − S_{j−1}): the image of the arcsine law under c_0 + Σ_{j≥1} c_j S_j(x).
 LawPtr toeplitz_symbol_law(const std::vector<double>& coefficients);
+
+/// The eigenvalue law of Jacobi matrices with period-p coefficients (diagonal a_0 … a_{p−1},
+/// off-diagonal b_0 … b_{p−1}, every b_k ≠ 0): the preimage of the arcsine law under the
+/// discriminant Δ, mass 1/p per band (laws_jacobi.cpp; Toda 1981, Teschl 2000).
+LawPtr periodic_jacobi_law(std::vector<double> a, std::vector<double> b);
 /// The power-basis coefficients of c_0 + Σ_{j≥1} c_j S_j(x) (above).
 std::vector<double> toeplitz_symbol_polynomial(const std::vector<double>& coefficients);
 
