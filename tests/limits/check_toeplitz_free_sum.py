@@ -30,6 +30,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
+from spectra import kolmogorov_bound, pooled_kolmogorov  # noqa: E402
 from subordination import semicircle_free_sum_density  # noqa: E402
 
 
@@ -128,14 +129,11 @@ max_moment = 4
                 xs = np.array([t[0] for t in table])
                 cdf = np.array([t[2] for t in table])
                 if c.check(values.size == 500 * 20, "%d kept eigenvalues" % values.size):
-                    # The limit CDF between table points: linear (81 points; the density is
-                    # bounded, so the error is far below the tolerance).
-                    f = np.interp(values, xs, cdf)
-                    n = values.size
-                    ks = max(np.max(np.arange(1, n + 1) / n - f), np.max(f - np.arange(n) / n))
-                    c.check(ks < 1.63 / math.sqrt(n) + 2.0 / 500,
+                    ks = pooled_kolmogorov(values, xs, cdf)
+                    bound = kolmogorov_bound(values.size, 500)
+                    c.check(ks < bound,
                             "Kolmogorov distance of the pooled spectra to the limit %.4f < %.4f"
-                            % (ks, 1.63 / math.sqrt(n) + 2.0 / 500))
+                            % (ks, bound))
     c.finish()
 
 

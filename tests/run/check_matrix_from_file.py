@@ -28,7 +28,6 @@ their limit against an independent computation.
 Run: /usr/bin/python3 check_matrix_from_file.py <build_dir>.
 """
 import csv
-import math
 import os
 import sys
 
@@ -39,6 +38,7 @@ import scipy.sparse
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
+from spectra import kolmogorov_bound, pooled_kolmogorov  # noqa: E402
 from subordination import semicircle_free_sum_density  # noqa: E402
 
 COEFFICIENTS = [0.5, 1.0, 0.3]
@@ -183,10 +183,8 @@ def check_limit(c, exe, d):
     xs = np.array([t[0] for t in table])
     cdf = np.array([t[2] for t in table])
     if c.check(values.size == 600 * 15, "%d kept eigenvalues" % values.size):
-        fx = np.interp(values, xs, cdf)
-        n = values.size
-        ks = max(np.max(np.arange(1, n + 1) / n - fx), np.max(fx - np.arange(n) / n))
-        bound = 1.63 / math.sqrt(n) + 2.0 / 600
+        ks = pooled_kolmogorov(values, xs, cdf)
+        bound = kolmogorov_bound(values.size, 600)
         c.check(ks < bound, "Kolmogorov distance of the pooled spectra %.4f < %.4f" % (ks, bound))
     rep = rh.run([exe, "report", out, "-o", "sum-report", "--no-figures"], d)
     if c.check(rep.returncode == 0, "and is reported", rep.stderr):
