@@ -503,8 +503,10 @@ static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vec
                         const std::map<PowerOf, std::map<int, double>>& polynomial_terms,
                         SplitTerms& split, DerivedLimit& out) {
   for (const auto& m : terms) {
+    // Only a Haar matrix alone (a·U + conj(a)·U^*) may carry a complex coefficient here
+    // (derive_by_rules checked), so the others are read as real numbers.
     if (m.letters.empty()) {
-      split.shift += m.coefficient;
+      split.shift += m.coefficient.real();
       continue;
     }
     // A point mass D = b·I, alone or conjugated (U D U^* = b·I): a constant.
@@ -514,7 +516,7 @@ static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vec
     if ((m.letters.size() == 1 || conjugated) && inner.kind == Kind::diagonal &&
         inner.diagonal.kind == declarations::DiagonalLawKind::atoms &&
         inner.diagonal.atoms.size() == 1) {
-      split.shift += m.coefficient * inner.diagonal.atoms[0].value;
+      split.shift += m.coefficient.real() * inner.diagonal.atoms[0].value;
       continue;
     }
     if (const auto p = power_of(m.letters, d); p && polynomial_terms.count(p->first)) continue;
@@ -523,7 +525,7 @@ static bool split_terms(const std::vector<expr::Monomial>& terms, const std::vec
       continue;
     }
     std::string why;
-    auto t = term_of(m.coefficient, m.letters, d, why);
+    auto t = term_of(m.coefficient.real(), m.letters, d, why);
     if (!t) {
       out.reason = "no predictor applies yet: " + why;
       return false;
@@ -582,16 +584,23 @@ static bool add_unitary_pairs(const std::vector<MatrixSpec>& d, SplitTerms& spli
                               DerivedLimit& out) {
   for (const auto& [letter, ms] : split.single_unitary) {
     const MatrixSpec& u = d[static_cast<std::size_t>(letter)];
-    if (ms.size() != 2 || ms[0]->coefficient != ms[1]->coefficient ||
-        ms[0]->letters[0].second == ms[1]->letters[0].second) {
+    // a·U + conj(a)·U^* = |a|·(V + V^*) with V = (a/|a|)·U, again Haar distributed (for a Haar
+    // orthogonal U in the limit: its eigenvalues are asymptotically uniform on the circle).
+    if (ms.size() != 2 || ms[0]->coefficient != std::conj(ms[1]->coefficient) ||
+        ms[0]->letters[0].second == ms[1]->letters[0].second || ms[0]->coefficient == 0.0) {
       out.reason = "no predictor applies yet: " + u.name + " appears alone, not as " + u.name +
                    " + " + u.name + "^*";
       return false;
     }
     FreeTerm t;
     t.law = arcsine();
-    t.coefficient = ms[0]->coefficient;
-    t.text = u.name + " + " + u.name + "^* → arcsine law (Kesten 1959)";
+    const std::complex<double> a = ms[0]->coefficient;
+    t.coefficient = std::abs(a);
+    t.text = a.imag() == 0.0
+                 ? u.name + " + " + u.name + "^* → arcsine law (Kesten 1959)"
+                 : "a·" + u.name + " + conj(a)·" + u.name + "^* with a complex = |a| times (a/|a|)·" +
+                       u.name + " plus its adjoint, and (a/|a|)·" + u.name +
+                       " is again Haar → arcsine law (Kesten 1959)";
     t.random_letters.insert(letter);
     t.unitary_pair = true;
     (u.kind == Kind::haar_orthogonal ? t.haar_orthogonal : t.haar_unitary) = true;
@@ -729,10 +738,25 @@ static DerivedLimit derive_by_rules(const expr::Expression& expression) {
     return out;
   }
 
+  // The imaginary unit: the rules take it only in a·U + conj(a)·U^* of a Haar U alone; any other
+  // complex coefficient goes to the polynomial solver, which takes complex coefficients.
+  for (const auto& m : terms) {
+    const bool unitary_alone =
+        m.letters.size() == 1 &&
+        declarations::is_unitary(d[static_cast<std::size_t>(m.letters[0].first)].kind);
+    if (m.coefficient.imag() != 0.0 && !unitary_alone) {
+      out.reason = "no predictor applies yet: a complex coefficient (the imaginary unit) outside "
+                   "a·U + conj(a)·U^*";
+      return out;
+    }
+  }
+
   // Powers of one matrix, gathered per base: a base with a power ≥ 2 becomes one term p(X).
   std::map<PowerOf, std::map<int, double>> polynomial_terms;
   for (const auto& m : terms) {
-    if (const auto p = power_of(m.letters, d)) polynomial_terms[p->first][p->second] += m.coefficient;
+    if (const auto p = power_of(m.letters, d)) {
+      polynomial_terms[p->first][p->second] += m.coefficient.real();
+    }
   }
   std::erase_if(polynomial_terms, [](const auto& entry) { return entry.second.rbegin()->first < 2; });
 

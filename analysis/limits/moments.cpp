@@ -385,12 +385,16 @@ Word FreeMomentEngine::normalise(const Word& word) const {
 Rational FreeMomentEngine::trace(const Word& word) { return trace_normalised(normalise(word)); }
 
 Rational FreeMomentEngine::trace(const Polynomial& polynomial) {
-  Rational total(0);
+  ComplexRational total(0);
   for (const Term& t : polynomial) {
     if (t.coefficient.is_zero()) continue;
-    total += t.coefficient * trace(t.word);
+    total += t.coefficient * ComplexRational(trace(t.word));
   }
-  return total;
+  if (!total.im.is_zero()) {
+    throw InputError("the trace of the polynomial is not real (imaginary part " +
+                     total.im.to_string() + "): its moments need a self-adjoint polynomial");
+  }
+  return total.re;
 }
 
 // τ(w) by the first-block decomposition of the moment–cumulant formula (header comment): with
@@ -500,7 +504,7 @@ Polynomial FreeMomentEngine::adjoint(const Polynomial& p) const {
   for (const Term& t : p) {
     Word w(t.word.rbegin(), t.word.rend());
     for (Letter& l : w) l.adjoint = !l.adjoint;
-    out.push_back({t.coefficient, normalise(w)});
+    out.push_back({t.coefficient.conj(), normalise(w)});
   }
   return out;
 }
@@ -622,7 +626,8 @@ Polynomial polynomial_of(const expr::Expression& expression) {
   Polynomial p;
   for (const auto& m : expression.expansion()) {
     Term t;
-    t.coefficient = Rational::from_double(m.coefficient);
+    t.coefficient = ComplexRational(Rational::from_double(m.coefficient.real()),
+                                    Rational::from_double(m.coefficient.imag()));
     for (const auto& [index, adjoint] : m.letters) t.word.push_back(Letter{index, adjoint});
     p.push_back(std::move(t));
   }

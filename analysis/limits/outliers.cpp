@@ -69,7 +69,7 @@ bool additive_form(const std::vector<expr::Monomial>& terms, const std::vector<M
     const bool rotated = has && t.letters.size() == 3 && t.letters[1].first == spike &&
                          haar_conjugation(t.letters, d, -1);
     if (has && (t.letters.size() == 1 || rotated)) {
-      c += t.coefficient;
+      c += t.coefficient.real();  // real: outlier_prediction checked
       if (rotated) spike_rotations.insert(t.letters.front().first);
     } else if (has) {
       return false;  // S inside a product: not this form
@@ -126,7 +126,7 @@ bool multiplicative_form(const std::vector<expr::Monomial>& terms,
   if (w[0].first != spike || w[2].first != spike || w[1].first == spike) return false;
   const MatrixSpec& s = d[static_cast<std::size_t>(spike)];
   const MatrixSpec& x = d[static_cast<std::size_t>(w[1].first)];
-  if (!wishart(x.kind) || !(terms[0].coefficient > 0.0) || s.diagonal.base == 0.0) {
+  if (!wishart(x.kind) || !(terms[0].coefficient.real() > 0.0) || s.diagonal.base == 0.0) {
     why = "S X S is predicted for a Wishart X, a positive coefficient and a spiked S with a "
           "non-zero base (a population covariance S² = I + finite rank, up to scale)";
     return true;
@@ -251,6 +251,11 @@ OutlierPrediction predict_outliers(const expr::Expression& expression, const Law
     return out;
   }
   const std::vector<expr::Monomial> terms = expression.expansion();
+  if (!expr::real_coefficients(terms)) {
+    out.reason = "outliers are predicted for real coefficients only (the expression has the "
+                 "imaginary unit)";
+    return out;
+  }
   Form form;
   std::string why;
   const bool known = additive_form(terms, d, spiked[0], form, why) ||

@@ -225,7 +225,7 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
   LetterIndices indices;
   FreePolynomial result;
   result.text = expression.text();
-  std::map<std::string, double> merged;  // word key → coefficient
+  std::map<std::string, std::complex<double>> merged;  // word key → coefficient
   std::map<std::string, std::vector<int>> words;
   for (const auto& m : monomials) {
     const std::vector<int> word =
@@ -235,7 +235,7 @@ FreePolynomial free_polynomial_of(const expr::Expression& expression) {
     words[key] = word;
   }
   for (const auto& [key, c] : merged) {
-    if (c != 0.0) result.terms.push_back({std::complex<double>(c), words[key]});
+    if (c != 0.0) result.terms.push_back({c, words[key]});
   }
   return result;
 }

@@ -14,6 +14,13 @@
 //    (1/2)·(A B). Division is by numbers only ("X1/2" is X1·½; "A/B" is refused). A number may
 //    start a product but not follow a factor without '*' ("2 A" and "A*2" are fine, "A 2" is not);
 //  - a number on its own in a sum is that multiple of the identity: "A^2 - 1" is A² − I;
+//  - the imaginary unit i is a number like 2: "i (U - U^*)", "2i X", "X i", "(1 + 2 i) A B";
+//    no matrix may be called i (Expression refuses the declaration), and division is by real
+//    numbers only ("X/i" is refused: write "-i X"). Powers of i are exact (i² = −1 bit for bit).
+//    Coefficients are then complex through the expansion (Monomial::coefficient), the
+//    self-adjointness check (the adjoint conjugates them) and the plan (sums with complex
+//    coefficients, complex arithmetic even for real factors; a complex factor folds only into a
+//    complex sum, never into a real BLAS alpha);
 //  - postfix '^k' (k a non-negative integer, at most 1000) and '^*' (adjoint) apply to the name,
 //    number or parenthesised group just before them and chain left to right: "U^2^*" is (U²)^*,
 //    "U^*^2" is (U^*)²; '^' binds tighter than products and unary minus ("-X^2" is −(X²));
@@ -137,7 +144,7 @@ struct CheckOptions {
 /// matrices: `letters` holds (index into declared(), adjointed) pairs in product order; an empty
 /// word is the identity. A self-adjoint matrix's letter is never marked adjointed.
 struct Monomial {
-  double coefficient = 0.0;
+  std::complex<double> coefficient = 0.0;  ///< real unless the text has the imaginary unit i
   std::vector<std::pair<int, bool>> letters;
 };
 
@@ -159,7 +166,7 @@ class Expression {
   bool self_adjoint() const;
   /// The spectrum that will be computed.
   Spectrum spectrum() const;
-  /// Every factor is real (real arithmetic throughout).
+  /// Every factor is real and no number is complex (real arithmetic throughout).
   bool is_real() const;
   /// Why self-adjointness could not be decided (expansion cap), or empty.
   const std::string& note() const;
@@ -228,6 +235,9 @@ struct StepInfo {
   std::string routine;      ///< "zgemm", "zherk", "column scaling", ...
   double flops = 0.0;
 };
+
+/// Whether every coefficient of an expansion is real (no imaginary unit left after expanding).
+bool real_coefficients(const std::vector<Monomial>& terms);
 
 /// An evaluation plan for one size N.
 class Evaluation {

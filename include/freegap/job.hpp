@@ -10,7 +10,7 @@
 //   expression = "B + U B U^*"              # required; checked by the runner, not here
 //
 //   [matrices.B]                            # at least one; a name is a letter, then letters,
-//   ensemble = "diagonal"                   # digits or '_'
+//   ensemble = "diagonal"                   # digits or '_' (not "i": the imaginary unit)
 //   atoms = [[1.0, 0.5], [-1.0, 0.5]]       # [value, weight] pairs, weights sum to 1
 //   [matrices.U]
 //   ensemble = "haar_unitary"

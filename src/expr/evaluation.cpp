@@ -37,19 +37,50 @@ struct Node {
   NodeKind kind = NodeKind::leaf;
   int leaf = -1;
   std::vector<Ref> args;      // product: a, b; gram: Y; conjugate: Y, D; sum: terms
-  std::vector<double> coefs;  // sum: one per term
-  double identity = 0.0;      // sum: coefficient of I
+  std::vector<Complex> coefs;  // sum: one per term (real unless the text has i)
+  Complex identity = 0.0;      // sum: coefficient of I
   int rows = 0, cols = 0;     // symbolic dimensions
   bool real = false, diag = false, self_adjoint = false, unitary = false;
 };
 
 /// Linear combination c₀·I + Σ c_i·ref_i: the value of a syntax-tree node during lowering.
 struct Lin {
-  double identity = 0.0;
-  std::vector<std::pair<double, Ref>> terms;
+  Complex identity = 0.0;
+  std::vector<std::pair<Complex, Ref>> terms;
 };
 
 std::string bits(double x) { return std::to_string(std::bit_cast<std::uint64_t>(x)); }
+std::string bits(Complex x) { return bits(x.real()) + '/' + bits(x.imag()); }
+
+bool is_real_number(Complex c) { return c.imag() == 0.0; }
+
+// The conjugate with a real number's imaginary part kept +0 (std::conj gives −0, whose bits
+// would make 1 and conj(1) different keys).
+Complex conjugate_number(Complex c) { return {c.real(), c.imag() == 0.0 ? 0.0 : -c.imag()}; }
+
+// c^k for a scalar: std::pow for a real c (as before the imaginary unit existed, so results
+// stay bit-identical), repeated squaring for a complex one, which is exact for i^k.
+Complex scalar_power(Complex c, int k) {
+  if (is_real_number(c)) return std::pow(c.real(), k);
+  Complex out = 1.0;
+  for (Complex base = c; k > 0; k >>= 1) {
+    if (k & 1) out *= base;
+    base *= base;
+  }
+  return out;
+}
+
+// "0.5", "-i", "2i", "(1+2i)": a coefficient as explain() prints it.
+std::string coefficient_text(Complex c) {
+  if (is_real_number(c)) return text::compact(c.real());
+  if (c.real() == 0.0) {
+    if (c.imag() == 1.0) return "i";
+    if (c.imag() == -1.0) return "-i";
+    return text::compact(c.imag()) + "i";
+  }
+  return "(" + text::compact(c.real()) + (c.imag() < 0 ? "-" : "+") +
+         text::compact(std::abs(c.imag())) + "i)";
+}
 
 class Graph {
  public:
@@ -138,38 +169,46 @@ class Graph {
     return {intern(std::move(n)), false};
   }
 
-  Ref sum(const std::vector<std::pair<double, Ref>>& terms, double identity, int rows_dim,
+  Ref sum(const std::vector<std::pair<Complex, Ref>>& terms, Complex identity, int rows_dim,
           int cols_dim) {
-    std::map<int, double> merged;  // by key
+    std::map<int, Complex> merged;  // by key
     for (const auto& [c, r] : terms) merged[r.key()] += c;
-    std::vector<std::pair<double, Ref>> list;
+    std::vector<std::pair<Complex, Ref>> list;
     for (const auto& [key, c] : merged) {
       if (c != 0.0) list.push_back({c, Ref{key / 2, (key & 1) != 0}});
     }
     if (list.size() == 1 && list[0].first == 1.0 && identity == 0.0) return list[0].second;
-    auto keys = [](const std::vector<std::pair<double, Ref>>& l) {
-      std::vector<std::pair<int, std::uint64_t>> k;
-      for (const auto& [c, r] : l) k.push_back({r.key(), std::bit_cast<std::uint64_t>(c)});
+    using Bits = std::pair<std::uint64_t, std::uint64_t>;
+    auto keys = [](const std::vector<std::pair<Complex, Ref>>& l) {
+      std::vector<std::pair<int, Bits>> k;
+      for (const auto& [c, r] : l) {
+        k.push_back({r.key(), {std::bit_cast<std::uint64_t>(c.real()),
+                               std::bit_cast<std::uint64_t>(c.imag())}});
+      }
       std::sort(k.begin(), k.end());
       return k;
     };
-    std::vector<std::pair<double, Ref>> adjointed;
-    for (const auto& [c, r] : list) adjointed.push_back({c, adjoint(r)});
+    // The adjoint of Σ c_i t_i + c_0 I is Σ conj(c_i) t_i^* + conj(c_0) I.
+    std::vector<std::pair<Complex, Ref>> adjointed;
+    for (const auto& [c, r] : list) adjointed.push_back({conjugate_number(c), adjoint(r)});
     const auto k1 = keys(list), k2 = keys(adjointed);
-    const bool flip = k2 < k1;
+    const bool real_identity = is_real_number(identity);
+    const bool flip = real_identity && k2 < k1;
     Node n;
     n.kind = NodeKind::sum;
     n.identity = identity;
     n.rows = flip ? cols_dim : rows_dim;
     n.cols = flip ? rows_dim : cols_dim;
-    n.self_adjoint = k1 == k2;
-    n.real = n.diag = true;
+    n.self_adjoint = real_identity && k1 == k2;
+    n.real = n.diag = real_identity;
     for (const auto& [key, c] : flip ? k2 : k1) {
       const Ref r{key / 2, (key & 1) != 0};
+      const Complex coef(std::bit_cast<double>(c.first), std::bit_cast<double>(c.second));
       n.args.push_back(r);
-      n.coefs.push_back(std::bit_cast<double>(c));
-      n.real = n.real && nodes[r.node].real;
-      n.diag = n.diag && nodes[r.node].diag;
+      n.coefs.push_back(coef);  // flipped: already conj(c) of the adjointed list
+      // A complex multiple of a real matrix is complex; diagonals are stored as real vectors.
+      n.real = n.real && nodes[r.node].real && is_real_number(coef);
+      n.diag = n.diag && nodes[r.node].diag && is_real_number(coef);
     }
     if (list.empty() && rows_dim != cols_dim) n.diag = false;  // a rectangular zero
     if (n.diag) n.self_adjoint = true;
@@ -256,12 +295,12 @@ class Lowering {
       case AstNode::Kind::sum:
         for (std::size_t i = 0; i < node.children.size(); ++i) {
           const Lin child = lower(node.children[i]);
-          out.identity += node.signs[i] * child.identity;
-          for (const auto& [c, r] : child.terms) out.terms.push_back({node.signs[i] * c, r});
+          out.identity += static_cast<double>(node.signs[i]) * child.identity;
+          for (const auto& [c, r] : child.terms) out.terms.push_back({static_cast<double>(node.signs[i]) * c, r});
         }
         break;
       case AstNode::Kind::product: {
-        double coef = 1.0;
+        Complex coef = 1.0;
         std::vector<Ref> factors;
         for (const int child_index : node.children) {
           const Lin child = lower(child_index);
@@ -289,9 +328,9 @@ class Lowering {
         if (node.exponent == 0) {
           out.identity = 1.0;
         } else if (shape.scalar) {
-          out.identity = std::pow(child.identity, node.exponent);
+          out.identity = scalar_power(child.identity, node.exponent);
         } else if (child.terms.size() == 1 && child.identity == 0.0) {
-          out.terms.push_back({std::pow(child.terms[0].first, node.exponent),
+          out.terms.push_back({scalar_power(child.terms[0].first, node.exponent),
                                graph_.power(child.terms[0].second, node.exponent)});
         } else {
           out.terms.push_back(
@@ -301,8 +340,13 @@ class Lowering {
         break;
       }
       case AstNode::Kind::adjoint: {
+        // (c₀·I + Σ c·t)^* = conj(c₀)·I + Σ conj(c)·t^*.
         out = lower(node.children[0]);
-        for (auto& term : out.terms) term.second = graph_.adjoint(term.second);
+        out.identity = conjugate_number(out.identity);
+        for (auto& term : out.terms) {
+          term.first = conjugate_number(term.first);
+          term.second = graph_.adjoint(term.second);
+        }
         break;
       }
     }
@@ -323,8 +367,8 @@ struct Step {
   bool unitary = false;   // conjugate: Y unitary, shift by the most frequent value of D
   int acc_step = -1;      // sum in place: the step that produced the accumulator
   std::vector<Ref> in;
-  std::vector<double> coefs;
-  double identity = 0.0;
+  std::vector<Complex> coefs;  // real unless the node is complex
+  Complex identity = 0.0;
   double alpha = 1.0;
   std::size_t scratch = 0;  // transient bytes inside the step
   std::vector<int> reads;   // buffers read
@@ -591,16 +635,29 @@ class EvaluationBuilder {
   }
 
   // Multiplies the result of step s by alpha (a scalar folded into BLAS alpha).
-  void fold(int s, double alpha) {
+  void fold(int s, Complex alpha) {
     Step& step = p_.steps[s];
     if (step.kind != StepKind::sum) {
-      step.alpha *= alpha;
+      step.alpha *= alpha.real();  // real: can_fold
       return;
     }
     // A sum scales its terms; in place, the accumulator's producer scales too.
-    for (double& c : step.coefs) c *= alpha;
+    for (Complex& c : step.coefs) c *= alpha;
     step.identity *= alpha;
+    if (!detail::is_real_number(alpha)) {
+      step.info.description =
+          detail::coefficient_text(alpha) + "·(" + step.info.description + ")";
+    }
     if (step.in_place) fold(step.acc_step, alpha);
+  }
+
+  // Whether step s can take the factor alpha: any real one (BLAS alpha, or a sum's coefficients);
+  // a complex one only into complex sums, whose coefficients are complex already.
+  bool can_fold(int s, Complex alpha) const {
+    if (detail::is_real_number(alpha)) return true;
+    const Step& step = p_.steps[s];
+    return step.kind == StepKind::sum && step.complex &&
+           (!step.in_place || can_fold(step.acc_step, alpha));
   }
 
   void emit(int v) {
@@ -716,7 +773,9 @@ class EvaluationBuilder {
       for (std::size_t i = 0; i < node.args.size(); ++i) {
         const Ref r = node.args[i];
         const Node& t = p_.nodes[r.node];
-        if (owned_once(r) && !t.diag && t.real == node.real && step_of_[r.node] >= 0) {
+        // The accumulator's coefficient folds into its producer (can_fold).
+        if (owned_once(r) && !t.diag && t.real == node.real && step_of_[r.node] >= 0 &&
+            can_fold(step_of_[r.node], node.coefs[i])) {
           acc = static_cast<int>(i);
           break;
         }
@@ -731,7 +790,7 @@ class EvaluationBuilder {
     }
     for (const std::size_t i : order) {
       const Ref r = node.args[i];
-      const double c = node.coefs[i];
+      const Complex c = node.coefs[i];
       if (static_cast<int>(i) != acc) {
         step.in.push_back(r);
         step.coefs.push_back(c);
@@ -741,13 +800,13 @@ class EvaluationBuilder {
       std::string term =
           (c == 1.0    ? ""
            : c == -1.0 ? "-"
-                       : text::compact(c) + "·") +
+                       : detail::coefficient_text(c) + "·") +
           (p_.nodes[r.node].diag && !node.diag && is_leaf(r.node) ? "diag(" + name(r) + ")"
                                                                   : name(r));
       text += text.empty() ? term : (term[0] == '-' ? " - " + term.substr(1) : " + " + term);
     }
     if (node.identity != 0.0) {
-      text += (text.empty() ? "" : " + ") + text::compact(node.identity) + "·I";
+      text += (text.empty() ? "" : " + ") + detail::coefficient_text(node.identity) + "·I";
       flops += static_cast<double>(n);
     }
     if (text.empty()) text = "0";
@@ -1147,9 +1206,10 @@ class Evaluator {
     if (n.kind == NodeKind::product) {
       out.diagonal = step.alpha * diagonal(step.in[0]).cwiseProduct(diagonal(step.in[1]));
     } else {
-      out.diagonal = Vector::Constant(p_.dims[n.rows], step.identity);
+      // A diagonal sum has real coefficients (Graph::sum).
+      out.diagonal = Vector::Constant(p_.dims[n.rows], step.identity.real());
       for (std::size_t i = 0; i < step.in.size(); ++i) {
-        out.diagonal += step.coefs[i] * diagonal(step.in[i]);
+        out.diagonal += step.coefs[i].real() * diagonal(step.in[i]);
       }
       out.diagonal *= step.alpha;
     }
@@ -1287,6 +1347,17 @@ class Evaluator {
     }
   }
 
+  // m += a·t for a real dense term t (transposed when adjointed).
+  void add_real(CMatrix& m, Complex a, Ref t) const {
+    if (t.adj) {
+      m.real() += a.real() * real(t).transpose();
+      if (a.imag() != 0.0) m.imag() += a.imag() * real(t).transpose();
+    } else {
+      m.real() += a.real() * real(t);
+      if (a.imag() != 0.0) m.imag() += a.imag() * real(t);
+    }
+  }
+
   void sum(const Step& step, Buffer& out) {
     const Node& n = p_.nodes[step.node];
     const Index r = p_.dims[n.rows], c = p_.dims[n.cols];
@@ -1295,15 +1366,13 @@ class Evaluator {
       CMatrix& m = out.complex;
       for (std::size_t i = 0; i < step.in.size(); ++i) {
         const Ref t = step.in[i];
-        const double a = step.alpha * step.coefs[i];
+        const Complex a = step.alpha * step.coefs[i];
+        // A real term goes into the real and imaginary parts separately: no complex copy.
         if (node(t).diag) {
-          m.diagonal() += (a * diagonal(t)).cast<Complex>();
+          m.diagonal().real() += a.real() * diagonal(t);
+          if (a.imag() != 0.0) m.diagonal().imag() += a.imag() * diagonal(t);
         } else if (node(t).real) {
-          if (t.adj) {
-            m += (a * real(t).transpose()).cast<Complex>();
-          } else {
-            m += (a * real(t)).cast<Complex>();
-          }
+          add_real(m, a, t);
         } else if (t.adj) {
           m += a * complex(t).adjoint();
         } else {
@@ -1316,7 +1385,7 @@ class Evaluator {
       RMatrix& m = out.real;
       for (std::size_t i = 0; i < step.in.size(); ++i) {
         const Ref t = step.in[i];
-        const double a = step.alpha * step.coefs[i];
+        const double a = step.alpha * step.coefs[i].real();
         if (node(t).diag) {
           m.diagonal() += a * diagonal(t);
         } else if (t.adj) {
@@ -1325,7 +1394,7 @@ class Evaluator {
           m += a * real(t);
         }
       }
-      m.diagonal().array() += step.alpha * step.identity;
+      m.diagonal().array() += step.alpha * step.identity.real();
     }
   }
 

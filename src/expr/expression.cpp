@@ -32,6 +32,10 @@ Expression::Expression(std::string_view text, std::vector<ensembles::MatrixSpec>
     for (const auto& op : data->operands) {
       if (op.name == spec.name) throw InputError("matrix '" + spec.name + "' is declared twice");
     }
+    if (spec.name == "i") {
+      throw InputError("'i' is the imaginary unit in expressions and cannot name a matrix; rename "
+                       "it");
+    }
     detail::Operand op;
     op.name = spec.name;
     op.self_adjoint = ensembles::is_self_adjoint(spec.kind);
@@ -61,7 +65,8 @@ Expression::Expression(std::string_view text, std::vector<ensembles::MatrixSpec>
                                                                         : Spectrum::singular_values;
   std::set<int> used;
   collect_used(*data, used);
-  data->real = std::all_of(used.begin(), used.end(), [&](int i) { return data->operands[i].real; });
+  data->real = !data->has_imaginary &&
+               std::all_of(used.begin(), used.end(), [&](int i) { return data->operands[i].real; });
   data_ = std::move(data);
 }
 
@@ -73,6 +78,11 @@ bool Expression::is_real() const { return data_->real; }
 const std::string& Expression::note() const { return data_->note; }
 std::vector<Monomial> Expression::expansion(std::size_t max_monomials) const {
   return detail::expand_monomials(*data_, max_monomials);
+}
+
+bool real_coefficients(const std::vector<Monomial>& terms) {
+  return std::all_of(terms.begin(), terms.end(),
+                     [](const Monomial& m) { return m.coefficient.imag() == 0.0; });
 }
 
 std::string Expression::shape() const {

@@ -1,6 +1,7 @@
 // Internals of the expr part shared by its sources: syntax tree, symbolic shapes, operands.
 #pragma once
 
+#include <complex>
 #include <string>
 #include <vector>
 
@@ -24,7 +25,7 @@ struct AstNode {
   Kind kind = Kind::number;
   int column = 1;    ///< 1-based column of the node's first token
   int matrix = -1;   ///< name: index into the operands
-  double value = 0;  ///< number
+  std::complex<double> value = 0;  ///< number (the imaginary unit `i` is 0 + 1i)
   int exponent = 0;  ///< power
   std::vector<int> children;
   std::vector<int> signs;       ///< sum: +1 or −1 per child
@@ -50,6 +51,7 @@ struct ExpressionData {
   int root = -1;
   bool self_adjoint = false;
   bool real = false;
+  bool has_imaginary = false;  ///< some number in the text is not real (the unit `i`)
   Spectrum spectrum = Spectrum::singular_values;
   std::string note;
   std::size_t max_letters = kMaxExpansionLetters;    ///< CheckOptions::max_expansion_letters

@@ -217,6 +217,9 @@ class Parser {
       } else if (t.kind == Token::Kind::slash) {
         take();
         const Token& divisor = peek();
+        if (divisor.kind == Token::Kind::name && divisor.text == "i") {
+          fail("division is only by a real number; write \"-i X\" for X/i", divisor.column);
+        }
         if (divisor.kind == Token::Kind::name || divisor.kind == Token::Kind::open) {
           fail("division is only by a number", divisor.column);
         }
@@ -248,7 +251,7 @@ class Parser {
     const AstNode& node = data_.nodes[index];
     switch (node.kind) {
       case AstNode::Kind::number:
-        return node.value;
+        return node.value.real();  // a number token: real
       case AstNode::Kind::power:
         return std::pow(scalar_value(node.children[0]), node.exponent);
       case AstNode::Kind::adjoint:
@@ -300,6 +303,14 @@ class Parser {
     node.column = t.column;
     switch (t.kind) {
       case Token::Kind::name: {
+        if (t.text == "i") {
+          // The imaginary unit (no matrix may be called i): a number like 2 or 0.5.
+          take();
+          node.kind = AstNode::Kind::number;
+          node.value = std::complex<double>(0.0, 1.0);
+          data_.has_imaginary = true;
+          return add(std::move(node));
+        }
         const auto& ops = data_.operands;
         const auto it = std::find_if(ops.begin(), ops.end(),
                                      [&](const Operand& o) { return o.name == t.text; });
@@ -429,7 +440,7 @@ SymShape shape_of(ExpressionData& data, int index) {
 
 // A word is a product of letters; letter 2·i + a is operand i, adjointed when a = 1.
 using Word = std::vector<int>;
-using Poly = std::map<Word, double>;
+using Poly = std::map<Word, std::complex<double>>;
 
 // Thrown when an expansion passes a bound; `what` completes "the expansion ...".
 struct CapReached {
@@ -502,7 +513,7 @@ class Algebra {
     for (const auto& [w, c] : p) {
       Word r;
       for (auto it = w.rbegin(); it != w.rend(); ++it) r.push_back(letter(*it / 2, !(*it & 1)));
-      out[normal(r)] += c;
+      out[normal(r)] += std::conj(c);
     }
     return out;
   }
@@ -517,7 +528,7 @@ class Algebra {
       case AstNode::Kind::sum: {
         Poly out;
         for (std::size_t i = 0; i < node.children.size(); ++i) {
-          for (const auto& [w, c] : expand(node.children[i])) out[w] += node.signs[i] * c;
+          for (const auto& [w, c] : expand(node.children[i])) out[w] += static_cast<double>(node.signs[i]) * c;
           if (out.size() > cap_) throw monomial_cap();
         }
         return out;
@@ -616,7 +627,7 @@ bool decide_self_adjoint(ExpressionData& data, std::size_t max_monomials) {
     const double tolerance = 1e-12 * scale;
     auto coefficient = [](const Poly& poly, const Word& w) {
       const auto it = poly.find(w);
-      return it == poly.end() ? 0.0 : it->second;
+      return it == poly.end() ? std::complex<double>() : it->second;
     };
     for (const auto& [w, c] : p) {
       if (std::abs(c - coefficient(q, w)) > tolerance) return false;

@@ -76,7 +76,12 @@ struct Applier {
       case AstNode::Kind::name:
         return leaf(a.matrix, adj, x);
       case AstNode::Kind::number:
-        return x * a.value;
+        // Real products (T = double) only for expressions without the imaginary unit.
+        if constexpr (std::is_same_v<T, Complex>) {
+          return x * (adj ? std::conj(a.value) : a.value);
+        } else {
+          return x * a.value.real();
+        }
       case AstNode::Kind::adjoint:
         return node(a.children.front(), !adj, x);
       case AstNode::Kind::power: {

@@ -715,6 +715,10 @@ declarations::MatrixSpec read_matrix(const Reader& r, std::string_view name, con
     r.fail(prefix, "matrix name '" + std::string(name) +
                        "' must be a letter followed by letters, digits or '_'; rename the table");
   }
+  if (name == "i") {
+    r.fail(prefix, "'i' is the imaginary unit in expressions, not a matrix name; rename the "
+                   "table (for example [matrices.I1])");
+  }
   const toml::table& t = r.table(
       node, prefix,
       "declare it as [matrices." + std::string(name) + "] with ensemble = \"...\" under it");

@@ -240,11 +240,13 @@ std::optional<tridiagonal::ModelSpec> SizeRunner::tridiagonal_form(const Model& 
   double a = 0.0, b = 0.0;
   bool affine = true;
   for (const auto& m : expression_.expansion()) {
-    if (m.letters.empty()) {
-      b = m.coefficient;
+    if (m.coefficient.imag() != 0.0) {
+      affine = false;  // a·X + b with complex a or b: not a real affine image
+    } else if (m.letters.empty()) {
+      b = m.coefficient.real();
     } else if (m.letters.size() == 1 && letter < 0) {
       letter = m.letters[0].first;
-      a = m.coefficient;
+      a = m.coefficient.real();
     } else {
       affine = false;
     }

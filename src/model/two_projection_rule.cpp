@@ -71,9 +71,9 @@ std::optional<Terms> collect(const std::vector<expr::Monomial>& expansion,
   for (const auto& m : expansion) {
     const auto& w = m.letters;
     if (w.empty()) {
-      terms.constant += m.coefficient;
+      terms.constant += m.coefficient.real();
     } else if (w.size() == 1 && diagonal(w[0])) {
-      terms.plain.emplace_back(w[0].first, m.coefficient);
+      terms.plain.emplace_back(w[0].first, m.coefficient.real());
     } else if (w.size() == 3 && diagonal(w[1]) && w[0].first == w[2].first &&
                w[0].second != w[2].second) {
       const Kind kind = declared[static_cast<std::size_t>(w[0].first)].kind;
@@ -83,7 +83,7 @@ std::optional<Terms> collect(const std::vector<expr::Monomial>& expansion,
       }
       terms.haar = w[0].first;
       terms.adjoint_first = w[0].second;
-      terms.conjugated.emplace_back(w[1].first, m.coefficient);
+      terms.conjugated.emplace_back(w[1].first, m.coefficient.real());
     } else {
       return std::nullopt;
     }
@@ -103,6 +103,7 @@ std::optional<tridiagonal::TwoProjectionSpec> two_projection_form(const expr::Ex
   } catch (const Error&) {
     return std::nullopt;  // more terms than the form has: not this path
   }
+  if (!expr::real_coefficients(expansion)) return std::nullopt;  // collect reads real parts
   const auto& declared = e.declared();
   const auto terms = collect(expansion, declared);
   if (!terms) return std::nullopt;

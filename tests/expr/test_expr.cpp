@@ -158,6 +158,74 @@ struct Row {
 
 }  // namespace
 
+// The imaginary unit i (issue 17, item 5): complex coefficients through the plan, against the same
+// products written out with Eigen and std::complex. Self-adjointness worked by hand: (i·P)^* =
+// −i·P^*, so i·(P − P^*) is self-adjoint for any P, and i·X with X self-adjoint is not.
+TEST(ExprEvaluate, ImaginaryUnitAgreesWithNaiveDenseProducts) {
+  const Eigen::Index n = 30;
+  const auto specs = table_specs();
+  Inputs in = make_inputs(specs, n);
+  const CMatrix I = CMatrix::Identity(n, n);
+  const Complex j(0.0, 1.0);
+  const std::vector<Row> rows = {
+      {"i (X1 X2 - X2 X1)", true, false,
+       [&](auto& m) -> CMatrix { return j * (m["X1"] * m["X2"] - m["X2"] * m["X1"]); }},
+      {"i (S1 S2 - S2 S1)", true, false,
+       [&](auto& m) -> CMatrix { return j * (m["S1"] * m["S2"] - m["S2"] * m["S1"]); }},
+      {"i (U - U^*)", true, false,
+       [&](auto& m) -> CMatrix { return j * (m["U"] - m["U"].adjoint()); }},
+      {"i (O - O^*) + 0.5 i (U^* - U)", true, false,
+       [&](auto& m) -> CMatrix {
+         return j * (m["O"] - m["O"].adjoint()) + 0.5 * j * (m["U"].adjoint() - m["U"]);
+       }},
+      {"X1 + i", false, false, [&](auto& m) -> CMatrix { return m["X1"] + j * I; }},
+      {"(X1 + i)(X1 - i)", true, false,
+       [&](auto& m) -> CMatrix { return (m["X1"] + j * I) * (m["X1"] - j * I); }},
+      {"i^2 S1", true, false, [](auto& m) -> CMatrix { return -m["S1"]; }},
+      {"(i X1)^2", true, false, [](auto& m) -> CMatrix { return -(m["X1"] * m["X1"]); }},
+      {"2i D", false, false, [&](auto& m) -> CMatrix { return 2.0 * j * m["D"]; }},
+      {"i D S1 - i S1 D", true, false,
+       [&](auto& m) -> CMatrix { return j * (m["D"] * m["S1"] - m["S1"] * m["D"]); }},
+      {"(1 + 2 i) X1 X2 + (1 - 2 i) X2 X1", true, false,
+       [&](auto& m) -> CMatrix {
+         return (1.0 + 2.0 * j) * m["X1"] * m["X2"] + (1.0 - 2.0 * j) * m["X2"] * m["X1"];
+       }},
+      {"i X1", false, false, [&](auto& m) -> CMatrix { return j * m["X1"]; }},
+      {"i (U B U^* B - B U B U^*)", true, false,
+       [&](auto& m) -> CMatrix {
+         const CMatrix p = m["U"] * m["B"] * m["U"].adjoint() * m["B"];
+         return j * (p - p.adjoint());
+       }},
+      {"S1 - i S2 S1 + i S1 S2", true, false,
+       [&](auto& m) -> CMatrix { return m["S1"] + j * (m["S1"] * m["S2"] - m["S2"] * m["S1"]); }},
+  };
+  for (const Row& row : rows) {
+    SCOPED_TRACE(row.text);
+    const fe::Expression e(row.text, specs);
+    EXPECT_EQ(e.self_adjoint(), row.self_adjoint);
+    EXPECT_EQ(e.is_real(), row.real);
+    const CMatrix reference = row.reference(in.dense);
+    if (row.self_adjoint) {
+      EXPECT_LT((reference - reference.adjoint()).norm(), 1e-12 * reference.norm());
+    } else {
+      EXPECT_GT((reference - reference.adjoint()).norm(), 1e-6 * reference.norm());
+    }
+    for (const bool full : {false, true}) {
+      const fe::Evaluation plan(e, n, fe::EvaluationOptions{full});
+      const fe::Evaluated result = plan.evaluate(in.samples);
+      // i² S1 = −S1 exactly: the plan folds the scalar and stays real.
+      EXPECT_EQ(result.is_complex, std::string(row.text) != "i^2 S1");
+      EXPECT_LT(relative_error(result, reference), 1e-12) << plan.explain();
+    }
+  }
+  // The factor i folds into the sum that forms the commutator: one product and one pass over
+  // the result, as for a real factor, and the plan says so.
+  const fe::Evaluation commutator(fe::Expression("i (X1 X2 - X2 X1)", specs), n);
+  ASSERT_EQ(commutator.steps().size(), 2u) << commutator.explain();
+  EXPECT_EQ(commutator.steps()[1].description, "i·(t1 - t1^*)") << commutator.explain();
+  EXPECT_EQ(commutator.peak_temporary_bytes(), std::size_t{16} * 2 * n * n);
+}
+
 // Source: the issue's table of expressions; references are naive left-to-right dense products
 // written out here with Eigen; expected self-adjointness worked out by hand (adjoint of each term).
 TEST(ExprEvaluate, AgreesWithNaiveDenseProducts) {
@@ -304,6 +372,9 @@ TEST(ExprParse, MalformedExpressionsGiveExactMessages) {
       {"A^1001", "power must be at most 1000 at column 3"},
       {"A / B", "division is only by a number at column 5"},
       {"A / (2)", "division is only by a number at column 5"},
+      {"A / i", "division is only by a real number; write \"-i X\" for X/i at column 5"},
+      {"iA + B", "unknown matrix 'iA' at column 1 (declared: A, B, U)"},
+      {"2 i", "the expression has no matrix in it"},
       {"A/0", "division by zero at column 3"},
       {"A $ B", "unexpected character '$' at column 3"},
       {"A 2", "a number cannot follow a factor without '*' at column 3"},
@@ -482,6 +553,24 @@ TEST(ExprParse, DocumentedSyntaxDecisions) {
   EXPECT_TRUE(same(value("X1 + (-X2)"), value("X1 - X2")));
   EXPECT_TRUE(same(value("U^*^*"), value("U")));
   EXPECT_TRUE(same(value("2e-1 X1"), value("0.2 X1")));
+  // The imaginary unit is a number like 2: "2i" is 2·i, it may follow a factor, and powers of it
+  // are exact (i² = −1 bit for bit, so "i^2 X1" is −X1).
+  EXPECT_TRUE(same(value("2i X1"), value("2 * i * X1")));
+  EXPECT_TRUE(same(value("X1 i"), value("i X1")));
+  EXPECT_EQ(value("i^2 X1"), value("-X1"));
+  EXPECT_EQ(value("i^4 X1"), value("X1"));
+  EXPECT_TRUE(same(value("(i X1)^*"), value("-i X1")));
+}
+
+// A matrix cannot be called i: the name is the imaginary unit.
+TEST(ExprParse, NoMatrixIsCalledI) {
+  try {
+    const fe::Expression e("i + X", {spec("i", en::Kind::gue), spec("X", en::Kind::gue)});
+    FAIL() << "a matrix named i was accepted";
+  } catch (const freegap::InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("'i' is the imaginary unit"), std::string::npos)
+        << e.what();
+  }
 }
 
 // Source: the issue (symbolic self-adjointness; U^* U = I may simplify; expansion cap).
@@ -567,16 +656,30 @@ TEST(ExprExpansion, MonomialsOfSmallExpressions) {
                                             spec("Y", en::Kind::gue)};
   auto words = [&](const std::string& text) {
     std::map<std::vector<std::pair<int, bool>>, double> out;
-    for (const auto& m : fe::Expression(text, decl).expansion()) out[m.letters] = m.coefficient;
+    for (const auto& m : fe::Expression(text, decl).expansion()) {
+      EXPECT_EQ(m.coefficient.imag(), 0.0) << text;
+      out[m.letters] = m.coefficient.real();
+    }
     return out;
   };
   using W = std::vector<std::pair<int, bool>>;
+  std::map<W, Complex> complex_words;
+  for (const auto& m : fe::Expression("i (X Y - Y X) + (1 - 2i) U", decl).expansion()) {
+    complex_words[m.letters] = m.coefficient;
+  }
+  EXPECT_EQ(complex_words, (std::map<W, Complex>{{W{{0, false}, {2, false}}, Complex(0, 1)},
+                                                 {W{{2, false}, {0, false}}, Complex(0, -1)},
+                                                 {W{{1, false}}, Complex(1, -2)}}));
+  EXPECT_FALSE(fe::real_coefficients(fe::Expression("i (X Y - Y X)", decl).expansion()));
+  EXPECT_TRUE(fe::real_coefficients(fe::Expression("(i X)^2", decl).expansion()));
   EXPECT_EQ(words("2 X + 1"), (std::map<W, double>{{W{}, 1.0}, {W{{0, false}}, 2.0}}));
   EXPECT_EQ(words("X Y + Y X"),
             (std::map<W, double>{{W{{0, false}, {2, false}}, 1.0}, {W{{2, false}, {0, false}}, 1.0}}));
   EXPECT_EQ(words("U X U^*"),
             (std::map<W, double>{{W{{1, false}, {0, false}, {1, true}}, 1.0}}));
   EXPECT_EQ(words("U U^* + X - X"), (std::map<W, double>{{W{}, 1.0}}));  // U U^* = I; X − X = 0
+  // The imaginary unit: i² = −1 exactly, so "(i X)^2 + 1" has real coefficients.
+  EXPECT_EQ(words("(i X)^2 + 1"), (std::map<W, double>{{W{}, 1.0}, {W{{0, false}, {0, false}}, -1.0}}));
   EXPECT_EQ(words("(X + 1)^2"),
             (std::map<W, double>{{W{}, 1.0}, {W{{0, false}}, 2.0}, {W{{0, false}, {0, false}}, 1.0}}));
   EXPECT_THROW(fe::Expression("(X + Y)^20", decl).expansion(1000), fe::ExprError);

@@ -148,6 +148,44 @@ TEST(LimitOfRun, UnitaryPairsGiveArcsineAndKestenMcKay) {
   EXPECT_NEAR(km.law->support().hi, 2.0 * std::sqrt(3.0), 1e-12);  // 2√(2d − 1), d = 2
 }
 
+// The imaginary unit. a·U + conj(a)·U^* is |a|·(V + V^*) with V = (a/|a|)·U again Haar: the
+// arcsine law on [−2|a|, 2|a|] (ref §1.3); with |a| = 1 pairs, Kesten–McKay as above. A complex
+// coefficient elsewhere goes to the polynomial solver: the commutator i(X1 X2 − X2 X1) of free
+// semicirculars has the law of their anticommutator, with support edge √((11 + 5√5)/2) and the
+// densities listed in ref §1.8 (Nica & Speicher 1998, confirmed there).
+TEST(LimitOfRun, ImaginaryUnitTerms) {
+  const auto one = derive({"U=haar_unitary"}, "i (U - U^*)");
+  ASSERT_TRUE(one.law) << one.reason;
+  EXPECT_NEAR(one.law->cdf(1.0), 0.5 + std::asin(0.5) / std::numbers::pi, 1e-12);
+  expect_moments_agree(one, 1e-12);
+  const auto scaled = derive({"O=haar_orthogonal"}, "(1 + i) O + (1 - i) O^*");
+  ASSERT_TRUE(scaled.law) << scaled.reason;
+  EXPECT_NEAR(scaled.law->support().hi, 2.0 * std::sqrt(2.0), 1e-12);
+  expect_moments_agree(scaled, 1e-12);
+  const auto km = derive({"U1=haar_unitary", "U2=haar_unitary"}, "i U1 - i U1^* + U2 + U2^*", 6);
+  ASSERT_TRUE(km.law) << km.reason;
+  EXPECT_EQ(km.exact_moment_text[4], "28");
+  EXPECT_NEAR(km.law->support().hi, 2.0 * std::sqrt(3.0), 1e-12);
+  // Unequal pair coefficients are not a·U + conj(a)·U^*: no rule, and the expression is not
+  // self-adjoint anyway (singular values).
+  EXPECT_FALSE(derive({"U=haar_unitary"}, "i U + i U^*").law);
+
+  const auto commutator = derive({"X1=gue", "X2=gue"}, "i (X1 X2 - X2 X1)");
+  ASSERT_TRUE(commutator.law) << commutator.reason;
+  EXPECT_NE(commutator.rule.find("linearization"), std::string::npos) << commutator.rule;
+  EXPECT_NEAR(commutator.law->support().hi, std::sqrt((11.0 + 5.0 * std::sqrt(5.0)) / 2.0), 1e-8);
+  EXPECT_EQ(commutator.exact_moment_text[4], "10");
+  EXPECT_NEAR(commutator.law->density(0.0), 1.0 / std::numbers::pi, 1e-7);  // ref §1.8
+  EXPECT_NEAR(commutator.law->density(1.0), 0.192988333008231, 1e-7);
+  EXPECT_NEAR(commutator.law->density(3.0), 0.048137434405276, 1e-7);
+  expect_moments_agree(commutator, 1e-8);
+  const auto anti = derive({"X1=gue", "X2=gue"}, "X1 X2 + X2 X1");
+  ASSERT_TRUE(anti.law) << anti.reason;
+  for (const double x : {-3.0, -1.0, 0.2, 2.5}) {
+    EXPECT_NEAR(commutator.law->cdf(x), anti.law->cdf(x), 1e-7) << x;
+  }
+}
+
 TEST(LimitOfRun, FreeSumsOfIndependentMatrices) {
   // Two free standard semicirculars: semicircle of variance 2, edge 2√2 (ref §1.1).
   const auto ss = derive({"X=gue", "Y=gue"}, "X + Y");

@@ -403,4 +403,29 @@ TEST(LimitMomentsOfExpressions, FromExpressionText) {
   EXPECT_EQ(odd[3].text, "0");
 }
 
+// The imaginary unit in the exact moments: coefficients in ℚ(i). The commutator i(s1 s2 − s2 s1)
+// of free semicirculars has the law of their anticommutator (ref §1.8; Nica & Speicher 1998), so
+// its even moments are 2, 10, 66, 498 as above; by hand, τ(c²) = −τ((s1 s2 − s2 s1)²)
+// = −(0 − 1 − 1 + 0) = 2. Odd moments vanish.
+TEST(LimitMomentsOfExpressions, ImaginaryUnitCoefficients) {
+  using freegap::declarations::Kind;
+  const std::vector<freegap::declarations::MatrixSpec> d = {declared("X1", Kind::gue),
+                                                            declared("X2", Kind::gue)};
+  const auto m = fa::limit_moments(freegap::expr::Expression("i (X1 X2 - X2 X1)", d), 8);
+  std::vector<std::string> text;
+  for (const auto& v : m) text.push_back(v.text);
+  EXPECT_EQ(text, (std::vector<std::string>{"1", "0", "2", "0", "10", "0", "66", "0", "498"}));
+  // P = (1 + 2i) X1 X2 + (1 − 2i) X2 X1, by hand: τ(P²) = |1 + 2i|²·(τ(s1 s2 s2 s1) +
+  // τ(s2 s1 s1 s2)) + (1 + 2i)²·τ(s1 s2 s1 s2) + (1 − 2i)²·τ(s2 s1 s2 s1) = 5·2 + 0 = 10.
+  const auto p = fa::limit_moments(
+      freegap::expr::Expression("(1 + 2 i) X1 X2 + (1 - 2 i) X2 X1", d), 2);
+  EXPECT_EQ(p[2].text, "10");
+  // A polynomial that is not self-adjoint has a complex trace: refused, not truncated.
+  fa::FreeMomentEngine engine({fa::FreeVariable::semicircular(), fa::FreeVariable::semicircular()});
+  const fa::Polynomial ix{fa::Term{fa::ComplexRational(fa::Rational(0), fa::Rational(1)),
+                                   fa::Word{{0, false}, {0, false}}}};
+  EXPECT_THROW(engine.trace(ix), freegap::InputError);
+  EXPECT_EQ(engine.adjoint(ix)[0].coefficient, fa::ComplexRational(fa::Rational(0), fa::Rational(-1)));
+}
+
 }  // namespace

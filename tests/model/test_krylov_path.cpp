@@ -86,7 +86,10 @@ TEST(VectorProduct, EqualsTheFormedMatrixTimesTheVector) {
                                       "D=diagonal:law=uniform:low=0:high=2"};
   for (const char* e : {"X1 X2 + X2 X1", "B + U B U^*", "U^* D U - 2 B", "1/2 (X1 - 2) X1^3",
                         "Y^2 + W", "W + X1", "G G^*", "(X1 U)^* (X1 U)", "O B O^* + Y",
-                        "U + U^* + X2^2", "X2 - 3"}) {
+                        "U + U^* + X2^2", "X2 - 3",
+                        // The imaginary unit: complex products even from real factors (Y, O).
+                        "i (X1 X2 - X2 X1)", "i (U - U^*) + Y", "2i (O - O^*) + i (Y B - B Y)",
+                        "(1 + 2 i) X1 X2 + (1 - 2 i) X2 X1", "X1 + i"}) {
     expect_product_matches(d, e, 37);
   }
 }

@@ -144,6 +144,30 @@ class Rational {
   BigInt denominator_{1};
 };
 
+/// An exact complex rational re + im·i (the Gaussian rationals ℚ(i)): the coefficients of
+/// polynomials written with the imaginary unit. Real numbers convert implicitly.
+struct ComplexRational {
+  Rational re;
+  Rational im;
+  ComplexRational() = default;
+  ComplexRational(Rational real) : re(std::move(real)) {}  // NOLINT(google-explicit-constructor)
+  ComplexRational(std::int64_t real) : re(real) {}         // NOLINT(google-explicit-constructor)
+  ComplexRational(Rational real, Rational imaginary)
+      : re(std::move(real)), im(std::move(imaginary)) {}
+  bool is_zero() const { return re.is_zero() && im.is_zero(); }
+  ComplexRational conj() const { return {re, -im}; }
+  friend ComplexRational operator+(const ComplexRational& a, const ComplexRational& b) {
+    return {a.re + b.re, a.im + b.im};
+  }
+  friend ComplexRational operator*(const ComplexRational& a, const ComplexRational& b) {
+    if (a.im.is_zero() && b.im.is_zero()) return {a.re * b.re};  // the common real case
+    return {a.re * b.re - a.im * b.im, a.re * b.im + a.im * b.re};
+  }
+  ComplexRational& operator+=(const ComplexRational& b) { return *this = *this + b; }
+  ComplexRational& operator*=(const ComplexRational& b) { return *this = *this * b; }
+  friend bool operator==(const ComplexRational& a, const ComplexRational& b) = default;
+};
+
 /// Catalan number Cat(n) = C(2n, n)/(n + 1), exact.
 BigInt catalan(int n);
 /// Binomial coefficient C(n, k), exact (0 outside 0 ≤ k ≤ n).
@@ -215,7 +239,7 @@ using Word = std::vector<Letter>;
 
 /// c · w.
 struct Term {
-  Rational coefficient;
+  ComplexRational coefficient;  ///< real unless the expression has the imaginary unit
   Word word;
 };
 /// Σ c_j w_j; the empty word is the identity.
@@ -241,14 +265,15 @@ class FreeMomentEngine {
   /// τ(w). Letters of self-adjoint variables ignore their adjoint flag. Throws InputError for a
   /// variable index out of range.
   Rational trace(const Word& word);
-  /// τ(P) = Σ c_j τ(w_j).
+  /// τ(P) = Σ c_j τ(w_j), which must be real (as for a self-adjoint P); throws InputError when
+  /// its imaginary part is not zero.
   Rational trace(const Polynomial& polynomial);
   /// τ(P^k) for k = 0..max_order (P^k expanded word by word, equal words merged, U U^* of a Haar
   /// unitary cancelled).
   std::vector<ExactValue> moments(const Polynomial& polynomial, int max_order);
   /// P·Q expanded, equal words merged, zero coefficients dropped, U U^* cancelled.
   Polynomial multiply(const Polynomial& p, const Polynomial& q) const;
-  /// The formal adjoint P^* (reversed words, flipped flags, coefficients are real).
+  /// The formal adjoint P^* (reversed words, flipped flags, coefficients conjugated).
   Polynomial adjoint(const Polynomial& p) const;
   /// Number of memoised subwords (for tests of the memo and diagnostics).
   std::size_t memo_size() const { return memo_.size(); }
