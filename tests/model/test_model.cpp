@@ -11,6 +11,7 @@
 #include "freegap/errors.hpp"
 #include "freegap/model.hpp"
 #include "freegap/observe.hpp"
+#include "refusal.hpp"
 
 namespace {
 
@@ -180,16 +181,6 @@ TEST(Declarations, BadDeclarationsHaveExactMessages) {
 
 namespace {
 
-template <class F>
-std::string input_error_of(F f) {
-  try {
-    f();
-  } catch (const InputError& e) {
-    return e.what();
-  }
-  return "(no InputError)";
-}
-
 model::Model lone(const std::string& declaration, std::int64_t bins) {
   model::Model m;
   m.matrices = {parse_declaration(declaration)};
@@ -239,7 +230,7 @@ TEST(PathChoice, JobCanForceAnyPathThatApplies) {
   m.path = model::PathRequest::dense;
   EXPECT_EQ(model::SizeRunner(m, 400).path(), model::Path::dense);
   m.path = model::PathRequest::two_projection;
-  EXPECT_EQ(input_error_of([&] { model::SizeRunner(m, 40); }),
+  EXPECT_EQ(freegap::testing::refusal([&] { model::SizeRunner(m, 40); }),
             "path = \"two_projection\" does not apply to this model: the two_projection path "
             "computes a·B + b·U B U^* (+ c) of a two-valued diagonal B and a Haar U, with "
             "eigenvalues observed; remove path or set it to \"auto\" or \"dense\"");
