@@ -156,6 +156,34 @@ struct Row {
   std::function<CMatrix(std::map<std::string, CMatrix>&)> reference;
 };
 
+// One row of an evaluation table: the expression's checks, the reference itself (self-adjoint
+// rows give Hermitian references), and the plan's result, formed whole and as a lower triangle,
+// against the reference.
+void expect_row(const Row& row, const std::vector<en::MatrixSpec>& specs, Inputs& in,
+                Eigen::Index n, bool complex_result) {
+  SCOPED_TRACE(row.text);
+  const fe::Expression e(row.text, specs);
+  EXPECT_EQ(e.self_adjoint(), row.self_adjoint);
+  EXPECT_EQ(e.is_real(), row.real);
+  EXPECT_EQ(e.spectrum(),
+            row.self_adjoint ? fe::Spectrum::eigenvalues : fe::Spectrum::singular_values);
+  const CMatrix reference = row.reference(in.dense);
+  if (row.self_adjoint) {
+    EXPECT_LT((reference - reference.adjoint()).norm(), 1e-12 * reference.norm());
+  } else {
+    EXPECT_GT((reference - reference.adjoint()).norm(), 1e-6 * reference.norm());
+  }
+  for (const bool full : {false, true}) {
+    const fe::Evaluation plan(e, n, fe::EvaluationOptions{full});
+    const fe::Evaluated result = plan.evaluate(in.samples);
+    EXPECT_EQ(result.is_complex, complex_result);
+    if (full) {
+      EXPECT_FALSE(result.lower_only);
+    }
+    EXPECT_LT(relative_error(result, reference), 1e-12) << plan.explain();
+  }
+}
+
 }  // namespace
 
 // The imaginary unit i (issue 17, item 5): complex coefficients through the plan, against the same
@@ -199,25 +227,8 @@ TEST(ExprEvaluate, ImaginaryUnitAgreesWithNaiveDenseProducts) {
       {"S1 - i S2 S1 + i S1 S2", true, false,
        [&](auto& m) -> CMatrix { return m["S1"] + j * (m["S1"] * m["S2"] - m["S2"] * m["S1"]); }},
   };
-  for (const Row& row : rows) {
-    SCOPED_TRACE(row.text);
-    const fe::Expression e(row.text, specs);
-    EXPECT_EQ(e.self_adjoint(), row.self_adjoint);
-    EXPECT_EQ(e.is_real(), row.real);
-    const CMatrix reference = row.reference(in.dense);
-    if (row.self_adjoint) {
-      EXPECT_LT((reference - reference.adjoint()).norm(), 1e-12 * reference.norm());
-    } else {
-      EXPECT_GT((reference - reference.adjoint()).norm(), 1e-6 * reference.norm());
-    }
-    for (const bool full : {false, true}) {
-      const fe::Evaluation plan(e, n, fe::EvaluationOptions{full});
-      const fe::Evaluated result = plan.evaluate(in.samples);
-      // i² S1 = −S1 exactly: the plan folds the scalar and stays real.
-      EXPECT_EQ(result.is_complex, std::string(row.text) != "i^2 S1");
-      EXPECT_LT(relative_error(result, reference), 1e-12) << plan.explain();
-    }
-  }
+  // i² S1 = −S1 exactly: the plan folds the scalar and stays real; every other row is complex.
+  for (const Row& row : rows) expect_row(row, specs, in, n, std::string(row.text) != "i^2 S1");
   // The factor i folds into the sum that forms the commutator: one product and one pass over
   // the result, as for a real factor, and the plan says so.
   const fe::Evaluation commutator(fe::Expression("i (X1 X2 - X2 X1)", specs), n);
@@ -319,30 +330,7 @@ TEST(ExprEvaluate, AgreesWithNaiveDenseProducts) {
       {"D (U + U^*) D", true, false,
        [](auto& m) -> CMatrix { return m["D"] * (m["U"] + m["U"].adjoint()) * m["D"]; }},
   };
-  for (const Row& row : rows) {
-    SCOPED_TRACE(row.text);
-    const fe::Expression e(row.text, specs);
-    EXPECT_EQ(e.self_adjoint(), row.self_adjoint);
-    EXPECT_EQ(e.is_real(), row.real);
-    EXPECT_EQ(e.spectrum(),
-              row.self_adjoint ? fe::Spectrum::eigenvalues : fe::Spectrum::singular_values);
-    const CMatrix reference = row.reference(in.dense);
-    // The expected value is itself checked: self-adjoint rows give Hermitian references.
-    if (row.self_adjoint) {
-      EXPECT_LT((reference - reference.adjoint()).norm(), 1e-12 * reference.norm());
-    } else {
-      EXPECT_GT((reference - reference.adjoint()).norm(), 1e-6 * reference.norm());
-    }
-    for (const bool full : {false, true}) {
-      const fe::Evaluation plan(e, n, fe::EvaluationOptions{full});
-      const fe::Evaluated result = plan.evaluate(in.samples);
-      EXPECT_EQ(result.is_complex, !row.real);
-      if (full) {
-        EXPECT_FALSE(result.lower_only);
-      }
-      EXPECT_LT(relative_error(result, reference), 1e-12) << plan.explain();
-    }
-  }
+  for (const Row& row : rows) expect_row(row, specs, in, n, !row.real);
 }
 
 // Source: the issue ("at least 15 malformed expressions, each with its exact message").

@@ -22,12 +22,11 @@ import os
 import re
 import sys
 
-import h5py
 import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
-from spectra import kolmogorov_bound, pooled_kolmogorov  # noqa: E402
+from spectra import kept_spectra, kolmogorov_bound, pooled_kolmogorov  # noqa: E402
 
 
 def limit_table(exe, d, declarations, expression, tag):
@@ -95,12 +94,7 @@ keep_spectra = "all"
         r = rh.run(rh.command(exe, ["run", job, "-o", out, "--quiet"], 2), d)
         if c.check(r.returncode == 0 and xs is not None, "i(S1 S2 - S2 S1) runs on 2 ranks",
                    r.stderr):
-            spectra = []
-            with h5py.File(out, "r") as h5:
-                h5.visititems(lambda name, obj: spectra.append(np.asarray(obj))
-                              if isinstance(obj, h5py.Dataset) and name.endswith("spectra")
-                              else None)
-            rows = np.concatenate([s.reshape(-1, 300) for s in spectra])
+            rows = np.concatenate([s.reshape(-1, 300) for s in kept_spectra(out)])
             if c.check(rows.shape == (12, 300), "12 kept spectra of 300 eigenvalues"):
                 ordered = np.sort(rows, axis=1)
                 asym = float(np.max(np.abs(ordered + ordered[:, ::-1])))

@@ -30,7 +30,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 import runhelp as rh  # noqa: E402
-from spectra import kolmogorov_bound, pooled_kolmogorov  # noqa: E402
+from spectra import kept_spectra, kolmogorov_bound, pooled_kolmogorov  # noqa: E402
 from subordination import semicircle_free_sum_density  # noqa: E402
 
 
@@ -119,13 +119,7 @@ max_moment = 4
                 c.check("law of its symbol f(θ)" in md, "the report names Szegő's law for T")
                 _, table = limit_table(exe, d, ["X=gue", "T=toeplitz:coefficients=0.5,1.0,0.3"],
                                        "X + T", "sampled")
-                import h5py
-                with h5py.File(out, "r") as h5:
-                    values = []
-                    h5.visititems(lambda name, obj: values.extend(np.asarray(obj).ravel())
-                                  if isinstance(obj, h5py.Dataset) and name.endswith("spectra")
-                                  else None)
-                values = np.sort(np.asarray(values))
+                values = np.sort(np.concatenate([s.ravel() for s in kept_spectra(out)]))
                 xs = np.array([t[0] for t in table])
                 cdf = np.array([t[2] for t in table])
                 if c.check(values.size == 500 * 20, "%d kept eigenvalues" % values.size):

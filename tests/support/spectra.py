@@ -10,6 +10,7 @@ memory).
 """
 import math
 
+import h5py
 import numpy as np
 
 
@@ -24,3 +25,12 @@ def pooled_kolmogorov(values, xs, cdf):
 def kolmogorov_bound(count, size):
     """Tolerance for `count` pooled eigenvalues of matrices of size `size` (module docstring)."""
     return 1.63 / math.sqrt(count) + 2.0 / size
+
+
+def kept_spectra(run_file):
+    """Every kept spectrum of a run file: the datasets whose name ends in "spectra", as arrays."""
+    out = []
+    with h5py.File(run_file, "r") as h5:
+        h5.visititems(lambda name, obj: out.append(np.asarray(obj))
+                      if isinstance(obj, h5py.Dataset) and name.endswith("spectra") else None)
+    return out
