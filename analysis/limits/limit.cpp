@@ -1,6 +1,7 @@
 // The limit of a job's model by the rules listed in limit.hpp.
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <future>
 #include <limits>
 #include <map>
@@ -13,6 +14,7 @@
 #include "freegap/analysis/limits/limit.hpp"
 #include "freegap/analysis/limits/moments.hpp"
 #include "freegap/analysis/limits/polynomial_limit.hpp"
+#include "freegap/ensembles.hpp"
 #include "freegap/errors.hpp"
 #include "freegap/linalg.hpp"
 #include "freegap/text.hpp"
@@ -20,6 +22,35 @@
 #include "laws_quadrature.hpp"
 
 namespace freegap::analysis {
+
+std::vector<declarations::Atom> eigenvalue_atoms(const Eigen::VectorXd& values,
+                                                 std::vector<std::size_t>* counts) {
+  // Eigenvalues closer than LAPACK's backward error (about n·ε·‖A‖; here 8 n ε max|λ|) are one
+  // eigenvalue of higher multiplicity (a symmetric ring's pairs come out 1e-15 apart): one atom
+  // at their mean (common practice).
+  std::vector<declarations::Atom> atoms;
+  std::vector<std::size_t> count;
+  const auto total = static_cast<double>(values.size());
+  const double spread = values.size() == 0 ? 0.0 : values.cwiseAbs().maxCoeff();
+  const double tie = 8.0 * total * std::numeric_limits<double>::epsilon() * spread;
+  double sum = 0.0;
+  for (Eigen::Index i = 0; i < values.size(); ++i) {
+    if (!atoms.empty() && values(i) - values(i - 1) <= tie) {
+      ++count.back();
+      sum += values(i);
+      atoms.back().value = sum / static_cast<double>(count.back());
+    } else {
+      atoms.push_back({values(i), 0.0});
+      count.push_back(1);
+      sum = values(i);
+    }
+  }
+  for (std::size_t i = 0; i < atoms.size(); ++i) {
+    atoms[i].weight = static_cast<double>(count[i]) / total;
+  }
+  if (counts != nullptr) *counts = std::move(count);
+  return atoms;
+}
 
 std::vector<declarations::Atom> file_matrix_eigenvalue_law(const declarations::MatrixSpec& spec,
                                                            std::vector<std::size_t>* counts) {
@@ -44,28 +75,8 @@ std::vector<declarations::Atom> file_matrix_eigenvalue_law(const declarations::M
       linalg::RMatrix a = 0.5 * (m->real + m->real.transpose());
       values = linalg::eigenvalues(a);
     }
-    // Eigenvalues closer than LAPACK's backward error (about n·ε·‖A‖; here 8 n ε max|λ|) are one
-    // eigenvalue of higher multiplicity (a symmetric ring's pairs come out 1e-15 apart): one atom
-    // at their mean (common practice).
     Law law;
-    const auto total = static_cast<double>(values.size());
-    const double spread = values.size() == 0 ? 0.0 : values.cwiseAbs().maxCoeff();
-    const double tie = 8.0 * total * std::numeric_limits<double>::epsilon() * spread;
-    double sum = 0.0;
-    for (Eigen::Index i = 0; i < values.size(); ++i) {
-      if (!law.atoms.empty() && values(i) - values(i - 1) <= tie) {
-        ++law.counts.back();
-        sum += values(i);
-        law.atoms.back().value = sum / static_cast<double>(law.counts.back());
-      } else {
-        law.atoms.push_back({values(i), 0.0});
-        law.counts.push_back(1);
-        sum = values(i);
-      }
-    }
-    for (std::size_t i = 0; i < law.atoms.size(); ++i) {
-      law.atoms[i].weight = static_cast<double>(law.counts[i]) / total;
-    }
+    law.atoms = eigenvalue_atoms(values, &law.counts);
     found = computed.emplace(key, std::move(law)).first;
   }
   if (counts != nullptr) *counts = found->second.counts;
@@ -471,9 +482,55 @@ static std::optional<std::pair<PowerOf, int>> power_of(const Letters& w,
 }
 
 // The exact moments of an eigenvalue model into `out` (or why there are none in moments_note).
+// The deterministic matrices (diagonal, Toeplitz, Jacobi, from files; not a multiple of the
+// identity) that some term holds outside a Haar conjugation U X U^* or U^* X U. Two or more of
+// them are not free of each other. Empty when the expansion is too large to look.
+static std::set<std::string> bare_deterministic(const expr::Expression& expression) {
+  std::set<std::string> out;
+  std::vector<expr::Monomial> terms;
+  try {
+    terms = expression.expansion(10000);
+  } catch (const Error&) {
+    return out;
+  }
+  const auto& d = expression.declared();
+  const auto spec = [&](int i) -> const MatrixSpec& { return d[static_cast<std::size_t>(i)]; };
+  for (const auto& m : terms) {
+    const auto& w = m.letters;
+    for (std::size_t i = 0; i < w.size(); ++i) {
+      const MatrixSpec& x = spec(w[i].first);
+      if (declarations::is_random(x.kind)) continue;
+      if (x.kind == Kind::diagonal && x.diagonal.kind == declarations::DiagonalLawKind::atoms &&
+          x.diagonal.atoms.size() == 1) {
+        continue;  // b·I commutes with everything and is free of everything
+      }
+      const bool conjugated = i > 0 && i + 1 < w.size() && w[i - 1].first == w[i + 1].first &&
+                              w[i - 1].second != w[i + 1].second &&
+                              declarations::is_unitary(spec(w[i - 1].first).kind);
+      if (!conjugated) out.insert(x.name);
+    }
+  }
+  return out;
+}
+
+static std::string names_of(const std::set<std::string>& names) {
+  std::string out;
+  for (const auto& n : names) out += (out.empty() ? "" : ", ") + n;
+  return out;
+}
+
 static void exact_moments_into(const expr::Expression& expression, int max_moment,
                                bool eigenvalues, DerivedLimit& out) {
-  // Exact moments first: they stand on their own, whatever the rules say.
+  // Exact moments first: they stand on their own, whatever the rules say. The moment engine takes
+  // every matrix as a free variable, which two deterministic matrices outside Haar conjugations
+  // are not (they are given at each N, e.g. two diagonals commute): no exact moments then.
+  const std::set<std::string> bare = bare_deterministic(expression);
+  if (eigenvalues && bare.size() >= 2) {
+    out.moments_note = "no exact moments: the deterministic matrices " + names_of(bare) +
+                       " are not free of each other, and the moment engine takes every matrix "
+                       "as a free variable";
+    return;
+  }
   if (eigenvalues) {
     try {
       for (const ExactValue& v : limit_moments(expression, std::max(max_moment, 0))) {
@@ -803,11 +860,13 @@ static void singular_values_from_gram(const expr::Expression& expression, int ma
 
 namespace {
 
-DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment);
+DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment,
+                             Eigen::Index deterministic_size);
 
 }  // namespace
 
-DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
+DerivedLimit derive_limit(const expr::Expression& expression, int max_moment,
+                          Eigen::Index deterministic_size) {
   // One law whatever order the matrices were declared in: the solvers' rounding depends on the
   // order of the free variables (a pencil's rows, a convolution's operands), and `limit` takes
   // the order of its -m options while a job file's tables come sorted by name; derived in
@@ -823,13 +882,14 @@ DerivedLimit derive_limit(const expr::Expression& expression, int max_moment) {
   }
   const auto by_name = [](const MatrixSpec& a, const MatrixSpec& b) { return a.name < b.name; };
   if (!spiked && std::is_sorted(specs.begin(), specs.end(), by_name)) {
-    return derive_in_order(expression, max_moment);
+    return derive_in_order(expression, max_moment, deterministic_size);
   }
   std::stable_sort(specs.begin(), specs.end(), by_name);
   expr::CheckOptions check;
   check.force_singular_values = expression.spectrum() == expr::Spectrum::singular_values;
   DerivedLimit out =
-      derive_in_order(expr::Expression(expression.text(), std::move(specs), check), max_moment);
+      derive_in_order(expr::Expression(expression.text(), std::move(specs), check), max_moment,
+                      deterministic_size);
   if (spiked) {
     out.rate_key.clear();  // published finite-N rates are of the model without the spike
     if (out.law) {
@@ -879,7 +939,111 @@ std::string solver_law_fails_check(const PolynomialLaw& law, const expr::Express
   return {};
 }
 
-DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment) {
+// Appends the term c·w to a sum's expression text, which parses back to the same coefficient
+// (%.17g round-trips): "X", "- 0.5 * T", "(0 + 2 i) * A * B".
+void append_term(std::string& sum, const expr::Monomial& m, const std::vector<MatrixSpec>& d) {
+  const std::complex<double> c = m.coefficient;
+  char re[40], im[40];
+  std::snprintf(re, sizeof re, "%.17g", std::abs(c.real()));
+  std::snprintf(im, sizeof im, "%.17g", c.imag());
+  const bool negative = c.imag() == 0.0 && c.real() < 0.0;
+  std::string term;
+  if (c.imag() != 0.0) {
+    std::snprintf(re, sizeof re, "%.17g", c.real());
+    term = "(" + std::string(re) + (c.imag() < 0.0 ? " - " : " + ") +
+           std::string(im + (c.imag() < 0.0 ? 1 : 0)) + " i)";
+  } else if (std::abs(c.real()) != 1.0 || m.letters.empty()) {
+    term = re;
+  }
+  for (const auto& [letter, adjoint] : m.letters) {
+    term += std::string(term.empty() ? "" : " * ") + d[static_cast<std::size_t>(letter)].name +
+            (adjoint ? "^*" : "");
+  }
+  sum += sum.empty() ? (negative ? "-" + term : term) : (negative ? " - " : " + ") + term;
+}
+
+// The eigenvalue law of the polynomial `text` in deterministic matrices, formed at size n.
+LawPtr deterministic_law(const std::string& text, const std::vector<MatrixSpec>& d, Eigen::Index n,
+                         std::size_t& distinct) {
+  const expr::Expression q(text, d);
+  if (q.spectrum() != expr::Spectrum::eigenvalues) {
+    throw InputError("its deterministic terms are not self-adjoint");
+  }
+  std::vector<ensembles::Sample> samples(d.size());
+  for (std::size_t i = 0; i < d.size(); ++i) {
+    if (!declarations::is_random(d[i].kind)) samples[i] = ensembles::Sampler(d[i]).draw(n, 0, 0);
+  }
+  expr::Evaluated value = expr::Evaluation(q, n).evaluate(samples);
+  const Eigen::VectorXd eigenvalues = expr::compute_spectrum(expr::Spectrum::eigenvalues, value);
+  std::vector<Atom> points;
+  for (const auto& a : eigenvalue_atoms(eigenvalues)) points.push_back({a.value, a.weight});
+  distinct = points.size();
+  return atoms(std::move(points));
+}
+
+// The free deterministic equivalent at size n (Speicher & Vargas 2012, "Free deterministic
+// equivalents, rectangular random matrix models, and operator-valued free probability", Random
+// Matrices Theory Appl. 1) of P = R + Q, Q the terms in deterministic matrices only, R those in
+// random matrices only: the random matrices are replaced by their free limits and the
+// deterministic ones kept as they are at size n, so R's limit is free from Q_n and the law is
+// law(R) ⊞ μ(Q_n), μ the eigenvalue law. Sets `out` when it applies, else adds to its reason.
+void deterministic_equivalent(const expr::Expression& e, int max_moment, Eigen::Index n,
+                              DerivedLimit& out) {
+  const std::set<std::string> bare = bare_deterministic(e);
+  if (bare.size() < 2) return;
+  if (n <= 0) {
+    out.reason += "; with a size (limit --size N, or a job's largest size) the free deterministic "
+                  "equivalent is computed when " + names_of(bare) + " make up terms of their own";
+    return;
+  }
+  const auto& d = e.declared();
+  std::string q_text, r_text;
+  for (const auto& m : e.expansion(10000)) {
+    std::size_t deterministic = 0;
+    for (const auto& l : m.letters) {
+      deterministic += declarations::is_random(d[static_cast<std::size_t>(l.first)].kind) ? 0 : 1;
+    }
+    if (deterministic != 0 && deterministic != m.letters.size()) {
+      std::string term;
+      append_term(term, m, d);
+      out.reason += "; the free deterministic equivalent is computed when the deterministic "
+                    "matrices make up terms of their own, and " + term + " mixes them with "
+                    "random ones";
+      return;
+    }
+    append_term(deterministic != 0 || m.letters.empty() ? q_text : r_text, m, d);
+  }
+  try {
+    std::size_t distinct = 0;
+    const LawPtr q = deterministic_law(q_text, d, n, distinct);
+    std::string rule = "free deterministic equivalent at N = " + std::to_string(n) +
+                       " (Speicher & Vargas 2012): " + names_of(bare) +
+                       " are given at each N and not free of each other, so their terms Q = " +
+                       q_text + " are formed at N = " + std::to_string(n) + " (" +
+                       std::to_string(distinct) + " distinct eigenvalues)";
+    LawPtr law = q;
+    if (!r_text.empty()) {
+      const DerivedLimit r = derive_limit(expr::Expression(r_text, d), max_moment);
+      if (!r.law) throw InputError("the random terms " + r_text + " have no limit: " + r.reason);
+      law = free_additive(r.law, q);
+      rule += ", free from the limit of the random terms R = " + r_text + " (" + r.rule +
+              "): law(R) ⊞ μ(Q_N), free additive convolution (Voiculescu 1986; Belinschi & "
+              "Bercovici 2007)";
+    }
+    out.law = law;
+    out.rule = rule + "; at other sizes the comparison also holds the change of the "
+                      "deterministic matrices with N";
+    out.reason.clear();
+    out.rate_key.clear();
+  } catch (const Stopped&) {
+    throw;
+  } catch (const Error& err) {
+    out.reason += "; the free deterministic equivalent failed: " + std::string(err.what());
+  }
+}
+
+DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment,
+                             Eigen::Index deterministic_size) {
   // The exact moments stand on their own, whatever the rules say. They are computed on a thread
   // of their own while the rules and the solver work: in big rationals they took 1.7 s of the
   // 13 s of catalogue model 12 (−B³ + ½(AB + BA), decimal atoms).
@@ -953,6 +1117,7 @@ DerivedLimit derive_in_order(const expr::Expression& expression, int max_moment)
   } catch (const Error& e) {
     out.reason += "; the polynomial solver does not cover it either: " + std::string(e.what());
   }
+  if (!out.law) deterministic_equivalent(expression, max_moment, deterministic_size, out);
   return with_moments(out);
 }
 

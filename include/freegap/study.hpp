@@ -65,7 +65,10 @@ class Study {
   /// The limit of the expression with its exact moments up to max_moment: closed-form rules,
   /// free convolutions, then the polynomial solver (limit.hpp). Never throws for a model it
   /// cannot predict: `reason` says why.
-  analysis::DerivedLimit limit(int max_moment) const;
+  /// The limit of the model. Deterministic matrices that are not free of each other are formed
+  /// at `deterministic_size` (the free deterministic equivalent, analysis::derive_limit); 0 takes
+  /// the job's largest size, and a study of an expression alone has none.
+  analysis::DerivedLimit limit(int max_moment, Eigen::Index deterministic_size = 0) const;
 
  private:
   Study(job::Job job, expr::Expression expression);

@@ -32,6 +32,7 @@ struct LimitOptions {
   std::string output;
   int points = 400;
   int max_moment = 6;
+  std::int64_t size = 0;  // --size: where deterministic matrices are formed (0: none given)
   std::vector<double> window;  ///< LO, HI: the table's first and last x (empty: the support ± 5 %)
 };
 
@@ -152,11 +153,13 @@ int run_limit(const LimitOptions& opt) {
   if (!opt.output.empty()) output_dir::check_replaceable(opt.output, "limit", "-o");
   std::vector<declarations::MatrixSpec> specs;
   std::string expression_text = opt.expression;
+  std::int64_t size = opt.size;
   if (!opt.job.empty()) {
     // A job file's matrices as the run reads them (matrix files included, checked at its sizes).
     job::Job job = job::load_job(opt.job);
     specs = job.matrices;
     expression_text = job.expression;
+    if (size == 0 && !job.sizes.empty()) size = job.sizes.back();
   }
   for (const auto& d : opt.declarations) specs.push_back(model::parse_declaration(d));
   // The compiled study of the expression: the same checks and the same derivation as `report`,
@@ -164,7 +167,7 @@ int run_limit(const LimitOptions& opt) {
   // polynomial solver; singular values from the law of P^*P).
   const study::Study study = study::Study::of_expression(specs, expression_text);
   const expr::Expression& expression = study.expression();
-  const analysis::DerivedLimit derived = study.limit(opt.max_moment);
+  const analysis::DerivedLimit derived = study.limit(opt.max_moment, size);
   if (!derived.law) throw InputError("no limit is derived for '" + expression.text() + "': " + derived.reason);
   const analysis::LawPtr law = derived.law;
   const auto* polynomial = dynamic_cast<const analysis::PolynomialLaw*>(law.get());
@@ -229,6 +232,10 @@ Subcommand add_limit_command(CLI::App& app) {
       ->expected(2);
   cmd->add_option("-k,--max-moment", opt->max_moment, "Highest moment shown (default 6)")
       ->check(CLI::Range(1, 10));
+  cmd->add_option("--size", opt->size,
+                  "N at which deterministic matrices that are not free of each other are formed "
+                  "(the free deterministic equivalent; default: a job's largest size)")
+      ->check(CLI::Range(std::int64_t{1}, std::int64_t{100000}));
   return {cmd, [opt] { return run_limit(*opt); }};
 }
 

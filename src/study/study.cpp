@@ -315,8 +315,9 @@ void Study::check_threads(int threads) const {
   }
 }
 
-analysis::DerivedLimit Study::limit(int max_moment) const {
-  return analysis::derive_limit(expression_, max_moment);
+analysis::DerivedLimit Study::limit(int max_moment, Eigen::Index deterministic_size) const {
+  if (deterministic_size <= 0 && !job_.sizes.empty()) deterministic_size = job_.sizes.back();
+  return analysis::derive_limit(expression_, max_moment, deterministic_size);
 }
 
 }  // namespace freegap::study

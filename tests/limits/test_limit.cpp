@@ -148,6 +148,37 @@ TEST(LimitOfRun, UnitaryPairsGiveArcsineAndKestenMcKay) {
   EXPECT_NEAR(km.law->support().hi, 2.0 * std::sqrt(3.0), 1e-12);  // 2√(2d − 1), d = 2
 }
 
+// Two deterministic matrices that are not free of each other (a Toeplitz T and a diagonal D, which
+// do not commute): no N → ∞ law of the pair, and no exact moments (the moment engine would take
+// them as free). At a given size the law is the free deterministic equivalent (Speicher & Vargas
+// 2012): semicircle ⊞ μ(T_N + D_N). Its second moment is 1 + tr((T_N + D_N)²), and
+// tr((T + D)²) = (2(N − 1) + N)/N for T with ones beside the diagonal and D = ±1 (by hand).
+TEST(LimitOfRun, DeterministicMatricesNotFreeGetTheFreeDeterministicEquivalent) {
+  const std::vector<std::string> d = {"X=gue", "T=toeplitz:coefficients=0,1",
+                                      "D=diagonal:atoms=-1@0.5,1@0.5"};
+  std::vector<freegap::declarations::MatrixSpec> specs;
+  for (const auto& x : d) specs.push_back(freegap::model::parse_declaration(x));
+  const freegap::expr::Expression e("X + T + D", specs);
+  const auto without = fa::derive_limit(e, 4);
+  EXPECT_FALSE(without.law);
+  EXPECT_NE(without.reason.find("--size"), std::string::npos) << without.reason;
+  EXPECT_TRUE(without.exact_moments.empty());
+  EXPECT_NE(without.moments_note.find("not free of each other"), std::string::npos)
+      << without.moments_note;
+  const int n = 200;
+  const auto fde = fa::derive_limit(e, 4, n);
+  ASSERT_TRUE(fde.law) << fde.reason;
+  EXPECT_NE(fde.rule.find("free deterministic equivalent at N = 200"), std::string::npos) << fde.rule;
+  EXPECT_TRUE(fde.exact_moments.empty());
+  const auto m = fde.law->moments(2);
+  EXPECT_NEAR(m[1], 0.0, 1e-9);
+  EXPECT_NEAR(m[2], 1.0 + (2.0 * (n - 1) + n) / n, 1e-8);
+  // Deterministic matrices inside a product with a random one: not this form, and it says why.
+  const auto mixed = fa::derive_limit(freegap::expr::Expression("X T X + D T D", specs), 4, n);
+  EXPECT_FALSE(mixed.law);
+  EXPECT_NE(mixed.reason.find("mixes them with random ones"), std::string::npos) << mixed.reason;
+}
+
 // The imaginary unit. a·U + conj(a)·U^* is |a|·(V + V^*) with V = (a/|a|)·U again Haar: the
 // arcsine law on [−2|a|, 2|a|] (ref §1.3); with |a| = 1 pairs, Kesten–McKay as above. A complex
 // coefficient elsewhere goes to the polynomial solver: the commutator i(X1 X2 − X2 X1) of free

@@ -66,8 +66,22 @@ struct DerivedLimit {
 std::vector<declarations::Atom> file_matrix_eigenvalue_law(
     const declarations::MatrixSpec& spec, std::vector<std::size_t>* counts = nullptr);
 
+/// The eigenvalue law of a self-adjoint matrix's eigenvalues (ascending): each distinct value
+/// once with weight (its count)/n, eigenvalues within 8 n ε max|λ| of their neighbour counting as
+/// one, at their mean (LAPACK's backward error; common practice). `counts` receives the counts.
+std::vector<declarations::Atom> eigenvalue_atoms(const Eigen::VectorXd& ascending,
+                                                 std::vector<std::size_t>* counts = nullptr);
+
 /// The limit of `expression` (as checked for the run) with its exact moments up to max_moment.
 /// Never throws for a model it cannot predict: it says so in `reason`.
-DerivedLimit derive_limit(const expr::Expression& expression, int max_moment);
+///
+/// `deterministic_size` > 0: when two or more deterministic matrices (diagonal, Toeplitz, Jacobi,
+/// from files) enter outside Haar conjugations, they are not free of each other and have no
+/// N → ∞ law together; if they make up terms of their own (P = R + Q, Q a polynomial in them
+/// only, R in the random matrices only), the law is the free deterministic equivalent at that
+/// size (Speicher & Vargas 2012): law(R) ⊞ the eigenvalue law of Q formed at that size. The rule
+/// says so. 0: no such law (the reason says to give a size).
+DerivedLimit derive_limit(const expr::Expression& expression, int max_moment,
+                          Eigen::Index deterministic_size = 0);
 
 }  // namespace freegap::analysis
