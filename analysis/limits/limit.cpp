@@ -1031,8 +1031,8 @@ void deterministic_equivalent(const expr::Expression& e, int max_moment, Eigen::
               "Bercovici 2007)";
     }
     out.law = law;
-    out.rule = rule + "; at other sizes the comparison also holds the change of the "
-                      "deterministic matrices with N";
+    out.rule = rule + "; report compares every other size with its own";
+    out.deterministic_size = n;
     out.reason.clear();
     out.rate_key.clear();
   } catch (const Stopped&) {

@@ -422,6 +422,33 @@ void fit_run(RunResult& run, const ReportOptions& options) {
   }
 }
 
+// The reference of the distances at size n: the run's limit, or for a free deterministic
+// equivalent (DerivedLimit::deterministic_size) the equivalent formed at n itself, so that each
+// size is compared with its own deterministic matrices. Falls back to the run's reference, with a
+// note, when that one cannot be derived.
+LimitReference size_reference(RunResult& run, std::int64_t n, int max_moment) {
+  if (run.limit.deterministic_size <= 0 || !run.limit.law || n == run.limit.deterministic_size) {
+    return run.reference;
+  }
+  try {
+    const DerivedLimit own =
+        study::Study::of_stored_job(run.header.job_text, run.header.job_canonical, run.path,
+                                    run.header.job_directory)
+            .limit(max_moment, n);
+    if (own.law) return reference_of(own, run.header.spectrum);
+    run.notes.push_back("N = " + std::to_string(n) + " is compared with the free deterministic "
+                        "equivalent at N = " + std::to_string(run.limit.deterministic_size) +
+                        ": its own has no law (" + own.reason + ")");
+  } catch (const Stopped&) {
+    throw;
+  } catch (const Error& e) {
+    run.notes.push_back("N = " + std::to_string(n) + " is compared with the free deterministic "
+                        "equivalent at N = " + std::to_string(run.limit.deterministic_size) +
+                        ": its own failed (" + e.what() + ")");
+  }
+  return run.reference;
+}
+
 RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   RunResult run;
   run.path = path;
@@ -455,6 +482,12 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
   }
   MetricsOptions metrics;
   metrics.bootstrap_replicates = options.bootstrap_replicates;
+  if (run.limit.deterministic_size > 0 && run.limit.law) {
+    run.notes.push_back(
+        "the limit is a free deterministic equivalent: the distances of each size are to the "
+        "equivalent formed at that size; the limit section, the moments and the extremes show "
+        "the one at N = " + std::to_string(run.limit.deterministic_size));
+  }
   for (std::size_t i = 0; i < run.header.sizes.size(); ++i) {
     const auto& layout = run.header.sizes[i];
     SizeResult s;
@@ -480,7 +513,7 @@ RunResult analyse_run(const std::string& path, const ReportOptions& options) {
       data.edges = s.edges;
       data.unit_histograms = s.units;
       data.trials = s.trials;
-      s.metrics = compute_size_metrics(data, run.reference, metrics);
+      s.metrics = compute_size_metrics(data, size_reference(run, s.n, max_moment), metrics);
     }
     run.sizes.push_back(std::move(s));
   }

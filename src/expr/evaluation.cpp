@@ -295,8 +295,9 @@ class Lowering {
       case AstNode::Kind::sum:
         for (std::size_t i = 0; i < node.children.size(); ++i) {
           const Lin child = lower(node.children[i]);
-          out.identity += static_cast<double>(node.signs[i]) * child.identity;
-          for (const auto& [c, r] : child.terms) out.terms.push_back({static_cast<double>(node.signs[i]) * c, r});
+          const double sign = node.signs[i];
+          out.identity += sign * child.identity;
+          for (const auto& [c, r] : child.terms) out.terms.push_back({sign * c, r});
         }
         break;
       case AstNode::Kind::product: {

@@ -528,7 +528,8 @@ class Algebra {
       case AstNode::Kind::sum: {
         Poly out;
         for (std::size_t i = 0; i < node.children.size(); ++i) {
-          for (const auto& [w, c] : expand(node.children[i])) out[w] += static_cast<double>(node.signs[i]) * c;
+          const double sign = node.signs[i];
+          for (const auto& [w, c] : expand(node.children[i])) out[w] += sign * c;
           if (out.size() > cap_) throw monomial_cap();
         }
         return out;

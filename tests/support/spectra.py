@@ -27,10 +27,11 @@ def kolmogorov_bound(count, size):
     return 1.63 / math.sqrt(count) + 2.0 / size
 
 
-def kept_spectra(run_file):
-    """Every kept spectrum of a run file: the datasets whose name ends in "spectra", as arrays."""
+def kept_spectra(run_file, size=None):
+    """The kept spectra of a run file (one dataset per size, trials × N, whose name ends in
+    "spectra"), as arrays; with `size`, only that size's."""
     out = []
     with h5py.File(run_file, "r") as h5:
         h5.visititems(lambda name, obj: out.append(np.asarray(obj))
                       if isinstance(obj, h5py.Dataset) and name.endswith("spectra") else None)
-    return out
+    return [s for s in out if size is None or (s.ndim == 2 and s.shape[1] == size)]

@@ -54,6 +54,9 @@ struct DerivedLimit {
   std::string law_note;
   /// The outliers of a spiked diagonal (outliers.hpp); `law` is then the bulk's law.
   OutlierPrediction outliers;
+  /// > 0: `law` is the free deterministic equivalent formed at this size (derive_limit), and each
+  /// other size has its own; 0 for an N → ∞ law.
+  Eigen::Index deterministic_size = 0;
 };
 
 /// The eigenvalue law of a matrix read from a file (ensemble "file"): the matrix of its
